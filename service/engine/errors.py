@@ -1,0 +1,43 @@
+"""Typed errors raised by the engine.
+
+    EngineError                 base: every error the engine raises on purpose
+    ├── QuestionError           the question cannot be answered as posed (names a field)
+    │   └── BudgetExceeded      the simulation would cost more than the budget allows
+    └── Cancelled               the caller asked to stop (checked between chunks)
+"""
+
+from __future__ import annotations
+
+
+class EngineError(Exception):
+    """Base class of every error the engine raises on purpose."""
+
+
+class QuestionError(EngineError):
+    """The question cannot be answered as posed; ``field`` is a dotted path into the question."""
+
+    def __init__(self, field: str, message: str):
+        super().__init__(f"{field}: {message}")
+        self.field = field
+        self.message = message
+
+    def as_errors(self) -> dict[str, list[str]]:
+        """Return the error as a field-keyed mapping, the shape the API and CLI print."""
+        return {self.field: [self.message]}
+
+
+class BudgetExceeded(QuestionError):
+    """The estimated simulation cost is above the configured budget."""
+
+    def __init__(self, estimate: int, budget: int):
+        super().__init__(
+            "simulation.replicates",
+            f"estimated cost {estimate:,} draws exceeds the budget of {budget:,}; "
+            "lower the replicates or ask for an analytic answer",
+        )
+        self.estimate = estimate
+        self.budget = budget
+
+
+class Cancelled(EngineError):
+    """The caller's cancel hook returned true between two chunks."""

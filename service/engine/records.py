@@ -1,0 +1,89 @@
+"""Result records: canonical JSON, the record hash, versions and the standing cautions."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from importlib import metadata
+from typing import Any
+
+import numpy as np
+import scipy
+
+RECORD_VERSION = 1
+
+CAUTIONS = (
+    "A computed sample size is a planning aid, not a decision: it rests on the assumed effect, "
+    "variability and design stated in the question.",
+    "The calculation and its assumptions should be reviewed by a qualified statistician before "
+    "the protocol is submitted.",
+    "Ethics committees, regulators and local rules govern the final sample size and analysis plan.",
+)
+
+
+def sizewise_version() -> str:
+    """Return the installed sizewise version (or 'unknown' when run from a bare checkout)."""
+    try:
+        return metadata.version("sizewise")
+    except metadata.PackageNotFoundError:  # pragma: no cover - only outside an install
+        return "unknown"
+
+
+def versions() -> dict[str, str]:
+    """Return the versions that can change the digits of a result."""
+    return {"numpy": np.__version__, "scipy": scipy.__version__, "sizewise": sizewise_version()}
+
+
+def _plain(value: Any) -> Any:
+    """Convert numpy scalars/arrays and tuples to JSON types; reject NaN and infinity."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return [_plain(v) for v in value.tolist()]
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        if not math.isfinite(value):
+            raise ValueError(f"non-finite number {value!r} in a result record")
+        return value
+    return value
+
+
+def plain(value: Any) -> Any:
+    """Return ``value`` as plain JSON types (dicts, lists, str, int, float, bool, None)."""
+    return _plain(value)
+
+
+def canonical_json(value: Any) -> str:
+    """Serialise to the one canonical form that is hashed: sorted keys, no spaces, UTF-8."""
+    return json.dumps(
+        _plain(value), sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
+    )
+
+
+def record_hash(record: dict) -> str:
+    """SHA-256 of the canonical JSON of a record without its own ``record_sha256`` field."""
+    body = {k: v for k, v in record.items() if k != "reproducibility"}
+    repro = {k: v for k, v in record.get("reproducibility", {}).items() if k != "record_sha256"}
+    body["reproducibility"] = repro
+    return hashlib.sha256(canonical_json(body).encode("utf-8")).hexdigest()
+
+
+def seal(record: dict) -> dict:
+    """Return the record as plain JSON types with ``reproducibility.record_sha256`` filled in."""
+    record = _plain(record)
+    record.setdefault("reproducibility", {})
+    record["reproducibility"]["record_sha256"] = record_hash(record)
+    return record
+
+
+def verify(record: dict) -> bool:
+    """True when the stored hash matches the record's content."""
+    stored = record.get("reproducibility", {}).get("record_sha256")
+    return stored is not None and stored == record_hash(record)

@@ -35,6 +35,7 @@ class Design:
     power : (q, per_arm, alpha) -> analytic power at the given (possibly fractional) n per arm.
     solve_effect : (q, per_arm, alpha) -> {"field": name, "value": x} reaching target power.
     describe : q -> the ``method`` block of an analytic record (formula name and reference).
+    warnings_for : optional (q, per_arm) -> list of plain-language warnings (approximation limits).
     """
 
     name: str
@@ -46,6 +47,7 @@ class Design:
     power: Callable[[dict, list[float], float], float]
     solve_effect: Callable[[dict, list[float], float], dict]
     describe: Callable[[dict], dict]
+    warnings_for: Callable[[dict, list[float]], list[str]] | None = None
 
 
 def _registry() -> dict[str, Design]:
@@ -92,7 +94,7 @@ FORMULAS = {
     "two_means": ("student", "welch"),
     "paired_mean": ("noncentral_t",),
     "one_mean": ("noncentral_t",),
-    "two_proportions": ("pooled_z", "arcsine"),
+    "two_proportions": ("pooled_z", "unpooled_z", "arcsine"),
     "anova_oneway": ("noncentral_f",),
     "correlation": ("fisher_z",),
     "rank_sum": ("noether",),

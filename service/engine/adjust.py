@@ -1,0 +1,125 @@
+"""Adjustment steps shared by every design: Bonferroni alpha, rounding, design effect, dropout.
+
+Inflating goes raw n → whole subjects → × design effect → ÷ (1 − dropout); deflating walks the
+same steps backwards to turn enrolled numbers into the effective n the power functions use.
+"""
+
+from __future__ import annotations
+
+import math
+
+# Floating error can leave 64.0000000001 where the algebra says 64; do not round that up to 65.
+_EPS = 1e-9
+
+
+def _ceil(x: float) -> int:
+    """Round up, ignoring floating-point noise just above an integer."""
+    return int(math.ceil(x - _EPS))
+
+
+def _adjustments(q: dict) -> dict:
+    """Return the question's adjustments block with defaults for anything missing."""
+    adj = q.get("adjustments") or {}
+    return {
+        "dropout": float(adj.get("dropout") or 0.0),
+        "cluster": adj.get("cluster"),
+        "comparisons": int(adj.get("comparisons") or 1),
+    }
+
+
+def design_effect(q: dict) -> tuple[float, float, float] | None:
+    """Return (mean cluster size, ICC, design effect 1 + (m − 1)·ICC), or None without clustering."""
+    cluster = _adjustments(q)["cluster"]
+    if not cluster:
+        return None
+    m, icc = float(cluster["mean_size"]), float(cluster["icc"])
+    # Rounded so 1 + 19·0.05 is recorded as 1.95, not 1.9500000000000002.
+    return m, icc, round(1.0 + (m - 1.0) * icc, 12)
+
+
+def alpha_for(q: dict) -> tuple[float, dict | None]:
+    """Return the alpha per comparison (Bonferroni) and its step record (None for one comparison)."""
+    alpha = float(q["alpha"])
+    k = _adjustments(q)["comparisons"]
+    if k <= 1:
+        return alpha, None
+    per = alpha / k
+    return per, {
+        "step": "bonferroni",
+        "comparisons": k,
+        "alpha": alpha,
+        "alpha_per_comparison": per,
+    }
+
+
+def inflate(raw_per_arm: list[float], q: dict) -> tuple[list[int], list[dict], dict]:
+    """Turn raw n per arm into enrolled whole subjects: ceil, × design effect, ÷ (1 − dropout)."""
+    adj = _adjustments(q)
+    # Fewer than 2 per arm cannot estimate a variance; small raw answers are lifted to 2.
+    per_arm = [max(2, _ceil(float(x))) for x in raw_per_arm]
+    steps: list[dict] = [
+        {"step": "base", "per_arm_raw": [float(x) for x in raw_per_arm], "per_arm": list(per_arm)}
+    ]
+    extras: dict = {}
+    de = design_effect(q)
+    if de is not None:
+        m, icc, factor = de
+        per_arm = [_ceil(n * factor) for n in per_arm]
+        clusters = [_ceil(n / m) for n in per_arm]
+        steps.append(
+            {
+                "step": "design_effect",
+                "mean_cluster_size": m,
+                "icc": icc,
+                "factor": factor,
+                "per_arm": list(per_arm),
+                "clusters_per_arm": clusters,
+            }
+        )
+        extras["clusters_per_arm"] = clusters
+    rate = adj["dropout"]
+    if rate > 0:
+        # Enrol n / (1 − q) so that n remain after a fraction q drop out (n·(1 + q) keeps too few).
+        per_arm = [_ceil(n / (1.0 - rate)) for n in per_arm]
+        steps.append({"step": "dropout", "rate": rate, "per_arm": list(per_arm)})
+    return per_arm, steps, extras
+
+
+def deflate(enrolled_per_arm: list[int], q: dict) -> tuple[list[float], list[dict]]:
+    """Turn enrolled n per arm into the effective n for power: × (1 − dropout), ÷ design effect."""
+    adj = _adjustments(q)
+    per_arm = [float(n) for n in enrolled_per_arm]
+    steps: list[dict] = [{"step": "enrolled", "per_arm": [int(n) for n in enrolled_per_arm]}]
+    rate = adj["dropout"]
+    if rate > 0:
+        per_arm = [n * (1.0 - rate) for n in per_arm]
+        steps.append({"step": "dropout", "rate": rate, "per_arm": list(per_arm)})
+    de = design_effect(q)
+    if de is not None:
+        m, icc, factor = de
+        per_arm = [n / factor for n in per_arm]
+        steps.append(
+            {
+                "step": "design_effect",
+                "mean_cluster_size": m,
+                "icc": icc,
+                "factor": factor,
+                "per_arm": list(per_arm),
+                "clusters_per_arm": [_ceil(n / m) for n in enrolled_per_arm],
+            }
+        )
+    return per_arm, steps
+
+
+def split_total(total: int, allocation: list[float]) -> list[int]:
+    """Split ``total`` subjects over arms in proportion to ``allocation`` by largest remainders."""
+    weights = [float(a) for a in allocation]
+    s = sum(weights)
+    quotas = [total * w / s for w in weights]
+    parts = [int(math.floor(x)) for x in quotas]
+    left = total - sum(parts)
+    # Ties go to the earlier arm (control first) so the split is deterministic.
+    order = sorted(range(len(quotas)), key=lambda i: (-(quotas[i] - parts[i]), i))
+    for i in order[:left]:
+        parts[i] += 1
+    return parts

@@ -1,0 +1,289 @@
+"""Two independent proportions: pooled and unpooled z, Fleiss continuity correction, arcsine (h)."""
+
+from __future__ import annotations
+
+import math
+
+from scipy import stats
+
+from ..errors import QuestionError
+from ..quantiles import effect_value, normal_power, power_unreachable, root, z, z_alpha
+from . import FORMULAS as _ALL_FORMULAS
+from . import TESTS, Design, Solution
+
+# "unpooled_z" is offered for superiority once the registry lists it (the NI/equivalence
+# answers always use the unpooled variance).
+FORMULAS = tuple(_ALL_FORMULAS["two_proportions"]) + tuple(
+    f for f in ("unpooled_z",) if f not in _ALL_FORMULAS["two_proportions"]
+)
+_EDGE = 1e-9
+
+
+def _hypothesis(q: dict) -> tuple[str, float | None, bool]:
+    """Return (kind, margin, higher_is_better) with the defaults of a superiority question."""
+    h = q.get("hypothesis") or {}
+    return h.get("kind", "superiority"), h.get("margin"), bool(h.get("higher_is_better", True))
+
+
+def _prob(q: dict, name: str) -> float:
+    """Return a proportion from the effect, checked to lie strictly between 0 and 1."""
+    p = effect_value(q, name)
+    if not 0.0 < p < 1.0:
+        raise QuestionError(f"effect.{name}", f"must be strictly between 0 and 1; got {p:g}")
+    return p
+
+
+def _setup(q: dict) -> tuple[str, str, float | None, bool, bool]:
+    """Return (formula, kind, margin, higher_is_better, continuity) after checking they combine."""
+    formula = q.get("formula") or FORMULAS[0]
+    if formula not in FORMULAS:
+        raise QuestionError(
+            "formula",
+            f"'{formula}' is not offered for two_proportions; use one of {list(FORMULAS)}",
+        )
+    kind, margin, higher = _hypothesis(q)
+    cc = bool((q.get("effect") or {}).get("continuity_correction", False))
+    if kind not in ("superiority", "noninferiority", "equivalence"):
+        raise QuestionError("hypothesis.kind", f"'{kind}' is not offered for two_proportions")
+    if kind != "superiority":
+        if margin is None:
+            raise QuestionError("hypothesis.margin", f"is required for a {kind} question")
+        if formula == "arcsine":
+            raise QuestionError(
+                "formula", f"'arcsine' is offered for superiority only; got a {kind} question"
+            )
+    if cc and (formula != "pooled_z" or kind != "superiority"):
+        raise QuestionError(
+            "effect.continuity_correction",
+            "the continuity correction is offered only with formula 'pooled_z' for superiority",
+        )
+    return formula, kind, margin, higher, cc
+
+
+def _var1(p1: float, p2: float, n1: float, n2: float) -> float:
+    """Return the unpooled variance of p̂2 − p̂1."""
+    return p1 * (1 - p1) / n1 + p2 * (1 - p2) / n2
+
+
+def _power_at(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: float) -> float:
+    """Return the power for true proportions p1 (control) and p2 (treatment) at n1 and n2."""
+    formula, kind, margin, higher, cc = _setup(q)
+    sides = int(q.get("sides", 2))
+    if kind == "superiority":
+        z_a = z_alpha(alpha, sides)
+        if formula == "arcsine":
+            h = 2 * math.asin(math.sqrt(p2)) - 2 * math.asin(math.sqrt(p1))
+            return normal_power(h / math.sqrt(1 / n1 + 1 / n2), z_a, sides)
+        diff = abs(p2 - p1)
+        sd1 = math.sqrt(_var1(p1, p2, n1, n2))
+        if formula == "unpooled_z":
+            return normal_power(diff / sd1, z_a, sides)
+        pbar = (n1 * p1 + n2 * p2) / (n1 + n2)
+        sd0 = math.sqrt(pbar * (1 - pbar) * (1 / n1 + 1 / n2))
+        # Fleiss' correction shrinks the observed difference by (1/n1 + 1/n2)/2.
+        k = (1 / n1 + 1 / n2) / 2 if cc else 0.0
+        power = stats.norm.cdf((diff - k - z_a * sd0) / sd1)
+        if sides == 2:
+            power += stats.norm.cdf((-diff - k - z_a * sd0) / sd1)
+        return float(min(power, 1.0))
+    z_a = z(1 - alpha)
+    sd1 = math.sqrt(_var1(p1, p2, n1, n2))
+    diff = p2 - p1
+    if kind == "noninferiority":
+        sign = 1.0 if higher else -1.0
+        return float(stats.norm.cdf(sign * (diff - margin) / sd1 - z_a))
+    power = (
+        stats.norm.cdf((margin - diff) / sd1 - z_a)
+        + stats.norm.cdf((margin + diff) / sd1 - z_a)
+        - 1
+    )
+    return float(max(power, 0.0))
+
+
+def _check_effect(q: dict, p1: float, p2: float) -> None:
+    """Refuse proportions that no sample size can turn into the target power."""
+    _, kind, margin, higher, _ = _setup(q)
+    diff = p2 - p1
+    if kind == "superiority" and diff == 0:
+        raise QuestionError(
+            "effect.p_treatment", f"must differ from p_control ({p1:g}) for a superiority question"
+        )
+    if kind == "noninferiority" and not (diff > margin if higher else diff < margin):
+        side = "above" if higher else "below"
+        raise QuestionError(
+            "effect.p_treatment",
+            f"{p2:g} gives a difference {diff:g} that must lie {side} the margin {margin:g}",
+        )
+    if kind == "equivalence" and not abs(diff) < margin:
+        raise QuestionError(
+            "effect.p_treatment",
+            f"{p2:g} gives a difference {diff:g} outside the equivalence bounds ±{margin:g}",
+        )
+
+
+def allocation(q: dict) -> list[float]:
+    """Return the relative arm sizes [control, treatment]."""
+    return [1.0, float(q.get("allocation_ratio") or 1.0)]
+
+
+def arms(q: dict) -> int:
+    """Return the number of arms (two)."""
+    return 2
+
+
+def solve_n(q: dict, alpha: float) -> Solution:
+    """Return the unrounded n per arm from the closed-form formula (root finding for equivalence)."""
+    formula, kind, margin, higher, cc = _setup(q)
+    p1, p2 = _prob(q, "p_control"), _prob(q, "p_treatment")
+    _check_effect(q, p1, p2)
+    r = allocation(q)[1]
+    sides = int(q.get("sides", 2))
+    z_b = z(float(q["target_power"]))
+    extra: dict = {}
+    if kind == "superiority":
+        z_a = z_alpha(alpha, sides)
+        if formula == "arcsine":
+            h = 2 * math.asin(math.sqrt(p2)) - 2 * math.asin(math.sqrt(p1))
+            n1 = (1 + 1 / r) * ((z_a + z_b) / h) ** 2
+            extra["cohens_h"] = h
+        elif formula == "unpooled_z":
+            n1 = (z_a + z_b) ** 2 * (p1 * (1 - p1) + p2 * (1 - p2) / r) / (p2 - p1) ** 2
+        else:
+            pbar = (p1 + r * p2) / (1 + r)
+            a = z_a * math.sqrt(pbar * (1 - pbar) * (1 + 1 / r))
+            b = z_b * math.sqrt(p1 * (1 - p1) + p2 * (1 - p2) / r)
+            n1 = ((a + b) / (p2 - p1)) ** 2
+            if cc:
+                extra["uncorrected_per_arm"] = [n1, r * n1]
+                c = 2 * (r + 1) / (r * n1 * abs(p2 - p1))
+                n1 = n1 / 4 * (1 + math.sqrt(1 + c)) ** 2
+    elif kind == "noninferiority":
+        z_a = z(1 - alpha)
+        n1 = (z_a + z_b) ** 2 * (p1 * (1 - p1) + p2 * (1 - p2) / r) / (p2 - p1 - margin) ** 2
+    else:
+        # Both one-sided tests must reject; no closed form away from p2 = p1, so solve the curve.
+        target = float(q["target_power"])
+        f = lambda n: _power_at(q, p1, p2, n, r * n, alpha) - target  # noqa: E731
+        hi = 16.0
+        while f(hi) < 0:
+            hi *= 4
+            if hi > 1e12:
+                raise QuestionError(
+                    "effect.p_treatment", "the difference is too close to the bounds to plan for"
+                )
+        n1 = root(f, 1e-6, hi)
+    return Solution(per_arm=[n1, r * n1], extra=extra)
+
+
+def power(q: dict, per_arm: list[float], alpha: float) -> float:
+    """Return the normal-approximation power at the given (possibly fractional) n per arm."""
+    p1, p2 = _prob(q, "p_control"), _prob(q, "p_treatment")
+    _setup(q)
+    return _power_at(q, p1, p2, float(per_arm[0]), float(per_arm[1]), alpha)
+
+
+def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
+    """Return the treatment proportion nearest p_control (in the better direction) reaching target power."""
+    _, kind, margin, higher, _ = _setup(q)
+    p1 = _prob(q, "p_control")
+    n1, n2 = float(per_arm[0]), float(per_arm[1])
+    target = float(q["target_power"])
+    sign = 1.0 if higher else -1.0
+    end = 1.0 - _EDGE if higher else _EDGE
+
+    def f(p2: float) -> float:
+        return _power_at(q, p1, p2, n1, n2, alpha) - target
+
+    if kind == "equivalence":
+        start = p1
+        end = min(max(p1 + sign * margin, _EDGE), 1.0 - _EDGE)
+        if f(start) < 0:
+            raise power_unreachable("sample_size.per_arm", target, per_arm)
+        if f(end) >= 0:
+            return {"field": "p_treatment", "value": float(end)}
+        return {"field": "p_treatment", "value": root(f, start, end)}
+    start = p1 if kind == "superiority" else p1 + margin
+    start = min(max(start, _EDGE), 1.0 - _EDGE)
+    if f(start) >= 0:
+        return {"field": "p_treatment", "value": float(start)}
+    if f(end) < 0:
+        raise power_unreachable("sample_size.per_arm", target, per_arm)
+    return {"field": "p_treatment", "value": root(f, start, end)}
+
+
+def warnings_for(q: dict, per_arm: list[float]) -> list[str]:
+    """Return plain-language warnings when the normal approximation is strained (n·p < 5)."""
+    out = []
+    eff = q.get("effect") or {}
+    for arm, name, n in zip(
+        ("control", "treatment"), ("p_control", "p_treatment"), per_arm, strict=False
+    ):
+        p = eff.get(name)
+        if p is None:
+            continue
+        expected = min(float(n) * p, float(n) * (1 - p))
+        if expected < 5:
+            out.append(
+                f"The expected count in the {arm} arm is {expected:.1f} (below 5): the normal "
+                "approximation is rough here; a simulated Fisher exact test is safer."
+            )
+    return out
+
+
+def describe(q: dict) -> dict:
+    """Return the analytic method block for the record."""
+    formula, kind, margin, higher, cc = _setup(q)
+    if kind != "superiority":
+        what = (
+            "non-inferiority" if kind == "noninferiority" else "equivalence (two one-sided tests)"
+        )
+        return {
+            "kind": "analytic",
+            "formula": f"normal approximation, unpooled variance, {what}",
+            "reference": "Chow, Shao & Wang (2008), ch. 4",
+            "notes": [
+                f"One-sided tests at alpha against the margin {margin:g} on the difference "
+                "p_treatment − p_control."
+            ],
+        }
+    if formula == "arcsine":
+        return {
+            "kind": "analytic",
+            "formula": "arcsine transformation (Cohen's h)",
+            "reference": "Cohen (1988), ch. 6",
+            "notes": ["h = 2·asin√p_treatment − 2·asin√p_control; Var(2·asin√p̂) ≈ 1/n."],
+        }
+    if formula == "unpooled_z":
+        return {
+            "kind": "analytic",
+            "formula": "normal approximation, unpooled variance",
+            "reference": "Chow, Shao & Wang (2008), ch. 4",
+            "notes": ["The variance under both hypotheses is p1(1 − p1)/n1 + p2(1 − p2)/n2."],
+        }
+    notes = ["Pooled variance under H0, unpooled under the alternative."]
+    if cc:
+        notes.append(
+            "Fleiss continuity correction: n = n′/4·(1 + √(1 + 2(r + 1)/(r·n′·|Δ|)))², "
+            "which is n′/4·(1 + √(1 + 4/(n′·|Δ|)))² for equal arms."
+        )
+    return {
+        "kind": "analytic",
+        "formula": "normal approximation, pooled variance"
+        + (", continuity corrected" if cc else ""),
+        "reference": "Fleiss, Levin & Paik (2003), ch. 4",
+        "notes": notes,
+    }
+
+
+DESIGN = Design(
+    name="two_proportions",
+    formulas=FORMULAS,
+    tests=TESTS["two_proportions"],
+    arms=arms,
+    allocation=allocation,
+    solve_n=solve_n,
+    power=power,
+    solve_effect=solve_effect,
+    describe=describe,
+    warnings_for=warnings_for,
+)

@@ -1,0 +1,102 @@
+"""Small numeric helpers shared by the analytic designs: quantiles, normal power, root finding."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+from scipy import optimize, stats
+
+from .errors import QuestionError
+
+# Largest n per arm the solvers look at; beyond it an effect is "too small to plan for".
+MAX_N = 1e9
+
+
+def z(p: float) -> float:
+    """Return the standard normal quantile at probability ``p``."""
+    return float(stats.norm.ppf(p))
+
+
+def z_alpha(alpha: float, sides: int) -> float:
+    """Return the critical normal value for a test at ``alpha`` with ``sides`` tails."""
+    return z(1.0 - alpha / sides)
+
+
+def normal_power(shift: float, z_a: float, sides: int) -> float:
+    """Return the power of a z test whose statistic is N(shift, 1), including the far tail."""
+    shift = abs(shift)
+    power = stats.norm.cdf(shift - z_a)
+    if sides == 2:
+        power += stats.norm.cdf(-shift - z_a)
+    return float(power)
+
+
+def t_power(ncp: float, df: float, alpha: float, sides: int) -> float:
+    """Return the power of a t test with noncentrality ``ncp`` (both tails when two-sided)."""
+    tc = stats.t.ppf(1.0 - alpha / sides, df)
+    power = float(stats.nct.sf(tc, df, ncp))
+    if sides == 2:
+        # The far tail is negligible once ncp is large, where scipy's nct can return NaN.
+        far = float(stats.nct.sf(tc, df, -ncp))
+        power += far if math.isfinite(far) else 0.0
+    if not math.isfinite(power):
+        raise ValueError(f"noncentral t power is not finite at df={df:g}, ncp={ncp:g}")
+    return min(max(power, 0.0), 1.0)
+
+
+def effect_value(q: dict, name: str) -> float:
+    """Return ``q["effect"][name]`` as a float, or a QuestionError naming the missing field."""
+    value = (q.get("effect") or {}).get(name)
+    if value is None:
+        raise QuestionError(f"effect.{name}", "is required for this question")
+    return float(value)
+
+
+def root(f: Callable[[float], float], lo: float, hi: float) -> float:
+    """Return the root of ``f`` on [lo, hi] (a sign change is required) by Brent's method."""
+    lo, hi = min(lo, hi), max(lo, hi)
+    return float(optimize.brentq(f, lo, hi, xtol=1e-12, rtol=1e-12, maxiter=500))
+
+
+def solve_increasing(
+    f: Callable[[float], float],
+    target: float,
+    lo: float,
+    *,
+    hi: float = 16.0,
+    limit: float = MAX_N,
+) -> float | None:
+    """Return the smallest x ≥ lo with f(x) = target for an increasing f, expanding hi; None if out of reach."""
+    if f(lo) >= target:
+        return lo
+    hi = max(hi, 2.0 * lo)
+    while f(hi) < target:
+        if hi >= limit:
+            return None
+        lo, hi = hi, min(hi * 4.0, limit)
+    return root(lambda x: f(x) - target, lo, hi)
+
+
+def solve_n_or_raise(
+    f: Callable[[float], float], target: float, lo: float, *, field: str, value: float
+) -> float:
+    """Solve the increasing power curve ``f(n) = target`` or raise a QuestionError naming ``field``."""
+    n = solve_increasing(f, target, lo)
+    if n is None or not math.isfinite(n):
+        raise QuestionError(
+            field,
+            f"{value:g} is too small an effect: power {target:g} is not reached below "
+            f"{MAX_N:.0e} per arm",
+        )
+    return n
+
+
+def power_unreachable(field: str, target: float, per_arm: list[float]) -> QuestionError:
+    """Return the error raised when no effect reaches the target power at the given n."""
+    shown = [round(float(n), 2) for n in per_arm]
+    return QuestionError(
+        field,
+        f"no effect in the allowed range reaches power {target:g} with {shown} per arm "
+        "after adjustments; enrol more or lower the target power",
+    )

@@ -1,0 +1,115 @@
+"""Adjustment steps: Bonferroni, rounding, design effect, dropout, and the reverse for power."""
+
+from __future__ import annotations
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from service.engine import adjust
+
+
+def make_q(
+    *, dropout: float = 0.0, cluster: dict | None = None, comparisons: int = 1, alpha: float = 0.05
+) -> dict:
+    """Build the part of a normalized question the adjustment steps read (DEVELOPERS.md)."""
+    return {
+        "alpha": alpha,
+        "adjustments": {"dropout": dropout, "cluster": cluster, "comparisons": comparisons},
+    }
+
+
+def test_design_effect_donner_klar():
+    # formula: Donner & Klar (2000), 1 + (m − 1)·ICC; m = 20, ICC .05 → 1.95; 64 → 125; 7 clusters
+    final, steps, extras = adjust.inflate(
+        [63.77, 63.77], make_q(cluster={"mean_size": 20, "icc": 0.05})
+    )
+    assert final == [125, 125]
+    assert extras == {"clusters_per_arm": [7, 7]}
+    de = steps[1]
+    assert de["step"] == "design_effect" and de["factor"] == 1.95
+    assert de["mean_cluster_size"] == 20 and de["icc"] == 0.05
+    assert steps[0] == {"step": "base", "per_arm_raw": [63.77, 63.77], "per_arm": [64, 64]}
+
+
+@pytest.mark.parametrize(
+    ("n", "rate", "expected"),
+    [
+        (64, 0.20, 80),  # common practice, no source: n/(1 − q); n·(1 + q) = 77 keeps only 61.6
+        (63, 0.15, 75),  # common practice, no source: 63/0.85 = 74.12 → 75
+    ],
+)
+def test_dropout_divides_by_retention(n, rate, expected):
+    final, steps, _ = adjust.inflate([float(n)], make_q(dropout=rate))
+    assert final == [expected]
+    assert steps[-1] == {"step": "dropout", "rate": rate, "per_arm": [expected]}
+    assert final[0] * (1 - rate) >= n
+
+
+def test_steps_are_ordered_base_design_effect_dropout():
+    # common practice, no source: the design effect applies to analysable subjects, dropout last
+    final, steps, _ = adjust.inflate(
+        [64.0], make_q(dropout=0.2, cluster={"mean_size": 20, "icc": 0.05})
+    )
+    assert [s["step"] for s in steps] == ["base", "design_effect", "dropout"]
+    assert final == [157]  # 125 / 0.8 = 156.25 → 157
+
+
+def test_ceiling_ignores_floating_noise():
+    # common practice, no source: 64.0000000001 from floating error is 64, 64.01 is 65
+    assert adjust.inflate([64.0000000001, 64.01], make_q())[0] == [64, 65]
+
+
+def test_bonferroni():
+    # formula: Bonferroni, alpha / k
+    assert adjust.alpha_for(make_q()) == (0.05, None)
+    alpha, step = adjust.alpha_for(make_q(comparisons=4))
+    assert alpha == pytest.approx(0.0125)
+    assert step == {
+        "step": "bonferroni",
+        "comparisons": 4,
+        "alpha": 0.05,
+        "alpha_per_comparison": pytest.approx(0.0125),
+    }
+
+
+def test_deflate_reverses_inflate():
+    # common practice, no source: 80 enrolled with 20% dropout leave 64 analysable
+    effective, steps = adjust.deflate([80, 80], make_q(dropout=0.2))
+    assert effective == pytest.approx([64.0, 64.0])
+    assert [s["step"] for s in steps] == ["enrolled", "dropout"]
+    effective, steps = adjust.deflate(
+        [156, 156], make_q(dropout=0.2, cluster={"mean_size": 20, "icc": 0.05})
+    )
+    # formula: 156·0.8 / 1.95 = 64
+    assert effective == pytest.approx([64.0, 64.0])
+    assert steps[-1]["clusters_per_arm"] == [8, 8]
+
+
+def test_deflate_without_adjustments_is_identity():
+    # common practice, no source
+    effective, steps = adjust.deflate([30, 45], make_q())
+    assert effective == [30.0, 45.0] and steps == [{"step": "enrolled", "per_arm": [30, 45]}]
+
+
+@pytest.mark.parametrize(
+    ("total", "allocation", "expected"),
+    [
+        (100, [1, 2], [33, 67]),  # largest remainder: 33.33 / 66.67
+        (7, [1, 1], [4, 3]),  # tie goes to the first (control) arm
+        (10, [1, 1, 1], [4, 3, 3]),
+        (138, [1, 1], [69, 69]),
+    ],
+)
+def test_split_total(total, allocation, expected):
+    # common practice, no source: largest-remainder (Hamilton) apportionment
+    assert adjust.split_total(total, allocation) == expected
+
+
+@given(st.integers(2, 10_000), st.lists(st.floats(0.1, 10.0), min_size=1, max_size=6))
+def test_split_total_sums_and_stays_within_one(total, allocation):
+    # common practice, no source: parts sum to the total and each is within 1 of its quota
+    parts = adjust.split_total(total, allocation)
+    assert sum(parts) == total
+    s = sum(allocation)
+    assert all(abs(p - total * a / s) < 1 for p, a in zip(parts, allocation, strict=True))

@@ -1,0 +1,241 @@
+"""The engine's entry point, end to end: reference answers, adjustment order, records, seeds."""
+
+import copy
+import json
+
+import pytest
+
+from service.engine import (
+    BudgetExceeded,
+    EngineError,
+    QuestionError,
+    canonical_json,
+    compute,
+    draw_seed,
+    estimate_cost,
+    verify,
+)
+from service.engine.designs import TESTS
+
+_BASE = {
+    "find": "sample_size",
+    "alpha": 0.05,
+    "sides": 2,
+    "target_power": 0.8,
+    "sample_size": None,
+    "allocation_ratio": 1.0,
+    "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
+    "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
+    "method": "analytic",
+    "simulation": None,
+}
+
+_DEFAULT_FORMULA = {
+    "two_means": "student",
+    "paired_mean": "noncentral_t",
+    "one_mean": "noncentral_t",
+    "two_proportions": "pooled_z",
+    "anova_oneway": "noncentral_f",
+    "correlation": "fisher_z",
+    "rank_sum": "noether",
+    "survival_logrank": "schoenfeld",
+}
+
+
+def build_question(design: str, effect: dict, **overrides) -> dict:
+    """A normalized question with the schema's defaults; nested dicts in overrides are merged."""
+    q = copy.deepcopy(_BASE)
+    q.update(design=design, effect=dict(effect), formula=_DEFAULT_FORMULA[design])
+    for key, value in overrides.items():
+        if isinstance(value, dict) and isinstance(q.get(key), dict):
+            q[key] = {**q[key], **value}
+        else:
+            q[key] = value
+    if q["method"] == "simulation":
+        sim = {"replicates": 10000, "seed": 20261201, "test": None, "data": None,
+               "decision_rule": "point", "chunk_size": 1000, "search_replicates": 2000}
+        sim.update(q.get("simulation") or {})
+        sim["test"] = sim["test"] or TESTS[design][0]
+        q["simulation"] = sim
+    return q
+
+
+# --- analytic answers through the whole pipeline ------------------------------------------
+
+
+def test_two_means_reference_answer():
+    # published 64: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided .05, power .80); recomputed
+    record = compute(build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}))
+    assert record["sample_size"]["per_arm"] == [64, 64]
+    assert record["sample_size"]["total"] == 128
+    base = [s for s in record["sample_size"]["steps"] if s["step"] == "base"][0]
+    assert base["per_arm_raw"][0] == pytest.approx(63.77, abs=0.01)
+    assert record["power"]["estimate"] >= 0.8
+    assert record["power"]["mcse"] is None
+    assert record["method"]["kind"] == "analytic"
+
+
+def test_adjustments_in_order_cluster_then_dropout():
+    # formula: Donner & Klar (2000) design effect 1 + (20 − 1)·0.05 = 1.95; 64 → 125 per arm,
+    # 7 clusters per arm; then ÷ (1 − 0.2), rounded up (common practice, no source): 125 / 0.8 = 156.25 → 157
+    q = build_question(
+        "two_means",
+        {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}, "comparisons": 1},
+    )
+    record = compute(q)
+    names = [s["step"] for s in record["sample_size"]["steps"]]
+    assert names == ["base", "design_effect", "dropout"]
+    de = record["sample_size"]["steps"][1]
+    assert de["factor"] == pytest.approx(1.95)
+    assert de["per_arm"] == [125, 125]
+    assert de["clusters_per_arm"] == [7, 7]
+    assert record["sample_size"]["per_arm"] == [157, 157]
+
+
+def test_bonferroni_split_comes_first():
+    # formula: Bonferroni alpha / k; with k = 2 the solve uses alpha 0.025 (noncentral t, checked
+    # against statsmodels TTestIndPower in the design tests)
+    from statsmodels.stats.power import TTestIndPower
+
+    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+                       adjustments={"comparisons": 2})
+    record = compute(q)
+    first = record["sample_size"]["steps"][0]
+    assert first["step"] == "bonferroni"
+    assert first["alpha_per_comparison"] == pytest.approx(0.025)
+    expected = TTestIndPower().solve_power(effect_size=0.5, alpha=0.025, power=0.8)
+    assert record["sample_size"]["per_arm"][0] == int(-(-expected // 1))
+
+
+def test_find_power_removes_dropout_before_computing():
+    # formula: 75 enrolled with 15% dropout leave 63.75 analysed; power from the noncentral t
+    # (statsmodels TTestIndPower as the reference library)
+    from statsmodels.stats.power import TTestIndPower
+
+    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+                       find="power", target_power=None, sample_size={"per_arm": [75, 75]},
+                       adjustments={"dropout": 0.15})
+    record = compute(q)
+    analysed = record["sample_size"]["analysed_per_arm"][0]
+    assert analysed == pytest.approx(63.75)
+    expected = TTestIndPower().power(effect_size=0.5, nobs1=analysed, alpha=0.05)
+    assert record["power"]["estimate"] == pytest.approx(expected, abs=1e-6)
+
+
+def test_find_effect_reaches_target_power():
+    # formula: at n = 64 per arm the detectable d at 80% power is just under 0.5 (Cohen 1988,
+    # Table 2.4.1 gives n = 64 for d = 0.5); statsmodels TTestIndPower solves the same
+    from statsmodels.stats.power import TTestIndPower
+
+    q = build_question("two_means", {"sd_control": 1.0, "sd_treatment": 1.0}, find="effect",
+                       sample_size={"per_arm": [64, 64]})
+    record = compute(q)
+    expected = TTestIndPower().solve_power(nobs1=64, alpha=0.05, power=0.8)
+    assert record["effect"]["field"] == "difference"
+    assert record["effect"]["value"] == pytest.approx(expected, abs=1e-3)
+    assert record["power"]["estimate"] == pytest.approx(0.8, abs=1e-3)
+
+
+# --- the record ---------------------------------------------------------------------------
+
+
+def test_record_is_sealed_and_canonical():
+    record = compute(build_question("correlation", {"r": 0.3, "r0": 0.0}))
+    assert verify(record)
+    tampered = copy.deepcopy(record)
+    tampered["sample_size"]["per_arm"] = [80]
+    assert not verify(tampered)
+    assert json.loads(canonical_json(record)) == record
+    assert record["cautions"] and "statistician" in " ".join(record["cautions"])
+    assert set(record["reproducibility"]["versions"]) == {"numpy", "scipy", "sizewise"}
+
+
+def test_record_has_no_clock_time():
+    a = canonical_json(compute(build_question("correlation", {"r": 0.3, "r0": 0.0})))
+    b = canonical_json(compute(build_question("correlation", {"r": 0.3, "r0": 0.0})))
+    assert a == b
+
+
+def test_question_is_not_mutated():
+    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    before = copy.deepcopy(q)
+    compute(q)
+    assert q == before
+
+
+# --- simulation through the entry point ---------------------------------------------------
+
+
+def _sim_question(**sim):
+    return build_question(
+        "two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        find="power", target_power=None, sample_size={"per_arm": [30, 30]},
+        method="simulation", simulation={"replicates": 4000, **sim},
+    )
+
+
+def test_simulated_power_matches_exact_and_is_reproducible():
+    # formula: noncentral t power at d = 0.5, n = 30 per group is 0.4779 (REFERENCES.md);
+    # Morris, White & Crowther (2019): within 4 MCSE
+    a = compute(_sim_question())
+    b = compute(_sim_question())
+    assert canonical_json(a) == canonical_json(b)
+    power = a["power"]
+    assert abs(power["estimate"] - 0.4779) <= 4 * power["mcse"]
+    assert power["analytic"] == pytest.approx(0.4779, abs=1e-3)
+    assert a["type_i_error"] is not None and a["reproducibility"]["seed"] == 20261201
+
+
+def test_different_seed_gives_different_digits():
+    a = compute(_sim_question(seed=1))
+    b = compute(_sim_question(seed=2))
+    assert a["power"]["estimate"] != b["power"]["estimate"] or a["type_i_error"] != b["type_i_error"]
+
+
+def test_progress_and_cancel_hooks():
+    from service.engine import Cancelled
+
+    seen = []
+    compute(_sim_question(), progress=seen.append)
+    assert seen and seen[-1] == 1.0 and all(0 <= f <= 1 for f in seen)
+    assert seen == sorted(seen)
+    with pytest.raises(Cancelled):
+        compute(_sim_question(), cancel=lambda: True)
+
+
+def test_budget_refuses_with_the_estimate():
+    q = _sim_question()
+    estimate = estimate_cost(q)
+    assert estimate > 0
+    with pytest.raises(BudgetExceeded) as info:
+        compute(q, budget=estimate - 1)
+    assert f"{estimate:,}" in str(info.value)
+    assert info.value.field == "simulation.replicates"
+
+
+def test_simulation_without_seed_is_a_question_error():
+    q = _sim_question(seed=None)
+    with pytest.raises(QuestionError) as info:
+        compute(q)
+    assert info.value.field == "simulation.seed"
+
+
+def test_unknown_design_is_a_question_error():
+    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q["design"] = "three_means"
+    with pytest.raises(QuestionError) as info:
+        compute(q)
+    assert info.value.field == "design" and "two_means" in info.value.message
+
+
+def test_numeric_failure_is_typed():
+    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q["effect"]["sd_control"] = "not a number"  # bypasses the schema on purpose
+    with pytest.raises(EngineError):
+        compute(q)
+
+
+def test_draw_seed_range():
+    seeds = {draw_seed() for _ in range(50)}
+    assert len(seeds) == 50 and all(0 <= s < 2**53 for s in seeds)

@@ -1,0 +1,36 @@
+"""sizewise: sample-size and power answers for study protocols."""
+
+from __future__ import annotations
+
+from flask import Flask
+
+
+def create_app(config: dict | None = None) -> Flask:
+    """Create the Flask application: settings, database engine, blueprints and error handlers."""
+    from sqlalchemy.engine import make_url
+
+    from service.api import register_api
+    from service.config import ensure_broker_folders, load_config
+    from service.store.db import make_engine, make_sessionmaker
+
+    settings = load_config(config)
+    app = Flask(__name__)
+    app.config.update(settings)
+    app.config["MAX_CONTENT_LENGTH"] = int(settings["MAX_BODY_BYTES"])
+    app.json.sort_keys = False
+
+    url = make_url(settings["DATABASE_URL"])
+    if url.get_backend_name() == "sqlite" and url.database not in (None, "", ":memory:"):
+        from pathlib import Path
+
+        Path(url.database).parent.mkdir(parents=True, exist_ok=True)
+    ensure_broker_folders(settings)
+
+    engine = make_engine(settings["DATABASE_URL"])
+    app.extensions["sizewise"] = {
+        "config": settings,
+        "engine": engine,
+        "sessions": make_sessionmaker(engine),
+    }
+    register_api(app)
+    return app

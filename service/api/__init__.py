@@ -1,0 +1,15 @@
+"""The HTTP API: blueprints, problem+json errors and the OpenAPI document."""
+
+from __future__ import annotations
+
+from flask import Flask
+
+from . import calculations, health, openapi, requests
+from .errors import register_error_handlers
+
+
+def register_api(app: Flask) -> None:
+    """Register every blueprint and the error handlers on ``app``."""
+    for module in (health, openapi, calculations, requests):
+        app.register_blueprint(module.bp)
+    register_error_handlers(app)

@@ -1,0 +1,139 @@
+"""The OpenAPI 3.1 document, generated from the routes and the marshmallow schemas they use."""
+
+from __future__ import annotations
+
+import re
+from http import HTTPStatus
+from importlib import metadata
+
+from apispec import APISpec
+from apispec.ext.marshmallow import MarshmallowPlugin
+from apispec.ext.marshmallow.common import resolve_schema_cls
+from flask import Blueprint, Flask, current_app, jsonify
+from marshmallow import Schema
+
+from service.schemas.api import ProblemSchema
+
+from .docs import Operation, operation
+from .errors import PROBLEM_MEDIA_TYPE
+
+bp = Blueprint("openapi", __name__)
+
+_PATH_PARAM = re.compile(r"<(?:[^:<>]+:)?([^<>]+)>")
+_SKIP_METHODS = {"HEAD", "OPTIONS"}
+
+
+def _schema_name(schema) -> str | None:
+    # Schemas narrowed with only/exclude are inlined rather than fighting over one name.
+    if isinstance(schema, Schema) and (schema.only or schema.exclude):
+        return None
+    return resolve_schema_cls(schema).__name__.removesuffix("Schema")
+
+
+def _version() -> str:
+    try:
+        return metadata.version("sizewise")
+    except metadata.PackageNotFoundError:  # pragma: no cover - bare checkout
+        return "0.0.0"
+
+
+def _operation_dict(op: Operation, endpoint: str) -> dict:
+    responses: dict[str, dict] = {}
+    success: dict = {"description": HTTPStatus(op.status).phrase}
+    if op.response is not None:
+        success["content"] = {"application/json": {"schema": op.response}}
+    if op.headers:
+        success["headers"] = {
+            name: {"description": text, "schema": {"type": "string"}}
+            for name, text in op.headers.items()
+        }
+    responses[str(op.status)] = success
+    if op.status == 202 and op.request_headers:
+        responses["200"] = {
+            "description": "The same Idempotency-Key and body were posted before",
+            "content": {"application/json": {"schema": op.response}},
+        }
+    for code in sorted(set(op.errors) | {500}):
+        responses[str(code)] = {
+            "description": HTTPStatus(code).phrase,
+            "content": {PROBLEM_MEDIA_TYPE: {"schema": ProblemSchema}},
+        }
+    out: dict = {
+        "operationId": endpoint.replace(".", "_"),
+        "summary": op.summary,
+        "tags": [op.tag],
+        "responses": responses,
+    }
+    if op.description:
+        out["description"] = op.description
+    parameters: list[dict] = []
+    if op.query is not None:
+        parameters.append({"in": "query", "schema": op.query})
+    for name, text in op.request_headers.items():
+        parameters.append(
+            {"in": "header", "name": name, "description": text, "schema": {"type": "string"}}
+        )
+    parameters.append(
+        {
+            "in": "header",
+            "name": "X-Sizewise-Actor",
+            "description": "Who is acting (recorded in the audit trail); default 'anonymous'",
+            "schema": {"type": "string", "maxLength": 200},
+        }
+    )
+    out["parameters"] = parameters
+    if op.body is not None:
+        out["requestBody"] = {
+            "required": op.body_required,
+            "content": {"application/json": {"schema": op.body}},
+        }
+    return out
+
+
+def build_spec(app: Flask) -> dict:
+    """Return the OpenAPI document of every route registered on ``app``."""
+    spec = APISpec(
+        title="sizewise",
+        version=_version(),
+        openapi_version="3.1.0",
+        plugins=[MarshmallowPlugin(schema_name_resolver=_schema_name)],
+        info={
+            "description": "Sample-size and power answers for study protocols. Every error is "
+            "application/problem+json (RFC 9457)."
+        },
+    )
+    spec.components.schema("Problem", schema=ProblemSchema)
+    for rule in sorted(app.url_map.iter_rules(), key=lambda r: r.rule):
+        if rule.endpoint == "static":
+            continue
+        view = app.view_functions[rule.endpoint]
+        op: Operation | None = getattr(view, "openapi", None)
+        if op is None:
+            raise RuntimeError(f"route {rule.rule} ({rule.endpoint}) has no OpenAPI metadata")
+        path = _PATH_PARAM.sub(r"{\1}", rule.rule)
+        operations = {
+            method.lower(): _operation_dict(op, rule.endpoint)
+            for method in sorted((rule.methods or set()) - _SKIP_METHODS)
+        }
+        parameters = [
+            {
+                "in": "path",
+                "name": name,
+                "required": True,
+                "schema": {"type": "string", "pattern": "^[0-9a-f]{32}$"},
+            }
+            for name in sorted(rule.arguments)
+        ]
+        spec.path(path=path, operations=operations, parameters=parameters or None)
+    return spec.to_dict()
+
+
+@bp.get("/openapi.json")
+@operation("This OpenAPI document", tag="meta", response=None)
+def openapi_json():
+    """Return the OpenAPI 3.1 document."""
+    cached = current_app.extensions["sizewise"].get("openapi")
+    if cached is None:
+        cached = build_spec(current_app)
+        current_app.extensions["sizewise"]["openapi"] = cached
+    return jsonify(cached)

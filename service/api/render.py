@@ -1,0 +1,81 @@
+"""Turn store rows into the dicts the response schemas dump."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy.orm import Session
+
+from service.schemas.requests import (
+    AuditEventSchema,
+    RequestSchema,
+    RerunSchema,
+)
+from service.store import requests as store
+from service.store.models import Request, Rerun
+
+_DETAIL = RequestSchema()
+_SUMMARY = RequestSchema(exclude=("result", "history", "question_submitted", "reruns"))
+_RERUN = RerunSchema()
+_EVENT = AuditEventSchema()
+
+
+def _base(row: Request) -> dict[str, Any]:
+    return {
+        "id": row.id,
+        "status": row.status,
+        "progress": row.progress,
+        "cancel_requested": row.cancel_requested,
+        "assigned_to": row.assigned_to,
+        "protocol": row.protocol,
+        "requester": row.requester,
+        "deadline": row.deadline,
+        "notes": row.notes,
+        "design": row.design,
+        "method": row.method,
+        "seed": row.seed,
+        "question": row.question,
+        "question_submitted": row.question_raw,
+        "submitted_by": row.submitted_by,
+        "submitted_at": row.submitted_at,
+        "updated_at": row.updated_at,
+        "published_at": row.published_at,
+        "attempts": row.attempts,
+        "error": row.error,
+    }
+
+
+def request_detail(session: Session, row: Request) -> dict:
+    """Return the full request: result record, history and a reruns summary."""
+    result = store.result_for(session, row.id)
+    reruns = store.reruns_for(session, row.id)
+    data = _base(row)
+    data["result"] = result.record if result is not None else None
+    data["history"] = store.history(session, row.id)
+    data["reruns"] = {
+        "total": len(reruns),
+        "identical": sum(1 for r in reruns if r.identical is True),
+        "different": sum(1 for r in reruns if r.identical is False),
+        "latest": reruns[-1] if reruns else None,
+    }
+    return _DETAIL.dump(data)
+
+
+def request_page(page: store.Page, number: int, per_page: int) -> dict:
+    """Return one listing page."""
+    return {
+        "items": [_SUMMARY.dump(_base(row)) for row in page.items],
+        "page": number,
+        "per_page": per_page,
+        "total": page.total,
+    }
+
+
+def rerun(row: Rerun) -> dict:
+    """Return one rerun."""
+    return _RERUN.dump(row)
+
+
+def event(row) -> dict:
+    """Return one audit event."""
+    return _EVENT.dump(row)

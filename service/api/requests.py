@@ -1,0 +1,367 @@
+"""Study requests: submit, list, read, cancel, review and rerun."""
+
+from __future__ import annotations
+
+import copy
+import re
+
+from flask import Blueprint, jsonify, request, url_for
+from sqlalchemy.exc import IntegrityError
+
+from service.engine import draw_seed
+from service.schemas.api import (
+    AssignSchema,
+    CancelSchema,
+    CommentSchema,
+    RerunCreateSchema,
+    ReviewNoteSchema,
+)
+from service.schemas.requests import (
+    AuditEventSchema,
+    RequestCreateSchema,
+    RequestPageSchema,
+    RequestQueryArgsSchema,
+    RequestSchema,
+    RerunListSchema,
+    RerunSchema,
+)
+from service.store import requests as store
+from service.store.db import session_scope
+from service.store.models import Request
+
+from . import render
+from .context import sessions
+from .docs import operation
+from .errors import Conflict, NotFound, ValidationFailed
+from .identity import current_actor
+from .io import load_body, load_query, raw_json_body, reject_query
+from .publishing import publish_job
+
+bp = Blueprint("requests", __name__, url_prefix="/v1")
+
+IDEMPOTENCY_HEADER = "Idempotency-Key"
+_KEY_PATTERN = re.compile(r"^[\x21-\x7e]{1,200}$")
+_ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
+BODY_ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
+
+
+def _load(session, request_id: str) -> Request:
+    row = store.get_request(session, request_id) if _ID_PATTERN.match(request_id) else None
+    if row is None:
+        raise NotFound(f"no request with id '{request_id}'")
+    return row
+
+
+def _refused(exc: store.TransitionRefused) -> Conflict:
+    return Conflict(str(exc), current_status=exc.status, allowed_from=list(exc.allowed_from))
+
+
+def _idempotency_key() -> str | None:
+    key = request.headers.get(IDEMPOTENCY_HEADER)
+    if key is None:
+        return None
+    if not _KEY_PATTERN.match(key):
+        raise ValidationFailed(
+            f"header {IDEMPOTENCY_HEADER} must be 1-200 visible ASCII characters",
+            errors={f"headers.{IDEMPOTENCY_HEADER}": ["must be 1-200 visible ASCII characters"]},
+        )
+    return key
+
+
+def _replay(session, key: str, digest: str):
+    """Return the earlier request made with ``key`` (None if none); 422 when the body differs."""
+    existing = store.by_idempotency_key(session, key)
+    if existing is None:
+        return None
+    if existing.body_sha256 != digest:
+        raise ValidationFailed(
+            f"{IDEMPOTENCY_HEADER} '{key}' was already used with a different body "
+            f"(request {existing.id}); use a new key for a new request",
+            errors={f"headers.{IDEMPOTENCY_HEADER}": ["already used with a different body"]},
+        )
+    return render.request_detail(session, existing)
+
+
+def _with_seed(question: dict) -> dict:
+    simulation = question.get("simulation")
+    if (
+        question.get("method") != "simulation"
+        or not simulation
+        or simulation.get("seed") is not None
+    ):
+        return question
+    # The seed is drawn once, here, and stored: the same request always gives the same digits.
+    question = copy.deepcopy(question)
+    question["simulation"]["seed"] = draw_seed()
+    return question
+
+
+def _created(body: dict, status: int):
+    response = jsonify(body)
+    response.status_code = status
+    response.headers["Location"] = url_for("requests.get_request", request_id=body["id"])
+    return response
+
+
+@bp.post("/requests")
+@operation(
+    "Submit a question for a study protocol",
+    tag="requests",
+    status=202,
+    response=RequestSchema,
+    body=RequestCreateSchema,
+    description=(
+        "Stores the request, then hands it to the queue. With an Idempotency-Key header the "
+        "same key and body return the first request (200); the same key with another body is 422."
+    ),
+    errors=(400, 413, 415, 422, 500, 503),
+    headers={"Location": "URL of the request"},
+    request_headers={IDEMPOTENCY_HEADER: "Makes a retried submission safe"},
+)
+def submit_request():
+    """Store a new request and publish it to the workers."""
+    reject_query()
+    actor = current_actor()
+    key = _idempotency_key()
+    raw = raw_json_body()
+    digest = store.body_digest(raw)
+    if key is not None:
+        with session_scope(sessions()) as session:
+            earlier = _replay(session, key, digest)
+        if earlier is not None:
+            return _created(earlier, 200)
+    data = RequestCreateSchema().load(raw)
+    question = _with_seed(data["question"])
+    try:
+        with session_scope(sessions()) as session:
+            row = store.create_request(
+                session,
+                protocol=data["protocol"],
+                requester=data["requester"],
+                deadline=data.get("deadline"),
+                notes=data.get("notes"),
+                question_raw=data["question_raw"],
+                question=question,
+                actor=actor,
+                idempotency_key=key,
+                body_sha256=digest,
+            )
+            request_id = row.id
+    except IntegrityError:
+        if key is None:
+            raise
+        # A concurrent submission with the same key won the insert: answer with its request.
+        with session_scope(sessions()) as session:
+            earlier = _replay(session, key, digest)
+        if earlier is None:
+            raise
+        return _created(earlier, 200)
+    publish_job("request", request_id)
+    with session_scope(sessions()) as session:
+        body = render.request_detail(session, store.get_request(session, request_id))
+    return _created(body, 202)
+
+
+@bp.get("/requests")
+@operation(
+    "List requests (filtered, newest first)",
+    tag="requests",
+    response=RequestPageSchema,
+    query=RequestQueryArgsSchema,
+    errors=(422, 500, 503),
+)
+def list_requests():
+    """Return one page of requests matching the filters."""
+    args = load_query(RequestQueryArgsSchema())
+    page, per_page = args.pop("page"), args.pop("per_page")
+    with session_scope(sessions()) as session:
+        result = store.list_requests(session, page=page, per_page=per_page, **args)
+        return jsonify(render.request_page(result, page, per_page))
+
+
+@bp.get("/requests/<request_id>")
+@operation(
+    "Read one request: status, progress, result, history and reruns",
+    tag="requests",
+    response=RequestSchema,
+    errors=(404, 422, 500, 503),
+)
+def get_request(request_id: str):
+    """Return the request with its result record (or null) and its audit history."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        return jsonify(render.request_detail(session, _load(session, request_id)))
+
+
+@bp.post("/requests/<request_id>/cancel")
+@operation(
+    "Cancel a request",
+    tag="requests",
+    response=RequestSchema,
+    body=CancelSchema,
+    body_required=False,
+    description=(
+        "A received or queued request is cancelled at once; a running one is asked to stop "
+        "between chunks (cancel_requested). A finished request cannot be cancelled (409)."
+    ),
+    errors=BODY_ERRORS,
+)
+def cancel_request(request_id: str):
+    """Cancel the request or ask its worker to stop."""
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(CancelSchema(), optional=True)
+    with session_scope(sessions()) as session:
+        row = _load(session, request_id)
+        try:
+            store.cancel_request(session, row, actor, data.get("reason"))
+        except store.TransitionRefused as exc:
+            raise _refused(exc) from None
+        return jsonify(render.request_detail(session, row))
+
+
+@bp.post("/requests/<request_id>/assign")
+@operation(
+    "Assign the request to a reviewer",
+    tag="review",
+    response=RequestSchema,
+    body=AssignSchema,
+    errors=BODY_ERRORS,
+)
+def assign_request(request_id: str):
+    """Record who reviews the request."""
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(AssignSchema())
+    with session_scope(sessions()) as session:
+        row = _load(session, request_id)
+        try:
+            store.assign(session, row, actor, data["to"])
+        except store.TransitionRefused as exc:
+            raise _refused(exc) from None
+        return jsonify(render.request_detail(session, row))
+
+
+@bp.post("/requests/<request_id>/comments")
+@operation(
+    "Comment on a request",
+    tag="review",
+    status=201,
+    response=AuditEventSchema,
+    body=CommentSchema,
+    errors=BODY_ERRORS,
+)
+def comment_request(request_id: str):
+    """Add a comment to the request's history and return it."""
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(CommentSchema())
+    with session_scope(sessions()) as session:
+        row = _load(session, request_id)
+        event = render.event(store.comment(session, row, actor, data["text"]))
+    return jsonify(event), 201
+
+
+def _review(request_id: str, decision: str):
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(ReviewNoteSchema())
+    with session_scope(sessions()) as session:
+        row = _load(session, request_id)
+        try:
+            store.review(session, row, actor, decision, data["note"])
+        except store.TransitionRefused as exc:
+            raise _refused(exc) from None
+        return jsonify(render.request_detail(session, row))
+
+
+@bp.post("/requests/<request_id>/approve")
+@operation(
+    "Approve a computed request (a note is required)",
+    tag="review",
+    response=RequestSchema,
+    body=ReviewNoteSchema,
+    errors=BODY_ERRORS,
+)
+def approve_request(request_id: str):
+    """Approve the computed answer."""
+    return _review(request_id, "approve")
+
+
+@bp.post("/requests/<request_id>/return")
+@operation(
+    "Return a computed request to the requester (a note is required)",
+    tag="review",
+    response=RequestSchema,
+    body=ReviewNoteSchema,
+    errors=BODY_ERRORS,
+)
+def return_request(request_id: str):
+    """Send the computed answer back with the reviewer's note."""
+    return _review(request_id, "return")
+
+
+@bp.post("/requests/<request_id>/reruns")
+@operation(
+    "Recompute the stored question and compare with the stored result",
+    tag="reruns",
+    status=202,
+    response=RerunSchema,
+    body=RerunCreateSchema,
+    body_required=False,
+    errors=BODY_ERRORS,
+    headers={"Location": "URL of the rerun"},
+)
+def create_rerun(request_id: str):
+    """Queue a rerun of a request that has a result."""
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(RerunCreateSchema(), optional=True)
+    with session_scope(sessions()) as session:
+        row = _load(session, request_id)
+        try:
+            rerun_id = store.create_rerun(session, row, actor, data.get("note")).id
+        except store.ResultMissing as exc:
+            raise Conflict(str(exc), current_status=exc.status) from None
+    publish_job("rerun", rerun_id)
+    with session_scope(sessions()) as session:
+        body = render.rerun(store.get_rerun(session, request_id, rerun_id))
+    response = jsonify(body)
+    response.status_code = 202
+    response.headers["Location"] = url_for(
+        "requests.get_rerun", request_id=request_id, rerun_id=rerun_id
+    )
+    return response
+
+
+@bp.get("/requests/<request_id>/reruns")
+@operation(
+    "List a request's reruns", tag="reruns", response=RerunListSchema, errors=(404, 422, 500, 503)
+)
+def list_reruns(request_id: str):
+    """Return the request's reruns, oldest first."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        _load(session, request_id)
+        items = [render.rerun(r) for r in store.reruns_for(session, request_id)]
+    for item in items:
+        item.pop("record", None)
+    return jsonify({"items": items})
+
+
+@bp.get("/requests/<request_id>/reruns/<rerun_id>")
+@operation(
+    "Read one rerun, its record and its comparison",
+    tag="reruns",
+    response=RerunSchema,
+    errors=(404, 422, 500, 503),
+)
+def get_rerun(request_id: str, rerun_id: str):
+    """Return one rerun of the request."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        _load(session, request_id)
+        rerun = store.get_rerun(session, request_id, rerun_id)
+        if rerun is None:
+            raise NotFound(f"request {request_id} has no rerun with id '{rerun_id}'")
+        return jsonify(render.rerun(rerun))

@@ -1,0 +1,133 @@
+"""Settings: one table of defaults, each overridable by an environment variable of the same name.
+
+``SETTINGS`` documents every setting (environment name, default, meaning) so the README table can
+be generated from it and checked by a test. ``load_config()`` returns the values keyed without the
+``SIZEWISE_`` prefix (``DATABASE_URL``, ``BROKER_URL``, ...), plus the derived
+``BROKER_TRANSPORT_OPTIONS`` for kombu's filesystem transport.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable, Mapping
+from pathlib import Path
+from typing import Any, NamedTuple
+from urllib.parse import urlsplit
+
+REPO_ROOT = Path(__file__).resolve().parents[1]
+VAR_DIR = REPO_ROOT / "var"
+PREFIX = "SIZEWISE_"
+
+
+class Setting(NamedTuple):
+    """One documented setting: environment name, default, parser and meaning."""
+
+    name: str
+    default: Any
+    parse: Callable[[str], Any]
+    meaning: str
+
+
+SETTINGS: tuple[Setting, ...] = (
+    Setting(
+        "SIZEWISE_DATABASE_URL",
+        f"sqlite:///{VAR_DIR / 'sizewise.db'}",
+        str,
+        "SQLAlchemy URL of the database (SQLite gets WAL and busy_timeout 5000 ms).",
+    ),
+    Setting(
+        "SIZEWISE_BROKER_URL",
+        "filesystem://",
+        str,
+        "Celery broker URL; filesystem:// keeps messages in folders under var/broker "
+        "(filesystem:///some/dir puts them under that folder instead).",
+    ),
+    Setting("SIZEWISE_WORKER_CONCURRENCY", 2, int, "Worker processes per Celery worker."),
+    Setting(
+        "SIZEWISE_SIMULATION_BUDGET",
+        2_000_000_000,
+        int,
+        "Largest estimated number of random draws one simulation may cost.",
+    ),
+    Setting(
+        "SIZEWISE_LEASE_SECONDS",
+        60,
+        int,
+        "How long a worker's claim on a job lasts unless renewed.",
+    ),
+    Setting("SIZEWISE_MAX_ATTEMPTS", 3, int, "Claims allowed per job before it is marked failed."),
+    Setting(
+        "SIZEWISE_SWEEP_SECONDS",
+        15,
+        int,
+        "Interval of the sweeper that republishes unpublished or abandoned jobs.",
+    ),
+    Setting(
+        "SIZEWISE_VISIBILITY_TIMEOUT",
+        7200,
+        int,
+        "Seconds before Redis redelivers an unacknowledged message; must exceed the longest job.",
+    ),
+    Setting(
+        "SIZEWISE_TASK_TIME_LIMIT", 3600, int, "Hard time limit of one task (a backstop), seconds."
+    ),
+    Setting("SIZEWISE_PORT", 8000, int, "TCP port the HTTP service listens on."),
+    Setting(
+        "SIZEWISE_MAX_BODY_BYTES",
+        65536,
+        int,
+        "Largest accepted request body; larger bodies get 413.",
+    ),
+)
+
+
+def _key(name: str) -> str:
+    return name[len(PREFIX) :]
+
+
+def broker_transport_options(broker_url: str) -> dict[str, str]:
+    """Return kombu filesystem-transport folders for a filesystem:// URL (empty dict otherwise)."""
+    parts = urlsplit(broker_url)
+    if parts.scheme != "filesystem":
+        return {}
+    # filesystem:// alone means the repository's var/broker; a path names another root.
+    root = Path(parts.path) if parts.path not in ("", "/") else VAR_DIR / "broker"
+    # Producer and consumer share one folder: what the API writes is what the worker reads.
+    queue = str(root / "queue")
+    return {
+        "data_folder_in": queue,
+        "data_folder_out": queue,
+        "processed_folder": str(root / "processed"),
+        "store_processed": True,
+    }
+
+
+def ensure_broker_folders(config: Mapping[str, Any]) -> None:
+    """Create the filesystem broker's folders when the broker is filesystem://."""
+    opts = config.get("BROKER_TRANSPORT_OPTIONS") or {}
+    for key in ("data_folder_in", "data_folder_out", "processed_folder"):
+        if key in opts:
+            Path(opts[key]).mkdir(parents=True, exist_ok=True)
+
+
+def load_config(overrides: dict | None = None) -> dict:
+    """Return the settings: defaults, then the environment, then ``overrides`` (UPPERCASE keys)."""
+    config: dict[str, Any] = {}
+    for setting in SETTINGS:
+        raw = os.environ.get(setting.name)
+        if raw is None or raw == "":
+            config[_key(setting.name)] = setting.default
+            continue
+        try:
+            config[_key(setting.name)] = setting.parse(raw)
+        except ValueError:
+            raise ValueError(
+                f"environment variable {setting.name}={raw!r} is not a valid "
+                f"{setting.parse.__name__}"
+            ) from None
+    for key, value in (overrides or {}).items():
+        # Accept both DATABASE_URL and SIZEWISE_DATABASE_URL spellings in overrides.
+        config[key[len(PREFIX) :] if key.startswith(PREFIX) else key] = value
+    if "BROKER_TRANSPORT_OPTIONS" not in (overrides or {}):
+        config["BROKER_TRANSPORT_OPTIONS"] = broker_transport_options(config["BROKER_URL"])
+    return config

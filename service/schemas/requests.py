@@ -1,0 +1,236 @@
+"""API schemas for study requests: the submission body, the stored record and list filters.
+
+The ``question`` member is validated by ``service.schemas.question.load_question``; its errors
+come back keyed under ``question.`` (``question.effect.sd``), like every other field path.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from marshmallow import Schema, ValidationError, fields, post_load, validate, validates_schema
+
+from service.engine import DESIGN_NAMES
+from service.store.models import REQUEST_STATUSES, RERUN_STATUSES
+
+ID_PATTERN = r"^[0-9a-f]{32}$"
+
+
+class StrictSchema(Schema):
+    """Base of the API schemas: unknown fields are refused with the list of allowed ones."""
+
+    def handle_error(self, error: ValidationError, data: Any, *, many: bool, **kwargs) -> None:
+        """Name the allowed fields beside every unknown one."""
+        if isinstance(error.messages, dict):
+            allowed = ", ".join(sorted(f.data_key or name for name, f in self.load_fields.items()))
+            for key, messages in error.messages.items():
+                if messages == [self.error_messages["unknown"]]:
+                    error.messages[key] = [f"unknown field; allowed: {allowed}"]
+
+
+def one_of(choices) -> validate.OneOf:
+    """OneOf whose message echoes the value and lists the choices."""
+    return validate.OneOf(choices, error="must be one of: {choices}; got {input!r}")
+
+
+def in_range(lo: int, hi: int | None = None) -> validate.Range:
+    """Range whose message echoes the value."""
+    if hi is None:
+        return validate.Range(min=lo, error="must be at least {min}; got {input}")
+    return validate.Range(min=lo, max=hi, error="must be from {min} to {max}; got {input}")
+
+
+def length(lo: int, hi: int) -> validate.Length:
+    """Length with a readable message."""
+    return validate.Length(min=lo, max=hi, error="must be {min} to {max} characters long")
+
+
+EMAIL_ERRORS = {"invalid": "must be an e-mail address; got {input!r}"}
+DATE_ERRORS = {"invalid": "must be an ISO date (YYYY-MM-DD); got {input!r}"}
+INT_ERRORS = {"invalid": "must be a whole number; got {input!r}"}
+
+
+class QuestionField(fields.Dict):
+    """A raw question object, validated and normalized by ``load_question``."""
+
+    def _deserialize(self, value, attr, data, **kwargs) -> dict:
+        raw = super()._deserialize(value, attr, data, **kwargs)
+        # Imported here so the schemas module loads even while question.py is being written.
+        from service.schemas.errors import QuestionInvalid
+        from service.schemas.question import load_question
+
+        try:
+            return load_question(raw)
+        except QuestionInvalid as exc:
+            raise ValidationError(exc.errors) from None
+
+
+class ProtocolSchema(StrictSchema):
+    """The study protocol the question belongs to."""
+
+    id = fields.String(
+        required=True,
+        validate=validate.Regexp(
+            r"^[A-Za-z0-9][A-Za-z0-9._/-]{0,63}$",
+            error="must be 1-64 letters, digits or . _ / - (starting with a letter or digit)",
+        ),
+        metadata={"description": "The protocol's identifier in the institution's register."},
+    )
+    title = fields.String(required=True, validate=length(1, 300))
+    version = fields.String(validate=length(1, 40))
+    principal_investigator = fields.String(validate=length(1, 200))
+
+
+class RequesterSchema(StrictSchema):
+    """Who asks: name, e-mail and department."""
+
+    name = fields.String(required=True, validate=length(1, 200))
+    email = fields.Email(
+        required=True, validate=validate.Length(max=320), error_messages=EMAIL_ERRORS
+    )
+    department = fields.String(required=True, allow_none=True, validate=length(1, 200))
+
+
+class RequestCreateSchema(StrictSchema):
+    """Body of POST /v1/requests."""
+
+    protocol = fields.Nested(ProtocolSchema, required=True)
+    requester = fields.Nested(RequesterSchema, required=True)
+    deadline = fields.Date(
+        allow_none=True,
+        error_messages=DATE_ERRORS,
+        metadata={"description": "When the answer is needed (ISO date)."},
+    )
+    notes = fields.String(allow_none=True, validate=validate.Length(max=5000))
+    question = QuestionField(
+        required=True,
+        metadata={"description": "The sample-size question; see GET /v1/designs."},
+    )
+
+    @post_load(pass_original=True)
+    def keep_raw_question(self, data: dict, original: Any, **_kwargs) -> dict:
+        """Keep the question as posted beside its normalized form."""
+        data["question_raw"] = original["question"]
+        return data
+
+
+class CalculationCreateSchema(StrictSchema):
+    """Body of POST /v1/calculations: one analytic question."""
+
+    question = QuestionField(required=True)
+
+
+class AuditEventSchema(StrictSchema):
+    """One entry of a request's history."""
+
+    id = fields.Integer()
+    actor = fields.String()
+    action = fields.String()
+    detail = fields.Dict()
+    created_at = fields.AwareDateTime()
+    sha256 = fields.String()
+
+
+class RerunSchema(StrictSchema):
+    """A rerun: the stored question recomputed and compared with the original record."""
+
+    id = fields.String()
+    request_id = fields.String()
+    status = fields.String(validate=one_of(RERUN_STATUSES))
+    requested_by = fields.String()
+    requested_at = fields.AwareDateTime()
+    published_at = fields.AwareDateTime(allow_none=True)
+    attempts = fields.Integer()
+    identical = fields.Boolean(allow_none=True)
+    differences = fields.List(fields.String(), allow_none=True)
+    env_original = fields.Dict()
+    env_rerun = fields.Dict(allow_none=True)
+    record = fields.Dict(allow_none=True)
+    record_sha256 = fields.String(allow_none=True)
+    finished_at = fields.AwareDateTime(allow_none=True)
+    error = fields.String(allow_none=True)
+
+
+class RerunSummarySchema(StrictSchema):
+    """Counts of a request's reruns and the latest one."""
+
+    total = fields.Integer()
+    identical = fields.Integer()
+    different = fields.Integer()
+    latest = fields.Nested(RerunSchema(only=("id", "status", "identical")), allow_none=True)
+
+
+class RequestSchema(StrictSchema):
+    """A stored request as the API returns it."""
+
+    id = fields.String()
+    status = fields.String(validate=one_of(REQUEST_STATUSES))
+    progress = fields.Float()
+    cancel_requested = fields.Boolean()
+    assigned_to = fields.String(allow_none=True)
+    protocol = fields.Dict()
+    requester = fields.Dict()
+    deadline = fields.Date(allow_none=True)
+    notes = fields.String(allow_none=True)
+    design = fields.String()
+    method = fields.String()
+    seed = fields.Integer(allow_none=True)
+    question = fields.Dict(metadata={"description": "Normalized question, seed filled in."})
+    question_submitted = fields.Dict(metadata={"description": "The question as posted."})
+    submitted_by = fields.String()
+    submitted_at = fields.AwareDateTime()
+    updated_at = fields.AwareDateTime()
+    published_at = fields.AwareDateTime(allow_none=True)
+    attempts = fields.Integer()
+    error = fields.String(allow_none=True)
+    result = fields.Dict(
+        allow_none=True, metadata={"description": "The engine's result record, unchanged."}
+    )
+    history = fields.List(fields.Nested(AuditEventSchema))
+    reruns = fields.Nested(RerunSummarySchema)
+
+
+class RequestPageSchema(StrictSchema):
+    """One page of GET /v1/requests."""
+
+    items = fields.List(
+        fields.Nested(RequestSchema(exclude=("result", "history", "question_submitted", "reruns")))
+    )
+    page = fields.Integer()
+    per_page = fields.Integer()
+    total = fields.Integer()
+
+
+class RerunListSchema(StrictSchema):
+    """GET /v1/requests/{id}/reruns."""
+
+    items = fields.List(fields.Nested(RerunSchema(exclude=("record",))))
+
+
+class RequestQueryArgsSchema(StrictSchema):
+    """Query parameters of GET /v1/requests."""
+
+    status = fields.String(validate=one_of(REQUEST_STATUSES))
+    protocol_id = fields.String(validate=length(1, 64))
+    requester = fields.Email(
+        error_messages=EMAIL_ERRORS, metadata={"description": "The requester's e-mail address."}
+    )
+    design = fields.String(validate=one_of(DESIGN_NAMES))
+    submitted_from = fields.Date(
+        error_messages=DATE_ERRORS, metadata={"description": "First UTC day, inclusive."}
+    )
+    submitted_to = fields.Date(
+        error_messages=DATE_ERRORS, metadata={"description": "Last UTC day, inclusive."}
+    )
+    page = fields.Integer(load_default=1, error_messages=INT_ERRORS, validate=in_range(1))
+    per_page = fields.Integer(load_default=20, error_messages=INT_ERRORS, validate=in_range(1, 100))
+
+    @validates_schema
+    def dates_in_order(self, data: dict, **_kwargs) -> None:
+        """Refuse a date range that ends before it starts."""
+        start, end = data.get("submitted_from"), data.get("submitted_to")
+        if start and end and end < start:
+            raise ValidationError(
+                f"must not be before submitted_from ({start.isoformat()}); got {end.isoformat()}",
+                "submitted_to",
+            )

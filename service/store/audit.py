@@ -1,0 +1,91 @@
+"""The audit trail: append-only events linked by a SHA-256 hash chain.
+
+Each event's ``sha256`` covers (prev_sha256, id, request_id, actor, action, canonical detail,
+created_at ISO); changing or removing any stored event breaks every hash after it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Any
+
+from sqlalchemy import select, text
+from sqlalchemy.orm import Session
+
+from .models import AuditEvent
+from .types import utcnow
+
+# Any constant works; it names the one lock all appenders share on PostgreSQL.
+_PG_LOCK_KEY = 7_341_020_001
+
+
+def _canonical(value: Any) -> str:
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+
+
+def event_hash(event: AuditEvent) -> str:
+    """Return the chain hash of ``event`` from its stored fields and its predecessor's hash."""
+    created = event.created_at.isoformat()
+    payload = _canonical(
+        [
+            event.prev_sha256,
+            event.id,
+            event.request_id,
+            event.actor,
+            event.action,
+            _canonical(event.detail),
+            created,
+        ]
+    )
+    return hashlib.sha256(payload.encode("utf-8")).hexdigest()
+
+
+def append_event(
+    session: Session, *, request_id: str | None, actor: str, action: str, detail: dict | None
+) -> AuditEvent:
+    """Append one event to the chain in the caller's transaction and return it."""
+    if session.get_bind().dialect.name == "postgresql":
+        # Serialise appenders so two transactions never link to the same predecessor.
+        session.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _PG_LOCK_KEY})
+    event = AuditEvent(
+        request_id=request_id,
+        actor=actor,
+        action=action,
+        detail=detail or {},
+        created_at=utcnow(),
+        sha256="",
+    )
+    session.add(event)
+    # The insert takes SQLite's write lock and assigns the id, both needed before hashing.
+    session.flush()
+    prev = session.scalar(
+        select(AuditEvent.sha256)
+        .where(AuditEvent.id < event.id)
+        .order_by(AuditEvent.id.desc())
+        .limit(1)
+    )
+    event.prev_sha256 = prev
+    event.sha256 = event_hash(event)
+    session.flush()
+    return event
+
+
+def events_for(session: Session, request_id: str) -> list[AuditEvent]:
+    """Return a request's events, oldest first."""
+    return list(
+        session.scalars(
+            select(AuditEvent).where(AuditEvent.request_id == request_id).order_by(AuditEvent.id)
+        )
+    )
+
+
+def verify_chain(session: Session) -> list[int]:
+    """Return the ids of events whose link or hash does not check out (empty when intact)."""
+    broken: list[int] = []
+    prev: str | None = None
+    for event in session.scalars(select(AuditEvent).order_by(AuditEvent.id)):
+        if event.prev_sha256 != prev or event.sha256 != event_hash(event):
+            broken.append(event.id)
+        prev = event.sha256
+    return broken

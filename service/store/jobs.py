@@ -1,0 +1,334 @@
+"""Job bookkeeping shared by the API, the workers and the sweeper (requests and reruns).
+
+A job is a row in ``requests`` (kind 'request') or ``reruns`` (kind 'rerun'). Workers hold a
+lease (lease_owner, lease_expires_at) while they run one; every change here is a conditional
+UPDATE so two workers can never both own a job. Functions take a session and never commit.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timedelta
+
+from sqlalchemy import and_, or_, select, update
+from sqlalchemy.orm import Session
+
+from .audit import append_event
+from .models import Request, Rerun, Result
+from .types import utcnow
+
+KINDS = ("request", "rerun")
+
+
+def _model(kind: str) -> type[Request] | type[Rerun]:
+    if kind == "request":
+        return Request
+    if kind == "rerun":
+        return Rerun
+    raise ValueError(f"job kind must be one of {KINDS}; got {kind!r}")
+
+
+def _request_id(session: Session, kind: str, job_id: str) -> str | None:
+    if kind == "request":
+        return job_id
+    return session.scalar(select(Rerun.request_id).where(Rerun.id == job_id))
+
+
+def _event(session: Session, kind: str, job_id: str, actor: str, action: str, **detail) -> None:
+    append_event(
+        session,
+        request_id=_request_id(session, kind, job_id),
+        actor=actor,
+        action=action,
+        detail={"kind": kind, "job_id": job_id, **detail},
+    )
+
+
+def _queued_statuses(kind: str) -> tuple[str, ...]:
+    return ("received", "queued") if kind == "request" else ("queued",)
+
+
+def _touch(kind: str, now: datetime) -> dict:
+    return {"updated_at": now} if kind == "request" else {}
+
+
+def mark_published(session: Session, kind: str, job_id: str) -> bool:
+    """Record that the job's task reached the broker (the outbox marker); False if no such job."""
+    model = _model(kind)
+    now = utcnow()
+    values: dict = {"published_at": now, **_touch(kind, now)}
+    changed = session.execute(update(model).where(model.id == job_id).values(**values)).rowcount
+    if not changed:
+        return False
+    if kind == "request":
+        # Only a job nobody has picked up yet moves from received to queued.
+        session.execute(
+            update(Request)
+            .where(Request.id == job_id, Request.status == "received")
+            .values(status="queued")
+        )
+    _event(session, kind, job_id, "system", "published")
+    return True
+
+
+def claim(
+    session: Session, kind: str, job_id: str, owner: str, lease_seconds: float, max_attempts: int
+) -> bool:
+    """Take the job's lease if it is waiting or its lease expired; False when it is not ours.
+
+    A job whose attempts are used up is marked failed with the reason instead; a request whose
+    cancellation was asked for while its previous owner died is marked cancelled.
+    """
+    model = _model(kind)
+    now = utcnow()
+    row = session.get(model, job_id, populate_existing=True)
+    if row is None:
+        return False
+    claimable = or_(
+        model.status.in_(_queued_statuses(kind)),
+        and_(model.status == "running", model.lease_expires_at < now),
+    )
+    guard = and_(model.id == job_id, claimable, model.attempts == row.attempts)
+    if kind == "request" and row.cancel_requested:
+        done = session.execute(
+            update(model)
+            .where(guard)
+            .values(status="cancelled", lease_owner=None, lease_expires_at=None, updated_at=now)
+        ).rowcount
+        if done:
+            _event(session, kind, job_id, owner, "cancelled", reason="cancel requested")
+        return False
+    if row.attempts + 1 > max_attempts:
+        reason = f"gave up after {row.attempts} attempts (limit {max_attempts})"
+        done = session.execute(
+            update(model)
+            .where(guard)
+            .values(
+                status="failed",
+                error=reason,
+                lease_owner=None,
+                lease_expires_at=None,
+                **_touch(kind, now),
+            )
+        ).rowcount
+        if done:
+            _event(session, kind, job_id, owner, "failed", error=reason)
+        return False
+    done = session.execute(
+        update(model)
+        .where(guard)
+        .values(
+            status="running",
+            lease_owner=owner,
+            lease_expires_at=now + timedelta(seconds=lease_seconds),
+            attempts=row.attempts + 1,
+            **_touch(kind, now),
+        )
+    ).rowcount
+    # No event here: the worker appends its own "running" event with the attempt number.
+    return bool(done)
+
+
+def renew(
+    session: Session,
+    kind: str,
+    job_id: str,
+    owner: str,
+    progress: float | None,
+    lease_seconds: float,
+) -> bool:
+    """Extend our lease and store progress (0..1, requests only); False when the lease was lost."""
+    model = _model(kind)
+    now = utcnow()
+    values: dict = {"lease_expires_at": now + timedelta(seconds=lease_seconds), **_touch(kind, now)}
+    if kind == "request" and progress is not None:
+        values["progress"] = min(max(float(progress), 0.0), 1.0)
+    return bool(
+        session.execute(
+            update(model)
+            .where(model.id == job_id, model.status == "running", model.lease_owner == owner)
+            .values(**values)
+        ).rowcount
+    )
+
+
+def cancel_requested(session: Session, kind: str, job_id: str) -> bool:
+    """True when someone asked the running request to stop (reruns cannot be cancelled)."""
+    if kind != "request":
+        return False
+    return bool(session.scalar(select(Request.cancel_requested).where(Request.id == job_id)))
+
+
+def _record_sha(record: dict) -> str:
+    stored = (record.get("reproducibility") or {}).get("record_sha256")
+    if stored:
+        return stored
+    from service.engine.records import record_hash
+
+    return record_hash(record)
+
+
+def finish_request(
+    session: Session,
+    request_id: str,
+    owner: str,
+    record: dict,
+    *,
+    started_at: datetime | None = None,
+    chunk_size: int | None = None,
+) -> bool:
+    """Store the request's result and mark it computed; False when the lease was lost.
+
+    The first stored result wins: a later, different record is kept in ``results.conflict``.
+    """
+    now = utcnow()
+    sha = _record_sha(record)
+    existing = session.scalar(select(Result).where(Result.request_id == request_id))
+    if existing is not None:
+        if existing.record_sha256 != sha:
+            # A list, like the workers' own writer, so every refused write is kept.
+            existing.conflict = [
+                *(existing.conflict or []),
+                {"record_sha256": sha, "owner": owner, "attempted_at": now.isoformat()},
+            ]
+            _event(session, "request", request_id, owner, "result_conflict", record_sha256=sha)
+        return False
+    done = session.execute(
+        update(Request)
+        .where(Request.id == request_id, Request.status == "running", Request.lease_owner == owner)
+        .values(
+            status="computed",
+            progress=1.0,
+            lease_owner=None,
+            lease_expires_at=None,
+            error=None,
+            updated_at=now,
+        )
+    ).rowcount
+    if not done:
+        return False
+    session.add(
+        Result(
+            request_id=request_id,
+            record=record,
+            record_sha256=sha,
+            versions=(record.get("reproducibility") or {}).get("versions") or {},
+            chunk_size=chunk_size,
+            started_at=started_at,
+            finished_at=now,
+            duration_seconds=(now - started_at).total_seconds() if started_at else None,
+        )
+    )
+    session.flush()
+    _event(session, "request", request_id, owner, "computed", record_sha256=sha)
+    return True
+
+
+def finish_rerun(
+    session: Session,
+    rerun_id: str,
+    owner: str,
+    record: dict,
+    *,
+    identical: bool,
+    differences: list[str],
+    env_rerun: dict,
+) -> bool:
+    """Store a rerun's record and its comparison with the original; False when the lease was lost."""
+    now = utcnow()
+    sha = _record_sha(record)
+    done = session.execute(
+        update(Rerun)
+        .where(Rerun.id == rerun_id, Rerun.status == "running", Rerun.lease_owner == owner)
+        .values(
+            status="done",
+            record=record,
+            record_sha256=sha,
+            identical=identical,
+            differences=list(differences),
+            env_rerun=env_rerun,
+            finished_at=now,
+            lease_owner=None,
+            lease_expires_at=None,
+            error=None,
+        )
+    ).rowcount
+    if done:
+        _event(
+            session,
+            "rerun",
+            rerun_id,
+            owner,
+            "rerun_done",
+            identical=identical,
+            differences=list(differences),
+        )
+    return bool(done)
+
+
+def fail(session: Session, kind: str, job_id: str, owner: str, error: str) -> bool:
+    """Mark the job failed with ``error``; False when the lease was lost."""
+    model = _model(kind)
+    now = utcnow()
+    values: dict = {
+        "status": "failed",
+        "error": error,
+        "lease_owner": None,
+        "lease_expires_at": None,
+        **_touch(kind, now),
+    }
+    if kind == "rerun":
+        values["finished_at"] = now
+    done = session.execute(
+        update(model)
+        .where(model.id == job_id, model.status == "running", model.lease_owner == owner)
+        .values(**values)
+    ).rowcount
+    if done:
+        _event(session, kind, job_id, owner, "failed", error=error)
+    return bool(done)
+
+
+def cancel(session: Session, kind: str, job_id: str, owner: str) -> bool:
+    """Mark our running request cancelled (the worker saw cancel_requested); False otherwise."""
+    if kind != "request":
+        raise ValueError("only requests can be cancelled; reruns run to the end")
+    now = utcnow()
+    done = session.execute(
+        update(Request)
+        .where(Request.id == job_id, Request.status == "running", Request.lease_owner == owner)
+        .values(status="cancelled", lease_owner=None, lease_expires_at=None, updated_at=now)
+    ).rowcount
+    if done:
+        _event(session, kind, job_id, owner, "cancelled", reason="cancel requested")
+    return bool(done)
+
+
+def stale_jobs(
+    session: Session, now: datetime, *, grace_seconds: float = 0.0
+) -> list[tuple[str, str]]:
+    """Return (kind, id) of jobs never published or running on an expired lease, for the sweeper.
+
+    ``grace_seconds`` skips unpublished jobs younger than that (the API may be publishing them).
+    """
+    cutoff = now - timedelta(seconds=grace_seconds)
+    jobs: list[tuple[str, str]] = []
+    for kind, model, stamp in (
+        ("request", Request, Request.submitted_at),
+        ("rerun", Rerun, Rerun.requested_at),
+    ):
+        rows = session.scalars(
+            select(model.id)
+            .where(
+                or_(
+                    and_(
+                        model.published_at.is_(None),
+                        model.status.in_(_queued_statuses(kind)),
+                        stamp <= cutoff,
+                    ),
+                    and_(model.status == "running", model.lease_expires_at < now),
+                )
+            )
+            .order_by(stamp)
+        )
+        jobs.extend((kind, job_id) for job_id in rows)
+    return jobs

@@ -1,0 +1,176 @@
+"""SQLAlchemy 2 typed models: requests, results, reruns, chunk_results, audit_events.
+
+Table and column names are a contract with the workers (see the shared service contract).
+"""
+
+from __future__ import annotations
+
+from datetime import date, datetime
+from typing import Annotated, Any
+
+from sqlalchemy import (
+    JSON,
+    BigInteger,
+    CheckConstraint,
+    Double,
+    ForeignKey,
+    Integer,
+    MetaData,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+from .types import UTCDateTime, utcnow
+
+NAMING_CONVENTION = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+REQUEST_STATUSES = (
+    "received",
+    "queued",
+    "running",
+    "computed",
+    "approved",
+    "returned",
+    "failed",
+    "cancelled",
+)
+RERUN_STATUSES = ("queued", "running", "done", "failed")
+# Statuses after which a request no longer changes on its own.
+ENDED_STATUSES = ("computed", "approved", "returned", "failed", "cancelled")
+
+Json = Annotated[Any, mapped_column(JSON)]
+Stamp = Annotated[datetime, mapped_column(UTCDateTime())]
+
+
+def _in(column: str, values: tuple[str, ...]) -> str:
+    return f"{column} IN ({', '.join(repr(v) for v in values)})"
+
+
+class Base(DeclarativeBase):
+    """Declarative base carrying the naming convention, so constraints have stable names."""
+
+    metadata = MetaData(naming_convention=NAMING_CONVENTION)
+    type_annotation_map = {datetime: UTCDateTime(), dict[str, Any]: JSON, Any: JSON}
+
+
+class Request(Base):
+    """A sample-size question submitted for a study protocol, and its progress."""
+
+    __tablename__ = "requests"
+    __table_args__ = (CheckConstraint(_in("status", REQUEST_STATUSES), name="status"),)
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    status: Mapped[str] = mapped_column(String(16), index=True)
+    protocol: Mapped[Json]
+    protocol_id: Mapped[str] = mapped_column(String(64), index=True)
+    requester: Mapped[Json]
+    requester_name: Mapped[str] = mapped_column(String(200))
+    requester_email: Mapped[str] = mapped_column(String(320), index=True)
+    department: Mapped[str | None] = mapped_column(String(200))
+    deadline: Mapped[date | None]
+    notes: Mapped[str | None] = mapped_column(Text)
+    question_raw: Mapped[Json]
+    question: Mapped[Json]
+    design: Mapped[str] = mapped_column(String(32), index=True)
+    method: Mapped[str] = mapped_column(String(16))
+    seed: Mapped[int | None] = mapped_column(BigInteger)
+    progress: Mapped[float] = mapped_column(Double, default=0.0)
+    cancel_requested: Mapped[bool] = mapped_column(default=False)
+    assigned_to: Mapped[str | None] = mapped_column(String(200))
+    idempotency_key: Mapped[str | None] = mapped_column(String(200), unique=True)
+    body_sha256: Mapped[str] = mapped_column(String(64))
+    submitted_by: Mapped[str] = mapped_column(String(200))
+    submitted_at: Mapped[Stamp] = mapped_column(default=utcnow, index=True)
+    updated_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    published_at: Mapped[datetime | None]
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    lease_expires_at: Mapped[datetime | None]
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    error: Mapped[str | None] = mapped_column(Text)
+
+
+class Result(Base):
+    """The original engine record of a request (at most one per request)."""
+
+    __tablename__ = "results"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    request_id: Mapped[str] = mapped_column(ForeignKey("requests.id"), unique=True)
+    record: Mapped[Json]
+    record_sha256: Mapped[str] = mapped_column(String(64))
+    versions: Mapped[Json]
+    chunk_size: Mapped[int | None]
+    started_at: Mapped[datetime | None]
+    finished_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    duration_seconds: Mapped[float | None] = mapped_column(Double)
+    conflict: Mapped[Any | None] = mapped_column(JSON)
+
+
+class Rerun(Base):
+    """A recomputation of a stored question, compared with the original record."""
+
+    __tablename__ = "reruns"
+    __table_args__ = (CheckConstraint(_in("status", RERUN_STATUSES), name="status"),)
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    request_id: Mapped[str] = mapped_column(ForeignKey("requests.id"), index=True)
+    status: Mapped[str] = mapped_column(String(16))
+    requested_by: Mapped[str] = mapped_column(String(200))
+    requested_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    published_at: Mapped[datetime | None]
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    lease_expires_at: Mapped[datetime | None]
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    record: Mapped[Any | None] = mapped_column(JSON)
+    record_sha256: Mapped[str | None] = mapped_column(String(64))
+    identical: Mapped[bool | None]
+    differences: Mapped[Any | None] = mapped_column(JSON)
+    env_original: Mapped[Json]
+    env_rerun: Mapped[Any | None] = mapped_column(JSON)
+    finished_at: Mapped[datetime | None]
+    error: Mapped[str | None] = mapped_column(Text)
+
+
+class ChunkResult(Base):
+    """One simulation chunk of a job, leased and stored so a retried job skips finished chunks."""
+
+    __tablename__ = "chunk_results"
+    __table_args__ = (
+        UniqueConstraint("job_kind", "job_id", "task_key", name="uq_chunk_results_job_task"),
+        CheckConstraint(_in("job_kind", ("request", "rerun")), name="job_kind"),
+        CheckConstraint(_in("status", ("running", "done")), name="status"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    job_kind: Mapped[str] = mapped_column(String(16))
+    job_id: Mapped[str] = mapped_column(String(32))
+    task_key: Mapped[str] = mapped_column(String(64))
+    status: Mapped[str] = mapped_column(String(16))
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    lease_expires_at: Mapped[datetime | None]
+    result: Mapped[Any | None] = mapped_column(JSON)
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    finished_at: Mapped[datetime | None]
+
+
+class AuditEvent(Base):
+    """An append-only, hash-chained record of who changed what (never updated or deleted)."""
+
+    __tablename__ = "audit_events"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    request_id: Mapped[str | None] = mapped_column(String(32), index=True)
+    actor: Mapped[str] = mapped_column(String(200))
+    action: Mapped[str] = mapped_column(String(64))
+    detail: Mapped[Json]
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    prev_sha256: Mapped[str | None] = mapped_column(String(64))
+    sha256: Mapped[str] = mapped_column(String(64))

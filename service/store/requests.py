@@ -1,0 +1,284 @@
+"""Data functions for requests, their review and their reruns (take a session, never commit)."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import uuid
+from dataclasses import dataclass
+from datetime import UTC, date, datetime, time, timedelta
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from .audit import append_event, events_for
+from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
+from .types import utcnow
+
+
+class TransitionRefused(Exception):
+    """The action is not allowed from the request's current status."""
+
+    def __init__(self, action: str, status: str, allowed_from: tuple[str, ...]):
+        self.action = action
+        self.status = status
+        self.allowed_from = allowed_from
+        allowed = ", ".join(allowed_from) if allowed_from else "no status"
+        super().__init__(
+            f"cannot {action} a request whose status is '{status}'; allowed from: {allowed}"
+        )
+
+
+class ResultMissing(Exception):
+    """The request has no stored result (needed for a rerun)."""
+
+    def __init__(self, request_id: str, status: str):
+        self.request_id = request_id
+        self.status = status
+        super().__init__(
+            f"request {request_id} has no stored result yet (status '{status}'); "
+            "a rerun needs the original record"
+        )
+
+
+@dataclass(frozen=True)
+class Page:
+    """One page of a listing."""
+
+    items: list[Request]
+    total: int
+
+
+def body_digest(body: Any) -> str:
+    """SHA-256 of the canonical JSON of a posted body (the idempotency fingerprint)."""
+    text = json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def new_id() -> str:
+    """Return a fresh identifier (uuid4 as 32 hex digits)."""
+    return uuid.uuid4().hex
+
+
+def by_idempotency_key(session: Session, key: str) -> Request | None:
+    """Return the request created with ``key``, if any."""
+    return session.scalar(select(Request).where(Request.idempotency_key == key))
+
+
+def create_request(
+    session: Session,
+    *,
+    protocol: dict,
+    requester: dict,
+    deadline: date | None,
+    notes: str | None,
+    question_raw: dict,
+    question: dict,
+    actor: str,
+    idempotency_key: str | None,
+    body_sha256: str,
+) -> Request:
+    """Insert a received request and its 'submitted' audit event."""
+    simulation = question.get("simulation") or {}
+    row = Request(
+        id=new_id(),
+        status="received",
+        protocol=protocol,
+        protocol_id=protocol["id"],
+        requester=requester,
+        requester_name=requester["name"],
+        requester_email=requester["email"],
+        department=requester.get("department"),
+        deadline=deadline,
+        notes=notes,
+        question_raw=question_raw,
+        question=question,
+        design=question["design"],
+        method=question["method"],
+        seed=simulation.get("seed"),
+        progress=0.0,
+        cancel_requested=False,
+        idempotency_key=idempotency_key,
+        body_sha256=body_sha256,
+        submitted_by=actor,
+        attempts=0,
+    )
+    session.add(row)
+    session.flush()
+    append_event(
+        session,
+        request_id=row.id,
+        actor=actor,
+        action="submitted",
+        detail={"design": row.design, "method": row.method, "seed": row.seed},
+    )
+    return row
+
+
+def get_request(session: Session, request_id: str) -> Request | None:
+    """Return the request with ``request_id`` or None."""
+    return session.get(Request, request_id)
+
+
+def result_for(session: Session, request_id: str) -> Result | None:
+    """Return the stored original result of a request, if any."""
+    return session.scalar(select(Result).where(Result.request_id == request_id))
+
+
+def history(session: Session, request_id: str) -> list[AuditEvent]:
+    """Return the request's audit events, oldest first."""
+    return events_for(session, request_id)
+
+
+def list_requests(
+    session: Session,
+    *,
+    status: str | None = None,
+    protocol_id: str | None = None,
+    requester: str | None = None,
+    design: str | None = None,
+    submitted_from: date | None = None,
+    submitted_to: date | None = None,
+    page: int = 1,
+    per_page: int = 20,
+) -> Page:
+    """Return one page of requests, newest first, filtered; dates are whole UTC days, inclusive."""
+    conditions = []
+    if status is not None:
+        conditions.append(Request.status == status)
+    if protocol_id is not None:
+        conditions.append(Request.protocol_id == protocol_id)
+    if requester is not None:
+        conditions.append(func.lower(Request.requester_email) == requester.lower())
+    if design is not None:
+        conditions.append(Request.design == design)
+    if submitted_from is not None:
+        conditions.append(Request.submitted_at >= datetime.combine(submitted_from, time(), UTC))
+    if submitted_to is not None:
+        end = datetime.combine(submitted_to + timedelta(days=1), time(), UTC)
+        conditions.append(Request.submitted_at < end)
+    total = session.scalar(select(func.count()).select_from(Request).where(*conditions)) or 0
+    items = session.scalars(
+        select(Request)
+        .where(*conditions)
+        .order_by(Request.submitted_at.desc(), Request.id)
+        .offset((page - 1) * per_page)
+        .limit(per_page)
+    )
+    return Page(items=list(items), total=total)
+
+
+def _touch(row: Request) -> None:
+    row.updated_at = utcnow()
+
+
+CANCELLABLE = ("received", "queued", "running")
+REVIEWABLE = ("computed",)
+
+
+def cancel_request(session: Session, row: Request, actor: str, reason: str | None) -> Request:
+    """Cancel a waiting request now, or ask a running one to stop between chunks."""
+    if row.status not in CANCELLABLE:
+        raise TransitionRefused("cancel", row.status, CANCELLABLE)
+    if row.status == "running":
+        if not row.cancel_requested:
+            row.cancel_requested = True
+            _touch(row)
+            append_event(
+                session,
+                request_id=row.id,
+                actor=actor,
+                action="cancel_requested",
+                detail={"reason": reason},
+            )
+    else:
+        row.status = "cancelled"
+        row.cancel_requested = True
+        _touch(row)
+        append_event(
+            session, request_id=row.id, actor=actor, action="cancelled", detail={"reason": reason}
+        )
+    session.flush()
+    return row
+
+
+def assign(session: Session, row: Request, actor: str, to: str) -> Request:
+    """Assign the request to a reviewer (any status but cancelled)."""
+    if row.status == "cancelled":
+        allowed = tuple(s for s in (*CANCELLABLE, *ENDED_STATUSES) if s != "cancelled")
+        raise TransitionRefused("assign", row.status, allowed)
+    previous = row.assigned_to
+    row.assigned_to = to
+    _touch(row)
+    append_event(
+        session,
+        request_id=row.id,
+        actor=actor,
+        action="assigned",
+        detail={"to": to, "previous": previous},
+    )
+    session.flush()
+    return row
+
+
+def comment(session: Session, row: Request, actor: str, text: str) -> AuditEvent:
+    """Add a reviewer's comment (kept in the audit trail) and return its event."""
+    return append_event(
+        session, request_id=row.id, actor=actor, action="comment", detail={"text": text}
+    )
+
+
+def review(session: Session, row: Request, actor: str, decision: str, note: str) -> Request:
+    """Approve or return a computed request with the reviewer's note."""
+    if decision not in ("approve", "return"):
+        raise ValueError(f"decision must be 'approve' or 'return'; got {decision!r}")
+    if row.status not in REVIEWABLE:
+        raise TransitionRefused(decision, row.status, REVIEWABLE)
+    row.status = "approved" if decision == "approve" else "returned"
+    _touch(row)
+    append_event(session, request_id=row.id, actor=actor, action=row.status, detail={"note": note})
+    session.flush()
+    return row
+
+
+def create_rerun(session: Session, row: Request, actor: str, note: str | None) -> Rerun:
+    """Queue a recomputation of the request's stored question (needs a stored result)."""
+    result = result_for(session, row.id)
+    if result is None:
+        raise ResultMissing(row.id, row.status)
+    rerun = Rerun(
+        id=new_id(),
+        request_id=row.id,
+        status="queued",
+        requested_by=actor,
+        attempts=0,
+        env_original=dict(result.versions or {}),
+    )
+    session.add(rerun)
+    session.flush()
+    append_event(
+        session,
+        request_id=row.id,
+        actor=actor,
+        action="rerun_requested",
+        detail={"rerun_id": rerun.id, "note": note},
+    )
+    return rerun
+
+
+def reruns_for(session: Session, request_id: str) -> list[Rerun]:
+    """Return the request's reruns, oldest first."""
+    return list(
+        session.scalars(
+            select(Rerun)
+            .where(Rerun.request_id == request_id)
+            .order_by(Rerun.requested_at, Rerun.id)
+        )
+    )
+
+
+def get_rerun(session: Session, request_id: str, rerun_id: str) -> Rerun | None:
+    """Return the rerun ``rerun_id`` of request ``request_id`` or None."""
+    rerun = session.get(Rerun, rerun_id)
+    return rerun if rerun is not None and rerun.request_id == request_id else None

@@ -1,0 +1,169 @@
+"""Every endpoint answers bad input with application/problem+json naming the field."""
+
+from __future__ import annotations
+
+import pytest
+
+pytest.importorskip("workers.queue", reason="workers/queue.py (WORKERS) not present yet")
+
+MISSING = "0" * 32
+PROBLEM = "application/problem+json"
+
+
+def _is_problem(response, status: int) -> dict:
+    assert response.status_code == status, response.get_data(as_text=True)
+    assert response.mimetype == PROBLEM
+    body = response.get_json()
+    assert {"type", "title", "status", "detail", "instance"} <= set(body)
+    assert body["status"] == status and "Traceback" not in body["detail"]
+    return body
+
+
+@pytest.fixture
+def request_id(api) -> str:
+    return api.submit().get_json()["id"]
+
+
+# (path template, a valid body or None when the endpoint takes none)
+BODY_ENDPOINTS = [
+    (
+        "/v1/calculations",
+        {
+            "question": {
+                "design": "two_means",
+                "find": "sample_size",
+                "effect": {"difference": 0.5, "sd": 1},
+            }
+        },
+    ),
+    ("/v1/requests", None),
+    ("/v1/requests/{id}/cancel", {}),
+    ("/v1/requests/{id}/assign", {"to": "j.moreau"}),
+    ("/v1/requests/{id}/comments", {"text": "ok"}),
+    ("/v1/requests/{id}/approve", {"note": "ok"}),
+    ("/v1/requests/{id}/return", {"note": "ok"}),
+    ("/v1/requests/{id}/reruns", {}),
+]
+
+
+@pytest.mark.parametrize("path,_body", BODY_ENDPOINTS)
+def test_malformed_json(client, request_id, path, _body):
+    r = client.post(path.format(id=request_id), data="{not json", content_type="application/json")
+    assert "not valid JSON" in _is_problem(r, 400)["detail"]
+
+
+@pytest.mark.parametrize("path,_body", BODY_ENDPOINTS)
+def test_wrong_content_type(client, request_id, path, _body):
+    r = client.post(path.format(id=request_id), data="to=j.moreau", content_type="text/plain")
+    assert "text/plain" in _is_problem(r, 415)["detail"]
+
+
+@pytest.mark.parametrize("path,body", BODY_ENDPOINTS)
+def test_unknown_field(api, request_id, path, body):
+    body = dict(body if body is not None else api.request_body(), colour="teal")
+    errors = _is_problem(api.client.post(path.format(id=request_id), json=body), 422)["errors"]
+    assert errors["colour"][0].startswith("unknown field; allowed:")
+
+
+@pytest.mark.parametrize("path,body", BODY_ENDPOINTS)
+def test_body_must_be_an_object(client, request_id, path, body):
+    r = client.post(path.format(id=request_id), json=[1, 2])
+    assert _is_problem(r, 422)["errors"] == {"body": ["must be a JSON object"]}
+
+
+@pytest.mark.parametrize("path,body", [e for e in BODY_ENDPOINTS if "{id}" in e[0]])
+def test_unknown_request_id(client, path, body):
+    for request_id in (MISSING, "not-an-id"):
+        r = client.post(path.format(id=request_id), json=body)
+        assert request_id in _is_problem(r, 404)["detail"]
+
+
+@pytest.mark.parametrize(
+    "path", ["/v1/requests/{id}", "/v1/requests/{id}/reruns", "/v1/requests/{id}/reruns/" + MISSING]
+)
+def test_unknown_id_on_reads(client, path):
+    _is_problem(client.get(path.format(id=MISSING)), 404)
+
+
+@pytest.mark.parametrize(
+    "query,field",
+    [
+        ("status=done", "query.status"),
+        ("design=two_medians", "query.design"),
+        ("requester=not-an-email", "query.requester"),
+        ("submitted_from=yesterday", "query.submitted_from"),
+        ("submitted_from=2025-03-02&submitted_to=2025-03-01", "query.submitted_to"),
+        ("page=0", "query.page"),
+        ("page=two", "query.page"),
+        ("per_page=101", "query.per_page"),
+        ("page=1&page=2", "query.page"),
+        ("sort=newest", "query.sort"),
+    ],
+)
+def test_bad_list_query(client, query, field):
+    errors = _is_problem(client.get(f"/v1/requests?{query}"), 422)["errors"]
+    assert list(errors) == [field]
+
+
+@pytest.mark.parametrize("path", ["/v1/designs", "/v1/requests/{id}", "/v1/requests/{id}/reruns"])
+def test_query_on_endpoints_without_parameters(client, request_id, path):
+    r = client.get(path.format(id=request_id) + "?verbose=1")
+    assert _is_problem(r, 422)["errors"] == {"query.verbose": ["unknown parameter"]}
+
+
+def test_question_errors_are_keyed_under_question(api):
+    body = api.request_body(api.question_body(alpha=1.5))
+    errors = _is_problem(api.client.post("/v1/requests", json=body), 422)["errors"]
+    assert list(errors) == ["question.alpha"] and "1.5" in errors["question.alpha"][0]
+
+
+def test_invalid_requester_names_field_and_value(api):
+    body = api.request_body(requester={"name": "", "email": "okafor", "department": None})
+    errors = _is_problem(api.client.post("/v1/requests", json=body), 422)["errors"]
+    assert errors["requester.email"] == ["must be an e-mail address; got 'okafor'"]
+    assert errors["requester.name"] == ["must be 1 to 200 characters long"]
+
+
+def test_bad_idempotency_key_and_actor_headers(api):
+    r = api.client.post("/v1/requests", json=api.request_body(), headers={"Idempotency-Key": "a b"})
+    assert list(_is_problem(r, 422)["errors"]) == ["headers.Idempotency-Key"]
+    r = api.client.post(
+        "/v1/requests", json=api.request_body(), headers={"X-Sizewise-Actor": "x" * 201}
+    )
+    assert list(_is_problem(r, 422)["errors"]) == ["headers.X-Sizewise-Actor"]
+
+
+def test_body_too_large(app, api):
+    limit = app.config["MAX_CONTENT_LENGTH"]
+    body = api.request_body(notes="x" * limit)
+    _is_problem(api.client.post("/v1/requests", json=body), 413)
+
+
+def test_method_not_allowed_and_unknown_path(client):
+    r = client.delete("/v1/requests")
+    _is_problem(r, 405)
+    assert "POST" in r.headers["Allow"]
+    _is_problem(client.get("/v1/nothing-here"), 404)
+
+
+def test_unexpected_error_is_500_without_traceback(app, client):
+    @app.get("/boom")
+    def boom():
+        raise RuntimeError("secret internal detail")
+
+    body = _is_problem(client.get("/boom"), 500)
+    assert "secret" not in body["detail"]
+
+
+def test_database_outage_is_503(tmp_path):
+    from service import create_app
+
+    app = create_app(
+        {
+            "DATABASE_URL": "postgresql+psycopg://postgres@127.0.0.1:1/none",
+            "BROKER_URL": f"filesystem://{tmp_path}",
+        }
+    )
+    r = app.test_client().get("/v1/requests")
+    assert r.status_code == 503 and r.mimetype == PROBLEM
+    assert "database" in r.get_json()["detail"]

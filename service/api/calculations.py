@@ -26,9 +26,9 @@ bp = Blueprint("calculations", __name__, url_prefix="/v1")
 def designs():
     """Return the design catalogue the intake form is built from."""
     reject_query()
-    from service.schemas.catalogue import build_catalogue
+    from service.schemas.catalogue import catalogue
 
-    return jsonify(build_catalogue())
+    return jsonify(catalogue())
 
 
 @bp.post("/calculations")

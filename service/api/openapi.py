@@ -12,6 +12,7 @@ from apispec.ext.marshmallow.common import resolve_schema_cls
 from flask import Blueprint, Flask, current_app, jsonify
 from marshmallow import Schema
 
+from service.schemas import register_openapi_types
 from service.schemas.api import ProblemSchema
 
 from .docs import Operation, operation
@@ -92,16 +93,18 @@ def _operation_dict(op: Operation, endpoint: str) -> dict:
 
 def build_spec(app: Flask) -> dict:
     """Return the OpenAPI document of every route registered on ``app``."""
+    plugin = MarshmallowPlugin(schema_name_resolver=_schema_name)
     spec = APISpec(
         title="sizewise",
         version=_version(),
         openapi_version="3.1.0",
-        plugins=[MarshmallowPlugin(schema_name_resolver=_schema_name)],
+        plugins=[plugin],
         info={
             "description": "Sample-size and power answers for study protocols. Every error is "
             "application/problem+json (RFC 9457)."
         },
     )
+    register_openapi_types(plugin)  # needs the converter that APISpec's init just made
     spec.components.schema("Problem", schema=ProblemSchema)
     for rule in sorted(app.url_map.iter_rules(), key=lambda r: r.rule):
         if rule.endpoint == "static":

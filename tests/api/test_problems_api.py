@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import pytest
 
-pytest.importorskip("workers.queue", reason="workers/queue.py (WORKERS) not present yet")
 
 MISSING = "0" * 32
 PROBLEM = "application/problem+json"

@@ -11,7 +11,7 @@ from sqlalchemy import update
 from service.store.db import session_scope
 from service.store.models import Request
 
-queue = pytest.importorskip("workers.queue", reason="workers/queue.py (WORKERS) not present yet")
+from workers import queue
 
 
 def test_submit_stores_then_queues(api, settings):

@@ -10,7 +10,6 @@ from service.store.audit import verify_chain
 from service.store.db import session_scope
 from service.store.models import Request
 
-pytest.importorskip("workers.queue", reason="workers/queue.py (WORKERS) not present yet")
 
 
 def _claim(api, request_id: str, owner: str = "worker-test") -> None:

@@ -1,0 +1,216 @@
+"""The ``sizewise`` command.
+
+Sub-commands live in one registry; adding one is a decorated function::
+
+    @subcommand("serve", "run the HTTP API", arg("--port", type=int, default=8000))
+    def serve(args: argparse.Namespace) -> int:
+        ...
+
+Exit codes: 0 success, 1 the engine failed, 2 bad input (unreadable file, invalid JSON or an
+invalid question; the errors go to stderr field by field, never as a traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from importlib import resources
+from typing import Any
+
+EXIT_OK, EXIT_ENGINE, EXIT_INPUT = 0, 1, 2
+
+
+class InputError(Exception):
+    """Input the command cannot use: unreadable file or invalid JSON (exit 2)."""
+
+
+@dataclass(frozen=True)
+class Arg:
+    """Positional and keyword arguments for ``ArgumentParser.add_argument``."""
+
+    flags: tuple[str, ...]
+    options: dict[str, Any] = field(default_factory=dict)
+
+
+def arg(*flags: str, **options: Any) -> Arg:
+    """Declare one argument of a sub-command."""
+    return Arg(flags, options)
+
+
+@dataclass(frozen=True)
+class Command:
+    """A registered sub-command."""
+
+    name: str
+    help: str
+    args: tuple[Arg, ...]
+    run: Callable[[argparse.Namespace], int]
+
+
+COMMANDS: dict[str, Command] = {}
+
+
+def subcommand(name: str, help: str, *args: Arg) -> Callable:
+    """Register the decorated ``run(args) -> exit code`` function as ``sizewise NAME``."""
+
+    def register(run: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
+        COMMANDS[name] = Command(name, help, args, run)
+        return run
+
+    return register
+
+
+# ---------------------------------------------------------------------------------------------
+# I/O helpers
+
+
+def _refuse_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON number")
+
+
+def parse_json(text: str, source: str) -> Any:
+    """Parse strict JSON (NaN and Infinity refused); raise InputError naming the position."""
+    try:
+        return json.loads(text, parse_constant=_refuse_constant)
+    except json.JSONDecodeError as exc:
+        raise InputError(
+            f"{source} is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}"
+        ) from None
+    except ValueError as exc:
+        raise InputError(f"{source} is not valid JSON: {exc}") from None
+
+
+def read_json(path: str) -> Any:
+    """Read a JSON document from a file path, or from stdin when ``path`` is '-'."""
+    if path == "-":
+        return parse_json(sys.stdin.read(), "stdin")
+    try:
+        with open(path, encoding="utf-8") as fh:
+            text = fh.read()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read {path}: {getattr(exc, 'strerror', None) or exc}") from None
+    return parse_json(text, path)
+
+
+def dump(value: Any, pretty: bool) -> str:
+    """Canonical JSON (the hashed form), or indented sorted JSON for people."""
+    from service.engine import canonical_json
+
+    if pretty:
+        return json.dumps(value, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False)
+    return canonical_json(value)
+
+
+def print_errors(title: str, errors: dict[str, list[str]]) -> None:
+    """Print field-keyed errors to stderr, one line per message."""
+    print(f"sizewise: {title}", file=sys.stderr)
+    for path in sorted(errors):
+        for message in errors[path]:
+            print(f"  {path}: {message}", file=sys.stderr)
+
+
+def _load(path: str) -> dict:
+    from service.schemas import load_question
+
+    return load_question(read_json(path))
+
+
+# ---------------------------------------------------------------------------------------------
+# Sub-commands
+
+_FILE = arg("file", metavar="FILE", help="question as JSON; '-' reads stdin")
+_PRETTY = arg("--pretty", action="store_true", help="indent and sort keys for reading")
+
+
+@subcommand("compute", "answer a question and print the result record", _FILE, _PRETTY)
+def compute_command(args: argparse.Namespace) -> int:
+    """Validate the question, draw a seed if a simulation lacks one, compute and print."""
+    from service.engine import EngineError, QuestionError, compute, draw_seed
+
+    question = _load(args.file)
+    sim = question.get("simulation")
+    if sim is not None and sim.get("seed") is None:
+        sim["seed"] = draw_seed()
+    try:
+        record = compute(question)
+    except QuestionError as exc:
+        print_errors("the question cannot be answered as posed:", exc.as_errors())
+        return EXIT_INPUT
+    except EngineError as exc:
+        print(f"sizewise: the engine failed: {exc}", file=sys.stderr)
+        return EXIT_ENGINE
+    print(dump(record, args.pretty))
+    return EXIT_OK
+
+
+@subcommand("validate", "check a question and print its normalized form", _FILE, _PRETTY)
+def validate_command(args: argparse.Namespace) -> int:
+    """Print the normalized question, every default filled in."""
+    print(dump(_load(args.file), args.pretty))
+    return EXIT_OK
+
+
+def example_names() -> list[str]:
+    """Names of the example questions shipped in ``service/examples``."""
+    root = resources.files("service.examples")
+    return sorted(p.name[:-5] for p in root.iterdir() if p.name.endswith(".json"))
+
+
+@subcommand(
+    "examples",
+    "list the example questions, or print one",
+    arg("name", nargs="?", help="an example name (without .json)"),
+)
+def examples_command(args: argparse.Namespace) -> int:
+    """List the shipped example questions, or print one of them."""
+    names = example_names()
+    if args.name is None:
+        print("\n".join(names))
+        return EXIT_OK
+    if args.name not in names:
+        print(f"sizewise: no example {args.name!r}; available: {', '.join(names)}", file=sys.stderr)
+        return EXIT_INPUT
+    print(
+        resources.files("service.examples").joinpath(f"{args.name}.json").read_text("utf-8"), end=""
+    )
+    return EXIT_OK
+
+
+# ---------------------------------------------------------------------------------------------
+# Entry point
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every registered sub-command."""
+    parser = argparse.ArgumentParser(
+        prog="sizewise", description="Sample-size and power answers for study protocols."
+    )
+    subs = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for command in COMMANDS.values():
+        sub = subs.add_parser(command.name, help=command.help, description=command.help)
+        for a in command.args:
+            sub.add_argument(*a.flags, **a.options)
+        sub.set_defaults(run=command.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the ``sizewise`` command line and return its exit code."""
+    from service.schemas import QuestionInvalid
+
+    args = build_parser().parse_args(argv)
+    try:
+        return args.run(args)
+    except InputError as exc:
+        print(f"sizewise: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except QuestionInvalid as exc:
+        print_errors("the question is invalid:", exc.errors)
+        return EXIT_INPUT
+
+
+if __name__ == "__main__":
+    sys.exit(main())

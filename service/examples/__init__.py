@@ -1,0 +1,1 @@
+"""Example questions (package data): invented Northbridge General Hospital studies; see README.md."""

@@ -1,0 +1,204 @@
+"""Property: any JSON-ish input either loads or raises QuestionInvalid keyed by dotted paths."""
+
+from __future__ import annotations
+
+import re
+
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from service.engine.designs import DESIGN_NAMES
+from service.schemas import QuestionInvalid, load_question
+
+PATH = re.compile(r"^[A-Za-z0-9_]+(\.[A-Za-z0-9_]+)*$")
+
+leaves = (
+    st.none()
+    | st.booleans()
+    | st.integers(min_value=-(2**60), max_value=2**60)
+    | st.floats(allow_nan=True, allow_infinity=True)
+    | st.sampled_from([0, 1, 2, 0.5, 0.05, 0.8, -1, 1e300, 2**53, "0.05", ""])
+    | st.text(max_size=8)
+)
+json_values = st.recursive(
+    leaves,
+    lambda inner: (
+        st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=6), inner, max_size=4)
+    ),
+    max_leaves=12,
+)
+EFFECT_KEYS = [
+    "difference",
+    "sd",
+    "sd_control",
+    "sd_treatment",
+    "sd_difference",
+    "correlation",
+    "p_control",
+    "p_treatment",
+    "continuity_correction",
+    "cohens_f",
+    "groups",
+    "group_means",
+    "r",
+    "r0",
+    "prob_superiority",
+    "hazard_ratio",
+    "median_control",
+    "event_rate_control",
+    "accrual_period",
+    "follow_up",
+    "loss_rate",
+]
+ARM_KEYS = [
+    "family",
+    "mean",
+    "sd",
+    "p",
+    "shape",
+    "scale",
+    "low",
+    "high",
+    "df",
+    "loc",
+    "mu",
+    "sigma",
+]
+families = st.sampled_from(["normal", "bernoulli", "weibull", "uniform", "exponential", "x"])
+arm = st.dictionaries(st.sampled_from(ARM_KEYS), json_values | families, max_size=4)
+data_model = st.dictionaries(
+    st.sampled_from(["control", "treatment", "sample", "groups"]),
+    arm | st.lists(arm, max_size=3) | json_values,
+    max_size=3,
+)
+questions = st.fixed_dictionaries(
+    {},
+    optional={
+        "design": st.sampled_from([*DESIGN_NAMES, "other"]) | json_values,
+        "find": st.sampled_from(["sample_size", "power", "effect"]) | json_values,
+        "alpha": json_values,
+        "sides": st.sampled_from([1, 2]) | json_values,
+        "target_power": json_values,
+        "sample_size": st.dictionaries(
+            st.sampled_from(["per_arm", "total"]),
+            st.lists(st.integers(-2, 200), max_size=4) | st.integers(-5, 500) | json_values,
+            max_size=2,
+        ),
+        "allocation_ratio": json_values,
+        "effect": st.dictionaries(
+            st.sampled_from(EFFECT_KEYS), st.floats(-2, 30) | json_values, max_size=5
+        )
+        | json_values,
+        "hypothesis": st.dictionaries(
+            st.sampled_from(["kind", "margin", "higher_is_better"]),
+            st.sampled_from(["superiority", "noninferiority", "equivalence"]) | json_values,
+            max_size=3,
+        ),
+        "adjustments": st.dictionaries(
+            st.sampled_from(["dropout", "cluster", "comparisons"]), json_values, max_size=3
+        ),
+        "method": st.sampled_from(["analytic", "simulation"]) | json_values,
+        "formula": json_values,
+        "simulation": st.dictionaries(
+            st.sampled_from(["replicates", "seed", "test", "data", "decision_rule"]),
+            json_values | data_model,
+            max_size=4,
+        ),
+        "extra": json_values,
+    },
+)
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(questions)
+def test_loads_or_raises_question_invalid(raw: dict) -> None:
+    try:
+        q = load_question(raw)
+    except QuestionInvalid as exc:
+        assert exc.errors
+        for path, messages in exc.errors.items():
+            assert PATH.match(path), path
+            assert messages and all(isinstance(m, str) and m for m in messages)
+        return
+    assert q["design"] in DESIGN_NAMES
+    assert load_question(q) == q  # the normalized form is a fixed point
+
+
+@settings(max_examples=150, deadline=None)
+@given(json_values)
+def test_any_json_value_is_handled(raw) -> None:
+    try:
+        load_question(raw)
+    except QuestionInvalid as exc:
+        assert all(PATH.match(p) for p in exc.errors)
+
+
+finite = st.floats(-50, 50, allow_nan=False)
+positive = st.floats(0.01, 50)
+unit = st.floats(0.01, 0.99)
+near_valid = st.one_of(
+    st.builds(
+        lambda d, sc, st_, a: {
+            "design": "two_means",
+            "alpha": a,
+            "effect": {"difference": d, "sd_control": sc, "sd_treatment": st_},
+        },
+        finite,
+        positive,
+        positive,
+        st.floats(0.001, 0.5),
+    ),
+    st.builds(
+        lambda pc, pt, cc: {
+            "design": "two_proportions",
+            "effect": {"p_control": pc, "p_treatment": pt, "continuity_correction": cc},
+        },
+        unit,
+        unit,
+        st.booleans(),
+    ),
+    st.builds(
+        lambda means, sd, n: {
+            "design": "anova_oneway",
+            "find": "power",
+            "sample_size": {"total": n},
+            "effect": {"group_means": means, "sd": sd},
+        },
+        st.lists(finite, min_size=2, max_size=6),
+        positive,
+        st.integers(12, 5000),
+    ),
+    st.builds(
+        lambda hr, m, a, f, r: {
+            "design": "survival_logrank",
+            "allocation_ratio": r,
+            "find": "power",
+            "sample_size": {"total": 400},
+            "effect": {
+                "hazard_ratio": hr,
+                "median_control": m,
+                "accrual_period": a,
+                "follow_up": f,
+            },
+        },
+        positive,
+        positive,
+        positive,
+        st.floats(0, 50),
+        st.floats(0.2, 5),
+    ),
+)
+
+
+@settings(max_examples=200, deadline=None)
+@given(near_valid)
+def test_in_range_questions_load_and_are_fixed_points(raw: dict) -> None:
+    try:
+        q = load_question(raw)
+    except QuestionInvalid as exc:
+        # the only refusals left for in-range numbers are "no effect to detect" when solving n
+        assert all("must differ from" in m for ms in exc.errors.values() for m in ms), exc.errors
+        return
+    assert load_question(q) == q
+    if q["sample_size"] is not None and "total" in raw.get("sample_size", {}):
+        assert sum(q["sample_size"]["per_arm"]) == raw["sample_size"]["total"]

@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
-from flask import Flask
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:  # Flask is imported inside the factory so `import service.engine` stays pure
+    from flask import Flask
 
 
 def create_app(config: dict | None = None) -> Flask:
     """Create the Flask application: settings, database engine, blueprints and error handlers."""
+    from flask import Flask
     from sqlalchemy.engine import make_url
 
     from service.api import register_api

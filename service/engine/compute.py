@@ -152,6 +152,8 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
         record["type_i_error"] = sim["type_i_error"]
         record["search"] = sim.get("search")
         record["method"] = sim["method"]
+        if sim.get("events"):
+            record["events"] = {**(record["events"] or {}), "simulated": sim["events"]}
         record["warnings"].extend(sim.get("warnings", []))
         repro = dict(sim["reproducibility"])
         if q["simulation"].get("data") is None and find != "effect":

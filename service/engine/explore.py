@@ -1,0 +1,363 @@
+"""What-if views of one question: a sensitivity grid and a robustness panel.
+
+Both re-ask the engine through ``compute`` so every number equals what a single question would
+give. The sensitivity grid re-solves an analytic question over a grid of field values; the
+robustness panel re-simulates a two_means question's power and type I error at a fixed n under
+declared departures from normal data. Pure: numpy/scipy/stdlib and ``service.engine`` only.
+"""
+
+from __future__ import annotations
+
+import copy
+import itertools
+import math
+
+from .compute import compute
+from .designs import TESTS
+from .errors import QuestionError
+
+MAX_CELLS = 400  # an analytic cell costs milliseconds; bigger grids are a job, not a request
+MAX_AXES = 3
+
+# Two-means shortcut: one path that moves both SDs together (a posted "sd" fills both too).
+_BOTH_SDS = "effect.sd"
+
+# Paths whose value must stay an integer (the engine reads them as counts).
+_INTEGER_PATHS = {"adjustments.comparisons", "effect.groups"}
+
+
+# --- sensitivity grid ---------------------------------------------------------------------
+
+
+def _numeric_paths(q: dict, prefix: str = "") -> list[str]:
+    """Every dotted path in ``q`` that holds a number (not a bool), in a stable order."""
+    out: list[str] = []
+    for key, value in q.items():
+        path = f"{prefix}{key}"
+        if isinstance(value, dict):
+            out.extend(_numeric_paths(value, path + "."))
+        elif isinstance(value, (int, float)) and not isinstance(value, bool):
+            out.append(path)
+    return out
+
+
+def _allowed_paths(q: dict) -> list[str]:
+    # Fields a grid may move: the assumptions, not the bookkeeping (seeds, replicates, chunking).
+    paths = [
+        p for p in _numeric_paths(q)
+        if p.split(".")[0] in ("alpha", "target_power", "allocation_ratio", "effect", "adjustments")
+    ]
+    if q.get("design") == "two_means":
+        paths.append(_BOTH_SDS)
+    return paths
+
+
+def _set_path(q: dict, path: str, value: float) -> None:
+    """Set one dotted path in ``q`` (in place); ``effect.sd`` sets both SDs of two_means."""
+    if path == _BOTH_SDS and q.get("design") == "two_means":
+        q["effect"]["sd_control"] = value
+        q["effect"]["sd_treatment"] = value
+        return
+    *parents, leaf = path.split(".")
+    node = q
+    for key in parents:
+        node = node[key]
+    node[leaf] = int(value) if path in _INTEGER_PATHS else value
+
+
+def _check_values(path: str, values) -> list[float]:
+    if not isinstance(values, (list, tuple)) or not values:
+        raise QuestionError(f"grid.{path}", f"must be a non-empty list of numbers; got {values!r}")
+    out = []
+    for i, v in enumerate(values):
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+            raise QuestionError(f"grid.{path}.{i}", f"must be a finite number; got {v!r}")
+        if path in _INTEGER_PATHS and float(v) != int(v):
+            raise QuestionError(f"grid.{path}.{i}", f"must be a whole number; got {v!r}")
+        out.append(float(v))
+    if len(set(out)) != len(out):
+        raise QuestionError(f"grid.{path}", f"has repeated values: {values!r}")
+    return out
+
+
+def _check_grid(q: dict, grid) -> list[tuple[str, list[float]]]:
+    if not isinstance(grid, dict) or not grid:
+        raise QuestionError("grid", f"must be a non-empty mapping of field path to values; got {grid!r}")
+    if len(grid) > MAX_AXES:
+        raise QuestionError("grid", f"at most {MAX_AXES} axes; got {len(grid)} ({', '.join(grid)})")
+    allowed = _allowed_paths(q)
+    axes = []
+    for path, values in grid.items():
+        if path not in allowed:
+            raise QuestionError(
+                f"grid.{path}", f"is not a numeric field of this question; allowed: {', '.join(allowed)}"
+            )
+        axes.append((path, _check_values(path, values)))
+    paths = [p for p, _ in axes]
+    if _BOTH_SDS in paths and {"effect.sd_control", "effect.sd_treatment"} & set(paths):
+        raise QuestionError("grid.effect.sd", "moves both SDs; do not combine it with effect.sd_control/sd_treatment")
+    cells = math.prod(len(v) for _, v in axes)
+    if cells > MAX_CELLS:
+        raise QuestionError("grid", f"has {cells} cells; at most {MAX_CELLS} are computed in one request")
+    return axes
+
+
+def sensitivity(question: dict, grid: dict[str, list[float]]) -> dict:
+    """Re-solve an analytic question at every combination of the grid's field values.
+
+    Parameters
+    ----------
+    question : a normalized question (DEVELOPERS.md) with ``method = "analytic"`` and ``find``
+        ``sample_size`` or ``power``.
+    grid : dotted field path -> values, e.g. ``{"effect.difference": [0.4, 0.5]}``; for two_means
+        ``"effect.sd"`` sets both SDs. At most 3 axes and 400 cells.
+
+    Returns
+    -------
+    dict with ``axes`` (path and values, in grid order), ``cells`` (row-major over the axes, the
+    last axis fastest; each with ``values``, ``per_arm``, ``total``, ``power`` and ``error``),
+    ``find``, ``design`` and ``base`` (the question's own answer).
+
+    Examples
+    --------
+    >>> q = {"design": "two_means", "find": "sample_size", "alpha": 0.05, "sides": 2,
+    ...      "target_power": 0.8, "sample_size": None, "allocation_ratio": 1.0,
+    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
+    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
+    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> [c["per_arm"] for c in sensitivity(q, {"effect.difference": [0.5, 0.8]})["cells"]]
+    [[64, 64], [26, 26]]
+    """
+    if not isinstance(question, dict):
+        raise QuestionError("question", f"must be a normalized question object; got {type(question).__name__}")
+    if question.get("method") == "simulation":
+        raise QuestionError(
+            "method",
+            "a sensitivity grid is computed for analytic questions only; a simulated grid is a "
+            "long computation and must be submitted as a worker job",
+        )
+    if question.get("find") not in ("sample_size", "power"):
+        raise QuestionError(
+            "find", f"a sensitivity grid needs find 'sample_size' or 'power'; got {question.get('find')!r}"
+        )
+    axes = _check_grid(question, grid)
+    base = _cell(question, {})
+    if base["error"]:
+        raise QuestionError("question", f"the question itself cannot be answered: {base['error']}")
+    cells = []
+    for combo in itertools.product(*(values for _, values in axes)):
+        values = {path: v for (path, _), v in zip(axes, combo, strict=True)}
+        q = copy.deepcopy(question)
+        for path, v in values.items():
+            _set_path(q, path, v)
+        cells.append(_cell(q, values))
+    return {
+        "design": question["design"],
+        "find": question["find"],
+        "axes": [{"path": p, "values": v} for p, v in axes],
+        "shape": [len(v) for _, v in axes],
+        "base": {k: base[k] for k in ("per_arm", "total", "power")},
+        "cells": cells,
+    }
+
+
+def _cell(q: dict, values: dict) -> dict:
+    # A cell the engine refuses (e.g. a difference of zero) is reported, not fatal to the grid.
+    try:
+        record = compute(q)
+    except QuestionError as exc:
+        return {"values": values, "per_arm": None, "total": None, "power": None, "error": str(exc)}
+    size = record["sample_size"]
+    return {
+        "values": values,
+        "per_arm": list(size["per_arm"]),
+        "total": size["total"],
+        "power": record["power"]["estimate"],
+        "error": None,
+    }
+
+
+# --- robustness panel ---------------------------------------------------------------------
+
+# Lognormal shape parameter: skewness (e^σ² + 2)·√(e^σ² − 1) ≈ 2.26 at σ = 0.6, a clearly skewed
+# outcome (lengths of stay, costs) without the extremes of σ ≥ 1.
+LOGNORMAL_SIGMA = 0.6
+# Gamma shape 2: skewness 2/√2 ≈ 1.41, a moderate right skew.
+GAMMA_SHAPE = 2.0
+T_DF = 3.0
+# Cauchy scale matched to the normal's interquartile range: IQR = 2·scale = 2·z.75·sd.
+_Z75 = 0.6744897501960817
+SD_FACTOR = 2.0
+
+_FORMULA_TEST = {"student": "student_t", "welch": "welch_t"}
+
+
+def _normal(mean: float, sd: float) -> dict:
+    return {"family": "normal", "mean": mean, "sd": sd}
+
+
+def _student_t(mean: float, sd: float) -> dict:
+    # Var of t_df is scale²·df/(df − 2): scale = sd·√((df − 2)/df) keeps the SD.
+    return {"family": "student_t", "df": T_DF, "loc": mean, "scale": sd * math.sqrt((T_DF - 2) / T_DF)}
+
+
+def _lognormal(mean: float, sd: float) -> dict:
+    s2 = LOGNORMAL_SIGMA**2
+    # sd² = (e^σ² − 1)·e^(2μ + σ²) fixes μ; the shift then moves the mean into place.
+    mu = math.log(sd / math.sqrt(math.expm1(s2))) - s2 / 2
+    arm = {"family": "lognormal", "mu": mu, "sigma": LOGNORMAL_SIGMA}
+    return _with_shift(arm, mean - math.exp(mu + s2 / 2))
+
+
+def _gamma(mean: float, sd: float) -> dict:
+    scale = sd / math.sqrt(GAMMA_SHAPE)
+    return _with_shift({"family": "gamma", "shape": GAMMA_SHAPE, "scale": scale}, mean - GAMMA_SHAPE * scale)
+
+
+def _cauchy(mean: float, sd: float) -> dict:
+    return {"family": "cauchy", "loc": mean, "scale": _Z75 * sd}
+
+
+def _with_shift(arm: dict, shift: float) -> dict:
+    if shift != 0.0:
+        arm["shift"] = shift
+    return arm
+
+
+# name -> (description, arm builder, treatment SD factor)
+DEPARTURES: dict[str, tuple[str, object, float]] = {
+    "normal": (
+        "Normal data with the assumed means and SDs: the reference case the answer was planned for.",
+        _normal, 1.0,
+    ),
+    "heavy_tails": (
+        f"Heavier tails: Student t with {T_DF:g} degrees of freedom in each arm, scaled to the same "
+        "mean and SD (more outlying values than the normal).",
+        _student_t, 1.0,
+    ),
+    "skew_lognormal": (
+        f"Right skew: shifted lognormal (log-scale SD {LOGNORMAL_SIGMA:g}, skewness about 2.3) in "
+        "each arm, matched to the assumed mean and SD.",
+        _lognormal, 1.0,
+    ),
+    "skew_gamma": (
+        f"Moderate right skew: shifted gamma (shape {GAMMA_SHAPE:g}, skewness about 1.4) in each "
+        "arm, matched to the assumed mean and SD.",
+        _gamma, 1.0,
+    ),
+    "unequal_variance": (
+        f"Unequal variance: normal data with the treatment SD multiplied by {SD_FACTOR:g}.",
+        _normal, SD_FACTOR,
+    ),
+    "cauchy": (
+        "The extreme: Cauchy data (no mean or variance), centred at the assumed means with the "
+        "normal model's interquartile range.",
+        _cauchy, 1.0,
+    ),
+}
+
+
+def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float, list[int]]:
+    """Validate the robustness inputs; return (control mean, difference, sd_c, sd_t, per_arm)."""
+    if not isinstance(question, dict) or question.get("design") != "two_means":
+        got = question.get("design") if isinstance(question, dict) else question
+        raise QuestionError("design", f"the robustness panel covers two_means only; got {got!r}")
+    effect = question.get("effect") or {}
+    for name in ("difference", "sd_control", "sd_treatment"):
+        value = effect.get(name)
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise QuestionError(f"effect.{name}", f"must be a number for the robustness panel; got {value!r}")
+    if not (
+        isinstance(per_arm, (list, tuple)) and len(per_arm) == 2
+        and all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in per_arm)
+    ):
+        raise QuestionError("per_arm", f"must be two whole numbers ≥ 2 (control, treatment); got {per_arm!r}")
+    sim = question.get("simulation") or {}
+    data = sim.get("data")
+    # The control mean only positions the skewed families; a posted normal model supplies it.
+    mean0 = 0.0
+    if isinstance(data, dict) and (data.get("control") or {}).get("family") == "normal":
+        mean0 = float(data["control"]["mean"])
+    return (
+        mean0, float(effect["difference"]), float(effect["sd_control"]),
+        float(effect["sd_treatment"]), [int(n) for n in per_arm],
+    )
+
+
+def robustness(question: dict, per_arm: list[int], *, replicates: int, seed: int) -> dict:
+    """Simulate the chosen test's power and type I error at ``per_arm`` under declared departures.
+
+    Parameters
+    ----------
+    question : a normalized two_means question (analytic or simulation); its effect gives the
+        means and SDs, its simulation test (or the formula's t test) the test.
+    per_arm : enrolled n per arm as in the record; dropout and design effect are removed as in
+        any power question.
+    replicates, seed : Monte Carlo size and seed, the same for every departure (common random
+        numbers where the families allow).
+
+    Returns
+    -------
+    dict with ``per_arm``, ``test``, ``replicates``, ``seed`` and ``departures``: one entry per
+    departure with ``name``, ``description``, ``data`` (the model simulated), ``power`` and
+    ``type_i_error`` (estimate, mcse, ci95) and the run's ``record_sha256``.
+
+    Examples
+    --------
+    >>> q = {"design": "two_means", "find": "sample_size", "alpha": 0.05, "sides": 2,
+    ...      "target_power": 0.8, "sample_size": None, "allocation_ratio": 1.0,
+    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
+    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
+    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> panel = robustness(q, [64, 64], replicates=400, seed=7)
+    >>> [d["name"] for d in panel["departures"]][:2]
+    ['normal', 'heavy_tails']
+    """
+    mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
+    if isinstance(replicates, bool) or not isinstance(replicates, int) or not 200 <= replicates <= 2_000_000:
+        raise QuestionError("simulation.replicates", f"must be a whole number in 200…2,000,000; got {replicates!r}")
+    if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**53:
+        raise QuestionError("simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}")
+    base_sim = question.get("simulation") or {}
+    test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS["two_means"][0])
+    departures = []
+    for name, (description, build, factor) in DEPARTURES.items():
+        data = {"control": build(mean0, sd_c), "treatment": build(mean0 + diff, sd_t * factor)}
+        q = copy.deepcopy(question)
+        q.update(
+            find="power", target_power=None, method="simulation",
+            sample_size={"per_arm": list(sizes)},
+        )
+        q["simulation"] = {
+            "replicates": replicates, "seed": seed, "test": test, "data": data,
+            "decision_rule": base_sim.get("decision_rule", "point"),
+            "chunk_size": base_sim.get("chunk_size", 1000),
+            "search_replicates": base_sim.get("search_replicates", 2000),
+        }
+        record = compute(q)
+        departures.append({
+            "name": name,
+            "description": description,
+            "data": record["method"].get("data", data),
+            "power": _estimate(record["power"]),
+            "type_i_error": _estimate(record["type_i_error"]),
+            "null_model": (record["type_i_error"] or {}).get("null_model"),
+            "record_sha256": record["reproducibility"]["record_sha256"],
+        })
+    return {
+        "design": "two_means",
+        "per_arm": sizes,
+        "test": test,
+        "alpha": question.get("alpha"),
+        "replicates": replicates,
+        "seed": seed,
+        "departures": departures,
+    }
+
+
+def _estimate(block: dict | None) -> dict | None:
+    if block is None:
+        return None
+    return {k: block.get(k) for k in ("estimate", "mcse", "ci95", "replicates")}

@@ -1,0 +1,1 @@
+"""Benchmarks: plain scripts that print timings and ratios (no assertions on time)."""

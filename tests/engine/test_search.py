@@ -1,0 +1,188 @@
+"""The n search: analytic start, geometric bracket, bisection, confirmation, bounded work."""
+
+import math
+
+import pytest
+from scipy import stats
+from statsmodels.stats.proportion import proportion_confint
+
+from service.engine import search, simulate
+from service.engine.errors import QuestionError
+
+
+def curve(shift: float = 0.0):
+    """A deterministic evaluator: two-sided z-test power for d = 0.5 at m per arm (formula)."""
+    calls = []
+
+    def evaluate(ms, reps, null_at):
+        calls.append((list(ms), reps, null_at))
+        out = []
+        for m in ms:
+            p = stats.norm.cdf(0.5 * math.sqrt(m / 2) - 1.959964) + (shift if reps < 10000 else 0.0)
+            out.append(search.Estimate(round(min(max(p, 0.0), 1.0) * reps), reps))
+        return out
+
+    return evaluate, calls
+
+
+def exact_answer(target=0.8):
+    """The smallest m with normal-approximation power ≥ target at 10,000 rounded replicates."""
+    m = 2
+    while round(stats.norm.cdf(0.5 * math.sqrt(m / 2) - 1.959964) * 10000) / 10000 < target:
+        m += 1  # a reference computed by brute force in the test, not by the code under test
+    return m
+
+
+def solve(evaluate, start, **kw):
+    args = dict(
+        start=start,
+        m_min=2,
+        m_max=10**6,
+        target=0.8,
+        rule="point",
+        search_replicates=2000,
+        replicates=10000,
+    )
+    args.update(kw)
+    return search.smallest_n(evaluate, **args)
+
+
+@pytest.mark.parametrize("start", [63.0, 40.0, 100.0, 20.0, 300.0])
+def test_finds_the_smallest_n_in_few_candidates(start):
+    # formula: normal-approximation power Φ(d√(n/2) − z.975); 63 per group for d = 0.5 (raw 62.79)
+    evaluate, calls = curve()
+    result = solve(evaluate, start)
+    assert result.m == exact_answer() == 63
+    assert result.candidates[0][0] == round(start)  # starts from the given start, not from m_min
+    assert len(result.candidates) <= search.MAX_CANDIDATES
+    assert [c[0][0] for c in calls if c[1] == 2000] == [m for m, _ in result.candidates]
+
+
+def test_never_scans_linearly():
+    # common practice, no source: bisection, not a walk of +1 steps from a small n
+    evaluate, _ = curve()
+    result = solve(evaluate, 10.0)
+    ms = [m for m, _ in result.candidates]
+    steps = [b - a for a, b in zip(ms, ms[1:], strict=False)]
+    assert sum(1 for s in steps if s == 1) <= 2
+    assert len(ms) <= search.MAX_CANDIDATES
+
+
+def test_confirmation_at_n_and_n_minus_1_with_full_replicates():
+    # common practice, no source: the answer is confirmed at n and n − 1 with the full count
+    evaluate, calls = curve()
+    result = solve(evaluate, 63.0)
+    (m1, e1), (m0, e0) = result.confirmation
+    assert (m1, m0) == (63, 62) and e1.replicates == e0.replicates == 10000
+    assert e1.power >= 0.8 > e0.power
+    confirm = [c for c in calls if c[1] == 10000]
+    assert confirm[0][0] == [63, 62] and confirm[0][2] == 63  # one batch, with the null check at n
+
+
+@pytest.mark.parametrize("shift", [0.03, -0.03])
+def test_contradicting_confirmation_moves_and_reconfirms(shift):
+    # common practice, no source: a biased small run is corrected at full replicates (bounded)
+    evaluate, _ = curve(shift)
+    result = solve(evaluate, 63.0)
+    assert result.m == 63 and result.moves > 0
+    assert result.moves <= search.MAX_MOVES
+    assert [m for m, _ in result.confirmation] == [63, 62]
+
+
+def test_lower_bound_rule_needs_the_wilson_bound():
+    # formula: Wilson score interval; the rule asks lower bound ≥ target at the full count
+    evaluate, _ = curve()
+    result = solve(evaluate, 63.0, rule="lower_bound")
+    (m1, e1), (_, e0) = result.confirmation
+    assert e1.ci95[0] >= 0.8 > e0.ci95[0]
+    assert m1 > 63
+
+
+def test_unreachable_target_is_a_question_error():
+    # common practice, no source: an effect that cannot be detected names target_power
+    def flat(ms, reps, null_at):
+        return [search.Estimate(reps // 10, reps) for _ in ms]
+
+    with pytest.raises(QuestionError) as info:
+        solve(flat, 50.0, m_max=5000)
+    assert info.value.field == "target_power"
+
+
+def test_target_met_at_the_smallest_size_warns():
+    # common practice, no source: a huge effect is met at the smallest allowed size
+    def strong(ms, reps, null_at):
+        return [search.Estimate(reps, reps) for _ in ms]
+
+    result = solve(strong, 12.0)
+    assert result.m == 2 and any("smallest size" in w for w in result.warnings)
+
+
+def test_wilson_interval_matches_statsmodels():
+    # recomputed: statsmodels proportion_confint(method="wilson")
+    for k, n in [(800, 1000), (3, 200), (0, 50), (50, 50)]:
+        lo, hi = proportion_confint(k, n, alpha=0.05, method="wilson")
+        assert search.wilson(k, n) == pytest.approx([lo, hi], abs=1e-7)
+
+
+def test_mcse_reference():
+    # formula: Morris, White & Crowther (2019): √(p(1 − p)/R); p = .80, R = 1000 → 0.01265
+    assert search.Estimate(800, 1000).mcse == pytest.approx(0.01265, abs=5e-6)
+    # same source: 10,000 replicates keep the worst case (p = .5) at MCSE 0.005
+    assert search.Estimate(5000, 10000).mcse == pytest.approx(0.005)
+
+
+def _two_means(**sim):
+    return {
+        "design": "two_means",
+        "find": "sample_size",
+        "alpha": 0.05,
+        "sides": 2,
+        "target_power": 0.8,
+        "sample_size": None,
+        "allocation_ratio": 1.0,
+        "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
+        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
+        "method": "simulation",
+        "simulation": {
+            "replicates": 10000,
+            "seed": 11,
+            "test": "student_t",
+            "data": None,
+            "decision_rule": "point",
+            "chunk_size": 1000,
+            "search_replicates": 2000,
+            **sim,
+        },
+    }
+
+
+def test_simulated_search_starts_from_the_analytic_start():
+    # published 64 per group: Cohen 1988, Table 2.4.1 (raw 63.77), used as the start; answer ±2
+    out = simulate.answer(_two_means(), 0.05, per_arm=None, start=[63.77, 63.77])
+    s = out["search"]
+    assert s["start"] == [63.77, 63.77] and s["start_source"] == "analytic"
+    assert s["candidates"][0]["per_arm"] == [64, 64]
+    assert len(s["candidates"]) <= search.MAX_CANDIDATES
+    assert abs(out["per_arm"][0] - 64) <= 2
+
+
+def test_simulated_search_from_its_own_normal_approximation():
+    # formula: z approximation 2(z.975 + z.80)²/d² + 1 = 63.8 when no analytic start is given
+    q = _two_means(
+        data={
+            "control": {"family": "normal", "mean": 0.0, "sd": 1.0},
+            "treatment": {"family": "normal", "mean": 0.5, "sd": 1.0},
+        }
+    )
+    out = simulate.answer(q, 0.05, per_arm=None, start=None)
+    assert out["search"]["start_source"] == "normal approximation"
+    assert out["search"]["candidates"][0]["per_arm"] == [64, 64]
+    assert abs(out["per_arm"][0] - 64) <= 2
+
+
+def test_simulated_search_from_a_poor_start_stays_bounded():
+    # published 64 per group: Cohen 1988, Table 2.4.1; a start at a third of it still converges
+    out = simulate.answer(_two_means(), 0.05, per_arm=None, start=[21.0, 21.0])
+    assert len(out["search"]["candidates"]) <= search.MAX_CANDIDATES
+    assert abs(out["per_arm"][0] - 64) <= 2

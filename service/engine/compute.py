@@ -72,15 +72,41 @@ def compute(
     simulated = q.get("method") == "simulation"
     if simulated:
         _check_simulation(q, budget)
+    hooks = [_passthrough(h) for h in (progress, cancel, executor)]
     try:
-        record = _answer(q, design, simulated, progress, cancel, executor)
+        record = _answer(q, design, simulated, *hooks)
     except EngineError:
         raise
+    except _CallerError as exc:  # the caller's own failure (lost lease, database down) goes back untouched
+        raise exc.original from None
     except Exception as exc:  # numerics failing in an unforeseen corner still get a typed error
         raise EngineError(f"the computation failed: {type(exc).__name__}: {exc}") from exc
     if progress is not None:
         progress(1.0)
     return seal(record)
+
+
+class _CallerError(Exception):
+    """Carries an exception raised inside a caller's hook through the engine's error wrapping."""
+
+    def __init__(self, original: BaseException):
+        super().__init__(repr(original))
+        self.original = original
+
+
+def _passthrough(hook):
+    if hook is None:
+        return None
+
+    def call(*args):
+        try:
+            return hook(*args)
+        except EngineError:
+            raise  # Cancelled and friends are the engine's own vocabulary
+        except Exception as exc:
+            raise _CallerError(exc) from exc
+
+    return call
 
 
 def _check_simulation(q: dict, budget: int | None) -> None:

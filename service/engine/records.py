@@ -87,3 +87,22 @@ def verify(record: dict) -> bool:
     """True when the stored hash matches the record's content."""
     stored = record.get("reproducibility", {}).get("record_sha256")
     return stored is not None and stored == record_hash(record)
+
+
+def differences(a, b, prefix: str = "") -> list[str]:
+    """Return the dotted paths where two JSON values differ (list items as ``path.<index>``)."""
+    if isinstance(a, dict) and isinstance(b, dict):
+        out: list[str] = []
+        for key in sorted(set(a) | set(b)):
+            path = f"{prefix}.{key}" if prefix else str(key)
+            if key not in a or key not in b:
+                out.append(path)
+            else:
+                out.extend(differences(a[key], b[key], path))
+        return out
+    if isinstance(a, list) and isinstance(b, list) and len(a) == len(b):
+        out = []
+        for index, (x, y) in enumerate(zip(a, b, strict=True)):
+            out.extend(differences(x, y, f"{prefix}.{index}" if prefix else str(index)))
+        return out
+    return [] if canonical_json(a) == canonical_json(b) else [prefix or "$"]

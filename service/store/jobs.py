@@ -7,16 +7,20 @@ UPDATE so two workers can never both own a job. Functions take a session and nev
 
 from __future__ import annotations
 
+import logging
 from datetime import datetime, timedelta
 
 from sqlalchemy import and_, or_, select, update
 from sqlalchemy.orm import Session
+
+from service.engine.records import canonical_json, differences
 
 from .audit import append_event
 from .models import Request, Rerun, Result
 from .types import utcnow
 
 KINDS = ("request", "rerun")
+log = logging.getLogger(__name__)
 
 
 def _model(kind: str) -> type[Request] | type[Rerun]:
@@ -175,52 +179,67 @@ def finish_request(
     *,
     started_at: datetime | None = None,
     chunk_size: int | None = None,
-) -> bool:
-    """Store the request's result and mark it computed; False when the lease was lost.
+) -> str | None:
+    """Mark our request computed and store its result; return 'stored', 'identical', 'conflict'.
 
-    The first stored result wins: a later, different record is kept in ``results.conflict``.
+    Returns None when the lease is no longer ours (nothing is written). The first stored result
+    wins: an identical second write is a no-op, a different one is appended to ``conflict``.
     """
     now = utcnow()
-    sha = _record_sha(record)
-    existing = session.scalar(select(Result).where(Result.request_id == request_id))
-    if existing is not None:
-        if existing.record_sha256 != sha:
-            # A list, like the workers' own writer, so every refused write is kept.
-            existing.conflict = [
-                *(existing.conflict or []),
-                {"record_sha256": sha, "owner": owner, "attempted_at": now.isoformat()},
-            ]
-            _event(session, "request", request_id, owner, "result_conflict", record_sha256=sha)
-        return False
-    done = session.execute(
+    taken = session.execute(
         update(Request)
         .where(Request.id == request_id, Request.status == "running", Request.lease_owner == owner)
         .values(
             status="computed",
             progress=1.0,
+            error=None,
             lease_owner=None,
             lease_expires_at=None,
-            error=None,
             updated_at=now,
         )
-    ).rowcount
-    if not done:
-        return False
-    session.add(
-        Result(
-            request_id=request_id,
-            record=record,
-            record_sha256=sha,
-            versions=(record.get("reproducibility") or {}).get("versions") or {},
-            chunk_size=chunk_size,
-            started_at=started_at,
-            finished_at=now,
-            duration_seconds=(now - started_at).total_seconds() if started_at else None,
-        )
     )
-    session.flush()
-    _event(session, "request", request_id, owner, "computed", record_sha256=sha)
-    return True
+    if taken.rowcount != 1:
+        return None
+    sha = record["reproducibility"]["record_sha256"]
+    existing = session.scalar(select(Result).where(Result.request_id == request_id))
+    if existing is None:
+        session.add(
+            Result(
+                request_id=request_id,
+                record=record,
+                record_sha256=sha,
+                versions=record["reproducibility"].get("versions") or {},
+                chunk_size=chunk_size,
+                started_at=started_at,
+                finished_at=now,
+                duration_seconds=(now - started_at).total_seconds() if started_at else None,
+            )
+        )
+        outcome = "stored"
+    elif existing.record_sha256 == sha and canonical_json(existing.record) == canonical_json(
+        record
+    ):
+        outcome = "identical"
+    else:
+        conflicts = existing.conflict if isinstance(existing.conflict, list) else []
+        existing.conflict = [
+            *conflicts,
+            {
+                "record_sha256": sha,
+                "owner": owner,
+                "at": now.isoformat(),
+                "differences": differences(existing.record, record)[:50],
+            },
+        ]
+        log.error(
+            "request %s: a second, different result %s was not stored over %s",
+            request_id,
+            sha,
+            existing.record_sha256,
+        )
+        outcome = "conflict"
+    _event(session, "request", request_id, owner, "computed", record_sha256=sha, result=outcome)
+    return outcome
 
 
 def finish_rerun(

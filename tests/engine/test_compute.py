@@ -239,3 +239,14 @@ def test_numeric_failure_is_typed():
 def test_draw_seed_range():
     seeds = {draw_seed() for _ in range(50)}
     assert len(seeds) == 50 and all(0 <= s < 2**53 for s in seeds)
+
+
+def test_hook_exceptions_reach_the_caller_unchanged():
+    class LeaseLost(RuntimeError):
+        pass
+
+    def progress(_fraction):
+        raise LeaseLost("another worker owns this job")
+
+    with pytest.raises(LeaseLost):
+        compute(_sim_question(), progress=progress)

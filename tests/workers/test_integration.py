@@ -1,0 +1,135 @@
+"""The real queue: Flask API → PostgreSQL → Redis → a `celery worker` subprocess → PostgreSQL.
+
+No eager mode and no mocks: each test submits through the Flask test client (create_app with the
+same config the worker reads from its environment) and polls until the worker has finished.
+"""
+
+from __future__ import annotations
+
+import pytest
+from statsmodels.stats.power import TTestIndPower
+from workers_testkit import Stack, canonical
+
+from service.engine import compute
+from service.store.models import ChunkResult
+
+pytestmark = [pytest.mark.services, pytest.mark.slow]
+
+# Power of the two-sided t test at d = 0.5, n = 30 per group, alpha .05: 0.4779
+# (formula: noncentral t, REFERENCES.md; recomputed with statsmodels TTestIndPower).
+POWER_D05_N30 = TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05, ratio=1.0)
+
+
+def _posted(method: str = "analytic", **simulation) -> dict:
+    """A question as a requester posts it (the schema fills in the defaults)."""
+    question = {
+        "design": "two_means",
+        "find": "power",
+        "sample_size": {"per_arm": [30, 30]},
+        "effect": {"difference": 0.5, "sd": 1.0},
+        "method": method,
+    }
+    if method == "simulation":
+        question["simulation"] = {"replicates": 4000, "seed": 20240611, "chunk_size": 500}
+        question["simulation"].update(simulation)
+    return question
+
+
+def _chunk_processes(config: dict, request_id: str) -> int:
+    """How many worker processes computed the request's chunks (owner: worker:host:pid:random)."""
+    from sqlalchemy import select
+
+    from service.store.db import session_scope
+    from workers.tasks import sessions
+
+    with session_scope(sessions(config)) as session:
+        owners = session.scalars(
+            select(ChunkResult.lease_owner).where(
+                ChunkResult.job_kind == "request", ChunkResult.job_id == request_id
+            )
+        )
+        return len({owner.rsplit(":", 1)[0] for owner in owners})
+
+
+@pytest.fixture
+def stack(pg_redis_config):
+    from service import create_app
+
+    app = create_app(dict(pg_redis_config, TESTING=True))
+    return Stack(app.test_client())
+
+
+def test_analytic_and_simulated_requests_are_computed_and_a_rerun_is_identical(
+    stack, pg_redis_config, start_worker
+):
+    worker = start_worker(pg_redis_config, concurrency=2)
+    analytic = stack.submit(_posted())
+    simulated = stack.submit(_posted("simulation"))
+    body = stack.wait(analytic, worker=worker)
+    assert body["status"] == "computed", body["error"]
+    assert body["result"]["power"]["estimate"] == pytest.approx(POWER_D05_N30, abs=1e-4)
+    body = stack.wait(simulated, worker=worker)
+    assert body["status"] == "computed", body["error"]
+    power = body["result"]["power"]
+    assert power["replicates"] == 4000
+    assert abs(power["estimate"] - POWER_D05_N30) < 4 * power["mcse"]
+    # The record a worker stored is the engine's own answer to the stored question, digit for digit.
+    assert canonical(body["result"]) == canonical(compute(body["question"]))
+    rerun = stack.rerun(simulated, worker=worker)
+    assert rerun["status"] == "done", rerun
+    assert rerun["identical"] is True and rerun["differences"] == []
+
+
+def test_a_running_simulation_is_cancelled_between_chunks(stack, pg_redis_config, start_worker):
+    worker = start_worker(pg_redis_config, concurrency=1)
+    # Long enough to be caught running: 160 rank-sum chunks drawing every observation.
+    question = _posted("simulation", replicates=40_000, chunk_size=500, test="rank_sum")
+    question["sample_size"] = {"per_arm": [500, 500]}
+    request_id = stack.submit(question)
+    stack.wait(request_id, until=("running",) + ("computed", "failed"), worker=worker)
+    stack.cancel(request_id)
+    body = stack.wait(request_id, worker=worker)
+    assert body["status"] == "cancelled", body
+    assert body["result"] is None
+
+
+def test_one_worker_and_two_workers_store_byte_identical_records(
+    stack, pg_redis_config, start_worker
+):
+    # The rank-sum test draws every observation (normal data allow a shortcut for t tests), so
+    # chunks of 500 trials at 500 per arm take long enough for the second process to join in.
+    question = _posted("simulation", replicates=5000, seed=777, test="rank_sum")
+    question["sample_size"] = {"per_arm": [500, 500]}
+    one = start_worker(pg_redis_config, concurrency=1)
+    first = stack.wait(stack.submit(question), worker=one)
+    one.stop()
+    two = start_worker(pg_redis_config, concurrency=2)
+    second = stack.wait(stack.submit(question), worker=two)
+    assert first["status"] == second["status"] == "computed"
+    assert canonical(first["result"]) == canonical(second["result"])
+    assert (
+        first["result"]["reproducibility"]["record_sha256"]
+        == second["result"]["reproducibility"]["record_sha256"]
+    )
+    # The two pool processes really shared the second run's chunks (claims in chunk_results).
+    assert _chunk_processes(pg_redis_config, first["id"]) == 1
+    shared = _chunk_processes(pg_redis_config, second["id"])
+    assert shared == 2, f"{shared} process(es)\n{two.tail(30)}"
+
+
+def test_a_job_of_a_killed_worker_is_republished_and_finished_with_the_same_digits(
+    stack, pg_redis_config, start_worker
+):
+    config = dict(pg_redis_config, LEASE_SECONDS=4, SWEEP_SECONDS=1)
+    question = _posted("simulation", replicates=10_000, seed=99, test="rank_sum")
+    question["sample_size"] = {"per_arm": [500, 500]}
+    doomed = start_worker(config, concurrency=1)
+    request_id = stack.submit(question)
+    seen = stack.wait(request_id, until=("running", "computed"), worker=doomed)
+    assert seen["status"] == "running"  # caught mid-run, or the test proves nothing
+    doomed.kill()  # no time to finish: its job and chunk leases are left to expire
+    rescuer = start_worker(config, concurrency=2)
+    body = stack.wait(request_id, worker=rescuer)
+    assert body["status"] == "computed", body["error"]
+    assert body["attempts"] == 2  # the sweeper republished it once the lease expired
+    assert canonical(body["result"]) == canonical(compute(body["question"]))

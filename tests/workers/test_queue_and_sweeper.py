@@ -1,0 +1,83 @@
+"""Publishing (bounded, never hanging the API) and the sweeper's republishing of stale jobs."""
+
+from __future__ import annotations
+
+import base64
+import json
+from datetime import timedelta
+from pathlib import Path
+
+import pytest
+from workers_testkit import insert_request, two_means_question
+
+from service.config import load_config
+from service.store.db import session_scope
+from service.store.models import Request
+from service.store.types import utcnow
+from workers import queue, sweeper
+
+
+def _messages(config: dict) -> list[tuple[str, list]]:
+    """(task name, args) of the messages waiting in the filesystem broker's queue folder."""
+    folder = Path(config["BROKER_TRANSPORT_OPTIONS"]["data_folder_in"])
+    out = []
+    for path in sorted(folder.glob("*.msg")):
+        message = json.loads(path.read_text())
+        assert message["content-type"] == "application/json"  # JSON only, never pickle
+        args, _kwargs, _embed = json.loads(base64.b64decode(message["body"]))
+        out.append((message["headers"]["task"], args))
+    return out
+
+
+def test_publish_writes_one_json_message_naming_the_task(sqlite_config):
+    assert queue.publish("request", "abc123", sqlite_config) is True
+    assert _messages(sqlite_config) == [("sizewise.run_request", ["abc123"])]
+
+
+def test_publish_rejects_an_unknown_kind_naming_the_value(sqlite_config):
+    with pytest.raises(ValueError, match="kind must be one of request, rerun; got 'report'"):
+        queue.publish("report", "abc123", sqlite_config)
+
+
+def test_publish_to_a_dead_broker_returns_false_instead_of_raising():
+    # Port 1 on localhost refuses connections: the retry policy gives up after two retries.
+    config = load_config({"BROKER_URL": "redis://127.0.0.1:1/0"})
+    assert queue.publish("request", "abc123", config) is False
+
+
+def test_sweeper_publishes_an_unpublished_request_once_it_is_old_enough(sqlite_config, factory):
+    request_id = insert_request(factory, two_means_question(), status="received")
+    # Just committed: the API may be publishing it this very moment, so it is left alone.
+    assert sweeper.sweep_once(sqlite_config) == 0
+    with session_scope(factory) as session:
+        row = session.get(Request, request_id)
+        row.submitted_at = utcnow() - timedelta(minutes=5)
+    assert sweeper.sweep_once(sqlite_config) == 1
+    with session_scope(factory) as session:
+        row = session.get(Request, request_id)
+        assert row.published_at is not None and row.status == "queued"
+    assert _messages(sqlite_config) == [("sizewise.run_request", [request_id])]
+    # Published now: a second sweep finds nothing to do.
+    assert sweeper.sweep_once(sqlite_config) == 0
+
+
+def test_sweeper_republishes_a_running_job_whose_lease_expired(sqlite_config, factory):
+    request_id = insert_request(factory, two_means_question())
+    with session_scope(factory) as session:
+        row = session.get(Request, request_id)
+        row.published_at = utcnow() - timedelta(minutes=5)
+        row.status = "running"
+        row.lease_owner = "worker:gone:1:dead"
+        row.lease_expires_at = utcnow() - timedelta(seconds=1)
+    assert sweeper.sweep_once(sqlite_config) == 1
+    assert _messages(sqlite_config) == [("sizewise.run_request", [request_id])]
+
+
+def test_sweeper_thread_starts_once_and_stops(sqlite_config):
+    config = dict(sqlite_config, SWEEP_SECONDS=0.5)
+    first = sweeper.start_thread(config)
+    try:
+        assert sweeper.start_thread(config) is first and first.is_alive()
+    finally:
+        sweeper.stop_thread()
+    assert not first.is_alive()

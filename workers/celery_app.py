@@ -1,0 +1,102 @@
+"""The Celery application, built from sizewise's own config (service.config.load_config()).
+
+Run a worker with ``celery -A workers.celery_app worker --pool prefork --concurrency 2``.
+Every Celery setting lives in :func:`celery_settings`, one dict, so the queue's behaviour can be
+read (and tested) in one place. Our database is the source of truth: results are not stored in
+Celery, tasks take an id only, and every task is safe to run twice.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from celery import Celery
+
+from service.config import broker_transport_options, load_config
+
+QUEUE = "sizewise"
+
+TASK_NAMES = {
+    "request": "sizewise.run_request",
+    "rerun": "sizewise.run_rerun",
+    "chunk": "sizewise.run_chunk",
+    "sweep": "sizewise.sweep",
+}
+
+
+def _transport_options(config: dict) -> dict:
+    """Broker transport options: the visibility timeout, plus folders for the filesystem broker."""
+    url = str(config["BROKER_URL"])
+    options: dict = dict(config.get("BROKER_TRANSPORT_OPTIONS") or {})
+    options["visibility_timeout"] = int(config["VISIBILITY_TIMEOUT"])
+    if url.startswith("filesystem://"):
+        if "data_folder_in" not in options:
+            options.update(broker_transport_options(url))
+        # kombu keeps exchange tables in control_folder, relative to the cwd unless set.
+        root = Path(options["processed_folder"]).parent
+        options.setdefault("control_folder", str(root / "control"))
+        for key in ("data_folder_in", "data_folder_out", "processed_folder", "control_folder"):
+            Path(options[key]).mkdir(parents=True, exist_ok=True)
+    elif url.startswith(("redis://", "rediss://")):
+        # A dead Redis must fail the API's publish fast rather than hang a request thread.
+        options.setdefault("socket_connect_timeout", 3)
+        options.setdefault("socket_timeout", 10)
+    return options
+
+
+def celery_settings(config: dict) -> dict:
+    """Return every Celery setting sizewise uses, derived from the service config."""
+    visibility = int(config["VISIBILITY_TIMEOUT"])
+    hard = int(config["TASK_TIME_LIMIT"])
+    # The hard limit must stay below the visibility timeout, or Redis redelivers a running job.
+    hard = min(hard, max(visibility - 60, 1))
+    soft = max(hard - 30, int(hard * 0.9), 1) if hard > 60 else max(hard - 1, 1)
+    transport = _transport_options(config)
+    return {
+        "broker_url": config["BROKER_URL"],
+        "broker_transport_options": transport,
+        "result_backend_transport_options": {"visibility_timeout": visibility},
+        "broker_connection_retry_on_startup": True,
+        "broker_connection_timeout": 3,
+        "task_serializer": "json",
+        "result_serializer": "json",
+        "accept_content": ["json"],
+        "event_serializer": "json",
+        "task_ignore_result": True,
+        "task_store_errors_even_if_ignored": False,
+        "task_acks_late": True,
+        "task_reject_on_worker_lost": True,
+        "worker_prefetch_multiplier": 1,
+        "worker_cancel_long_running_tasks_on_connection_loss": True,
+        "worker_hijack_root_logger": False,
+        "task_publish_retry": True,
+        "task_publish_retry_policy": {
+            "max_retries": 3,
+            "interval_start": 0,
+            "interval_step": 0.5,
+            "interval_max": 2,
+        },
+        "task_time_limit": hard,
+        "task_soft_time_limit": soft,
+        "task_default_queue": QUEUE,
+        "task_create_missing_queues": True,
+        "worker_concurrency": int(config.get("WORKER_CONCURRENCY", 2)),
+        "timezone": "UTC",
+        "enable_utc": True,
+    }
+
+
+def make_celery(config: dict) -> Celery:
+    """Build the Celery app for ``config`` (the dict from service.config.load_config())."""
+    app = Celery("sizewise", include=["workers.tasks"])
+    app.conf.update(celery_settings(config))
+    # The tasks read the service config from here (database URL, lease, budget).
+    app.conf.sizewise = dict(config)
+    return app
+
+
+# SIZEWISE_* environment variables override the defaults (service.config).
+app = make_celery(load_config())
+
+# Importing the tasks registers them on ``app`` (``include`` does the same inside the worker).
+from workers import tasks as _tasks  # noqa: E402,F401

@@ -1,0 +1,70 @@
+"""The queue boundary: hand a job id to the broker, briefly and boundedly.
+
+The API calls :func:`publish` only after its database commit; a False return is not an error
+for the caller: the job stays unpublished (``published_at`` null) and the sweeper publishes it
+later. Nothing here waits for a task's result — the database is the source of truth.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+
+from celery import Celery
+
+from workers.celery_app import TASK_NAMES, make_celery
+
+log = logging.getLogger(__name__)
+
+KINDS = ("request", "rerun")
+
+# A dead broker must cost the API well under a few seconds, never a hung request thread.
+PUBLISH_RETRY_POLICY = {
+    "max_retries": 2,
+    "interval_start": 0,
+    "interval_step": 0.2,
+    "interval_max": 0.5,
+}
+
+_APPS: dict[tuple, Celery] = {}
+_APPS_LOCK = threading.Lock()
+
+
+def _app(config: dict) -> Celery:
+    """Return a cached Celery app for the config's broker (one per broker URL and options)."""
+    key = (
+        str(config["BROKER_URL"]),
+        repr(sorted((config.get("BROKER_TRANSPORT_OPTIONS") or {}).items())),
+        int(config["VISIBILITY_TIMEOUT"]),
+    )
+    with _APPS_LOCK:
+        app = _APPS.get(key)
+        if app is None:
+            app = make_celery(config)
+            _APPS[key] = app
+    return app
+
+
+def _send(name: str, args: list, config: dict) -> bool:
+    try:
+        _app(config).send_task(
+            name, args=args, retry=True, retry_policy=PUBLISH_RETRY_POLICY, ignore_result=True
+        )
+    except Exception as exc:  # kombu raises several types for a dead broker; all mean "later"
+        log.warning("could not publish %s%s: %s", name, tuple(args[:2]), exc)
+        return False
+    return True
+
+
+def publish(kind: str, job_id: str, config: dict) -> bool:
+    """Send the task for a request or rerun; True when the broker took it, False otherwise."""
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    return _send(TASK_NAMES[kind], [job_id], config)
+
+
+def publish_chunk(kind: str, job_id: str, task: dict, config: dict) -> bool:
+    """Send one ``sizewise.run_chunk`` message so another worker can help with a batch."""
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    return _send(TASK_NAMES["chunk"], [kind, job_id, task], config)

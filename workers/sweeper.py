@@ -1,0 +1,80 @@
+"""The sweeper: republish jobs that were never handed to the broker or whose worker died.
+
+It runs as a daemon thread in every worker's main process, started on ``worker_ready`` (so no
+separate beat process or schedule file is needed), every ``SWEEP_SECONDS``. Running it in many
+workers at once is harmless: publishing a job twice only produces a duplicate delivery, and the
+task's claim (a conditional UPDATE with a lease) lets exactly one worker run it. The same work
+is also registered as the ``sizewise.sweep`` task for deployments that prefer Celery beat.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+from datetime import UTC, datetime, timedelta
+
+from service.store import jobs
+from service.store.db import session_scope
+
+log = logging.getLogger(__name__)
+
+_THREAD: threading.Thread | None = None
+_STOP = threading.Event()
+
+
+def sweep_once(config: dict, *, now: datetime | None = None) -> int:
+    """Publish every stale job once; return how many the broker accepted."""
+    from workers.queue import publish
+    from workers.tasks import sessions
+
+    factory = sessions(config)
+    now = now or datetime.now(UTC)
+    with session_scope(factory) as session:
+        # Skip jobs the API may be publishing right now (committed, not yet marked).
+        stale = jobs.stale_jobs(session, now, grace_seconds=grace(config).total_seconds())
+    published = 0
+    for kind, job_id in stale:
+        if not publish(kind, job_id, config):
+            continue  # the broker is down; the next sweep tries again
+        published += 1
+        with session_scope(factory) as session:
+            jobs.mark_published(session, kind, job_id)
+    if stale:
+        log.info("sweeper: %d stale job(s), %d republished", len(stale), published)
+    return published
+
+
+def _loop(config: dict, interval: float) -> None:
+    while not _STOP.wait(interval):
+        try:
+            sweep_once(config)
+        except Exception:  # a database hiccup must not kill the thread; try again next round
+            log.exception("sweeper round failed")
+
+
+def start_thread(config: dict) -> threading.Thread:
+    """Start the sweeper daemon thread (once per process) and return it."""
+    global _THREAD
+    if _THREAD is not None and _THREAD.is_alive():
+        return _THREAD
+    _STOP.clear()
+    interval = max(float(config.get("SWEEP_SECONDS", 15)), 0.5)
+    _THREAD = threading.Thread(
+        target=_loop, args=(dict(config), interval), name="sizewise-sweeper", daemon=True
+    )
+    _THREAD.start()
+    return _THREAD
+
+
+def stop_thread(timeout: float = 5.0) -> None:
+    """Ask the sweeper thread to stop and wait briefly for it."""
+    global _THREAD
+    _STOP.set()
+    if _THREAD is not None:
+        _THREAD.join(timeout)
+    _THREAD = None
+
+
+def grace(config: dict) -> timedelta:
+    """Return how old an unpublished job must be before the sweeper publishes it."""
+    return timedelta(seconds=max(2.0, min(float(config.get("SWEEP_SECONDS", 15)), 5.0)))

@@ -1,0 +1,366 @@
+"""Thin Celery tasks: take an id, claim the job, call the engine, store the outcome.
+
+Every task may be delivered twice (late acks, redelivery, the sweeper): a task first claims its
+job with a lease (a conditional UPDATE in ``service.store.jobs.claim``); a failed claim means
+another worker has it, or it is finished, and the task exits quietly. The plain functions
+(:func:`run_request_job`, :func:`run_rerun_job`, :func:`run_chunk_job`) hold the logic so unit
+tests can call them directly against SQLite; the Celery tasks only pass the app's config.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import socket
+import threading
+import time
+import uuid
+from collections.abc import Callable
+from datetime import UTC, datetime
+from typing import Any
+
+from celery.signals import worker_process_init, worker_ready, worker_shutdown
+from sqlalchemy import select
+from sqlalchemy.exc import OperationalError
+from sqlalchemy.orm import sessionmaker
+
+from service.engine import Cancelled, EngineError, canonical_json, compute
+from service.engine import run_chunk as engine_run_chunk
+from service.engine.records import differences
+from service.store import audit, jobs
+from service.store.db import make_engine, make_sessionmaker, session_scope
+from service.store.models import Request, Rerun, Result
+from workers.celery_app import TASK_NAMES, app
+from workers.fanout import ChunkExecutor, run_one
+
+log = logging.getLogger(__name__)
+
+_SESSIONS: dict[tuple[int, str], Any] = {}
+_SESSIONS_LOCK = threading.Lock()
+
+
+class LeaseLost(Exception):
+    """Our lease on the job was taken over (we were too slow); stop without writing."""
+
+
+def utcnow() -> datetime:
+    """Return the current time as a timezone-aware UTC datetime."""
+    return datetime.now(UTC)
+
+
+def hostname() -> str:
+    """Return this machine's host name (used in the audit actor)."""
+    return socket.gethostname()
+
+
+def actor() -> str:
+    """Return the audit actor of this worker, ``worker:<hostname>``."""
+    return f"worker:{hostname()}"
+
+
+def new_owner() -> str:
+    """Return a lease owner unique to this attempt: ``worker:<hostname>:<pid>:<random>``."""
+    # jobs.* write audit events with the owner as actor, so it starts with actor().
+    return f"{actor()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+
+
+def sessions(config: dict) -> sessionmaker:
+    """Return this process's sessionmaker for the config's database (one per process and URL)."""
+    key = (os.getpid(), str(config["DATABASE_URL"]))
+    with _SESSIONS_LOCK:
+        factory = _SESSIONS.get(key)
+        if factory is None:
+            factory = make_sessionmaker(make_engine(key[1]))
+            _SESSIONS[key] = factory
+    return factory
+
+
+@worker_process_init.connect
+def _forget_parent_connections(**_kwargs) -> None:
+    """A forked pool process must not reuse the parent's pooled connections."""
+    for (_pid, _url), factory in list(_SESSIONS.items()):
+        factory.kw["bind"].dispose(close=False)
+    _SESSIONS.clear()
+
+
+class _Hooks:
+    """progress/cancel/heartbeat callbacks for one job, throttled so the database is not flooded."""
+
+    def __init__(self, factory, *, kind: str, job_id: str, owner: str, config: dict):
+        self.factory = factory
+        self.kind = kind
+        self.job_id = job_id
+        self.owner = owner
+        self.lease = float(config["LEASE_SECONDS"])
+        self.fraction = 0.0
+        self._renewed = time.monotonic()
+        self._cancelled = False
+
+    def renew(self, force: bool = False) -> None:
+        """Renew the lease (and write progress) at most every few seconds; raise LeaseLost."""
+        now = time.monotonic()
+        if not force and now - self._renewed < min(2.0, self.lease / 4):
+            return
+        with session_scope(self.factory) as session:
+            ok = jobs.renew(session, self.kind, self.job_id, self.owner, self.fraction, self.lease)
+        self._renewed = now
+        if not ok:
+            raise LeaseLost(f"{self.kind} {self.job_id}: lease taken over from {self.owner}")
+
+    def progress(self, fraction: float) -> None:
+        """Record the engine's progress and renew the lease."""
+        self.fraction = max(self.fraction, min(max(float(fraction), 0.0), 1.0))
+        self.renew()
+
+    def cancel(self) -> bool:
+        """True when someone asked to cancel the request (one primary-key read per check)."""
+        if self.kind != "request" or self._cancelled:
+            return self._cancelled
+        with session_scope(self.factory) as session:
+            self._cancelled = jobs.cancel_requested(session, self.kind, self.job_id)
+        return self._cancelled
+
+
+def _chunk_publisher(config: dict) -> Callable[[str, str, dict], bool]:
+    """Return a function that publishes one ``sizewise.run_chunk`` message (False on failure)."""
+    from workers.queue import publish_chunk
+
+    def publish(kind: str, job_id: str, task: dict) -> bool:
+        return publish_chunk(kind, job_id, task, config)
+
+    return publish
+
+
+def _executor(factory, hooks: _Hooks, config: dict, *, fan_out: bool, runner, order):
+    return ChunkExecutor(
+        factory,
+        job_kind=hooks.kind,
+        job_id=hooks.job_id,
+        owner=hooks.owner,
+        lease_seconds=float(config["LEASE_SECONDS"]),
+        publish=_chunk_publisher(config) if fan_out else None,
+        heartbeat=hooks.renew,
+        should_stop=hooks.cancel,
+        runner=runner,
+        order=order,
+    )
+
+
+def _event(session, request_id: str | None, action: str, detail: dict) -> None:
+    audit.append_event(session, request_id=request_id, actor=actor(), action=action, detail=detail)
+
+
+def run_request_job(
+    request_id: str,
+    config: dict,
+    *,
+    owner: str | None = None,
+    fan_out: bool = False,
+    runner: Callable[[dict], dict] = engine_run_chunk,
+    order: Callable[[list[int]], list[int]] | None = None,
+) -> str:
+    """Claim and compute one request; return its outcome ('computed', 'skipped', 'failed', ...)."""
+    factory = sessions(config)
+    owner = owner or new_owner()
+    with session_scope(factory) as session:
+        claimed = jobs.claim(
+            session,
+            "request",
+            request_id,
+            owner,
+            int(config["LEASE_SECONDS"]),
+            int(config["MAX_ATTEMPTS"]),
+        )
+        if not claimed:
+            return "skipped"
+        row = session.get(Request, request_id)
+        question = row.question
+        attempts = row.attempts
+        _event(session, request_id, "running", {"owner": owner, "attempt": attempts})
+    log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
+
+    hooks = _Hooks(factory, kind="request", job_id=request_id, owner=owner, config=config)
+    started = utcnow()
+    try:
+        if hooks.cancel():
+            raise Cancelled(f"request {request_id} cancelled before it started")
+        record = compute(
+            question,
+            progress=hooks.progress,
+            cancel=hooks.cancel,
+            executor=_executor(factory, hooks, config, fan_out=fan_out, runner=runner, order=order),
+            budget=int(config["SIMULATION_BUDGET"]),
+        )
+    except LeaseLost as exc:
+        log.warning("%s; stopping without writing", exc)
+        return "lost"
+    except Cancelled:
+        with session_scope(factory) as session:
+            ended = jobs.cancel(session, "request", request_id, owner)
+        return "cancelled" if ended else "lost"
+    except OperationalError:
+        # The database went away: leave the lease to expire so the sweeper retries the job.
+        raise
+    except EngineError as exc:  # QuestionError and BudgetExceeded included: bad input, say why
+        message = str(exc)
+    except Exception as exc:  # a defect, not bad input: record it rather than retry forever
+        log.exception("request %s: unexpected error", request_id)
+        message = f"internal error ({type(exc).__name__}): {exc}"
+    else:
+        with session_scope(factory) as session:
+            stored = jobs.finish_request(
+                session,
+                request_id,
+                owner,
+                record,
+                started_at=started,
+                chunk_size=(question.get("simulation") or {}).get("chunk_size"),
+            )
+        if stored is None:
+            log.warning("request %s: lease lost before the result was stored", request_id)
+            return "lost"
+        log.info("request %s: computed", request_id)
+        return "computed"
+
+    with session_scope(factory) as session:
+        ended = jobs.fail(session, "request", request_id, owner, message)
+    log.info("request %s: failed: %s", request_id, message)
+    return "failed" if ended else "lost"
+
+
+def run_rerun_job(
+    rerun_id: str,
+    config: dict,
+    *,
+    owner: str | None = None,
+    fan_out: bool = False,
+    runner: Callable[[dict], dict] = engine_run_chunk,
+    order: Callable[[list[int]], list[int]] | None = None,
+) -> str:
+    """Claim a rerun, recompute the stored question and compare with the stored record."""
+    factory = sessions(config)
+    owner = owner or new_owner()
+    with session_scope(factory) as session:
+        claimed = jobs.claim(
+            session,
+            "rerun",
+            rerun_id,
+            owner,
+            int(config["LEASE_SECONDS"]),
+            int(config["MAX_ATTEMPTS"]),
+        )
+        if not claimed:
+            return "skipped"
+        rerun = session.get(Rerun, rerun_id)
+        request_id = rerun.request_id
+        question = session.scalar(select(Request.question).where(Request.id == request_id))
+        original = session.scalar(select(Result.record).where(Result.request_id == request_id))
+        _event(session, request_id, "rerun_running", {"rerun_id": rerun_id, "owner": owner})
+
+    hooks = _Hooks(factory, kind="rerun", job_id=rerun_id, owner=owner, config=config)
+    try:
+        if original is None:
+            raise EngineError(f"request {request_id} has no stored result to compare with")
+        # The stored normalized question carries the seed: the same question, the same digits.
+        record = compute(
+            question,
+            progress=hooks.progress,
+            cancel=None,
+            executor=_executor(factory, hooks, config, fan_out=fan_out, runner=runner, order=order),
+            budget=int(config["SIMULATION_BUDGET"]),
+        )
+    except LeaseLost as exc:
+        log.warning("%s; stopping without writing", exc)
+        return "lost"
+    except OperationalError:
+        raise
+    except EngineError as exc:
+        message = str(exc)
+    except Exception as exc:
+        log.exception("rerun %s: unexpected error", rerun_id)
+        message = f"internal error ({type(exc).__name__}): {exc}"
+    else:
+        with session_scope(factory) as session:
+            done = jobs.finish_rerun(
+                session,
+                rerun_id,
+                owner,
+                record,
+                identical=canonical_json(original) == canonical_json(record),
+                differences=differences(original, record),
+                env_rerun=record["reproducibility"].get("versions", {}),
+            )
+        return "done" if done else "lost"
+
+    with session_scope(factory) as session:
+        ended = jobs.fail(session, "rerun", rerun_id, owner, message)
+    return "failed" if ended else "lost"
+
+
+def _job_running(session, kind: str, job_id: str) -> bool:
+    model = Request if kind == "request" else Rerun
+    return session.scalar(select(model.status).where(model.id == job_id)) == "running"
+
+
+def run_chunk_job(kind: str, job_id: str, task: dict, config: dict) -> str:
+    """Help a running job with one chunk: claim, compute, store; quiet when taken or finished."""
+    if kind not in ("request", "rerun"):
+        raise ValueError(f"job_kind must be 'request' or 'rerun'; got {kind!r}")
+    factory = sessions(config)
+    with session_scope(factory) as session:
+        if not _job_running(session, kind, job_id):
+            return "skipped"
+    return run_one(
+        factory,
+        job_kind=kind,
+        job_id=job_id,
+        task=task,
+        owner=new_owner(),
+        lease_seconds=float(config["LEASE_SECONDS"]),
+    )
+
+
+def _config() -> dict:
+    return dict(app.conf.sizewise)
+
+
+@app.task(name=TASK_NAMES["request"], acks_late=True)
+def run_request(request_id: str) -> str:
+    """Compute one request by id (safe to deliver twice)."""
+    return run_request_job(request_id, _config(), fan_out=True)
+
+
+@app.task(name=TASK_NAMES["rerun"], acks_late=True)
+def run_rerun(rerun_id: str) -> str:
+    """Recompute one rerun by id and compare it with the stored record (safe to deliver twice)."""
+    return run_rerun_job(rerun_id, _config(), fan_out=True)
+
+
+@app.task(name=TASK_NAMES["chunk"], acks_late=True)
+def run_chunk(job_kind: str, job_id: str, task: dict) -> str:
+    """Compute one chunk of a running job if no one else has (safe to deliver twice)."""
+    return run_chunk_job(job_kind, job_id, task, _config())
+
+
+@app.task(name=TASK_NAMES["sweep"], acks_late=True)
+def sweep() -> int:
+    """Republish unpublished and abandoned jobs; return how many were published."""
+    from workers.sweeper import sweep_once
+
+    return sweep_once(_config())
+
+
+@worker_ready.connect
+def _start_sweeper(sender=None, **_kwargs) -> None:
+    """Start the background sweeper thread in the worker's main process."""
+    from workers.sweeper import start_thread
+
+    start_thread(_config())
+
+
+@worker_shutdown.connect
+def _stop_sweeper(**_kwargs) -> None:
+    """Stop the sweeper thread when the worker shuts down."""
+    from workers.sweeper import stop_thread
+
+    stop_thread()

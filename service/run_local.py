@@ -1,0 +1,283 @@
+"""The embedded default launcher behind ``make run``: no external server needed.
+
+SQLite under var/, kombu's filesystem:// broker under var/broker, one real Celery worker process and
+the API under gunicorn on 127.0.0.1. ``API_COMMAND`` and ``WORKER_COMMAND`` are the exact commands
+docker-compose.yml runs, so the embedded and the production set-ups start the same programs.
+
+``SIZEWISE_VAR_DIR`` moves the whole var/ folder (database and broker) elsewhere, e.g. for a test.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import threading
+import time
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+REPO_ROOT = Path(__file__).resolve().parents[1]
+
+# argv[0] "python" is the image's interpreter in docker-compose; here it becomes sys.executable.
+# The bind address comes from GUNICORN_CMD_ARGS, the one thing that differs between the two.
+API_COMMAND: tuple[str, ...] = (
+    "python",
+    "-m",
+    "gunicorn",
+    "--workers",
+    "2",
+    "--worker-class",
+    "sync",
+    "--timeout",
+    "60",
+    "--graceful-timeout",
+    "20",
+    "--access-logfile",
+    "-",
+    "service:create_app()",
+)
+WORKER_COMMAND: tuple[str, ...] = (
+    "python",
+    "-m",
+    "celery",
+    "-A",
+    "workers.celery_app",
+    "worker",
+    "--loglevel",
+    "INFO",
+    # Gossip, mingle and heartbeats are cluster chatter a job queue does not need; the
+    # filesystem broker has no cheap broadcast for them either.
+    "--without-gossip",
+    "--without-mingle",
+    "--without-heartbeat",
+)
+HEALTH_PATH = "/healthz"
+EXAMPLE_FILE = "two_means.json"
+# How long each child gets to finish its work after the stop signal before it is killed.
+STOP_GRACE_SECONDS = 25.0
+
+
+def var_dir() -> Path:
+    """Return the launcher's var/ folder (``SIZEWISE_VAR_DIR`` or the repository's var/)."""
+    return Path(os.environ.get("SIZEWISE_VAR_DIR") or REPO_ROOT / "var").resolve()
+
+
+def local_environment(base: Mapping[str, str] | None = None) -> dict[str, str]:
+    """Return the child environment: embedded database and broker under var/ unless already set."""
+    env = dict(os.environ if base is None else base)
+    folder = Path(env.get("SIZEWISE_VAR_DIR") or REPO_ROOT / "var").resolve()
+    env.setdefault("SIZEWISE_DATABASE_URL", f"sqlite:///{folder / 'sizewise.db'}")
+    # filesystem:///abs/path puts the broker's folders under that path (service.config).
+    env.setdefault("SIZEWISE_BROKER_URL", f"filesystem://{folder / 'broker'}")
+    env.setdefault("SIZEWISE_PORT", "8000")
+    env["SIZEWISE_VAR_DIR"] = str(folder)
+    args = f"--bind 127.0.0.1:{env['SIZEWISE_PORT']}"
+    if _gunicorn_has_control_socket():
+        # One shared ~/.gunicorn/gunicorn.ctl would make two local launchers fight over it.
+        args += " --no-control-socket"
+    env["GUNICORN_CMD_ARGS"] = args
+    env.setdefault("PYTHONUNBUFFERED", "1")
+    return env
+
+
+def _gunicorn_has_control_socket() -> bool:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        major = int(version("gunicorn").split(".")[0])
+    except (PackageNotFoundError, ValueError):
+        return False
+    return major >= 27  # the control socket (and its off switch) arrived in gunicorn 27
+
+
+def local_argv(command: Sequence[str]) -> list[str]:
+    """Return ``command`` with its interpreter replaced by the one running this launcher."""
+    argv = list(command)
+    if argv and argv[0] == "python":
+        argv[0] = sys.executable
+    return argv
+
+
+def example_body() -> dict:
+    """Return a ready-to-post request body: one of service/examples/*.json in protocol + requester."""
+    examples = REPO_ROOT / "service" / "examples"
+    path = examples / EXAMPLE_FILE
+    if not path.exists():
+        found = sorted(examples.glob("*.json"))
+        if not found:
+            raise FileNotFoundError(f"no example question in {examples}")
+        path = found[0]
+    return {
+        "protocol": {
+            "id": "NGH-CRO-DEMO-01",
+            "title": "Try-out request from the local launcher",
+        },
+        "requester": {
+            "name": "Demo Investigator",
+            "email": "investigator@northbridge.example",
+            "department": "Clinical Research Office",
+        },
+        "question": json.loads(path.read_text()),
+    }
+
+
+def prepare(env: Mapping[str, str]) -> str:
+    """Create var/, migrate the database, load the demo and return a fresh demo token's secret."""
+    from service import demo
+    from service.config import ensure_broker_folders, load_config
+    from service.store.migrate import upgrade
+
+    Path(env["SIZEWISE_VAR_DIR"]).mkdir(parents=True, exist_ok=True)
+    # The launcher's own settings are its children's: load_config() reads os.environ.
+    os.environ.update(env)
+    config = load_config()
+    ensure_broker_folders(config)
+    upgrade(config["DATABASE_URL"])
+    loaded = demo.load(config)
+    print(f"sizewise: demo protocols: {loaded} new", flush=True)
+    from service.store.db import make_engine, make_sessionmaker, session_scope
+    from service.store.tokens import ensure_demo_token
+
+    engine = make_engine(config["DATABASE_URL"])
+    try:
+        with session_scope(make_sessionmaker(engine)) as session:
+            return ensure_demo_token(session)
+    finally:
+        engine.dispose()
+
+
+def _die_with_parent() -> None:
+    """In the child before exec: ask Linux to SIGTERM it if the launcher dies without cleanup."""
+    if sys.platform.startswith("linux"):
+        import ctypes
+
+        pr_set_pdeathsig = 1
+        ctypes.CDLL(None, use_errno=True).prctl(pr_set_pdeathsig, signal.SIGTERM)
+
+
+class Supervisor:
+    """Run child processes, forward a stop signal to them once, and kill what does not stop."""
+
+    def __init__(self) -> None:
+        self.children: dict[str, subprocess.Popen] = {}
+        self.stop_requested = threading.Event()
+
+    def start(self, name: str, argv: list[str], env: Mapping[str, str]) -> None:
+        """Start one child in a process group of its own, so only this launcher signals it."""
+        # A signal to the launcher's group (Ctrl-C, kill -TERM -pgid) would otherwise also hit
+        # the worker's pool processes directly and kill their jobs instead of a warm shutdown.
+        self.children[name] = subprocess.Popen(
+            argv, env=dict(env), cwd=REPO_ROOT, process_group=0, preexec_fn=_die_with_parent
+        )
+        print(f"sizewise: started {name} (pid {self.children[name].pid})", flush=True)
+
+    def request_stop(self, signum: int, _frame: object) -> None:
+        """Signal handler: remember that a stop was asked for."""
+        self.stop_requested.set()
+
+    def exited(self) -> str | None:
+        """Return the name of a child that has exited on its own, if any."""
+        for name, proc in self.children.items():
+            if proc.poll() is not None:
+                return name
+        return None
+
+    def stop(self) -> bool:
+        """Forward SIGTERM to every child, wait, then SIGKILL stragglers; True when none needed it."""
+        for proc in self.children.values():
+            if proc.poll() is None:
+                try:
+                    proc.send_signal(signal.SIGTERM)
+                except ProcessLookupError:
+                    pass
+        deadline = time.monotonic() + STOP_GRACE_SECONDS
+        clean = True
+        for name, proc in self.children.items():
+            try:
+                proc.wait(timeout=max(deadline - time.monotonic(), 0.1))
+            except subprocess.TimeoutExpired:
+                print(f"sizewise: {name} did not stop in time; killing it", flush=True)
+                clean = False
+            try:
+                os.killpg(proc.pid, signal.SIGKILL)  # stragglers: the child and what it forked
+            except ProcessLookupError:
+                pass
+            proc.wait()
+        return clean
+
+
+def wait_until_healthy(port: int, sup: Supervisor, timeout: float = 60.0) -> bool:
+    """Poll the API's health endpoint until it answers 200, a child dies, or time runs out."""
+    from urllib.error import URLError
+    from urllib.request import urlopen
+
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline and not sup.stop_requested.is_set():
+        if sup.exited():
+            return False
+        try:
+            with urlopen(f"http://127.0.0.1:{port}{HEALTH_PATH}", timeout=2) as resp:
+                if resp.status == 200:
+                    return True
+        except (URLError, OSError):
+            pass
+        time.sleep(0.3)
+    return False
+
+
+def print_banner(port: int, folder: Path, token: str) -> None:
+    """Print the URL, the demo token and a curl example that posts a request and reads it back."""
+    body_file = folder / "example-request.json"
+    try:
+        body_file.write_text(json.dumps(example_body(), indent=2) + "\n")
+    except FileNotFoundError as exc:
+        print(f"sizewise: {exc}; no example body written", flush=True)
+    url = f"http://127.0.0.1:{port}"
+    print(
+        f"\nsizewise is running at {url}  (Ctrl-C stops it)\n"
+        f"demo statistician token (new at every start): {token}\n\n"
+        f"  export SIZEWISE_TOKEN={token}\n"
+        f'  curl -s -X POST {url}/v1/requests -H "Authorization: Bearer $SIZEWISE_TOKEN" \\\n'
+        f"       -H 'Content-Type: application/json' --data @{body_file}\n"
+        f'  curl -s -H "Authorization: Bearer $SIZEWISE_TOKEN" {url}/v1/requests/<id>\n',
+        flush=True,
+    )
+
+
+def main() -> int:
+    """Prepare var/, start a Celery worker and the API, and supervise them until told to stop."""
+    env = local_environment()
+    port = int(env["SIZEWISE_PORT"])
+    sup = Supervisor()
+    signal.signal(signal.SIGTERM, sup.request_stop)
+    signal.signal(signal.SIGINT, sup.request_stop)
+    try:
+        token = prepare(env)
+    except Exception as exc:  # a launcher reports the cause in one line, not a traceback
+        print(f"sizewise: could not prepare {env['SIZEWISE_VAR_DIR']}: {exc}", file=sys.stderr)
+        return 1
+    if sup.stop_requested.is_set():
+        return 0
+    sup.start("worker", local_argv(WORKER_COMMAND), env)
+    sup.start("api", local_argv(API_COMMAND), env)
+    failed = None
+    if wait_until_healthy(port, sup):
+        print_banner(port, Path(env["SIZEWISE_VAR_DIR"]), token)
+        while not sup.stop_requested.wait(0.5):
+            failed = sup.exited()
+            if failed:
+                break
+    elif not sup.stop_requested.is_set():
+        failed = sup.exited() or "api (not healthy in time)"
+    if failed:
+        print(f"sizewise: {failed} stopped unexpectedly; shutting down", file=sys.stderr)
+    clean = sup.stop()
+    print("sizewise: stopped", flush=True)
+    return 0 if clean and not failed else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

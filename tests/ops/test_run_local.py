@@ -1,0 +1,138 @@
+"""Smoke test of ``python -m service.run_local``: up, answers the README's request, reruns it
+identically, and stops cleanly on SIGTERM to its process group."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import signal
+import subprocess
+import sys
+from pathlib import Path
+from urllib.error import URLError
+from urllib.request import Request, urlopen
+
+import pytest
+
+from service.run_local import local_environment
+
+from ._procs import free_port, readme_example_request, start, stop_group, tail, wait_for
+
+pytestmark = pytest.mark.slow
+
+TERMINAL = {"computed", "failed", "cancelled"}
+
+
+class Api:
+    """A tiny JSON client for the launcher's API."""
+
+    def __init__(self, port: int, token: str | None = None) -> None:
+        self.base = f"http://127.0.0.1:{port}"
+        self.token = token
+
+    def call(self, method: str, path: str, body: dict | None = None) -> tuple[int, dict]:
+        """Send one request; return the status and the decoded JSON body."""
+        data = None if body is None else json.dumps(body).encode()
+        req = Request(self.base + path, data=data, method=method)
+        if data is not None:
+            req.add_header("Content-Type", "application/json")
+        if self.token:
+            req.add_header("Authorization", f"Bearer {self.token}")
+        with urlopen(req, timeout=10) as resp:
+            return resp.status, json.loads(resp.read() or b"null")
+
+    def healthy(self) -> bool:
+        """True when /healthz answers 200."""
+        try:
+            return self.call("GET", "/healthz")[0] == 200
+        except (URLError, OSError):
+            return False
+
+
+def _token(database_url: str, role: str) -> str:
+    """Issue a token of ``role`` straight in the launcher's database (as `sizewise tokens` does)."""
+    from service.store.db import make_engine, make_sessionmaker, session_scope
+    from service.store.tokens import create_token
+
+    engine = make_engine(database_url)
+    try:
+        with session_scope(make_sessionmaker(engine)) as session:
+            return create_token(session, role, f"ops smoke {role}")[1]
+    finally:
+        engine.dispose()
+
+
+def test_local_launcher_end_to_end(tmp_path: Path):
+    port = free_port()
+    base = {k: v for k, v in os.environ.items() if not k.startswith("SIZEWISE_")}
+    base.update(SIZEWISE_VAR_DIR=str(tmp_path / "var"), SIZEWISE_PORT=str(port))
+    env = local_environment(base)
+    # Everything the launcher makes stays in the temporary var/ folder.
+    assert env["SIZEWISE_DATABASE_URL"] == f"sqlite:///{tmp_path / 'var' / 'sizewise.db'}"
+    log = tmp_path / "run_local.log"
+    proc = start([sys.executable, "-m", "service.run_local"], base, log)
+    api = Api(port)
+    try:
+
+        def up() -> bool:
+            if proc.poll() is not None:
+                raise AssertionError(f"run_local exited early:\n{tail(log)}")
+            return api.healthy()
+
+        wait_for(up, 120, "run_local /healthz", step=0.5)
+        assert (tmp_path / "var" / "sizewise.db").exists()
+        assert (tmp_path / "var" / "broker").is_dir()
+        wait_for(lambda: "demo statistician token" in log.read_text(), 30, "the banner")
+        auditor = Api(port, _token(env["SIZEWISE_DATABASE_URL"], "auditor"))
+        api = Api(port, _token(env["SIZEWISE_DATABASE_URL"], "statistician"))
+
+        status, created = api.call("POST", "/v1/requests", readme_example_request())
+        assert status == 202, created
+        rid = created["id"]
+
+        def computed() -> dict | None:
+            body = api.call("GET", f"/v1/requests/{rid}")[1]
+            return body if body["status"] in TERMINAL else None
+
+        body = wait_for(computed, 90, f"request computed\n{tail(log)}")
+        assert body["status"] == "computed", body.get("error")
+        # Source: recomputed with statsmodels TTestIndPower (noncentral t, Cohen 1988 eq. 2.3.1);
+        # inflating by 1/(1 − dropout) is common practice, no source.
+        from statsmodels.stats.power import TTestIndPower
+
+        q = readme_example_request()["question"]
+        d = abs(q["effect"]["difference"]) / q["effect"]["sd"]
+        raw = TTestIndPower().solve_power(effect_size=d, power=q["target_power"], alpha=q["alpha"])
+        size = body["result"]["sample_size"]
+        assert size["steps"][0]["per_arm_raw"][0] == pytest.approx(raw, abs=0.01)
+        keep = 1 - q["adjustments"]["dropout"]
+        assert size["per_arm"][0] in {math.ceil(raw / keep), math.ceil(math.ceil(raw) / keep)}
+
+        # An audit re-run: the auditor's role, the stored question and seed.
+        status, rerun = auditor.call("POST", f"/v1/requests/{rid}/reruns", {})
+        assert status == 202, rerun
+
+        def rerun_done() -> dict | None:
+            got = auditor.call("GET", f"/v1/requests/{rid}/reruns/{rerun['id']}")[1]
+            return got if got["status"] in {"done", "failed"} else None
+
+        again = wait_for(rerun_done, 90, f"rerun finished\n{tail(log)}")
+        assert again["status"] == "done", again.get("error")
+        assert again["identical"] is True and again["differences"] == []
+        assert again["record_sha256"] == body["result"]["reproducibility"]["record_sha256"]
+
+        # The demo protocols were loaded at start-up.
+        listed = api.call("GET", "/v1/requests?protocol_id=NGH-CRO-2025-014")[1]
+        assert listed["total"] == 1
+
+        os.killpg(proc.pid, signal.SIGTERM)
+        try:
+            rc = proc.wait(60)
+        except subprocess.TimeoutExpired:
+            pytest.fail(f"run_local did not stop within 60 s of SIGTERM:\n{tail(log)}")
+        assert rc == 0, tail(log)
+        assert "sizewise: stopped" in log.read_text()
+        assert not api.healthy()
+    finally:
+        stop_group(proc, grace=5)

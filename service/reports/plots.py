@@ -1,0 +1,212 @@
+"""The power curve: power against n per group around the answer, as data and as a drawing.
+
+``curve_points`` asks the engine (find = power) at about a dozen sizes and returns plain data;
+``power_curve_svg`` / ``power_curve_png`` only draw it. The SVG's elements carry ids
+(``target-line``, ``chosen-n``, ``analytic-curve``, ``simulated-points``) so tests and the page
+can find them.
+"""
+
+from __future__ import annotations
+
+import copy
+import io
+import math
+import re
+
+import matplotlib
+
+matplotlib.use("Agg")  # no display on servers and workers; must precede any pyplot import
+
+from matplotlib.figure import Figure  # noqa: E402  (after the backend is chosen)
+
+from service.engine import QuestionError, compute  # noqa: E402
+
+__all__ = ["curve_points", "power_curve_png", "power_curve_svg"]
+
+DEFAULT_POINTS = 12
+DEFAULT_SPAN = (0.5, 1.5)
+CURVE_REPLICATES = 1000  # per simulated point: MCSE ≤ 0.016, enough to see the curve's shape
+_MIN_N = {"correlation": 4}
+
+_INK = "#1d2733"
+_ANALYTIC = "#1f5fa8"
+_SIMULATED = "#b34700"
+_TARGET = "#5b6b7a"
+_CHOSEN = "#0b7a4b"
+
+
+def _sizes(chosen: int, points: int, span: tuple[float, float], floor: int) -> list[int]:
+    """About ``points`` distinct whole sizes from span[0]·n to span[1]·n, always including n."""
+    lo, hi = max(floor, math.floor(span[0] * chosen)), max(floor + 1, math.ceil(span[1] * chosen))
+    step = (hi - lo) / max(points - 1, 1)
+    sizes = {int(round(lo + i * step)) for i in range(points)} | {chosen}
+    return sorted(n for n in sizes if n >= floor)
+
+
+def _per_arm_for(record: dict, m: int) -> list[int]:
+    """Per-arm sizes when the first arm has ``m``, keeping the record's arm proportions."""
+    per_arm = record["sample_size"]["per_arm"]
+    first = per_arm[0]
+    return [m] + [max(1, math.ceil(m * n / first - 1e-9)) for n in per_arm[1:]]
+
+
+def _power_question(record: dict) -> dict:
+    """The record's question as find = power with the effect filled in (also for find = effect)."""
+    q = copy.deepcopy(record["question"])
+    if q["find"] == "effect" and record.get("effect"):
+        q["effect"][record["effect"]["field"]] = record["effect"]["value"]
+    q.update(find="power", target_power=None)
+    return q
+
+
+def curve_points(
+    record: dict,
+    *,
+    points: int = DEFAULT_POINTS,
+    span: tuple[float, float] = DEFAULT_SPAN,
+    replicates: int | None = None,
+) -> dict:
+    """Return the power curve around the record's answer as plain data (no drawing).
+
+    The x axis is the enrolled n of the first (control) group; other groups follow the record's
+    proportions, and dropout and design effect are removed as in the record. Analytic records
+    get the formula curve; simulated records get simulated points with Monte Carlo 95% intervals
+    (same seed, ``replicates`` each, default min(record's, 1000)) and, for the default normal
+    data model, the formula curve beside them.
+    """
+    if not isinstance(points, int) or isinstance(points, bool) or not 3 <= points <= 40:
+        raise QuestionError("points", f"must be a whole number in 3…40; got {points!r}")
+    if not (isinstance(span, (tuple, list)) and len(span) == 2 and 0 < span[0] < 1 < span[1] <= 4):
+        raise QuestionError("span", f"must be (low, high) with 0 < low < 1 < high ≤ 4; got {span!r}")
+    q = _power_question(record)
+    design = q["design"]
+    chosen = int(record["sample_size"]["per_arm"][0])
+    sizes = _sizes(chosen, points, tuple(span), _MIN_N.get(design, 2))
+    simulated = q.get("method") == "simulation"
+
+    analytic_q = None
+    if not simulated:
+        analytic_q = q
+    elif (q.get("simulation") or {}).get("data") is None:
+        # The formula describes the same (normal / default) data model the simulation drew from.
+        analytic_q = dict(copy.deepcopy(q), method="analytic", simulation=None)
+
+    analytic = []
+    if analytic_q is not None:
+        for m in sizes:
+            analytic.append(_power_at(analytic_q, _per_arm_for(record, m)))
+        if all(p is None for p in analytic):
+            analytic = []
+
+    sim_points = []
+    reps = None
+    if simulated:
+        sim = q["simulation"]
+        reps = int(replicates or min(int(sim["replicates"]), CURVE_REPLICATES))
+        sim_q = copy.deepcopy(q)
+        sim_q["simulation"] = dict(sim, replicates=reps)
+        for m in sizes:
+            est = _simulated_at(sim_q, _per_arm_for(record, m))
+            if est is not None:
+                sim_points.append({"n": m, **est})
+
+    target = record["question"].get("target_power")
+    return {
+        "design": design,
+        "method": "simulation" if simulated else "analytic",
+        "x_label": "Enrolled per group" if len(record["sample_size"]["per_arm"]) > 1 else "Enrolled",
+        "n": sizes,
+        "analytic": analytic,
+        "simulated": sim_points,
+        "replicates": reps,
+        "seed": (q.get("simulation") or {}).get("seed"),
+        "target_power": target,
+        "chosen": {"n": chosen, "power": record["power"]["estimate"]},
+    }
+
+
+def _power_at(q: dict, per_arm: list[int]) -> float | None:
+    q = dict(q, sample_size={"per_arm": per_arm})
+    try:
+        return compute(q)["power"]["estimate"]
+    except QuestionError:
+        return None  # a size the design cannot take (e.g. too few for its df) is left out
+
+
+def _simulated_at(q: dict, per_arm: list[int]) -> dict | None:
+    q = dict(q, sample_size={"per_arm": per_arm})
+    try:
+        power = compute(q)["power"]
+    except QuestionError:
+        return None
+    return {"power": power["estimate"], "mcse": power["mcse"], "ci95": list(power["ci95"])}
+
+
+# --- drawing ------------------------------------------------------------------------------
+
+
+def _figure(points: dict) -> Figure:
+    fig = Figure(figsize=(7.2, 4.0), dpi=100, layout="constrained")
+    ax = fig.add_subplot()
+    ax.set_gid("power-curve-axes")
+    if points["analytic"]:
+        pairs = [(n, p) for n, p in zip(points["n"], points["analytic"], strict=True) if p is not None]
+        label = "formula" if points["method"] == "analytic" else "formula (normal data)"
+        (line,) = ax.plot(*zip(*pairs, strict=True), color=_ANALYTIC, lw=2, label=label)
+        line.set_gid("analytic-curve")
+    if points["simulated"]:
+        xs = [p["n"] for p in points["simulated"]]
+        ys = [p["power"] for p in points["simulated"]]
+        lo = [p["power"] - p["ci95"][0] for p in points["simulated"]]
+        hi = [p["ci95"][1] - p["power"] for p in points["simulated"]]
+        bars = ax.errorbar(
+            xs, ys, yerr=[lo, hi], fmt="o", ms=4, color=_SIMULATED, capsize=3, lw=1.2,
+            label=f"simulated, 95% Monte Carlo interval ({points['replicates']:,} each)",
+        )
+        bars.lines[0].set_gid("simulated-points")
+        for i, col in enumerate(bars.lines[2]):
+            col.set_gid(f"simulated-ci-{i}")
+    target = points.get("target_power")
+    if target is not None:
+        t = ax.axhline(target, color=_TARGET, ls="--", lw=1.2, label=f"target power {target:g}")
+        t.set_gid("target-line")
+    chosen = points["chosen"]
+    v = ax.axvline(chosen["n"], color=_CHOSEN, ls=":", lw=1.5)
+    v.set_gid("chosen-n")
+    (dot,) = ax.plot([chosen["n"]], [chosen["power"]], marker="D", ms=7, color=_CHOSEN, ls="none",
+                     label=f"answer: {chosen['n']:,} (power {chosen['power']:.3f})")
+    dot.set_gid("chosen-point")
+    ax.set_xlabel(points["x_label"], color=_INK)
+    ax.set_ylabel("Power", color=_INK)
+    ax.set_ylim(0, 1.02)
+    ax.grid(True, color="#d5dbe1", lw=0.6)
+    ax.tick_params(colors=_INK)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.legend(loc="lower right", frameon=False, fontsize=9)
+    return fig
+
+
+def power_curve_svg(points: dict) -> str:
+    """Draw the curve data as an SVG document string ready to inline in HTML (no XML prolog)."""
+    buf = io.StringIO()
+    # A fixed hash salt and no date keep the SVG identical for identical data.
+    with matplotlib.rc_context({"svg.hashsalt": "sizewise", "svg.fonttype": "none"}):
+        _figure(points).savefig(buf, format="svg", metadata={"Date": None})
+    text = buf.getvalue()
+    start = text.find("<svg")
+    svg = text[start:]
+    # Scale with its container instead of a fixed point size.
+    svg = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"', r'<svg\1', svg, count=1)
+    svg = svg.replace("<svg ", '<svg role="img" aria-labelledby="curve-title" ', 1)
+    end = svg.index(">") + 1
+    title = f"Power against {points['x_label'].lower()}, with the chosen size marked"
+    return f'{svg[:end]}<title id="curve-title">{title}</title>{svg[end:]}'
+
+
+
+def power_curve_png(points: dict) -> bytes:
+    """Draw the curve data as PNG bytes."""
+    buf = io.BytesIO()
+    _figure(points).savefig(buf, format="png", dpi=150, metadata={"Software": None})
+    return buf.getvalue()

@@ -15,7 +15,8 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from importlib import resources
 from typing import Any
@@ -180,6 +181,135 @@ def examples_command(args: argparse.Namespace) -> int:
 
 
 # ---------------------------------------------------------------------------------------------
+# Tokens and the audit trail (run against the configured database)
+
+
+class DatabaseError(Exception):
+    """The configured database cannot be used (exit 1)."""
+
+
+@contextmanager
+def _database_session() -> Iterator[Any]:
+    """A committed-on-success session on the configured database; its errors become one line."""
+    from sqlalchemy.exc import SQLAlchemyError
+
+    from service.config import load_config
+    from service.store.db import make_engine, make_sessionmaker, session_scope
+
+    url = load_config()["DATABASE_URL"]
+    engine = make_engine(url)
+    try:
+        with session_scope(make_sessionmaker(engine)) as session:
+            yield session
+    except SQLAlchemyError as exc:
+        shown = engine.url.render_as_string(hide_password=True)
+        raise DatabaseError(
+            f"cannot use the database {shown} (is it migrated?): {type(exc).__name__}: "
+            f"{str(getattr(exc, 'orig', exc)).splitlines()[0]}"
+        ) from None
+    finally:
+        engine.dispose()
+
+
+def _stamp(value) -> str:
+    return value.isoformat(timespec="seconds") if value is not None else "-"
+
+
+@subcommand(
+    "tokens",
+    "issue, list or revoke API tokens",
+    arg("action", choices=("create", "list", "revoke"), help="what to do"),
+    arg("token_id", nargs="?", metavar="ID", help="the token to revoke"),
+    arg("--role", help="role of a new token: intake, statistician, auditor or admin"),
+    arg("--name", help="who holds a new token (default: the role)"),
+)
+def tokens_command(args: argparse.Namespace) -> int:
+    """Create a token (its secret is the last line printed), list tokens, or revoke one."""
+    from service.store import tokens
+
+    if args.action == "create" and args.role is None:
+        raise InputError("tokens create needs --role (intake, statistician, auditor or admin)")
+    if args.action == "revoke" and args.token_id is None:
+        raise InputError("tokens revoke needs the token ID (see 'sizewise tokens list')")
+    if args.action != "revoke" and args.token_id is not None:
+        raise InputError(f"tokens {args.action} takes no ID; got {args.token_id!r}")
+    lines: list[str] = []
+    with _database_session() as session:
+        if args.action == "create":
+            try:
+                token_id, secret = tokens.create_token(
+                    session, args.role, args.name if args.name is not None else args.role
+                )
+            except tokens.TokenInputError as exc:
+                raise InputError(str(exc)) from None
+            row = tokens.get_token(session, token_id)
+            lines += [f"id: {row.id}", f"role: {row.role}", f"name: {row.name}"]
+            lines += ["the token below is shown only now; store it safely:", secret]
+        elif args.action == "list":
+            for row in tokens.list_tokens(session):
+                state = f"revoked {_stamp(row.revoked_at)}" if row.revoked_at else "active"
+                lines.append(
+                    f"{row.id}  {row.role:<12}  {state:<33}  created {_stamp(row.created_at)}"
+                    f"  last used {_stamp(row.last_used_at)}  {row.name}"
+                )
+        else:
+            row = tokens.revoke_token(session, args.token_id)
+            if row is None:
+                raise InputError(f"no token with id {args.token_id!r}")
+            lines.append(f"revoked {row.id} ({row.name}, {row.role}) at {_stamp(row.revoked_at)}")
+    # Printed only after the commit: a token shown to the user is a token that exists.
+    if lines:
+        print("\n".join(lines))
+    return EXIT_OK
+
+
+def audit_report(session) -> tuple[bool, str]:
+    """Check the audit hash chain and every stored result record; return (intact, message)."""
+    from sqlalchemy import func, select
+
+    from service.engine import verify
+    from service.store.audit import verify_chain
+    from service.store.models import AuditEvent, Result
+
+    events = session.scalar(select(func.count()).select_from(AuditEvent)) or 0
+    broken = verify_chain(session)
+    if broken:
+        event = session.get(AuditEvent, broken[0])
+        return False, (
+            f"audit trail broken at event {event.id} ({event.action}, request "
+            f"{event.request_id}): its hash or its link to the previous event does not match; "
+            f"{len(broken)} of {events} events fail"
+        )
+    results = 0
+    for row in session.scalars(select(Result).order_by(Result.id)):
+        results += 1
+        record = row.record if isinstance(row.record, dict) else {}
+        stored = record.get("reproducibility", {}).get("record_sha256")
+        try:
+            intact = verify(record) and row.record_sha256 == stored
+        except (TypeError, ValueError):  # not even canonical JSON any more
+            intact = False
+        if not intact:
+            return False, (
+                f"result record of request {row.request_id} (result {row.id}) was altered: "
+                f"its content no longer matches its stored hash {row.record_sha256}"
+            )
+    return True, f"audit trail intact: {events} events, {results} results"
+
+
+@subcommand("audit", "check the audit trail", arg("action", choices=("verify",), help="what to do"))
+def audit_command(args: argparse.Namespace) -> int:
+    """Walk the audit hash chain and re-hash every stored result; exit 1 at the first break."""
+    with _database_session() as session:
+        intact, message = audit_report(session)
+    if not intact:
+        print(f"sizewise: {message}", file=sys.stderr)
+        return EXIT_ENGINE
+    print(message)
+    return EXIT_OK
+
+
+# ---------------------------------------------------------------------------------------------
 # Entry point
 
 
@@ -210,6 +340,9 @@ def main(argv: list[str] | None = None) -> int:
     except QuestionInvalid as exc:
         print_errors("the question is invalid:", exc.errors)
         return EXIT_INPUT
+    except DatabaseError as exc:
+        print(f"sizewise: {exc}", file=sys.stderr)
+        return EXIT_ENGINE
 
 
 if __name__ == "__main__":

@@ -78,6 +78,26 @@ SETTINGS: tuple[Setting, ...] = (
         int,
         "Largest accepted request body; larger bodies get 413.",
     ),
+    Setting(
+        "SIZEWISE_RATE_LIMIT",
+        "600/minute",
+        str,
+        "Requests one API token may make (all endpoints together), e.g. '600/minute'; "
+        "without a valid token the caller's address is counted instead.",
+    ),
+    Setting(
+        "SIZEWISE_RATELIMIT_STORAGE_URL",
+        "memory://",
+        str,
+        "Where the rate-limit counters live; memory:// (per process) is replaced by the broker's "
+        "URL when the broker is Redis, so every API process shares one count.",
+    ),
+    Setting(
+        "SIZEWISE_TOKEN_HOURLY_BUDGET",
+        20_000_000_000,
+        int,
+        "Estimated random draws the requests submitted with one token may cost within an hour.",
+    ),
 )
 
 

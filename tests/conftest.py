@@ -1,8 +1,10 @@
-"""Shared fixtures: a migrated database on SQLite and on PostgreSQL, and a Flask test client.
+"""Shared fixtures: a migrated database on SQLite and on PostgreSQL, and Flask test clients.
 
 Each database is built once per session by ``alembic upgrade head`` and emptied before every
 test. The PostgreSQL database is created fresh for the session and dropped afterwards. The
 broker is kombu's filesystem transport in a temporary folder, so publishing needs no server.
+Every API call needs a bearer token: ``client`` sends a statistician's, ``auth(role, name)``
+returns the headers of a token of any role, and ``anon_client`` sends none.
 Demo data is invented (Northbridge General Hospital research office).
 """
 
@@ -12,7 +14,7 @@ import copy
 import os
 import sys
 import uuid
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
@@ -26,9 +28,17 @@ from flask.testing import FlaskClient  # noqa: E402
 from sqlalchemy import delete  # noqa: E402
 
 from service import create_app  # noqa: E402
-from service.store.db import make_engine  # noqa: E402
+from service.store import tokens as token_store  # noqa: E402
+from service.store.db import make_engine, session_scope  # noqa: E402
 from service.store.migrate import upgrade  # noqa: E402
-from service.store.models import AuditEvent, ChunkResult, Request, Rerun, Result  # noqa: E402
+from service.store.models import (  # noqa: E402
+    ApiToken,
+    AuditEvent,
+    ChunkResult,
+    Request,
+    Rerun,
+    Result,
+)
 
 PG_HOST = "127.0.0.1"
 PG_ADMIN_DSN = f"host={PG_HOST} port=5432 user=postgres dbname=postgres"
@@ -79,7 +89,7 @@ def empty_tables(url: str) -> None:
     """Delete every row (children first) so each test starts from an empty database."""
     engine = make_engine(url)
     with engine.begin() as conn:
-        for model in (ChunkResult, Result, Rerun, AuditEvent, Request):
+        for model in (ChunkResult, Result, Rerun, AuditEvent, Request, ApiToken):
             conn.execute(delete(model))
     engine.dispose()
 
@@ -103,10 +113,58 @@ def app(settings: dict):
     application.extensions["sizewise"]["engine"].dispose()
 
 
+class Tokens:
+    """Issues one token per (role, name) on the app's database and remembers its secret."""
+
+    def __init__(self, app):
+        self.app = app
+        self.secrets: dict[tuple[str, str], str] = {}
+        self.ids: dict[tuple[str, str], str] = {}
+
+    def secret(self, role: str, name: str | None = None) -> str:
+        """The secret of the token of ``role`` held by ``name`` (default: the role)."""
+        key = (role, name or role)
+        if key not in self.secrets:
+            with session_scope(self.app.extensions["sizewise"]["sessions"]) as session:
+                self.ids[key], self.secrets[key] = token_store.create_token(session, *key)
+        return self.secrets[key]
+
+    def token_id(self, role: str, name: str | None = None) -> str:
+        """The id of that token (issued on first use)."""
+        self.secret(role, name)
+        return self.ids[(role, name or role)]
+
+    def headers(self, role: str, name: str | None = None) -> dict[str, str]:
+        """Authorization headers carrying that token."""
+        return {"Authorization": f"Bearer {self.secret(role, name)}"}
+
+
 @pytest.fixture
-def client(app) -> FlaskClient:
-    """The Flask test client."""
+def tokens(app) -> Tokens:
+    """Token issuer for the test's application."""
+    return Tokens(app)
+
+
+@pytest.fixture
+def auth(tokens) -> Callable[..., dict[str, str]]:
+    """``auth(role, name=None)`` returns headers with a bearer token of that role."""
+    return tokens.headers
+
+
+@pytest.fixture
+def anon_client(app) -> FlaskClient:
+    """A test client that sends no token."""
     return app.test_client()
+
+
+@pytest.fixture
+def client(app, tokens) -> FlaskClient:
+    """The Flask test client, sending a statistician's token unless a call passes its own."""
+    test_client = app.test_client()
+    test_client.environ_base["HTTP_AUTHORIZATION"] = (
+        f"Bearer {tokens.secret('statistician', 'j.moreau')}"
+    )
+    return test_client
 
 
 def question_body(**overrides) -> dict:
@@ -146,20 +204,35 @@ class Api:
     question_body = staticmethod(question_body)
     request_body = staticmethod(request_body)
 
-    def __init__(self, client: FlaskClient, app):
+    def __init__(self, client: FlaskClient, app, tokens: Tokens):
         self.client = client
         self.app = app
+        self.tokens = tokens
 
-    def submit(self, body: dict | None = None, *, key: str | None = None, actor: str = "intake"):
-        """POST /v1/requests."""
-        headers = {"X-Sizewise-Actor": actor}
+    def submit(
+        self,
+        body: dict | None = None,
+        *,
+        key: str | None = None,
+        role: str = "intake",
+        name: str = "a.okafor",
+    ):
+        """POST /v1/requests with the token of ``role`` held by ``name``."""
+        headers = self.tokens.headers(role, name)
         if key is not None:
             headers["Idempotency-Key"] = key
         return self.client.post("/v1/requests", json=body or request_body(), headers=headers)
 
-    def post(self, path: str, body: dict | None = None, *, actor: str = "reviewer"):
-        """POST a JSON body (or none) as ``actor``."""
-        headers = {"X-Sizewise-Actor": actor}
+    def post(
+        self,
+        path: str,
+        body: dict | None = None,
+        *,
+        role: str = "statistician",
+        name: str = "j.moreau",
+    ):
+        """POST a JSON body (or none) with the token of ``role`` held by ``name``."""
+        headers = self.tokens.headers(role, name)
         if body is None:
             return self.client.post(path, headers=headers)
         return self.client.post(path, json=body, headers=headers)
@@ -170,6 +243,6 @@ class Api:
 
 
 @pytest.fixture
-def api(client, app) -> Api:
+def api(client, app, tokens) -> Api:
     """API helpers bound to the test client."""
-    return Api(client, app)
+    return Api(client, app, tokens)

@@ -15,6 +15,7 @@ from marshmallow import Schema
 from service.schemas import register_openapi_types
 from service.schemas.api import ProblemSchema
 
+from .auth import PUBLIC
 from .docs import Operation, operation
 from .errors import PROBLEM_MEDIA_TYPE
 
@@ -22,6 +23,7 @@ bp = Blueprint("openapi", __name__)
 
 _PATH_PARAM = re.compile(r"<(?:[^:<>]+:)?([^<>]+)>")
 _SKIP_METHODS = {"HEAD", "OPTIONS"}
+BEARER_SCHEME = "bearer"
 
 
 def _schema_name(schema) -> str | None:
@@ -38,7 +40,7 @@ def _version() -> str:
         return "0.0.0"
 
 
-def _operation_dict(op: Operation, endpoint: str) -> dict:
+def _operation_dict(op: Operation, endpoint: str, *, secured: bool) -> dict:
     responses: dict[str, dict] = {}
     success: dict = {"description": HTTPStatus(op.status).phrase}
     if op.response is not None:
@@ -54,7 +56,9 @@ def _operation_dict(op: Operation, endpoint: str) -> dict:
             "description": "The same Idempotency-Key and body were posted before",
             "content": {"application/json": {"schema": op.response}},
         }
-    for code in sorted(set(op.errors) | {500}):
+    # Every secured endpoint can answer 401 (no or bad token), 403 (role) and 429 (rate limit).
+    codes = set(op.errors) | {500} | ({401, 403, 429} if secured else set())
+    for code in sorted(codes):
         responses[str(code)] = {
             "description": HTTPStatus(code).phrase,
             "content": {PROBLEM_MEDIA_TYPE: {"schema": ProblemSchema}},
@@ -65,6 +69,8 @@ def _operation_dict(op: Operation, endpoint: str) -> dict:
         "tags": [op.tag],
         "responses": responses,
     }
+    # An empty list overrides the document-wide requirement: the probes need no token.
+    out["security"] = [{BEARER_SCHEME: []}] if secured else []
     if op.description:
         out["description"] = op.description
     parameters: list[dict] = []
@@ -74,15 +80,8 @@ def _operation_dict(op: Operation, endpoint: str) -> dict:
         parameters.append(
             {"in": "header", "name": name, "description": text, "schema": {"type": "string"}}
         )
-    parameters.append(
-        {
-            "in": "header",
-            "name": "X-Sizewise-Actor",
-            "description": "Who is acting (recorded in the audit trail); default 'anonymous'",
-            "schema": {"type": "string", "maxLength": 200},
-        }
-    )
-    out["parameters"] = parameters
+    if parameters:
+        out["parameters"] = parameters
     if op.body is not None:
         out["requestBody"] = {
             "required": op.body_required,
@@ -106,6 +105,14 @@ def build_spec(app: Flask) -> dict:
     )
     register_openapi_types(plugin)  # needs the converter that APISpec's init just made
     spec.components.schema("Problem", schema=ProblemSchema)
+    spec.components.security_scheme(
+        BEARER_SCHEME,
+        {
+            "type": "http",
+            "scheme": "bearer",
+            "description": "An API token (sw_...) issued by an admin; its role decides access.",
+        },
+    )
     for rule in sorted(app.url_map.iter_rules(), key=lambda r: r.rule):
         if rule.endpoint == "static":
             continue
@@ -115,7 +122,7 @@ def build_spec(app: Flask) -> dict:
             raise RuntimeError(f"route {rule.rule} ({rule.endpoint}) has no OpenAPI metadata")
         path = _PATH_PARAM.sub(r"{\1}", rule.rule)
         operations = {
-            method.lower(): _operation_dict(op, rule.endpoint)
+            method.lower(): _operation_dict(op, rule.endpoint, secured=rule.endpoint not in PUBLIC)
             for method in sorted((rule.methods or set()) - _SKIP_METHODS)
         }
         parameters = [

@@ -30,10 +30,11 @@ from service.store.db import session_scope
 from service.store.models import Request
 
 from . import render
+from .auth import check_submission_cost
 from .context import sessions
 from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
-from .identity import current_actor
+from .identity import current_actor, submitter, visible_submitter
 from .io import load_body, load_query, raw_json_body, reject_query
 from .publishing import publish_job
 
@@ -73,6 +74,12 @@ def _replay(session, key: str, digest: str):
     existing = store.by_idempotency_key(session, key)
     if existing is None:
         return None
+    if existing.submitted_by != submitter():
+        # Keys are global; another caller's key must neither replay nor reveal its request.
+        raise ValidationFailed(
+            f"{IDEMPOTENCY_HEADER} '{key}' was already used by another client; use a new key",
+            errors={f"headers.{IDEMPOTENCY_HEADER}": ["already used by another client"]},
+        )
     if existing.body_sha256 != digest:
         raise ValidationFailed(
             f"{IDEMPOTENCY_HEADER} '{key}' was already used with a different body "
@@ -114,7 +121,7 @@ def _created(body: dict, status: int):
         "Stores the request, then hands it to the queue. With an Idempotency-Key header the "
         "same key and body return the first request (200); the same key with another body is 422."
     ),
-    errors=(400, 413, 415, 422, 500, 503),
+    errors=(400, 413, 415, 422, 429, 500, 503),
     headers={"Location": "URL of the request"},
     request_headers={IDEMPOTENCY_HEADER: "Makes a retried submission safe"},
 )
@@ -131,6 +138,7 @@ def submit_request():
         if earlier is not None:
             return _created(earlier, 200)
     data = RequestCreateSchema().load(raw)
+    check_submission_cost(data["question"])
     question = _with_seed(data["question"])
     try:
         with session_scope(sessions()) as session:
@@ -143,6 +151,7 @@ def submit_request():
                 question_raw=data["question_raw"],
                 question=question,
                 actor=actor,
+                submitted_by=submitter(),
                 idempotency_key=key,
                 body_sha256=digest,
             )
@@ -175,7 +184,9 @@ def list_requests():
     args = load_query(RequestQueryArgsSchema())
     page, per_page = args.pop("page"), args.pop("per_page")
     with session_scope(sessions()) as session:
-        result = store.list_requests(session, page=page, per_page=per_page, **args)
+        result = store.list_requests(
+            session, page=page, per_page=per_page, submitted_by=visible_submitter(), **args
+        )
         return jsonify(render.request_page(result, page, per_page))
 
 

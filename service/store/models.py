@@ -1,4 +1,4 @@
-"""SQLAlchemy 2 typed models: requests, results, reruns, chunk_results, audit_events.
+"""SQLAlchemy 2 typed models: requests, results, reruns, chunk_results, audit_events, api_tokens.
 
 Table and column names are a contract with the workers (see the shared service contract).
 """
@@ -43,6 +43,8 @@ REQUEST_STATUSES = (
     "cancelled",
 )
 RERUN_STATUSES = ("queued", "running", "done", "failed")
+# Who may do what is decided in service/api/auth.py; the store only keeps the names.
+TOKEN_ROLES = ("intake", "statistician", "auditor", "admin")
 # Statuses after which a request no longer changes on its own.
 ENDED_STATUSES = ("computed", "approved", "returned", "failed", "cancelled")
 
@@ -174,3 +176,18 @@ class AuditEvent(Base):
     created_at: Mapped[Stamp] = mapped_column(default=utcnow)
     prev_sha256: Mapped[str | None] = mapped_column(String(64))
     sha256: Mapped[str] = mapped_column(String(64))
+
+
+class ApiToken(Base):
+    """A bearer token of the API: only the SHA-256 of its secret is kept, never the secret."""
+
+    __tablename__ = "api_tokens"
+    __table_args__ = (CheckConstraint(_in("role", TOKEN_ROLES), name="role"),)
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    secret_sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    role: Mapped[str] = mapped_column(String(16))
+    name: Mapped[str] = mapped_column(String(120))
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    last_used_at: Mapped[datetime | None]
+    revoked_at: Mapped[datetime | None]

@@ -78,8 +78,9 @@ def create_request(
     actor: str,
     idempotency_key: str | None,
     body_sha256: str,
+    submitted_by: str | None = None,
 ) -> Request:
-    """Insert a received request and its 'submitted' audit event."""
+    """Insert a received request and its 'submitted' audit event (submitted_by defaults to actor)."""
     simulation = question.get("simulation") or {}
     row = Request(
         id=new_id(),
@@ -101,7 +102,7 @@ def create_request(
         cancel_requested=False,
         idempotency_key=idempotency_key,
         body_sha256=body_sha256,
-        submitted_by=actor,
+        submitted_by=submitted_by if submitted_by is not None else actor,
         attempts=0,
     )
     session.add(row)
@@ -140,6 +141,7 @@ def list_requests(
     design: str | None = None,
     submitted_from: date | None = None,
     submitted_to: date | None = None,
+    submitted_by: str | None = None,
     page: int = 1,
     per_page: int = 20,
 ) -> Page:
@@ -153,6 +155,8 @@ def list_requests(
         conditions.append(func.lower(Request.requester_email) == requester.lower())
     if design is not None:
         conditions.append(Request.design == design)
+    if submitted_by is not None:
+        conditions.append(Request.submitted_by == submitted_by)
     if submitted_from is not None:
         conditions.append(Request.submitted_at >= datetime.combine(submitted_from, time(), UTC))
     if submitted_to is not None:

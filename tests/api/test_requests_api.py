@@ -5,17 +5,14 @@ from __future__ import annotations
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
-import pytest
 from sqlalchemy import update
 
 from service.store.db import session_scope
 from service.store.models import Request
 
-from workers import queue
-
 
 def test_submit_stores_then_queues(api, settings):
-    response = api.submit(actor="a.okafor")
+    response = api.submit(name="a.okafor")
     assert response.status_code == 202
     body = response.get_json()
     assert response.headers["Location"] == f"/v1/requests/{body['id']}"
@@ -24,7 +21,8 @@ def test_submit_stores_then_queues(api, settings):
     assert body["question_submitted"]["effect"] == {"difference": 0.5, "sd": 1.0}
     assert body["result"] is None and body["seed"] is None
     assert [e["action"] for e in body["history"]] == ["submitted", "published"]
-    assert body["history"][0]["actor"] == "a.okafor"
+    assert body["history"][0]["actor"] == "a.okafor (intake)"
+    assert body["submitted_by"] == api.tokens.token_id("intake", "a.okafor")
     # The filesystem broker holds exactly one message for it.
     queue_dir = Path(settings["BROKER_URL"].removeprefix("filesystem://")) / "queue"
     assert len(list(queue_dir.iterdir())) == 1

@@ -11,7 +11,6 @@ from service.store.db import session_scope
 from service.store.models import Request
 
 
-
 def _claim(api, request_id: str, owner: str = "worker-test") -> None:
     with session_scope(api.sessions()) as s:
         assert jobs.claim(s, "request", request_id, owner, 60, 3)
@@ -81,14 +80,14 @@ def test_review_needs_a_note(api):
 
 def test_assign_and_comment_are_in_the_history(api):
     request_id = api.submit().get_json()["id"]
-    r = api.post(f"/v1/requests/{request_id}/assign", {"to": "j.moreau"}, actor="lead")
+    r = api.post(f"/v1/requests/{request_id}/assign", {"to": "j.moreau"}, name="lead")
     assert r.status_code == 200 and r.get_json()["assigned_to"] == "j.moreau"
     c = api.post(f"/v1/requests/{request_id}/comments", {"text": "Which SD source?"})
     assert c.status_code == 201 and c.get_json()["detail"] == {"text": "Which SD source?"}
     history = api.client.get(f"/v1/requests/{request_id}").get_json()["history"]
     assert [(e["actor"], e["action"]) for e in history][-2:] == [
-        ("lead", "assigned"),
-        ("reviewer", "comment"),
+        ("lead (statistician)", "assigned"),
+        ("j.moreau (statistician)", "comment"),
     ]
     with session_scope(api.sessions()) as s:
         assert verify_chain(s) == []
@@ -125,13 +124,13 @@ def test_cancel_computed_is_refused(api):
 
 def test_rerun_needs_a_result(api):
     request_id = api.submit().get_json()["id"]
-    r = api.post(f"/v1/requests/{request_id}/reruns")
+    r = api.post(f"/v1/requests/{request_id}/reruns", role="auditor")
     assert r.status_code == 409 and "no stored result" in r.get_json()["detail"]
 
 
 def test_rerun_is_queued_and_listed(api):
     request_id = _computed(api)
-    r = api.post(f"/v1/requests/{request_id}/reruns", {"note": "Annual check."})
+    r = api.post(f"/v1/requests/{request_id}/reruns", {"note": "Annual check."}, role="auditor")
     assert r.status_code == 202
     rerun = r.get_json()
     assert rerun["status"] == "queued" and rerun["published_at"] is not None

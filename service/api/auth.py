@@ -1,0 +1,263 @@
+"""Access control: bearer tokens, the role of each endpoint, rate limits and cost budgets.
+
+Every endpoint is listed in ``ACCESS`` with the roles allowed on it; a route missing from the
+table is refused for every role (fail closed), and a test walks ``app.url_map`` so a new route
+without an entry fails. Only the probes in ``PUBLIC`` need no token.
+
+    401  no token, not a Bearer token, unknown or revoked token (with WWW-Authenticate: Bearer)
+    403  a valid token whose role is not allowed on the endpoint
+    404  an intake token asking for another caller's request (its existence is not revealed)
+    429  the per-token rate limit, or the per-token hourly cost budget, is used up
+"""
+
+from __future__ import annotations
+
+import math
+from datetime import timedelta
+from typing import Any
+
+from flask import Flask, g, request
+from flask.testing import FlaskClient
+from flask_limiter import Limiter
+from flask_limiter.errors import RateLimitExceeded
+from flask_limiter.util import get_remote_address
+from werkzeug.wrappers import Response
+
+from service.engine import EngineError, estimate_cost
+from service.store import tokens as token_store
+from service.store.db import session_scope
+from service.store.models import TOKEN_ROLES, Request
+from service.store.types import utcnow
+
+from .context import sessions, settings
+from .errors import ApiError, NotFound, ValidationFailed, problem
+from .identity import Caller, current_caller
+
+INTAKE, STATISTICIAN, AUDITOR, ADMIN = TOKEN_ROLES
+ANY_ROLE = frozenset(TOKEN_ROLES)
+READERS = frozenset({INTAKE, STATISTICIAN, AUDITOR})
+SUBMITTERS = frozenset({INTAKE, STATISTICIAN})
+REVIEWERS = frozenset({STATISTICIAN})
+
+PUBLIC = frozenset({"health.healthz", "health.readyz"})
+# endpoint -> roles allowed; intake's reads are further limited to its own requests.
+ACCESS: dict[str, frozenset[str]] = {
+    "openapi.openapi_json": ANY_ROLE,
+    "calculations.designs": ANY_ROLE,
+    "calculations.calculate": SUBMITTERS,
+    "requests.submit_request": SUBMITTERS,
+    "requests.list_requests": READERS,
+    "requests.get_request": READERS,
+    "requests.cancel_request": REVIEWERS,
+    "requests.assign_request": REVIEWERS,
+    "requests.comment_request": REVIEWERS,
+    "requests.approve_request": REVIEWERS,
+    "requests.return_request": REVIEWERS,
+    "requests.create_rerun": frozenset({AUDITOR}),
+    "requests.list_reruns": READERS,
+    "requests.get_rerun": READERS,
+    "tokens.create_token": frozenset({ADMIN}),
+    "tokens.list_tokens": frozenset({ADMIN}),
+    "tokens.revoke_token": frozenset({ADMIN}),
+}
+
+REALM = 'Bearer realm="sizewise"'
+LIMITER_EXTENSION = "sizewise_limiter"
+BUDGET_WINDOW = timedelta(hours=1)
+
+
+class Unauthorized(ApiError):
+    """No usable bearer token (401); the response asks for one with WWW-Authenticate."""
+
+    status = 401
+    slug = "unauthorized"
+    title = "Authentication required"
+
+
+class Forbidden(ApiError):
+    """The token is valid but its role may not use this endpoint (403)."""
+
+    status = 403
+    slug = "forbidden"
+    title = "Not allowed for this role"
+
+
+class BudgetUsed(ApiError):
+    """The token's hourly cost budget would be exceeded (429)."""
+
+    status = 429
+    slug = "budget-exceeded"
+    title = "Hourly cost budget exceeded"
+
+
+def _bearer_secret() -> str:
+    header = request.headers.get("Authorization")
+    if header is None or not header.strip():
+        raise Unauthorized(
+            "this endpoint needs an 'Authorization: Bearer <token>' header",
+            errors={"headers.Authorization": ["missing; send 'Bearer <token>'"]},
+            headers={"WWW-Authenticate": REALM},
+        )
+    scheme, _, secret = header.strip().partition(" ")
+    if scheme.lower() != "bearer" or not secret.strip():
+        raise Unauthorized(
+            f"the Authorization header must be 'Bearer <token>'; got scheme {scheme[:20]!r}",
+            errors={"headers.Authorization": [f"must be 'Bearer <token>'; got {scheme[:20]!r}"]},
+            headers={"WWW-Authenticate": f'{REALM}, error="invalid_request"'},
+        )
+    return secret.strip()
+
+
+def _check_owner(caller: Caller) -> None:
+    """Answer 404 when an intake token names a request it did not submit."""
+    request_id = (request.view_args or {}).get("request_id")
+    if caller.role != INTAKE or not isinstance(request_id, str):
+        return
+    with session_scope(sessions()) as session:
+        row = session.get(Request, request_id) if len(request_id) == 32 else None
+        owner = row.submitted_by if row is not None else None
+    # Unknown ids fall through to the view, which answers the same 404 with its own checks.
+    if owner is not None and owner != caller.token_id:
+        raise NotFound(f"no request with id '{request_id}'")
+
+
+def authenticate() -> None:
+    """Before every request: verify the bearer token and the role the endpoint needs."""
+    endpoint = request.endpoint
+    # No endpoint means a 404 or 405 from routing; nothing is served, so nothing to protect.
+    if endpoint is None or endpoint in PUBLIC:
+        return
+    secret = _bearer_secret()
+    with session_scope(sessions()) as session:
+        row = token_store.verify_token(session, secret)
+        caller = Caller(row.id, row.name, row.role) if row is not None else None
+    if caller is None:
+        raise Unauthorized(
+            "the bearer token is not valid: unknown or revoked",
+            errors={"headers.Authorization": ["unknown or revoked token"]},
+            headers={"WWW-Authenticate": f'{REALM}, error="invalid_token"'},
+        )
+    g.caller = caller
+    allowed = ACCESS.get(endpoint, frozenset())
+    if caller.role not in allowed:
+        names = ", ".join(r for r in TOKEN_ROLES if r in allowed) or "none"
+        raise Forbidden(
+            f"role '{caller.role}' may not {request.method} {request.path}; allowed roles: {names}",
+            role=caller.role,
+            allowed_roles=sorted(allowed),
+        )
+    _check_owner(caller)
+
+
+def rate_limit_key() -> str:
+    """The rate-limit bucket: the verified token's id, else the caller's address."""
+    caller = g.get("caller")
+    return f"token:{caller.token_id}" if caller is not None else f"addr:{get_remote_address()}"
+
+
+def storage_url(config: dict[str, Any]) -> str:
+    """Return where rate-limit counters live: the setting, or the Redis broker for memory://."""
+    url = str(config.get("RATELIMIT_STORAGE_URL") or "memory://")
+    broker = str(config.get("BROKER_URL") or "")
+    if url == "memory://" and broker.startswith(("redis://", "rediss://")):
+        return broker
+    return url
+
+
+def _rate_limited(exc: RateLimitExceeded) -> Response:
+    return problem(
+        429,
+        "Too many requests",
+        f"the rate limit of {exc.description} per token is used up; retry after the "
+        "Retry-After header's seconds",
+        slug="rate-limited",
+        limit=str(exc.description),
+    )
+
+
+def init_auth(app: Flask) -> Limiter:
+    """Install token checks, the per-token rate limit and the 429 handler on ``app``."""
+    from . import health
+
+    # Registered before the limiter's own hook, so the limit is keyed by the verified token.
+    app.before_request(authenticate)
+    config = app.extensions["sizewise"]["config"]
+    limiter = Limiter(
+        rate_limit_key,
+        application_limits=[str(config["RATE_LIMIT"])],
+        storage_uri=storage_url(config),
+        strategy="fixed-window",
+        headers_enabled=True,
+        retry_after="delta-seconds",
+        key_prefix="sizewise",
+    )
+    limiter.exempt(health.bp)
+    limiter.init_app(app)
+    app.register_error_handler(RateLimitExceeded, _rate_limited)
+    app.extensions[LIMITER_EXTENSION] = limiter
+    return limiter
+
+
+def _cost(question: dict, field: str = "question") -> int:
+    try:
+        return int(estimate_cost(question))
+    except EngineError as exc:
+        raise ValidationFailed(str(exc), errors={field: [str(exc)]}) from None
+
+
+def check_submission_cost(question: dict) -> int:
+    """Refuse a submission over the per-simulation budget (422) or the token's hourly one (429)."""
+    config = settings()
+    estimate = _cost(question)
+    per_simulation = int(config["SIMULATION_BUDGET"])
+    if estimate > per_simulation:
+        message = (
+            f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
+            f"{per_simulation:,}; lower replicates (or search_replicates) or the sample size"
+        )
+        raise ValidationFailed(
+            message,
+            errors={"question.simulation.replicates": [message]},
+            estimate=estimate,
+            budget=per_simulation,
+        )
+    if estimate == 0:
+        return 0
+    hourly = int(config["TOKEN_HOURLY_BUDGET"])
+    now = utcnow()
+    with session_scope(sessions()) as session:
+        recent = token_store.submitted_since(
+            session, current_caller().token_id, now - BUDGET_WINDOW
+        )
+    costs = [(at, _cost(q)) for at, q in recent]
+    spent = sum(c for _, c in costs)
+    remaining = max(hourly - spent, 0)
+    if estimate > remaining:
+        raise BudgetUsed(
+            f"this simulation's estimated cost of {estimate:,} draws exceeds the "
+            f"{remaining:,} draws left of this token's hourly budget of {hourly:,}",
+            headers={"Retry-After": str(_seconds_until_room(costs, estimate, hourly, now))},
+            estimate=estimate,
+            remaining=remaining,
+            budget=hourly,
+        )
+    return estimate
+
+
+def _seconds_until_room(costs, estimate: int, hourly: int, now) -> int:
+    """Seconds until enough of the window's spending ages out for ``estimate`` to fit."""
+    spent = sum(c for _, c in costs)
+    for at, cost in costs:
+        spent -= cost
+        if hourly - spent >= estimate:
+            return max(1, math.ceil((at + BUDGET_WINDOW - now).total_seconds()))
+    return int(BUDGET_WINDOW.total_seconds())
+
+
+def local_client(app: Flask, role: str = STATISTICIAN, name: str = "local client") -> FlaskClient:
+    """Return a test client of ``app`` that sends a freshly issued token of ``role``."""
+    with session_scope(app.extensions["sizewise"]["sessions"]) as session:
+        _token_id, secret = token_store.create_token(session, role, name)
+    client = app.test_client()
+    client.environ_base["HTTP_AUTHORIZATION"] = f"Bearer {secret}"
+    return client

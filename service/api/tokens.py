@@ -1,0 +1,123 @@
+"""API tokens, for admins: create (the secret is shown once), list (no secrets) and revoke."""
+
+from __future__ import annotations
+
+import re
+
+from flask import Blueprint, jsonify
+from marshmallow import Schema, fields
+
+from service.schemas.requests import StrictSchema, length, one_of
+from service.store import tokens as store
+from service.store.db import session_scope
+from service.store.models import TOKEN_ROLES, ApiToken
+
+from .context import sessions
+from .docs import operation
+from .errors import NotFound, ValidationFailed
+from .io import load_body, reject_query
+
+bp = Blueprint("tokens", __name__, url_prefix="/v1")
+
+_ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
+
+
+class TokenCreateSchema(StrictSchema):
+    """Body of POST /v1/tokens."""
+
+    role = fields.String(required=True, validate=one_of(TOKEN_ROLES))
+    name = fields.String(
+        required=True,
+        validate=length(1, store.NAME_MAX),
+        metadata={"description": "Who holds the token; recorded as the actor in the audit trail."},
+    )
+
+
+class TokenSchema(Schema):
+    """A token as admins see it: never its secret."""
+
+    id = fields.String(required=True)
+    role = fields.String(required=True)
+    name = fields.String(required=True)
+    created_at = fields.DateTime(required=True)
+    last_used_at = fields.DateTime(allow_none=True)
+    revoked_at = fields.DateTime(allow_none=True)
+
+
+class TokenCreatedSchema(TokenSchema):
+    """A new token with its secret: the only time the secret is shown."""
+
+    token = fields.String(
+        required=True, metadata={"description": "Send as 'Authorization: Bearer <token>'."}
+    )
+
+
+class TokenListSchema(Schema):
+    """Every token, oldest first."""
+
+    items = fields.List(fields.Nested(TokenSchema), required=True)
+
+
+_TOKEN = TokenSchema()
+
+
+def _render(row: ApiToken) -> dict:
+    return _TOKEN.dump(row)
+
+
+@bp.post("/tokens")
+@operation(
+    "Issue a token (its secret is shown in this answer only)",
+    tag="tokens",
+    status=201,
+    response=TokenCreatedSchema,
+    body=TokenCreateSchema,
+    errors=(400, 401, 403, 413, 415, 422, 429, 500, 503),
+)
+def create_token():
+    """Create a token of the posted role and return it with its secret."""
+    reject_query()
+    _raw, data = load_body(TokenCreateSchema())
+    try:
+        with session_scope(sessions()) as session:
+            token_id, secret = store.create_token(session, data["role"], data["name"])
+            body = _render(store.get_token(session, token_id))
+    except store.TokenInputError as exc:
+        raise ValidationFailed(str(exc), errors={exc.field: [str(exc)]}) from None
+    body["token"] = secret
+    response = jsonify(body)
+    response.status_code = 201
+    # The secret must not linger in caches or proxies.
+    response.headers["Cache-Control"] = "no-store"
+    return response
+
+
+@bp.get("/tokens")
+@operation(
+    "List tokens (without their secrets)",
+    tag="tokens",
+    response=TokenListSchema,
+    errors=(401, 403, 422, 429, 500, 503),
+)
+def list_tokens():
+    """Return every token, oldest first, revoked ones included."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        return jsonify({"items": [_render(row) for row in store.list_tokens(session)]})
+
+
+@bp.post("/tokens/<token_id>/revoke")
+@operation(
+    "Revoke a token (it stops working at once; revoking twice keeps the first time)",
+    tag="tokens",
+    response=TokenSchema,
+    errors=(401, 403, 404, 422, 429, 500, 503),
+)
+def revoke_token(token_id: str):
+    """Revoke the token and return it."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        row = store.revoke_token(session, token_id) if _ID_PATTERN.match(token_id) else None
+        if row is None:
+            raise NotFound(f"no token with id '{token_id}'")
+        return jsonify(_render(row))

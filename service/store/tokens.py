@@ -1,0 +1,134 @@
+"""Data functions for API tokens (take a session, never commit).
+
+A token's secret is ``sw_`` + 43 URL-safe characters (32 random bytes). It is returned once, by
+``create_token``; the database keeps only its SHA-256, so a leaked database yields no usable token.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import secrets
+import uuid
+from datetime import datetime, timedelta
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from .models import TOKEN_ROLES, ApiToken, Request
+from .types import utcnow
+
+TOKEN_PREFIX = "sw_"
+NAME_MAX = 120
+DEMO_TOKEN_NAME = "demo statistician"
+# last_used_at is a hint for admins, not a log: writing it at most once a minute keeps a busy
+# token from turning every read into a write (SQLite has a single writer).
+LAST_USED_RESOLUTION = timedelta(minutes=1)
+
+
+class TokenInputError(ValueError):
+    """A role or name the token store refuses; the message names the field and the value."""
+
+    def __init__(self, field: str, message: str):
+        self.field = field
+        super().__init__(f"{field}: {message}")
+
+
+def hash_secret(secret: str) -> str:
+    """Return the hex SHA-256 of a token secret (the only form the database stores)."""
+    return hashlib.sha256(secret.encode("utf-8")).hexdigest()
+
+
+def check_role(role: str) -> str:
+    """Return ``role`` when it is a known role; raise TokenInputError naming the allowed ones."""
+    if role not in TOKEN_ROLES:
+        raise TokenInputError("role", f"must be one of {', '.join(TOKEN_ROLES)}; got {role!r}")
+    return role
+
+
+def check_name(name: str) -> str:
+    """Return the stripped name when it is 1-120 printable characters; else TokenInputError."""
+    value = name.strip() if isinstance(name, str) else ""
+    if not value or len(value) > NAME_MAX or not value.isprintable():
+        raise TokenInputError(
+            "name", f"must be 1-{NAME_MAX} printable characters; got {name!r:.60}"
+        )
+    return value
+
+
+def create_token(session: Session, role: str, name: str) -> tuple[str, str]:
+    """Store a new token of ``role`` and return ``(token_id, secret)``; the secret is not kept."""
+    check_role(role)
+    name = check_name(name)
+    secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
+    row = ApiToken(
+        id=uuid.uuid4().hex,
+        secret_sha256=hash_secret(secret),
+        role=role,
+        name=name,
+        created_at=utcnow(),
+    )
+    session.add(row)
+    session.flush()
+    return row.id, secret
+
+
+def verify_token(session: Session, secret: str) -> ApiToken | None:
+    """Return the active token whose secret is ``secret`` (and note its use), else None."""
+    if not isinstance(secret, str) or not secret.startswith(TOKEN_PREFIX) or len(secret) > 200:
+        return None
+    # Looking up the hash (not the secret) keeps the comparison off the secret itself.
+    row = session.scalar(select(ApiToken).where(ApiToken.secret_sha256 == hash_secret(secret)))
+    if row is None or row.revoked_at is not None:
+        return None
+    now = utcnow()
+    if row.last_used_at is None or now - row.last_used_at >= LAST_USED_RESOLUTION:
+        row.last_used_at = now
+        session.flush()
+    return row
+
+
+def get_token(session: Session, token_id: str) -> ApiToken | None:
+    """Return the token with ``token_id`` or None."""
+    return session.get(ApiToken, token_id)
+
+
+def revoke_token(session: Session, token_id: str) -> ApiToken | None:
+    """Revoke the token (idempotent: the first revocation time is kept); None if unknown."""
+    row = session.get(ApiToken, token_id)
+    if row is None:
+        return None
+    if row.revoked_at is None:
+        row.revoked_at = utcnow()
+        session.flush()
+    return row
+
+
+def list_tokens(session: Session) -> list[ApiToken]:
+    """Return every token, oldest first (revoked ones included)."""
+    return list(session.scalars(select(ApiToken).order_by(ApiToken.created_at, ApiToken.id)))
+
+
+def ensure_demo_token(session: Session) -> str:
+    """Issue a fresh statistician token for the local demo and return its secret.
+
+    A secret cannot be shown twice, so an earlier demo token is revoked and replaced: every start
+    of the demo prints a token that works.
+    """
+    for row in session.scalars(
+        select(ApiToken).where(ApiToken.name == DEMO_TOKEN_NAME, ApiToken.revoked_at.is_(None))
+    ):
+        row.revoked_at = utcnow()
+    _token_id, secret = create_token(session, "statistician", DEMO_TOKEN_NAME)
+    return secret
+
+
+def submitted_since(
+    session: Session, submitted_by: str, since: datetime
+) -> list[tuple[datetime, dict]]:
+    """Return ``(submitted_at, question)`` of the requests ``submitted_by`` made since ``since``."""
+    rows = session.execute(
+        select(Request.submitted_at, Request.question)
+        .where(Request.submitted_by == submitted_by, Request.submitted_at >= since)
+        .order_by(Request.submitted_at)
+    )
+    return [(at, question) for at, question in rows]

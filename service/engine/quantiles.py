@@ -23,6 +23,11 @@ def z_alpha(alpha: float, sides: int) -> float:
     return z(1.0 - alpha / sides)
 
 
+def z_sum(alpha: float, sides: int, power: float) -> float:
+    """Return z_alpha + z_beta, the sum at the heart of every normal sample-size formula."""
+    return z_alpha(alpha, sides) + z(power)
+
+
 def normal_power(shift: float, z_a: float, sides: int) -> float:
     """Return the power of a z test whose statistic is N(shift, 1), including the far tail."""
     shift = abs(shift)
@@ -45,9 +50,11 @@ def t_power(ncp: float, df: float, alpha: float, sides: int) -> float:
     return min(max(power, 0.0), 1.0)
 
 
-def effect_value(q: dict, name: str) -> float:
-    """Return ``q["effect"][name]`` as a float, or a QuestionError naming the missing field."""
+def effect_value(q: dict, name: str, default: float | None = None) -> float:
+    """Return ``q["effect"][name]`` (or ``default`` when unset) as a float; QuestionError if neither."""
     value = (q.get("effect") or {}).get(name)
+    if value is None:
+        value = default
     if value is None:
         raise QuestionError(f"effect.{name}", "is required for this question")
     return float(value)
@@ -90,6 +97,21 @@ def solve_n_or_raise(
             f"{MAX_N:.0e} per arm",
         )
     return n
+
+
+def solve_effect_or_raise(
+    f: Callable[[float], float], target: float, per_arm: list[float], *, hi: float
+) -> float:
+    """Return the smallest effect ≥ 0 where the increasing power curve ``f`` reaches ``target``."""
+    x = solve_increasing(f, target, 0.0, hi=hi)
+    if x is None:
+        raise power_unreachable("sample_size.per_arm", target, per_arm)
+    return x
+
+
+def normal_effect(unit: float, z_a: float, sides: int, target: float, hi: float) -> float:
+    """Return the effect x in [0, hi] at which a z test with mean ``unit``·x reaches ``target``."""
+    return root(lambda x: normal_power(unit * x, z_a, sides) - target, 0.0, hi)
 
 
 def power_unreachable(field: str, target: float, per_arm: list[float]) -> QuestionError:

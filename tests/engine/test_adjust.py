@@ -7,22 +7,13 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from service.engine import adjust
-
-
-def make_q(
-    *, dropout: float = 0.0, cluster: dict | None = None, comparisons: int = 1, alpha: float = 0.05
-) -> dict:
-    """Build the part of a normalized question the adjustment steps read (DEVELOPERS.md)."""
-    return {
-        "alpha": alpha,
-        "adjustments": {"dropout": dropout, "cluster": cluster, "comparisons": comparisons},
-    }
+from tests.engine.questions import make_q
 
 
 def test_design_effect_donner_klar():
     # formula: Donner & Klar (2000), 1 + (m − 1)·ICC; m = 20, ICC .05 → 1.95; 64 → 125; 7 clusters
     final, steps, extras = adjust.inflate(
-        [63.77, 63.77], make_q(cluster={"mean_size": 20, "icc": 0.05})
+        [63.77, 63.77], make_q("two_means", adjustments={"cluster": {"mean_size": 20, "icc": 0.05}})
     )
     assert final == [125, 125]
     assert extras == {"clusters_per_arm": [7, 7]}
@@ -40,7 +31,7 @@ def test_design_effect_donner_klar():
     ],
 )
 def test_dropout_divides_by_retention(n, rate, expected):
-    final, steps, _ = adjust.inflate([float(n)], make_q(dropout=rate))
+    final, steps, _ = adjust.inflate([float(n)], make_q("two_means", adjustments={"dropout": rate}))
     assert final == [expected]
     assert steps[-1] == {"step": "dropout", "rate": rate, "per_arm": [expected]}
     assert final[0] * (1 - rate) >= n
@@ -49,7 +40,10 @@ def test_dropout_divides_by_retention(n, rate, expected):
 def test_steps_are_ordered_base_design_effect_dropout():
     # common practice, no source: the design effect applies to analysable subjects, dropout last
     final, steps, _ = adjust.inflate(
-        [64.0], make_q(dropout=0.2, cluster={"mean_size": 20, "icc": 0.05})
+        [64.0],
+        make_q(
+            "two_means", adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}}
+        ),
     )
     assert [s["step"] for s in steps] == ["base", "design_effect", "dropout"]
     assert final == [157]  # 125 / 0.8 = 156.25 → 157
@@ -57,13 +51,13 @@ def test_steps_are_ordered_base_design_effect_dropout():
 
 def test_ceiling_ignores_floating_noise():
     # common practice, no source: 64.0000000001 from floating error is 64, 64.01 is 65
-    assert adjust.inflate([64.0000000001, 64.01], make_q())[0] == [64, 65]
+    assert adjust.inflate([64.0000000001, 64.01], make_q("two_means"))[0] == [64, 65]
 
 
 def test_bonferroni():
     # formula: Bonferroni, alpha / k
-    assert adjust.alpha_for(make_q()) == (0.05, None)
-    alpha, step = adjust.alpha_for(make_q(comparisons=4))
+    assert adjust.alpha_for(make_q("two_means")) == (0.05, None)
+    alpha, step = adjust.alpha_for(make_q("two_means", adjustments={"comparisons": 4}))
     assert alpha == pytest.approx(0.0125)
     assert step == {
         "step": "bonferroni",
@@ -75,11 +69,14 @@ def test_bonferroni():
 
 def test_deflate_reverses_inflate():
     # common practice, no source: 80 enrolled with 20% dropout leave 64 analysable
-    effective, steps = adjust.deflate([80, 80], make_q(dropout=0.2))
+    effective, steps = adjust.deflate([80, 80], make_q("two_means", adjustments={"dropout": 0.2}))
     assert effective == pytest.approx([64.0, 64.0])
     assert [s["step"] for s in steps] == ["enrolled", "dropout"]
     effective, steps = adjust.deflate(
-        [156, 156], make_q(dropout=0.2, cluster={"mean_size": 20, "icc": 0.05})
+        [156, 156],
+        make_q(
+            "two_means", adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}}
+        ),
     )
     # formula: 156·0.8 / 1.95 = 64
     assert effective == pytest.approx([64.0, 64.0])
@@ -88,7 +85,7 @@ def test_deflate_reverses_inflate():
 
 def test_deflate_without_adjustments_is_identity():
     # common practice, no source
-    effective, steps = adjust.deflate([30, 45], make_q())
+    effective, steps = adjust.deflate([30, 45], make_q("two_means"))
     assert effective == [30.0, 45.0] and steps == [{"step": "enrolled", "per_arm": [30, 45]}]
 
 

@@ -9,50 +9,9 @@ import pytest
 from scipy import stats
 from statsmodels.stats.power import TTestIndPower, TTestPower
 
-from service.engine import adjust
-from service.engine.designs import FORMULAS, get
+from service.engine.designs import get
 from service.engine.errors import QuestionError
-
-_EFFECTS = {
-    "two_means": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-    "one_mean": {"difference": 0.5, "sd": 1.0},
-    "paired_mean": {"difference": 0.5, "sd_difference": 1.0},
-}
-
-
-def make_q(design: str, *, effect=None, hypothesis=None, adjustments=None, **overrides) -> dict:
-    """Build a normalized question (DEVELOPERS.md defaults) with the given overrides."""
-    q = {
-        "design": design,
-        "find": "sample_size",
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.80,
-        "sample_size": None,
-        "allocation_ratio": 1.0,
-        "effect": {**_EFFECTS[design], **(effect or {})},
-        "hypothesis": {
-            "kind": "superiority",
-            "margin": None,
-            "higher_is_better": True,
-            **(hypothesis or {}),
-        },
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1, **(adjustments or {})},
-        "method": "analytic",
-        "formula": FORMULAS[design][0],
-        "simulation": None,
-    }
-    if q["hypothesis"]["kind"] != "superiority":
-        q["sides"] = 1
-    q.update(overrides)
-    return q
-
-
-def answer(q: dict) -> tuple[list[float], list[int]]:
-    """Return the raw and the rounded-up n per arm for a question."""
-    raw = get(q["design"]).solve_n(q, q["alpha"]).per_arm
-    return raw, adjust.inflate(raw, q)[0]
-
+from tests.engine.questions import answer, make_q
 
 # --- two independent means -------------------------------------------------------------------
 

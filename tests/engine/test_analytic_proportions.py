@@ -3,57 +3,19 @@
 from __future__ import annotations
 
 import math
+from functools import partial
 
 import pytest
 from scipy import stats
 from statsmodels.stats.power import NormalIndPower
 
-from service.engine import adjust
-from service.engine.designs import FORMULAS, get
+from service.engine.designs import get
 from service.engine.errors import QuestionError
+from tests.engine.questions import answer
+from tests.engine.questions import make_q as _make_q
 
 DESIGN = get("two_proportions")
-
-
-def make_q(
-    design: str = "two_proportions", *, effect=None, hypothesis=None, adjustments=None, **overrides
-) -> dict:
-    """Build a normalized question (DEVELOPERS.md defaults) with the given overrides."""
-    q = {
-        "design": design,
-        "find": "sample_size",
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.80,
-        "sample_size": None,
-        "allocation_ratio": 1.0,
-        "effect": {
-            "p_control": 0.05,
-            "p_treatment": 0.10,
-            "continuity_correction": False,
-            **(effect or {}),
-        },
-        "hypothesis": {
-            "kind": "superiority",
-            "margin": None,
-            "higher_is_better": True,
-            **(hypothesis or {}),
-        },
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1, **(adjustments or {})},
-        "method": "analytic",
-        "formula": FORMULAS[design][0],
-        "simulation": None,
-    }
-    if q["hypothesis"]["kind"] != "superiority":
-        q["sides"] = 1
-    q.update(overrides)
-    return q
-
-
-def answer(q: dict) -> tuple[list[float], list[int]]:
-    """Return the raw and the rounded-up n per arm for a question."""
-    raw = DESIGN.solve_n(q, q["alpha"]).per_arm
-    return raw, adjust.inflate(raw, q)[0]
+make_q = partial(_make_q, "two_proportions")
 
 
 def p_for_h(p1: float, h: float) -> float:

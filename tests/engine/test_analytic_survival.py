@@ -3,53 +3,19 @@
 from __future__ import annotations
 
 import math
+from functools import partial
 
 import pytest
 from scipy import integrate, stats
 
 from service.engine import adjust
-from service.engine.designs import FORMULAS, get
+from service.engine.designs import get
 from service.engine.designs.survival import p_event
 from service.engine.errors import QuestionError
+from tests.engine.questions import make_q as _make_q
 
 DESIGN = get("survival_logrank")
-MEDIAN = 12.0
-
-
-def make_q(
-    design: str = "survival_logrank", *, effect=None, hypothesis=None, adjustments=None, **overrides
-) -> dict:
-    """Build a normalized question (DEVELOPERS.md defaults) with the given overrides."""
-    q = {
-        "design": design,
-        "find": "sample_size",
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.80,
-        "sample_size": None,
-        "allocation_ratio": 1.0,
-        "effect": {
-            "hazard_ratio": 0.75,
-            "hazard_control": math.log(2) / MEDIAN,
-            "median_control": MEDIAN,
-            "accrual_period": 24.0,
-            "follow_up": 12.0,
-            "loss_rate": 0.0,
-            **(effect or {}),
-        },
-        "hypothesis": {
-            "kind": "superiority",
-            "margin": None,
-            "higher_is_better": True,
-            **(hypothesis or {}),
-        },
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1, **(adjustments or {})},
-        "method": "analytic",
-        "formula": FORMULAS[design][0],
-        "simulation": None,
-    }
-    q.update(overrides)
-    return q
+make_q = partial(_make_q, "survival_logrank")
 
 
 @pytest.mark.parametrize(

@@ -15,57 +15,16 @@ from service.engine import (
     estimate_cost,
     verify,
 )
-from service.engine.designs import TESTS
-
-_BASE = {
-    "find": "sample_size",
-    "alpha": 0.05,
-    "sides": 2,
-    "target_power": 0.8,
-    "sample_size": None,
-    "allocation_ratio": 1.0,
-    "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-    "method": "analytic",
-    "simulation": None,
-}
-
-_DEFAULT_FORMULA = {
-    "two_means": "student",
-    "paired_mean": "noncentral_t",
-    "one_mean": "noncentral_t",
-    "two_proportions": "pooled_z",
-    "anova_oneway": "noncentral_f",
-    "correlation": "fisher_z",
-    "rank_sum": "noether",
-    "survival_logrank": "schoenfeld",
-}
-
-
-def build_question(design: str, effect: dict, **overrides) -> dict:
-    """A normalized question with the schema's defaults; nested dicts in overrides are merged."""
-    q = copy.deepcopy(_BASE)
-    q.update(design=design, effect=dict(effect), formula=_DEFAULT_FORMULA[design])
-    for key, value in overrides.items():
-        if isinstance(value, dict) and isinstance(q.get(key), dict):
-            q[key] = {**q[key], **value}
-        else:
-            q[key] = value
-    if q["method"] == "simulation":
-        sim = {"replicates": 10000, "seed": 20261201, "test": None, "data": None,
-               "decision_rule": "point", "chunk_size": 1000, "search_replicates": 2000}
-        sim.update(q.get("simulation") or {})
-        sim["test"] = sim["test"] or TESTS[design][0]
-        q["simulation"] = sim
-    return q
-
+from tests.engine.questions import make_q
 
 # --- analytic answers through the whole pipeline ------------------------------------------
 
 
 def test_two_means_reference_answer():
     # published 64: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided .05, power .80); recomputed
-    record = compute(build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}))
+    record = compute(
+        make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    )
     assert record["sample_size"]["per_arm"] == [64, 64]
     assert record["sample_size"]["total"] == 128
     base = [s for s in record["sample_size"]["steps"] if s["step"] == "base"][0]
@@ -78,9 +37,9 @@ def test_two_means_reference_answer():
 def test_adjustments_in_order_cluster_then_dropout():
     # formula: Donner & Klar (2000) design effect 1 + (20 − 1)·0.05 = 1.95; 64 → 125 per arm,
     # 7 clusters per arm; then ÷ (1 − 0.2), rounded up (common practice, no source): 125 / 0.8 = 156.25 → 157
-    q = build_question(
+    q = make_q(
         "two_means",
-        {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
         adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}, "comparisons": 1},
     )
     record = compute(q)
@@ -98,8 +57,11 @@ def test_bonferroni_split_comes_first():
     # against statsmodels TTestIndPower in the design tests)
     from statsmodels.stats.power import TTestIndPower
 
-    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-                       adjustments={"comparisons": 2})
+    q = make_q(
+        "two_means",
+        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        adjustments={"comparisons": 2},
+    )
     record = compute(q)
     first = record["sample_size"]["steps"][0]
     assert first["step"] == "bonferroni"
@@ -113,9 +75,12 @@ def test_find_power_removes_dropout_before_computing():
     # (statsmodels TTestIndPower as the reference library)
     from statsmodels.stats.power import TTestIndPower
 
-    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-                       find="power", target_power=None, sample_size={"per_arm": [75, 75]},
-                       adjustments={"dropout": 0.15})
+    q = make_q(
+        "two_means",
+        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        per_arm=[75, 75],
+        adjustments={"dropout": 0.15},
+    )
     record = compute(q)
     analysed = record["sample_size"]["analysed_per_arm"][0]
     assert analysed == pytest.approx(63.75)
@@ -128,8 +93,12 @@ def test_find_effect_reaches_target_power():
     # Table 2.4.1 gives n = 64 for d = 0.5); statsmodels TTestIndPower solves the same
     from statsmodels.stats.power import TTestIndPower
 
-    q = build_question("two_means", {"sd_control": 1.0, "sd_treatment": 1.0}, find="effect",
-                       sample_size={"per_arm": [64, 64]})
+    q = make_q(
+        "two_means",
+        effect={"sd_control": 1.0, "sd_treatment": 1.0},
+        find="effect",
+        per_arm=[64, 64],
+    )
     record = compute(q)
     expected = TTestIndPower().solve_power(nobs1=64, alpha=0.05, power=0.8)
     assert record["effect"]["field"] == "difference"
@@ -141,7 +110,7 @@ def test_find_effect_reaches_target_power():
 
 
 def test_record_is_sealed_and_canonical():
-    record = compute(build_question("correlation", {"r": 0.3, "r0": 0.0}))
+    record = compute(make_q("correlation", effect={"r": 0.3, "r0": 0.0}))
     assert verify(record)
     tampered = copy.deepcopy(record)
     tampered["sample_size"]["per_arm"] = [80]
@@ -152,13 +121,13 @@ def test_record_is_sealed_and_canonical():
 
 
 def test_record_has_no_clock_time():
-    a = canonical_json(compute(build_question("correlation", {"r": 0.3, "r0": 0.0})))
-    b = canonical_json(compute(build_question("correlation", {"r": 0.3, "r0": 0.0})))
+    a = canonical_json(compute(make_q("correlation", effect={"r": 0.3, "r0": 0.0})))
+    b = canonical_json(compute(make_q("correlation", effect={"r": 0.3, "r0": 0.0})))
     assert a == b
 
 
 def test_question_is_not_mutated():
-    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q = make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
     before = copy.deepcopy(q)
     compute(q)
     assert q == before
@@ -168,10 +137,11 @@ def test_question_is_not_mutated():
 
 
 def _sim_question(**sim):
-    return build_question(
-        "two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-        find="power", target_power=None, sample_size={"per_arm": [30, 30]},
-        method="simulation", simulation={"replicates": 4000, **sim},
+    return make_q(
+        "two_means",
+        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        per_arm=[30, 30],
+        simulation={"replicates": 4000, **sim},
     )
 
 
@@ -190,7 +160,9 @@ def test_simulated_power_matches_exact_and_is_reproducible():
 def test_different_seed_gives_different_digits():
     a = compute(_sim_question(seed=1))
     b = compute(_sim_question(seed=2))
-    assert a["power"]["estimate"] != b["power"]["estimate"] or a["type_i_error"] != b["type_i_error"]
+    assert (
+        a["power"]["estimate"] != b["power"]["estimate"] or a["type_i_error"] != b["type_i_error"]
+    )
 
 
 def test_progress_and_cancel_hooks():
@@ -222,7 +194,7 @@ def test_simulation_without_seed_is_a_question_error():
 
 
 def test_unknown_design_is_a_question_error():
-    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q = make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
     q["design"] = "three_means"
     with pytest.raises(QuestionError) as info:
         compute(q)
@@ -230,7 +202,7 @@ def test_unknown_design_is_a_question_error():
 
 
 def test_numeric_failure_is_typed():
-    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q = make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
     q["effect"]["sd_control"] = "not a number"  # bypasses the schema on purpose
     with pytest.raises(EngineError):
         compute(q)

@@ -8,6 +8,7 @@ from statsmodels.stats.proportion import proportion_confint
 
 from service.engine import search, simulate
 from service.engine.errors import QuestionError
+from tests.engine.questions import make_q
 
 
 def curve(shift: float = 0.0):
@@ -132,29 +133,8 @@ def test_mcse_reference():
 
 
 def _two_means(**sim):
-    return {
-        "design": "two_means",
-        "find": "sample_size",
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.8,
-        "sample_size": None,
-        "allocation_ratio": 1.0,
-        "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-        "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-        "method": "simulation",
-        "simulation": {
-            "replicates": 10000,
-            "seed": 11,
-            "test": "student_t",
-            "data": None,
-            "decision_rule": "point",
-            "chunk_size": 1000,
-            "search_replicates": 2000,
-            **sim,
-        },
-    }
+    """The two-means simulation question these tests search on (seed 11, Student t)."""
+    return make_q("two_means", simulation={"seed": 11, "test": "student_t", **sim})
 
 
 def test_simulated_search_starts_from_the_analytic_start():

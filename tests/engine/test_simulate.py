@@ -12,39 +12,29 @@ from statsmodels.stats.power import TTestIndPower
 
 from service.engine import simulate
 from service.engine.errors import Cancelled, QuestionError
+from tests.engine.questions import make_q
 
 NORMAL_EFFECT = {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}
 
 
 def question(design="two_means", effect=None, *, find="power", per_arm=(30, 30), **sim) -> dict:
-    """A normalized simulation question with the schema's defaults (DEVELOPERS.md)."""
-    q = {
-        "design": design,
-        "find": find,
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.8 if find == "sample_size" else None,
-        "sample_size": {"per_arm": list(per_arm)} if find == "power" else None,
-        "allocation_ratio": 1.0,
-        "effect": dict(NORMAL_EFFECT if effect is None else effect),
-        "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-        "method": "simulation",
-        "simulation": {
-            "replicates": 4000,
-            "seed": 20240611,
-            "test": None,
-            "data": None,
-            "decision_rule": "point",
-            "chunk_size": 1000,
-            "search_replicates": 2000,
-        },
+    """A simulation question at this file's seed and replicates; other keywords go to ``simulation``.
+
+    ``sides``, ``hypothesis``, ``allocation_ratio`` and ``target_power`` are question-level keys.
+    """
+    top = {
+        k: sim.pop(k)
+        for k in ("sides", "hypothesis", "allocation_ratio", "target_power")
+        if k in sim
     }
-    for key in ("sides", "hypothesis", "allocation_ratio", "target_power"):
-        if key in sim:
-            q[key] = sim.pop(key)
-    q["simulation"].update(sim)
-    return q
+    return make_q(
+        design,
+        effect=effect,
+        find=find,
+        per_arm=per_arm if find == "power" else None,
+        simulation={"replicates": 4000, "seed": 20240611, **sim},
+        **top,
+    )
 
 
 def run(q, **kw):

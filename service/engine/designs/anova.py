@@ -7,8 +7,9 @@ import math
 from scipy import stats
 
 from ..errors import QuestionError
-from ..quantiles import effect_value, power_unreachable, solve_increasing, solve_n_or_raise
-from . import FORMULAS, TESTS, Design, Solution
+from ..quantiles import effect_value, solve_effect_or_raise, solve_n_or_raise
+from . import Solution
+from .common import analytic_method, check_formula, check_superiority, design_from, positive_effect
 
 
 def _groups(q: dict) -> int:
@@ -21,17 +22,8 @@ def _groups(q: dict) -> int:
 
 def _check(q: dict) -> None:
     """Refuse formulas and hypotheses this design does not offer."""
-    formula = q.get("formula") or FORMULAS["anova_oneway"][0]
-    if formula not in FORMULAS["anova_oneway"]:
-        raise QuestionError(
-            "formula",
-            f"'{formula}' is not offered for anova_oneway; use one of {list(FORMULAS['anova_oneway'])}",
-        )
-    kind = (q.get("hypothesis") or {}).get("kind", "superiority")
-    if kind != "superiority":
-        raise QuestionError(
-            "hypothesis.kind", f"'{kind}' is not offered for anova_oneway; only superiority"
-        )
+    check_formula(q, "anova_oneway")
+    check_superiority(q, "anova_oneway")
 
 
 def f_power(f: float, per_arm: list[float], alpha: float) -> float:
@@ -57,9 +49,7 @@ def solve_n(q: dict, alpha: float) -> Solution:
     """Return the unrounded n per group reaching the target power (root of the exact F curve)."""
     _check(q)
     k = _groups(q)
-    f = effect_value(q, "cohens_f")
-    if not f > 0:
-        raise QuestionError("effect.cohens_f", f"must be greater than 0; got {f:g}")
+    f = positive_effect(q, "cohens_f")
     # Start at 2 per group: the noncentral F is unreliable at error df near 0.
     n = solve_n_or_raise(
         lambda n: f_power(f, [n] * k, alpha),
@@ -85,37 +75,26 @@ def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
     """Return the smallest Cohen's f reaching the target power at the given n per group."""
     _check(q)
     sizes = [float(n) for n in per_arm]
-    target = float(q["target_power"])
-    f = solve_increasing(
-        lambda x: f_power(x, sizes, alpha), target, 0.0, hi=4.0 / math.sqrt(sum(sizes))
+    f = solve_effect_or_raise(
+        lambda x: f_power(x, sizes, alpha),
+        float(q["target_power"]),
+        per_arm,
+        hi=4.0 / math.sqrt(sum(sizes)),
     )
-    if f is None:
-        raise power_unreachable("sample_size.per_arm", target, per_arm)
     return {"field": "cohens_f", "value": f}
 
 
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
-    return {
-        "kind": "analytic",
-        "formula": "noncentral F (one-way ANOVA), λ = f²·N",
-        "reference": "Cohen (1988), ch. 8",
-        "notes": [
+    return analytic_method(
+        "noncentral F (one-way ANOVA), λ = f²·N",
+        "Cohen (1988), ch. 8",
+        [
             "df = (k − 1, N − k) with N the total over k equal groups; f is the SD of the group "
             "means (divisor k) over the common within-group SD.",
             "The F test is two-sided by nature; the sides setting does not apply.",
         ],
-    }
+    )
 
 
-DESIGN = Design(
-    name="anova_oneway",
-    formulas=FORMULAS["anova_oneway"],
-    tests=TESTS["anova_oneway"],
-    arms=arms,
-    allocation=allocation,
-    solve_n=solve_n,
-    power=power,
-    solve_effect=solve_effect,
-    describe=describe,
-)
+DESIGN = design_from("anova_oneway", globals())

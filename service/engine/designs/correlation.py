@@ -5,44 +5,41 @@ from __future__ import annotations
 import math
 
 from ..errors import QuestionError
-from ..quantiles import normal_power, power_unreachable, root, z, z_alpha
-from . import FORMULAS, TESTS, Design, Solution
+from ..quantiles import normal_effect, normal_power, power_unreachable, z_alpha, z_sum
+from . import Solution
+from .common import (
+    analytic_method,
+    check_formula,
+    check_superiority,
+    design_from,
+    effect_between,
+    hypothesis,
+    one_arm,
+    one_arm_allocation,
+    sides,
+)
+
+arms = one_arm
+allocation = one_arm_allocation
 
 
 def _r(q: dict, name: str, default: float | None = None) -> float:
     """Return a correlation from the effect, checked to lie strictly between −1 and 1."""
-    eff = q.get("effect") or {}
-    r = float(eff[name]) if eff.get(name) is not None else default
-    if r is None:
-        raise QuestionError(f"effect.{name}", "is required for this question")
-    if not -1.0 < r < 1.0:
-        raise QuestionError(f"effect.{name}", f"must be strictly between -1 and 1; got {r:g}")
-    return r
+    return effect_between(q, name, -1.0, 1.0, default=default)
 
 
 def _check(q: dict) -> None:
     """Refuse formulas and hypotheses this design does not offer."""
-    formula = q.get("formula") or FORMULAS["correlation"][0]
-    if formula not in FORMULAS["correlation"]:
-        raise QuestionError(
-            "formula",
-            f"'{formula}' is not offered for correlation; use one of {list(FORMULAS['correlation'])}",
-        )
-    kind = (q.get("hypothesis") or {}).get("kind", "superiority")
-    if kind != "superiority":
-        raise QuestionError(
-            "hypothesis.kind", f"'{kind}' is not offered for correlation; only superiority"
-        )
+    check_formula(q, "correlation")
+    check_superiority(q, "correlation")
 
 
-def arms(q: dict) -> int:
-    """Return the number of arms (one sample of pairs)."""
-    return 1
-
-
-def allocation(q: dict) -> list[float]:
-    """Return the relative arm sizes ([1])."""
-    return [1.0]
+def _pairs(per_arm: list[float]) -> float:
+    """Return the number of pairs, checked to exceed 3 (Fisher z's variance is 1/(n − 3))."""
+    n = float(per_arm[0])
+    if not n > 3:
+        raise QuestionError("sample_size.per_arm", f"Fisher z needs more than 3 pairs; got {n:g}")
+    return n
 
 
 def solve_n(q: dict, alpha: float) -> Solution:
@@ -52,8 +49,7 @@ def solve_n(q: dict, alpha: float) -> Solution:
     if r == r0:
         raise QuestionError("effect.r", f"must differ from r0 ({r0:g}); got {r:g}")
     shift = abs(math.atanh(r) - math.atanh(r0))
-    z_a = z_alpha(alpha, int(q.get("sides", 2)))
-    n = ((z_a + z(float(q["target_power"]))) / shift) ** 2 + 3.0
+    n = (z_sum(alpha, sides(q), float(q["target_power"])) / shift) ** 2 + 3.0
     return Solution(per_arm=[n], extra={"fisher_z_difference": shift})
 
 
@@ -61,26 +57,20 @@ def power(q: dict, per_arm: list[float], alpha: float) -> float:
     """Return the Fisher-z power at the given number of pairs (n > 3)."""
     _check(q)
     r, r0 = _r(q, "r"), _r(q, "r0", 0.0)
-    n = float(per_arm[0])
-    if not n > 3:
-        raise QuestionError("sample_size.per_arm", f"Fisher z needs more than 3 pairs; got {n:g}")
+    n = _pairs(per_arm)
     shift = abs(math.atanh(r) - math.atanh(r0)) * math.sqrt(n - 3.0)
-    return normal_power(shift, z_alpha(alpha, int(q.get("sides", 2))), int(q.get("sides", 2)))
+    return normal_power(shift, z_alpha(alpha, sides(q)), sides(q))
 
 
 def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
     """Return the correlation nearest r0 (above it unless lower is better) reaching target power."""
     _check(q)
     r0 = _r(q, "r0", 0.0)
-    n = float(per_arm[0])
-    if not n > 3:
-        raise QuestionError("sample_size.per_arm", f"Fisher z needs more than 3 pairs; got {n:g}")
+    n = _pairs(per_arm)
     target = float(q["target_power"])
-    sides = int(q.get("sides", 2))
-    z_a = z_alpha(alpha, sides)
     # Solve on the z scale (unbounded), then map back; the far tail keeps this a root search.
-    x = root(lambda s: normal_power(s * math.sqrt(n - 3.0), z_a, sides) - target, 0.0, 50.0)
-    higher = bool((q.get("hypothesis") or {}).get("higher_is_better", True))
+    x = normal_effect(math.sqrt(n - 3.0), z_alpha(alpha, sides(q)), sides(q), target, 50.0)
+    higher = hypothesis(q)[2]
     value = math.tanh(math.atanh(r0) + (x if higher else -x))
     if not -1.0 < value < 1.0:
         raise power_unreachable("sample_size.per_arm", target, per_arm)
@@ -89,26 +79,15 @@ def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
 
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
-    return {
-        "kind": "analytic",
-        "formula": "Fisher z transformation, normal approximation",
-        "reference": "Fisher (1921); Cohen (1988), ch. 3",
-        "notes": [
+    return analytic_method(
+        "Fisher z transformation, normal approximation",
+        "Fisher (1921); Cohen (1988), ch. 3",
+        [
             "atanh(r̂) is taken as normal with variance 1/(n − 3).",
             "For strong correlations Fisher z and Cohen's table part company: at r = 0.5 the "
             "formula gives 29.01 (30 rounded up) where Cohen (1988, Table 3.4.1) prints 28.",
         ],
-    }
+    )
 
 
-DESIGN = Design(
-    name="correlation",
-    formulas=FORMULAS["correlation"],
-    tests=TESTS["correlation"],
-    arms=arms,
-    allocation=allocation,
-    solve_n=solve_n,
-    power=power,
-    solve_effect=solve_effect,
-    describe=describe,
-)
+DESIGN = design_from("correlation", globals())

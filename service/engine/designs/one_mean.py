@@ -5,42 +5,37 @@ from __future__ import annotations
 import math
 
 from ..errors import QuestionError
-from ..quantiles import effect_value, power_unreachable, solve_increasing, solve_n_or_raise, t_power
-from . import TESTS, Design, Solution
+from ..quantiles import effect_value, solve_effect_or_raise, solve_n_or_raise, t_power
+from . import Design, Solution
+from .common import (
+    analytic_method,
+    check_formula,
+    check_superiority,
+    design_from,
+    hypothesis,
+    one_arm,
+    one_arm_allocation,
+    positive_effect,
+    sides,
+)
 
 
-def _make(name: str, sd_field: str, formulas: tuple[str, ...]) -> Design:
+def _make(name: str, sd_field: str) -> Design:
     """Build the design for a single-sample t test whose SD is ``effect[sd_field]``."""
 
-    def _check(q: dict) -> tuple[float, float]:
-        """Return (sd, sides), refusing hypotheses and formulas this design lacks."""
-        kind = (q.get("hypothesis") or {}).get("kind", "superiority")
-        if kind != "superiority":
-            raise QuestionError(
-                "hypothesis.kind", f"'{kind}' is not offered for {name}; only superiority"
-            )
-        formula = q.get("formula") or formulas[0]
-        if formula not in formulas:
-            raise QuestionError(
-                "formula", f"'{formula}' is not offered for {name}; use one of {list(formulas)}"
-            )
-        sd = effect_value(q, sd_field)
-        if not sd > 0:
-            raise QuestionError(f"effect.{sd_field}", f"must be greater than 0; got {sd:g}")
-        return sd, float(q.get("sides", 2))
+    def _check(q: dict) -> float:
+        """Return the SD, refusing hypotheses and formulas this design lacks."""
+        check_superiority(q, name)
+        check_formula(q, name)
+        return positive_effect(q, sd_field)
 
     def _power_at(q: dict, delta: float, n: float, alpha: float) -> float:
         """Return the exact power for true difference ``delta`` at n."""
-        sd, sides = _check(q)
-        return t_power(abs(delta) * math.sqrt(n) / sd, n - 1.0, alpha, int(sides))
+        sd = _check(q)
+        return t_power(abs(delta) * math.sqrt(n) / sd, n - 1.0, alpha, sides(q))
 
-    def arms(q: dict) -> int:
-        """Return the number of arms (one)."""
-        return 1
-
-    def allocation(q: dict) -> list[float]:
-        """Return the relative arm sizes ([1])."""
-        return [1.0]
+    arms = one_arm
+    allocation = one_arm_allocation
 
     def solve_n(q: dict, alpha: float) -> Solution:
         """Return the unrounded n reaching the target power (root of the exact curve)."""
@@ -64,15 +59,15 @@ def _make(name: str, sd_field: str, formulas: tuple[str, ...]) -> Design:
 
     def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
         """Return the smallest difference reaching the target power at n."""
-        sd, _ = _check(q)
+        sd = _check(q)
         n = float(per_arm[0])
-        target = float(q["target_power"])
-        x = solve_increasing(
-            lambda d: _power_at(q, d, n, alpha), target, 0.0, hi=4.0 * sd / math.sqrt(n)
+        x = solve_effect_or_raise(
+            lambda d: _power_at(q, d, n, alpha),
+            float(q["target_power"]),
+            per_arm,
+            hi=4.0 * sd / math.sqrt(n),
         )
-        if x is None:
-            raise power_unreachable("sample_size.per_arm", target, per_arm)
-        higher = bool((q.get("hypothesis") or {}).get("higher_is_better", True))
+        higher = hypothesis(q)[2]
         return {"field": "difference", "value": x if higher else -x}
 
     def describe(q: dict) -> dict:
@@ -88,27 +83,15 @@ def _make(name: str, sd_field: str, formulas: tuple[str, ...]) -> Design:
                 "The SD is that of the differences; from a common SD σ and within-pair "
                 "correlation ρ it is σ·√(2(1 − ρ))."
             )
-        return {
-            "kind": "analytic",
-            "formula": "noncentral t (one sample)"
-            if name == "one_mean"
-            else "noncentral t (paired differences)",
-            "reference": "Cohen (1988), ch. 2; Guenther (1981), Am Stat 35:243",
-            "notes": notes,
-        }
+        formula = "one sample" if name == "one_mean" else "paired differences"
+        return analytic_method(
+            f"noncentral t ({formula})",
+            "Cohen (1988), ch. 2; Guenther (1981), Am Stat 35:243",
+            notes,
+        )
 
-    return Design(
-        name=name,
-        formulas=formulas,
-        tests=TESTS[name],
-        arms=arms,
-        allocation=allocation,
-        solve_n=solve_n,
-        power=power,
-        solve_effect=solve_effect,
-        describe=describe,
-    )
+    return design_from(name, locals())
 
 
-DESIGN = _make("one_mean", "sd", ("noncentral_t",))
-PAIRED = _make("paired_mean", "sd_difference", ("noncentral_t",))
+DESIGN = _make("one_mean", "sd")
+PAIRED = _make("paired_mean", "sd_difference")

@@ -7,9 +7,19 @@ import math
 from scipy import stats
 
 from ..errors import QuestionError
-from ..quantiles import effect_value, normal_power, power_unreachable, root, z, z_alpha
+from ..quantiles import normal_power, power_unreachable, root, z, z_alpha
 from . import FORMULAS as _ALL_FORMULAS
-from . import TESTS, Design, Solution
+from . import Solution
+from .common import (
+    analytic_method,
+    check_formula,
+    design_from,
+    effect_between,
+    hypothesis,
+    sides,
+    two_arm_allocation,
+    two_arms,
+)
 
 # "unpooled_z" is offered for superiority once the registry lists it (the NI/equivalence
 # answers always use the unpooled variance).
@@ -18,30 +28,19 @@ FORMULAS = tuple(_ALL_FORMULAS["two_proportions"]) + tuple(
 )
 _EDGE = 1e-9
 
-
-def _hypothesis(q: dict) -> tuple[str, float | None, bool]:
-    """Return (kind, margin, higher_is_better) with the defaults of a superiority question."""
-    h = q.get("hypothesis") or {}
-    return h.get("kind", "superiority"), h.get("margin"), bool(h.get("higher_is_better", True))
+arms = two_arms
+allocation = two_arm_allocation
 
 
 def _prob(q: dict, name: str) -> float:
     """Return a proportion from the effect, checked to lie strictly between 0 and 1."""
-    p = effect_value(q, name)
-    if not 0.0 < p < 1.0:
-        raise QuestionError(f"effect.{name}", f"must be strictly between 0 and 1; got {p:g}")
-    return p
+    return effect_between(q, name, 0.0, 1.0)
 
 
 def _setup(q: dict) -> tuple[str, str, float | None, bool, bool]:
     """Return (formula, kind, margin, higher_is_better, continuity) after checking they combine."""
-    formula = q.get("formula") or FORMULAS[0]
-    if formula not in FORMULAS:
-        raise QuestionError(
-            "formula",
-            f"'{formula}' is not offered for two_proportions; use one of {list(FORMULAS)}",
-        )
-    kind, margin, higher = _hypothesis(q)
+    formula = check_formula(q, "two_proportions", FORMULAS)
+    kind, margin, higher = hypothesis(q)
     cc = bool((q.get("effect") or {}).get("continuity_correction", False))
     if kind not in ("superiority", "noninferiority", "equivalence"):
         raise QuestionError("hypothesis.kind", f"'{kind}' is not offered for two_proportions")
@@ -68,22 +67,22 @@ def _var1(p1: float, p2: float, n1: float, n2: float) -> float:
 def _power_at(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: float) -> float:
     """Return the power for true proportions p1 (control) and p2 (treatment) at n1 and n2."""
     formula, kind, margin, higher, cc = _setup(q)
-    sides = int(q.get("sides", 2))
+    tails = sides(q)
     if kind == "superiority":
-        z_a = z_alpha(alpha, sides)
+        z_a = z_alpha(alpha, tails)
         if formula == "arcsine":
             h = 2 * math.asin(math.sqrt(p2)) - 2 * math.asin(math.sqrt(p1))
-            return normal_power(h / math.sqrt(1 / n1 + 1 / n2), z_a, sides)
+            return normal_power(h / math.sqrt(1 / n1 + 1 / n2), z_a, tails)
         diff = abs(p2 - p1)
         sd1 = math.sqrt(_var1(p1, p2, n1, n2))
         if formula == "unpooled_z":
-            return normal_power(diff / sd1, z_a, sides)
+            return normal_power(diff / sd1, z_a, tails)
         pbar = (n1 * p1 + n2 * p2) / (n1 + n2)
         sd0 = math.sqrt(pbar * (1 - pbar) * (1 / n1 + 1 / n2))
         # Fleiss' correction shrinks the observed difference by (1/n1 + 1/n2)/2.
         k = (1 / n1 + 1 / n2) / 2 if cc else 0.0
         power = stats.norm.cdf((diff - k - z_a * sd0) / sd1)
-        if sides == 2:
+        if tails == 2:
             power += stats.norm.cdf((-diff - k - z_a * sd0) / sd1)
         return float(min(power, 1.0))
     z_a = z(1 - alpha)
@@ -121,27 +120,17 @@ def _check_effect(q: dict, p1: float, p2: float) -> None:
         )
 
 
-def allocation(q: dict) -> list[float]:
-    """Return the relative arm sizes [control, treatment]."""
-    return [1.0, float(q.get("allocation_ratio") or 1.0)]
-
-
-def arms(q: dict) -> int:
-    """Return the number of arms (two)."""
-    return 2
-
-
 def solve_n(q: dict, alpha: float) -> Solution:
     """Return the unrounded n per arm from the closed-form formula (root finding for equivalence)."""
     formula, kind, margin, higher, cc = _setup(q)
     p1, p2 = _prob(q, "p_control"), _prob(q, "p_treatment")
     _check_effect(q, p1, p2)
     r = allocation(q)[1]
-    sides = int(q.get("sides", 2))
+    tails = sides(q)
     z_b = z(float(q["target_power"]))
     extra: dict = {}
     if kind == "superiority":
-        z_a = z_alpha(alpha, sides)
+        z_a = z_alpha(alpha, tails)
         if formula == "arcsine":
             h = 2 * math.asin(math.sqrt(p2)) - 2 * math.asin(math.sqrt(p1))
             n1 = (1 + 1 / r) * ((z_a + z_b) / h) ** 2
@@ -237,53 +226,37 @@ def describe(q: dict) -> dict:
         what = (
             "non-inferiority" if kind == "noninferiority" else "equivalence (two one-sided tests)"
         )
-        return {
-            "kind": "analytic",
-            "formula": f"normal approximation, unpooled variance, {what}",
-            "reference": "Chow, Shao & Wang (2008), ch. 4",
-            "notes": [
+        return analytic_method(
+            f"normal approximation, unpooled variance, {what}",
+            "Chow, Shao & Wang (2008), ch. 4",
+            [
                 f"One-sided tests at alpha against the margin {margin:g} on the difference "
                 "p_treatment − p_control."
             ],
-        }
+        )
     if formula == "arcsine":
-        return {
-            "kind": "analytic",
-            "formula": "arcsine transformation (Cohen's h)",
-            "reference": "Cohen (1988), ch. 6",
-            "notes": ["h = 2·asin√p_treatment − 2·asin√p_control; Var(2·asin√p̂) ≈ 1/n."],
-        }
+        return analytic_method(
+            "arcsine transformation (Cohen's h)",
+            "Cohen (1988), ch. 6",
+            ["h = 2·asin√p_treatment − 2·asin√p_control; Var(2·asin√p̂) ≈ 1/n."],
+        )
     if formula == "unpooled_z":
-        return {
-            "kind": "analytic",
-            "formula": "normal approximation, unpooled variance",
-            "reference": "Chow, Shao & Wang (2008), ch. 4",
-            "notes": ["The variance under both hypotheses is p1(1 − p1)/n1 + p2(1 − p2)/n2."],
-        }
+        return analytic_method(
+            "normal approximation, unpooled variance",
+            "Chow, Shao & Wang (2008), ch. 4",
+            ["The variance under both hypotheses is p1(1 − p1)/n1 + p2(1 − p2)/n2."],
+        )
     notes = ["Pooled variance under H0, unpooled under the alternative."]
     if cc:
         notes.append(
             "Fleiss continuity correction: n = n′/4·(1 + √(1 + 2(r + 1)/(r·n′·|Δ|)))², "
             "which is n′/4·(1 + √(1 + 4/(n′·|Δ|)))² for equal arms."
         )
-    return {
-        "kind": "analytic",
-        "formula": "normal approximation, pooled variance"
-        + (", continuity corrected" if cc else ""),
-        "reference": "Fleiss, Levin & Paik (2003), ch. 4",
-        "notes": notes,
-    }
+    return analytic_method(
+        "normal approximation, pooled variance" + (", continuity corrected" if cc else ""),
+        "Fleiss, Levin & Paik (2003), ch. 4",
+        notes,
+    )
 
 
-DESIGN = Design(
-    name="two_proportions",
-    formulas=FORMULAS,
-    tests=TESTS["two_proportions"],
-    arms=arms,
-    allocation=allocation,
-    solve_n=solve_n,
-    power=power,
-    solve_effect=solve_effect,
-    describe=describe,
-    warnings_for=warnings_for,
-)
+DESIGN = design_from("two_proportions", globals(), formulas=FORMULAS)

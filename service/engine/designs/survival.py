@@ -5,29 +5,30 @@ from __future__ import annotations
 import math
 
 from ..errors import QuestionError
-from ..quantiles import effect_value, normal_power, power_unreachable, root, z, z_alpha
-from . import FORMULAS, TESTS, Design, Solution
+from ..quantiles import effect_value, normal_power, power_unreachable, root, z_alpha, z_sum
+from . import Solution
+from .common import (
+    analytic_method,
+    check_formula,
+    check_superiority,
+    design_from,
+    positive_effect,
+    sides,
+    two_arm_allocation,
+    two_arms,
+)
 
-_FORMULAS = FORMULAS["survival_logrank"]
 _EPS = 1e-9
+
+arms = two_arms
+allocation = two_arm_allocation
 
 
 def _setup(q: dict) -> dict:
     """Return the checked survival inputs (formula, hazards, accrual, follow-up, loss)."""
-    formula = q.get("formula") or _FORMULAS[0]
-    if formula not in _FORMULAS:
-        raise QuestionError(
-            "formula",
-            f"'{formula}' is not offered for survival_logrank; use one of {list(_FORMULAS)}",
-        )
-    kind = (q.get("hypothesis") or {}).get("kind", "superiority")
-    if kind != "superiority":
-        raise QuestionError(
-            "hypothesis.kind", f"'{kind}' is not offered for survival_logrank; only superiority"
-        )
-    lam = effect_value(q, "hazard_control")
-    if not lam > 0:
-        raise QuestionError("effect.hazard_control", f"must be greater than 0; got {lam:g}")
+    formula = check_formula(q, "survival_logrank")
+    check_superiority(q, "survival_logrank")
+    lam = positive_effect(q, "hazard_control")
     eff = q.get("effect") or {}
     out = {"formula": formula, "hazard_control": lam}
     for name in ("accrual_period", "follow_up", "loss_rate"):
@@ -60,12 +61,12 @@ def p_event(hazard: float, accrual: float, follow_up: float, loss: float = 0.0) 
     return hazard / theta * (1.0 - not_seen)
 
 
-def _events(formula: str, hr: float, r: float, z_sum: float) -> float:
+def _events(formula: str, hr: float, r: float, z_total: float) -> float:
     """Return the events needed; r is the treatment:control allocation."""
     if formula == "freedman":
-        return z_sum**2 * (1.0 + r * hr) ** 2 / (r * (1.0 - hr) ** 2)
+        return z_total**2 * (1.0 + r * hr) ** 2 / (r * (1.0 - hr) ** 2)
     p = 1.0 / (1.0 + r)
-    return z_sum**2 / (p * (1.0 - p) * math.log(hr) ** 2)
+    return z_total**2 / (p * (1.0 - p) * math.log(hr) ** 2)
 
 
 def _shift(formula: str, hr: float, r: float, events: float) -> float:
@@ -83,23 +84,12 @@ def _p_events(s: dict, hr: float) -> tuple[float, float]:
     return p_event(lam, a, f, loss), p_event(lam * hr, a, f, loss)
 
 
-def arms(q: dict) -> int:
-    """Return the number of arms (two)."""
-    return 2
-
-
-def allocation(q: dict) -> list[float]:
-    """Return the relative arm sizes [control, treatment]."""
-    return [1.0, float(q.get("allocation_ratio") or 1.0)]
-
-
 def solve_n(q: dict, alpha: float) -> Solution:
     """Return the unrounded subjects per arm from the required events and P(event) per arm."""
     s = _setup(q)
     hr = _hr(q)
     r = allocation(q)[1]
-    z_sum = z_alpha(alpha, int(q.get("sides", 2))) + z(float(q["target_power"]))
-    raw = _events(s["formula"], hr, r, z_sum)
+    raw = _events(s["formula"], hr, r, z_sum(alpha, sides(q), float(q["target_power"])))
     required = int(math.ceil(raw - _EPS))
     pc, pt = _p_events(s, hr)
     mean = (pc + r * pt) / (1.0 + r)
@@ -120,8 +110,8 @@ def _power_at(q: dict, hr: float, per_arm: list[float], alpha: float) -> float:
     n1, n2 = float(per_arm[0]), float(per_arm[1])
     pc, pt = _p_events(s, hr)
     events = n1 * pc + n2 * pt
-    sides = int(q.get("sides", 2))
-    return normal_power(_shift(s["formula"], hr, n2 / n1, events), z_alpha(alpha, sides), sides)
+    shift = _shift(s["formula"], hr, n2 / n1, events)
+    return normal_power(shift, z_alpha(alpha, sides(q)), sides(q))
 
 
 def power(q: dict, per_arm: list[float], alpha: float) -> float:
@@ -171,28 +161,16 @@ def describe(q: dict) -> dict:
     else:
         name = "log-rank events by Schoenfeld, (z_a + z_b)² / (p(1 − p)·ln²HR)"
         ref = "Schoenfeld (1983), Biometrics 39:499; Lachin & Foulkes (1986), Biometrics 42:507"
-    return {
-        "kind": "analytic",
-        "formula": name,
-        "reference": ref,
-        "notes": [
+    return analytic_method(
+        name,
+        ref,
+        [
             "Subjects = required events ÷ the allocation-weighted mean P(event); P(event) assumes "
             "exponential survival, uniform accrual over the accrual period, further follow-up "
             "after it, and exponential loss to follow-up as a competing risk.",
             "r is the treatment:control allocation and p = 1/(1 + r) the control share.",
         ],
-    }
+    )
 
 
-DESIGN = Design(
-    name="survival_logrank",
-    formulas=_FORMULAS,
-    tests=TESTS["survival_logrank"],
-    arms=arms,
-    allocation=allocation,
-    solve_n=solve_n,
-    power=power,
-    solve_effect=solve_effect,
-    describe=describe,
-    warnings_for=warnings_for,
-)
+DESIGN = design_from("survival_logrank", globals())

@@ -11,41 +11,34 @@ from ..quantiles import (
     effect_value,
     power_unreachable,
     root,
-    solve_increasing,
+    solve_effect_or_raise,
     solve_n_or_raise,
     t_power,
 )
-from . import FORMULAS as _ALL_FORMULAS
-from . import TESTS, Design, Solution
+from . import Solution
+from .common import (
+    analytic_method,
+    check_formula,
+    design_from,
+    hypothesis,
+    positive_effect,
+    sides,
+    two_arm_allocation,
+    two_arms,
+)
 
-FORMULAS = _ALL_FORMULAS["two_means"]
-
-
-def _hypothesis(q: dict) -> tuple[str, float | None, bool]:
-    """Return (kind, margin, higher_is_better) with the defaults of a superiority question."""
-    h = q.get("hypothesis") or {}
-    return h.get("kind", "superiority"), h.get("margin"), bool(h.get("higher_is_better", True))
+arms = two_arms
+allocation = two_arm_allocation
 
 
 def _formula(q: dict) -> str:
     """Return the formula name, refusing any this module does not offer."""
-    formula = q.get("formula") or "student"
-    if formula not in FORMULAS:
-        raise QuestionError(
-            "formula", f"'{formula}' is not offered for two_means; use one of {list(FORMULAS)}"
-        )
-    return formula
+    return check_formula(q, "two_means")
 
 
 def _sds(q: dict) -> tuple[float, float]:
     """Return (sd_control, sd_treatment), both checked positive."""
-    sds = []
-    for name in ("sd_control", "sd_treatment"):
-        sd = effect_value(q, name)
-        if not sd > 0:
-            raise QuestionError(f"effect.{name}", f"must be greater than 0; got {sd:g}")
-        sds.append(sd)
-    return sds[0], sds[1]
+    return positive_effect(q, "sd_control"), positive_effect(q, "sd_treatment")
 
 
 def _se_df(formula: str, s1: float, s2: float, n1: float, n2: float) -> tuple[float, float]:
@@ -86,9 +79,9 @@ def _power_at(q: dict, delta: float, n1: float, n2: float, alpha: float) -> floa
     formula = _formula(q)
     s1, s2 = _sds(q)
     se, df = _se_df(formula, s1, s2, n1, n2)
-    kind, margin, higher = _hypothesis(q)
+    kind, margin, higher = hypothesis(q)
     if kind == "superiority":
-        return t_power(abs(delta) / se, df, alpha, int(q.get("sides", 2)))
+        return t_power(abs(delta) / se, df, alpha, sides(q))
     if kind == "noninferiority":
         sign = 1.0 if higher else -1.0
         return t_power(sign * (delta - margin) / se, df, alpha, 1)
@@ -97,7 +90,7 @@ def _power_at(q: dict, delta: float, n1: float, n2: float, alpha: float) -> floa
 
 def _check_effect(q: dict, delta: float) -> None:
     """Refuse a difference that no sample size can turn into the target power."""
-    kind, margin, higher = _hypothesis(q)
+    kind, margin, higher = hypothesis(q)
     if kind == "superiority":
         if delta == 0:
             raise QuestionError(
@@ -123,16 +116,6 @@ def _check_effect(q: dict, delta: float) -> None:
             )
     else:
         raise QuestionError("hypothesis.kind", f"'{kind}' is not offered for two_means")
-
-
-def allocation(q: dict) -> list[float]:
-    """Return the relative arm sizes [control, treatment]."""
-    return [1.0, float(q.get("allocation_ratio") or 1.0)]
-
-
-def arms(q: dict) -> int:
-    """Return the number of arms (two)."""
-    return 2
 
 
 def solve_n(q: dict, alpha: float) -> Solution:
@@ -162,20 +145,22 @@ def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
     """Return the smallest difference (largest, for equivalence) reaching the target power."""
     n1, n2 = float(per_arm[0]), float(per_arm[1])
     target = float(q["target_power"])
-    kind, margin, higher = _hypothesis(q)
+    kind, margin, higher = hypothesis(q)
     sign = 1.0 if higher else -1.0
     s1, s2 = _sds(q)
     scale = math.sqrt(s1 * s1 / n1 + s2 * s2 / n2)
     if kind == "superiority":
-        x = solve_increasing(lambda d: _power_at(q, d, n1, n2, alpha), target, 0.0, hi=4 * scale)
-        value = None if x is None else sign * x
+        x = solve_effect_or_raise(
+            lambda d: _power_at(q, d, n1, n2, alpha), target, per_arm, hi=4 * scale
+        )
+        value = sign * x
     elif kind == "noninferiority":
         if margin is None:
             raise QuestionError("hypothesis.margin", "is required for a noninferiority question")
-        x = solve_increasing(
-            lambda d: _power_at(q, margin + sign * d, n1, n2, alpha), target, 0.0, hi=4 * scale
+        x = solve_effect_or_raise(
+            lambda d: _power_at(q, margin + sign * d, n1, n2, alpha), target, per_arm, hi=4 * scale
         )
-        value = None if x is None else margin + sign * x
+        value = margin + sign * x
     else:
         if margin is None or not margin > 0:
             raise QuestionError(
@@ -183,18 +168,15 @@ def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
             )
         # Power falls as the true difference moves from 0 to a bound: find where it crosses target.
         if _power_at(q, 0.0, n1, n2, alpha) < target:
-            value = None
-        else:
-            value = root(lambda d: _power_at(q, d, n1, n2, alpha) - target, 0.0, margin)
-    if value is None:
-        raise power_unreachable("sample_size.per_arm", target, per_arm)
+            raise power_unreachable("sample_size.per_arm", target, per_arm)
+        value = root(lambda d: _power_at(q, d, n1, n2, alpha) - target, 0.0, margin)
     return {"field": "difference", "value": float(value)}
 
 
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
     formula = _formula(q)
-    kind, margin, higher = _hypothesis(q)
+    kind, margin, higher = hypothesis(q)
     notes = []
     if formula == "welch":
         name = "noncentral t with Satterthwaite degrees of freedom (Welch)"
@@ -233,17 +215,7 @@ def describe(q: dict) -> dict:
             "looks in the direction of the assumed difference."
         )
     notes.append("The n per arm is solved on the continuous power curve, then rounded up.")
-    return {"kind": "analytic", "formula": name, "reference": ref, "notes": notes}
+    return analytic_method(name, ref, notes)
 
 
-DESIGN = Design(
-    name="two_means",
-    formulas=FORMULAS,
-    tests=TESTS["two_means"],
-    arms=arms,
-    allocation=allocation,
-    solve_n=solve_n,
-    power=power,
-    solve_effect=solve_effect,
-    describe=describe,
-)
+DESIGN = design_from("two_means", globals())

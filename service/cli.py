@@ -126,7 +126,32 @@ _FILE = arg("file", metavar="FILE", help="question as JSON; '-' reads stdin")
 _PRETTY = arg("--pretty", action="store_true", help="indent and sort keys for reading")
 
 
-@subcommand("compute", "answer a question and print the result record", _FILE, _PRETTY)
+class ProgressBar:
+    """A one-line bar on stderr for long local simulations (the record on stdout stays clean)."""
+
+    WIDTH = 30
+
+    def __init__(self, stream=None):
+        self.stream = stream or sys.stderr
+        self.shown = -1
+
+    def __call__(self, fraction: float) -> None:
+        filled = int(round(max(0.0, min(1.0, fraction)) * self.WIDTH))
+        if filled == self.shown:
+            return
+        self.shown = filled
+        bar = "#" * filled + "-" * (self.WIDTH - filled)
+        end = "\n" if filled == self.WIDTH else ""
+        print(f"\rsimulating [{bar}] {fraction:4.0%}", end=end, file=self.stream, flush=True)
+
+
+@subcommand(
+    "compute",
+    "answer a question and print the result record",
+    _FILE,
+    _PRETTY,
+    arg("--progress", action="store_true", help="show a progress bar on stderr while simulating"),
+)
 def compute_command(args: argparse.Namespace) -> int:
     """Validate the question, draw a seed if a simulation lacks one, compute and print."""
     from service.engine import EngineError, QuestionError, compute, draw_seed
@@ -135,8 +160,9 @@ def compute_command(args: argparse.Namespace) -> int:
     sim = question.get("simulation")
     if sim is not None and sim.get("seed") is None:
         sim["seed"] = draw_seed()
+    show = args.progress or (sim is not None and sys.stderr.isatty())
     try:
-        record = compute(question)
+        record = compute(question, progress=ProgressBar() if show and sim is not None else None)
     except QuestionError as exc:
         print_errors("the question cannot be answered as posed:", exc.as_errors())
         return EXIT_INPUT
@@ -311,6 +337,58 @@ def audit_command(args: argparse.Namespace) -> int:
 
 # ---------------------------------------------------------------------------------------------
 # Entry point
+
+
+def _report_source(source: str) -> tuple[dict, dict]:
+    """(request detail, record) from a record/detail JSON file or a stored request id."""
+    from pathlib import Path
+
+    if source == "-" or Path(source).exists():
+        data = read_json(source)
+        if isinstance(data, dict) and isinstance(data.get("result"), dict):
+            return data, data["result"]
+        if isinstance(data, dict) and "sample_size" in data and "question" in data:
+            return {"id": Path(source).stem if source != "-" else "local", "status": "computed"}, data
+        raise InputError(f"{source}: neither a result record nor a request with a result")
+    from service.api.render import request_detail
+    from service.store.models import Request
+
+    with _database_session() as session:
+        row = session.get(Request, source)
+        if row is None:
+            raise InputError(f"no file and no stored request called {source!r}")
+        detail = request_detail(session, row)
+    if detail["result"] is None:
+        raise InputError(f"request {source} has no result yet (status {detail['status']!r})")
+    return detail, detail["result"]
+
+
+@subcommand(
+    "report",
+    "write the HTML report and the power curve (SVG) of a record or a stored request",
+    arg("source", metavar="ID|FILE", help="a stored request id, or a result record as JSON"),
+    arg("--out", default=".", help="folder to write into (default: the current folder)"),
+)
+def report_command(args: argparse.Namespace) -> int:
+    """Write <name>.html and <name>.svg, the same page the service serves."""
+    from pathlib import Path
+
+    from service.reports.plots import curve_points, power_curve_svg
+    from service.reports.render import render_report
+
+    try:
+        detail, record = _report_source(args.source)
+    except DatabaseError as exc:
+        print(f"sizewise: {exc}", file=sys.stderr)
+        return EXIT_ENGINE
+    svg = power_curve_svg(curve_points(record))
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    name = f"sizewise-report-{detail.get('id') or 'local'}"
+    (out / f"{name}.svg").write_text(svg, encoding="utf-8")
+    (out / f"{name}.html").write_text(render_report(detail, record, curve_svg=svg), encoding="utf-8")
+    print(out / f"{name}.html")
+    return EXIT_OK
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -23,6 +23,7 @@ class Operation:
     errors: Sequence[int] = (500,)
     headers: dict[str, str] = field(default_factory=dict)
     request_headers: dict[str, str] = field(default_factory=dict)
+    media_type: str = "application/json"
 
 
 def operation(summary: str, *, tag: str, status: int = 200, response=None, **kwargs) -> Callable:

@@ -44,7 +44,10 @@ def _operation_dict(op: Operation, endpoint: str, *, secured: bool) -> dict:
     responses: dict[str, dict] = {}
     success: dict = {"description": HTTPStatus(op.status).phrase}
     if op.response is not None:
-        success["content"] = {"application/json": {"schema": op.response}}
+        success["content"] = {op.media_type: {"schema": op.response}}
+    elif op.media_type != "application/json":  # pages and pictures: a body that is not JSON
+        body = {"type": "string", "contentMediaType": op.media_type}
+        success["content"] = {op.media_type: {"schema": body}}
     if op.headers:
         success["headers"] = {
             name: {"description": text, "schema": {"type": "string"}}

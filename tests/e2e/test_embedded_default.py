@@ -20,7 +20,7 @@ def stack(embedded_config):
     from service import create_app
 
     app = create_app(dict(embedded_config, TESTING=True))
-    yield Stack(app.test_client())
+    yield Stack(app)
     app.extensions["sizewise"]["engine"].dispose()
 
 

@@ -11,7 +11,7 @@ from service import demo
 from service.config import load_config
 from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.migrate import upgrade
-from service.store.models import AuditEvent, Request
+from service.store.models import ApiToken, AuditEvent, Request
 
 
 @pytest.fixture
@@ -38,8 +38,23 @@ def test_demo_loads_three_protocols_and_is_idempotent(config):
     rows = _rows(config)
     assert len(rows) == 3
     assert {r.idempotency_key for r in rows} == {key for key, _ in demo.PROTOCOLS}
-    # All three came in through the one intake-form token of the first load.
+    # All three came in through the one intake-form token of the first load: submitted_by is
+    # that token's id, and the submitter's name and role are the "submitted" event's actor.
     assert len({r.submitted_by for r in rows}) == 1
+    factory = make_sessionmaker(make_engine(config["DATABASE_URL"]))
+    with session_scope(factory) as session:
+        token = session.get(ApiToken, rows[0].submitted_by)
+        assert token is not None
+        assert (token.role, token.name) == (demo.TOKEN_ROLE, demo.TOKEN_NAME)
+        actors = set(
+            session.scalars(
+                select(AuditEvent.actor).where(
+                    AuditEvent.action == "submitted",
+                    AuditEvent.request_id.in_([r.id for r in rows]),
+                )
+            )
+        )
+    assert actors == {f"{demo.TOKEN_NAME} ({demo.TOKEN_ROLE})"}
 
 
 def test_demo_covers_an_analytic_trial_a_simulation_and_a_survival_study(config):

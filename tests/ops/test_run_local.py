@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -17,11 +18,12 @@ import pytest
 
 from service.run_local import local_environment
 
-from ._procs import free_port, readme_example_request, start, stop_group, tail, wait_for
+from ._procs import REPO, free_port, readme_example_request, start, stop_group, tail, wait_for
 
 pytestmark = pytest.mark.slow
 
 TERMINAL = {"computed", "failed", "cancelled"}
+SIZEWISE = Path(sys.executable).with_name("sizewise")
 
 
 class Api:
@@ -50,17 +52,24 @@ class Api:
             return False
 
 
-def _token(database_url: str, role: str) -> str:
-    """Issue a token of ``role`` straight in the launcher's database (as `sizewise tokens` does)."""
-    from service.store.db import make_engine, make_sessionmaker, session_scope
-    from service.store.tokens import create_token
+def _banner_token(log: Path) -> str | None:
+    """The statistician token the launcher printed at start, once its banner is out."""
+    match = re.search(r"demo statistician token \(new at every start\): (\S+)", log.read_text())
+    return match.group(1) if match else None
 
-    engine = make_engine(database_url)
-    try:
-        with session_scope(make_sessionmaker(engine)) as session:
-            return create_token(session, role, f"ops smoke {role}")[1]
-    finally:
-        engine.dispose()
+
+def _cli_token(env: dict[str, str], role: str) -> str:
+    """Issue a token with `sizewise tokens create` on the launcher's database; its last line."""
+    done = subprocess.run(
+        [str(SIZEWISE), "tokens", "create", "--role", role, "--name", f"ops smoke {role}"],
+        cwd=REPO,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert done.returncode == 0, done.stderr
+    return done.stdout.strip().splitlines()[-1]
 
 
 def test_local_launcher_end_to_end(tmp_path: Path):
@@ -83,9 +92,9 @@ def test_local_launcher_end_to_end(tmp_path: Path):
         wait_for(up, 120, "run_local /healthz", step=0.5)
         assert (tmp_path / "var" / "sizewise.db").exists()
         assert (tmp_path / "var" / "broker").is_dir()
-        wait_for(lambda: "demo statistician token" in log.read_text(), 30, "the banner")
-        auditor = Api(port, _token(env["SIZEWISE_DATABASE_URL"], "auditor"))
-        api = Api(port, _token(env["SIZEWISE_DATABASE_URL"], "statistician"))
+        # The README's way in: the token printed at start, and an auditor's from the CLI.
+        api = Api(port, wait_for(lambda: _banner_token(log), 30, "the banner's token"))
+        auditor = Api(port, _cli_token(env, "auditor"))
 
         status, created = api.call("POST", "/v1/requests", readme_example_request())
         assert status == 202, created

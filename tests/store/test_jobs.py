@@ -115,12 +115,18 @@ def test_first_result_wins_and_a_different_one_is_kept_as_conflict(factory):
         assert jobs.finish_request(s, rid, "w1", record, started_at=utcnow())
     other = dict(record, reproducibility={**record["reproducibility"], "record_sha256": "f" * 64})
     with session_scope(factory) as s:
-        assert jobs.finish_request(s, rid, "w1", other) is None  # the lease ended with the first result
+        assert (
+            jobs.finish_request(s, rid, "w1", other) is None
+        )  # the lease ended with the first result
     with session_scope(factory) as s:
         # a redelivered job that owns a fresh lease and computed something else
-        s.execute(update(Request).where(Request.id == rid).values(status="running", lease_owner="w2"))
+        s.execute(
+            update(Request).where(Request.id == rid).values(status="running", lease_owner="w2")
+        )
         assert jobs.finish_request(s, rid, "w2", record) == "identical"
-        s.execute(update(Request).where(Request.id == rid).values(status="running", lease_owner="w2"))
+        s.execute(
+            update(Request).where(Request.id == rid).values(status="running", lease_owner="w2")
+        )
         assert jobs.finish_request(s, rid, "w2", other) == "conflict"
     with session_scope(factory) as s:
         result = s.query(Result).filter_by(request_id=rid).one()

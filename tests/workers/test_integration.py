@@ -56,7 +56,8 @@ def stack(pg_redis_config):
     from service import create_app
 
     app = create_app(dict(pg_redis_config, TESTING=True))
-    return Stack(app.test_client())
+    yield Stack(app)
+    app.extensions["sizewise"]["engine"].dispose()
 
 
 def test_analytic_and_simulated_requests_are_computed_and_a_rerun_is_identical(

@@ -12,6 +12,7 @@ from workers_testkit import insert_request, two_means_question
 
 from service.engine import canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
+from service.engine.records import differences
 from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import AuditEvent, ChunkResult, Request, Rerun, Result
@@ -267,8 +268,9 @@ def test_a_rerun_reports_the_dotted_paths_that_differ(sqlite_config, factory):
         assert rerun.env_original["scipy"] == "0.0-elsewhere"
 
 
-def test_diff_paths_names_nested_fields_and_list_items():
+def test_rerun_differences_name_nested_fields_and_list_items():
+    # The comparison a rerun stores (service.engine.records.differences, used by run_rerun_job).
     a = {"power": {"estimate": 0.5, "ci95": [0.4, 0.6]}, "x": 1}
     b = {"power": {"estimate": 0.5, "ci95": [0.4, 0.7]}, "y": 1}
-    assert tasks.diff_paths(a, b) == ["power.ci95.1", "x", "y"]
-    assert tasks.diff_paths([1, 2], [1, 2, 3]) == ["$"]
+    assert differences(a, b) == ["power.ci95.1", "x", "y"]
+    assert differences([1, 2], [1, 2, 3]) == ["$"]

@@ -22,6 +22,7 @@ from pathlib import Path
 
 import pytest
 
+from service.api.auth import local_client
 from service.config import load_config
 from service.engine import canonical_json
 from service.store.db import session_scope
@@ -330,17 +331,18 @@ ENDED = ("computed", "approved", "returned", "failed", "cancelled")
 
 
 class Stack:
-    """Drive the API with the Flask test client the way a requester's browser would."""
+    """Drive the API with Flask test clients carrying real bearer tokens, as the office would."""
 
-    def __init__(self, client):
-        self.client = client
+    def __init__(self, app):
+        # The research office submits and cancels; reruns are the auditor's alone.
+        self.client = local_client(app, "statistician", "research-office")
+        self.auditor = local_client(app, "auditor", "reproducibility check")
 
     def submit(self, question: dict) -> str:
         """POST a request with ``question``; return its id (the API answers 202)."""
         reply = self.client.post(
             "/v1/requests",
             json={"protocol": PROTOCOL, "requester": REQUESTER, "question": question},
-            headers={"X-Sizewise-Actor": "research-office"},
         )
         assert reply.status_code == 202, reply.get_json()
         return reply.get_json()["id"]
@@ -370,23 +372,20 @@ class Stack:
         reply = self.client.post(
             f"/v1/requests/{request_id}/cancel",
             json={"reason": "protocol withdrawn"},
-            headers={"X-Sizewise-Actor": "research-office"},
         )
         assert reply.status_code == 200, reply.get_json()
         return reply.get_json()
 
     def rerun(self, request_id: str, timeout: float = 60.0, worker=None) -> dict:
         """Ask for a rerun and poll it until it is done or failed."""
-        reply = self.client.post(
-            f"/v1/requests/{request_id}/reruns",
-            json={"note": "reproducibility check"},
-            headers={"X-Sizewise-Actor": "research-office"},
+        reply = self.auditor.post(
+            f"/v1/requests/{request_id}/reruns", json={"note": "reproducibility check"}
         )
         assert reply.status_code == 202, reply.get_json()
         rerun_id = reply.get_json()["id"]
         deadline = time.monotonic() + timeout
         while True:
-            body = self.client.get(f"/v1/requests/{request_id}/reruns/{rerun_id}").get_json()
+            body = self.auditor.get(f"/v1/requests/{request_id}/reruns/{rerun_id}").get_json()
             if body["status"] in ("done", "failed"):
                 return body
             if time.monotonic() > deadline:

@@ -29,6 +29,7 @@ from marshmallow import (
     validates_schema,
 )
 
+from service.engine.adjust import split_total
 from service.engine.designs import DESIGN_NAMES, FORMULAS, TESTS
 
 from .errors import QuestionInvalid
@@ -1035,18 +1036,6 @@ def arm_count(design: str, effect: Mapping | None) -> int | None:
 def allocation_weights(design: str, ratio: float, arms: int) -> list[float]:
     """Relative arm sizes, control first: [1, ratio] for two-arm designs, equal otherwise."""
     return [1.0, ratio] if design in TWO_ARM else [1.0] * arms
-
-
-def split_total(total: int, weights: list[float]) -> list[int]:
-    """Split ``total`` in proportion to ``weights`` by largest remainders (ties: earlier arm)."""
-    s = math.fsum(weights)
-    quotas = [total * w / s for w in weights]
-    base = [math.floor(q) for q in quotas]
-    rest = total - sum(base)
-    order = sorted(range(len(weights)), key=lambda i: (-(quotas[i] - base[i]), i))
-    for i in order[:rest]:
-        base[i] += 1
-    return base
 
 
 # ---------------------------------------------------------------------------------------------

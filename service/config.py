@@ -98,6 +98,13 @@ SETTINGS: tuple[Setting, ...] = (
         int,
         "Estimated random draws the requests submitted with one token may cost within an hour.",
     ),
+    Setting(
+        "SIZEWISE_SECRET_KEY",
+        "",
+        str,
+        "Key that signs report links (HMAC-SHA256); every API process must share it. Empty: a "
+        "random key is made once and kept in secret_key under SIZEWISE_VAR_DIR (or var/).",
+    ),
 )
 
 

@@ -3,7 +3,8 @@
 Northbridge General Hospital and its studies are invented; the numbers are for demonstration
 only. Each protocol goes through the real API (token check, validation, seed, audit trail, queue)
 as the research office's intake form would send it, with a fixed Idempotency-Key, so loading
-twice stores nothing new.
+twice stores nothing new. Each asks for analyses (sensitivity grids, and a robustness panel for
+the blood-pressure trial) that the workers compute once the request itself is computed.
 """
 
 from __future__ import annotations
@@ -34,6 +35,19 @@ PROTOCOLS: tuple[tuple[str, dict[str, Any]], ...] = (
             "requester": REQUESTER,
             "notes": "Primary outcome: systolic pressure at 12 weeks. Difference of 5 mmHg, "
             "SD 12 mmHg from the hypertension clinic's audit; 10% expected dropout.",
+            "effect_source": "SD from the 2024 Northbridge hypertension clinic audit of home readings",
+            # How the answer moves with the effect, the SD and dropout; and how the t test
+            # behaves if the pressures are skewed or heavy-tailed.
+            "analyses": {
+                "sensitivity": {
+                    "grid": {
+                        "effect.difference": [-4.0, -5.0, -6.0],
+                        "effect.sd": [10.0, 12.0, 14.0],
+                        "adjustments.dropout": [0.1, 0.2],
+                    }
+                },
+                "robustness": True,
+            },
             "question": {
                 "design": "two_means",
                 "find": "sample_size",
@@ -59,6 +73,13 @@ PROTOCOLS: tuple[tuple[str, dict[str, Any]], ...] = (
             },
             "notes": "Length of stay is right-skewed; the ward's records fit a lognormal "
             "(median about 5 days). Power of a rank-sum comparison at 120 patients.",
+            "effect_source": "lognormal fit to the orthopaedic ward's 2023 length-of-stay records",
+            # Simulated cells, fanned out across the workers on the request's own seed.
+            "analyses": {
+                "sensitivity": {
+                    "grid": {"adjustments.dropout": [0.0, 0.1, 0.2], "alpha": [0.05, 0.025]}
+                }
+            },
             "question": {
                 "design": "rank_sum",
                 "find": "power",
@@ -89,6 +110,14 @@ PROTOCOLS: tuple[tuple[str, dict[str, Any]], ...] = (
             },
             "notes": "Median time to readmission in the control arm about 10 months; "
             "18 months of recruitment and 12 more of follow-up.",
+            "analyses": {
+                "sensitivity": {
+                    "grid": {
+                        "effect.hazard_ratio": [0.65, 0.7, 0.75],
+                        "adjustments.dropout": [0.0, 0.1],
+                    }
+                }
+            },
             "question": {
                 "design": "survival_logrank",
                 "find": "sample_size",

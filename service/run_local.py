@@ -17,6 +17,7 @@ import sys
 import threading
 import time
 from collections.abc import Mapping, Sequence
+from datetime import timedelta
 from pathlib import Path
 
 REPO_ROOT = Path(__file__).resolve().parents[1]
@@ -247,6 +248,45 @@ def print_banner(port: int, folder: Path, token: str) -> None:
     )
 
 
+def print_report_links(port: int) -> None:
+    """Print a signed browser link to each demo request's report (it opens once computed)."""
+    from sqlalchemy import select
+
+    from service import demo
+    from service.api.auth import link_key, sign_link
+    from service.config import load_config
+    from service.store.db import make_engine, make_sessionmaker, session_scope
+    from service.store.models import Request
+    from service.store.types import utcnow
+
+    config = load_config()
+    keys = [key for key, _body in demo.PROTOCOLS]
+    engine = make_engine(config["DATABASE_URL"])
+    try:
+        with session_scope(make_sessionmaker(engine)) as session:
+            rows = session.execute(
+                select(Request.id, Request.protocol_id).where(Request.idempotency_key.in_(keys))
+            ).all()
+    finally:
+        engine.dispose()
+    if not rows:
+        return
+    # The API signs with the same key: SIZEWISE_SECRET_KEY, or the key file under var/.
+    key = link_key(config)
+    expires = utcnow() + timedelta(hours=24)
+    print("demo reports (browser links, valid 24 h; each opens once its request is computed):")
+    for request_id, protocol_id in sorted(rows, key=lambda r: r[1]):
+        token = sign_link(key, request_id, expires)
+        print(
+            f"  {protocol_id}: http://127.0.0.1:{port}/v1/requests/{request_id}/report?link={token}"
+        )
+    print(
+        '  a new link: curl -s -X POST -H "Authorization: Bearer $SIZEWISE_TOKEN" '
+        f"http://127.0.0.1:{port}/v1/requests/<id>/report-links\n",
+        flush=True,
+    )
+
+
 def main() -> int:
     """Prepare var/, start a Celery worker and the API, and supervise them until told to stop."""
     env = local_environment()
@@ -266,6 +306,10 @@ def main() -> int:
     failed = None
     if wait_until_healthy(port, sup):
         print_banner(port, Path(env["SIZEWISE_VAR_DIR"]), token)
+        try:
+            print_report_links(port)
+        except Exception as exc:  # the links are a convenience; the service runs without them
+            print(f"sizewise: no report links ({exc})", flush=True)
         while not sup.stop_requested.wait(0.5):
             failed = sup.exited()
             if failed:

@@ -24,6 +24,7 @@ _STOP = threading.Event()
 
 def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     """Publish every stale job once; return how many the broker accepted."""
+    from workers.analysis_tasks import publish_analysis
     from workers.queue import publish
     from workers.tasks import sessions
 
@@ -34,7 +35,13 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
         stale = jobs.stale_jobs(session, now, grace_seconds=grace(config).total_seconds())
     published = 0
     for kind, job_id in stale:
-        if not publish(kind, job_id, config):
+        # Analyses have their own task (the queue module knows requests and reruns only).
+        sent = (
+            publish_analysis(job_id, config)
+            if kind == "analysis"
+            else publish(kind, job_id, config)
+        )
+        if not sent:
             continue  # the broker is down; the next sweep tries again
         published += 1
         with session_scope(factory) as session:

@@ -4,16 +4,26 @@ Every endpoint is listed in ``ACCESS`` with the roles allowed on it; a route mis
 table is refused for every role (fail closed), and a test walks ``app.url_map`` so a new route
 without an entry fails. Only the probes in ``PUBLIC`` need no token.
 
-    401  no token, not a Bearer token, unknown or revoked token (with WWW-Authenticate: Bearer)
-    403  a valid token whose role is not allowed on the endpoint
+A browser cannot send a bearer header, so a reader may ask for a signed report link
+(``?link=<request id>.<expiry>.<HMAC-SHA256>``, valid 24 h); it opens only the three
+``LINK_ENDPOINTS`` of that one request.
+
+    401  no token, not a Bearer token, unknown or revoked token (with WWW-Authenticate: Bearer);
+         a report link that is malformed, altered or expired
+    403  a valid token whose role is not allowed on the endpoint; a report link of another request
     404  an intake token asking for another caller's request (its existence is not revealed)
     429  the per-token rate limit, or the per-token hourly cost budget, is used up
 """
 
 from __future__ import annotations
 
+import hashlib
+import hmac
 import math
-from datetime import timedelta
+import os
+import secrets
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
 from typing import Any
 
 from flask import Flask, g, request
@@ -60,12 +70,22 @@ ACCESS: dict[str, frozenset[str]] = {
     "reports.curve_svg": READERS,
     "reports.curve_png": READERS,
     "reports.staff_requests": frozenset({STATISTICIAN, AUDITOR}),
+    "reports.create_report_link": READERS,
+    "reports.analyses.create_analysis": REVIEWERS,
+    "reports.analyses.list_analyses": READERS,
+    "reports.analyses.get_analysis": READERS,
     "tokens.create_token": frozenset({ADMIN}),
     "tokens.list_tokens": frozenset({ADMIN}),
     "tokens.revoke_token": frozenset({ADMIN}),
 }
 
 REALM = 'Bearer realm="sizewise"'
+# The pages a signed report link opens (GET only), and nothing else.
+LINK_ENDPOINTS = frozenset({"reports.request_report", "reports.curve_svg", "reports.curve_png"})
+LINK_PARAM = "link"
+LINK_LIFETIME = timedelta(hours=24)
+LINK_ROLE = "report link"
+LINK_KEY_FILE = "secret_key"
 LIMITER_EXTENSION = "sizewise_limiter"
 BUDGET_WINDOW = timedelta(hours=1)
 
@@ -125,11 +145,99 @@ def _check_owner(caller: Caller) -> None:
         raise NotFound(f"no request with id '{request_id}'")
 
 
+def link_key(config: dict[str, Any]) -> bytes:
+    """Return the report-link key: SECRET_KEY, else a random key kept once under the var folder."""
+    configured = str(config.get("SECRET_KEY") or "")
+    if configured:
+        return configured.encode("utf-8")
+    folder = Path(os.environ.get("SIZEWISE_VAR_DIR") or Path(__file__).resolve().parents[2] / "var")
+    path = folder / LINK_KEY_FILE
+    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        # O_EXCL: of several processes starting at once exactly one writes the key; all read it.
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+    except FileExistsError:
+        pass
+    else:
+        with os.fdopen(fd, "w") as handle:
+            handle.write(secrets.token_hex(32))
+    return path.read_text().strip().encode("utf-8")
+
+
+def _signature(key: bytes, request_id: str, expires: int) -> str:
+    return hmac.new(key, f"{request_id}.{expires}".encode(), hashlib.sha256).hexdigest()
+
+
+def sign_link(key: bytes, request_id: str, expires_at: datetime) -> str:
+    """Return the link token for ``request_id`` valid until ``expires_at`` (whole seconds)."""
+    expires = int(expires_at.timestamp())
+    return f"{request_id}.{expires}.{_signature(key, request_id, expires)}"
+
+
+def report_link(request_id: str, now: datetime | None = None) -> dict[str, Any]:
+    """Return a signed URL of the request's report page and when it expires (24 h from now)."""
+    from flask import current_app
+
+    now = now or utcnow()
+    expires_at = datetime.fromtimestamp(int((now + LINK_LIFETIME).timestamp()), UTC)
+    token = sign_link(current_app.extensions["sizewise"]["link_key"], request_id, expires_at)
+    return {
+        "url": f"/v1/requests/{request_id}/report?{LINK_PARAM}={token}",
+        "expires_at": expires_at,
+    }
+
+
+def _link_refused(detail: str, message: str) -> Unauthorized:
+    return Unauthorized(
+        detail,
+        errors={f"query.{LINK_PARAM}": [message]},
+        headers={"WWW-Authenticate": f'{REALM}, error="invalid_token"'},
+    )
+
+
+def _link_caller(token: str) -> Caller:
+    """Verify a report link for the request in the URL; 401 when bad or expired, 403 elsewhere."""
+    from flask import current_app
+
+    request_id = (request.view_args or {}).get("request_id", "")
+    parts = token.split(".")
+    if len(parts) != 3 or not parts[1].isdigit() or len(parts[2]) != 64:
+        raise _link_refused(
+            "the report link is malformed; ask for a new one with POST "
+            f"/v1/requests/{request_id}/report-links",
+            "must be '<request id>.<expiry>.<signature>' as issued",
+        )
+    linked, expires_text, signature = parts
+    key = current_app.extensions["sizewise"]["link_key"]
+    if not hmac.compare_digest(signature, _signature(key, linked, int(expires_text))):
+        raise _link_refused(
+            "the report link's signature does not match: it was altered or signed with another key",
+            "signature does not match",
+        )
+    if linked != request_id:
+        raise Forbidden(
+            f"this report link opens request '{linked}', not '{request_id}'",
+            errors={f"query.{LINK_PARAM}": [f"issued for request '{linked}'"]},
+        )
+    expires_at = datetime.fromtimestamp(int(expires_text), UTC)
+    if expires_at <= utcnow():
+        raise _link_refused(
+            f"the report link expired at {expires_at.isoformat()}; ask for a new one",
+            f"expired at {expires_at.isoformat()}",
+        )
+    return Caller(f"link:{request_id}", LINK_ROLE, LINK_ROLE)
+
+
 def authenticate() -> None:
-    """Before every request: verify the bearer token and the role the endpoint needs."""
+    """Before every request: verify the bearer token (or report link) and the endpoint's role."""
     endpoint = request.endpoint
     # No endpoint means a 404 or 405 from routing; nothing is served, so nothing to protect.
     if endpoint is None or endpoint in PUBLIC:
+        return
+    link = request.args.get(LINK_PARAM)
+    if link is not None and endpoint in LINK_ENDPOINTS and request.method in ("GET", "HEAD"):
+        # The link names its one request, so neither the role table nor ownership applies.
+        g.caller = _link_caller(link)
         return
     secret = _bearer_secret()
     with session_scope(sessions()) as session:
@@ -186,6 +294,7 @@ def init_auth(app: Flask) -> Limiter:
     # Registered before the limiter's own hook, so the limit is keyed by the verified token.
     app.before_request(authenticate)
     config = app.extensions["sizewise"]["config"]
+    app.extensions["sizewise"]["link_key"] = link_key(config)
     limiter = Limiter(
         rate_limit_key,
         application_limits=[str(config["RATE_LIMIT"])],

@@ -1,41 +1,60 @@
-"""Pages people read: a request's report, its power curve, and the biostat core's request list."""
+"""Pages people read: a request's report, its power curve, and the biostat core's request list.
+
+The report and the curve also open with a signed ``?link=`` instead of a bearer token (see
+``auth.LINK_ENDPOINTS``), so a browser can show them; ``POST .../report-links`` issues one.
+"""
 
 from __future__ import annotations
 
-from flask import Blueprint, Response
+from flask import Blueprint, Response, jsonify, request
 
-from service.reports.plots import curve_points, power_curve_png, power_curve_svg
+from service.reports.plots import curve_points, power_curve_png, power_curve_svg, sensitivity_svg
 from service.reports.render import render_report, render_staff_list
-from service.schemas.requests import RequestQueryArgsSchema
+from service.schemas.requests import ReportLinkSchema, RequestQueryArgsSchema
+from service.store import analyses as analysis_store
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import Request
 
-from . import render
+from . import analyses, render
+from .auth import LINK_PARAM, report_link
 from .context import sessions
 from .docs import operation
-from .errors import Conflict, NotFound
+from .errors import Conflict, NotFound, ValidationFailed
 from .identity import visible_submitter
 from .io import load_query, reject_query
 
 bp = Blueprint("reports", __name__, url_prefix="/v1")
+bp.register_blueprint(analyses.bp)
 
 PAGE_ERRORS = (404, 409, 422, 500, 503)
+_LINK_SCHEMA = ReportLinkSchema()
 
 
-def _detail_with_result(request_id: str) -> dict:
-    """The request's detail; 409 while it has no result record yet."""
+def _page_query() -> None:
+    """Refuse every query parameter but the report link."""
+    extra = [k for k in request.args if k != LINK_PARAM]
+    if extra:
+        raise ValidationFailed(
+            f"this page takes no query parameters but '{LINK_PARAM}'",
+            errors={f"query.{k}": ["unknown parameter"] for k in extra},
+        )
+
+
+def _detail_with_result(request_id: str) -> tuple[dict, dict]:
+    """The request's detail and its latest finished analyses; 409 while it has no result yet."""
     with session_scope(sessions()) as session:
         row = session.get(Request, request_id)
         if row is None:
             raise NotFound(f"no request with id '{request_id}'")
         detail = render.request_detail(session, row)
+        done = {k: a.result for k, a in analysis_store.latest_done(session, request_id).items()}
     if detail["result"] is None:
         raise Conflict(
             f"request '{request_id}' has no result yet (status '{detail['status']}'); "
             "the report exists once it is computed"
         )
-    return detail
+    return detail, done
 
 
 @bp.get("/requests/<request_id>/report")
@@ -43,11 +62,21 @@ def _detail_with_result(request_id: str) -> dict:
     "The request's report page (HTML)", tag="reports", media_type="text/html", errors=PAGE_ERRORS
 )
 def request_report(request_id: str):
-    """Render the protocol-ready report: answer, steps, justification, curve, cautions."""
-    reject_query()
-    detail = _detail_with_result(request_id)
+    """Render the protocol-ready report: answer, steps, justification, curve, analyses, cautions."""
+    _page_query()
+    detail, done = _detail_with_result(request_id)
     record = detail["result"]
-    html = render_report(detail, record, curve_svg=power_curve_svg(curve_points(record)))
+    grid = done.get("sensitivity")
+    pending = [a for a in detail["analyses"] if a["status"] in ("queued", "running")]
+    html = render_report(
+        detail,
+        record,
+        curve_svg=power_curve_svg(curve_points(record)),
+        sensitivity=grid,
+        sensitivity_svg=sensitivity_svg(grid) if grid else None,
+        robustness=done.get("robustness"),
+        pending=pending,
+    )
     return Response(html, mimetype="text/html")
 
 
@@ -60,8 +89,8 @@ def request_report(request_id: str):
 )
 def curve_svg(request_id: str):
     """Power against n per arm around the answer, as SVG."""
-    reject_query()
-    record = _detail_with_result(request_id)["result"]
+    _page_query()
+    record = _detail_with_result(request_id)[0]["result"]
     return Response(power_curve_svg(curve_points(record)), mimetype="image/svg+xml")
 
 
@@ -74,9 +103,30 @@ def curve_svg(request_id: str):
 )
 def curve_png(request_id: str):
     """Power against n per arm around the answer, as PNG for documents."""
-    reject_query()
-    record = _detail_with_result(request_id)["result"]
+    _page_query()
+    record = _detail_with_result(request_id)[0]["result"]
     return Response(power_curve_png(curve_points(record)), mimetype="image/png")
+
+
+@bp.post("/requests/<request_id>/report-links")
+@operation(
+    "A signed link that opens the report in a browser for 24 hours",
+    tag="reports",
+    status=201,
+    response=ReportLinkSchema,
+    description=(
+        "The link (an HMAC-SHA256 over the request id and the expiry) opens only this "
+        "request's report, curve.svg and curve.png, with no Authorization header."
+    ),
+    errors=(404, 422, 500, 503),
+)
+def create_report_link(request_id: str):
+    """Issue a signed report link for a request the caller may read."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        if len(request_id) != 32 or session.get(Request, request_id) is None:
+            raise NotFound(f"no request with id '{request_id}'")
+    return jsonify(_LINK_SCHEMA.dump(report_link(request_id))), 201
 
 
 @bp.get("/staff/requests")

@@ -30,6 +30,7 @@ from service.store.db import session_scope
 from service.store.models import Request
 
 from . import render
+from .analyses import store_submission
 from .auth import check_submission_cost
 from .context import sessions
 from .docs import operation
@@ -155,6 +156,8 @@ def submit_request():
                 idempotency_key=key,
                 body_sha256=digest,
             )
+            # The effect source and analyses asked for with the request are part of the same row set.
+            store_submission(session, row, data, actor)
             request_id = row.id
     except IntegrityError:
         if key is None:

@@ -1,7 +1,8 @@
 """What-if views of one question: a sensitivity grid and a robustness panel.
 
 Both re-ask the engine through ``compute`` so every number equals what a single question would
-give. The sensitivity grid re-solves an analytic question over a grid of field values; the
+give. The sensitivity grid re-solves a question over a grid of field values (a simulated one
+only with the caller's executor, i.e. as a worker job, every cell on the question's seed); the
 robustness panel re-simulates a two_means question's power and type I error at a fixed n under
 declared departures from normal data. Pure: numpy/scipy/stdlib and ``service.engine`` only.
 """
@@ -11,10 +12,11 @@ from __future__ import annotations
 import copy
 import itertools
 import math
+from collections.abc import Callable
 
-from .compute import compute
+from .compute import compute, estimate_cost
 from .designs import TESTS
-from .errors import QuestionError
+from .errors import BudgetExceeded, QuestionError
 
 MAX_CELLS = 400  # an analytic cell costs milliseconds; bigger grids are a job, not a request
 MAX_AXES = 3
@@ -102,21 +104,83 @@ def _check_grid(q: dict, grid) -> list[tuple[str, list[float]]]:
     return axes
 
 
-def sensitivity(question: dict, grid: dict[str, list[float]]) -> dict:
-    """Re-solve an analytic question at every combination of the grid's field values.
+def _cell_questions(question: dict, grid) -> tuple[list[tuple[str, list[float]]], list[tuple[dict, dict]]]:
+    """Validate ``grid`` and return its axes and (values, cell question) pairs, row-major."""
+    axes = _check_grid(question, grid)
+    cells = []
+    for combo in itertools.product(*(values for _, values in axes)):
+        values = {path: v for (path, _), v in zip(axes, combo, strict=True)}
+        q = copy.deepcopy(question)
+        for path, v in values.items():
+            _set_path(q, path, v)
+        cells.append((values, q))
+    return axes, cells
+
+
+def _check_question(question: dict, *, simulated_ok: bool) -> None:
+    if not isinstance(question, dict):
+        raise QuestionError("question", f"must be a normalized question object; got {type(question).__name__}")
+    if question.get("method") == "simulation":
+        if not simulated_ok:
+            raise QuestionError(
+                "method",
+                "a sensitivity grid of a simulated question is a long computation and must be "
+                "submitted as a worker job (pass an executor)",
+            )
+        if (question.get("simulation") or {}).get("seed") is None:
+            raise QuestionError("simulation.seed", "must be set: every cell of a simulated grid uses the same seed")
+    if question.get("find") not in ("sample_size", "power"):
+        raise QuestionError(
+            "find", f"a sensitivity grid needs find 'sample_size' or 'power'; got {question.get('find')!r}"
+        )
+
+
+def grid_cost(question: dict, grid: dict[str, list[float]]) -> int:
+    """Return the estimated random draws of the whole grid: the sum of ``estimate_cost`` over cells.
+
+    Examples
+    --------
+    >>> q = {"design": "two_means", "find": "power", "alpha": 0.05, "sides": 2,
+    ...      "target_power": None, "sample_size": {"per_arm": [30, 30]}, "allocation_ratio": 1.0,
+    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
+    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
+    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> grid_cost(q, {"effect.difference": [0.4, 0.5]})
+    0
+    """
+    _check_question(question, simulated_ok=True)
+    _axes, cells = _cell_questions(question, grid)
+    return sum(int(estimate_cost(q)) for _values, q in cells)
+
+
+def sensitivity(
+    question: dict,
+    grid: dict[str, list[float]],
+    *,
+    executor: Callable[[list[dict]], list[dict]] | None = None,
+    progress: Callable[[float], None] | None = None,
+    budget: int | None = None,
+    base: dict | None = None,
+) -> dict:
+    """Re-solve a question at every combination of the grid's field values.
 
     Parameters
     ----------
-    question : a normalized question (DEVELOPERS.md) with ``method = "analytic"`` and ``find``
-        ``sample_size`` or ``power``.
+    question : a normalized question (DEVELOPERS.md) with ``find`` ``sample_size`` or ``power``;
+        analytic, or simulated when ``executor`` is given (every cell keeps the question's seed,
+        so a cell's digits depend only on the cell's question).
     grid : dotted field path -> values, e.g. ``{"effect.difference": [0.4, 0.5]}``; for two_means
         ``"effect.sd"`` sets both SDs. At most 3 axes and 400 cells.
+    executor, budget : passed to ``compute`` for every cell (chunk fan-out, cost refusal).
+    progress : called with the fraction of the grid done, also within a simulated cell.
+    base : the question's own result record, when the caller has it (saves one computation).
 
     Returns
     -------
     dict with ``axes`` (path and values, in grid order), ``cells`` (row-major over the axes, the
-    last axis fastest; each with ``values``, ``per_arm``, ``total``, ``power`` and ``error``),
-    ``find``, ``design`` and ``base`` (the question's own answer).
+    last axis fastest; each with ``values``, ``per_arm``, ``total``, ``power``, ``mcse`` and
+    ``error``), ``find``, ``design``, ``method`` and ``base`` (the question's own answer).
 
     Examples
     --------
@@ -129,53 +193,55 @@ def sensitivity(question: dict, grid: dict[str, list[float]]) -> dict:
     >>> [c["per_arm"] for c in sensitivity(q, {"effect.difference": [0.5, 0.8]})["cells"]]
     [[64, 64], [26, 26]]
     """
-    if not isinstance(question, dict):
-        raise QuestionError("question", f"must be a normalized question object; got {type(question).__name__}")
-    if question.get("method") == "simulation":
-        raise QuestionError(
-            "method",
-            "a sensitivity grid is computed for analytic questions only; a simulated grid is a "
-            "long computation and must be submitted as a worker job",
-        )
-    if question.get("find") not in ("sample_size", "power"):
-        raise QuestionError(
-            "find", f"a sensitivity grid needs find 'sample_size' or 'power'; got {question.get('find')!r}"
-        )
-    axes = _check_grid(question, grid)
-    base = _cell(question, {})
-    if base["error"]:
-        raise QuestionError("question", f"the question itself cannot be answered: {base['error']}")
+    _check_question(question, simulated_ok=executor is not None)
+    axes, pairs = _cell_questions(question, grid)
+    hooks = {"executor": executor, "budget": budget}
+    own = _summary(base) if base is not None else _cell(question, {}, **hooks)
+    if own["error"]:
+        raise QuestionError("question", f"the question itself cannot be answered: {own['error']}")
     cells = []
-    for combo in itertools.product(*(values for _, values in axes)):
-        values = {path: v for (path, _), v in zip(axes, combo, strict=True)}
-        q = copy.deepcopy(question)
-        for path, v in values.items():
-            _set_path(q, path, v)
-        cells.append(_cell(q, values))
+    for i, (values, q) in enumerate(pairs):
+        step = None
+        if progress is not None:
+            def step(f: float, i: int = i) -> None:
+                progress((i + min(max(float(f), 0.0), 1.0)) / len(pairs))
+        cells.append(_cell(q, values, progress=step, **hooks))
+        if progress is not None:
+            progress((i + 1) / len(pairs))
     return {
         "design": question["design"],
         "find": question["find"],
+        "method": question.get("method", "analytic"),
+        "seed": (question.get("simulation") or {}).get("seed"),
         "axes": [{"path": p, "values": v} for p, v in axes],
         "shape": [len(v) for _, v in axes],
-        "base": {k: base[k] for k in ("per_arm", "total", "power")},
+        "base": {k: own[k] for k in ("per_arm", "total", "power")},
         "cells": cells,
     }
 
 
-def _cell(q: dict, values: dict) -> dict:
-    # A cell the engine refuses (e.g. a difference of zero) is reported, not fatal to the grid.
-    try:
-        record = compute(q)
-    except QuestionError as exc:
-        return {"values": values, "per_arm": None, "total": None, "power": None, "error": str(exc)}
-    size = record["sample_size"]
+def _summary(record: dict) -> dict:
+    size, power = record["sample_size"], record["power"]
     return {
-        "values": values,
         "per_arm": list(size["per_arm"]),
         "total": size["total"],
-        "power": record["power"]["estimate"],
+        "power": power["estimate"],
+        "mcse": power.get("mcse"),
         "error": None,
     }
+
+
+def _cell(q: dict, values: dict, **hooks) -> dict:
+    # A cell the engine refuses (e.g. a difference of zero) is reported, not fatal to the grid;
+    # a cell over the budget is fatal: the whole grid was priced before it started.
+    try:
+        record = compute(q, **hooks)
+    except BudgetExceeded:
+        raise
+    except QuestionError as exc:
+        return {"values": values, "per_arm": None, "total": None, "power": None, "mcse": None,
+                "error": str(exc)}
+    return {"values": values, **_summary(record)}
 
 
 # --- robustness panel ---------------------------------------------------------------------
@@ -189,6 +255,8 @@ T_DF = 3.0
 # Cauchy scale matched to the normal's interquartile range: IQR = 2·scale = 2·z.75·sd.
 _Z75 = 0.6744897501960817
 SD_FACTOR = 2.0
+# Trials per data model when the question has no replicates of its own (an analytic request).
+ROBUSTNESS_REPLICATES = 5000
 
 _FORMULA_TEST = {"student": "student_t", "welch": "welch_t"}
 
@@ -285,7 +353,50 @@ def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float,
     )
 
 
-def robustness(question: dict, per_arm: list[int], *, replicates: int, seed: int) -> dict:
+def _departure_questions(
+    question: dict, per_arm, *, replicates: int, seed: int
+) -> tuple[str, list[tuple[str, str, dict, dict]]]:
+    """Validate the inputs; return the test and (name, description, data, question) per departure."""
+    mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
+    if isinstance(replicates, bool) or not isinstance(replicates, int) or not 200 <= replicates <= 2_000_000:
+        raise QuestionError("simulation.replicates", f"must be a whole number in 200…2,000,000; got {replicates!r}")
+    if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**53:
+        raise QuestionError("simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}")
+    base_sim = question.get("simulation") or {}
+    test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS["two_means"][0])
+    runs = []
+    for name, (description, build, factor) in DEPARTURES.items():
+        data = {"control": build(mean0, sd_c), "treatment": build(mean0 + diff, sd_t * factor)}
+        q = copy.deepcopy(question)
+        q.update(
+            find="power", target_power=None, method="simulation",
+            sample_size={"per_arm": list(sizes)},
+        )
+        q["simulation"] = {
+            "replicates": replicates, "seed": seed, "test": test, "data": data,
+            "decision_rule": base_sim.get("decision_rule", "point"),
+            "chunk_size": base_sim.get("chunk_size", 1000),
+            "search_replicates": base_sim.get("search_replicates", 2000),
+        }
+        runs.append((name, description, data, q))
+    return test, runs
+
+
+def robustness_cost(question: dict, per_arm: list[int], *, replicates: int, seed: int) -> int:
+    """Return the estimated random draws of the robustness panel (sum over the departures)."""
+    _test, runs = _departure_questions(question, per_arm, replicates=replicates, seed=seed)
+    return sum(int(estimate_cost(q)) for *_rest, q in runs)
+
+
+def robustness(    question: dict,
+    per_arm: list[int],
+    *,
+    replicates: int,
+    seed: int,
+    executor: Callable[[list[dict]], list[dict]] | None = None,
+    progress: Callable[[float], None] | None = None,
+    budget: int | None = None,
+) -> dict:
     """Simulate the chosen test's power and type I error at ``per_arm`` under declared departures.
 
     Parameters
@@ -296,6 +407,8 @@ def robustness(question: dict, per_arm: list[int], *, replicates: int, seed: int
         any power question.
     replicates, seed : Monte Carlo size and seed, the same for every departure (common random
         numbers where the families allow).
+    executor, budget : passed to ``compute`` for every departure (chunk fan-out, cost refusal).
+    progress : called with the fraction of the departures done.
 
     Returns
     -------
@@ -315,28 +428,14 @@ def robustness(question: dict, per_arm: list[int], *, replicates: int, seed: int
     >>> [d["name"] for d in panel["departures"]][:2]
     ['normal', 'heavy_tails']
     """
-    mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
-    if isinstance(replicates, bool) or not isinstance(replicates, int) or not 200 <= replicates <= 2_000_000:
-        raise QuestionError("simulation.replicates", f"must be a whole number in 200…2,000,000; got {replicates!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**53:
-        raise QuestionError("simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}")
-    base_sim = question.get("simulation") or {}
-    test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS["two_means"][0])
+    test, runs = _departure_questions(question, per_arm, replicates=replicates, seed=seed)
     departures = []
-    for name, (description, build, factor) in DEPARTURES.items():
-        data = {"control": build(mean0, sd_c), "treatment": build(mean0 + diff, sd_t * factor)}
-        q = copy.deepcopy(question)
-        q.update(
-            find="power", target_power=None, method="simulation",
-            sample_size={"per_arm": list(sizes)},
-        )
-        q["simulation"] = {
-            "replicates": replicates, "seed": seed, "test": test, "data": data,
-            "decision_rule": base_sim.get("decision_rule", "point"),
-            "chunk_size": base_sim.get("chunk_size", 1000),
-            "search_replicates": base_sim.get("search_replicates", 2000),
-        }
-        record = compute(q)
+    for i, (name, description, data, q) in enumerate(runs):
+        step = None
+        if progress is not None:
+            def step(f: float, i: int = i) -> None:
+                progress((i + min(max(float(f), 0.0), 1.0)) / len(runs))
+        record = compute(q, executor=executor, progress=step, budget=budget)
         departures.append({
             "name": name,
             "description": description,
@@ -346,6 +445,7 @@ def robustness(question: dict, per_arm: list[int], *, replicates: int, seed: int
             "null_model": (record["type_i_error"] or {}).get("null_model"),
             "record_sha256": record["reproducibility"]["record_sha256"],
         })
+    sizes = list(runs[0][3]["sample_size"]["per_arm"])
     return {
         "design": "two_means",
         "per_arm": sizes,
@@ -361,3 +461,22 @@ def _estimate(block: dict | None) -> dict | None:
     if block is None:
         return None
     return {k: block.get(k) for k in ("estimate", "mcse", "ci95", "replicates")}
+
+
+def analysis_cost(kind: str, params: dict, question: dict, record: dict | None) -> int:
+    """Return the estimated draws of a stored analysis (``kind`` sensitivity or robustness).
+
+    A robustness panel needs the n: from ``record``, else from a find = power question; 0 when
+    neither gives it yet (the worker prices it again once the record exists).
+    """
+    if kind == "sensitivity":
+        return grid_cost(question, params["grid"])
+    if record is None:
+        per_arm = ((question.get("sample_size") or {}).get("per_arm")) or None
+        if per_arm is None:
+            return 0
+    else:
+        per_arm = record["sample_size"]["per_arm"]
+    return robustness_cost(
+        question, list(per_arm), replicates=params["replicates"], seed=params["seed"]
+    )

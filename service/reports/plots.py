@@ -3,7 +3,9 @@
 ``curve_points`` asks the engine (find = power) at about a dozen sizes and returns plain data;
 ``power_curve_svg`` / ``power_curve_png`` only draw it. The SVG's elements carry ids
 (``target-line``, ``chosen-n``, ``analytic-curve``, ``simulated-points``) so tests and the page
-can find them.
+can find them. ``sensitivity_svg`` draws a sensitivity grid (``service.engine.explore``): the
+answer against the grid's first axis, one line per value of the second (ids
+``sensitivity-axes``, ``sensitivity-line-<i>``).
 """
 
 from __future__ import annotations
@@ -21,7 +23,7 @@ from matplotlib.figure import Figure  # noqa: E402  (after the backend is chosen
 
 from service.engine import QuestionError, compute  # noqa: E402
 
-__all__ = ["curve_points", "power_curve_png", "power_curve_svg"]
+__all__ = ["curve_points", "power_curve_png", "power_curve_svg", "sensitivity_lines", "sensitivity_svg"]
 
 DEFAULT_POINTS = 12
 DEFAULT_SPAN = (0.5, 1.5)
@@ -187,21 +189,95 @@ def _figure(points: dict) -> Figure:
     return fig
 
 
-def power_curve_svg(points: dict) -> str:
-    """Draw the curve data as an SVG document string ready to inline in HTML (no XML prolog)."""
+def _svg(fig: Figure, title_id: str, title: str) -> str:
+    """The figure as an inline SVG string with an accessible title (no XML prolog)."""
     buf = io.StringIO()
     # A fixed hash salt and no date keep the SVG identical for identical data.
     with matplotlib.rc_context({"svg.hashsalt": "sizewise", "svg.fonttype": "none"}):
-        _figure(points).savefig(buf, format="svg", metadata={"Date": None})
+        fig.savefig(buf, format="svg", metadata={"Date": None})
     text = buf.getvalue()
     start = text.find("<svg")
     svg = text[start:]
     # Scale with its container instead of a fixed point size.
     svg = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"', r'<svg\1', svg, count=1)
-    svg = svg.replace("<svg ", '<svg role="img" aria-labelledby="curve-title" ', 1)
+    svg = svg.replace("<svg ", f'<svg role="img" aria-labelledby="{title_id}" ', 1)
     end = svg.index(">") + 1
+    return f'{svg[:end]}<title id="{title_id}">{title}</title>{svg[end:]}'
+
+
+def power_curve_svg(points: dict) -> str:
+    """Draw the curve data as an SVG document string ready to inline in HTML (no XML prolog)."""
     title = f"Power against {points['x_label'].lower()}, with the chosen size marked"
-    return f'{svg[:end]}<title id="curve-title">{title}</title>{svg[end:]}'
+    return _svg(_figure(points), "curve-title", title)
+
+
+# --- the sensitivity grid as curves -----------------------------------------------------------
+
+_LINE_COLOURS = ("#1f5fa8", "#b34700", "#0b7a4b", "#7a3fa0", "#a8891f", "#1f8fa8", "#a81f4f")
+_PATH_WORDS = {
+    "alpha": "alpha", "target_power": "target power", "allocation_ratio": "allocation ratio",
+    "effect.sd": "SD", "adjustments.dropout": "dropout", "adjustments.comparisons": "comparisons",
+    "adjustments.cluster.icc": "ICC", "adjustments.cluster.mean_size": "cluster size",
+}
+
+
+def _path_words(path: str) -> str:
+    return _PATH_WORDS.get(path, path.rsplit(".", 1)[-1].replace("_", " "))
+
+
+def sensitivity_lines(grid_result: dict) -> dict:
+    """Return a sensitivity grid as lines: x = the first axis, one line per other-axis combination.
+
+    The y value is the enrolled n of the first group for find = sample_size and the power for
+    find = power; cells the engine refused are gaps (None).
+    """
+    axes = grid_result["axes"]
+    if not axes:
+        raise ValueError("grid_result.axes: a sensitivity grid has at least one axis")
+    first, rest = axes[0], axes[1:]
+    y_power = grid_result["find"] == "power"
+    lines: dict[tuple, dict] = {}
+    for cell in grid_result["cells"]:
+        key = tuple(cell["values"][a["path"]] for a in rest)
+        if key not in lines:
+            label = ", ".join(f"{_path_words(a['path'])} {v:g}" for a, v in zip(rest, key, strict=True))
+            lines[key] = {"label": label or "as asked", "x": [], "y": []}
+        y = None
+        if not cell.get("error"):
+            y = cell["power"] if y_power else (cell["per_arm"] or [None])[0]
+        lines[key]["x"].append(cell["values"][first["path"]])
+        lines[key]["y"].append(y)
+    several = len(grid_result["base"]["per_arm"] or []) > 1
+    return {
+        "x_label": _path_words(first["path"]).capitalize(),
+        "y_label": "Power" if y_power else ("Enrolled per group" if several else "Enrolled"),
+        "lines": list(lines.values()),
+    }
+
+
+def sensitivity_svg(grid_result: dict) -> str:
+    """Draw a sensitivity grid (``explore.sensitivity``'s result) as an inline SVG string."""
+    data = sensitivity_lines(grid_result)
+    fig = Figure(figsize=(7.2, 4.0), dpi=100, layout="constrained")
+    ax = fig.add_subplot()
+    ax.set_gid("sensitivity-axes")
+    for i, line in enumerate(data["lines"]):
+        colour = _LINE_COLOURS[i % len(_LINE_COLOURS)]
+        ys = [float("nan") if y is None else y for y in line["y"]]
+        (drawn,) = ax.plot(line["x"], ys, marker="o", ms=4, lw=1.8, color=colour, label=line["label"])
+        drawn.set_gid(f"sensitivity-line-{i}")
+    ax.set_xlabel(data["x_label"], color=_INK)
+    ax.set_ylabel(data["y_label"], color=_INK)
+    if data["y_label"] == "Power":
+        ax.set_ylim(0, 1.02)
+    ax.grid(True, color="#d5dbe1", lw=0.6)
+    ax.tick_params(colors=_INK)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    if len(data["lines"]) > 1 or data["lines"][0]["label"] != "as asked":
+        ax.legend(loc="best", frameon=False, fontsize=9)
+    title = f"{data['y_label']} against {data['x_label'].lower()}, one line per assumption set"
+    return _svg(fig, "sensitivity-title", title)
 
 
 

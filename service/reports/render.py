@@ -248,12 +248,15 @@ def render_report(
     curve_svg: str,
     sensitivity: dict | None = None,
     robustness: dict | None = None,
+    sensitivity_svg: str | None = None,
+    pending: list[dict] | None = None,
 ) -> str:
     """Render the full HTML report of one request and its result record.
 
-    ``curve_svg`` must come from ``plots.power_curve_svg`` (it is inlined unescaped); the
-    justification's effect source is read from ``request["context"]["effect_source"]`` or
-    ``request["effect_source"]`` when present.
+    ``curve_svg`` and ``sensitivity_svg`` must come from ``plots`` (they are inlined
+    unescaped); ``pending`` lists analyses still queued or running (each with ``kind`` and
+    ``status``). The justification's effect source is read from
+    ``request["context"]["effect_source"]`` or ``request["effect_source"]`` when present.
     """
     q = record["question"]
     if q.get("design") not in DESIGN_NAMES:
@@ -279,7 +282,12 @@ def render_report(
         justification=words.justification(record, context),
         curve_svg=Markup(curve_svg),
         sensitivity=sensitivity,
+        sensitivity_svg=Markup(sensitivity_svg) if sensitivity_svg else None,
         robustness=robustness,
+        pending=[
+            {"kind": a.get("kind", ""), "status": STATUS_LABELS.get(a.get("status"), a.get("status"))}
+            for a in pending or []
+        ],
         repro=record["reproducibility"],
         method_text=_method_text(record),
         question_json=json.dumps(q, indent=2, sort_keys=True, ensure_ascii=False),

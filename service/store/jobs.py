@@ -1,6 +1,7 @@
-"""Job bookkeeping shared by the API, the workers and the sweeper (requests and reruns).
+"""Job bookkeeping shared by the API, the workers and the sweeper (requests, reruns, analyses).
 
-A job is a row in ``requests`` (kind 'request') or ``reruns`` (kind 'rerun'). Workers hold a
+A job is a row in ``requests`` (kind 'request'), ``reruns`` (kind 'rerun') or ``analyses``
+(kind 'analysis'). Workers hold a
 lease (lease_owner, lease_expires_at) while they run one; every change here is a conditional
 UPDATE so two workers can never both own a job. Functions take a session and never commit.
 """
@@ -16,25 +17,28 @@ from sqlalchemy.orm import Session
 from service.engine.records import canonical_json, differences
 
 from .audit import append_event
-from .models import Request, Rerun, Result
+from .models import Analysis, Request, Rerun, Result
 from .types import utcnow
 
-KINDS = ("request", "rerun")
+KINDS = ("request", "rerun", "analysis")
 log = logging.getLogger(__name__)
 
 
-def _model(kind: str) -> type[Request] | type[Rerun]:
+def _model(kind: str) -> type[Request] | type[Rerun] | type[Analysis]:
     if kind == "request":
         return Request
     if kind == "rerun":
         return Rerun
+    if kind == "analysis":
+        return Analysis
     raise ValueError(f"job kind must be one of {KINDS}; got {kind!r}")
 
 
 def _request_id(session: Session, kind: str, job_id: str) -> str | None:
     if kind == "request":
         return job_id
-    return session.scalar(select(Rerun.request_id).where(Rerun.id == job_id))
+    model = _model(kind)
+    return session.scalar(select(model.request_id).where(model.id == job_id))
 
 
 def _event(session: Session, kind: str, job_id: str, actor: str, action: str, **detail) -> None:
@@ -295,7 +299,7 @@ def fail(session: Session, kind: str, job_id: str, owner: str, error: str) -> bo
         "lease_expires_at": None,
         **_touch(kind, now),
     }
-    if kind == "rerun":
+    if kind in ("rerun", "analysis"):
         values["finished_at"] = now
     done = session.execute(
         update(model)
@@ -350,4 +354,73 @@ def stale_jobs(
             .order_by(stamp)
         )
         jobs.extend((kind, job_id) for job_id in rows)
+    # An analysis waits, unpublished, until its request has a result to analyse (or has ended
+    # without one, so the worker can fail it with the reason).
+    rows = session.scalars(
+        select(Analysis.id)
+        .join(Request, Request.id == Analysis.request_id)
+        .join(Result, Result.request_id == Analysis.request_id, isouter=True)
+        .where(
+            or_(
+                and_(
+                    Analysis.published_at.is_(None),
+                    Analysis.status == "queued",
+                    or_(Result.id.is_not(None), Request.status.in_(("failed", "cancelled"))),
+                    Analysis.created_at <= cutoff,
+                ),
+                and_(Analysis.status == "running", Analysis.lease_expires_at < now),
+            )
+        )
+        .order_by(Analysis.created_at)
+    )
+    jobs.extend(("analysis", job_id) for job_id in rows)
     return jobs
+
+
+def release_analysis(session: Session, analysis_id: str, owner: str) -> bool:
+    """Give back a claimed analysis whose request has no result yet, without using an attempt.
+
+    It returns to 'queued' and unpublished, so the sweeper publishes it once the result exists.
+    """
+    return bool(
+        session.execute(
+            update(Analysis)
+            .where(
+                Analysis.id == analysis_id,
+                Analysis.status == "running",
+                Analysis.lease_owner == owner,
+            )
+            .values(
+                status="queued",
+                lease_owner=None,
+                lease_expires_at=None,
+                published_at=None,
+                attempts=Analysis.attempts - 1,
+            )
+        ).rowcount
+    )
+
+
+def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict) -> bool:
+    """Store our analysis's result and mark it done; False when the lease was lost."""
+    now = utcnow()
+    done = session.execute(
+        update(Analysis)
+        .where(
+            Analysis.id == analysis_id,
+            Analysis.status == "running",
+            Analysis.lease_owner == owner,
+        )
+        .values(
+            status="done",
+            result=result,
+            error=None,
+            finished_at=now,
+            lease_owner=None,
+            lease_expires_at=None,
+        )
+    ).rowcount
+    if done:
+        kind = session.scalar(select(Analysis.kind).where(Analysis.id == analysis_id))
+        _event(session, "analysis", analysis_id, owner, "analysis_done", analysis=kind)
+    return bool(done)

@@ -1,4 +1,4 @@
-"""SQLAlchemy 2 typed models: requests, results, reruns, chunk_results, audit_events, api_tokens.
+"""SQLAlchemy 2 typed models: requests, results, reruns, analyses, chunk_results, audit_events, api_tokens.
 
 Table and column names are a contract with the workers (see the shared service contract).
 """
@@ -43,6 +43,10 @@ REQUEST_STATUSES = (
     "cancelled",
 )
 RERUN_STATUSES = ("queued", "running", "done", "failed")
+ANALYSIS_KINDS = ("sensitivity", "robustness")
+ANALYSIS_STATUSES = ("queued", "running", "done", "failed")
+# Jobs whose simulation chunks are shared through chunk_results.
+CHUNK_JOB_KINDS = ("request", "rerun", "analysis")
 # Who may do what is decided in service/api/auth.py; the store only keeps the names.
 TOKEN_ROLES = ("intake", "statistician", "auditor", "admin")
 # Statuses after which a request no longer changes on its own.
@@ -97,6 +101,7 @@ class Request(Base):
     lease_expires_at: Mapped[datetime | None]
     attempts: Mapped[int] = mapped_column(Integer, default=0)
     error: Mapped[str | None] = mapped_column(Text)
+    effect_source: Mapped[str | None] = mapped_column(Text)
 
 
 class Result(Base):
@@ -141,13 +146,41 @@ class Rerun(Base):
     error: Mapped[str | None] = mapped_column(Text)
 
 
+class Analysis(Base):
+    """A what-if view of a computed request (sensitivity grid or robustness panel), run as a job."""
+
+    __tablename__ = "analyses"
+    __table_args__ = (
+        CheckConstraint(_in("kind", ANALYSIS_KINDS), name="kind"),
+        CheckConstraint(_in("status", ANALYSIS_STATUSES), name="status"),
+    )
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    # An analysis means nothing without its request, so it goes when the request goes.
+    request_id: Mapped[str] = mapped_column(
+        ForeignKey("requests.id", ondelete="CASCADE"), index=True
+    )
+    kind: Mapped[str] = mapped_column(String(16))
+    params: Mapped[Json]
+    status: Mapped[str] = mapped_column(String(16))
+    requested_by: Mapped[str] = mapped_column(String(200))
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    published_at: Mapped[datetime | None]
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    lease_expires_at: Mapped[datetime | None]
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    result: Mapped[Any | None] = mapped_column(JSON)
+    error: Mapped[str | None] = mapped_column(Text)
+    finished_at: Mapped[datetime | None]
+
+
 class ChunkResult(Base):
     """One simulation chunk of a job, leased and stored so a retried job skips finished chunks."""
 
     __tablename__ = "chunk_results"
     __table_args__ = (
         UniqueConstraint("job_kind", "job_id", "task_key", name="uq_chunk_results_job_task"),
-        CheckConstraint(_in("job_kind", ("request", "rerun")), name="job_kind"),
+        CheckConstraint(_in("job_kind", CHUNK_JOB_KINDS), name="job_kind"),
         CheckConstraint(_in("status", ("running", "done")), name="status"),
     )
 

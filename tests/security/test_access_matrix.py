@@ -41,6 +41,10 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/v1/requests/<request_id>/curve.svg"): {INT, S, A},
     ("GET", "/v1/requests/<request_id>/curve.png"): {INT, S, A},
     ("GET", "/v1/staff/requests"): {S, A},
+    ("POST", "/v1/requests/<request_id>/report-links"): {INT, S, A},
+    ("POST", "/v1/requests/<request_id>/analyses"): {S},
+    ("GET", "/v1/requests/<request_id>/analyses"): {INT, S, A},
+    ("GET", "/v1/requests/<request_id>/analyses/<analysis_id>"): {INT, S, A},
     ("POST", "/v1/tokens"): {ADM},
     ("GET", "/v1/tokens"): {ADM},
     ("POST", "/v1/tokens/<token_id>/revoke"): {ADM},
@@ -59,6 +63,7 @@ BODIES = {
     "/v1/requests/<request_id>/comments": {"text": "Which SD source?"},
     "/v1/requests/<request_id>/approve": {"note": "ok"},
     "/v1/requests/<request_id>/return": {"note": "ok"},
+    "/v1/requests/<request_id>/analyses": {"kind": "sensitivity", "grid": {"alpha": [0.05, 0.01]}},
 }
 
 
@@ -96,7 +101,12 @@ def test_role_matrix(app, anon_client, api, tokens, method, rule):
         victim, _ = token_store.create_token(session, "intake", "to be revoked")
         revoked_id, revoked_secret = token_store.create_token(session, "statistician", "gone")
         token_store.revoke_token(session, revoked_id)
-    ids = {"request_id": request_id, "rerun_id": MISSING, "token_id": victim}
+    ids = {
+        "request_id": request_id,
+        "rerun_id": MISSING,
+        "analysis_id": MISSING,
+        "token_id": victim,
+    }
 
     callers = {"no token": {}, "revoked": {"Authorization": f"Bearer {revoked_secret}"}}
     # The intake caller is the request's submitter, so ownership does not hide it here.

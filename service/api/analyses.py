@@ -1,0 +1,211 @@
+"""A request's analyses: sensitivity grids and robustness panels, computed by workers.
+
+An analysis runs once its request has a result. Asked for on a computed request it is published
+at once; asked for earlier (``POST /v1/requests`` with ``analyses``, or here before the worker
+is done) it is stored unpublished and the sweeper publishes it once the result exists. A
+request that failed or was cancelled takes no new analysis (409).
+"""
+
+from __future__ import annotations
+
+import logging
+
+from flask import Blueprint, jsonify, url_for
+
+from service.engine import QuestionError, draw_seed
+from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost
+from service.schemas.requests import (
+    AnalysisCreateSchema,
+    AnalysisListSchema,
+    AnalysisSchema,
+)
+from service.store import analyses as store
+from service.store import jobs
+from service.store import requests as request_store
+from service.store.db import session_scope
+from service.store.models import Analysis, Request
+
+from . import render
+from .context import sessions, settings
+from .docs import operation
+from .errors import Conflict, NotFound, ValidationFailed
+from .identity import current_actor
+from .io import load_body, reject_query
+
+log = logging.getLogger(__name__)
+
+# Nested in the reports blueprint (endpoints ``reports.analyses.*``, paths under /v1).
+bp = Blueprint("analyses", __name__)
+
+_NO_NEW_ANALYSIS = ("failed", "cancelled")
+ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
+
+
+def _load_request(session, request_id: str) -> Request:
+    row = session.get(Request, request_id) if len(request_id) == 32 else None
+    if row is None:
+        raise NotFound(f"no request with id '{request_id}'")
+    return row
+
+
+def analysis_params(
+    question: dict, record: dict | None, kind: str, spec: dict, *, prefix: str = ""
+) -> dict:
+    """Validate one analysis against the request, price it, and return the params to store.
+
+    Errors are keyed ``prefix + field`` (``grid.effect.sd``, ``analyses.robustness``); a grid or
+    panel over ``SIMULATION_BUDGET`` is refused (422) with its estimate.
+    """
+    design = question.get("design")
+    if kind == "robustness":
+        if design != "two_means":
+            message = (
+                "the robustness panel simulates departures from normal data for two_means "
+                f"only; this request's design is {design!r}"
+            )
+            raise ValidationFailed(message, errors={f"{prefix}kind": [message]}, design=design)
+        sim = question.get("simulation") or {}
+        # A simulated request lends its seed and replicates; an analytic one gets a fresh seed.
+        params = {
+            "replicates": int(
+                spec.get("replicates") or sim.get("replicates") or ROBUSTNESS_REPLICATES
+            ),
+            "seed": int(sim["seed"]) if sim.get("seed") is not None else draw_seed(),
+        }
+        field = f"{prefix}replicates"
+    else:
+        params = {"grid": spec["grid"]}
+        field = f"{prefix}grid"
+    try:
+        estimate = analysis_cost(kind, params, question, record)
+    except QuestionError as exc:
+        key = exc.field if exc.field.startswith("grid") else "grid"
+        raise ValidationFailed(str(exc), errors={f"{prefix}{key}": [exc.message]}) from None
+    budget = int(settings()["SIMULATION_BUDGET"])
+    if estimate > budget:
+        message = (
+            f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
+            f"{budget:,}; use fewer cells or fewer replicates"
+        )
+        raise ValidationFailed(message, errors={field: [message]}, estimate=estimate, budget=budget)
+    return params
+
+
+def _publish(analysis_id: str) -> bool:
+    """Publish the analysis after the commit; False leaves it for the sweeper."""
+    try:
+        from workers.analysis_tasks import publish_analysis
+
+        sent = publish_analysis(analysis_id, settings())
+    except Exception:  # never fail a request that is already stored
+        log.exception("publishing analysis %s failed; left for the sweeper", analysis_id)
+        return False
+    if sent:
+        with session_scope(sessions()) as session:
+            jobs.mark_published(session, "analysis", analysis_id)
+    return sent
+
+
+@bp.post("/requests/<request_id>/analyses")
+@operation(
+    "Ask for a sensitivity grid or a robustness panel of a request",
+    tag="analyses",
+    status=202,
+    response=AnalysisSchema,
+    body=AnalysisCreateSchema,
+    description=(
+        "Runs on a worker once the request is computed (at once if it already is). A grid "
+        "re-solves the question at every combination of the listed values; a robustness panel "
+        "(two_means) simulates the test under departures from normal data. Refused (422) over "
+        "the per-simulation budget, and (409) for a failed or cancelled request."
+    ),
+    errors=ERRORS,
+    headers={"Location": "URL of the analysis"},
+)
+def create_analysis(request_id: str):
+    """Store an analysis of the request and publish it when the request has a result."""
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(AnalysisCreateSchema())
+    with session_scope(sessions()) as session:
+        row = _load_request(session, request_id)
+        if row.status in _NO_NEW_ANALYSIS:
+            raise Conflict(
+                f"request '{request_id}' is {row.status}; it has no result to analyse",
+                current_status=row.status,
+            )
+        result = request_store.result_for(session, request_id)
+        record = result.record if result is not None else None
+        params = analysis_params(row.question, record, data["kind"], data)
+        analysis_id = store.create_analysis(session, request_id, data["kind"], params, actor).id
+    if record is not None:
+        _publish(analysis_id)
+    with session_scope(sessions()) as session:
+        body = render.analysis(session.get(Analysis, analysis_id))
+    response = jsonify(body)
+    response.status_code = 202
+    response.headers["Location"] = url_for(
+        "reports.analyses.get_analysis", request_id=request_id, analysis_id=analysis_id
+    )
+    return response
+
+
+@bp.get("/requests/<request_id>/analyses")
+@operation(
+    "List a request's analyses and their results",
+    tag="analyses",
+    response=AnalysisListSchema,
+    errors=(404, 422, 500, 503),
+)
+def list_analyses(request_id: str):
+    """Return the request's analyses, oldest first, with their results."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        _load_request(session, request_id)
+        return jsonify(
+            {"items": [render.analysis(a) for a in store.analyses_for(session, request_id)]}
+        )
+
+
+@bp.get("/requests/<request_id>/analyses/<analysis_id>")
+@operation(
+    "Read one analysis and its result",
+    tag="analyses",
+    response=AnalysisSchema,
+    errors=(404, 422, 500, 503),
+)
+def get_analysis(request_id: str, analysis_id: str):
+    """Return one analysis of the request."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        _load_request(session, request_id)
+        row = session.get(Analysis, analysis_id)
+        if row is None or row.request_id != request_id:
+            raise NotFound(f"request {request_id} has no analysis with id '{analysis_id}'")
+        return jsonify(render.analysis(row))
+
+
+# --- analyses and effect source posted with the request ----------------------------------
+
+
+def store_submission(session, row: Request, body: dict, actor: str) -> list[str]:
+    """Store a submission's effect source and its analyses (unpublished until computed)."""
+    if body.get("effect_source") is not None:
+        row.effect_source = body["effect_source"]
+    asked = body.get("analyses") or {}
+    ids = []
+    for kind, spec in (
+        ("sensitivity", asked.get("sensitivity")),
+        ("robustness", asked.get("robustness")),
+    ):
+        if not spec:
+            continue
+        params = analysis_params(
+            row.question,
+            None,
+            kind,
+            spec if isinstance(spec, dict) else {},
+            prefix=f"analyses.{kind}.",
+        )
+        ids.append(store.create_analysis(session, row.id, kind, params, actor).id)
+    return ids

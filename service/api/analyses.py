@@ -31,6 +31,7 @@ from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
 from .identity import current_actor
 from .io import load_body, reject_query
+from .views import load_request, located
 
 log = logging.getLogger(__name__)
 
@@ -39,13 +40,6 @@ bp = Blueprint("analyses", __name__)
 
 _NO_NEW_ANALYSIS = ("failed", "cancelled")
 ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
-
-
-def _load_request(session, request_id: str) -> Request:
-    row = session.get(Request, request_id) if len(request_id) == 32 else None
-    if row is None:
-        raise NotFound(f"no request with id '{request_id}'")
-    return row
 
 
 def analysis_params(
@@ -128,7 +122,7 @@ def create_analysis(request_id: str):
     actor = current_actor()
     _raw, data = load_body(AnalysisCreateSchema())
     with session_scope(sessions()) as session:
-        row = _load_request(session, request_id)
+        row = load_request(session, request_id)
         if row.status in _NO_NEW_ANALYSIS:
             raise Conflict(
                 f"request '{request_id}' is {row.status}; it has no result to analyse",
@@ -142,12 +136,11 @@ def create_analysis(request_id: str):
         _publish(analysis_id)
     with session_scope(sessions()) as session:
         body = render.analysis(session.get(Analysis, analysis_id))
-    response = jsonify(body)
-    response.status_code = 202
-    response.headers["Location"] = url_for(
-        "reports.analyses.get_analysis", request_id=request_id, analysis_id=analysis_id
+    return located(
+        body,
+        202,
+        url_for("reports.analyses.get_analysis", request_id=request_id, analysis_id=analysis_id),
     )
-    return response
 
 
 @bp.get("/requests/<request_id>/analyses")
@@ -161,7 +154,7 @@ def list_analyses(request_id: str):
     """Return the request's analyses, oldest first, with their results."""
     reject_query()
     with session_scope(sessions()) as session:
-        _load_request(session, request_id)
+        load_request(session, request_id)
         return jsonify(
             {"items": [render.analysis(a) for a in store.analyses_for(session, request_id)]}
         )
@@ -178,7 +171,7 @@ def get_analysis(request_id: str, analysis_id: str):
     """Return one analysis of the request."""
     reject_query()
     with session_scope(sessions()) as session:
-        _load_request(session, request_id)
+        load_request(session, request_id)
         row = session.get(Analysis, analysis_id)
         if row is None or row.request_id != request_id:
             raise NotFound(f"request {request_id} has no analysis with id '{analysis_id}'")

@@ -12,17 +12,15 @@ from service.reports.plots import curve_points, power_curve_png, power_curve_svg
 from service.reports.render import render_report, render_staff_list
 from service.schemas.requests import ReportLinkSchema, RequestQueryArgsSchema
 from service.store import analyses as analysis_store
-from service.store import requests as store
 from service.store.db import session_scope
-from service.store.models import Request
 
 from . import analyses, render
 from .auth import LINK_PARAM, report_link
 from .context import sessions
 from .docs import operation
-from .errors import Conflict, NotFound, ValidationFailed
-from .identity import visible_submitter
-from .io import load_query, reject_query
+from .errors import Conflict, ValidationFailed
+from .io import reject_query
+from .views import load_request, visible_request_page
 
 bp = Blueprint("reports", __name__, url_prefix="/v1")
 bp.register_blueprint(analyses.bp)
@@ -44,10 +42,7 @@ def _page_query() -> None:
 def _detail_with_result(request_id: str) -> tuple[dict, dict]:
     """The request's detail and its latest finished analyses; 409 while it has no result yet."""
     with session_scope(sessions()) as session:
-        row = session.get(Request, request_id)
-        if row is None:
-            raise NotFound(f"no request with id '{request_id}'")
-        detail = render.request_detail(session, row)
+        detail = render.request_detail(session, load_request(session, request_id))
         done = {k: a.result for k, a in analysis_store.latest_done(session, request_id).items()}
     if detail["result"] is None:
         raise Conflict(
@@ -55,6 +50,13 @@ def _detail_with_result(request_id: str) -> tuple[dict, dict]:
             "the report exists once it is computed"
         )
     return detail, done
+
+
+def _curve(request_id: str, draw, mimetype: str) -> Response:
+    """The power curve of the request's result, drawn by ``draw`` (SVG or PNG)."""
+    _page_query()
+    record = _detail_with_result(request_id)[0]["result"]
+    return Response(draw(curve_points(record)), mimetype=mimetype)
 
 
 @bp.get("/requests/<request_id>/report")
@@ -89,9 +91,7 @@ def request_report(request_id: str):
 )
 def curve_svg(request_id: str):
     """Power against n per arm around the answer, as SVG."""
-    _page_query()
-    record = _detail_with_result(request_id)[0]["result"]
-    return Response(power_curve_svg(curve_points(record)), mimetype="image/svg+xml")
+    return _curve(request_id, power_curve_svg, "image/svg+xml")
 
 
 @bp.get("/requests/<request_id>/curve.png")
@@ -103,9 +103,7 @@ def curve_svg(request_id: str):
 )
 def curve_png(request_id: str):
     """Power against n per arm around the answer, as PNG for documents."""
-    _page_query()
-    record = _detail_with_result(request_id)[0]["result"]
-    return Response(power_curve_png(curve_points(record)), mimetype="image/png")
+    return _curve(request_id, power_curve_png, "image/png")
 
 
 @bp.post("/requests/<request_id>/report-links")
@@ -124,8 +122,7 @@ def create_report_link(request_id: str):
     """Issue a signed report link for a request the caller may read."""
     reject_query()
     with session_scope(sessions()) as session:
-        if len(request_id) != 32 or session.get(Request, request_id) is None:
-            raise NotFound(f"no request with id '{request_id}'")
+        load_request(session, request_id)
     return jsonify(_LINK_SCHEMA.dump(report_link(request_id))), 201
 
 
@@ -139,11 +136,5 @@ def create_report_link(request_id: str):
 )
 def staff_requests():
     """Render one page of requests with their status, newest first."""
-    args = load_query(RequestQueryArgsSchema())
-    page, per_page = args.pop("page"), args.pop("per_page")
-    with session_scope(sessions()) as session:
-        result = store.list_requests(
-            session, page=page, per_page=per_page, submitted_by=visible_submitter(), **args
-        )
-        items = render.request_page(result, page, per_page)["items"]
+    items = visible_request_page()["items"]
     return Response(render_staff_list(items), mimetype="text/html")

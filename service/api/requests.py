@@ -27,7 +27,6 @@ from service.schemas.requests import (
 )
 from service.store import requests as store
 from service.store.db import session_scope
-from service.store.models import Request
 
 from . import render
 from .analyses import store_submission
@@ -35,27 +34,34 @@ from .auth import check_submission_cost
 from .context import sessions
 from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
-from .identity import current_actor, submitter, visible_submitter
-from .io import load_body, load_query, raw_json_body, reject_query
+from .identity import current_actor, submitter
+from .io import load_body, raw_json_body, reject_query
 from .publishing import publish_job
+from .views import load_request, located, visible_request_page
 
 bp = Blueprint("requests", __name__, url_prefix="/v1")
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 _KEY_PATTERN = re.compile(r"^[\x21-\x7e]{1,200}$")
-_ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
 BODY_ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
-
-
-def _load(session, request_id: str) -> Request:
-    row = store.get_request(session, request_id) if _ID_PATTERN.match(request_id) else None
-    if row is None:
-        raise NotFound(f"no request with id '{request_id}'")
-    return row
 
 
 def _refused(exc: store.TransitionRefused) -> Conflict:
     return Conflict(str(exc), current_status=exc.status, allowed_from=list(exc.allowed_from))
+
+
+def _transition(request_id: str, schema, change, *, optional: bool = False):
+    # One shape for every guarded change of a request: body, lookup, store call, 409 if refused.
+    reject_query()
+    actor = current_actor()
+    _raw, data = load_body(schema, optional=optional)
+    with session_scope(sessions()) as session:
+        row = load_request(session, request_id)
+        try:
+            change(session, row, actor, data)
+        except store.TransitionRefused as exc:
+            raise _refused(exc) from None
+        return jsonify(render.request_detail(session, row))
 
 
 def _idempotency_key() -> str | None:
@@ -105,10 +111,7 @@ def _with_seed(question: dict) -> dict:
 
 
 def _created(body: dict, status: int):
-    response = jsonify(body)
-    response.status_code = status
-    response.headers["Location"] = url_for("requests.get_request", request_id=body["id"])
-    return response
+    return located(body, status, url_for("requests.get_request", request_id=body["id"]))
 
 
 @bp.post("/requests")
@@ -184,13 +187,7 @@ def submit_request():
 )
 def list_requests():
     """Return one page of requests matching the filters."""
-    args = load_query(RequestQueryArgsSchema())
-    page, per_page = args.pop("page"), args.pop("per_page")
-    with session_scope(sessions()) as session:
-        result = store.list_requests(
-            session, page=page, per_page=per_page, submitted_by=visible_submitter(), **args
-        )
-        return jsonify(render.request_page(result, page, per_page))
+    return jsonify(visible_request_page())
 
 
 @bp.get("/requests/<request_id>")
@@ -204,7 +201,7 @@ def get_request(request_id: str):
     """Return the request with its result record (or null) and its audit history."""
     reject_query()
     with session_scope(sessions()) as session:
-        return jsonify(render.request_detail(session, _load(session, request_id)))
+        return jsonify(render.request_detail(session, load_request(session, request_id)))
 
 
 @bp.post("/requests/<request_id>/cancel")
@@ -222,16 +219,14 @@ def get_request(request_id: str):
 )
 def cancel_request(request_id: str):
     """Cancel the request or ask its worker to stop."""
-    reject_query()
-    actor = current_actor()
-    _raw, data = load_body(CancelSchema(), optional=True)
-    with session_scope(sessions()) as session:
-        row = _load(session, request_id)
-        try:
-            store.cancel_request(session, row, actor, data.get("reason"))
-        except store.TransitionRefused as exc:
-            raise _refused(exc) from None
-        return jsonify(render.request_detail(session, row))
+    return _transition(
+        request_id,
+        CancelSchema(),
+        lambda session, row, actor, data: store.cancel_request(
+            session, row, actor, data.get("reason")
+        ),
+        optional=True,
+    )
 
 
 @bp.post("/requests/<request_id>/assign")
@@ -244,16 +239,11 @@ def cancel_request(request_id: str):
 )
 def assign_request(request_id: str):
     """Record who reviews the request."""
-    reject_query()
-    actor = current_actor()
-    _raw, data = load_body(AssignSchema())
-    with session_scope(sessions()) as session:
-        row = _load(session, request_id)
-        try:
-            store.assign(session, row, actor, data["to"])
-        except store.TransitionRefused as exc:
-            raise _refused(exc) from None
-        return jsonify(render.request_detail(session, row))
+    return _transition(
+        request_id,
+        AssignSchema(),
+        lambda session, row, actor, data: store.assign(session, row, actor, data["to"]),
+    )
 
 
 @bp.post("/requests/<request_id>/comments")
@@ -271,22 +261,17 @@ def comment_request(request_id: str):
     actor = current_actor()
     _raw, data = load_body(CommentSchema())
     with session_scope(sessions()) as session:
-        row = _load(session, request_id)
+        row = load_request(session, request_id)
         event = render.event(store.comment(session, row, actor, data["text"]))
     return jsonify(event), 201
 
 
 def _review(request_id: str, decision: str):
-    reject_query()
-    actor = current_actor()
-    _raw, data = load_body(ReviewNoteSchema())
-    with session_scope(sessions()) as session:
-        row = _load(session, request_id)
-        try:
-            store.review(session, row, actor, decision, data["note"])
-        except store.TransitionRefused as exc:
-            raise _refused(exc) from None
-        return jsonify(render.request_detail(session, row))
+    return _transition(
+        request_id,
+        ReviewNoteSchema(),
+        lambda session, row, actor, data: store.review(session, row, actor, decision, data["note"]),
+    )
 
 
 @bp.post("/requests/<request_id>/approve")
@@ -332,7 +317,7 @@ def create_rerun(request_id: str):
     actor = current_actor()
     _raw, data = load_body(RerunCreateSchema(), optional=True)
     with session_scope(sessions()) as session:
-        row = _load(session, request_id)
+        row = load_request(session, request_id)
         try:
             rerun_id = store.create_rerun(session, row, actor, data.get("note")).id
         except store.ResultMissing as exc:
@@ -340,12 +325,9 @@ def create_rerun(request_id: str):
     publish_job("rerun", rerun_id)
     with session_scope(sessions()) as session:
         body = render.rerun(store.get_rerun(session, request_id, rerun_id))
-    response = jsonify(body)
-    response.status_code = 202
-    response.headers["Location"] = url_for(
-        "requests.get_rerun", request_id=request_id, rerun_id=rerun_id
+    return located(
+        body, 202, url_for("requests.get_rerun", request_id=request_id, rerun_id=rerun_id)
     )
-    return response
 
 
 @bp.get("/requests/<request_id>/reruns")
@@ -356,7 +338,7 @@ def list_reruns(request_id: str):
     """Return the request's reruns, oldest first."""
     reject_query()
     with session_scope(sessions()) as session:
-        _load(session, request_id)
+        load_request(session, request_id)
         items = [render.rerun(r) for r in store.reruns_for(session, request_id)]
     for item in items:
         item.pop("record", None)
@@ -374,7 +356,7 @@ def get_rerun(request_id: str, rerun_id: str):
     """Return one rerun of the request."""
     reject_query()
     with session_scope(sessions()) as session:
-        _load(session, request_id)
+        load_request(session, request_id)
         rerun = store.get_rerun(session, request_id, rerun_id)
         if rerun is None:
             raise NotFound(f"request {request_id} has no rerun with id '{rerun_id}'")

@@ -53,12 +53,8 @@ def compute(
 
     Examples
     --------
-    >>> q = {"design": "two_means", "find": "sample_size", "alpha": 0.05, "sides": 2,
-    ...      "target_power": 0.8, "sample_size": None, "allocation_ratio": 1.0,
-    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> from service.engine.examples import example_question
+    >>> q = example_question()  # two means, d = 0.5, SD 1, two-sided 5%, 80% power
     >>> compute(q)["sample_size"]["per_arm"]
     [64, 64]
     """
@@ -67,7 +63,8 @@ def compute(
         design = designs.get(q["design"])
     except KeyError:
         raise QuestionError(
-            "design", f"unknown design {q.get('design')!r}; allowed: {', '.join(designs.DESIGN_NAMES)}"
+            "design",
+            f"unknown design {q.get('design')!r}; allowed: {', '.join(designs.DESIGN_NAMES)}",
         ) from None
     simulated = q.get("method") == "simulation"
     if simulated:
@@ -77,7 +74,8 @@ def compute(
         record = _answer(q, design, simulated, *hooks)
     except EngineError:
         raise
-    except _CallerError as exc:  # the caller's own failure (lost lease, database down) goes back untouched
+    except _CallerError as exc:
+        # the caller's own failure (lost lease, database down) goes back untouched
         raise exc.original from None
     except Exception as exc:  # numerics failing in an unforeseen corner still get a typed error
         raise EngineError(f"the computation failed: {type(exc).__name__}: {exc}") from exc
@@ -215,8 +213,12 @@ def _analytic_or_none_power(design, q, per_arm, alpha):
 
 
 def _analytic_power(design, q, per_arm, alpha) -> dict:
-    return {"estimate": float(design.power(q, per_arm, alpha)), "mcse": None, "ci95": None,
-            "replicates": None}
+    return {
+        "estimate": float(design.power(q, per_arm, alpha)),
+        "mcse": None,
+        "ci95": None,
+        "replicates": None,
+    }
 
 
 def _base_per_arm(steps: list[dict], raw: list[float]) -> list[int]:

@@ -46,7 +46,8 @@ def _numeric_paths(q: dict, prefix: str = "") -> list[str]:
 def _allowed_paths(q: dict) -> list[str]:
     # Fields a grid may move: the assumptions, not the bookkeeping (seeds, replicates, chunking).
     paths = [
-        p for p in _numeric_paths(q)
+        p
+        for p in _numeric_paths(q)
         if p.split(".")[0] in ("alpha", "target_power", "allocation_ratio", "effect", "adjustments")
     ]
     if q.get("design") == "two_means":
@@ -84,7 +85,9 @@ def _check_values(path: str, values) -> list[float]:
 
 def _check_grid(q: dict, grid) -> list[tuple[str, list[float]]]:
     if not isinstance(grid, dict) or not grid:
-        raise QuestionError("grid", f"must be a non-empty mapping of field path to values; got {grid!r}")
+        raise QuestionError(
+            "grid", f"must be a non-empty mapping of field path to values; got {grid!r}"
+        )
     if len(grid) > MAX_AXES:
         raise QuestionError("grid", f"at most {MAX_AXES} axes; got {len(grid)} ({', '.join(grid)})")
     allowed = _allowed_paths(q)
@@ -92,19 +95,27 @@ def _check_grid(q: dict, grid) -> list[tuple[str, list[float]]]:
     for path, values in grid.items():
         if path not in allowed:
             raise QuestionError(
-                f"grid.{path}", f"is not a numeric field of this question; allowed: {', '.join(allowed)}"
+                f"grid.{path}",
+                f"is not a numeric field of this question; allowed: {', '.join(allowed)}",
             )
         axes.append((path, _check_values(path, values)))
     paths = [p for p, _ in axes]
     if _BOTH_SDS in paths and {"effect.sd_control", "effect.sd_treatment"} & set(paths):
-        raise QuestionError("grid.effect.sd", "moves both SDs; do not combine it with effect.sd_control/sd_treatment")
+        raise QuestionError(
+            "grid.effect.sd",
+            "moves both SDs; do not combine it with effect.sd_control/sd_treatment",
+        )
     cells = math.prod(len(v) for _, v in axes)
     if cells > MAX_CELLS:
-        raise QuestionError("grid", f"has {cells} cells; at most {MAX_CELLS} are computed in one request")
+        raise QuestionError(
+            "grid", f"has {cells} cells; at most {MAX_CELLS} are computed in one request"
+        )
     return axes
 
 
-def _cell_questions(question: dict, grid) -> tuple[list[tuple[str, list[float]]], list[tuple[dict, dict]]]:
+def _cell_questions(
+    question: dict, grid
+) -> tuple[list[tuple[str, list[float]]], list[tuple[dict, dict]]]:
     """Validate ``grid`` and return its axes and (values, cell question) pairs, row-major."""
     axes = _check_grid(question, grid)
     cells = []
@@ -119,7 +130,9 @@ def _cell_questions(question: dict, grid) -> tuple[list[tuple[str, list[float]]]
 
 def _check_question(question: dict, *, simulated_ok: bool) -> None:
     if not isinstance(question, dict):
-        raise QuestionError("question", f"must be a normalized question object; got {type(question).__name__}")
+        raise QuestionError(
+            "question", f"must be a normalized question object; got {type(question).__name__}"
+        )
     if question.get("method") == "simulation":
         if not simulated_ok:
             raise QuestionError(
@@ -128,10 +141,13 @@ def _check_question(question: dict, *, simulated_ok: bool) -> None:
                 "submitted as a worker job (pass an executor)",
             )
         if (question.get("simulation") or {}).get("seed") is None:
-            raise QuestionError("simulation.seed", "must be set: every cell of a simulated grid uses the same seed")
+            raise QuestionError(
+                "simulation.seed", "must be set: every cell of a simulated grid uses the same seed"
+            )
     if question.get("find") not in ("sample_size", "power"):
         raise QuestionError(
-            "find", f"a sensitivity grid needs find 'sample_size' or 'power'; got {question.get('find')!r}"
+            "find",
+            f"a sensitivity grid needs find 'sample_size' or 'power'; got {question.get('find')!r}",
         )
 
 
@@ -140,12 +156,8 @@ def grid_cost(question: dict, grid: dict[str, list[float]]) -> int:
 
     Examples
     --------
-    >>> q = {"design": "two_means", "find": "power", "alpha": 0.05, "sides": 2,
-    ...      "target_power": None, "sample_size": {"per_arm": [30, 30]}, "allocation_ratio": 1.0,
-    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> from service.engine.examples import example_question
+    >>> q = example_question(find="power", target_power=None, sample_size={"per_arm": [30, 30]})
     >>> grid_cost(q, {"effect.difference": [0.4, 0.5]})
     0
     """
@@ -184,12 +196,8 @@ def sensitivity(
 
     Examples
     --------
-    >>> q = {"design": "two_means", "find": "sample_size", "alpha": 0.05, "sides": 2,
-    ...      "target_power": 0.8, "sample_size": None, "allocation_ratio": 1.0,
-    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> from service.engine.examples import example_question
+    >>> q = example_question()  # two means, d = 0.5, SD 1, two-sided 5%, 80% power
     >>> [c["per_arm"] for c in sensitivity(q, {"effect.difference": [0.5, 0.8]})["cells"]]
     [[64, 64], [26, 26]]
     """
@@ -203,8 +211,10 @@ def sensitivity(
     for i, (values, q) in enumerate(pairs):
         step = None
         if progress is not None:
+
             def step(f: float, i: int = i) -> None:
                 progress((i + min(max(float(f), 0.0), 1.0)) / len(pairs))
+
         cells.append(_cell(q, values, progress=step, **hooks))
         if progress is not None:
             progress((i + 1) / len(pairs))
@@ -239,8 +249,14 @@ def _cell(q: dict, values: dict, **hooks) -> dict:
     except BudgetExceeded:
         raise
     except QuestionError as exc:
-        return {"values": values, "per_arm": None, "total": None, "power": None, "mcse": None,
-                "error": str(exc)}
+        return {
+            "values": values,
+            "per_arm": None,
+            "total": None,
+            "power": None,
+            "mcse": None,
+            "error": str(exc),
+        }
     return {"values": values, **_summary(record)}
 
 
@@ -267,7 +283,12 @@ def _normal(mean: float, sd: float) -> dict:
 
 def _student_t(mean: float, sd: float) -> dict:
     # Var of t_df is scale²·df/(df − 2): scale = sd·√((df − 2)/df) keeps the SD.
-    return {"family": "student_t", "df": T_DF, "loc": mean, "scale": sd * math.sqrt((T_DF - 2) / T_DF)}
+    return {
+        "family": "student_t",
+        "df": T_DF,
+        "loc": mean,
+        "scale": sd * math.sqrt((T_DF - 2) / T_DF),
+    }
 
 
 def _lognormal(mean: float, sd: float) -> dict:
@@ -280,7 +301,9 @@ def _lognormal(mean: float, sd: float) -> dict:
 
 def _gamma(mean: float, sd: float) -> dict:
     scale = sd / math.sqrt(GAMMA_SHAPE)
-    return _with_shift({"family": "gamma", "shape": GAMMA_SHAPE, "scale": scale}, mean - GAMMA_SHAPE * scale)
+    return _with_shift(
+        {"family": "gamma", "shape": GAMMA_SHAPE, "scale": scale}, mean - GAMMA_SHAPE * scale
+    )
 
 
 def _cauchy(mean: float, sd: float) -> dict:
@@ -297,31 +320,37 @@ def _with_shift(arm: dict, shift: float) -> dict:
 DEPARTURES: dict[str, tuple[str, object, float]] = {
     "normal": (
         "Normal data with the assumed means and SDs: the reference case the answer was planned for.",
-        _normal, 1.0,
+        _normal,
+        1.0,
     ),
     "heavy_tails": (
         f"Heavier tails: Student t with {T_DF:g} degrees of freedom in each arm, scaled to the same "
         "mean and SD (more outlying values than the normal).",
-        _student_t, 1.0,
+        _student_t,
+        1.0,
     ),
     "skew_lognormal": (
         f"Right skew: shifted lognormal (log-scale SD {LOGNORMAL_SIGMA:g}, skewness about 2.3) in "
         "each arm, matched to the assumed mean and SD.",
-        _lognormal, 1.0,
+        _lognormal,
+        1.0,
     ),
     "skew_gamma": (
         f"Moderate right skew: shifted gamma (shape {GAMMA_SHAPE:g}, skewness about 1.4) in each "
         "arm, matched to the assumed mean and SD.",
-        _gamma, 1.0,
+        _gamma,
+        1.0,
     ),
     "unequal_variance": (
         f"Unequal variance: normal data with the treatment SD multiplied by {SD_FACTOR:g}.",
-        _normal, SD_FACTOR,
+        _normal,
+        SD_FACTOR,
     ),
     "cauchy": (
         "The extreme: Cauchy data (no mean or variance), centred at the assumed means with the "
         "normal model's interquartile range.",
-        _cauchy, 1.0,
+        _cauchy,
+        1.0,
     ),
 }
 
@@ -335,12 +364,17 @@ def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float,
     for name in ("difference", "sd_control", "sd_treatment"):
         value = effect.get(name)
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise QuestionError(f"effect.{name}", f"must be a number for the robustness panel; got {value!r}")
+            raise QuestionError(
+                f"effect.{name}", f"must be a number for the robustness panel; got {value!r}"
+            )
     if not (
-        isinstance(per_arm, (list, tuple)) and len(per_arm) == 2
+        isinstance(per_arm, (list, tuple))
+        and len(per_arm) == 2
         and all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in per_arm)
     ):
-        raise QuestionError("per_arm", f"must be two whole numbers ≥ 2 (control, treatment); got {per_arm!r}")
+        raise QuestionError(
+            "per_arm", f"must be two whole numbers ≥ 2 (control, treatment); got {per_arm!r}"
+        )
     sim = question.get("simulation") or {}
     data = sim.get("data")
     # The control mean only positions the skewed families; a posted normal model supplies it.
@@ -348,8 +382,11 @@ def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float,
     if isinstance(data, dict) and (data.get("control") or {}).get("family") == "normal":
         mean0 = float(data["control"]["mean"])
     return (
-        mean0, float(effect["difference"]), float(effect["sd_control"]),
-        float(effect["sd_treatment"]), [int(n) for n in per_arm],
+        mean0,
+        float(effect["difference"]),
+        float(effect["sd_control"]),
+        float(effect["sd_treatment"]),
+        [int(n) for n in per_arm],
     )
 
 
@@ -358,10 +395,18 @@ def _departure_questions(
 ) -> tuple[str, list[tuple[str, str, dict, dict]]]:
     """Validate the inputs; return the test and (name, description, data, question) per departure."""
     mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
-    if isinstance(replicates, bool) or not isinstance(replicates, int) or not 200 <= replicates <= 2_000_000:
-        raise QuestionError("simulation.replicates", f"must be a whole number in 200…2,000,000; got {replicates!r}")
+    if (
+        isinstance(replicates, bool)
+        or not isinstance(replicates, int)
+        or not 200 <= replicates <= 2_000_000
+    ):
+        raise QuestionError(
+            "simulation.replicates", f"must be a whole number in 200…2,000,000; got {replicates!r}"
+        )
     if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**53:
-        raise QuestionError("simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}")
+        raise QuestionError(
+            "simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}"
+        )
     base_sim = question.get("simulation") or {}
     test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS["two_means"][0])
     runs = []
@@ -369,11 +414,16 @@ def _departure_questions(
         data = {"control": build(mean0, sd_c), "treatment": build(mean0 + diff, sd_t * factor)}
         q = copy.deepcopy(question)
         q.update(
-            find="power", target_power=None, method="simulation",
+            find="power",
+            target_power=None,
+            method="simulation",
             sample_size={"per_arm": list(sizes)},
         )
         q["simulation"] = {
-            "replicates": replicates, "seed": seed, "test": test, "data": data,
+            "replicates": replicates,
+            "seed": seed,
+            "test": test,
+            "data": data,
             "decision_rule": base_sim.get("decision_rule", "point"),
             "chunk_size": base_sim.get("chunk_size", 1000),
             "search_replicates": base_sim.get("search_replicates", 2000),
@@ -388,7 +438,8 @@ def robustness_cost(question: dict, per_arm: list[int], *, replicates: int, seed
     return sum(int(estimate_cost(q)) for *_rest, q in runs)
 
 
-def robustness(    question: dict,
+def robustness(
+    question: dict,
     per_arm: list[int],
     *,
     replicates: int,
@@ -418,12 +469,8 @@ def robustness(    question: dict,
 
     Examples
     --------
-    >>> q = {"design": "two_means", "find": "sample_size", "alpha": 0.05, "sides": 2,
-    ...      "target_power": 0.8, "sample_size": None, "allocation_ratio": 1.0,
-    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    ...      "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-    ...      "method": "analytic", "formula": "student", "simulation": None}
+    >>> from service.engine.examples import example_question
+    >>> q = example_question()  # two means, d = 0.5, SD 1, two-sided 5%, 80% power
     >>> panel = robustness(q, [64, 64], replicates=400, seed=7)
     >>> [d["name"] for d in panel["departures"]][:2]
     ['normal', 'heavy_tails']
@@ -433,18 +480,22 @@ def robustness(    question: dict,
     for i, (name, description, data, q) in enumerate(runs):
         step = None
         if progress is not None:
+
             def step(f: float, i: int = i) -> None:
                 progress((i + min(max(float(f), 0.0), 1.0)) / len(runs))
+
         record = compute(q, executor=executor, progress=step, budget=budget)
-        departures.append({
-            "name": name,
-            "description": description,
-            "data": record["method"].get("data", data),
-            "power": _estimate(record["power"]),
-            "type_i_error": _estimate(record["type_i_error"]),
-            "null_model": (record["type_i_error"] or {}).get("null_model"),
-            "record_sha256": record["reproducibility"]["record_sha256"],
-        })
+        departures.append(
+            {
+                "name": name,
+                "description": description,
+                "data": record["method"].get("data", data),
+                "power": _estimate(record["power"]),
+                "type_i_error": _estimate(record["type_i_error"]),
+                "null_model": (record["type_i_error"] or {}).get("null_model"),
+                "record_sha256": record["reproducibility"]["record_sha256"],
+            }
+        )
     sizes = list(runs[0][3]["sample_size"]["per_arm"])
     return {
         "design": "two_means",

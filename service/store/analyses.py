@@ -11,7 +11,7 @@ import uuid
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from .audit import append_event
+from .audit import add_with_event
 from .models import ANALYSIS_KINDS, Analysis
 
 
@@ -30,16 +30,14 @@ def create_analysis(
         requested_by=actor,
         attempts=0,
     )
-    session.add(row)
-    session.flush()
-    append_event(
+    return add_with_event(
         session,
+        row,
         request_id=request_id,
         actor=actor,
         action="analysis_requested",
         detail={"analysis_id": row.id, "kind": kind},
     )
-    return row
 
 
 def analyses_for(session: Session, request_id: str) -> list[Analysis]:

@@ -8,13 +8,15 @@ from __future__ import annotations
 
 import hashlib
 import json
-from typing import Any
+from typing import Any, TypeVar
 
 from sqlalchemy import select, text
 from sqlalchemy.orm import Session
 
 from .models import AuditEvent
 from .types import utcnow
+
+_Row = TypeVar("_Row")
 
 # Any constant works; it names the one lock all appenders share on PostgreSQL.
 _PG_LOCK_KEY = 7_341_020_001
@@ -69,6 +71,16 @@ def append_event(
     event.sha256 = event_hash(event)
     session.flush()
     return event
+
+
+def add_with_event(
+    session: Session, row: _Row, *, request_id: str, actor: str, action: str, detail: dict
+) -> _Row:
+    """Insert ``row`` and append the audit event that records it, in the caller's transaction."""
+    session.add(row)
+    session.flush()  # the row exists before the event that names it
+    append_event(session, request_id=request_id, actor=actor, action=action, detail=detail)
+    return row
 
 
 def events_for(session: Session, request_id: str) -> list[AuditEvent]:

@@ -59,6 +59,16 @@ def _touch(kind: str, now: datetime) -> dict:
     return {"updated_at": now} if kind == "request" else {}
 
 
+def _update_ours(session: Session, kind: str, job_id: str, owner: str, **values) -> int:
+    # The one guard of every lease-holder's write: still running, still our lease.
+    model = _model(kind)
+    return session.execute(
+        update(model)
+        .where(model.id == job_id, model.status == "running", model.lease_owner == owner)
+        .values(**values)
+    ).rowcount
+
+
 def mark_published(session: Session, kind: str, job_id: str) -> bool:
     """Record that the job's task reached the broker (the outbox marker); False if no such job."""
     model = _model(kind)
@@ -145,18 +155,11 @@ def renew(
     lease_seconds: float,
 ) -> bool:
     """Extend our lease and store progress (0..1, requests only); False when the lease was lost."""
-    model = _model(kind)
     now = utcnow()
     values: dict = {"lease_expires_at": now + timedelta(seconds=lease_seconds), **_touch(kind, now)}
     if kind == "request" and progress is not None:
         values["progress"] = min(max(float(progress), 0.0), 1.0)
-    return bool(
-        session.execute(
-            update(model)
-            .where(model.id == job_id, model.status == "running", model.lease_owner == owner)
-            .values(**values)
-        ).rowcount
-    )
+    return bool(_update_ours(session, kind, job_id, owner, **values))
 
 
 def cancel_requested(session: Session, kind: str, job_id: str) -> bool:
@@ -190,19 +193,19 @@ def finish_request(
     wins: an identical second write is a no-op, a different one is appended to ``conflict``.
     """
     now = utcnow()
-    taken = session.execute(
-        update(Request)
-        .where(Request.id == request_id, Request.status == "running", Request.lease_owner == owner)
-        .values(
-            status="computed",
-            progress=1.0,
-            error=None,
-            lease_owner=None,
-            lease_expires_at=None,
-            updated_at=now,
-        )
+    taken = _update_ours(
+        session,
+        "request",
+        request_id,
+        owner,
+        status="computed",
+        progress=1.0,
+        error=None,
+        lease_owner=None,
+        lease_expires_at=None,
+        updated_at=now,
     )
-    if taken.rowcount != 1:
+    if taken != 1:
         return None
     sha = record["reproducibility"]["record_sha256"]
     existing = session.scalar(select(Result).where(Result.request_id == request_id))
@@ -259,22 +262,22 @@ def finish_rerun(
     """Store a rerun's record and its comparison with the original; False when the lease was lost."""
     now = utcnow()
     sha = _record_sha(record)
-    done = session.execute(
-        update(Rerun)
-        .where(Rerun.id == rerun_id, Rerun.status == "running", Rerun.lease_owner == owner)
-        .values(
-            status="done",
-            record=record,
-            record_sha256=sha,
-            identical=identical,
-            differences=list(differences),
-            env_rerun=env_rerun,
-            finished_at=now,
-            lease_owner=None,
-            lease_expires_at=None,
-            error=None,
-        )
-    ).rowcount
+    done = _update_ours(
+        session,
+        "rerun",
+        rerun_id,
+        owner,
+        status="done",
+        record=record,
+        record_sha256=sha,
+        identical=identical,
+        differences=list(differences),
+        env_rerun=env_rerun,
+        finished_at=now,
+        lease_owner=None,
+        lease_expires_at=None,
+        error=None,
+    )
     if done:
         _event(
             session,
@@ -290,7 +293,6 @@ def finish_rerun(
 
 def fail(session: Session, kind: str, job_id: str, owner: str, error: str) -> bool:
     """Mark the job failed with ``error``; False when the lease was lost."""
-    model = _model(kind)
     now = utcnow()
     values: dict = {
         "status": "failed",
@@ -301,11 +303,7 @@ def fail(session: Session, kind: str, job_id: str, owner: str, error: str) -> bo
     }
     if kind in ("rerun", "analysis"):
         values["finished_at"] = now
-    done = session.execute(
-        update(model)
-        .where(model.id == job_id, model.status == "running", model.lease_owner == owner)
-        .values(**values)
-    ).rowcount
+    done = _update_ours(session, kind, job_id, owner, **values)
     if done:
         _event(session, kind, job_id, owner, "failed", error=error)
     return bool(done)
@@ -316,11 +314,16 @@ def cancel(session: Session, kind: str, job_id: str, owner: str) -> bool:
     if kind != "request":
         raise ValueError("only requests can be cancelled; reruns run to the end")
     now = utcnow()
-    done = session.execute(
-        update(Request)
-        .where(Request.id == job_id, Request.status == "running", Request.lease_owner == owner)
-        .values(status="cancelled", lease_owner=None, lease_expires_at=None, updated_at=now)
-    ).rowcount
+    done = _update_ours(
+        session,
+        kind,
+        job_id,
+        owner,
+        status="cancelled",
+        lease_owner=None,
+        lease_expires_at=None,
+        updated_at=now,
+    )
     if done:
         _event(session, kind, job_id, owner, "cancelled", reason="cancel requested")
     return bool(done)
@@ -383,43 +386,35 @@ def release_analysis(session: Session, analysis_id: str, owner: str) -> bool:
     It returns to 'queued' and unpublished, so the sweeper publishes it once the result exists.
     """
     return bool(
-        session.execute(
-            update(Analysis)
-            .where(
-                Analysis.id == analysis_id,
-                Analysis.status == "running",
-                Analysis.lease_owner == owner,
-            )
-            .values(
-                status="queued",
-                lease_owner=None,
-                lease_expires_at=None,
-                published_at=None,
-                attempts=Analysis.attempts - 1,
-            )
-        ).rowcount
+        _update_ours(
+            session,
+            "analysis",
+            analysis_id,
+            owner,
+            status="queued",
+            lease_owner=None,
+            lease_expires_at=None,
+            published_at=None,
+            attempts=Analysis.attempts - 1,
+        )
     )
 
 
 def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict) -> bool:
     """Store our analysis's result and mark it done; False when the lease was lost."""
     now = utcnow()
-    done = session.execute(
-        update(Analysis)
-        .where(
-            Analysis.id == analysis_id,
-            Analysis.status == "running",
-            Analysis.lease_owner == owner,
-        )
-        .values(
-            status="done",
-            result=result,
-            error=None,
-            finished_at=now,
-            lease_owner=None,
-            lease_expires_at=None,
-        )
-    ).rowcount
+    done = _update_ours(
+        session,
+        "analysis",
+        analysis_id,
+        owner,
+        status="done",
+        result=result,
+        error=None,
+        finished_at=now,
+        lease_owner=None,
+        lease_expires_at=None,
+    )
     if done:
         kind = session.scalar(select(Analysis.kind).where(Analysis.id == analysis_id))
         _event(session, "analysis", analysis_id, owner, "analysis_done", analysis=kind)

@@ -12,7 +12,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from .audit import append_event, events_for
+from .audit import add_with_event, append_event, events_for
 from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
 from .types import utcnow
 
@@ -105,16 +105,14 @@ def create_request(
         submitted_by=submitted_by if submitted_by is not None else actor,
         attempts=0,
     )
-    session.add(row)
-    session.flush()
-    append_event(
+    return add_with_event(
         session,
+        row,
         request_id=row.id,
         actor=actor,
         action="submitted",
         detail={"design": row.design, "method": row.method, "seed": row.seed},
     )
-    return row
 
 
 def get_request(session: Session, request_id: str) -> Request | None:
@@ -259,16 +257,14 @@ def create_rerun(session: Session, row: Request, actor: str, note: str | None) -
         attempts=0,
         env_original=dict(result.versions or {}),
     )
-    session.add(rerun)
-    session.flush()
-    append_event(
+    return add_with_event(
         session,
+        rerun,
         request_id=row.id,
         actor=actor,
         action="rerun_requested",
         detail={"rerun_id": rerun.id, "note": note},
     )
-    return rerun
 
 
 def reruns_for(session: Session, request_id: str) -> list[Rerun]:

@@ -55,25 +55,23 @@ def as_role(auth):
     return lambda path: auth(_role(path))
 
 
-@pytest.mark.parametrize("path,_body", BODY_ENDPOINTS)
-def test_malformed_json(client, as_role, request_id, path, _body):
-    r = client.post(
-        path.format(id=request_id),
-        data="{not json",
-        content_type="application/json",
-        headers=as_role(path),
+@pytest.fixture
+def post_raw(client, as_role, request_id):
+    """POST raw ``data`` with ``content_type`` to ``path`` as the role allowed there."""
+    return lambda path, data, content_type: client.post(
+        path.format(id=request_id), data=data, content_type=content_type, headers=as_role(path)
     )
+
+
+@pytest.mark.parametrize("path,_body", BODY_ENDPOINTS)
+def test_malformed_json(post_raw, path, _body):
+    r = post_raw(path, "{not json", "application/json")
     assert "not valid JSON" in _is_problem(r, 400)["detail"]
 
 
 @pytest.mark.parametrize("path,_body", BODY_ENDPOINTS)
-def test_wrong_content_type(client, as_role, request_id, path, _body):
-    r = client.post(
-        path.format(id=request_id),
-        data="to=j.moreau",
-        content_type="text/plain",
-        headers=as_role(path),
-    )
+def test_wrong_content_type(post_raw, path, _body):
+    r = post_raw(path, "to=j.moreau", "text/plain")
     assert "text/plain" in _is_problem(r, 415)["detail"]
 
 

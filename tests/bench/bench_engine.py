@@ -13,6 +13,7 @@ import numpy as np
 from scipy import stats
 
 from service.engine import simulate
+from tests.engine.questions import make_q
 
 N = 64  # per arm
 LOGNORMAL = {
@@ -33,28 +34,15 @@ def best(fn, repeat: int = 5) -> float:
 
 def question(find: str, test: str, data: dict | None, replicates: int) -> dict:
     """A normalized two-means simulation question (Northbridge demo numbers: d = 0.5)."""
-    return {
-        "design": "two_means",
-        "find": find,
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.8 if find == "sample_size" else None,
-        "sample_size": {"per_arm": [N, N]} if find == "power" else None,
-        "allocation_ratio": 1.0,
-        "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-        "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-        "method": "simulation",
-        "simulation": {
-            "replicates": replicates,
-            "seed": 1,
-            "test": test,
-            "data": data,
-            "decision_rule": "point",
-            "chunk_size": 10000,
-            "search_replicates": 2000,
-        },
+    simulation = {
+        "replicates": replicates,
+        "seed": 1,
+        "test": test,
+        "data": data,
+        "chunk_size": 10000,
     }
+    per_arm = [N, N] if find == "power" else None
+    return make_q("two_means", find=find, simulation=simulation, per_arm=per_arm)
 
 
 def chunk_time(test: str, data: dict | None, reps: int, *, sufficient: bool | None = None) -> float:

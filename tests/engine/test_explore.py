@@ -8,54 +8,10 @@ from scipy import stats
 from statsmodels.stats.power import TTestIndPower
 
 from service.engine import QuestionError, compute
-from service.engine.designs import TESTS
 from service.engine.explore import DEPARTURES, MAX_CELLS, robustness, sensitivity
+from tests.engine.questions import EFFECTS, make_q
 
-# Copied from tests/engine/test_compute.py so this module stands alone.
-_BASE = {
-    "find": "sample_size",
-    "alpha": 0.05,
-    "sides": 2,
-    "target_power": 0.8,
-    "sample_size": None,
-    "allocation_ratio": 1.0,
-    "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-    "method": "analytic",
-    "simulation": None,
-}
-
-_DEFAULT_FORMULA = {
-    "two_means": "student",
-    "paired_mean": "noncentral_t",
-    "one_mean": "noncentral_t",
-    "two_proportions": "pooled_z",
-    "anova_oneway": "noncentral_f",
-    "correlation": "fisher_z",
-    "rank_sum": "noether",
-    "survival_logrank": "schoenfeld",
-}
-
-
-def build_question(design: str, effect: dict, **overrides) -> dict:
-    """A normalized question with the schema's defaults; nested dicts in overrides are merged."""
-    q = copy.deepcopy(_BASE)
-    q.update(design=design, effect=dict(effect), formula=_DEFAULT_FORMULA[design])
-    for key, value in overrides.items():
-        if isinstance(value, dict) and isinstance(q.get(key), dict):
-            q[key] = {**q[key], **value}
-        else:
-            q[key] = value
-    if q["method"] == "simulation":
-        sim = {"replicates": 10000, "seed": 20261201, "test": None, "data": None,
-               "decision_rule": "point", "chunk_size": 1000, "search_replicates": 2000}
-        sim.update(q.get("simulation") or {})
-        sim["test"] = sim["test"] or TESTS[design][0]
-        q["simulation"] = sim
-    return q
-
-
-D_HALF = {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}
+D_HALF = EFFECTS["two_means"]  # d = 0.5
 
 
 def _cell(result: dict, **values) -> dict:
@@ -66,7 +22,7 @@ def _cell(result: dict, **values) -> dict:
 
 
 def test_cells_equal_single_compute_calls():
-    q = build_question("two_means", D_HALF, adjustments={"dropout": 0.1})
+    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
     grid = {"effect.difference": [0.4, 0.5, 0.8], "effect.sd_control": [1.0, 1.2]}
     result = sensitivity(q, grid)
     assert result["shape"] == [3, 2] and len(result["cells"]) == 6
@@ -83,23 +39,39 @@ def test_cells_equal_single_compute_calls():
 
 
 def test_reference_cells():
-    q = build_question("two_means", D_HALF)
-    result = sensitivity(q, {"effect.difference": [0.2, 0.5, 0.8], "adjustments.dropout": [0.0, 0.2]})
+    q = make_q("two_means", effect=D_HALF)
+    result = sensitivity(
+        q, {"effect.difference": [0.2, 0.5, 0.8], "adjustments.dropout": [0.0, 0.2]}
+    )
     # published 394 (ceil; Cohen prints 393 nearest), 64, 26: Cohen 1988, Table 2.4.1, recomputed
-    assert _cell(result, **{"effect.difference": 0.2, "adjustments.dropout": 0.0})["per_arm"] == [394, 394]
-    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.0})["per_arm"] == [64, 64]
-    assert _cell(result, **{"effect.difference": 0.8, "adjustments.dropout": 0.0})["per_arm"] == [26, 26]
+    assert _cell(result, **{"effect.difference": 0.2, "adjustments.dropout": 0.0})["per_arm"] == [
+        394,
+        394,
+    ]
+    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.0})["per_arm"] == [
+        64,
+        64,
+    ]
+    assert _cell(result, **{"effect.difference": 0.8, "adjustments.dropout": 0.0})["per_arm"] == [
+        26,
+        26,
+    ]
     # common practice, no source: 20% dropout on 64 -> 64 / 0.8 = 80
-    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.2})["per_arm"] == [80, 80]
+    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.2})["per_arm"] == [
+        80,
+        80,
+    ]
     assert result["base"]["per_arm"] == [64, 64]
 
 
 def test_monotone_in_effect_sd_and_dropout():
-    q = build_question("two_means", D_HALF)
+    q = make_q("two_means", effect=D_HALF)
     diffs = [0.3, 0.4, 0.5, 0.6, 0.8]
     sds = [0.8, 1.0, 1.2, 1.5]
     drops = [0.0, 0.1, 0.2, 0.3]
-    result = sensitivity(q, {"effect.difference": diffs, "effect.sd": sds, "adjustments.dropout": drops})
+    result = sensitivity(
+        q, {"effect.difference": diffs, "effect.sd": sds, "adjustments.dropout": drops}
+    )
     assert len(result["cells"]) == len(diffs) * len(sds) * len(drops)
     n = {tuple(c["values"].values()): c["per_arm"][0] for c in result["cells"]}
     for s in sds:
@@ -120,18 +92,20 @@ def test_monotone_in_effect_sd_and_dropout():
 
 
 def test_power_questions_give_monotone_power():
-    q = build_question("two_means", D_HALF, find="power", target_power=None, sample_size={"per_arm": [30, 30]})
+    q = make_q("two_means", effect=D_HALF, per_arm=[30, 30])
     result = sensitivity(q, {"effect.difference": [0.3, 0.5, 0.7]})
     powers = [c["power"] for c in result["cells"]]
     assert powers == sorted(powers)
     # formula: noncentral t power at d = 0.5, n = 30 per group = 0.4779 (statsmodels agrees)
-    assert powers[1] == pytest.approx(TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05), abs=1e-9)
+    assert powers[1] == pytest.approx(
+        TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05), abs=1e-9
+    )
     assert {tuple(c["per_arm"]) for c in result["cells"]} == {(30, 30)}
 
 
 def test_survival_grid_over_hazard_ratio():
-    q = build_question("survival_logrank", {"hazard_ratio": 0.75, "hazard_control": math.log(2) / 12,
-                                            "accrual_period": 24.0, "follow_up": 12.0, "loss_rate": 0.0})
+    # HR 0.75, control median 12 (hazard ln 2 / 12), accrual 24, follow-up 12 (REFERENCES.md)
+    q = make_q("survival_logrank")
     result = sensitivity(q, {"effect.hazard_ratio": [0.5, 0.75, 0.8]})
     totals = [c["total"] for c in result["cells"]]
     assert totals == sorted(totals)  # a hazard ratio nearer 1 needs more subjects
@@ -139,7 +113,7 @@ def test_survival_grid_over_hazard_ratio():
 
 
 def test_cells_the_engine_refuses_are_reported():
-    q = build_question("two_means", D_HALF)
+    q = make_q("two_means", effect=D_HALF)
     result = sensitivity(q, {"effect.difference": [0.0, 0.5]})
     bad, good = result["cells"]
     assert bad["per_arm"] is None and "difference" in bad["error"]
@@ -153,18 +127,40 @@ def test_cells_the_engine_refuses_are_reported():
         ({}, {"effect.colour": [1.0]}, "grid.effect.colour", "allowed: "),
         ({}, {"simulation.seed": [1.0]}, "grid.simulation.seed", "allowed: "),
         ({}, {"effect.difference": []}, "grid.effect.difference", "non-empty list"),
-        ({}, {"effect.difference": [0.5, "big"]}, "grid.effect.difference.1", "finite number; got 'big'"),
-        ({}, {"effect.difference": [0.5, float("nan")]}, "grid.effect.difference.1", "finite number"),
+        (
+            {},
+            {"effect.difference": [0.5, "big"]},
+            "grid.effect.difference.1",
+            "finite number; got 'big'",
+        ),
+        (
+            {},
+            {"effect.difference": [0.5, float("nan")]},
+            "grid.effect.difference.1",
+            "finite number",
+        ),
         ({}, {"effect.difference": [0.5, 0.5]}, "grid.effect.difference", "repeated"),
         ({}, {}, "grid", "non-empty mapping"),
-        ({}, {"effect.difference": [i / 100 + 0.1 for i in range(30)], "effect.sd": [1.0 + i / 10 for i in range(20)]},
-         "grid", f"at most {MAX_CELLS}"),
+        (
+            {},
+            {
+                "effect.difference": [i / 100 + 0.1 for i in range(30)],
+                "effect.sd": [1.0 + i / 10 for i in range(20)],
+            },
+            "grid",
+            f"at most {MAX_CELLS}",
+        ),
         ({}, {"effect.sd": [1.0], "effect.sd_control": [1.0]}, "grid.effect.sd", "do not combine"),
-        ({"find": "effect", "sample_size": {"per_arm": [30, 30]}}, {"effect.sd": [1.0]}, "find", "'effect'"),
+        (
+            {"find": "effect", "sample_size": {"per_arm": [30, 30]}},
+            {"effect.sd": [1.0]},
+            "find",
+            "'effect'",
+        ),
     ],
 )
 def test_bad_grids_name_the_field(question_overrides, grid, field, words):
-    q = build_question("two_means", D_HALF, **question_overrides)
+    q = make_q("two_means", effect=D_HALF, **question_overrides)
     with pytest.raises(QuestionError) as info:
         sensitivity(q, grid)
     assert info.value.field == field
@@ -178,8 +174,9 @@ REPS = 600  # modest: the panel's shape and bookkeeping are tested, not its thir
 
 @pytest.fixture(scope="module")
 def simulated_q():
-    return build_question("two_means", D_HALF, method="simulation",
-                          simulation={"replicates": REPS, "search_replicates": 600})
+    return make_q(
+        "two_means", effect=D_HALF, simulation={"replicates": REPS, "search_replicates": 600}
+    )
 
 
 @pytest.fixture(scope="module")
@@ -192,7 +189,9 @@ def test_each_departure_is_declared(panel):
     assert names == list(DEPARTURES)
     assert {"normal", "heavy_tails", "skew_lognormal", "unequal_variance", "cauchy"} <= set(names)
     for d in panel["departures"]:
-        assert d["description"] and d["data"]["control"]["family"] and d["data"]["treatment"]["family"]
+        assert (
+            d["description"] and d["data"]["control"]["family"] and d["data"]["treatment"]["family"]
+        )
         assert 0 <= d["power"]["ci95"][0] <= d["power"]["estimate"] <= d["power"]["ci95"][1] <= 1
         assert d["type_i_error"]["replicates"] == REPS and d["null_model"]
     assert panel["per_arm"] == [64, 64] and panel["replicates"] == REPS
@@ -236,13 +235,17 @@ def test_departures_keep_the_planned_mean_and_sd(panel):
             dist, shift = _scipy_dist(d["data"][label])
             if d["name"] == "cauchy":
                 iqr = dist.ppf(0.75) - dist.ppf(0.25)
-                assert iqr == pytest.approx(stats.norm(0, sd).ppf(0.75) - stats.norm(0, sd).ppf(0.25))
+                assert iqr == pytest.approx(
+                    stats.norm(0, sd).ppf(0.75) - stats.norm(0, sd).ppf(0.25)
+                )
                 assert dist.median() == pytest.approx(mean)
             else:
                 assert dist.mean() + shift == pytest.approx(mean, abs=1e-12)
                 assert dist.std() == pytest.approx(sd, rel=1e-12)
     skewed = next(d for d in panel["departures"] if d["name"] == "skew_lognormal")
-    assert _scipy_dist(skewed["data"]["control"])[0].stats(moments="s") == pytest.approx(2.26, abs=0.01)
+    assert _scipy_dist(skewed["data"]["control"])[0].stats(moments="s") == pytest.approx(
+        2.26, abs=0.01
+    )
 
 
 def test_departures_move_power_the_known_way(panel):
@@ -256,7 +259,11 @@ def test_departures_move_power_the_known_way(panel):
 
 
 def test_analytic_question_uses_the_formulas_test():
-    q = build_question("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.5}, formula="welch")
+    q = make_q(
+        "two_means",
+        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.5},
+        formula="welch",
+    )
     result = robustness(q, [40, 40], replicates=200, seed=5)
     assert result["test"] == "welch_t"
 
@@ -278,7 +285,10 @@ def test_bad_robustness_inputs(simulated_q, kwargs, field, words):
 
 
 def test_robustness_is_for_two_means_only():
-    q = build_question("two_proportions", {"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False})
+    q = make_q(
+        "two_proportions",
+        effect={"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False},
+    )
     with pytest.raises(QuestionError) as info:
         robustness(q, [97, 97], replicates=200, seed=1)
     assert info.value.field == "design" and "two_proportions" in info.value.message

@@ -13,11 +13,12 @@ import zlib
 from pathlib import Path
 
 import pytest
-from reports_testkit import D_HALF, REQUEST, build_question
+from reports_testkit import D_HALF, REQUEST
 
 from service.engine.explore import robustness, sensitivity
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report, render_staff_list
+from tests.engine.questions import make_q
 
 CHROMIUM = "/usr/bin/chromium"
 
@@ -48,18 +49,26 @@ _PROBE = """<script>
 def site(tmp_path_factory, simulated_record):
     """Serve the report (and a probed copy and the staff list) from a local ephemeral-port server."""
     root = tmp_path_factory.mktemp("site")
-    q = build_question("two_means", D_HALF, adjustments={"dropout": 0.1})
+    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
     page = render_report(
-        REQUEST, simulated_record,
+        REQUEST,
+        simulated_record,
         curve_svg=power_curve_svg(curve_points(simulated_record, replicates=300)),
-        sensitivity=sensitivity(q, {"effect.difference": [0.4, 0.5, 0.6], "adjustments.dropout": [0.1, 0.2]}),
-        robustness=robustness(simulated_record["question"], simulated_record["sample_size"]["per_arm"],
-                              replicates=300, seed=11),
+        sensitivity=sensitivity(
+            q, {"effect.difference": [0.4, 0.5, 0.6], "adjustments.dropout": [0.1, 0.2]}
+        ),
+        robustness=robustness(
+            simulated_record["question"],
+            simulated_record["sample_size"]["per_arm"],
+            replicates=300,
+            seed=11,
+        ),
     )
     (root / "report.html").write_text(page, encoding="utf-8")
     (root / "probe.html").write_text(page.replace("<head>", "<head>" + _PROBE, 1), encoding="utf-8")
-    (root / "list.html").write_text(render_staff_list([REQUEST, dict(REQUEST, id="a" * 32, status="queued")]),
-                                    encoding="utf-8")
+    (root / "list.html").write_text(
+        render_staff_list([REQUEST, dict(REQUEST, id="a" * 32, status="queued")]), encoding="utf-8"
+    )
     handler = functools.partial(_QuietHandler, directory=str(root))
     server = http.server.ThreadingHTTPServer(("127.0.0.1", 0), handler)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
@@ -81,9 +90,19 @@ def _chromium(tmp_path: Path, *args: str) -> subprocess.CompletedProcess:
     profile = tmp_path / "profile"
     profile.mkdir(exist_ok=True)
     cmd = [
-        CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync",
-        f"--user-data-dir={profile}", "--enable-logging=stderr", "--v=0", *args,
+        CHROMIUM,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        f"--user-data-dir={profile}",
+        "--enable-logging=stderr",
+        "--v=0",
+        *args,
     ]
     try:
         return subprocess.run(cmd, capture_output=True, text=True, timeout=120, check=False)
@@ -101,9 +120,9 @@ def _png_pixels(data: bytes) -> tuple[int, int, int]:
     assert data[:8] == b"\x89PNG\r\n\x1a\n"
     pos, idat, width, height = 8, b"", 0, 0
     while pos < len(data):
-        length = int.from_bytes(data[pos:pos + 4], "big")
-        kind = data[pos + 4:pos + 8]
-        body = data[pos + 8:pos + 8 + length]
+        length = int.from_bytes(data[pos : pos + 4], "big")
+        kind = data[pos + 4 : pos + 8]
+        body = data[pos + 8 : pos + 8 + length]
         if kind == b"IHDR":
             width, height = int.from_bytes(body[:4], "big"), int.from_bytes(body[4:8], "big")
         elif kind == b"IDAT":
@@ -115,7 +134,9 @@ def _png_pixels(data: bytes) -> tuple[int, int, int]:
 
 def test_screenshot_is_not_blank(site, tmp_path):
     shot = tmp_path / "report.png"
-    result = _chromium(tmp_path, f"--screenshot={shot}", "--window-size=1280,2000", f"{site}/report.html")
+    result = _chromium(
+        tmp_path, f"--screenshot={shot}", "--window-size=1280,2000", f"{site}/report.html"
+    )
     assert shot.exists(), result.stderr[-2000:]
     width, height, distinct = _png_pixels(shot.read_bytes())
     assert (width, height) == (1280, 2000)
@@ -129,7 +150,9 @@ def test_screenshot_is_not_blank(site, tmp_path):
 
 def test_print_to_pdf(site, tmp_path):
     pdf = tmp_path / "report.pdf"
-    result = _chromium(tmp_path, f"--print-to-pdf={pdf}", "--no-pdf-header-footer", f"{site}/report.html")
+    result = _chromium(
+        tmp_path, f"--print-to-pdf={pdf}", "--no-pdf-header-footer", f"{site}/report.html"
+    )
     assert pdf.exists(), result.stderr[-2000:]
     data = pdf.read_bytes()
     assert data.startswith(b"%PDF") and len(data) > 20_000
@@ -139,7 +162,7 @@ def test_print_to_pdf(site, tmp_path):
 def test_no_script_errors_and_copy_button_works(site, tmp_path):
     result = _chromium(tmp_path, "--dump-dom", "--virtual-time-budget=5000", f"{site}/probe.html")
     dom = result.stdout
-    html_tag = dom[dom.index("<html"):dom.index(">", dom.index("<html")) + 1]
+    html_tag = dom[dom.index("<html") : dom.index(">", dom.index("<html")) + 1]
     assert 'data-probe="done"' in html_tag, result.stderr[-2000:]
     assert "data-errors" not in html_tag, html_tag
     assert 'id="copy-status"' in dom and ("Copied." in dom or "Text selected" in dom)

@@ -4,11 +4,11 @@ import math
 import re
 
 import pytest
-from reports_testkit import build_question
 from scipy import stats
 from statsmodels.stats.power import TTestIndPower
 
 from service.reports.justification import fmt_count, fmt_num, fmt_pct, fmt_prob, justification
+from tests.engine.questions import make_q
 
 # A count with thousands separators (1,016) or a plain decimal (0.025); "−" is wording.
 _NUMBER = re.compile(r"(?<![\w.])-?(?:\d{1,3}(?:,\d{3})+|\d+)(?:\.\d+)?")
@@ -32,9 +32,18 @@ def _record_numbers(record: dict) -> set[str]:
         elif isinstance(value, bool) or value is None:
             return
         elif isinstance(value, (int, float)):
-            out.update({fmt_num(value), fmt_count(value) if float(value).is_integer() else fmt_num(value),
-                        str(value), f"{value:.2f}", fmt_prob(value), fmt_prob(value, 4),
-                        fmt_pct(value).rstrip("%"), fmt_pct(round(value, 3)).rstrip("%")})
+            out.update(
+                {
+                    fmt_num(value),
+                    fmt_count(value) if float(value).is_integer() else fmt_num(value),
+                    str(value),
+                    f"{value:.2f}",
+                    fmt_prob(value),
+                    fmt_prob(value, 4),
+                    fmt_pct(value).rstrip("%"),
+                    fmt_pct(round(value, 3)).rstrip("%"),
+                }
+            )
         elif isinstance(value, str):
             out.update(_numbers(value))
 
@@ -64,14 +73,24 @@ def test_analytic_contains_each_step(analytic_record):
     # common practice, no source: enrol n / (1 − q) after the design effect
     assert size["per_arm"][0] == math.ceil(steps["design_effect"]["per_arm"][0] / 0.8)
     for piece in (
-        "two-sided significance level of 0.05", "Bonferroni over 2 comparisons", "0.025 per comparison",
-        "target power of 80%", "difference in means of 0.5", "standard deviation of 1",
-        f"{math.ceil(raw)} per group", f"unrounded {raw:.2f}", "design effect 1.95",
-        "mean cluster size 20", "intracluster correlation 0.05",
+        "two-sided significance level of 0.05",
+        "Bonferroni over 2 comparisons",
+        "0.025 per comparison",
+        "target power of 80%",
+        "difference in means of 0.5",
+        "standard deviation of 1",
+        f"{math.ceil(raw)} per group",
+        f"unrounded {raw:.2f}",
+        "design effect 1.95",
+        "mean cluster size 20",
+        "intracluster correlation 0.05",
         f"{steps['design_effect']['per_arm'][0]} per group",
-        f"{steps['design_effect']['clusters_per_arm'][0]} clusters per group", "20% dropout",
-        f"{size['per_arm'][0]} per group", f"{fmt_count(size['total'])} are to be enrolled in total",
-        fmt_pct(round(analytic_record["power"]["estimate"], 3)), "Northbridge pilot study of 2023",
+        f"{steps['design_effect']['clusters_per_arm'][0]} clusters per group",
+        "20% dropout",
+        f"{size['per_arm'][0]} per group",
+        f"{fmt_count(size['total'])} are to be enrolled in total",
+        fmt_pct(round(analytic_record["power"]["estimate"], 3)),
+        "Northbridge pilot study of 2023",
         analytic_record["method"]["formula"],
     ):
         assert piece in text, piece
@@ -85,17 +104,23 @@ def test_simulated_sample_size_reports_monte_carlo_error(simulated_record):
     power, repro = simulated_record["power"], simulated_record["reproducibility"]
     t1 = simulated_record["type_i_error"]
     # formula: MCSE = √(p(1 − p)/R), Morris, White & Crowther (2019), Stat Med 38:2074
-    assert power["mcse"] == pytest.approx(math.sqrt(power["estimate"] * (1 - power["estimate"]) / power["replicates"]))
+    assert power["mcse"] == pytest.approx(
+        math.sqrt(power["estimate"] * (1 - power["estimate"]) / power["replicates"])
+    )
     # published 64 ± 1 per group: Cohen 1988, Table 2.4.1 (simulated solve for d = 0.5, power .80)
     base = next(s for s in simulated_record["sample_size"]["steps"] if s["step"] == "base")
     assert 62 <= base["per_arm"][0] <= 66
     for piece in (
-        f"seed {repro['seed']}", f"{fmt_count(power['replicates'])} simulated trials",
-        f"estimated power {fmt_prob(power['estimate'])}", f"standard error {fmt_prob(power['mcse'], 4)}",
+        f"seed {repro['seed']}",
+        f"{fmt_count(power['replicates'])} simulated trials",
+        f"estimated power {fmt_prob(power['estimate'])}",
+        f"standard error {fmt_prob(power['mcse'], 4)}",
         f"95% interval {fmt_prob(power['ci95'][0])} to {fmt_prob(power['ci95'][1])}",
-        f"type I error was {fmt_prob(t1['estimate'], 4)}", f"nominal {fmt_num(t1['alpha'])}",
+        f"type I error was {fmt_prob(t1['estimate'], 4)}",
+        f"nominal {fmt_num(t1['alpha'])}",
         f"{fmt_count(simulated_record['question']['simulation']['search_replicates'])} simulated trials each",
-        f"{base['per_arm'][0]} per group", "10% dropout",
+        f"{base['per_arm'][0]} per group",
+        "10% dropout",
         f"{fmt_count(simulated_record['sample_size']['total'])} are to be enrolled in total",
         repro["bit_generator"],
     ):
@@ -115,9 +140,12 @@ def test_simulated_power_against_the_noncentral_t(simulated_power_record):
     exact = TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05, ratio=1.0)
     assert exact == pytest.approx(0.4779, abs=1e-4)
     assert abs(power["estimate"] - exact) < 4 * power["mcse"]
-    for piece in ("30 enrolled per group (60 in total)", f"is {fmt_prob(power['estimate'])}",
-                  f"analytic formula gives a power of {fmt_prob(power['analytic'])}",
-                  f"seed {simulated_power_record['reproducibility']['seed']}"):
+    for piece in (
+        "30 enrolled per group (60 in total)",
+        f"is {fmt_prob(power['estimate'])}",
+        f"analytic formula gives a power of {fmt_prob(power['analytic'])}",
+        f"seed {simulated_power_record['reproducibility']['seed']}",
+    ):
         assert piece in text, piece
     assert "target power" not in text  # a power question has no target
     _assert_no_foreign_numbers(text, simulated_power_record)
@@ -129,19 +157,26 @@ def test_survival_states_events_and_p_event(survival_record):
     # formula: Schoenfeld (1983), Biometrics 39:499: events = 4(z.975 + z.80)²/ln²HR = 379.35 -> 380
     events = 4 * z**2 / math.log(0.75) ** 2
     assert events == pytest.approx(379.35, abs=0.01)
+
     # formula: Lachin & Foulkes (1986), Biometrics 42:507: P(event) = 1 − [e^(−λf) − e^(−λ(a+f))]/(λa)
     def p_event(lam, a=24.0, f=12.0):
         return 1 - (math.exp(-lam * f) - math.exp(-lam * (a + f))) / (lam * a)
+
     lam = math.log(2) / 12
     pc, pt = p_event(lam), p_event(lam * 0.75)
     assert pc == pytest.approx(0.729495, abs=1e-6)
     per_arm = math.ceil(math.ceil(events) / ((pc + pt) / 2) / 2)
     assert survival_record["sample_size"]["per_arm"] == [per_arm, per_arm]
     for piece in (
-        f"{math.ceil(events)} events are required", f"unrounded {events:.2f}",
-        f"{fmt_prob(pc)} in the control group", f"{fmt_prob(pt)} in the treatment group",
-        f"{per_arm} per group", f"{fmt_count(2 * per_arm)} in total", "hazard ratio (treatment to control) of 0.75",
-        "accrual over 24", "follow-up of 12",
+        f"{math.ceil(events)} events are required",
+        f"unrounded {events:.2f}",
+        f"{fmt_prob(pc)} in the control group",
+        f"{fmt_prob(pt)} in the treatment group",
+        f"{per_arm} per group",
+        f"{fmt_count(2 * per_arm)} in total",
+        "hazard ratio (treatment to control) of 0.75",
+        "accrual over 24",
+        "follow-up of 12",
     ):
         assert piece in text, piece
     assert "simulat" not in text.lower()
@@ -152,7 +187,9 @@ def test_missing_source_is_flagged_not_invented(survival_record):
     text = justification(survival_record, None)
     assert "[State the source of the assumed values" in text
     assert "based on" not in text
-    sourced = justification(survival_record, {"effect_source": "the Northbridge registry 2019–2022"})
+    sourced = justification(
+        survival_record, {"effect_source": "the Northbridge registry 2019–2022"}
+    )
     assert "based on the Northbridge registry 2019–2022." in sourced
 
 
@@ -161,21 +198,34 @@ def test_missing_source_is_flagged_not_invented(survival_record):
     [
         # published 63 per group (h = 0.5): Cohen 1988, Table 6.4.1, recomputed; here p .40 vs .60,
         # formula 97 per group without correction (Fleiss, Levin & Paik 2003)
-        ("two_proportions", {"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False}, {},
-         ["97 per group", "control proportion of 0.4", "treatment proportion of 0.6"]),
+        (
+            "two_proportions",
+            {"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False},
+            {},
+            ["97 per group", "control proportion of 0.4", "treatment proportion of 0.6"],
+        ),
         # published 53 per group (k = 3, f = 0.25, ceiling): Cohen 1988, Table 8.4.4, recomputed
-        ("anova_oneway", {"cohens_f": 0.25, "groups": 3}, {}, ["53 per group", "effect size f of 0.25"]),
+        (
+            "anova_oneway",
+            {"cohens_f": 0.25, "groups": 3},
+            {},
+            ["53 per group", "effect size f of 0.25"],
+        ),
         # formula: one-sample noncentral t, d = 0.5 -> 34 (Guenther 1981 gives 33.32 raw)
         ("one_mean", {"difference": 0.5, "sd": 1.0}, {}, ["34 participants", "reference value"]),
         # formula: noncentral t with n2 = 2·n1, d = 0.5 -> 48 / 96 (Cohen 1988 eq. 2.3.1)
-        ("two_means", {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-         {"allocation_ratio": 2.0}, ["48 in the control group and 96 in the treatment group", "144 in total"]),
+        (
+            "two_means",
+            {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+            {"allocation_ratio": 2.0},
+            ["48 in the control group and 96 in the treatment group", "144 in total"],
+        ),
     ],
 )
 def test_other_designs(design, effect, overrides, pieces):
     from service.engine import compute
 
-    record = compute(build_question(design, effect, **overrides))
+    record = compute(make_q(design, effect=effect, **overrides))
     text = justification(record)
     for piece in pieces:
         assert piece in text, piece
@@ -188,10 +238,14 @@ def test_noninferiority_names_the_margin():
     from service.engine import compute
 
     # published 13 with z quantiles (Chow, Shao & Wang 2008, ch. 3); 14 with the noncentral t
-    record = compute(build_question(
-        "two_means", {"difference": 0.05, "sd_control": 0.1, "sd_treatment": 0.1}, sides=1,
-        hypothesis={"kind": "noninferiority", "margin": -0.05},
-    ))
+    record = compute(
+        make_q(
+            "two_means",
+            effect={"difference": 0.05, "sd_control": 0.1, "sd_treatment": 0.1},
+            sides=1,
+            hypothesis={"kind": "noninferiority", "margin": -0.05},
+        )
+    )
     text = justification(record)
     assert record["sample_size"]["per_arm"] == [14, 14]
     assert "non-inferiority with a margin of -0.05" in text

@@ -4,11 +4,12 @@ import math
 import xml.etree.ElementTree as ET
 
 import pytest
-from reports_testkit import D_HALF, build_question
+from reports_testkit import D_HALF
 from statsmodels.stats.power import TTestIndPower
 
 from service.engine import QuestionError, compute
 from service.reports.plots import curve_points, power_curve_png, power_curve_svg
+from tests.engine.questions import make_q
 
 _SVG = "{http://www.w3.org/2000/svg}"
 
@@ -21,7 +22,7 @@ def _ids(svg: str) -> dict[str, ET.Element]:
 
 @pytest.fixture(scope="module")
 def plain_record():
-    return compute(build_question("two_means", D_HALF))
+    return compute(make_q("two_means", effect=D_HALF))
 
 
 def test_analytic_curve_matches_statsmodels(plain_record):
@@ -29,10 +30,14 @@ def test_analytic_curve_matches_statsmodels(plain_record):
     chosen = plain_record["sample_size"]["per_arm"][0]
     assert chosen == 64  # published 64: Cohen 1988, Table 2.4.1
     assert chosen in points["n"] and 11 <= len(points["n"]) <= 14
-    assert min(points["n"]) == math.floor(0.5 * chosen) and max(points["n"]) == math.ceil(1.5 * chosen)
+    assert min(points["n"]) == math.floor(0.5 * chosen) and max(points["n"]) == math.ceil(
+        1.5 * chosen
+    )
     for n, power in zip(points["n"], points["analytic"], strict=True):
         # formula: noncentral t power (statsmodels TTestIndPower, recomputed)
-        assert power == pytest.approx(TTestIndPower().power(effect_size=0.5, nobs1=n, alpha=0.05), abs=1e-9)
+        assert power == pytest.approx(
+            TTestIndPower().power(effect_size=0.5, nobs1=n, alpha=0.05), abs=1e-9
+        )
     assert points["analytic"] == sorted(points["analytic"])
     assert points["simulated"] == [] and points["target_power"] == 0.8
     assert points["chosen"] == {"n": 64, "power": plain_record["power"]["estimate"]}
@@ -49,7 +54,10 @@ def test_curve_with_dropout_is_on_the_enrolled_scale(analytic_record):
 
 def test_simulated_points_bracket_the_exact_power(simulated_record):
     points = curve_points(simulated_record, replicates=400)
-    assert points["replicates"] == 400 and points["seed"] == simulated_record["question"]["simulation"]["seed"]
+    assert (
+        points["replicates"] == 400
+        and points["seed"] == simulated_record["question"]["simulation"]["seed"]
+    )
     sim = points["simulated"]
     assert len(sim) == len(points["n"])
     covered = 0
@@ -69,7 +77,14 @@ def test_svg_has_target_line_and_chosen_n(simulated_record):
     points = curve_points(simulated_record, replicates=300)
     svg = power_curve_svg(points)
     ids = _ids(svg)
-    for gid in ("target-line", "chosen-n", "chosen-point", "analytic-curve", "simulated-points", "curve-title"):
+    for gid in (
+        "target-line",
+        "chosen-n",
+        "chosen-point",
+        "analytic-curve",
+        "simulated-points",
+        "curve-title",
+    ):
         assert gid in ids, gid
     assert not svg.startswith("<?xml")  # ready to inline in HTML
     assert power_curve_svg(points) == svg  # identical data, identical drawing
@@ -85,7 +100,9 @@ def test_png_is_a_png(plain_record):
     assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 10_000
 
 
-@pytest.mark.parametrize(("kwargs", "field"), [({"points": 1}, "points"), ({"span": (1.2, 1.5)}, "span")])
+@pytest.mark.parametrize(
+    ("kwargs", "field"), [({"points": 1}, "points"), ({"span": (1.2, 1.5)}, "span")]
+)
 def test_bad_curve_options(plain_record, kwargs, field):
     with pytest.raises(QuestionError) as info:
         curve_points(plain_record, **kwargs)

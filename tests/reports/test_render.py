@@ -5,16 +5,27 @@ from html.parser import HTMLParser
 
 import pytest
 from markupsafe import escape
-from reports_testkit import D_HALF, REQUEST, build_question
+from reports_testkit import D_HALF, REQUEST
 
 from service.engine import CAUTIONS
 from service.engine.explore import robustness, sensitivity
 from service.reports.justification import justification
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report, render_staff_list
+from tests.engine.questions import make_q
 
-BLOCKS = ("protocol", "question", "answer", "steps", "justification", "curve", "sensitivity",
-          "robustness", "reproducibility", "cautions")
+BLOCKS = (
+    "protocol",
+    "question",
+    "answer",
+    "steps",
+    "justification",
+    "curve",
+    "sensitivity",
+    "robustness",
+    "reproducibility",
+    "cautions",
+)
 
 
 class _Ids(HTMLParser):
@@ -38,12 +49,20 @@ def _parse(page: str) -> _Ids:
 
 @pytest.fixture(scope="module")
 def full_page(simulated_record):
-    q = build_question("two_means", D_HALF, adjustments={"dropout": 0.1})
+    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
     sens = sensitivity(q, {"effect.difference": [0.4, 0.5, 0.6]})
-    rob = robustness(simulated_record["question"], simulated_record["sample_size"]["per_arm"],
-                     replicates=300, seed=11)
+    rob = robustness(
+        simulated_record["question"],
+        simulated_record["sample_size"]["per_arm"],
+        replicates=300,
+        seed=11,
+    )
     svg = power_curve_svg(curve_points(simulated_record, replicates=300))
-    return render_report(REQUEST, simulated_record, curve_svg=svg, sensitivity=sens, robustness=rob), sens, rob
+    return (
+        render_report(REQUEST, simulated_record, curve_svg=svg, sensitivity=sens, robustness=rob),
+        sens,
+        rob,
+    )
 
 
 def test_report_has_every_block(full_page, simulated_record):
@@ -52,11 +71,21 @@ def test_report_has_every_block(full_page, simulated_record):
     for block in BLOCKS:
         assert block in parsed.ids, block
     assert len(parsed.ids) == len(set(parsed.ids)), "duplicate ids"
-    for text in (REQUEST["protocol"]["title"], REQUEST["protocol"]["id"], REQUEST["requester"]["name"],
-                 "Computed, awaiting review", str(simulated_record["reproducibility"]["seed"]),
-                 simulated_record["reproducibility"]["record_sha256"],
-                 f"POST /v1/requests/{REQUEST['id']}/reruns", "sizewise compute", "@media print",
-                 'id="copy-justification"', "navigator.clipboard", 'id="target-line"', 'id="chosen-n"'):
+    for text in (
+        REQUEST["protocol"]["title"],
+        REQUEST["protocol"]["id"],
+        REQUEST["requester"]["name"],
+        "Computed, awaiting review",
+        str(simulated_record["reproducibility"]["seed"]),
+        simulated_record["reproducibility"]["record_sha256"],
+        f"POST /v1/requests/{REQUEST['id']}/reruns",
+        "sizewise compute",
+        "@media print",
+        'id="copy-justification"',
+        "navigator.clipboard",
+        'id="target-line"',
+        'id="chosen-n"',
+    ):
         assert text in page, text
     for caution in CAUTIONS:
         assert str(escape(caution)) in page
@@ -74,7 +103,9 @@ def test_report_is_self_contained(full_page):
 
 
 def test_report_without_optional_blocks(analytic_record):
-    page = render_report(REQUEST, analytic_record, curve_svg=power_curve_svg(curve_points(analytic_record)))
+    page = render_report(
+        REQUEST, analytic_record, curve_svg=power_curve_svg(curve_points(analytic_record))
+    )
     ids = _parse(page).ids
     assert "sensitivity" not in ids and "robustness" not in ids
     # analytic: no seed is needed, and the steps table lists each adjustment
@@ -96,7 +127,12 @@ def test_staff_list():
     rows = [
         REQUEST,
         dict(REQUEST, id="a" * 32, status="running", progress=0.4, assigned_to=None),
-        dict(REQUEST, id="b" * 32, status="failed", protocol={"id": "NGH-2025-020", "title": "<b>Falls</b>"}),
+        dict(
+            REQUEST,
+            id="b" * 32,
+            status="failed",
+            protocol={"id": "NGH-2025-020", "title": "<b>Falls</b>"},
+        ),
     ]
     page = render_staff_list(rows)
     assert page.count("<tbody>") == 1 and page.count('class="status status-') == 3

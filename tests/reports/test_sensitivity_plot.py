@@ -4,19 +4,20 @@ import math
 import xml.etree.ElementTree as ET
 
 import pytest
-from reports_testkit import D_HALF, REQUEST, build_question
+from reports_testkit import D_HALF, REQUEST
 from statsmodels.stats.power import TTestIndPower
 
 from service.engine.explore import sensitivity
 from service.reports.plots import curve_points, power_curve_svg, sensitivity_lines, sensitivity_svg
 from service.reports.render import render_report
+from tests.engine.questions import make_q
 
 SVG = "{http://www.w3.org/2000/svg}"
 
 
 @pytest.fixture(scope="module")
 def grid() -> dict:
-    q = build_question("two_means", D_HALF)
+    q = make_q("two_means", effect=D_HALF)
     return sensitivity(q, {"effect.difference": [0.4, 0.5, 0.6], "effect.sd": [1.0, 1.25]})
 
 
@@ -27,8 +28,10 @@ def test_lines_follow_the_first_axis_one_per_second_axis_value(grid):
     for line, sd in zip(data["lines"], (1.0, 1.25), strict=True):
         assert line["x"] == [0.4, 0.5, 0.6]
         # formula: noncentral t solved by statsmodels TTestIndPower (two-sided .05, power .80)
-        expected = [math.ceil(TTestIndPower().solve_power(effect_size=d / sd, alpha=0.05, power=0.8))
-                    for d in line["x"]]
+        expected = [
+            math.ceil(TTestIndPower().solve_power(effect_size=d / sd, alpha=0.05, power=0.8))
+            for d in line["x"]
+        ]
         assert line["y"] == expected
 
 
@@ -41,27 +44,32 @@ def test_svg_carries_a_title_and_one_path_per_line(grid):
 
 
 def test_a_power_grid_is_drawn_as_power():
-    q = build_question("two_means", D_HALF, find="power", target_power=None,
-                       sample_size={"per_arm": [40, 40]})
+    q = make_q("two_means", effect=D_HALF, per_arm=[40, 40])
     data = sensitivity_lines(sensitivity(q, {"adjustments.dropout": [0.0, 0.1, 0.2]}))
     assert data["y_label"] == "Power" and [line["label"] for line in data["lines"]] == ["as asked"]
     ys = data["lines"][0]["y"]
     assert ys == sorted(ys, reverse=True)  # more dropout, less power (formula: n·(1 − q) analysed)
     # no dropout: TTestIndPower at d = 0.5, n = 40 per group (statsmodels)
-    assert ys[0] == pytest.approx(TTestIndPower().power(effect_size=0.5, nobs1=40, alpha=0.05), abs=1e-6)
+    assert ys[0] == pytest.approx(
+        TTestIndPower().power(effect_size=0.5, nobs1=40, alpha=0.05), abs=1e-6
+    )
 
 
 def test_refused_cells_are_gaps():
-    q = build_question("two_means", D_HALF)
+    q = make_q("two_means", effect=D_HALF)
     data = sensitivity_lines(sensitivity(q, {"effect.difference": [0.0, 0.5]}))
-    assert data["lines"][0]["y"][0] is None and data["lines"][0]["y"][1] == 64  # Cohen 1988, Table 2.4.1
+    assert (
+        data["lines"][0]["y"][0] is None and data["lines"][0]["y"][1] == 64
+    )  # Cohen 1988, Table 2.4.1
 
 
 def test_report_shows_the_grid_as_table_and_curves_and_pending_analyses(analytic_record, grid):
     page = render_report(
-        REQUEST, analytic_record,
+        REQUEST,
+        analytic_record,
         curve_svg=power_curve_svg(curve_points(analytic_record)),
-        sensitivity=grid, sensitivity_svg=sensitivity_svg(grid),
+        sensitivity=grid,
+        sensitivity_svg=sensitivity_svg(grid),
         pending=[{"kind": "robustness", "status": "queued"}],
     )
     assert 'id="sensitivity-figure"' in page and "sensitivity-line-1" in page

@@ -9,18 +9,10 @@ import math
 import pytest
 
 from service.schemas import QuestionInvalid, load_question
+from tests.schemas.posted import SURV
 
 BASE = {"design": "two_means", "effect": {"difference": 0.5, "sd": 1.0}}
 SIM = {"method": "simulation", "simulation": {"replicates": 1000, "seed": 1}}
-SURV = {
-    "design": "survival_logrank",
-    "effect": {
-        "hazard_ratio": 0.75,
-        "median_control": 12.0,
-        "accrual_period": 24.0,
-        "follow_up": 12.0,
-    },
-}
 PROP = {"design": "two_proportions", "effect": {"p_control": 0.3, "p_treatment": 0.5}}
 ANOVA = {"design": "anova_oneway", "effect": {"cohens_f": 0.25, "groups": 3}}
 NORMAL = {"family": "normal", "mean": 0.0, "sd": 1.0}

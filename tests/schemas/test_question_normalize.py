@@ -10,6 +10,7 @@ import pytest
 from service.engine.designs import DESIGN_NAMES, FORMULAS, TESTS
 from service.schemas import QuestionSchema, load_question
 from service.schemas.question import split_total
+from tests.schemas.posted import SURV
 
 
 def test_defaults_filled_for_a_minimal_question() -> None:
@@ -75,17 +76,7 @@ def test_anova_f_and_groups_are_kept() -> None:
 
 def test_survival_median_gives_constant_hazard() -> None:
     # formula: exponential survival, S(median) = 1/2 -> hazard = ln 2 / median
-    q = load_question(
-        {
-            "design": "survival_logrank",
-            "effect": {
-                "hazard_ratio": 0.75,
-                "median_control": 12.0,
-                "accrual_period": 24.0,
-                "follow_up": 12.0,
-            },
-        }
-    )
+    q = load_question(SURV)  # control median 12
     e = q["effect"]
     assert e["hazard_control"] == pytest.approx(math.log(2) / 12.0, rel=1e-15)
     assert math.exp(-e["hazard_control"] * 12.0) == pytest.approx(0.5)
@@ -249,15 +240,7 @@ def test_every_design_has_a_working_default_formula_and_test() -> None:
 def test_normalized_question_loads_again_unchanged() -> None:
     raws = [
         {"design": "anova_oneway", "effect": {"group_means": [1.0, 2.0, 4.0], "sd": 2.0}},
-        {
-            "design": "survival_logrank",
-            "effect": {
-                "hazard_ratio": 0.75,
-                "median_control": 12.0,
-                "accrual_period": 24.0,
-                "follow_up": 12.0,
-            },
-        },
+        SURV,
         {
             "design": "one_mean",
             "find": "power",

@@ -28,6 +28,7 @@ from service.engine import canonical_json
 from service.store.db import session_scope
 from service.store.migrate import upgrade
 from service.store.models import Request
+from tests.engine.questions import make_q
 
 REPO = Path(__file__).resolve().parents[2]
 CELERY = Path(sys.executable).with_name("celery")
@@ -50,26 +51,13 @@ def two_means_question(
             "replicates": replicates,
             "seed": seed,
             "test": "student_t",
-            "data": None,
-            "decision_rule": "point",
             "chunk_size": chunk_size,
             "search_replicates": min(2000, replicates),
         }
-    return {
-        "design": "two_means",
-        "find": find,
-        "alpha": 0.05,
-        "sides": 2,
-        "target_power": 0.8 if find == "sample_size" else None,
-        "sample_size": {"per_arm": [per_arm, per_arm]} if find == "power" else None,
-        "allocation_ratio": 1.0,
-        "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-        "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-        "method": method,
-        "formula": "student",
-        "simulation": simulation,
-    }
+    per_arm_list = [per_arm, per_arm] if find == "power" else None
+    return make_q(
+        "two_means", find=find, method=method, simulation=simulation, per_arm=per_arm_list
+    )
 
 
 def insert_request(factory, question: dict, *, status: str = "queued") -> str:

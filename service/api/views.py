@@ -1,0 +1,48 @@
+"""Pieces the request, analysis and report views share: the request lookup, lists, Location."""
+
+from __future__ import annotations
+
+import re
+
+from flask import Response, jsonify
+from sqlalchemy.orm import Session
+
+from service.schemas.requests import RequestQueryArgsSchema
+from service.store import requests as store
+from service.store.db import session_scope
+from service.store.models import Request
+
+from . import render
+from .context import sessions
+from .errors import NotFound
+from .identity import visible_submitter
+from .io import load_query
+
+_ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
+
+
+def load_request(session: Session, request_id: str) -> Request:
+    """Return the request ``request_id`` or raise 404; a malformed id is not looked up."""
+    row = store.get_request(session, request_id) if _ID_PATTERN.match(request_id) else None
+    if row is None:
+        raise NotFound(f"no request with id '{request_id}'")
+    return row
+
+
+def visible_request_page() -> dict:
+    """Read the list query and return the rendered page of requests the caller may see."""
+    args = load_query(RequestQueryArgsSchema())
+    page, per_page = args.pop("page"), args.pop("per_page")
+    with session_scope(sessions()) as session:
+        result = store.list_requests(
+            session, page=page, per_page=per_page, submitted_by=visible_submitter(), **args
+        )
+        return render.request_page(result, page, per_page)
+
+
+def located(body: dict, status: int, location: str) -> Response:
+    """Return ``body`` as JSON with ``status`` and a Location header naming the new resource."""
+    response = jsonify(body)
+    response.status_code = status
+    response.headers["Location"] = location
+    return response

@@ -56,6 +56,9 @@ def celery_settings(config: dict) -> dict:
         "broker_url": config["BROKER_URL"],
         "broker_transport_options": transport,
         "result_backend_transport_options": {"visibility_timeout": visibility},
+        # Celery 5.5+ also reads the app-level key (e.g. when it resets unacked messages on
+        # shutdown); it must equal the transport's, or the two clocks disagree.
+        "visibility_timeout": visibility,
         "broker_connection_retry_on_startup": True,
         "broker_connection_timeout": 3,
         "task_serializer": "json",

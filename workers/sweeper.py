@@ -32,7 +32,12 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     now = now or datetime.now(UTC)
     with session_scope(factory) as session:
         # Skip jobs the API may be publishing right now (committed, not yet marked).
-        stale = jobs.stale_jobs(session, now, grace_seconds=grace(config).total_seconds())
+        stale = jobs.stale_jobs(
+            session,
+            now,
+            grace_seconds=grace(config).total_seconds(),
+            republish_seconds=republish_after(config).total_seconds(),
+        )
     published = 0
     for kind, job_id in stale:
         # Analyses have their own task (the queue module knows requests and reruns only).
@@ -80,6 +85,17 @@ def stop_thread(timeout: float = 5.0) -> None:
     if _THREAD is not None:
         _THREAD.join(timeout)
     _THREAD = None
+
+
+def republish_after(config: dict) -> timedelta:
+    """How long a published job may wait unclaimed before its message counts as lost.
+
+    Long enough that a busy queue is not flooded with duplicates (they are harmless, only one
+    worker can claim a job), short enough that a broker restart costs minutes, not forever.
+    """
+    return timedelta(
+        seconds=max(float(config["LEASE_SECONDS"]), 5 * float(config["SWEEP_SECONDS"]))
+    )
 
 
 def grace(config: dict) -> timedelta:

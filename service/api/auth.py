@@ -303,6 +303,9 @@ def init_auth(app: Flask) -> Limiter:
         headers_enabled=True,
         retry_after="delta-seconds",
         key_prefix="sizewise",
+        # Counters shared through Redis fall back to this process's memory while Redis is down,
+        # so a broker outage never turns into 500s on every authenticated call.
+        in_memory_fallback_enabled=True,
     )
     limiter.exempt(health.bp)
     limiter.init_app(app)

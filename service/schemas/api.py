@@ -46,6 +46,10 @@ class RerunCreateSchema(StrictSchema):
 class ProblemSchema(Schema):
     """An RFC 9457 problem document; ``errors`` maps dotted field paths to messages."""
 
+    class Meta:
+        # RFC 9457 lets a problem carry extension members; clients ignore the ones they don't know.
+        unknown = "include"
+
     type = fields.String(required=True)
     title = fields.String(required=True)
     status = fields.Integer(required=True)
@@ -58,6 +62,11 @@ class ProblemSchema(Schema):
     )
     current_status = fields.String(metadata={"description": "The request's status (409 only)."})
     checks = fields.Dict(metadata={"description": "Per-dependency readiness (503 only)."})
+    role = fields.String(metadata={"description": "The caller's role (403 only)."})
+    allowed_roles = fields.List(
+        fields.String(), metadata={"description": "Roles that may make this call (403 only)."}
+    )
+    limit = fields.String(metadata={"description": "The rate limit that was used up (429 only)."})
 
 
 class HealthSchema(Schema):
@@ -84,6 +93,10 @@ class ResultRecordSchema(Schema):
     power = fields.Dict(allow_none=True)
     effect = fields.Raw(allow_none=True)
     method = fields.Dict()
+    # The contract's keys that are null for some designs or methods.
+    type_i_error = fields.Dict(allow_none=True)
+    search = fields.Dict(allow_none=True)
+    events = fields.Dict(allow_none=True)
     reproducibility = fields.Dict()
     cautions = fields.List(fields.String())
     warnings = fields.List(fields.String())

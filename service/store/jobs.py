@@ -11,7 +11,7 @@ from __future__ import annotations
 import logging
 from datetime import datetime, timedelta
 
-from sqlalchemy import and_, or_, select, update
+from sqlalchemy import and_, false, or_, select, update
 from sqlalchemy.orm import Session
 
 from service.engine.records import canonical_json, differences
@@ -330,18 +330,32 @@ def cancel(session: Session, kind: str, job_id: str, owner: str) -> bool:
 
 
 def stale_jobs(
-    session: Session, now: datetime, *, grace_seconds: float = 0.0
+    session: Session,
+    now: datetime,
+    *,
+    grace_seconds: float = 0.0,
+    republish_seconds: float | None = None,
 ) -> list[tuple[str, str]]:
-    """Return (kind, id) of jobs never published or running on an expired lease, for the sweeper.
+    """Return (kind, id) of jobs the sweeper must publish (again).
 
-    ``grace_seconds`` skips unpublished jobs younger than that (the API may be publishing them).
+    Those are jobs never published, jobs running on an expired lease and, with
+    ``republish_seconds``, jobs published that long ago and still not claimed: a broker that
+    restarted without persistence has lost their message. A duplicate message is harmless, since
+    only one worker can claim a job. ``grace_seconds`` skips unpublished jobs younger than that
+    (the API may be publishing them).
     """
     cutoff = now - timedelta(seconds=grace_seconds)
+    resend = None if republish_seconds is None else now - timedelta(seconds=republish_seconds)
     jobs: list[tuple[str, str]] = []
     for kind, model, stamp in (
         ("request", Request, Request.submitted_at),
         ("rerun", Rerun, Rerun.requested_at),
     ):
+        lost = (
+            and_(model.status.in_(_queued_statuses(kind)), model.published_at < resend)
+            if resend is not None
+            else false()
+        )
         rows = session.scalars(
             select(model.id)
             .where(
@@ -352,6 +366,7 @@ def stale_jobs(
                         stamp <= cutoff,
                     ),
                     and_(model.status == "running", model.lease_expires_at < now),
+                    lost,
                 )
             )
             .order_by(stamp)
@@ -372,6 +387,9 @@ def stale_jobs(
                     Analysis.created_at <= cutoff,
                 ),
                 and_(Analysis.status == "running", Analysis.lease_expires_at < now),
+                and_(Analysis.status == "queued", Analysis.published_at < resend)
+                if resend is not None
+                else false(),
             )
         )
         .order_by(Analysis.created_at)

@@ -22,29 +22,29 @@ from service.engine.explore import analysis_cost, robustness, sensitivity
 from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Analysis, Request, Result
-from workers.celery_app import app
+from workers.celery_app import TASK_NAMES, app
 from workers.fanout import ChunkExecutor, run_one
 from workers.tasks import LeaseLost, _Hooks, new_owner, sessions
 
 log = logging.getLogger(__name__)
 
-TASK_NAME = "sizewise.run_analysis"
-CHUNK_TASK_NAME = "sizewise.run_analysis_chunk"
+TASK_NAME = TASK_NAMES["analysis"]
+CHUNK_TASK_NAME = TASK_NAMES["analysis_chunk"]
 _ENDED_WITHOUT_RESULT = ("failed", "cancelled")
 
 
 def publish_analysis(analysis_id: str, config: dict) -> bool:
     """Send ``sizewise.run_analysis``; True when the broker took it (False: the sweeper retries)."""
-    from workers.queue import _send
+    from workers.queue import publish
 
-    return _send(TASK_NAME, [analysis_id], config)
+    return publish("analysis", analysis_id, config)
 
 
 def publish_analysis_chunk(analysis_id: str, task: dict, config: dict) -> bool:
     """Send one ``sizewise.run_analysis_chunk`` so another worker helps with a batch."""
-    from workers.queue import _send
+    from workers.queue import publish_chunk
 
-    return _send(CHUNK_TASK_NAME, [analysis_id, task], config)
+    return publish_chunk("analysis", analysis_id, task, config)
 
 
 def _run(kind: str, params: dict, question: dict, record: dict, **hooks) -> dict:

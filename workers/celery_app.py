@@ -19,7 +19,9 @@ QUEUE = "sizewise"
 TASK_NAMES = {
     "request": "sizewise.run_request",
     "rerun": "sizewise.run_rerun",
+    "analysis": "sizewise.run_analysis",
     "chunk": "sizewise.run_chunk",
+    "analysis_chunk": "sizewise.run_analysis_chunk",
     "sweep": "sizewise.sweep",
 }
 

@@ -16,7 +16,7 @@ from workers.celery_app import TASK_NAMES, make_celery
 
 log = logging.getLogger(__name__)
 
-KINDS = ("request", "rerun")
+KINDS = ("request", "rerun", "analysis")
 
 # A dead broker must cost the API well under a few seconds, never a hung request thread.
 PUBLISH_RETRY_POLICY = {
@@ -64,7 +64,9 @@ def publish(kind: str, job_id: str, config: dict) -> bool:
 
 
 def publish_chunk(kind: str, job_id: str, task: dict, config: dict) -> bool:
-    """Send one ``sizewise.run_chunk`` message so another worker can help with a batch."""
+    """Send one chunk message so another worker can help with a batch of ``kind``'s job."""
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    if kind == "analysis":  # analyses have their own chunk task, keyed by the analysis alone
+        return _send(TASK_NAMES["analysis_chunk"], [job_id, task], config)
     return _send(TASK_NAMES["chunk"], [kind, job_id, task], config)

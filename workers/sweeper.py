@@ -24,7 +24,6 @@ _STOP = threading.Event()
 
 def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     """Publish every stale job once; return how many the broker accepted."""
-    from workers.analysis_tasks import publish_analysis
     from workers.queue import publish
     from workers.tasks import sessions
 
@@ -40,13 +39,7 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
         )
     published = 0
     for kind, job_id in stale:
-        # Analyses have their own task (the queue module knows requests and reruns only).
-        sent = (
-            publish_analysis(job_id, config)
-            if kind == "analysis"
-            else publish(kind, job_id, config)
-        )
-        if not sent:
+        if not publish(kind, job_id, config):
             continue  # the broker is down; the next sweep tries again
         published += 1
         with session_scope(factory) as session:

@@ -27,7 +27,7 @@ from sqlalchemy.orm import sessionmaker
 from service.engine import Cancelled, EngineError, canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
 from service.engine.records import differences
-from service.store import audit, jobs
+from service.store import analyses, audit, jobs
 from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.models import Request, Rerun, Result
 from workers.celery_app import TASK_NAMES, app
@@ -220,12 +220,25 @@ def run_request_job(
             log.warning("request %s: lease lost before the result was stored", request_id)
             return "lost"
         log.info("request %s: computed", request_id)
+        _publish_waiting_analyses(factory, request_id, config)
         return "computed"
 
     with session_scope(factory) as session:
         ended = jobs.fail(session, "request", request_id, owner, message)
     log.info("request %s: failed: %s", request_id, message)
     return "failed" if ended else "lost"
+
+
+def _publish_waiting_analyses(factory, request_id: str, config: dict) -> None:
+    """Hand the broker the analyses that waited for this result (else the sweeper does, later)."""
+    from workers.queue import publish
+
+    with session_scope(factory) as session:
+        ids = analyses.waiting(session, request_id)
+    for analysis_id in ids:
+        if publish("analysis", analysis_id, config):
+            with session_scope(factory) as session:
+                jobs.mark_published(session, "analysis", analysis_id)
 
 
 def run_rerun_job(

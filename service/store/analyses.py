@@ -51,6 +51,21 @@ def analyses_for(session: Session, request_id: str) -> list[Analysis]:
     )
 
 
+def waiting(session: Session, request_id: str) -> list[str]:
+    """Return the ids of the request's analyses stored unpublished, waiting for its result."""
+    return list(
+        session.scalars(
+            select(Analysis.id)
+            .where(
+                Analysis.request_id == request_id,
+                Analysis.status == "queued",
+                Analysis.published_at.is_(None),
+            )
+            .order_by(Analysis.created_at, Analysis.id)
+        )
+    )
+
+
 def latest_done(session: Session, request_id: str) -> dict[str, Analysis]:
     """Return the newest finished analysis of each kind, keyed by kind."""
     done: dict[str, Analysis] = {}

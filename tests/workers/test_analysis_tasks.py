@@ -62,9 +62,13 @@ def test_an_analysis_waits_for_its_request_then_the_sweeper_publishes_it(sqlite_
     later = utcnow() + timedelta(minutes=5)
     with session_scope(factory) as session:
         assert ("analysis", analysis_id) not in jobs.stale_jobs(session, later)
-    assert run_request_job(request_id, sqlite_config) == "computed"
+    # The broker is down when the request finishes, so the analysis stays unpublished ...
+    dead_broker = dict(sqlite_config, BROKER_URL="redis://127.0.0.1:1/0")
+    assert run_request_job(request_id, dead_broker) == "computed"
+    assert _row(factory, analysis_id).published_at is None
     with session_scope(factory) as session:
         assert ("analysis", analysis_id) in jobs.stale_jobs(session, later)
+    # ... and the sweeper hands it over once the broker answers.
     assert sweeper.sweep_once(sqlite_config, now=later) >= 1
     assert _row(factory, analysis_id).published_at is not None
     assert run_analysis_job(analysis_id, sqlite_config) == "done"
@@ -76,6 +80,16 @@ def test_an_analysis_waits_for_its_request_then_the_sweeper_publishes_it(sqlite_
             effect_size=cell["values"]["effect.difference"], nobs1=30, alpha=0.05, ratio=1.0
         )
         assert cell["power"] == pytest.approx(exact, abs=1e-6)
+
+
+def test_waiting_analyses_are_published_when_their_request_is_computed(sqlite_config, factory):
+    request_id = insert_request(factory, two_means_question())
+    analysis_id = _analysis(factory, request_id, "sensitivity", {"grid": GRID})
+    assert run_analysis_job(analysis_id, sqlite_config) == "waiting"
+    assert _row(factory, analysis_id).published_at is None
+    assert run_request_job(request_id, sqlite_config) == "computed"
+    assert _row(factory, analysis_id).published_at is not None  # no wait for the next sweep
+    assert run_analysis_job(analysis_id, sqlite_config) == "done"
 
 
 def test_a_simulated_grid_fans_out_and_its_digits_depend_only_on_the_cell(sqlite_config, factory):

@@ -167,13 +167,28 @@ class Supervisor:
         self.stop_requested = threading.Event()
 
     def start(self, name: str, argv: list[str], env: Mapping[str, str]) -> None:
-        """Start one child in a process group of its own, so only this launcher signals it."""
-        # A signal to the launcher's group (Ctrl-C, kill -TERM -pgid) would otherwise also hit
-        # the worker's pool processes directly and kill their jobs instead of a warm shutdown.
-        self.children[name] = subprocess.Popen(
-            argv, env=dict(env), cwd=REPO_ROOT, process_group=0, preexec_fn=_die_with_parent
+        """Start one child in a process group of its own, so only this launcher signals it.
+
+        Its output goes to var/logs/<name>.log, so the banner on the terminal stays readable.
+        """
+        logs = Path(env["SIZEWISE_VAR_DIR"]) / "logs"
+        logs.mkdir(parents=True, exist_ok=True)
+        log_path = logs / f"{name}.log"
+        with open(log_path, "ab") as log_file:
+            # A signal to the launcher's group (Ctrl-C, kill -TERM -pgid) would otherwise also
+            # hit the worker's pool processes directly and kill their jobs, not a warm shutdown.
+            self.children[name] = subprocess.Popen(
+                argv,
+                env=dict(env),
+                cwd=REPO_ROOT,
+                process_group=0,
+                preexec_fn=_die_with_parent,
+                stdout=log_file,
+                stderr=subprocess.STDOUT,
+            )
+        print(
+            f"sizewise: started {name} (pid {self.children[name].pid}, log {log_path})", flush=True
         )
-        print(f"sizewise: started {name} (pid {self.children[name].pid})", flush=True)
 
     def request_stop(self, signum: int, _frame: object) -> None:
         """Signal handler: remember that a stop was asked for."""

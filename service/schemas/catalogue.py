@@ -1,7 +1,7 @@
 """The design catalogue served by ``GET /v1/designs``, generated from the question schemas.
 
 Nothing here is a second table: field names, types, ranges, defaults and help text come from the
-marshmallow fields' metadata in ``question.py``; formulas and tests from the engine registry.
+marshmallow fields' metadata in ``effects.py`` and ``question.py``; formulas and tests from the engine registry.
 """
 
 from __future__ import annotations

@@ -11,6 +11,8 @@ from typing import Any
 from marshmallow import Schema, ValidationError, fields, post_load, validate, validates_schema
 
 from service.engine import DESIGN_NAMES
+from service.schemas.errors import QuestionInvalid
+from service.schemas.question import load_question
 from service.store.models import (
     ANALYSIS_KINDS,
     ANALYSIS_STATUSES,
@@ -60,9 +62,6 @@ class QuestionField(fields.Dict):
 
     def _deserialize(self, value, attr, data, **kwargs) -> dict:
         raw = super()._deserialize(value, attr, data, **kwargs)
-        # Imported here so the schemas module loads even while question.py is being written.
-        from service.schemas.errors import QuestionInvalid
-        from service.schemas.question import load_question
 
         try:
             return load_question(raw)

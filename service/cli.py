@@ -348,7 +348,10 @@ def _report_source(source: str) -> tuple[dict, dict]:
         if isinstance(data, dict) and isinstance(data.get("result"), dict):
             return data, data["result"]
         if isinstance(data, dict) and "sample_size" in data and "question" in data:
-            return {"id": Path(source).stem if source != "-" else "local", "status": "computed"}, data
+            return {
+                "id": Path(source).stem if source != "-" else "local",
+                "status": "computed",
+            }, data
         raise InputError(f"{source}: neither a result record nor a request with a result")
     from service.api.render import request_detail
     from service.store.models import Request
@@ -386,7 +389,9 @@ def report_command(args: argparse.Namespace) -> int:
     out.mkdir(parents=True, exist_ok=True)
     name = f"sizewise-report-{detail.get('id') or 'local'}"
     (out / f"{name}.svg").write_text(svg, encoding="utf-8")
-    (out / f"{name}.html").write_text(render_report(detail, record, curve_svg=svg), encoding="utf-8")
+    (out / f"{name}.html").write_text(
+        render_report(detail, record, curve_svg=svg), encoding="utf-8"
+    )
     print(out / f"{name}.html")
     return EXIT_OK
 

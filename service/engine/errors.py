@@ -1,9 +1,9 @@
 """Typed errors raised by the engine.
 
-    EngineError                 base: every error the engine raises on purpose
-    ├── QuestionError           the question cannot be answered as posed (names a field)
-    │   └── BudgetExceeded      the simulation would cost more than the budget allows
-    └── Cancelled               the caller asked to stop (checked between chunks)
+EngineError                 base: every error the engine raises on purpose
+├── QuestionError           the question cannot be answered as posed (names a field)
+│   └── BudgetExceeded      the simulation would cost more than the budget allows
+└── Cancelled               the caller asked to stop (checked between chunks)
 """
 
 from __future__ import annotations

@@ -7,7 +7,15 @@ separator (``1,016``); seeds are printed as digits only so they can be copied ex
 
 from __future__ import annotations
 
-__all__ = ["DESIGN_PHRASES", "TEST_NAMES", "fmt_count", "fmt_num", "fmt_pct", "fmt_prob", "justification"]
+__all__ = [
+    "DESIGN_PHRASES",
+    "TEST_NAMES",
+    "fmt_count",
+    "fmt_num",
+    "fmt_pct",
+    "fmt_prob",
+    "justification",
+]
 
 DESIGN_PHRASES = {
     "two_means": "a comparison of means between two independent groups",
@@ -33,11 +41,19 @@ TEST_NAMES = {
     "logrank": "the log-rank test",
 }
 
-_PARAM = {"sd": "SD", "mu": "log-scale mean", "sigma": "log-scale SD", "df": "degrees of freedom",
-          "loc": "location"}
+_PARAM = {
+    "sd": "SD",
+    "mu": "log-scale mean",
+    "sigma": "log-scale SD",
+    "df": "degrees of freedom",
+    "loc": "location",
+}
 
-_UNIT = {"paired_mean": ("pair", "pairs"), "one_mean": ("participant", "participants"),
-         "correlation": ("participant", "participants")}
+_UNIT = {
+    "paired_mean": ("pair", "pairs"),
+    "one_mean": ("participant", "participants"),
+    "correlation": ("participant", "participants"),
+}
 
 
 # --- number formats (public so tests format the record the same way) ------------------------
@@ -82,8 +98,10 @@ def _per_arm(per_arm: list, design: str) -> str:
     if len(set(per_arm)) == 1:
         return f"{fmt_count(per_arm[0])} per group"
     if len(per_arm) == 2:
-        return (f"{fmt_count(per_arm[0])} in the control group and {fmt_count(per_arm[1])} in the "
-                "treatment group")
+        return (
+            f"{fmt_count(per_arm[0])} in the control group and {fmt_count(per_arm[1])} in the "
+            "treatment group"
+        )
     parts = [f"{fmt_count(n)} in group {i + 1}" for i, n in enumerate(per_arm)]
     return ", ".join(parts[:-1]) + " and " + parts[-1]
 
@@ -111,19 +129,29 @@ def _effect(q: dict) -> str:
     e, design = q.get("effect") or {}, q["design"]
     has = e.get
     if design == "two_means":
-        sds = (f"a common standard deviation of {fmt_num(e['sd_control'])}"
-               if e.get("sd_control") == e.get("sd_treatment") else
-               f"standard deviations of {fmt_num(e['sd_control'])} (control) and "
-               f"{fmt_num(e['sd_treatment'])} (treatment)")
+        sds = (
+            f"a common standard deviation of {fmt_num(e['sd_control'])}"
+            if e.get("sd_control") == e.get("sd_treatment")
+            else f"standard deviations of {fmt_num(e['sd_control'])} (control) and "
+            f"{fmt_num(e['sd_treatment'])} (treatment)"
+        )
         if has("difference") is None:
             return sds
         return f"a difference in means of {fmt_num(e['difference'])} with {sds}"
     if design == "one_mean":
         sd = f"a standard deviation of {fmt_num(e['sd'])}"
-        return sd if has("difference") is None else f"a difference of {fmt_num(e['difference'])} from the reference value with {sd}"
+        return (
+            sd
+            if has("difference") is None
+            else f"a difference of {fmt_num(e['difference'])} from the reference value with {sd}"
+        )
     if design == "paired_mean":
         sd = f"a standard deviation of the differences of {fmt_num(e['sd_difference'])}"
-        return sd if has("difference") is None else f"a mean within-pair difference of {fmt_num(e['difference'])} with {sd}"
+        return (
+            sd
+            if has("difference") is None
+            else f"a mean within-pair difference of {fmt_num(e['difference'])} with {sd}"
+        )
     if design == "two_proportions":
         parts = []
         if has("p_control") is not None:
@@ -148,8 +176,10 @@ def _effect(q: dict) -> str:
     if design == "rank_sum":
         if has("prob_superiority") is None:
             return "the stated groups"
-        return (f"a probability of {fmt_num(e['prob_superiority'])} that a treatment observation "
-                "exceeds a control observation")
+        return (
+            f"a probability of {fmt_num(e['prob_superiority'])} that a treatment observation "
+            "exceeds a control observation"
+        )
     if design == "survival_logrank":
         parts = []
         if has("hazard_ratio") is not None:
@@ -158,8 +188,10 @@ def _effect(q: dict) -> str:
         if e.get("median_control") is not None:
             control += f" (median survival {fmt_num(e['median_control'])})"
         parts.append(control)
-        parts.append(f"uniform accrual over {fmt_num(e['accrual_period'])} and further follow-up of "
-                     f"{fmt_num(e['follow_up'])} time units")
+        parts.append(
+            f"uniform accrual over {fmt_num(e['accrual_period'])} and further follow-up of "
+            f"{fmt_num(e['follow_up'])} time units"
+        )
         if e.get("loss_rate"):
             parts.append(f"a loss-to-follow-up hazard of {fmt_num(e['loss_rate'])}")
         return ", ".join(parts[:-1]) + " and " + parts[-1]
@@ -172,19 +204,24 @@ def _hypothesis(q: dict) -> str:
     if kind == "noninferiority":
         return f"to show non-inferiority with a margin of {fmt_num(margin)}"
     if kind == "equivalence":
-        return (f"to show equivalence within ±{fmt_num(margin)} by two one-sided tests (TOST)")
+        return f"to show equivalence within ±{fmt_num(margin)} by two one-sided tests (TOST)"
     return "to detect"
 
 
 def _alpha(q: dict, steps: list[dict]) -> str:
     # The F test has no sides; saying "two-sided" there would misdescribe it.
-    sides = "" if q["design"] == "anova_oneway" else (
-        "one-sided " if int(q.get("sides", 2)) == 1 else "two-sided ")
+    sides = (
+        ""
+        if q["design"] == "anova_oneway"
+        else ("one-sided " if int(q.get("sides", 2)) == 1 else "two-sided ")
+    )
     text = f"a {sides}significance level of {fmt_num(q['alpha'])}"
     for step in steps:
         if step["step"] == "bonferroni":
-            text += (f", divided by Bonferroni over {fmt_count(step['comparisons'])} comparisons to "
-                     f"{fmt_num(step['alpha_per_comparison'])} per comparison,")
+            text += (
+                f", divided by Bonferroni over {fmt_count(step['comparisons'])} comparisons to "
+                f"{fmt_num(step['alpha_per_comparison'])} per comparison,"
+            )
     return text
 
 
@@ -194,15 +231,19 @@ def _steps_sentence(steps: list[dict], total: int, design: str) -> str:
     for step in steps:
         if step["step"] == "design_effect":
             clusters = step.get("clusters_per_arm")
-            text = (f"allowing for clustering (mean cluster size {fmt_num(step['mean_cluster_size'])}, "
-                    f"intracluster correlation {fmt_num(step['icc'])}, design effect "
-                    f"{fmt_num(step['factor'])}) raises this to {_per_arm(step['per_arm'], design)}")
+            text = (
+                f"allowing for clustering (mean cluster size {fmt_num(step['mean_cluster_size'])}, "
+                f"intracluster correlation {fmt_num(step['icc'])}, design effect "
+                f"{fmt_num(step['factor'])}) raises this to {_per_arm(step['per_arm'], design)}"
+            )
             if clusters:
                 text += f" ({_clusters(clusters)})"
             parts.append(text)
         elif step["step"] == "dropout":
-            parts.append(f"allowing for {fmt_pct(step['rate'])} dropout (dividing by 1 − "
-                         f"{fmt_num(step['rate'])}) gives {_per_arm(step['per_arm'], design)}")
+            parts.append(
+                f"allowing for {fmt_pct(step['rate'])} dropout (dividing by 1 − "
+                f"{fmt_num(step['rate'])}) gives {_per_arm(step['per_arm'], design)}"
+            )
     if not parts:
         return ""
     text = "; ".join(parts)
@@ -212,7 +253,10 @@ def _steps_sentence(steps: list[dict], total: int, design: str) -> str:
 def _clusters(clusters: list) -> str:
     if len(set(clusters)) == 1:
         return f"{fmt_count(clusters[0])} clusters per group"
-    return " and ".join(fmt_count(c) for c in clusters) + " clusters in the control and treatment groups"
+    return (
+        " and ".join(fmt_count(c) for c in clusters)
+        + " clusters in the control and treatment groups"
+    )
 
 
 def _method(record: dict) -> str:
@@ -228,12 +272,17 @@ def _source(context: dict | None) -> str:
     source = (context or {}).get("effect_source")
     if source and str(source).strip():
         return f" The assumed values are based on {str(source).strip().rstrip('.')}."
-    return " [State the source of the assumed values: pilot data, literature or clinical judgement.]"
+    return (
+        " [State the source of the assumed values: pilot data, literature or clinical judgement.]"
+    )
 
 
 def _arm_words(arm: dict) -> str:
-    params = ", ".join(f"{_PARAM.get(k, k.replace('_', ' '))} {fmt_num(v)}"
-                       for k, v in arm.items() if k != "family")
+    params = ", ".join(
+        f"{_PARAM.get(k, k.replace('_', ' '))} {fmt_num(v)}"
+        for k, v in arm.items()
+        if k != "family"
+    )
     return f"{arm['family'].replace('_', ' ')} ({params})"
 
 
@@ -255,29 +304,38 @@ def _simulation(record: dict) -> str:
     search = record.get("search")
     text = _data_model((record.get("method") or {}).get("data"))
     if search:
-        text += (f" Candidate sizes were screened with {fmt_count(search['search_replicates'])} "
-                 "simulated trials each, and the chosen size was confirmed")
+        text += (
+            f" Candidate sizes were screened with {fmt_count(search['search_replicates'])} "
+            "simulated trials each, and the chosen size was confirmed"
+        )
     else:
         text += " The power was estimated"
-    text += (f" with {fmt_count(power['replicates'])} simulated trials (seed {repro['seed']}, "
-             f"{repro['bit_generator']} generator): estimated power {fmt_prob(power['estimate'])}, "
-             f"Monte Carlo standard error {fmt_prob(power['mcse'], 4)}, 95% interval "
-             f"{fmt_prob(power['ci95'][0])} to {fmt_prob(power['ci95'][1])}.")
+    text += (
+        f" with {fmt_count(power['replicates'])} simulated trials (seed {repro['seed']}, "
+        f"{repro['bit_generator']} generator): estimated power {fmt_prob(power['estimate'])}, "
+        f"Monte Carlo standard error {fmt_prob(power['mcse'], 4)}, 95% interval "
+        f"{fmt_prob(power['ci95'][0])} to {fmt_prob(power['ci95'][1])}."
+    )
     if sim.get("decision_rule") == "lower_bound" and record["question"]["find"] == "sample_size":
         text += " The size was accepted only when the lower 95% bound reached the target power."
     if power.get("analytic") is not None:
         text += f" The analytic formula gives a power of {fmt_prob(power['analytic'])} at the same size."
     t1 = record.get("type_i_error")
     if t1:
-        text += (f" Under the null hypothesis ({t1['null_model'].replace('(', '[').replace(')', ']')}) "
-                 "the simulated type I error was "
-                 f"{fmt_prob(t1['estimate'], 4)} (Monte Carlo standard error {fmt_prob(t1['mcse'], 4)}, "
-                 f"95% interval {fmt_prob(t1['ci95'][0], 4)} to {fmt_prob(t1['ci95'][1], 4)}) against "
-                 f"the nominal {fmt_num(t1['alpha'])}")
+        text += (
+            f" Under the null hypothesis ({t1['null_model'].replace('(', '[').replace(')', ']')}) "
+            "the simulated type I error was "
+            f"{fmt_prob(t1['estimate'], 4)} (Monte Carlo standard error {fmt_prob(t1['mcse'], 4)}, "
+            f"95% interval {fmt_prob(t1['ci95'][0], 4)} to {fmt_prob(t1['ci95'][1], 4)}) against "
+            f"the nominal {fmt_num(t1['alpha'])}"
+        )
         lo, hi = t1["ci95"]
-        text += (", consistent with it." if lo <= t1["alpha"] <= hi else
-                 "; the interval excludes the nominal level, so the test does not hold its size "
-                 "under this data model.")
+        text += (
+            ", consistent with it."
+            if lo <= t1["alpha"] <= hi
+            else "; the interval excludes the nominal level, so the test does not hold its size "
+            "under this data model."
+        )
     return text
 
 
@@ -297,16 +355,20 @@ def justification(record: dict, context: dict | None = None) -> str:
         base = next(s for s in steps if s["step"] == "base")
         aim = _hypothesis(q)
         lead = "" if aim == "to detect" else f" {aim[0].upper()}{aim[1:]},"
-        body = (f"{lead} {'with' if lead else 'With'} {test_level} and a target power of "
-                f"{fmt_pct(q['target_power'])}, and assuming {_effect(q)},")
+        body = (
+            f"{lead} {'with' if lead else 'With'} {test_level} and a target power of "
+            f"{fmt_pct(q['target_power'])}, and assuming {_effect(q)},"
+        )
         if record.get("events"):
             ev = record["events"]
             p = ev["p_event"]
-            body += (f" {fmt_count(ev['events']['required'])} events are required (unrounded "
-                     f"{_raw(ev['events']['raw'])}). With a probability of an event during the study "
-                     f"of {fmt_prob(p['control'])} in the control group and {fmt_prob(p['treatment'])} "
-                     f"in the treatment group (allocation-weighted mean {fmt_prob(p['mean'])}), this "
-                     f"needs {_per_arm(base['per_arm'], design)}")
+            body += (
+                f" {fmt_count(ev['events']['required'])} events are required (unrounded "
+                f"{_raw(ev['events']['raw'])}). With a probability of an event during the study "
+                f"of {fmt_prob(p['control'])} in the control group and {fmt_prob(p['treatment'])} "
+                f"in the treatment group (allocation-weighted mean {fmt_prob(p['mean'])}), this "
+                f"needs {_per_arm(base['per_arm'], design)}"
+            )
         else:
             body += f" {_per_arm(base['per_arm'], design)}"
             if len(base["per_arm"]) > 1:
@@ -338,11 +400,15 @@ def justification(record: dict, context: dict | None = None) -> str:
                     words.append(f"{fmt_pct(s['rate'])} dropout")
                 else:
                     words.append(f"a design effect of {fmt_num(s['factor'])}")
-            body += (f" (after {' and '.join(words)}, an effective "
-                     f"{_analysed(analysed, design)} are analysed)")
+            body += (
+                f" (after {' and '.join(words)}, an effective "
+                f"{_analysed(analysed, design)} are analysed)"
+            )
         if find == "power":
             verb = _hypothesis(q)
-            target = f"{verb} {_effect(q)}" if verb == "to detect" else f"{verb}, assuming {_effect(q)}"
+            target = (
+                f"{verb} {_effect(q)}" if verb == "to detect" else f"{verb}, assuming {_effect(q)}"
+            )
             if record["method"].get("kind") == "analytic":
                 body += f", the power {target} is {fmt_pct(round(power['estimate'], 3))}."
             else:
@@ -350,8 +416,10 @@ def justification(record: dict, context: dict | None = None) -> str:
         else:
             eff = record["effect"]
             field = eff["field"].replace("_", " ")
-            body += (f", the {field} detectable with {fmt_pct(q['target_power'])} power, given "
-                     f"{_effect(q)}, is {fmt_num(eff['value'])}.")
+            body += (
+                f", the {field} detectable with {fmt_pct(q['target_power'])} power, given "
+                f"{_effect(q)}, is {fmt_num(eff['value'])}."
+            )
         body += _source(context)
     sim = _simulation(record) if record["method"].get("kind") == "simulation" else ""
     warnings = "".join(f" Note: {w.rstrip('.')}." for w in record.get("warnings") or [])
@@ -363,4 +431,3 @@ def _tidy(text: str) -> str:
     while "  " in text:
         text = text.replace("  ", " ")
     return text.replace(" ,", ",").replace("..", ".").strip()
-

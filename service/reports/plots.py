@@ -23,7 +23,13 @@ from matplotlib.figure import Figure  # noqa: E402  (after the backend is chosen
 
 from service.engine import QuestionError, compute  # noqa: E402
 
-__all__ = ["curve_points", "power_curve_png", "power_curve_svg", "sensitivity_lines", "sensitivity_svg"]
+__all__ = [
+    "curve_points",
+    "power_curve_png",
+    "power_curve_svg",
+    "sensitivity_lines",
+    "sensitivity_svg",
+]
 
 DEFAULT_POINTS = 12
 DEFAULT_SPAN = (0.5, 1.5)
@@ -79,7 +85,9 @@ def curve_points(
     if not isinstance(points, int) or isinstance(points, bool) or not 3 <= points <= 40:
         raise QuestionError("points", f"must be a whole number in 3…40; got {points!r}")
     if not (isinstance(span, (tuple, list)) and len(span) == 2 and 0 < span[0] < 1 < span[1] <= 4):
-        raise QuestionError("span", f"must be (low, high) with 0 < low < 1 < high ≤ 4; got {span!r}")
+        raise QuestionError(
+            "span", f"must be (low, high) with 0 < low < 1 < high ≤ 4; got {span!r}"
+        )
     q = _power_question(record)
     design = q["design"]
     chosen = int(record["sample_size"]["per_arm"][0])
@@ -116,7 +124,9 @@ def curve_points(
     return {
         "design": design,
         "method": "simulation" if simulated else "analytic",
-        "x_label": "Enrolled per group" if len(record["sample_size"]["per_arm"]) > 1 else "Enrolled",
+        "x_label": "Enrolled per group"
+        if len(record["sample_size"]["per_arm"]) > 1
+        else "Enrolled",
         "n": sizes,
         "analytic": analytic,
         "simulated": sim_points,
@@ -152,7 +162,9 @@ def _figure(points: dict) -> Figure:
     ax = fig.add_subplot()
     ax.set_gid("power-curve-axes")
     if points["analytic"]:
-        pairs = [(n, p) for n, p in zip(points["n"], points["analytic"], strict=True) if p is not None]
+        pairs = [
+            (n, p) for n, p in zip(points["n"], points["analytic"], strict=True) if p is not None
+        ]
         label = "formula" if points["method"] == "analytic" else "formula (normal data)"
         (line,) = ax.plot(*zip(*pairs, strict=True), color=_ANALYTIC, lw=2, label=label)
         line.set_gid("analytic-curve")
@@ -162,7 +174,14 @@ def _figure(points: dict) -> Figure:
         lo = [p["power"] - p["ci95"][0] for p in points["simulated"]]
         hi = [p["ci95"][1] - p["power"] for p in points["simulated"]]
         bars = ax.errorbar(
-            xs, ys, yerr=[lo, hi], fmt="o", ms=4, color=_SIMULATED, capsize=3, lw=1.2,
+            xs,
+            ys,
+            yerr=[lo, hi],
+            fmt="o",
+            ms=4,
+            color=_SIMULATED,
+            capsize=3,
+            lw=1.2,
             label=f"simulated, 95% Monte Carlo interval ({points['replicates']:,} each)",
         )
         bars.lines[0].set_gid("simulated-points")
@@ -175,8 +194,15 @@ def _figure(points: dict) -> Figure:
     chosen = points["chosen"]
     v = ax.axvline(chosen["n"], color=_CHOSEN, ls=":", lw=1.5)
     v.set_gid("chosen-n")
-    (dot,) = ax.plot([chosen["n"]], [chosen["power"]], marker="D", ms=7, color=_CHOSEN, ls="none",
-                     label=f"answer: {chosen['n']:,} (power {chosen['power']:.3f})")
+    (dot,) = ax.plot(
+        [chosen["n"]],
+        [chosen["power"]],
+        marker="D",
+        ms=7,
+        color=_CHOSEN,
+        ls="none",
+        label=f"answer: {chosen['n']:,} (power {chosen['power']:.3f})",
+    )
     dot.set_gid("chosen-point")
     ax.set_xlabel(points["x_label"], color=_INK)
     ax.set_ylabel("Power", color=_INK)
@@ -199,7 +225,7 @@ def _svg(fig: Figure, title_id: str, title: str) -> str:
     start = text.find("<svg")
     svg = text[start:]
     # Scale with its container instead of a fixed point size.
-    svg = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"', r'<svg\1', svg, count=1)
+    svg = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"', r"<svg\1", svg, count=1)
     svg = svg.replace("<svg ", f'<svg role="img" aria-labelledby="{title_id}" ', 1)
     end = svg.index(">") + 1
     return f'{svg[:end]}<title id="{title_id}">{title}</title>{svg[end:]}'
@@ -215,9 +241,14 @@ def power_curve_svg(points: dict) -> str:
 
 _LINE_COLOURS = ("#1f5fa8", "#b34700", "#0b7a4b", "#7a3fa0", "#a8891f", "#1f8fa8", "#a81f4f")
 _PATH_WORDS = {
-    "alpha": "alpha", "target_power": "target power", "allocation_ratio": "allocation ratio",
-    "effect.sd": "SD", "adjustments.dropout": "dropout", "adjustments.comparisons": "comparisons",
-    "adjustments.cluster.icc": "ICC", "adjustments.cluster.mean_size": "cluster size",
+    "alpha": "alpha",
+    "target_power": "target power",
+    "allocation_ratio": "allocation ratio",
+    "effect.sd": "SD",
+    "adjustments.dropout": "dropout",
+    "adjustments.comparisons": "comparisons",
+    "adjustments.cluster.icc": "ICC",
+    "adjustments.cluster.mean_size": "cluster size",
 }
 
 
@@ -240,7 +271,9 @@ def sensitivity_lines(grid_result: dict) -> dict:
     for cell in grid_result["cells"]:
         key = tuple(cell["values"][a["path"]] for a in rest)
         if key not in lines:
-            label = ", ".join(f"{_path_words(a['path'])} {v:g}" for a, v in zip(rest, key, strict=True))
+            label = ", ".join(
+                f"{_path_words(a['path'])} {v:g}" for a, v in zip(rest, key, strict=True)
+            )
             lines[key] = {"label": label or "as asked", "x": [], "y": []}
         y = None
         if not cell.get("error"):
@@ -264,7 +297,9 @@ def sensitivity_svg(grid_result: dict) -> str:
     for i, line in enumerate(data["lines"]):
         colour = _LINE_COLOURS[i % len(_LINE_COLOURS)]
         ys = [float("nan") if y is None else y for y in line["y"]]
-        (drawn,) = ax.plot(line["x"], ys, marker="o", ms=4, lw=1.8, color=colour, label=line["label"])
+        (drawn,) = ax.plot(
+            line["x"], ys, marker="o", ms=4, lw=1.8, color=colour, label=line["label"]
+        )
         drawn.set_gid(f"sensitivity-line-{i}")
     ax.set_xlabel(data["x_label"], color=_INK)
     ax.set_ylabel(data["y_label"], color=_INK)
@@ -278,7 +313,6 @@ def sensitivity_svg(grid_result: dict) -> str:
         ax.legend(loc="best", frameon=False, fontsize=9)
     title = f"{data['y_label']} against {data['x_label'].lower()}, one line per assumption set"
     return _svg(fig, "sensitivity-title", title)
-
 
 
 def power_curve_png(points: dict) -> bytes:

@@ -132,34 +132,63 @@ def question_rows(q: dict) -> list[tuple[str, str]]:
         ("Design", words.DESIGN_PHRASES.get(design, design).capitalize()),
         ("Looking for", _FIND.get(q["find"], q["find"]).capitalize()),
     ]
-    sides = "" if design == "anova_oneway" else ("one-sided" if int(q.get("sides", 2)) == 1 else "two-sided")
+    sides = (
+        ""
+        if design == "anova_oneway"
+        else ("one-sided" if int(q.get("sides", 2)) == 1 else "two-sided")
+    )
     rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {sides}".strip()))
     if q.get("target_power") is not None:
         rows.append(("Target power", words.fmt_pct(q["target_power"])))
     if q.get("sample_size"):
-        rows.append(("Enrolled per group" if len(q["sample_size"]["per_arm"]) > 1 else "Enrolled",
-                     _per_arm_text(q["sample_size"]["per_arm"])))
+        rows.append(
+            (
+                "Enrolled per group" if len(q["sample_size"]["per_arm"]) > 1 else "Enrolled",
+                _per_arm_text(q["sample_size"]["per_arm"]),
+            )
+        )
     rows.append(("Assumed effect", words._effect(q)))
     hyp = q.get("hypothesis") or {}
     if hyp.get("kind", "superiority") != "superiority":
-        rows.append(("Hypothesis", words._hypothesis(q).removeprefix("to ").capitalize()
-                     + (" (higher is better)" if hyp.get("higher_is_better", True) else " (lower is better)")))
+        rows.append(
+            (
+                "Hypothesis",
+                words._hypothesis(q).removeprefix("to ").capitalize()
+                + (
+                    " (higher is better)"
+                    if hyp.get("higher_is_better", True)
+                    else " (lower is better)"
+                ),
+            )
+        )
     if design in ("two_means", "two_proportions", "rank_sum", "survival_logrank"):
-        rows.append(("Allocation", f"{words.fmt_num(q.get('allocation_ratio') or 1.0)} : 1 (treatment : control)"))
+        rows.append(
+            (
+                "Allocation",
+                f"{words.fmt_num(q.get('allocation_ratio') or 1.0)} : 1 (treatment : control)",
+            )
+        )
     adj = q.get("adjustments") or {}
     parts = []
     if adj.get("comparisons", 1) > 1:
         parts.append(f"Bonferroni over {adj['comparisons']} comparisons")
     if adj.get("cluster"):
         c = adj["cluster"]
-        parts.append(f"clusters of mean size {words.fmt_num(c['mean_size'])}, ICC {words.fmt_num(c['icc'])}")
+        parts.append(
+            f"clusters of mean size {words.fmt_num(c['mean_size'])}, ICC {words.fmt_num(c['icc'])}"
+        )
     if adj.get("dropout"):
         parts.append(f"dropout {words.fmt_pct(adj['dropout'])}")
     rows.append(("Adjustments", "; ".join(parts) if parts else "none"))
     if q.get("method") == "simulation":
         sim = q["simulation"]
-        rows.append(("Method", f"Monte Carlo simulation of {words.TEST_NAMES.get(sim['test'], sim['test'])}, "
-                               f"{words.fmt_count(sim['replicates'])} replicates, seed {sim['seed']}"))
+        rows.append(
+            (
+                "Method",
+                f"Monte Carlo simulation of {words.TEST_NAMES.get(sim['test'], sim['test'])}, "
+                f"{words.fmt_count(sim['replicates'])} replicates, seed {sim['seed']}",
+            )
+        )
     else:
         rows.append(("Method", f"analytic ({q.get('formula') or 'default formula'})"))
     return rows
@@ -170,21 +199,39 @@ def _answer_figures(record: dict) -> list[dict]:
     figures = []
     several = len(size["per_arm"]) > 1
     if several:
-        figures.append({"value": _per_arm_text(size["per_arm"]),
-                        "label": "enrolled per group" if len(set(size["per_arm"])) == 1
-                        else "enrolled per group (" + " / ".join(_arm_names(q, len(size["per_arm"]))) + ")"})
+        figures.append(
+            {
+                "value": _per_arm_text(size["per_arm"]),
+                "label": "enrolled per group"
+                if len(set(size["per_arm"])) == 1
+                else "enrolled per group (" + " / ".join(_arm_names(q, len(size["per_arm"]))) + ")",
+            }
+        )
     figures.append({"value": words.fmt_count(size["total"]), "label": "enrolled in total"})
     if record.get("events"):
-        figures.append({"value": words.fmt_count(record["events"]["events"]["required"]),
-                        "label": "events required"})
+        figures.append(
+            {
+                "value": words.fmt_count(record["events"]["events"]["required"]),
+                "label": "events required",
+            }
+        )
     if q["find"] == "effect" and record.get("effect"):
-        figures.append({"value": words.fmt_num(record["effect"]["value"]),
-                        "label": f"detectable {record['effect']['field'].replace('_', ' ')}"})
-    label = "power" if power.get("mcse") is None else (
-        f"simulated power (MCSE {words.fmt_prob(power['mcse'], 4)})")
+        figures.append(
+            {
+                "value": words.fmt_num(record["effect"]["value"]),
+                "label": f"detectable {record['effect']['field'].replace('_', ' ')}",
+            }
+        )
+    label = (
+        "power"
+        if power.get("mcse") is None
+        else (f"simulated power (MCSE {words.fmt_prob(power['mcse'], 4)})")
+    )
     figures.append({"value": words.fmt_prob(power["estimate"]), "label": label})
     if size.get("clusters_per_arm"):
-        figures.append({"value": _per_arm_text(size["clusters_per_arm"]), "label": "clusters per group"})
+        figures.append(
+            {"value": _per_arm_text(size["clusters_per_arm"]), "label": "clusters per group"}
+        )
     return figures
 
 
@@ -199,38 +246,76 @@ def _step_rows(record: dict) -> list[dict]:
     for s in record["sample_size"]["steps"]:
         kind = s["step"]
         if kind == "bonferroni":
-            rows.append({"name": "Multiple comparisons", "base": False,
-                         "detail": f"Bonferroni: alpha {words.fmt_num(s['alpha'])} ÷ {s['comparisons']} = "
-                                   f"{words.fmt_num(s['alpha_per_comparison'])} per comparison",
-                         "result": "—"})
+            rows.append(
+                {
+                    "name": "Multiple comparisons",
+                    "base": False,
+                    "detail": f"Bonferroni: alpha {words.fmt_num(s['alpha'])} ÷ {s['comparisons']} = "
+                    f"{words.fmt_num(s['alpha_per_comparison'])} per comparison",
+                    "result": "—",
+                }
+            )
         elif kind == "base":
             raw = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_arm_raw"]))
-            detail = (f"solved by the formula: {raw}, rounded up" if record["method"].get("kind") == "analytic"
-                      else "smallest simulated size reaching the target")
+            detail = (
+                f"solved by the formula: {raw}, rounded up"
+                if record["method"].get("kind") == "analytic"
+                else "smallest simulated size reaching the target"
+            )
             if record.get("events"):
                 ev = record["events"]
-                detail += (f"; {words.fmt_count(ev['events']['required'])} events ÷ mean P(event) "
-                           f"{words.fmt_prob(ev['p_event']['mean'])}")
-            rows.append({"name": "Base size", "base": True, "detail": detail,
-                         "result": _per_arm_text(s["per_arm"])})
+                detail += (
+                    f"; {words.fmt_count(ev['events']['required'])} events ÷ mean P(event) "
+                    f"{words.fmt_prob(ev['p_event']['mean'])}"
+                )
+            rows.append(
+                {
+                    "name": "Base size",
+                    "base": True,
+                    "detail": detail,
+                    "result": _per_arm_text(s["per_arm"]),
+                }
+            )
         elif kind == "design_effect":
             clusters = _per_arm_text(s.get("clusters_per_arm"))
-            rows.append({"name": "Design effect", "base": False,
-                         "detail": f"1 + ({words.fmt_num(s['mean_cluster_size'])} − 1) × "
-                                   f"{words.fmt_num(s['icc'])} = {words.fmt_num(s['factor'])}; "
-                                   f"{clusters} clusters per group",
-                         "result": _sizes_text(s["per_arm"])})
+            rows.append(
+                {
+                    "name": "Design effect",
+                    "base": False,
+                    "detail": f"1 + ({words.fmt_num(s['mean_cluster_size'])} − 1) × "
+                    f"{words.fmt_num(s['icc'])} = {words.fmt_num(s['factor'])}; "
+                    f"{clusters} clusters per group",
+                    "result": _sizes_text(s["per_arm"]),
+                }
+            )
         elif kind == "dropout":
             verb = "divide" if record["question"]["find"] == "sample_size" else "multiply"
-            rows.append({"name": "Dropout", "base": False,
-                         "detail": f"{words.fmt_pct(s['rate'])}: {verb} by 1 − {words.fmt_num(s['rate'])}",
-                         "result": _sizes_text(s["per_arm"])})
+            rows.append(
+                {
+                    "name": "Dropout",
+                    "base": False,
+                    "detail": f"{words.fmt_pct(s['rate'])}: {verb} by 1 − {words.fmt_num(s['rate'])}",
+                    "result": _sizes_text(s["per_arm"]),
+                }
+            )
         elif kind == "enrolled":
-            rows.append({"name": "Enrolled", "base": True, "detail": "as stated in the question",
-                         "result": _per_arm_text(s["per_arm"])})
+            rows.append(
+                {
+                    "name": "Enrolled",
+                    "base": True,
+                    "detail": "as stated in the question",
+                    "result": _per_arm_text(s["per_arm"]),
+                }
+            )
         else:
-            rows.append({"name": kind.replace("_", " ").capitalize(), "base": False, "detail": "",
-                         "result": _per_arm_text(s.get("per_arm"))})
+            rows.append(
+                {
+                    "name": kind.replace("_", " ").capitalize(),
+                    "base": False,
+                    "detail": "",
+                    "result": _per_arm_text(s.get("per_arm")),
+                }
+            )
     return rows
 
 
@@ -266,36 +351,45 @@ def render_report(
         context["effect_source"] = request["effect_source"]
     status = request.get("status") or "computed"
     several = len(record["sample_size"]["per_arm"]) > 1
-    return _env().get_template("report.html.j2").render(
-        css=_css(),
-        version=_version(record),
-        request=request,
-        protocol=request.get("protocol") or {},
-        requester=request.get("requester") or {},
-        status=status,
-        status_label=STATUS_LABELS.get(status, status),
-        record=record,
-        question_rows=question_rows(q),
-        answer_figures=_answer_figures(record),
-        per_arm_heading="Per group" if several else "Number",
-        step_rows=_step_rows(record),
-        justification=words.justification(record, context),
-        curve_svg=Markup(curve_svg),
-        sensitivity=sensitivity,
-        sensitivity_svg=Markup(sensitivity_svg) if sensitivity_svg else None,
-        robustness=robustness,
-        pending=[
-            {"kind": a.get("kind", ""), "status": STATUS_LABELS.get(a.get("status"), a.get("status"))}
-            for a in pending or []
-        ],
-        repro=record["reproducibility"],
-        method_text=_method_text(record),
-        question_json=json.dumps(q, indent=2, sort_keys=True, ensure_ascii=False),
-        cautions=record.get("cautions") or list(CAUTIONS),
+    return (
+        _env()
+        .get_template("report.html.j2")
+        .render(
+            css=_css(),
+            version=_version(record),
+            request=request,
+            protocol=request.get("protocol") or {},
+            requester=request.get("requester") or {},
+            status=status,
+            status_label=STATUS_LABELS.get(status, status),
+            record=record,
+            question_rows=question_rows(q),
+            answer_figures=_answer_figures(record),
+            per_arm_heading="Per group" if several else "Number",
+            step_rows=_step_rows(record),
+            justification=words.justification(record, context),
+            curve_svg=Markup(curve_svg),
+            sensitivity=sensitivity,
+            sensitivity_svg=Markup(sensitivity_svg) if sensitivity_svg else None,
+            robustness=robustness,
+            pending=[
+                {
+                    "kind": a.get("kind", ""),
+                    "status": STATUS_LABELS.get(a.get("status"), a.get("status")),
+                }
+                for a in pending or []
+            ],
+            repro=record["reproducibility"],
+            method_text=_method_text(record),
+            question_json=json.dumps(q, indent=2, sort_keys=True, ensure_ascii=False),
+            cautions=record.get("cautions") or list(CAUTIONS),
+        )
     )
 
 
-def render_staff_list(requests: list[dict], *, report_href: str = "/v1/requests/{id}/report") -> str:
+def render_staff_list(
+    requests: list[dict], *, report_href: str = "/v1/requests/{id}/report"
+) -> str:
     """Render the biostatistics core's list of requests with their status."""
     rows = []
     counts: dict[str, int] = {}
@@ -304,23 +398,33 @@ def render_staff_list(requests: list[dict], *, report_href: str = "/v1/requests/
         counts[status] = counts.get(status, 0) + 1
         protocol, requester = r.get("protocol") or {}, r.get("requester") or {}
         progress = r.get("progress")
-        rows.append({
-            "href": report_href.format(id=r.get("id", "")),
-            "protocol_title": protocol.get("title") or "Untitled protocol",
-            "protocol_id": protocol.get("id") or "",
-            "requester": requester.get("name") or "—",
-            "department": requester.get("department"),
-            "design": (r.get("design") or "").replace("_", " "),
-            "method": r.get("method"),
-            "status": status,
-            "status_label": STATUS_LABELS.get(status, status),
-            "progress": None if progress is None else words.fmt_pct(round(float(progress), 2)),
-            "deadline": r.get("deadline"),
-            "assigned_to": r.get("assigned_to"),
-        })
+        rows.append(
+            {
+                "href": report_href.format(id=r.get("id", "")),
+                "protocol_title": protocol.get("title") or "Untitled protocol",
+                "protocol_id": protocol.get("id") or "",
+                "requester": requester.get("name") or "—",
+                "department": requester.get("department"),
+                "design": (r.get("design") or "").replace("_", " "),
+                "method": r.get("method"),
+                "status": status,
+                "status_label": STATUS_LABELS.get(status, status),
+                "progress": None if progress is None else words.fmt_pct(round(float(progress), 2)),
+                "deadline": r.get("deadline"),
+                "assigned_to": r.get("assigned_to"),
+            }
+        )
     order = [s for s in STATUS_LABELS if s in counts] + sorted(set(counts) - set(STATUS_LABELS))
-    counts_text = (f"{len(rows)} request{'s' if len(rows) != 1 else ''}: "
-                   + ", ".join(f"{counts[s]} {STATUS_LABELS.get(s, s).lower()}" for s in order)) if rows else ""
-    return _env().get_template("staff_list.html.j2").render(
-        css=_css(), version=_version(), rows=rows, counts_text=counts_text
+    counts_text = (
+        (
+            f"{len(rows)} request{'s' if len(rows) != 1 else ''}: "
+            + ", ".join(f"{counts[s]} {STATUS_LABELS.get(s, s).lower()}" for s in order)
+        )
+        if rows
+        else ""
+    )
+    return (
+        _env()
+        .get_template("staff_list.html.j2")
+        .render(css=_css(), version=_version(), rows=rows, counts_text=counts_text)
     )

@@ -19,8 +19,19 @@ def test_engine_imports_no_service_libraries():
 
 def test_public_surface_is_explicit():
     public = {name for name in dir(engine) if not name.startswith("_")}
-    modules = {"compute", "designs", "errors", "records", "adjust", "simulate", "search", "models",
-               "vectests", "quantiles", "explore"}
+    modules = {
+        "compute",
+        "designs",
+        "errors",
+        "records",
+        "adjust",
+        "simulate",
+        "search",
+        "models",
+        "vectests",
+        "quantiles",
+        "explore",
+    }
     assert public - modules - set(engine.__all__) == set()
     for name in engine.__all__:
         assert hasattr(engine, name)

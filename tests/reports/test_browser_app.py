@@ -26,15 +26,27 @@ pytestmark = pytest.mark.skipif(
 
 # Invented protocol of the Northbridge General Hospital research office.
 BODY = {
-    "protocol": {"id": "NGH-CRO-2025-052", "title": "Supervised exercise after cardiac surgery",
-                 "principal_investigator": "Dr. Ines Halvorsen"},
-    "requester": {"name": "Dr. Ines Halvorsen", "email": "i.halvorsen@northbridge-general.example",
-                  "department": "Cardiac rehabilitation"},
+    "protocol": {
+        "id": "NGH-CRO-2025-052",
+        "title": "Supervised exercise after cardiac surgery",
+        "principal_investigator": "Dr. Ines Halvorsen",
+    },
+    "requester": {
+        "name": "Dr. Ines Halvorsen",
+        "email": "i.halvorsen@northbridge-general.example",
+        "department": "Cardiac rehabilitation",
+    },
     "effect_source": "SD from the 2024 Northbridge audit of rehabilitation visits",
-    "question": {"design": "two_means", "find": "sample_size", "effect": {"difference": 40, "sd": 90},
-                 "adjustments": {"dropout": 0.15}},
-    "analyses": {"sensitivity": {"grid": {"effect.difference": [30, 40, 50], "effect.sd": [80, 90, 100]}},
-                 "robustness": True},
+    "question": {
+        "design": "two_means",
+        "find": "sample_size",
+        "effect": {"difference": 40, "sd": 90},
+        "adjustments": {"dropout": 0.15},
+    },
+    "analyses": {
+        "sensitivity": {"grid": {"effect.difference": [30, 40, 50], "effect.sd": [80, 90, 100]}},
+        "robustness": True,
+    },
 }
 
 
@@ -44,8 +56,13 @@ def served(tmp_path_factory):
     root = tmp_path_factory.mktemp("app")
     url = f"sqlite:///{root / 'sizewise.db'}"
     upgrade(url)
-    app = create_app({"DATABASE_URL": url, "BROKER_URL": f"filesystem://{root / 'broker'}",
-                      "SECRET_KEY": "northbridge-browser-test"})
+    app = create_app(
+        {
+            "DATABASE_URL": url,
+            "BROKER_URL": f"filesystem://{root / 'broker'}",
+            "SECRET_KEY": "northbridge-browser-test",
+        }
+    )
     config = app.extensions["sizewise"]["config"]
     client = local_client(app, "statistician", "Northbridge biostatistics core")
     reply = client.post("/v1/requests", json=BODY)

@@ -35,7 +35,9 @@ def test_publish_writes_one_json_message_naming_the_task(sqlite_config):
 
 
 def test_publish_rejects_an_unknown_kind_naming_the_value(sqlite_config):
-    with pytest.raises(ValueError, match="kind must be one of request, rerun, analysis; got 'report'"):
+    with pytest.raises(
+        ValueError, match="kind must be one of request, rerun, analysis; got 'report'"
+    ):
         queue.publish("report", "abc123", sqlite_config)
 
 

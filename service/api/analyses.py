@@ -13,7 +13,7 @@ import logging
 from flask import Blueprint, jsonify, url_for
 
 from service.engine import QuestionError, draw_seed
-from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost
+from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
 from service.schemas.requests import (
     AnalysisCreateSchema,
     AnalysisListSchema,
@@ -52,11 +52,8 @@ def analysis_params(
     """
     design = question.get("design")
     if kind == "robustness":
-        if design != "two_means":
-            message = (
-                "the robustness panel simulates departures from normal data for two_means "
-                f"only; this request's design is {design!r}"
-            )
+        message = robustness_refusal(design)
+        if message is not None:
             raise ValidationFailed(message, errors={f"{prefix}kind": [message]}, design=design)
         sim = question.get("simulation") or {}
         # A simulated request lends its seed and replicates; an analytic one gets a fresh seed.
@@ -110,7 +107,7 @@ def _publish(analysis_id: str) -> bool:
     description=(
         "Runs on a worker once the request is computed (at once if it already is). A grid "
         "re-solves the question at every combination of the listed values; a robustness panel "
-        "(two_means) simulates the test under departures from normal data. Refused (422) over "
+        "(two_means, rank_sum) simulates the test under departures from the planned data. Refused (422) over "
         "the per-simulation budget, and (409) for a failed or cancelled request."
     ),
     errors=ERRORS,

@@ -14,9 +14,12 @@ import itertools
 import math
 from collections.abc import Callable
 
+from scipy import special
+
 from .compute import compute, estimate_cost
 from .designs import TESTS
 from .errors import BudgetExceeded, QuestionError
+from .models import check_arm, moments
 
 MAX_CELLS = 400  # an analytic cell costs milliseconds; bigger grids are a job, not a request
 MAX_AXES = 3
@@ -275,6 +278,18 @@ SD_FACTOR = 2.0
 ROBUSTNESS_REPLICATES = 5000
 
 _FORMULA_TEST = {"student": "student_t", "welch": "welch_t"}
+# Two-group designs with a continuous outcome, whose data can depart from the normal.
+ROBUSTNESS_DESIGNS = ("two_means", "rank_sum")
+
+
+def robustness_refusal(design: object) -> str | None:
+    """The message refusing a robustness panel for ``design``, or None when it is offered."""
+    if design in ROBUSTNESS_DESIGNS:
+        return None
+    return (
+        "the robustness panel simulates departures from the planned data for "
+        f"{' and '.join(ROBUSTNESS_DESIGNS)} only; this request's design is {design!r}"
+    )
 
 
 def _normal(mean: float, sd: float) -> dict:
@@ -355,11 +370,40 @@ DEPARTURES: dict[str, tuple[str, object, float]] = {
 }
 
 
+def _rank_sum_moments(question: dict) -> tuple[float, float, float, float]:
+    """(control mean, difference, sd_c, sd_t) of a rank_sum question's planned data."""
+    data = (question.get("simulation") or {}).get("data")
+    if isinstance(data, dict) and {"control", "treatment"} <= set(data):
+        found = []
+        for arm_name in ("control", "treatment"):
+            mean, var = moments(check_arm(data[arm_name], f"simulation.data.{arm_name}"))
+            if mean is None or var is None or not math.isfinite(var):
+                raise QuestionError(
+                    f"simulation.data.{arm_name}",
+                    "the robustness panel matches each departure to the arm's mean and SD; "
+                    f"the {data[arm_name].get('family')!r} arm has none",
+                )
+            found.append((mean, math.sqrt(var)))
+        (m0, s0), (m1, s1) = found
+        return m0, m1 - m0, s0, s1
+    p = (question.get("effect") or {}).get("prob_superiority")
+    if isinstance(p, bool) or not isinstance(p, (int, float)) or not 0 < p < 1:
+        raise QuestionError(
+            "effect.prob_superiority", f"must be a number in (0, 1) for the panel; got {p!r}"
+        )
+    # A normal shift with SD 1 gives P(Y > X) = Φ(Δ/√2) (the Noether start uses the same model).
+    return 0.0, math.sqrt(2.0) * float(special.ndtri(p)), 1.0, 1.0
+
+
 def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float, list[int]]:
     """Validate the robustness inputs; return (control mean, difference, sd_c, sd_t, per_arm)."""
-    if not isinstance(question, dict) or question.get("design") != "two_means":
-        got = question.get("design") if isinstance(question, dict) else question
-        raise QuestionError("design", f"the robustness panel covers two_means only; got {got!r}")
+    design = question.get("design") if isinstance(question, dict) else question
+    refusal = robustness_refusal(design)
+    if refusal is not None:
+        raise QuestionError("design", refusal)
+    sizes = _two_sizes(per_arm)
+    if design == "rank_sum":
+        return (*_rank_sum_moments(question), sizes)
     effect = question.get("effect") or {}
     for name in ("difference", "sd_control", "sd_treatment"):
         value = effect.get(name)
@@ -367,14 +411,6 @@ def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float,
             raise QuestionError(
                 f"effect.{name}", f"must be a number for the robustness panel; got {value!r}"
             )
-    if not (
-        isinstance(per_arm, (list, tuple))
-        and len(per_arm) == 2
-        and all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in per_arm)
-    ):
-        raise QuestionError(
-            "per_arm", f"must be two whole numbers ≥ 2 (control, treatment); got {per_arm!r}"
-        )
     sim = question.get("simulation") or {}
     data = sim.get("data")
     # The control mean only positions the skewed families; a posted normal model supplies it.
@@ -386,8 +422,20 @@ def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float,
         float(effect["difference"]),
         float(effect["sd_control"]),
         float(effect["sd_treatment"]),
-        [int(n) for n in per_arm],
+        sizes,
     )
+
+
+def _two_sizes(per_arm) -> list[int]:
+    if not (
+        isinstance(per_arm, (list, tuple))
+        and len(per_arm) == 2
+        and all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in per_arm)
+    ):
+        raise QuestionError(
+            "per_arm", f"must be two whole numbers ≥ 2 (control, treatment); got {per_arm!r}"
+        )
+    return [int(n) for n in per_arm]
 
 
 def _departure_questions(
@@ -408,10 +456,22 @@ def _departure_questions(
             "simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}"
         )
     base_sim = question.get("simulation") or {}
-    test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS["two_means"][0])
+    design = question["design"]
+    test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS[design][0])
+    planned = base_sim.get("data")
+    models = [
+        (
+            name,
+            description,
+            {"control": build(mean0, sd_c), "treatment": build(mean0 + diff, sd_t * factor)},
+        )
+        for name, (description, build, factor) in DEPARTURES.items()
+    ]
+    if isinstance(planned, dict) and {"control", "treatment"} <= set(planned):
+        # A posted data model is the case the answer was planned for; the normal one is matched.
+        models.insert(0, ("as_planned", "The data model stated in the question.", planned))
     runs = []
-    for name, (description, build, factor) in DEPARTURES.items():
-        data = {"control": build(mean0, sd_c), "treatment": build(mean0 + diff, sd_t * factor)}
+    for name, description, data in models:
         q = copy.deepcopy(question)
         q.update(
             find="power",
@@ -498,7 +558,7 @@ def robustness(
         )
     sizes = list(runs[0][3]["sample_size"]["per_arm"])
     return {
-        "design": "two_means",
+        "design": question["design"],
         "per_arm": sizes,
         "test": test,
         "alpha": question.get("alpha"),

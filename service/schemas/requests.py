@@ -127,7 +127,7 @@ class AnalysesRequestSchema(StrictSchema):
     robustness = fields.Boolean(
         error_messages={"invalid": "must be true or false; got {input!r}"},
         metadata={
-            "description": "Simulate the test under departures from normal data (two_means)."
+            "description": "Simulate the test under departures from the planned data (two_means, rank_sum)."
         },
     )
 
@@ -146,7 +146,7 @@ def analysis_errors(
 ) -> dict[str, list[str]]:
     """Return field-keyed errors of a sensitivity grid and a robustness panel for ``question``."""
     from service.engine import QuestionError
-    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost
+    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
 
     errors: dict[str, list[str]] = {}
     q = question
@@ -157,11 +157,9 @@ def analysis_errors(
     if sensitivity is not None:
         asked.append(("sensitivity", {"grid": sensitivity["grid"]}, "sensitivity.grid"))
     if robustness:
-        if question.get("design") != "two_means":
-            errors["robustness"] = [
-                "the robustness panel simulates departures from normal data for two_means only; "
-                f"this question's design is {question.get('design')!r}"
-            ]
+        refusal = robustness_refusal(question.get("design"))
+        if refusal is not None:
+            errors["robustness"] = [refusal]
         else:
             replicates = (q.get("simulation") or {}).get("replicates") or ROBUSTNESS_REPLICATES
             asked.append(("robustness", {"replicates": replicates, "seed": 0}, "robustness"))

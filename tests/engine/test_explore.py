@@ -284,7 +284,7 @@ def test_bad_robustness_inputs(simulated_q, kwargs, field, words):
     assert info.value.field == field and words in info.value.message
 
 
-def test_robustness_is_for_two_means_only():
+def test_robustness_is_for_continuous_two_group_designs_only():
     q = make_q(
         "two_proportions",
         effect={"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False},
@@ -292,3 +292,67 @@ def test_robustness_is_for_two_means_only():
     with pytest.raises(QuestionError) as info:
         robustness(q, [97, 97], replicates=200, seed=1)
     assert info.value.field == "design" and "two_proportions" in info.value.message
+    assert "two_means and rank_sum" in info.value.message
+
+
+# An invented length-of-stay model (lognormal, as a ward's records might fit); demo data only.
+STAY = {
+    "control": {"family": "lognormal", "mu": 1.6, "sigma": 0.55},
+    "treatment": {"family": "lognormal", "mu": 1.4, "sigma": 0.55},
+}
+
+
+def _rank_sum_power_q(**simulation):
+    return make_q(
+        "rank_sum",
+        effect={},
+        find="power",
+        target_power=None,
+        method="simulation",
+        per_arm=[60, 60],
+        simulation={"test": "rank_sum", "data": STAY, "replicates": 400, "seed": 11, **simulation},
+    )
+
+
+def test_rank_sum_panel_starts_with_the_planned_data_and_reproduces_the_record():
+    q = _rank_sum_power_q()
+    panel = robustness(q, [60, 60], replicates=400, seed=11)
+    assert panel["design"] == "rank_sum" and panel["test"] == "rank_sum"
+    names = [d["name"] for d in panel["departures"]]
+    assert names == ["as_planned", *DEPARTURES]
+    record = compute(q)
+    planned = panel["departures"][0]
+    assert planned["data"] == STAY
+    assert planned["power"]["estimate"] == record["power"]["estimate"]
+    assert planned["type_i_error"]["estimate"] == record["type_i_error"]["estimate"]
+
+
+def test_rank_sum_panel_matches_the_planned_mean_and_sd():
+    # recomputed with scipy.stats: the normal departure has the lognormal arms' mean and SD
+    panel = robustness(_rank_sum_power_q(), [60, 60], replicates=200, seed=2)
+    normal = next(d for d in panel["departures"] if d["name"] == "normal")
+    for label in ("control", "treatment"):
+        arm = STAY[label]
+        planned = stats.lognorm(arm["sigma"], scale=math.exp(arm["mu"]))
+        assert normal["data"][label]["mean"] == pytest.approx(planned.mean(), rel=1e-12)
+        assert normal["data"][label]["sd"] == pytest.approx(planned.std(), rel=1e-12)
+
+
+def test_rank_sum_panel_from_prob_superiority_uses_a_normal_shift():
+    # formula: for normal data with SD 1, P(Y > X) = Φ(Δ/√2), so Δ = √2·Φ⁻¹(p) (Noether 1987)
+    q = make_q("rank_sum", effect={"prob_superiority": 0.64})
+    panel = robustness(q, [70, 70], replicates=200, seed=4)
+    normal = next(d for d in panel["departures"] if d["name"] == "normal")
+    shift = normal["data"]["treatment"]["mean"] - normal["data"]["control"]["mean"]
+    assert shift == pytest.approx(math.sqrt(2) * stats.norm.ppf(0.64), rel=1e-12)
+    assert [d["name"] for d in panel["departures"]] == list(DEPARTURES)
+
+
+def test_rank_sum_panel_refuses_arms_without_a_mean():
+    data = {
+        "control": {"family": "cauchy", "loc": 0.0, "scale": 1.0},
+        "treatment": STAY["treatment"],
+    }
+    with pytest.raises(QuestionError) as info:
+        robustness(_rank_sum_power_q(data=data), [60, 60], replicates=200, seed=1)
+    assert info.value.field == "simulation.data.control" and "'cauchy'" in info.value.message

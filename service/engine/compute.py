@@ -159,7 +159,14 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
             "analysed_per_arm": effective,
         }
         analysed = effective
-        if find == "effect":
+        if find == "effect" and simulated:
+            # The simulation runs at whole analysed numbers, as for find = power.
+            whole = [int(math.floor(n + 1e-9)) for n in effective]
+            sim = _simulate(q, alpha, whole, None, executor, progress, cancel)
+            record["effect"] = sim["effect"]
+            power = sim["power"]
+            analysed = whole
+        elif find == "effect":
             effect = design.solve_effect(q, effective, alpha)
             record["effect"] = effect
             solved = copy.deepcopy(q)
@@ -180,9 +187,14 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
             record["events"] = {**(record["events"] or {}), "simulated": sim["events"]}
         record["warnings"].extend(sim.get("warnings", []))
         repro = dict(sim["reproducibility"])
-        if q["simulation"].get("data") is None and find != "effect":
-            # The formula answer beside the simulated one, when both describe the same normal data.
-            exact = _analytic_or_none_power(design, q, analysed, alpha)
+        if q["simulation"].get("data") is None:
+            # The formula answer beside the simulated one, when both describe the same normal data
+            # (for find = effect: the formula's power at the simulated effect).
+            basis = q
+            if find == "effect":
+                basis = copy.deepcopy(q)
+                basis["effect"][record["effect"]["field"]] = record["effect"]["value"]
+            exact = _analytic_or_none_power(design, basis, analysed, alpha)
             if exact is not None:
                 power = dict(power, analytic=exact)
     else:

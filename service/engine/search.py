@@ -4,6 +4,7 @@ The search index ``m`` is the size of the first arm; the caller maps it to per-a
 candidates are evaluated on common random numbers, so estimated power moves smoothly with m
 and bisection is meaningful. The answer is confirmed with the full replicate count at m and
 m − 1; a contradiction gallops and bisects at full replicates until the pair agrees (bounded).
+``smallest_effect`` does the same on a continuous effect scale at a fixed n.
 """
 
 from __future__ import annotations
@@ -223,3 +224,177 @@ def _confirm(evaluate, result: SearchResult, m: int, m_min, m_max, target, rule,
 
 class _Unsettled(Exception):
     """Internal: the confirmation used up its extra runs."""
+
+
+# --- the effect search -----------------------------------------------------------------------
+
+EFFECT_TOLERANCE = 0.01  # stop bisecting when the bracket is narrower than 1% of the effect
+EFFECT_STEPS = 20  # bisection steps per stage, at most
+_REACH = 30  # bracket expansions before the target is declared out of reach
+
+
+@dataclass
+class EffectSearchResult:
+    """The chosen effect distance, its bracket, every evaluation made, and the confirmation."""
+
+    x: float
+    lo: float
+    candidates: list[tuple[float, Estimate]] = field(default_factory=list)
+    confirmation: list[tuple[float, Estimate]] = field(default_factory=list)
+    moves: int = 0
+    warnings: list[str] = field(default_factory=list)
+
+
+def smallest_effect(
+    evaluate: Callable[[list[float], int, float | None], list[Estimate]],
+    *,
+    start: float,
+    x_max: float,
+    inclusive: bool,
+    target: float,
+    rule: str,
+    search_replicates: int,
+    replicates: int,
+    unreachable: Callable[[], Exception],
+) -> EffectSearchResult:
+    """Return the smallest distance x from the null whose simulated power meets ``target``.
+
+    ``x`` is the effect's distance from its null value in the direction where power grows; the
+    caller maps it to the effect field. x = 0 is the null itself, whose rejection rate is the
+    type I error and so never meets a target above alpha: it is a failing end with no run.
+    ``x_max`` bounds the distance (``inf`` when unbounded); an exclusive bound is approached by
+    halving the gap. Candidates share common random numbers, so power is a monotone step
+    function of x and bisection is meaningful. ``evaluate(xs, replicates, null_at)`` returns one
+    Estimate per x; ``null_at`` (set in the first confirmation batch) asks the caller to add its
+    type I check to that batch. ``unreachable()`` builds the error raised when no x meets the
+    target.
+    """
+    result = EffectSearchResult(x=0.0, lo=0.0)
+    seen: dict[float, Estimate] = {}
+
+    def ok(x: float) -> bool:
+        if x <= 0:
+            return False
+        if x not in seen:
+            (seen[x],) = evaluate([x], search_replicates, None)
+            result.candidates.append((x, seen[x]))
+        return meets(seen[x], target, rule, replicates)
+
+    def grow(x: float, step: float) -> float:
+        nxt = x * (1 + step)
+        if nxt < x_max:
+            return nxt
+        return x_max if inclusive else (x + x_max) / 2
+
+    x0 = start if math.isfinite(start) and 0 < start < x_max else _inside(x_max)
+    if inclusive and start >= x_max:
+        x0 = x_max
+    lo, hi = _effect_bracket(ok, grow, x0, x_max, inclusive, unreachable)
+    lo, hi = _bisect(ok, lo, hi)
+    _confirm_effect(evaluate, result, lo, hi, x_max, inclusive, target, rule, replicates)
+    return result
+
+
+def _inside(x_max: float) -> float:
+    return 1.0 if not math.isfinite(x_max) else x_max / 2
+
+
+def _effect_bracket(ok, grow, x0: float, x_max: float, inclusive: bool, unreachable):
+    """Return (lo, hi) with ok(hi) true and ok(lo) false (lo = 0, the null, when far below x0)."""
+    if ok(x0):
+        hi = x0
+        for step in _STEPS:
+            x = hi / (1 + step)
+            if not ok(x):
+                return x, hi
+            hi = x
+        return 0.0, hi
+    lo = x0
+    for i in range(_REACH):
+        step = _STEPS[i] if i < len(_STEPS) else _STEPS[-1]
+        x = grow(lo, step)
+        if ok(x):
+            return lo, x
+        if x == lo or (inclusive and x >= x_max):
+            break
+        lo = x
+    raise unreachable()
+
+
+def _bisect(ok, lo: float, hi: float) -> tuple[float, float]:
+    """Halve [lo, hi] (ok(hi) true, ok(lo) false) until narrower than the tolerance or out of steps."""
+    for _ in range(EFFECT_STEPS):
+        if hi - lo <= EFFECT_TOLERANCE * hi:
+            break
+        mid = (lo + hi) / 2
+        if ok(mid):
+            hi = mid
+        else:
+            lo = mid
+    return lo, hi
+
+
+def _confirm_effect(evaluate, result, lo, hi, x_max, inclusive, target, rule, replicates):
+    """Confirm the bracket with full replicates; on a contradiction, gallop then bisect.
+
+    As in the n search, the moves use full replicates so the reported bracket is consistent at
+    the replicate count the answer reports; at most MAX_MOVES extra evaluations are made.
+    """
+    full: dict[float, Estimate] = {}
+
+    def ok(x: float) -> bool:
+        if x <= 0:
+            return False
+        if x not in full:
+            if result.moves >= MAX_MOVES:
+                raise _Unsettled
+            (full[x],) = evaluate([x], replicates, None)
+            result.moves += 1
+        return meets(full[x], target, rule, replicates)
+
+    def toward(x: float, step: float) -> float:
+        if x + step < x_max:
+            return x + step
+        return x_max if inclusive else (x + x_max) / 2
+
+    short = QuestionError(
+        "target_power",
+        f"simulated power stays below the target {target:g} at the confirmation and no larger "
+        "effect in the allowed range was found to reach it",
+    )
+    pair = [hi, lo] if lo > 0 else [hi]
+    full.update(zip(pair, evaluate(pair, replicates, hi), strict=True))
+    width = max(hi - lo, EFFECT_TOLERANCE * hi)
+    try:
+        if not ok(hi):  # the search stage stopped short: gallop up
+            step = width
+            while True:
+                nxt = toward(hi, step)
+                if nxt == hi:
+                    raise short
+                if ok(nxt):
+                    lo, hi = hi, nxt
+                    break
+                hi, step = nxt, step * 2
+        elif ok(lo):  # more than enough already at lo: gallop down
+            hi, step = lo, width
+            while True:
+                nxt = max(0.0, hi - step)
+                if not ok(nxt):
+                    lo = nxt
+                    break
+                hi, step = nxt, step * 2
+        lo, hi = _bisect(ok, lo, hi)
+    except _Unsettled:
+        result.warnings.append(
+            f"the confirmation did not settle within {MAX_MOVES} extra runs; the reported effect "
+            "is the smallest examined whose power met the target"
+        )
+        passing = [x for x, e in full.items() if meets(e, target, rule, replicates)]
+        if not passing:
+            raise short from None
+        hi = min(passing)
+        below = [x for x in full if x < hi]
+        lo = max(below) if below else 0.0
+    result.x, result.lo = hi, lo
+    result.confirmation = [(x, full[x]) for x in (hi, lo) if x in full]

@@ -719,11 +719,19 @@ def estimate_cost(q: dict) -> int:
     """Return an upper estimate of random draws: replicates × draws per replicate × candidates.
 
     For a sample-size search it assumes at most 15 search candidates and four full runs
-    (confirmation at n and n − 1, one move, the type I check), all within 1.5× the start.
+    (confirmation at n and n − 1, one move, the type I check), all within 1.5× the start; an
+    effect search, 15 candidates and four full runs at the posted n.
     """
-    p = plan(q, _alpha_of(q))
     sim = q["simulation"]
     reps = int(sim.get("replicates", 10000))
+    if q.get("find") == "effect":
+        name, axis = _effect_setup(q)
+        x = 1.0 if not math.isfinite(axis["x_max"]) else axis["x_max"] / 2
+        p = plan(_with_effect(q, name, axis["origin"] + axis["sign"] * x), _alpha_of(q))
+        per_arm = list((q.get("sample_size") or {}).get("per_arm") or [])
+        search_reps = min(int(sim.get("search_replicates", 2000)), reps)
+        return (search.MAX_CANDIDATES * search_reps + 4 * reps) * _draws_per_replicate(p, per_arm)
+    p = plan(q, _alpha_of(q))
     if q.get("find") == "power":
         per_arm = list((q.get("sample_size") or {}).get("per_arm") or [])
         return 2 * reps * _draws_per_replicate(p, per_arm)
@@ -745,13 +753,17 @@ class _Runner:
         self.planned, self.done, self.reported = max(planned, 1), 0, 0.0
         self.cache: dict[tuple, dict] = {}
 
-    def _tasks(self, stream: int, per_arm: list[int], reps: int) -> list[tuple[tuple, dict]]:
+    def _tasks(
+        self, stream: int, per_arm: list[int], reps: int, plan_: dict | None = None, tag=None
+    ) -> list[tuple[tuple, dict]]:
+        # ``plan_`` and its ``tag`` let one runner (one cache) serve plans that differ in the
+        # effect, as the effect search needs; the tag keeps their chunks apart in the cache.
         out = []
         for chunk in range(-(-reps // self.chunk_size)):
             size = min(self.chunk_size, reps - chunk * self.chunk_size)
-            key = (stream, tuple(per_arm), chunk, size)
+            key = (stream, tuple(per_arm), chunk, size, tag)
             task = make_task(
-                self.plan,
+                plan_ or self.plan,
                 per_arm,
                 stream=stream,
                 chunk=chunk,
@@ -762,8 +774,11 @@ class _Runner:
             out.append((key, task))
         return out
 
-    def batch(self, requests: list[tuple[int, list[int], int]]) -> list[search.Estimate]:
-        """Run every missing chunk of ``requests`` in one executor batch; return their estimates."""
+    def batch(self, requests: list[tuple]) -> list[search.Estimate]:
+        """Run every missing chunk of ``requests`` in one executor batch; return their estimates.
+
+        A request is (stream, per_arm, replicates) or (stream, per_arm, replicates, plan, tag).
+        """
         wanted = [self._tasks(*r) for r in requests]
         todo: dict[tuple, dict] = {}
         for key, task in (kt for ks in wanted for kt in ks):
@@ -784,9 +799,9 @@ class _Runner:
             out.append(search.Estimate(rej, reps))
         return out
 
-    def extra_sum(self, stream: int, per_arm: list[int], reps: int, name: str) -> int:
+    def extra_sum(self, name: str, *request) -> int:
         """Return the sum of a chunk extra (e.g. events) over the chunks of one request."""
-        return sum(int(self.cache[k].get(name, 0)) for k, _ in self._tasks(stream, per_arm, reps))
+        return sum(int(self.cache[k].get(name, 0)) for k, _ in self._tasks(*request))
 
     def _tick(self, reps: int) -> None:
         self.done += reps
@@ -837,30 +852,8 @@ def _describe(plan_: dict) -> str:
     )
 
 
-def answer(
-    q: dict,
-    alpha: float,
-    *,
-    per_arm: list[int] | None = None,
-    start: list[float] | None = None,
-    executor: Executor | None = None,
-    progress: Callable[[float], None] | None = None,
-    cancel: Callable[[], bool] | None = None,
-) -> dict:
-    """Return the simulated answer of a normalized question (per arm, power, type I error, search).
-
-    Examples
-    --------
-    >>> q = {"design": "two_means", "find": "power", "sides": 2, "target_power": None,
-    ...      "allocation_ratio": 1.0, "sample_size": {"per_arm": [30, 30]},
-    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
-    ...      "simulation": {"replicates": 2000, "seed": 7, "test": "student_t", "data": None,
-    ...                     "decision_rule": "point", "chunk_size": 1000, "search_replicates": 2000}}
-    >>> round(answer(q, 0.05, per_arm=[30, 30])["power"]["estimate"], 1)
-    0.5
-    """
-    p = plan(q, alpha)
+def _settings(q: dict) -> tuple[int, int, int, int, str]:
+    """Return (seed, replicates, chunk size, search replicates, decision rule), checked."""
     sim = q["simulation"]
     seed = sim.get("seed")
     if seed is None or isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**53:
@@ -880,28 +873,69 @@ def answer(
         raise QuestionError(
             "simulation.decision_rule", f"must be 'point' or 'lower_bound'; got {rule_name!r}"
         )
-    warnings: list[str] = []
+    return seed, reps, chunk_size, search_reps, rule_name
+
+
+def _check_per_arm(p: dict, per_arm: list[int] | None, what: str) -> list[int]:
+    if per_arm is None:
+        raise QuestionError("sample_size.per_arm", f"is required to simulate {what}")
+    n_arms = len(p["weights"])
+    if len(per_arm) != n_arms or any(int(n) < p["min_size"] for n in per_arm):
+        raise QuestionError(
+            "sample_size.per_arm",
+            f"needs {n_arms} sizes of at least {p['min_size']} for {p['design']} with {p['test']}; got {per_arm!r}",
+        )
+    return [int(n) for n in per_arm]
+
+
+def _target(q: dict, what: str) -> float:
+    target = q.get("target_power")
+    if target is None or not 0 < float(target) < 1:
+        raise QuestionError(
+            "target_power", f"must be in (0, 1) to search for {what}; got {target!r}"
+        )
+    return float(target)
+
+
+def answer(
+    q: dict,
+    alpha: float,
+    *,
+    per_arm: list[int] | None = None,
+    start: list[float] | None = None,
+    executor: Executor | None = None,
+    progress: Callable[[float], None] | None = None,
+    cancel: Callable[[], bool] | None = None,
+) -> dict:
+    """Return the simulated answer of a normalized question (per arm, power, type I error, search).
+
+    ``find`` may be ``power``, ``sample_size`` (the n search) or ``effect`` (the smallest effect
+    reaching the target power at ``per_arm``, for arms built from the effect fields).
+
+    Examples
+    --------
+    >>> q = {"design": "two_means", "find": "power", "sides": 2, "target_power": None,
+    ...      "allocation_ratio": 1.0, "sample_size": {"per_arm": [30, 30]},
+    ...      "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+    ...      "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
+    ...      "simulation": {"replicates": 2000, "seed": 7, "test": "student_t", "data": None,
+    ...                     "decision_rule": "point", "chunk_size": 1000, "search_replicates": 2000}}
+    >>> round(answer(q, 0.05, per_arm=[30, 30])["power"]["estimate"], 1)
+    0.5
+    """
     find = q.get("find")
+    if find == "effect":
+        return _answer_effect(q, alpha, per_arm, executor, progress, cancel)
+    p = plan(q, alpha)
+    seed, reps, chunk_size, search_reps, rule_name = _settings(q)
+    warnings: list[str] = []
     search_block = None
     if find == "power":
-        if per_arm is None:
-            raise QuestionError("sample_size.per_arm", "is required to simulate power")
-        n_arms = len(p["weights"])
-        if len(per_arm) != n_arms or any(int(n) < p["min_size"] for n in per_arm):
-            raise QuestionError(
-                "sample_size.per_arm",
-                f"needs {n_arms} sizes of at least {p['min_size']} for {p['design']} with {p['test']}; got {per_arm!r}",
-            )
-        final = [int(n) for n in per_arm]
+        final = _check_per_arm(p, per_arm, "power")
         runner = _Runner(p, seed, chunk_size, executor, progress, cancel, 2 * reps)
         alt, null = runner.batch([(STREAM_ALT, final, reps), (STREAM_NULL, final, reps)])
     elif find == "sample_size":
-        target = q.get("target_power")
-        if target is None or not 0 < float(target) < 1:
-            raise QuestionError(
-                "target_power", f"must be in (0, 1) to search for n; got {target!r}"
-            )
-        target = float(target)
+        target = _target(q, "n")
         if per_arm:  # a posted per-arm shape sets the allocation
             p["weights"] = [float(n) for n in per_arm]
         m0, source = _start(q, p, alpha, start, target)
@@ -962,7 +996,20 @@ def answer(
             "moves": found.moves,
         }
     else:
-        raise QuestionError("find", f"a simulation answers 'sample_size' or 'power'; got {find!r}")
+        raise QuestionError(
+            "find", f"a simulation answers 'sample_size', 'power' or 'effect'; got {find!r}"
+        )
+    out = _result(p, final, alt, null, alpha, (seed, reps, chunk_size), warnings)
+    out["search"] = search_block
+    if p["design"] == "survival_logrank":
+        events = runner.extra_sum("events", STREAM_ALT, final, reps)
+        out["events"] = {"mean_per_replicate": events / reps, "replicates": reps}
+    return out
+
+
+def _result(p, final, alt, null, alpha, settings, warnings) -> dict:
+    """The parts of a simulated answer every find shares: power, type I error, method, seeds."""
+    seed, reps, chunk_size = settings
     lo, hi = null.ci95
     calibrated = lo <= alpha <= hi
     if not calibrated:
@@ -970,7 +1017,7 @@ def answer(
             f"simulated type I error {null.power:.4f} (95% CI {lo:.4f}–{hi:.4f}) differs from alpha "
             f"{alpha:g}: the {p['test']} test does not hold its level under this data model"
         )
-    out = {
+    return {
         "per_arm": final,
         "power": _estimate_block(alt),
         "type_i_error": {
@@ -979,7 +1026,7 @@ def answer(
             "calibrated": calibrated,
             "null_model": p["null_model"],
         },
-        "search": search_block,
+        "search": None,
         "method": {
             "kind": "simulation",
             "test": p["test"],
@@ -997,10 +1044,221 @@ def answer(
             "chunk_size": chunk_size,
         },
     }
-    if p["design"] == "survival_logrank":
-        events = runner.extra_sum(STREAM_ALT, final, reps, "events")
+
+
+# --- the simulated effect ------------------------------------------------------------------
+
+# The effect field a find = effect simulation moves: the one each design's solve_effect returns.
+EFFECT_FIELDS = {
+    "two_means": "difference",
+    "one_mean": "difference",
+    "paired_mean": "difference",
+    "two_proportions": "p_treatment",
+    "anova_oneway": "cohens_f",
+    "correlation": "r",
+    "rank_sum": "prob_superiority",
+    "survival_logrank": "hazard_ratio",
+}
+
+
+def _effect_axis(q: dict, design: str, rule: dict) -> dict:
+    """Return how the effect field moves away from its null value: value = origin + sign·x.
+
+    x ≥ 0 is the distance in the direction where power grows, up to ``x_max`` (``inclusive``
+    when that end is a valid effect, e.g. a difference of 0 under equivalence). The directions
+    follow each design's solve_effect; for one-sided log-rank they follow the simulated test.
+    """
+    eff = q.get("effect") or {}
+    kind, margin, sign = rule["kind"], rule["margin"], rule["direction"]
+    inf = math.inf
+    if design == "two_means":
+        if kind == "superiority":
+            return {"origin": 0.0, "sign": sign, "x_max": inf, "inclusive": False}
+        if kind == "noninferiority":
+            return {"origin": margin, "sign": sign, "x_max": inf, "inclusive": False}
+        return {"origin": margin, "sign": -1, "x_max": margin, "inclusive": True}
+    if design in ("one_mean", "paired_mean"):
+        return {"origin": 0.0, "sign": sign, "x_max": inf, "inclusive": False}
+    if design == "anova_oneway":
+        return {"origin": 0.0, "sign": 1, "x_max": inf, "inclusive": False}
+    if design == "two_proportions":
+        p1 = _effect(q, "p_control")
+        if kind == "equivalence":
+            edge = min(max(p1 + sign * margin, 0.0), 1.0)
+            return {"origin": edge, "sign": -sign, "x_max": abs(edge - p1), "inclusive": True}
+        origin = p1 if kind == "superiority" else p1 + margin
+        room = 1.0 - origin if sign > 0 else origin
+        return {"origin": origin, "sign": sign, "x_max": room, "inclusive": False}
+    if design == "correlation":
+        r0 = float(eff.get("r0") or 0.0)
+        room = 1.0 - r0 if sign > 0 else 1.0 + r0
+        return {"origin": r0, "sign": sign, "x_max": room, "inclusive": False}
+    if design == "rank_sum":
+        return {"origin": 0.5, "sign": sign, "x_max": 0.5, "inclusive": False}
+    if design == "survival_logrank":
+        # Longer times to the event count as better (higher_is_better), so a one-sided search
+        # looks below 1; only when shorter times are better does it look above 1. Each
+        # candidate's test then faces the candidate's own direction (see plan()).
+        if rule["sides"] == 1 and sign < 0:
+            return {"origin": 1.0, "sign": 1, "x_max": inf, "inclusive": False}
+        return {"origin": 1.0, "sign": -1, "x_max": 1.0, "inclusive": False}
+    raise QuestionError("design", f"no simulated effect search for design {design!r}")
+
+
+def _effect_setup(q: dict) -> tuple[str, dict]:
+    """Check a find = effect simulation question; return the field it moves and its axis."""
+    design = q.get("design")
+    sim = q.get("simulation")
+    if not isinstance(sim, dict):
+        raise QuestionError("simulation", "is required when method is simulation")
+    if design not in EFFECT_FIELDS:
+        raise QuestionError(
+            "design", f"unknown design {design!r}; allowed: {', '.join(EFFECT_FIELDS)}"
+        )
+    name = EFFECT_FIELDS[design]
+    if sim.get("data") is not None:
+        raise QuestionError(
+            "simulation.data",
+            f"a simulated find = effect moves effect.{name} in arms built from the effect fields; "
+            "a posted data model has no single effect parameter to move: remove simulation.data, "
+            "or ask find = power for each candidate data model",
+        )
+    test = sim.get("test") or TESTS[design][0]
+    if test not in TESTS[design]:
+        raise QuestionError(
+            "simulation.test",
+            f"{test!r} is not offered for {design}; allowed: {', '.join(TESTS[design])}",
+        )
+    return name, _effect_axis(q, design, _hypothesis(q, design, test))
+
+
+def _with_effect(q: dict, name: str, value: float) -> dict:
+    return dict(q, effect={**(q.get("effect") or {}), name: value})
+
+
+def _answer_effect(q, alpha, per_arm, executor, progress, cancel) -> dict:
+    """The smallest effect whose simulated power at n reaches the target (common random numbers)."""
+    name, axis = _effect_setup(q)
+    design = q["design"]
+    seed, reps, chunk_size, search_reps, rule_name = _settings(q)
+    target = _target(q, "the effect")
+    origin, sign = axis["origin"], axis["sign"]
+
+    def value(x: float) -> float:
+        return origin + sign * x
+
+    plans: dict[float, dict] = {}
+
+    def plan_at(x: float) -> dict:
+        if x not in plans:
+            plans[x] = plan(_with_effect(q, name, value(x)), alpha)
+        return plans[x]
+
+    analytic = _analytic_effect(q, per_arm, alpha)
+    x0, source = math.nan, "default"
+    if analytic is not None:
+        x0, source = sign * (analytic - origin), "analytic"
+        if design == "survival_logrank" and sign > 0 and 0 < analytic < 1:
+            x0 = 1.0 / analytic - 1.0  # the mirror image on the log scale
+    x_max = axis["x_max"]
+    if not (0 < x0 < x_max or (axis["inclusive"] and x0 == x_max)):
+        x0, source = (1.0 if not math.isfinite(x_max) else x_max / 2), "default"
+    p0 = plan_at(x0)
+    final = _check_per_arm(p0, per_arm, "the effect")
+    runner = _Runner(p0, seed, chunk_size, executor, progress, cancel, 8 * search_reps + 3 * reps)
+
+    def request(stream: int, x: float, r: int) -> tuple:
+        return (stream, final, r, plan_at(x), ("effect", x))
+
+    def evaluate(xs: list[float], r: int, null_at: float | None) -> list[search.Estimate]:
+        requests = [request(STREAM_ALT, x, r) for x in xs]
+        if null_at is not None:
+            requests.append(request(STREAM_NULL, null_at, reps))
+        return runner.batch(requests)[: len(xs)]
+
+    def unreachable() -> QuestionError:
+        edge = value(axis["x_max"]) if math.isfinite(axis["x_max"]) else None
+        where = f" up to {edge:g}" if edge is not None else ""
+        return QuestionError(
+            "sample_size.per_arm",
+            f"no {name}{where} reaches simulated power {target:g} with {final} per arm after "
+            "adjustments; enrol more or lower the target power",
+        )
+
+    found = search.smallest_effect(
+        evaluate,
+        start=x0,
+        x_max=axis["x_max"],
+        inclusive=axis["inclusive"],
+        target=target,
+        rule=rule_name,
+        search_replicates=search_reps,
+        replicates=reps,
+        unreachable=unreachable,
+    )
+    warnings = list(found.warnings)
+    if source == "default":
+        warnings.append(
+            f"no analytic effect to start from; the search started at {name} = {value(x0):g}"
+        )
+    if design == "survival_logrank" and sign > 0:
+        warnings.append(
+            "hypothesis.higher_is_better is false, so shorter times to the event count as "
+            "better and the hazard ratio was searched above 1"
+        )
+    p = plan_at(found.x)
+    alt, null = runner.batch(
+        [request(STREAM_ALT, found.x, reps), request(STREAM_NULL, found.x, reps)]
+    )
+    out = _result(p, final, alt, null, alpha, (seed, reps, chunk_size), warnings)
+    out["effect"] = {
+        "field": name,
+        "value": value(found.x),
+        "bracket": sorted([value(found.lo), value(found.x)]),
+        "analytic": analytic,
+    }
+    out["search"] = {
+        "field": name,
+        "start": value(x0),
+        "start_source": source,
+        "target": target,
+        "decision_rule": rule_name,
+        "search_replicates": search_reps,
+        "tolerance": search.EFFECT_TOLERANCE,
+        "candidates": [
+            {"effect": value(x), "replicates": e.replicates, "power": e.power, "mcse": e.mcse}
+            for x, e in found.candidates
+        ],
+        "confirmation": [
+            {
+                "effect": value(x),
+                "replicates": e.replicates,
+                "power": e.power,
+                "mcse": e.mcse,
+                "ci95": e.ci95,
+            }
+            for x, e in found.confirmation
+        ],
+        "moves": found.moves,
+    }
+    if design == "survival_logrank":
+        events = runner.extra_sum("events", *request(STREAM_ALT, found.x, reps))
         out["events"] = {"mean_per_replicate": events / reps, "replicates": reps}
     return out
+
+
+def _analytic_effect(q: dict, per_arm: list[int] | None, alpha: float) -> float | None:
+    """The formula's effect at n, the search's starting point; None when it has no answer."""
+    if not per_arm:
+        return None
+    try:
+        from . import designs
+
+        effect = designs.get(q["design"]).solve_effect(q, [float(n) for n in per_arm], alpha)
+        value = float(effect["value"])
+    except Exception:  # only a starting point: the search brackets from a default instead
+        return None
+    return value if math.isfinite(value) else None
 
 
 def _start(

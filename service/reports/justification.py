@@ -303,10 +303,11 @@ def _simulation(record: dict) -> str:
     repro, power, sim = record["reproducibility"], record["power"], record["question"]["simulation"]
     search = record.get("search")
     text = _data_model((record.get("method") or {}).get("data"))
+    what = "effect" if record["question"]["find"] == "effect" else "size"
     if search:
         text += (
-            f" Candidate sizes were screened with {fmt_count(search['search_replicates'])} "
-            "simulated trials each, and the chosen size was confirmed"
+            f" Candidate {what}s were screened with {fmt_count(search['search_replicates'])} "
+            f"simulated trials each, and the chosen {what} was confirmed"
         )
     else:
         text += " The power was estimated"
@@ -319,7 +320,8 @@ def _simulation(record: dict) -> str:
     if sim.get("decision_rule") == "lower_bound" and record["question"]["find"] == "sample_size":
         text += " The size was accepted only when the lower 95% bound reached the target power."
     if power.get("analytic") is not None:
-        text += f" The analytic formula gives a power of {fmt_prob(power['analytic'])} at the same size."
+        where = "the simulated effect" if what == "effect" else "the same size"
+        text += f" The analytic formula gives a power of {fmt_prob(power['analytic'])} at {where}."
     t1 = record.get("type_i_error")
     if t1:
         text += (

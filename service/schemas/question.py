@@ -338,12 +338,19 @@ class QuestionSchema(Strict):
                 ("simulation",),
                 'is given but method is analytic; set method to "simulation" or remove it',
             )
-        if find == "effect" and method == "simulation":
+        if find == "effect" and method == "simulation" and sim_data is not None:
+            # The search moves one effect field in arms built from the effect block.
             put_error(
                 errors,
-                ("method",),
-                "simulation is not offered for find = effect (the effect is solved analytically); "
-                'use method = "analytic"',
+                ("simulation", "data"),
+                "is not accepted for find = effect: a posted data model has no single effect "
+                "parameter to move; remove simulation.data (the arms are built from the effect "
+                "fields) or ask find = power for each candidate data model; got a data model"
+                + (
+                    f" with keys {', '.join(map(str, sim_data))}"
+                    if isinstance(sim_data, Mapping)
+                    else ""
+                ),
             )
         if design == "rank_sum" and find != "effect" and effect is not None and prob is None:
             if sim_data is None:

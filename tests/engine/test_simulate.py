@@ -510,7 +510,7 @@ def test_external_executor_receives_whole_batches():
             ),
             "simulation.data",
         ),
-        (lambda q: q.update(find="effect"), "find"),
+        (lambda q: q.update(find="odds"), "find"),
         (lambda q: q["simulation"].update(seed=None), "simulation.seed"),
         (lambda q: q["simulation"].update(decision_rule="median"), "simulation.decision_rule"),
         (

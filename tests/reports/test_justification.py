@@ -259,3 +259,26 @@ def test_the_number_check_catches_a_contradiction(analytic_record):
     text = justification(analytic_record).replace("192 per group", "191 per group")
     with pytest.raises(AssertionError, match="191"):
         _assert_no_foreign_numbers(text, analytic_record)
+
+
+def test_simulated_effect_names_effects_not_sizes():
+    # formula: at 64 per group the detectable d at 80% power is just under 0.5 (Cohen 1988,
+    # Table 2.4.1 gives n = 64 for d = 0.5; statsmodels TTestIndPower solves the same)
+    from service.engine import compute
+
+    q = make_q(
+        "two_means",
+        effect={"sd_control": 1.0, "sd_treatment": 1.0},
+        find="effect",
+        method="simulation",
+        per_arm=[64, 64],
+        simulation={"replicates": 2000, "search_replicates": 1000, "seed": 99},
+    )
+    q["effect"].pop("difference", None)
+    record = compute(q)
+    text = justification(record)
+    assert "Candidate effects were screened" in text and "chosen effect was confirmed" in text
+    assert "at the simulated effect" in text and "Candidate sizes" not in text
+    ref = TTestIndPower().solve_power(nobs1=64, power=0.8, alpha=0.05, ratio=1.0)
+    assert abs(record["effect"]["value"] - ref) < 0.05
+    _assert_no_foreign_numbers(text, record)

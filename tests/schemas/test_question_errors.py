@@ -348,10 +348,18 @@ CASES = [
         ["[100, 100,000]", "got 10"],
     ),
     (
-        "find-effect-simulation",
-        merge(BASE, **SIM, find="effect", effect={"sd": 1.0}, sample_size={"per_arm": [30, 30]}),
-        "method",
-        ["not offered for find = effect", "analytic"],
+        # A simulated effect search moves one effect field; a posted data model has none.
+        "find-effect-simulation-data",
+        merge(
+            BASE,
+            **SIM,
+            find="effect",
+            effect={"sd": 1.0},
+            sample_size={"per_arm": [30, 30]},
+            simulation__data=two_arm_data(NORMAL, NORMAL),
+        ),
+        "simulation.data",
+        ["not accepted for find = effect", "no single effect parameter", "control, treatment"],
     ),
     (
         "simulation-but-analytic",

@@ -192,6 +192,23 @@ def test_anova_total_split_equally() -> None:
     assert q["sample_size"] == {"per_arm": [40, 40, 40, 40]}
 
 
+def test_find_effect_by_simulation_without_a_data_model_loads() -> None:
+    q = load_question(
+        {
+            "design": "two_means",
+            "find": "effect",
+            "method": "simulation",
+            "sample_size": {"per_arm": [64, 64]},
+            "effect": {"sd": 1.0},
+            "simulation": {"replicates": 2000, "seed": 7},
+        }
+    )
+    assert q["find"] == "effect" and q["method"] == "simulation"
+    assert q["effect"] == {"sd_control": 1.0, "sd_treatment": 1.0}  # difference is solved for
+    assert q["simulation"]["data"] is None and q["simulation"]["seed"] == 7
+    assert q["sample_size"] == {"per_arm": [64, 64]} and q["target_power"] == 0.8
+
+
 def test_simulation_defaults_and_seed_none() -> None:
     q = load_question(
         {"design": "two_means", "method": "simulation", "effect": {"difference": 0.5, "sd": 1.0}}

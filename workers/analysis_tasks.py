@@ -14,7 +14,6 @@ import logging
 from collections.abc import Callable
 
 from sqlalchemy import select
-from sqlalchemy.exc import OperationalError
 
 from service.engine import EngineError
 from service.engine import run_chunk as engine_run_chunk
@@ -24,7 +23,7 @@ from service.store.db import session_scope
 from service.store.models import Analysis, Request, Result
 from workers.celery_app import TASK_NAMES, app
 from workers.fanout import ChunkExecutor, run_one
-from workers.tasks import LeaseLost, _Hooks, new_owner, sessions
+from workers.tasks import _Hooks, new_owner, run_claimed, sessions
 
 log = logging.getLogger(__name__)
 
@@ -88,8 +87,7 @@ def run_analysis_job(
             log.info("analysis %s: request %s not computed yet; waiting", analysis_id, request_id)
             return "waiting"
 
-    hooks = _Hooks(factory, kind="analysis", job_id=analysis_id, owner=owner, config=config)
-    try:
+    def work(hooks: _Hooks) -> dict:
         if record is None:
             raise EngineError(
                 f"request {request_id} ended '{status}' without a result; nothing to analyse"
@@ -117,7 +115,7 @@ def run_analysis_job(
             runner=runner,
             order=order,
         )
-        result = _run(
+        return _run(
             kind,
             params,
             question,
@@ -126,25 +124,13 @@ def run_analysis_job(
             progress=hooks.progress,
             budget=budget,
         )
-    except LeaseLost as exc:
-        log.warning("%s; stopping without writing", exc)
-        return "lost"
-    except OperationalError:
-        raise  # the database went away: the lease expires and the sweeper retries
-    except EngineError as exc:
-        message = str(exc)
-    except Exception as exc:  # a defect, not bad input: record it rather than retry forever
-        log.exception("analysis %s: unexpected error", analysis_id)
-        message = f"internal error ({type(exc).__name__}): {exc}"
-    else:
+
+    def store(result: dict) -> str:
         with session_scope(factory) as session:
             done = jobs.finish_analysis(session, analysis_id, owner, result)
         return "done" if done else "lost"
 
-    with session_scope(factory) as session:
-        ended = jobs.fail(session, "analysis", analysis_id, owner, message)
-    log.info("analysis %s: failed: %s", analysis_id, message)
-    return "failed" if ended else "lost"
+    return run_claimed(factory, config, "analysis", analysis_id, owner, work, store)
 
 
 def run_analysis_chunk_job(analysis_id: str, task: dict, config: dict) -> str:

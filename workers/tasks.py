@@ -150,6 +150,57 @@ def _event(session, request_id: str | None, action: str, detail: dict) -> None:
     audit.append_event(session, request_id=request_id, actor=actor(), action=action, detail=detail)
 
 
+def _claim(session, kind: str, job_id: str, owner: str, config: dict) -> bool:
+    """Take a request's or rerun's lease for whole LEASE_SECONDS; False when it is not ours."""
+    lease = int(config["LEASE_SECONDS"])
+    return jobs.claim(session, kind, job_id, owner, lease, int(config["MAX_ATTEMPTS"]))
+
+
+def run_claimed(
+    factory: sessionmaker,
+    config: dict,
+    kind: str,
+    job_id: str,
+    owner: str,
+    work: Callable[[_Hooks], Any],
+    store: Callable[[Any], str],
+    *,
+    cancellable: bool = False,
+    log_failure: bool = True,
+) -> str:
+    """Run a claimed job's ``work`` and settle it: ``store`` the value, fail, cancel or stop.
+
+    Returns ``store``'s outcome, 'failed', 'cancelled' (only when ``cancellable``) or 'lost';
+    an OperationalError is raised, so the lease expires and the sweeper retries the job.
+    """
+    hooks = _Hooks(factory, kind=kind, job_id=job_id, owner=owner, config=config)
+    try:
+        value = work(hooks)
+    except LeaseLost as exc:
+        log.warning("%s; stopping without writing", exc)
+        return "lost"
+    except OperationalError:
+        # The database went away: leave the lease to expire so the sweeper retries the job.
+        raise
+    except EngineError as exc:  # QuestionError and BudgetExceeded included: bad input, say why
+        if cancellable and isinstance(exc, Cancelled):
+            with session_scope(factory) as session:
+                ended = jobs.cancel(session, kind, job_id, owner)
+            return "cancelled" if ended else "lost"
+        message = str(exc)
+    except Exception as exc:  # a defect, not bad input: record it rather than retry forever
+        log.exception("%s %s: unexpected error", kind, job_id)
+        message = f"internal error ({type(exc).__name__}): {exc}"
+    else:
+        return store(value)
+
+    with session_scope(factory) as session:
+        ended = jobs.fail(session, kind, job_id, owner, message)
+    if log_failure:
+        log.info("%s %s: failed: %s", kind, job_id, message)
+    return "failed" if ended else "lost"
+
+
 def run_request_job(
     request_id: str,
     config: dict,
@@ -163,15 +214,7 @@ def run_request_job(
     factory = sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
-        claimed = jobs.claim(
-            session,
-            "request",
-            request_id,
-            owner,
-            int(config["LEASE_SECONDS"]),
-            int(config["MAX_ATTEMPTS"]),
-        )
-        if not claimed:
+        if not _claim(session, "request", request_id, owner, config):
             return "skipped"
         row = session.get(Request, request_id)
         question = row.question
@@ -179,34 +222,20 @@ def run_request_job(
         _event(session, request_id, "running", {"owner": owner, "attempt": attempts})
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
-    hooks = _Hooks(factory, kind="request", job_id=request_id, owner=owner, config=config)
     started = utcnow()
-    try:
+
+    def work(hooks: _Hooks) -> dict:
         if hooks.cancel():
             raise Cancelled(f"request {request_id} cancelled before it started")
-        record = compute(
+        return compute(
             question,
             progress=hooks.progress,
             cancel=hooks.cancel,
             executor=_executor(factory, hooks, config, fan_out=fan_out, runner=runner, order=order),
             budget=int(config["SIMULATION_BUDGET"]),
         )
-    except LeaseLost as exc:
-        log.warning("%s; stopping without writing", exc)
-        return "lost"
-    except Cancelled:
-        with session_scope(factory) as session:
-            ended = jobs.cancel(session, "request", request_id, owner)
-        return "cancelled" if ended else "lost"
-    except OperationalError:
-        # The database went away: leave the lease to expire so the sweeper retries the job.
-        raise
-    except EngineError as exc:  # QuestionError and BudgetExceeded included: bad input, say why
-        message = str(exc)
-    except Exception as exc:  # a defect, not bad input: record it rather than retry forever
-        log.exception("request %s: unexpected error", request_id)
-        message = f"internal error ({type(exc).__name__}): {exc}"
-    else:
+
+    def store(record: dict) -> str:
         with session_scope(factory) as session:
             stored = jobs.finish_request(
                 session,
@@ -223,10 +252,7 @@ def run_request_job(
         _publish_waiting_analyses(factory, request_id, config)
         return "computed"
 
-    with session_scope(factory) as session:
-        ended = jobs.fail(session, "request", request_id, owner, message)
-    log.info("request %s: failed: %s", request_id, message)
-    return "failed" if ended else "lost"
+    return run_claimed(factory, config, "request", request_id, owner, work, store, cancellable=True)
 
 
 def _publish_waiting_analyses(factory, request_id: str, config: dict) -> None:
@@ -254,15 +280,7 @@ def run_rerun_job(
     factory = sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
-        claimed = jobs.claim(
-            session,
-            "rerun",
-            rerun_id,
-            owner,
-            int(config["LEASE_SECONDS"]),
-            int(config["MAX_ATTEMPTS"]),
-        )
-        if not claimed:
+        if not _claim(session, "rerun", rerun_id, owner, config):
             return "skipped"
         rerun = session.get(Rerun, rerun_id)
         request_id = rerun.request_id
@@ -270,29 +288,19 @@ def run_rerun_job(
         original = session.scalar(select(Result.record).where(Result.request_id == request_id))
         _event(session, request_id, "rerun_running", {"rerun_id": rerun_id, "owner": owner})
 
-    hooks = _Hooks(factory, kind="rerun", job_id=rerun_id, owner=owner, config=config)
-    try:
+    def work(hooks: _Hooks) -> dict:
         if original is None:
             raise EngineError(f"request {request_id} has no stored result to compare with")
         # The stored normalized question carries the seed: the same question, the same digits.
-        record = compute(
+        return compute(
             question,
             progress=hooks.progress,
             cancel=None,
             executor=_executor(factory, hooks, config, fan_out=fan_out, runner=runner, order=order),
             budget=int(config["SIMULATION_BUDGET"]),
         )
-    except LeaseLost as exc:
-        log.warning("%s; stopping without writing", exc)
-        return "lost"
-    except OperationalError:
-        raise
-    except EngineError as exc:
-        message = str(exc)
-    except Exception as exc:
-        log.exception("rerun %s: unexpected error", rerun_id)
-        message = f"internal error ({type(exc).__name__}): {exc}"
-    else:
+
+    def store(record: dict) -> str:
         with session_scope(factory) as session:
             done = jobs.finish_rerun(
                 session,
@@ -305,9 +313,7 @@ def run_rerun_job(
             )
         return "done" if done else "lost"
 
-    with session_scope(factory) as session:
-        ended = jobs.fail(session, "rerun", rerun_id, owner, message)
-    return "failed" if ended else "lost"
+    return run_claimed(factory, config, "rerun", rerun_id, owner, work, store, log_failure=False)
 
 
 def _job_running(session, kind: str, job_id: str) -> bool:

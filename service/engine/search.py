@@ -114,12 +114,7 @@ def smallest_n(
 
     m0 = min(max(round(start), m_min), m_max)
     lo, hi = _bracket(ok, m0, m_min, m_max)
-    while hi - lo > 1:
-        mid = (lo + hi) // 2
-        if ok(mid):
-            hi = mid
-        else:
-            lo = mid
+    hi = _bisect_whole(ok, lo, hi)
     _confirm(evaluate, result, hi, m_min, m_max, target, rule, replicates)
     if len(result.candidates) > MAX_CANDIDATES:
         result.warnings.append(
@@ -167,52 +162,28 @@ def _confirm(evaluate, result: SearchResult, m: int, m_min, m_max, target, rule,
     The moves use full replicates too, so the final pair (m, m − 1) is consistent at the
     replicate count the answer reports; at most MAX_MOVES extra evaluations are made.
     """
-    full: dict[int, Estimate] = {}
-
-    def ok(x: int, null_at: int | None = None) -> bool:
-        if x not in full:
-            if result.moves >= MAX_MOVES:
-                raise _Unsettled
-            (full[x],) = evaluate([x], replicates, null_at)
-            result.moves += 1
-        return meets(full[x], target, rule, replicates)
-
+    # Sizes below m_min fail without a run, as the gallop down needs.
+    ok = _FullRuns(evaluate, result, m_min - 1, target, rule, replicates)
+    full = ok.full
     pair = [m, m - 1] if m - 1 >= m_min else [m]
     full.update(zip(pair, evaluate(pair, replicates, m), strict=True))
     try:
         if not ok(m):  # too small: gallop up from m
-            lo, step = m, 1
-            while True:
-                hi = min(m_max, lo + step)
-                if ok(hi):
-                    break
-                if hi == m_max:
-                    raise QuestionError(
-                        "target_power", f"simulated power stays below the target at {m_max:,}"
-                    )
-                lo, step = hi, step * 2
+            above = QuestionError(
+                "target_power", f"simulated power stays below the target at {m_max:,}"
+            )
+            lo, hi = _gallop_up(ok, m, 1, lambda x, step: min(m_max, x + step), above)
         elif m - 1 >= m_min and ok(m - 1):  # more than enough: gallop down from m − 1
-            hi, step = m - 1, 1
-            while True:
-                lo = max(m_min - 1, hi - step)
-                if lo < m_min or not ok(lo):
-                    break
-                hi, step = lo, step * 2
+            lo, hi = _gallop_down(ok, m - 1, 1, m_min - 1)
         else:
             lo, hi = m - 1, m
-        while hi - lo > 1:
-            mid = (lo + hi) // 2
-            if ok(mid):
-                hi = mid
-            else:
-                lo = mid
-        m = hi
+        m = _bisect_whole(ok, lo, hi)
     except _Unsettled:
         result.warnings.append(
             f"the confirmation did not settle within {MAX_MOVES} extra runs; the reported n is the "
             "smallest examined whose power met the target"
         )
-        passing = [x for x, e in full.items() if meets(e, target, rule, replicates)]
+        passing = ok.passing()
         m = min(passing) if passing else max(full)
     if m == m_min and meets(full[m], target, rule, replicates):
         result.warnings.append(
@@ -224,6 +195,72 @@ def _confirm(evaluate, result: SearchResult, m: int, m_min, m_max, target, rule,
 
 class _Unsettled(Exception):
     """Internal: the confirmation used up its extra runs."""
+
+
+class _FullRuns:
+    """The confirmation's memoised verdicts at full replicates, at most MAX_MOVES new runs.
+
+    A point at or below ``floor`` fails without a run (the null for effects, below m_min for n).
+    """
+
+    def __init__(self, evaluate, result, floor: float, target: float, rule: str, replicates: int):
+        self.evaluate, self.result, self.floor = evaluate, result, floor
+        self.target, self.rule, self.replicates = target, rule, replicates
+        self.full: dict = {}
+
+    def __call__(self, x: float) -> bool:
+        """True when x meets the target at full replicates; raise _Unsettled when out of runs."""
+        if x <= self.floor:
+            return False
+        if x not in self.full:
+            if self.result.moves >= MAX_MOVES:
+                raise _Unsettled
+            (self.full[x],) = self.evaluate([x], self.replicates, None)
+            self.result.moves += 1
+        return meets(self.full[x], self.target, self.rule, self.replicates)
+
+    def passing(self) -> list:
+        """Return the points run so far whose power met the target."""
+        return [
+            x for x, e in self.full.items() if meets(e, self.target, self.rule, self.replicates)
+        ]
+
+
+def _gallop_up(ok, x, step, advance, stuck: Exception):
+    """From a failing x, double the step until a point passes: return (last failing, passing).
+
+    ``advance(x, step)`` gives the next point; when it cannot move past x, ``stuck`` is raised.
+    """
+    while True:
+        nxt = advance(x, step)
+        if nxt == x:
+            raise stuck
+        if ok(nxt):
+            return x, nxt
+        x, step = nxt, step * 2
+
+
+def _gallop_down(ok, x, step, floor):
+    """From a passing x, double the step down until a point fails: return (failing, last passing).
+
+    ``ok(floor)`` must be false, so the gallop stops there at the latest.
+    """
+    while True:
+        nxt = max(floor, x - step)
+        if not ok(nxt):
+            return nxt, x
+        x, step = nxt, step * 2
+
+
+def _bisect_whole(ok, lo: int, hi: int) -> int:
+    """Return the smallest passing whole number in (lo, hi], ok(hi) true and ok(lo) false."""
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if ok(mid):
+            hi = mid
+        else:
+            lo = mid
+    return hi
 
 
 # --- the effect search -----------------------------------------------------------------------
@@ -340,17 +377,8 @@ def _confirm_effect(evaluate, result, lo, hi, x_max, inclusive, target, rule, re
     As in the n search, the moves use full replicates so the reported bracket is consistent at
     the replicate count the answer reports; at most MAX_MOVES extra evaluations are made.
     """
-    full: dict[float, Estimate] = {}
-
-    def ok(x: float) -> bool:
-        if x <= 0:
-            return False
-        if x not in full:
-            if result.moves >= MAX_MOVES:
-                raise _Unsettled
-            (full[x],) = evaluate([x], replicates, None)
-            result.moves += 1
-        return meets(full[x], target, rule, replicates)
+    ok = _FullRuns(evaluate, result, 0.0, target, rule, replicates)
+    full = ok.full
 
     def toward(x: float, step: float) -> float:
         if x + step < x_max:
@@ -367,30 +395,16 @@ def _confirm_effect(evaluate, result, lo, hi, x_max, inclusive, target, rule, re
     width = max(hi - lo, EFFECT_TOLERANCE * hi)
     try:
         if not ok(hi):  # the search stage stopped short: gallop up
-            step = width
-            while True:
-                nxt = toward(hi, step)
-                if nxt == hi:
-                    raise short
-                if ok(nxt):
-                    lo, hi = hi, nxt
-                    break
-                hi, step = nxt, step * 2
+            lo, hi = _gallop_up(ok, hi, width, toward, short)
         elif ok(lo):  # more than enough already at lo: gallop down
-            hi, step = lo, width
-            while True:
-                nxt = max(0.0, hi - step)
-                if not ok(nxt):
-                    lo = nxt
-                    break
-                hi, step = nxt, step * 2
+            lo, hi = _gallop_down(ok, lo, width, 0.0)
         lo, hi = _bisect(ok, lo, hi)
     except _Unsettled:
         result.warnings.append(
             f"the confirmation did not settle within {MAX_MOVES} extra runs; the reported effect "
             "is the smallest examined whose power met the target"
         )
-        passing = [x for x, e in full.items() if meets(e, target, rule, replicates)]
+        passing = ok.passing()
         if not passing:
             raise short from None
         hi = min(passing)

@@ -16,11 +16,11 @@ import tempfile
 from pathlib import Path
 
 import pytest
-from conftest import free_port, wait_for
 
 from service import create_app
 from service.api.auth import local_client
 from service.store.migrate import upgrade
+from tests.reliability.helpers import free_port, wait_for
 
 pytestmark = [pytest.mark.services, pytest.mark.slow]
 

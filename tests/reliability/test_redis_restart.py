@@ -17,7 +17,6 @@ import time
 from pathlib import Path
 
 import pytest
-from conftest import free_port, wait_for
 from sqlalchemy import select
 from workers_testkit import PROTOCOL, REQUESTER
 
@@ -26,6 +25,7 @@ from service.api.auth import local_client
 from service.config import load_config
 from service.store.db import session_scope
 from service.store.models import Request, Result
+from tests.reliability.helpers import free_port, wait_for
 from workers.tasks import sessions
 
 pytestmark = [pytest.mark.services, pytest.mark.slow]

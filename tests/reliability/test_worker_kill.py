@@ -15,7 +15,6 @@ import signal
 
 import psutil
 import pytest
-from conftest import wait_for
 from sqlalchemy import func, select
 from workers_testkit import Stack
 
@@ -24,6 +23,7 @@ from service.config import load_config
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
 from service.store.models import ChunkResult, Request, Result
+from tests.reliability.helpers import wait_for
 from workers.tasks import sessions
 
 pytestmark = [pytest.mark.services, pytest.mark.slow]

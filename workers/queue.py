@@ -12,6 +12,8 @@ import threading
 
 from celery import Celery
 
+from service.store import jobs
+from service.store.db import session_scope
 from workers.celery_app import TASK_NAMES, make_celery
 
 log = logging.getLogger(__name__)
@@ -61,6 +63,15 @@ def publish(kind: str, job_id: str, config: dict) -> bool:
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
     return _send(TASK_NAMES[kind], [job_id], config)
+
+
+def publish_and_mark(kind: str, job_id: str, config: dict, factory) -> bool:
+    """Publish the job and set its outbox marker; False (nothing marked) when the broker refused."""
+    if not publish(kind, job_id, config):
+        return False
+    with session_scope(factory) as session:
+        jobs.mark_published(session, kind, job_id)
+    return True
 
 
 def publish_chunk(kind: str, job_id: str, task: dict, config: dict) -> bool:

@@ -24,7 +24,7 @@ _STOP = threading.Event()
 
 def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     """Publish every stale job once; return how many the broker accepted."""
-    from workers.queue import publish
+    from workers.queue import publish_and_mark
     from workers.tasks import sessions
 
     factory = sessions(config)
@@ -39,11 +39,8 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
         )
     published = 0
     for kind, job_id in stale:
-        if not publish(kind, job_id, config):
-            continue  # the broker is down; the next sweep tries again
-        published += 1
-        with session_scope(factory) as session:
-            jobs.mark_published(session, kind, job_id)
+        # A refusal means the broker is down; the next sweep tries again.
+        published += publish_and_mark(kind, job_id, config, factory)
     if stale:
         log.info("sweeper: %d stale job(s), %d republished", len(stale), published)
     return published

@@ -257,14 +257,12 @@ def run_request_job(
 
 def _publish_waiting_analyses(factory, request_id: str, config: dict) -> None:
     """Hand the broker the analyses that waited for this result (else the sweeper does, later)."""
-    from workers.queue import publish
+    from workers.queue import publish_and_mark
 
     with session_scope(factory) as session:
         ids = analyses.waiting(session, request_id)
     for analysis_id in ids:
-        if publish("analysis", analysis_id, config):
-            with session_scope(factory) as session:
-                jobs.mark_published(session, "analysis", analysis_id)
+        publish_and_mark("analysis", analysis_id, config, factory)
 
 
 def run_rerun_job(

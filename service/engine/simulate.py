@@ -19,7 +19,7 @@ from collections.abc import Callable
 import numpy as np
 from scipy import optimize, special, stats
 
-from . import models, search, vectests
+from . import direction, models, search, vectests
 from .designs import TESTS
 from .errors import Cancelled, QuestionError
 
@@ -46,8 +46,11 @@ def _hypothesis(q: dict, design: str, test: str) -> dict:
     """Return the test's rule (kind, sides, direction, margin) and check it fits the test."""
     hyp = q.get("hypothesis") or {"kind": "superiority", "margin": None, "higher_is_better": True}
     kind = hyp.get("kind", "superiority")
-    direction = 1 if hyp.get("higher_is_better", True) else -1
-    rule = {"kind": kind, "sides": int(q.get("sides", 2)), "direction": direction, "margin": None}
+    sides = int(q.get("sides", 2))
+    # One-sided: towards the assumed effect (direction.py); plan() re-aims it at the arms.
+    better = 1 if hyp.get("higher_is_better", True) else -1
+    aim = direction.one_sided(q, design) if sides == 1 else better
+    rule = {"kind": kind, "sides": sides, "direction": aim, "margin": None}
     if kind != "superiority":
         allowed = {"two_means": ("student_t", "welch_t"), "two_proportions": ("z_test",)}
         if test not in allowed.get(design, ()):
@@ -243,7 +246,7 @@ def plan(q: dict, alpha: float) -> dict:
             if not -1 < v < 1:
                 raise QuestionError(f"effect.{name}", f"must be in (-1, 1); got {v:g}")
         if rule["sides"] == 1:
-            rule["direction"] = 1 if r >= r0 else -1
+            rule["direction"] = direction.one_sided(q, design, r - r0)
         arms = [{"family": "bivariate_normal", "r": r}]
         null = [{"family": "bivariate_normal", "r": r0}]
         extra = {"r0": r0}
@@ -294,8 +297,11 @@ def plan(q: dict, alpha: float) -> dict:
         if loss < 0:
             raise QuestionError("effect.loss_rate", f"must be ≥ 0; got {loss:g}")
         extra = {"accrual_period": a, "follow_up": f, "loss_rate": loss}
-        if rule["sides"] == 1:  # one-sided towards the assumed effect: longer times, lower hazard
-            rule["direction"] = -1 if models.center(arms[1]) >= models.center(arms[0]) else 1
+    if rule["sides"] == 1 and rule["kind"] == "superiority":
+        # Towards the effect the simulated arms imply (the posted data model, if any).
+        aim = direction.one_sided(q, design, direction.implied(design, arms))
+        # The log-rank z is negative when treatment has fewer events: longer times.
+        rule["direction"] = -aim if design == "survival_logrank" else aim
     null, null_text = _null(design, test, arms, rule)
     normal = all(a["family"] == "normal" for a in arms)
     sufficient = design == "two_proportions" or (

@@ -7,6 +7,8 @@ separator (``1,016``); seeds are printed as digits only so they can be copied ex
 
 from __future__ import annotations
 
+from service.engine import direction, simulate
+
 __all__ = [
     "DESIGN_PHRASES",
     "TEST_NAMES",
@@ -208,6 +210,25 @@ def _hypothesis(q: dict) -> str:
     return "to detect"
 
 
+# Which way a one-sided superiority test looked (engine/direction.py), in words.
+_ONE_SIDED = {
+    False: {1: "a higher value than under the null", -1: "a lower value than under the null"},
+    True: {1: "longer times to the event", -1: "shorter times to the event"},
+}
+
+
+def _aim(q: dict) -> int:
+    data = (q.get("simulation") or {}).get("data")
+    implied = None
+    if isinstance(data, dict):
+        arms = [data[k] for k in ("control", "treatment", "sample") if k in data]
+        try:
+            implied = direction.implied(q["design"], arms)
+        except (KeyError, TypeError, ValueError):
+            implied = None
+    return direction.one_sided(q, q["design"], implied)
+
+
 def _alpha(q: dict, steps: list[dict]) -> str:
     # The F test has no sides; saying "two-sided" there would misdescribe it.
     sides = (
@@ -216,6 +237,9 @@ def _alpha(q: dict, steps: list[dict]) -> str:
         else ("one-sided " if int(q.get("sides", 2)) == 1 else "two-sided ")
     )
     text = f"a {sides}significance level of {fmt_num(q['alpha'])}"
+    hyp = q.get("hypothesis") or {}
+    if sides == "one-sided " and hyp.get("kind", "superiority") == "superiority":
+        text += f" (the alternative: {_ONE_SIDED[q['design'] == 'survival_logrank'][_aim(q)]})"
     for step in steps:
         if step["step"] == "bonferroni":
             text += (

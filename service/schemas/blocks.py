@@ -58,7 +58,11 @@ class HypothesisSchema(Strict):
         description="non-inferiority margin (< 0 when higher is better, > 0 otherwise) or "
         "equivalence margin (> 0; bounds are +/- margin), on the treatment - control scale"
     )
-    higher_is_better = Flag(default=True, description="true when larger outcomes are better")
+    higher_is_better = Flag(
+        default=True,
+        description="true when larger outcomes are better; a one-sided superiority question "
+        "that leaves it out takes the direction of its effect, and one contradicting it is refused",
+    )
 
     @validates_schema(skip_on_field_errors=False)
     def _margin(self, data: dict, **kwargs: Any) -> None:

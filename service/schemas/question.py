@@ -23,8 +23,11 @@ from typing import Any
 
 from marshmallow import ValidationError, post_load, validates_schema
 
+from service.engine import direction
 from service.engine.adjust import split_total
 from service.engine.designs import DESIGN_NAMES, FORMULAS, TESTS
+from service.engine.errors import QuestionError
+from service.engine.models import check_arm
 
 from .blocks import (
     AdjustmentsSchema,
@@ -370,6 +373,11 @@ class QuestionSchema(Strict):
 
         if effect is not None and "effect" not in errors:
             self._effect_rules(errors, design, find, hyp if kind else {}, effect)
+            if kind == "superiority" and posted(raw.get("hypothesis"), "higher_is_better"):
+                one = {"sides": data.get("sides"), "hypothesis": hyp, "effect": effect}
+                why = direction.conflict(one, design, _implied(design, method, sim_data))
+                if why:
+                    put_error(errors, ("hypothesis", "higher_is_better"), why)
 
         # arms: sample size shape, ANOVA data model size
         arms = arm_count(design, effect) if effect is not None else None
@@ -463,8 +471,8 @@ class QuestionSchema(Strict):
                 f"the sample size of an equivalence question; got {show(diff)}",
             )
 
-    @post_load
-    def _normalize(self, data: dict, **kwargs: Any) -> dict:
+    @post_load(pass_original=True)
+    def _normalize(self, data: dict, original_data: Any, **kwargs: Any) -> dict:
         design, find = data["design"], data["find"]
         hyp = data.get("hypothesis") or HypothesisSchema().load({})
         kind = hyp["kind"]
@@ -505,6 +513,15 @@ class QuestionSchema(Strict):
         sides = data.get("sides")
         if sides is None:
             sides = 2 if kind == "superiority" else 1
+        if (
+            kind == "superiority"
+            and sides == 1
+            and not posted(original_data.get("hypothesis"), "higher_is_better")
+        ):
+            # Unstated: the one-sided test looks where the effect points; the record says so.
+            implied = _implied(design, method, (sim or {}).get("data"))
+            aim = direction.one_sided({"hypothesis": hyp, "effect": effect}, design, implied)
+            hyp = {**hyp, "higher_is_better": aim > 0}
         adjustments = data.get("adjustments") or AdjustmentsSchema().load({})
         return {
             "design": design,
@@ -523,6 +540,18 @@ class QuestionSchema(Strict):
             "formula": formula,
             "simulation": sim,
         }
+
+
+def _implied(design: str, method: str | None, data: Any) -> float | None:
+    """The effect a posted simulation data model implies (direction.implied), or None."""
+    if method != "simulation" or not isinstance(data, Mapping):
+        return None
+    keys = ("sample",) if design in ("one_mean", "paired_mean") else ("control", "treatment")
+    try:
+        arms = [check_arm(dict(data[k]), f"simulation.data.{k}") for k in keys]
+        return direction.implied(design, arms)
+    except (KeyError, TypeError, ValueError, ArithmeticError, QuestionError):
+        return None  # an invalid data model is reported by its own checks
 
 
 # ---------------------------------------------------------------------------------------------

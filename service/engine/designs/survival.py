@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+from .. import direction
 from ..errors import QuestionError
 from ..quantiles import effect_value, normal_power, power_unreachable, root, z_alpha, z_sum
 from . import Solution
@@ -120,13 +121,18 @@ def power(q: dict, per_arm: list[float], alpha: float) -> float:
 
 
 def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
-    """Return the hazard ratio nearest 1 (below it) reaching the target power at n."""
+    """Return the hazard ratio nearest 1 reaching the target power at n.
+
+    Below 1 (longer times), unless a one-sided test looks for shorter times (direction.py).
+    """
     _setup(q)
     target = float(q["target_power"])
-    lo = 1e-6
+    lo, hi = 1e-6, 1.0 - 1e-12
+    if sides(q) == 1 and direction.one_sided(q, "survival_logrank") < 0:
+        lo, hi = 1e6, 1.0 + 1e-12
     if _power_at(q, lo, per_arm, alpha) < target:
         raise power_unreachable("sample_size.per_arm", target, per_arm)
-    hr = root(lambda h: _power_at(q, h, per_arm, alpha) - target, lo, 1.0 - 1e-12)
+    hr = root(lambda h: _power_at(q, h, per_arm, alpha) - target, lo, hi)
     return {"field": "hazard_ratio", "value": hr}
 
 

@@ -16,6 +16,7 @@ from collections.abc import Callable
 
 from scipy import special
 
+from .adjust import alpha_for
 from .compute import compute, estimate_cost
 from .designs import TESTS
 from .errors import BudgetExceeded, QuestionError
@@ -525,7 +526,8 @@ def robustness(
     -------
     dict with ``per_arm``, ``test``, ``replicates``, ``seed`` and ``departures``: one entry per
     departure with ``name``, ``description``, ``data`` (the model simulated), ``power`` and
-    ``type_i_error`` (estimate, mcse, ci95) and the run's ``record_sha256``.
+    ``type_i_error`` (estimate, mcse, ci95, the alpha the test used and the size verdict) and
+    the run's ``record_sha256``; ``alpha_per_comparison`` is the level every test used.
 
     Examples
     --------
@@ -551,7 +553,7 @@ def robustness(
                 "description": description,
                 "data": record["method"].get("data", data),
                 "power": _estimate(record["power"]),
-                "type_i_error": _estimate(record["type_i_error"]),
+                "type_i_error": _size(record["type_i_error"]),
                 "null_model": (record["type_i_error"] or {}).get("null_model"),
                 "record_sha256": record["reproducibility"]["record_sha256"],
             }
@@ -562,6 +564,9 @@ def robustness(
         "per_arm": sizes,
         "test": test,
         "alpha": question.get("alpha"),
+        # The level each simulated test used (per comparison after Bonferroni): the sizes'
+        # verdicts are against it.
+        "alpha_per_comparison": alpha_for(question)[0],
         "replicates": replicates,
         "seed": seed,
         "departures": departures,
@@ -572,6 +577,13 @@ def _estimate(block: dict | None) -> dict | None:
     if block is None:
         return None
     return {k: block.get(k) for k in ("estimate", "mcse", "ci95", "replicates")}
+
+
+def _size(block: dict | None) -> dict | None:
+    """The simulated size with its verdict against the alpha the test used."""
+    if block is None:
+        return None
+    return {**_estimate(block), "alpha": block.get("alpha"), "verdict": block.get("verdict")}
 
 
 def analysis_cost(kind: str, params: dict, question: dict, record: dict | None) -> int:

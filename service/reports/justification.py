@@ -355,14 +355,33 @@ def _simulation(record: dict) -> str:
             f"95% interval {fmt_prob(t1['ci95'][0], 4)} to {fmt_prob(t1['ci95'][1], 4)}) against "
             f"the nominal {fmt_num(t1['alpha'])}"
         )
-        lo, hi = t1["ci95"]
-        text += (
-            ", consistent with it."
-            if lo <= t1["alpha"] <= hi
-            else "; the interval excludes the nominal level, so the test does not hold its size "
-            "under this data model."
-        )
+        text += f"{SIZE_WORDS[size_verdict(t1)]}"
     return text
+
+
+# What each size verdict means for the investigator (the verdicts: simulate.size_verdict).
+SIZE_WORDS = {
+    "holds": ", consistent with it: the test holds its level under this data model.",
+    "conservative": "; the whole interval lies below it, so the test is conservative: it "
+    "rejects a true null hypothesis less often than stated, which keeps it valid but costs "
+    "some power.",
+    "exceeds": "; the whole interval lies above it, so the test does not hold its level under "
+    "this data model: it rejects a true null hypothesis more often than stated, and a "
+    "significant result would overstate the evidence. Choose a test that holds its level "
+    "here, or a smaller alpha confirmed by simulation.",
+}
+SIZE_LABELS = {
+    "holds": "holds its level",
+    "conservative": "conservative: valid, costs some power",
+    "exceeds": "exceeds alpha: not valid here",
+}
+
+
+def size_verdict(t1: dict, alpha: float | None = None) -> str:
+    """The verdict of a simulated size block (recomputed for records made before verdicts)."""
+    if t1.get("verdict") in SIZE_WORDS and alpha is None:
+        return t1["verdict"]
+    return simulate.size_verdict(t1["ci95"], t1["alpha"] if alpha is None else alpha)
 
 
 def justification(record: dict, context: dict | None = None) -> str:

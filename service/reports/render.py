@@ -326,6 +326,28 @@ def _method_text(record: dict) -> str:
     return m.get("description") or "Monte Carlo simulation"
 
 
+def _robustness_view(panel: dict | None, q: dict) -> dict | None:
+    """The robustness panel with each size's verdict against the alpha its test used.
+
+    Panels stored before verdicts were recorded carry only the overall alpha; the level of
+    each test is then alpha divided by the Bonferroni comparisons, as the engine split it.
+    """
+    if not panel:
+        return panel
+    level = panel.get("alpha_per_comparison")
+    if level is None and panel.get("alpha") is not None:
+        k = int(((q.get("adjustments") or {}).get("comparisons")) or 1)
+        level = float(panel["alpha"]) / k
+    departures = []
+    for d in panel.get("departures") or []:
+        t1 = d.get("type_i_error")
+        if t1 and level is not None:
+            verdict = words.size_verdict({**t1, "alpha": t1.get("alpha") or level})
+            t1 = {**t1, "verdict": verdict, "label": words.SIZE_LABELS[verdict]}
+        departures.append({**d, "type_i_error": t1})
+    return {**panel, "alpha_per_comparison": level, "departures": departures}
+
+
 def render_report(
     request: dict,
     record: dict,
@@ -371,7 +393,7 @@ def render_report(
             curve_svg=Markup(curve_svg),
             sensitivity=sensitivity,
             sensitivity_svg=Markup(sensitivity_svg) if sensitivity_svg else None,
-            robustness=robustness,
+            robustness=_robustness_view(robustness, q),
             pending=[
                 {
                     "kind": a.get("kind", ""),

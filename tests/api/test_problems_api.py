@@ -135,6 +135,19 @@ def test_question_errors_are_keyed_under_question(api):
     assert list(errors) == ["question.alpha"] and "1.5" in errors["question.alpha"][0]
 
 
+def test_one_sided_direction_against_the_effect_is_refused_on_its_field(api):
+    question = api.question_body(
+        sides=1,
+        effect={"difference": -5.0, "sd": 12.0},
+        hypothesis={"higher_is_better": True},
+    )
+    errors = _is_problem(api.client.post("/v1/requests", json=api.request_body(question)), 422)[
+        "errors"
+    ]
+    assert list(errors) == ["question.hypothesis.higher_is_better"]
+    assert "effect.difference" in errors["question.hypothesis.higher_is_better"][0]
+
+
 def test_invalid_requester_names_field_and_value(api):
     body = api.request_body(requester={"name": "", "email": "okafor", "department": None})
     errors = _is_problem(api.client.post("/v1/requests", json=body), 422)["errors"]

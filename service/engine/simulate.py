@@ -110,7 +110,16 @@ def _default_arms(q: dict, design: str) -> list[dict]:
         k, f = int(_effect(q, "groups")), _effect(q, "cohens_f")
         if k < 2:
             raise QuestionError("effect.groups", f"must be at least 2; got {k}")
-        # Equally spaced means with SD (divisor k) equal to f and unit SD within groups.
+        # Equally spaced means with SD (divisor k) equal to f and unit SD within groups; with
+        # unequal posted sizes, f is size-weighted (as the analytic answer reads it).
+        sizes = list((q.get("sample_size") or {}).get("per_arm") or [])
+        if len(sizes) == k and len(set(sizes)) > 1:
+            w = [float(n) / math.fsum(sizes) for n in sizes]
+            center = math.fsum(wi * i for i, wi in enumerate(w))
+            spread = math.sqrt(math.fsum(wi * (i - center) ** 2 for i, wi in enumerate(w)))
+            return [
+                {"family": "normal", "mean": f / spread * (i - center), "sd": 1.0} for i in range(k)
+            ]
         step = f / math.sqrt((k * k - 1) / 12.0)
         return [{"family": "normal", "mean": step * (i - (k - 1) / 2), "sd": 1.0} for i in range(k)]
     if design == "rank_sum":

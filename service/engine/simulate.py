@@ -305,8 +305,11 @@ def plan(q: dict, alpha: float) -> dict:
         extra = {"accrual_period": a, "follow_up": f, "loss_rate": loss}
         if rule["sides"] == 1:  # one-sided towards the assumed effect: longer times, lower hazard
             rule["direction"] = -1 if models.center(arms[1]) >= models.center(arms[0]) else 1
+    cl = _cluster_extra(q, design, arms, labels)
+    if cl is not None:
+        extra = dict(extra, cluster=cl)
     null, null_text = _null(design, test, arms, rule)
-    normal = all(a["family"] == "normal" for a in arms)
+    normal = all(a["family"] == "normal" for a in arms) and cl is None
     sufficient = design == "two_proportions" or (
         normal and test in ("student_t", "welch_t", "f_test")
     )
@@ -338,6 +341,30 @@ def plan(q: dict, alpha: float) -> dict:
         "weights": weights,
         "min_size": 2,
         "data": data,
+    }
+
+
+def _cluster_extra(q: dict, design: str, arms: list[dict], labels: list[str]) -> dict | None:
+    """The cluster settings a chunk needs (analysed mean size, cv, ICC), or None.
+
+    With clusters, per_arm counts clusters and the test is the cluster-level t (cluster_sim).
+    """
+    adj = q.get("adjustments") or {}
+    c = adj.get("cluster")
+    if not c:
+        return None
+    want = "normal" if design == "two_means" else "bernoulli"
+    for a, lab in zip(arms, labels, strict=True):
+        if a["family"] != want:
+            raise QuestionError(
+                f"simulation.data.{lab}.family",
+                f"cluster trials are simulated with {want} outcomes; got {a['family']!r}",
+            )
+    keep = 1.0 - float(adj.get("dropout") or 0.0)
+    return {
+        "mean_size": float(c["mean_size"]) * keep,
+        "cv": float(c.get("cv") or 0.0),
+        "icc": float(c["icc"]),
     }
 
 
@@ -513,6 +540,10 @@ def _reject(streams: _Streams, task: dict, rows: int) -> tuple[np.ndarray, dict]
     """Return the reject decisions of ``rows`` replicates (and small extras, e.g. event counts)."""
     design, test, alpha, rule = task["design"], task["test"], task["alpha"], task["rule"]
     arms, per_arm = task["arms"], task["per_arm"]
+    if task["extra"].get("cluster"):
+        from . import cluster_sim
+
+        return cluster_sim.reject(streams, task, rows)
     if design == "correlation":
         r = streams.correlation(arms[0]["r"], per_arm[0], rows)
         return vectests.correlation_reject(r, per_arm[0], task["extra"]["r0"], alpha, rule), {}
@@ -624,6 +655,12 @@ def _z(p: float) -> float:
 def approximate_m(plan_: dict, target: float) -> float | None:
     """Return a normal-approximation size of the first arm reaching ``target``, or None."""
     design, rule, alpha, arms = plan_["design"], plan_["rule"], plan_["alpha"], plan_["arms"]
+    cl = plan_["extra"].get("cluster")
+    if cl:  # individuals × design effect ÷ analysed cluster size = clusters
+        extra = {k: v for k, v in plan_["extra"].items() if k != "cluster"}
+        n = approximate_m(dict(plan_, extra=extra), target)
+        de = 1.0 + ((cl["cv"] ** 2 + 1.0) * cl["mean_size"] - 1.0) * cl["icc"]
+        return None if n is None else max(2.0, n * de / cl["mean_size"])
     w = plan_["weights"]
     ratio = w[1] / w[0] if len(w) == 2 else 1.0
     kind = rule["kind"]
@@ -847,6 +884,28 @@ def _estimate_block(est: search.Estimate) -> dict:
 
 def _describe(plan_: dict) -> str:
     test = plan_["test"].replace("_", " ")
+    cl = plan_["extra"].get("cluster")
+    if cl:
+        outcome = (
+            "beta-binomial counts (cluster probabilities from a beta distribution with "
+            "intra-cluster correlation ICC)"
+            if plan_["design"] == "two_proportions"
+            else "normal cluster means (cluster effect N(0, ICC·σ²) plus the mean of the "
+            "individual errors N(0, (1 − ICC)·σ²))"
+        )
+        sizes = (
+            f"sizes drawn from a gamma distribution with mean {cl['mean_size']:g} and "
+            f"coefficient of variation {cl['cv']:g}, rounded to whole people (at least 1)"
+            if cl["cv"] > 0
+            else f"{max(1, round(cl['mean_size']))} people each"
+        )
+        return (
+            f"Each replicate draws every cluster of every arm ({sizes}) with {outcome}, ICC "
+            f"{cl['icc']:g}, and applies the cluster-level t test (arm means weighted by cluster "
+            "size, pooled between-cluster standard error, clusters − 2 degrees of freedom) at "
+            "the stated alpha; sample sizes count clusters per arm. Power is the share of "
+            "replicates that reject, with its Monte Carlo standard error and Wilson interval."
+        )
     if plan_["design"] == "correlation":
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
     elif plan_["design"] == "two_proportions":

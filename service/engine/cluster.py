@@ -359,9 +359,20 @@ def answer(q: dict, design, alpha: float, simulate) -> dict:
         except QuestionError:
             if q.get("method") != "simulation":
                 raise
+        if keep < 1:
+            steps.append(
+                {
+                    "step": "dropout",
+                    "unit": "people per cluster",
+                    "rate": c["dropout"],
+                    "note": "people lost inside clusters; the analysed cluster size shrinks",
+                }
+            )
         if c["clusters_per_arm"] is None:
             m = c["mean_size"]
             m_a = m * keep
+            if keep < 1:
+                steps[-1].update(mean_cluster_size=m, analysed_cluster_size=m_a)
             de = design_effect(m_a, c["icc"], c["cv"])
             if steps:
                 inflated = [n * de for n in steps[0]["per_arm_raw"]]
@@ -406,6 +417,8 @@ def answer(q: dict, design, alpha: float, simulate) -> dict:
             clusters = clusters_for(c["clusters_per_arm"], r)
             m = float(solve_size(q, clusters, alpha, target))
             m_a = m * keep
+            if keep < 1:
+                steps[-1].update(mean_cluster_size=m, analysed_cluster_size=m_a)
             steps.append(
                 {
                     "step": "cluster_size",
@@ -454,6 +467,8 @@ def answer(q: dict, design, alpha: float, simulate) -> dict:
                     "step": "dropout",
                     "unit": "people per cluster",
                     "rate": c["dropout"],
+                    "note": "people lost inside clusters; the analysed cluster size shrinks",
+                    "mean_cluster_size": m,
                     "analysed_cluster_size": m_a,
                 }
             )

@@ -48,8 +48,8 @@ def test_adjustments_in_order_cluster_then_dropout():
     )
     record = compute(q)
     names = [s["step"] for s in record["sample_size"]["steps"]]
-    assert names == ["base", "design_effect", "cluster_df", "enrolled"]
-    de = record["sample_size"]["steps"][1]
+    assert names == ["base", "dropout", "design_effect", "cluster_df", "enrolled"]
+    de = record["sample_size"]["steps"][2]
     assert de["factor"] == pytest.approx(1.75)
 
     def power(k):

@@ -28,7 +28,11 @@ MAX_AXES = 3
 _BOTH_SDS = "effect.sd"
 
 # Paths whose value must stay an integer (the engine reads them as counts).
-_INTEGER_PATHS = {"adjustments.comparisons", "effect.groups"}
+_INTEGER_PATHS = {
+    "adjustments.comparisons",
+    "effect.groups",
+    "adjustments.cluster.clusters_per_arm",
+}
 
 
 # --- sensitivity grid ---------------------------------------------------------------------

@@ -739,6 +739,8 @@ def _shifted_n(diff: float, var: float, rule: dict, za: float, zb: float, target
 
 
 def _draws_per_replicate(plan_: dict, per_arm: list[int]) -> int:
+    if plan_["extra"].get("cluster"):  # per_arm counts clusters: size, cluster effect, mean
+        return 3 * sum(per_arm)
     if plan_["design"] == "correlation":
         return 3
     if plan_["design"] == "two_proportions":
@@ -780,6 +782,9 @@ def estimate_cost(q: dict) -> int:
     p = plan(q, _alpha_of(q))
     if q.get("find") == "power":
         per_arm = list((q.get("sample_size") or {}).get("per_arm") or [])
+        cl = (q.get("adjustments") or {}).get("cluster")
+        if cl and cl.get("mean_size"):  # enrolled people → clusters
+            per_arm = [math.ceil(n / float(cl["mean_size"])) for n in per_arm]
         return 2 * reps * _draws_per_replicate(p, per_arm)
     m0 = approximate_m(p, float(q.get("target_power") or 0.8)) or _FALLBACK_M
     per_arm = per_arm_for(p, max(_m_min(p), math.ceil(_COST_SPAN * m0)))

@@ -51,6 +51,8 @@ _FIELD_LABELS = {
     "adjustments.dropout": "Dropout",
     "adjustments.cluster.icc": "ICC",
     "adjustments.cluster.mean_size": "Cluster size",
+    "adjustments.cluster.cv": "Cluster-size CV",
+    "adjustments.cluster.clusters_per_arm": "Clusters per arm",
     "adjustments.comparisons": "Comparisons",
 }
 

@@ -254,3 +254,31 @@ def test_gamma_sizes_have_the_stated_mean_and_cv():
     s = cluster_sim.sizes(np.random.default_rng(1), 40.0, 0.5, (200_000, 1))
     assert s.mean() == pytest.approx(40.0, rel=0.01)
     assert s.std() / s.mean() == pytest.approx(0.5, rel=0.02)
+
+
+def test_noninferiority_with_clusters_matches_direct_nct():
+    # formula: one-sided noncentral t, df 2k − 2, ncp = (δ − margin)/se with se from k·m/DE
+    q = cq(
+        per_arm=[300, 300],
+        effect={"difference": 0.0},
+        hypothesis={"kind": "noninferiority", "margin": -0.3},
+    )
+    rec = compute(q)
+    se = math.sqrt(2 * 1.95 / 300)
+    crit = stats.t.isf(0.05, 28)
+    assert rec["power"]["estimate"] == pytest.approx(
+        float(stats.nct.sf(crit, 28, 0.3 / se)), abs=1e-12
+    )
+    sim = _sim(q)
+    p = sim["power"]
+    assert abs(p["estimate"] - p["analytic"]) <= 4 * p["mcse"]
+
+
+def test_cost_estimate_counts_clusters_not_people():
+    # exact: 3 draws per cluster per replicate, two streams (alternative and null)
+    from service.engine import simulate
+
+    q = cq(per_arm=[160, 160])
+    q["method"] = "simulation"
+    q["simulation"] = {"replicates": 1000, "seed": 1, "test": "student_t", "data": None}
+    assert simulate.estimate_cost(q) == 2 * 1000 * 3 * 16

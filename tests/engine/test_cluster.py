@@ -204,7 +204,9 @@ def _sim(q, reps=4000):
 @pytest.mark.parametrize(
     ("design", "per_arm", "cl", "effect"),
     [
+        ("two_means", [40, 40], {}, {"difference": 1.2}),  # boundary: 2 clusters per arm, df 2
         ("two_means", [60, 60], {}, {"difference": 0.8}),  # few clusters: 3 per arm, df 4
+        ("two_means", [120, 240], {"cv": 0.4}, {"difference": 0.45}),  # 6 vs 12 clusters
         ("two_means", [80, 80], {"mean_size": 10, "icc": 0.1}, {"difference": 0.6}),
         ("two_means", [240, 240], {"cv": 0.6, "icc": 0.03}, {"difference": 0.35}),  # unequal
         ("two_means", [200, 200], {"icc": 0.0}, {"difference": 0.3}),  # boundary ICC 0

@@ -326,6 +326,12 @@ def _check_method(q: dict) -> None:
             f"cluster trials are simulated with the cluster-level t test, chosen with "
             f"{' or '.join(allowed[q['design']])}; got {test!r}",
         )
+    if sim.get("data") is not None:
+        raise QuestionError(
+            "simulation.data",
+            "cluster trials are simulated from the effect fields (normal or beta-binomial "
+            "outcomes with the stated ICC); remove simulation.data",
+        )
     c = settings(q)
     if c["clusters_per_arm"] is not None:
         raise QuestionError(

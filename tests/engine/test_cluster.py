@@ -284,3 +284,29 @@ def test_cost_estimate_counts_clusters_not_people():
     q["method"] = "simulation"
     q["simulation"] = {"replicates": 1000, "seed": 1, "test": "student_t", "data": None}
     assert simulate.estimate_cost(q) == 2 * 1000 * 3 * 16
+
+
+def test_simulation_refusals_name_the_field():
+    # common practice, no source: what the cluster simulation cannot do is refused clearly
+    q = cq(per_arm=[160, 160])
+    q["method"] = "simulation"
+    q["simulation"] = {
+        "replicates": 100,
+        "seed": 1,
+        "test": "rank_sum",
+        "data": None,
+        "chunk_size": 100,
+    }
+    with pytest.raises(QuestionError) as err:
+        compute(q)
+    assert err.value.field == "simulation.test"
+    q["simulation"].update(
+        test="student_t",
+        data={
+            "control": {"family": "normal", "mean": 0, "sd": 1},
+            "treatment": {"family": "normal", "mean": 0.5, "sd": 1},
+        },
+    )
+    with pytest.raises(QuestionError) as err:
+        compute(q)
+    assert err.value.field == "simulation.data"

@@ -98,7 +98,8 @@ def power(q: dict, per_arm: list[float], alpha: float) -> float:
         )
     sizes = [float(n) for n in per_arm]
     given = _means(q)
-    if given is not None:
+    if given is not None and len(set(sizes)) > 1:
+        # Equal groups keep λ = f²·N (the same number, digit for digit, as before).
         return lambda_power(means_lambda(*given, sizes), sizes, alpha)
     return f_power(effect_value(q, "cohens_f"), sizes, alpha)
 

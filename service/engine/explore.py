@@ -446,6 +446,13 @@ def _departure_questions(
     question: dict, per_arm, *, replicates: int, seed: int
 ) -> tuple[str, list[tuple[str, str, dict, dict]]]:
     """Validate the inputs; return the test and (name, description, data, question) per departure."""
+    if (question.get("adjustments") or {}).get("cluster"):
+        raise QuestionError(
+            "adjustments.cluster",
+            "the robustness panel simulates departures of individual observations; it is not "
+            "offered for cluster-randomized questions (ask find = power with method "
+            "simulation for the cluster-level check)",
+        )
     mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
     if (
         isinstance(replicates, bool)

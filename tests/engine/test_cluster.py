@@ -310,3 +310,12 @@ def test_simulation_refusals_name_the_field():
     with pytest.raises(QuestionError) as err:
         compute(q)
     assert err.value.field == "simulation.data"
+
+
+def test_robustness_panel_is_refused_for_cluster_questions():
+    # common practice, no source: the panel's departures are individual-level data models
+    from service.engine import explore
+
+    with pytest.raises(QuestionError) as err:
+        explore.robustness(cq(), [160, 160], replicates=200, seed=1)
+    assert err.value.field == "adjustments.cluster"

@@ -1,7 +1,8 @@
-"""Adjustment steps shared by every design: Bonferroni alpha, rounding, design effect, dropout.
+"""Adjustment steps shared by every design: Bonferroni alpha, rounding, dropout.
 
-Inflating goes raw n → whole subjects → × design effect → ÷ (1 − dropout); deflating walks the
-same steps backwards to turn enrolled numbers into the effective n the power functions use.
+Inflating goes raw n → whole subjects → ÷ (1 − dropout); deflating walks the same steps
+backwards to turn enrolled numbers into the effective n the power functions use. Cluster
+randomization changes the unit (whole clusters, cluster-level df) and lives in cluster.py.
 """
 
 from __future__ import annotations
@@ -27,16 +28,6 @@ def _adjustments(q: dict) -> dict:
     }
 
 
-def design_effect(q: dict) -> tuple[float, float, float] | None:
-    """Return (mean cluster size, ICC, design effect 1 + (m − 1)·ICC), or None without clustering."""
-    cluster = _adjustments(q)["cluster"]
-    if not cluster:
-        return None
-    m, icc = float(cluster["mean_size"]), float(cluster["icc"])
-    # Rounded so 1 + 19·0.05 is recorded as 1.95, not 1.9500000000000002.
-    return m, icc, round(1.0 + (m - 1.0) * icc, 12)
-
-
 def alpha_for(q: dict) -> tuple[float, dict | None]:
     """Return the alpha per comparison (Bonferroni) and its step record (None for one comparison)."""
     alpha = float(q["alpha"])
@@ -53,7 +44,7 @@ def alpha_for(q: dict) -> tuple[float, dict | None]:
 
 
 def inflate(raw_per_arm: list[float], q: dict) -> tuple[list[int], list[dict], dict]:
-    """Turn raw n per arm into enrolled whole subjects: ceil, × design effect, ÷ (1 − dropout)."""
+    """Turn raw n per arm into enrolled whole subjects: ceil, ÷ (1 − dropout)."""
     adj = _adjustments(q)
     # Fewer than 2 per arm cannot estimate a variance; small raw answers are lifted to 2.
     per_arm = [max(2, _ceil(float(x))) for x in raw_per_arm]
@@ -61,22 +52,6 @@ def inflate(raw_per_arm: list[float], q: dict) -> tuple[list[int], list[dict], d
         {"step": "base", "per_arm_raw": [float(x) for x in raw_per_arm], "per_arm": list(per_arm)}
     ]
     extras: dict = {}
-    de = design_effect(q)
-    if de is not None:
-        m, icc, factor = de
-        per_arm = [_ceil(n * factor) for n in per_arm]
-        clusters = [_ceil(n / m) for n in per_arm]
-        steps.append(
-            {
-                "step": "design_effect",
-                "mean_cluster_size": m,
-                "icc": icc,
-                "factor": factor,
-                "per_arm": list(per_arm),
-                "clusters_per_arm": clusters,
-            }
-        )
-        extras["clusters_per_arm"] = clusters
     rate = adj["dropout"]
     if rate > 0:
         # Enrol n / (1 − q) so that n remain after a fraction q drop out (n·(1 + q) keeps too few).
@@ -86,7 +61,7 @@ def inflate(raw_per_arm: list[float], q: dict) -> tuple[list[int], list[dict], d
 
 
 def deflate(enrolled_per_arm: list[int], q: dict) -> tuple[list[float], list[dict]]:
-    """Turn enrolled n per arm into the effective n for power: × (1 − dropout), ÷ design effect."""
+    """Turn enrolled n per arm into the effective n for power: × (1 − dropout)."""
     adj = _adjustments(q)
     per_arm = [float(n) for n in enrolled_per_arm]
     steps: list[dict] = [{"step": "enrolled", "per_arm": [int(n) for n in enrolled_per_arm]}]
@@ -94,20 +69,6 @@ def deflate(enrolled_per_arm: list[int], q: dict) -> tuple[list[float], list[dic
     if rate > 0:
         per_arm = [n * (1.0 - rate) for n in per_arm]
         steps.append({"step": "dropout", "rate": rate, "per_arm": list(per_arm)})
-    de = design_effect(q)
-    if de is not None:
-        m, icc, factor = de
-        per_arm = [n / factor for n in per_arm]
-        steps.append(
-            {
-                "step": "design_effect",
-                "mean_cluster_size": m,
-                "icc": icc,
-                "factor": factor,
-                "per_arm": list(per_arm),
-                "clusters_per_arm": [_ceil(n / m) for n in enrolled_per_arm],
-            }
-        )
     return per_arm, steps
 
 

@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, designs
+from . import adjust, cluster, designs
 from .errors import BudgetExceeded, EngineError, QuestionError
 from .records import CAUTIONS, RECORD_VERSION, seal, versions
 
@@ -131,7 +131,20 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
     }
     find = q["find"]
     sim = None
-    if find == "sample_size":
+    clustered = cluster.settings(q) is not None
+    if clustered:
+        part = cluster.answer(
+            q,
+            design,
+            alpha,
+            lambda per_arm, start: _simulate(q, alpha, per_arm, start, executor, progress, cancel),
+        )
+        part["sample_size"]["steps"] = pre_steps + part["sample_size"]["steps"]
+        record["sample_size"] = part["sample_size"]
+        record["effect"] = part["effect"]
+        record["warnings"].extend(part["warnings"])
+        sim, power, analysed = part["sim"], part["power"], part["analysed"]
+    elif find == "sample_size":
         solution = None
         if not simulated or q.get("effect"):
             solution = _analytic_or_none(design, q, alpha, required=not simulated)
@@ -187,7 +200,7 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
             record["events"] = {**(record["events"] or {}), "simulated": sim["events"]}
         record["warnings"].extend(sim.get("warnings", []))
         repro = dict(sim["reproducibility"])
-        if q["simulation"].get("data") is None:
+        if q["simulation"].get("data") is None and not clustered:
             # The formula answer beside the simulated one, when both describe the same normal data
             # (for find = effect: the formula's power at the simulated effect).
             basis = q
@@ -200,6 +213,15 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
     else:
         record["method"] = design.describe(q)
         repro = {"seed": None, "bit_generator": None, "seed_scheme": None, "chunk_size": None}
+    if clustered:
+        record["method"] = dict(
+            record["method"], notes=[*record["method"].get("notes", []), *cluster.method_notes(q)]
+        )
+        if record["method"]["kind"] == "analytic":
+            record["method"].update(
+                formula="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
+                reference="Donner & Klar (2000); Eldridge, Ashby & Kerry (2006)",
+            )
     record["power"] = power
     repro["versions"] = versions()
     record["reproducibility"] = repro

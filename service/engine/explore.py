@@ -29,7 +29,11 @@ MAX_AXES = 3
 _BOTH_SDS = "effect.sd"
 
 # Paths whose value must stay an integer (the engine reads them as counts).
-_INTEGER_PATHS = {"adjustments.comparisons", "effect.groups"}
+_INTEGER_PATHS = {
+    "adjustments.comparisons",
+    "effect.groups",
+    "adjustments.cluster.clusters_per_arm",
+}
 
 
 # --- sensitivity grid ---------------------------------------------------------------------
@@ -443,6 +447,13 @@ def _departure_questions(
     question: dict, per_arm, *, replicates: int, seed: int
 ) -> tuple[str, list[tuple[str, str, dict, dict]]]:
     """Validate the inputs; return the test and (name, description, data, question) per departure."""
+    if (question.get("adjustments") or {}).get("cluster"):
+        raise QuestionError(
+            "adjustments.cluster",
+            "the robustness panel simulates departures of individual observations; it is not "
+            "offered for cluster-randomized questions (ask find = power with method "
+            "simulation for the cluster-level check)",
+        )
     mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
     if (
         isinstance(replicates, bool)

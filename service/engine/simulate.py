@@ -113,7 +113,16 @@ def _default_arms(q: dict, design: str) -> list[dict]:
         k, f = int(_effect(q, "groups")), _effect(q, "cohens_f")
         if k < 2:
             raise QuestionError("effect.groups", f"must be at least 2; got {k}")
-        # Equally spaced means with SD (divisor k) equal to f and unit SD within groups.
+        # Equally spaced means with SD (divisor k) equal to f and unit SD within groups; with
+        # unequal posted sizes, f is size-weighted (as the analytic answer reads it).
+        sizes = list((q.get("sample_size") or {}).get("per_arm") or [])
+        if len(sizes) == k and len(set(sizes)) > 1:
+            w = [float(n) / math.fsum(sizes) for n in sizes]
+            center = math.fsum(wi * i for i, wi in enumerate(w))
+            spread = math.sqrt(math.fsum(wi * (i - center) ** 2 for i, wi in enumerate(w)))
+            return [
+                {"family": "normal", "mean": f / spread * (i - center), "sd": 1.0} for i in range(k)
+            ]
         step = f / math.sqrt((k * k - 1) / 12.0)
         return [{"family": "normal", "mean": step * (i - (k - 1) / 2), "sd": 1.0} for i in range(k)]
     if design == "rank_sum":
@@ -302,8 +311,11 @@ def plan(q: dict, alpha: float) -> dict:
         aim = direction.one_sided(q, design, direction.implied(design, arms))
         # The log-rank z is negative when treatment has fewer events: longer times.
         rule["direction"] = -aim if design == "survival_logrank" else aim
+    cl = _cluster_extra(q, design, arms, labels)
+    if cl is not None:
+        extra = dict(extra, cluster=cl)
     null, null_text = _null(design, test, arms, rule)
-    normal = all(a["family"] == "normal" for a in arms)
+    normal = all(a["family"] == "normal" for a in arms) and cl is None
     sufficient = design == "two_proportions" or (
         normal and test in ("student_t", "welch_t", "f_test")
     )
@@ -335,6 +347,30 @@ def plan(q: dict, alpha: float) -> dict:
         "weights": weights,
         "min_size": 2,
         "data": data,
+    }
+
+
+def _cluster_extra(q: dict, design: str, arms: list[dict], labels: list[str]) -> dict | None:
+    """The cluster settings a chunk needs (analysed mean size, cv, ICC), or None.
+
+    With clusters, per_arm counts clusters and the test is the cluster-level t (cluster_sim).
+    """
+    adj = q.get("adjustments") or {}
+    c = adj.get("cluster")
+    if not c:
+        return None
+    want = "normal" if design == "two_means" else "bernoulli"
+    for a, lab in zip(arms, labels, strict=True):
+        if a["family"] != want:
+            raise QuestionError(
+                f"simulation.data.{lab}.family",
+                f"cluster trials are simulated with {want} outcomes; got {a['family']!r}",
+            )
+    keep = 1.0 - float(adj.get("dropout") or 0.0)
+    return {
+        "mean_size": float(c["mean_size"]) * keep,
+        "cv": float(c.get("cv") or 0.0),
+        "icc": float(c["icc"]),
     }
 
 
@@ -510,6 +546,10 @@ def _reject(streams: _Streams, task: dict, rows: int) -> tuple[np.ndarray, dict]
     """Return the reject decisions of ``rows`` replicates (and small extras, e.g. event counts)."""
     design, test, alpha, rule = task["design"], task["test"], task["alpha"], task["rule"]
     arms, per_arm = task["arms"], task["per_arm"]
+    if task["extra"].get("cluster"):
+        from . import cluster_sim
+
+        return cluster_sim.reject(streams, task, rows)
     if design == "correlation":
         r = streams.correlation(arms[0]["r"], per_arm[0], rows)
         return vectests.correlation_reject(r, per_arm[0], task["extra"]["r0"], alpha, rule), {}
@@ -621,6 +661,12 @@ def _z(p: float) -> float:
 def approximate_m(plan_: dict, target: float) -> float | None:
     """Return a normal-approximation size of the first arm reaching ``target``, or None."""
     design, rule, alpha, arms = plan_["design"], plan_["rule"], plan_["alpha"], plan_["arms"]
+    cl = plan_["extra"].get("cluster")
+    if cl:  # individuals × design effect ÷ analysed cluster size = clusters
+        extra = {k: v for k, v in plan_["extra"].items() if k != "cluster"}
+        n = approximate_m(dict(plan_, extra=extra), target)
+        de = 1.0 + ((cl["cv"] ** 2 + 1.0) * cl["mean_size"] - 1.0) * cl["icc"]
+        return None if n is None else max(2.0, n * de / cl["mean_size"])
     w = plan_["weights"]
     ratio = w[1] / w[0] if len(w) == 2 else 1.0
     kind = rule["kind"]
@@ -699,6 +745,8 @@ def _shifted_n(diff: float, var: float, rule: dict, za: float, zb: float, target
 
 
 def _draws_per_replicate(plan_: dict, per_arm: list[int]) -> int:
+    if plan_["extra"].get("cluster"):  # per_arm counts clusters: size, cluster effect, mean
+        return 3 * sum(per_arm)
     if plan_["design"] == "correlation":
         return 3
     if plan_["design"] == "two_proportions":
@@ -740,6 +788,9 @@ def estimate_cost(q: dict) -> int:
     p = plan(q, _alpha_of(q))
     if q.get("find") == "power":
         per_arm = list((q.get("sample_size") or {}).get("per_arm") or [])
+        cl = (q.get("adjustments") or {}).get("cluster")
+        if cl and cl.get("mean_size"):  # enrolled people → clusters
+            per_arm = [math.ceil(n / float(cl["mean_size"])) for n in per_arm]
         return 2 * reps * _draws_per_replicate(p, per_arm)
     m0 = approximate_m(p, float(q.get("target_power") or 0.8)) or _FALLBACK_M
     per_arm = per_arm_for(p, max(_m_min(p), math.ceil(_COST_SPAN * m0)))
@@ -844,6 +895,28 @@ def _estimate_block(est: search.Estimate) -> dict:
 
 def _describe(plan_: dict) -> str:
     test = plan_["test"].replace("_", " ")
+    cl = plan_["extra"].get("cluster")
+    if cl:
+        outcome = (
+            "beta-binomial counts (cluster probabilities from a beta distribution with "
+            "intra-cluster correlation ICC)"
+            if plan_["design"] == "two_proportions"
+            else "normal cluster means (cluster effect N(0, ICC·σ²) plus the mean of the "
+            "individual errors N(0, (1 − ICC)·σ²))"
+        )
+        sizes = (
+            f"sizes drawn from a gamma distribution with mean {cl['mean_size']:g} and "
+            f"coefficient of variation {cl['cv']:g}, rounded to whole people (at least 1)"
+            if cl["cv"] > 0
+            else f"{max(1, round(cl['mean_size']))} people each"
+        )
+        return (
+            f"Each replicate draws every cluster of every arm ({sizes}) with {outcome}, ICC "
+            f"{cl['icc']:g}, and applies the cluster-level t test (arm means weighted by cluster "
+            "size, pooled between-cluster standard error, clusters − 2 degrees of freedom) at "
+            "the stated alpha; sample sizes count clusters per arm. Power is the share of "
+            "replicates that reject, with its Monte Carlo standard error and Wilson interval."
+        )
     if plan_["design"] == "correlation":
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
     elif plan_["design"] == "two_proportions":

@@ -251,6 +251,8 @@ def _alpha(q: dict, steps: list[dict]) -> str:
 
 def _steps_sentence(steps: list[dict], total: int, design: str) -> str:
     """The adjustment chain after the base n, each step with its inputs and its rounded result."""
+    if any(step["step"] in ("cluster_df", "cluster_size") for step in steps):
+        return _cluster_sentence(steps, total)
     parts = []
     for step in steps:
         if step["step"] == "design_effect":
@@ -272,6 +274,75 @@ def _steps_sentence(steps: list[dict], total: int, design: str) -> str:
         return ""
     text = "; ".join(parts)
     return text[0].upper() + text[1:] + f", so {fmt_count(total)} are to be enrolled in total."
+
+
+def _cluster_inputs(step: dict, dropout: dict | None) -> str:
+    """'mean cluster size 20 (16 analysed after 20% dropout), …, design effect 1.75'."""
+    size = fmt_num(step["mean_cluster_size"])
+    if dropout is not None:
+        size += (
+            f" ({fmt_num(step['analysed_cluster_size'])} analysed after "
+            f"{fmt_pct(dropout['rate'])} dropout within clusters)"
+        )
+    text = f"mean cluster size {size}, intracluster correlation {fmt_num(step['icc'])}"
+    if step.get("cv"):
+        text += f", coefficient of variation of cluster size {fmt_num(step['cv'])}"
+    return text + f", design effect {fmt_num(step['factor'])}"
+
+
+def _individuals(per_arm: list) -> str:
+    if len(set(per_arm)) == 1:
+        return f"{_raw(per_arm[0])} individuals per group"
+    return " and ".join(_raw(x) for x in per_arm) + " individuals in the groups"
+
+
+def _cluster_sentence(steps: list[dict], total: int) -> str:
+    """The cluster chain: design effect, cluster-level df, whole clusters × their size."""
+    by = {s["step"]: s for s in steps}
+    enrolled = by["enrolled"]
+    clusters = enrolled["clusters_per_arm"]
+    parts = []
+    if "design_effect" in by:
+        de = by["design_effect"]
+        parts.append(
+            f"Whole clusters are randomized ({_cluster_inputs(de, by.get('dropout'))}); by the normal "
+            f"approximation this needs {_individuals(de['per_arm_raw'])} "
+            f"({_clusters(de['clusters_per_arm'])})"
+        )
+    if "cluster_df" in by:
+        df = by["cluster_df"]
+        parts.append(
+            f"the cluster-level t test with {fmt_count(df['df'])} degrees of freedom (clusters "
+            f"− 2) needs {_clusters(df['clusters_per_arm'])} (power "
+            f"{fmt_pct(round(df['power'], 3))})"
+        )
+    if "simulation" in by:
+        parts.append(f"the simulation settles on {_clusters(by['simulation']['clusters_per_arm'])}")
+    if "cluster_size" in by:
+        cs = by["cluster_size"]
+        parts.append(
+            f"Whole clusters are randomized with {_clusters(cs['clusters_per_arm'])} fixed "
+            f"({_cluster_inputs(cs, by.get('dropout'))}); the smallest whole cluster size whose cluster-level t test "
+            f"({fmt_count(cs['df'])} degrees of freedom) reaches the target is "
+            f"{fmt_num(cs['mean_cluster_size'])} (power {fmt_pct(round(cs['power'], 3))})"
+        )
+    people = enrolled["per_arm"]
+    each = (
+        f"{fmt_count(people[0])} people per group"
+        if len(set(people)) == 1
+        else " and ".join(fmt_count(n) for n in people)
+        + " people in the control and treatment groups"
+    )
+    parts.append(
+        f"so whole clusters of {fmt_num(enrolled['mean_cluster_size'])} people are enrolled, "
+        f"{_clusters(clusters)} ({each})"
+    )
+    text = "; ".join(parts)
+    return (
+        text[0].upper()
+        + text[1:]
+        + f": {fmt_count(total)} are to be enrolled in total in {fmt_count(sum(clusters))} clusters."
+    )
 
 
 def _clusters(clusters: list) -> str:
@@ -436,7 +507,14 @@ def justification(record: dict, context: dict | None = None) -> str:
             body += f" The power at the analysed size is {fmt_pct(round(power['estimate'], 3))}."
     else:
         analysed = size.get("analysed_per_arm") or size["per_arm"]
-        body = f" With {_enrolled(size['per_arm'], size['total'], design)} and {test_level}"
+        body = f" With {_enrolled(size['per_arm'], size['total'], design)}"
+        if size.get("clusters_per_arm"):
+            body += (
+                f" in {_clusters(size['clusters_per_arm'])} of mean size "
+                f"{fmt_num(size['mean_cluster_size'])} (whole clusters randomized, analysed by "
+                "the cluster-level t test)"
+            )
+        body += f" and {test_level}"
         losses = [s for s in steps if s["step"] in ("dropout", "design_effect")]
         if losses:
             words = []

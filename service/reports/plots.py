@@ -249,6 +249,8 @@ _PATH_WORDS = {
     "adjustments.comparisons": "comparisons",
     "adjustments.cluster.icc": "ICC",
     "adjustments.cluster.mean_size": "cluster size",
+    "adjustments.cluster.cv": "cluster-size CV",
+    "adjustments.cluster.clusters_per_arm": "clusters per arm",
 }
 
 

@@ -51,6 +51,8 @@ _FIELD_LABELS = {
     "adjustments.dropout": "Dropout",
     "adjustments.cluster.icc": "ICC",
     "adjustments.cluster.mean_size": "Cluster size",
+    "adjustments.cluster.cv": "Cluster-size CV",
+    "adjustments.cluster.clusters_per_arm": "Clusters per arm",
     "adjustments.comparisons": "Comparisons",
 }
 
@@ -174,9 +176,14 @@ def question_rows(q: dict) -> list[tuple[str, str]]:
         parts.append(f"Bonferroni over {adj['comparisons']} comparisons")
     if adj.get("cluster"):
         c = adj["cluster"]
-        parts.append(
-            f"clusters of mean size {words.fmt_num(c['mean_size'])}, ICC {words.fmt_num(c['icc'])}"
+        size = (
+            f"clusters of mean size {words.fmt_num(c['mean_size'])}"
+            if c.get("mean_size") is not None
+            else f"{words.fmt_count(c['clusters_per_arm'])} clusters per group (size solved)"
         )
+        parts.append(f"{size}, ICC {words.fmt_num(c['icc'])}")
+        if c.get("cv"):
+            parts.append(f"cluster-size CV {words.fmt_num(c['cv'])}")
     if adj.get("dropout"):
         parts.append(f"dropout {words.fmt_pct(adj['dropout'])}")
     rows.append(("Adjustments", "; ".join(parts) if parts else "none"))
@@ -230,7 +237,10 @@ def _answer_figures(record: dict) -> list[dict]:
     figures.append({"value": words.fmt_prob(power["estimate"]), "label": label})
     if size.get("clusters_per_arm"):
         figures.append(
-            {"value": _per_arm_text(size["clusters_per_arm"]), "label": "clusters per group"}
+            {"value": _per_arm_text(size["clusters_per_arm"]), "label": "whole clusters per group"}
+        )
+        figures.append(
+            {"value": words.fmt_num(size["mean_cluster_size"]), "label": "people per cluster"}
         )
     return figures
 
@@ -276,6 +286,8 @@ def _step_rows(record: dict) -> list[dict]:
                     "result": _per_arm_text(s["per_arm"]),
                 }
             )
+        elif "unit" in s and (kind != "enrolled" or "clusters_per_arm" in s):
+            rows.append(_cluster_row(s))  # cluster-randomized: each step says its unit
         elif kind == "design_effect":
             clusters = _per_arm_text(s.get("clusters_per_arm"))
             rows.append(
@@ -317,6 +329,83 @@ def _step_rows(record: dict) -> list[dict]:
                 }
             )
     return rows
+
+
+def _de_text(s: dict) -> str:
+    m = words.fmt_num(s.get("analysed_cluster_size", s["mean_cluster_size"]))
+    cv = f"({words.fmt_num(s['cv'])}² + 1) × " if s.get("cv") else ""
+    return f"1 + ({cv}{m} − 1) × {words.fmt_num(s['icc'])} = {words.fmt_num(s['factor'])}"
+
+
+def _cluster_row(s: dict) -> dict:
+    """A step of a cluster-randomized record, its unit said in the result."""
+    kind = s["step"]
+    if kind == "design_effect":
+        if "per_arm_raw" in s:  # solving: individuals by the normal approximation
+            detail = (
+                f"{_de_text(s)}; individuals needed by the normal approximation, "
+                f"{_per_arm_text(s['clusters_per_arm'])} clusters of "
+                f"{words.fmt_num(s['analysed_cluster_size'])} analysed per group"
+            )
+            return {
+                "name": "Design effect",
+                "base": False,
+                "detail": detail,
+                "result": _sizes_text(s["per_arm_raw"]) + " individuals",
+            }
+        return {
+            "name": "Design effect",
+            "base": False,
+            "detail": f"{_de_text(s)}; effective individuals = clusters × "
+            f"{words.fmt_num(s['analysed_cluster_size'])} ÷ design effect",
+            "result": _sizes_text(s["per_arm"]) + " effective individuals",
+        }
+    if kind == "cluster_df":
+        return {
+            "name": "Cluster-level test",
+            "base": False,
+            "detail": f"t test on cluster summaries, {s['df']} df (clusters − 2); "
+            f"power {words.fmt_prob(s['power'])}",
+            "result": _per_arm_text(s["clusters_per_arm"]) + " clusters",
+        }
+    if kind == "simulation":
+        return {
+            "name": "Simulation",
+            "base": False,
+            "detail": f"smallest simulated number of clusters reaching the target; "
+            f"power {words.fmt_prob(s['power'])}",
+            "result": _per_arm_text(s["clusters_per_arm"]) + " clusters",
+        }
+    if kind == "cluster_size":
+        return {
+            "name": "Cluster size",
+            "base": False,
+            "detail": f"{_per_arm_text(s['clusters_per_arm'])} clusters fixed; {_de_text(s)}; "
+            f"{s['df']} df; power {words.fmt_prob(s['power'])}",
+            "result": f"{words.fmt_num(s['mean_cluster_size'])} people per cluster",
+        }
+    if kind == "clusters":
+        return {
+            "name": "Clusters",
+            "base": False,
+            "detail": f"enrolled ÷ mean cluster size {words.fmt_num(s['mean_cluster_size'])}; "
+            f"{s['df']} df",
+            "result": _per_arm_text(s["clusters_per_arm"]) + " clusters",
+        }
+    if kind == "dropout":
+        return {
+            "name": "Dropout",
+            "base": False,
+            "detail": f"{words.fmt_pct(s['rate'])} of each cluster lost",
+            "result": f"{words.fmt_num(s['analysed_cluster_size'])} analysed per cluster",
+        }
+    return {  # enrolled
+        "name": "Enrolled",
+        "base": True,
+        "detail": f"{_per_arm_text(s['clusters_per_arm'])} whole clusters × "
+        f"{words.fmt_num(s['mean_cluster_size'])} people",
+        "result": _per_arm_text(s["per_arm"]) + " people",
+    }
 
 
 def _method_text(record: dict) -> str:

@@ -118,10 +118,40 @@ class HypothesisSchema(Strict):
 
 
 class ClusterSchema(Strict):
-    """Cluster sampling: design effect 1 + (mean_size - 1) * icc."""
+    """Cluster randomization: design effect 1 + ((cv² + 1)·mean_size − 1)·icc, whole clusters."""
 
-    mean_size = Number(Interval(1, None), required=True, description="mean cluster size")
+    mean_size = Number(
+        Interval(1, None),
+        description="mean cluster size (people enrolled per cluster); required unless "
+        "clusters_per_arm is given to solve for it",
+    )
     icc = Number(UNIT_HALF_OPEN, required=True, description="intracluster correlation")
+    cv = Number(
+        Interval(0, 10),
+        default=0.0,
+        description="coefficient of variation of cluster size (0: equal clusters)",
+    )
+    clusters_per_arm = Whole(
+        Interval(2, 100_000),
+        description="fixed clusters per arm: find = sample_size then solves for the cluster size",
+    )
+
+    @validates_schema(pass_original=True, skip_on_field_errors=False)
+    def _size(self, data: dict, original: Any, **kwargs: Any) -> None:
+        if not posted(original, "mean_size") and not posted(original, "clusters_per_arm"):
+            raise ValidationError(
+                {"mean_size": ["is required (or give clusters_per_arm to solve for it)"]}
+            )
+        if posted(original, "mean_size") and posted(original, "clusters_per_arm"):
+            raise ValidationError(
+                {
+                    "clusters_per_arm": [
+                        "cannot be given with mean_size: give mean_size to solve for the number "
+                        "of clusters, or clusters_per_arm to solve for the cluster size; got "
+                        f"{show(original['clusters_per_arm'])}"
+                    ]
+                }
+            )
 
 
 class AdjustmentsSchema(Strict):

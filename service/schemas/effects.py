@@ -185,7 +185,9 @@ class AnovaEffectSchema(EffectBase):
     FORMS = ("cohens_f, groups", "group_means, sd")
     SOLVED = "cohens_f"
     cohens_f = Number(
-        NONNEG, description="Cohen's f: SD of the group means (divisor k) / within SD"
+        NONNEG,
+        description="Cohen's f: SD of the group means around their size-weighted mean, each "
+        "weighted by its share of N (divisor k for equal groups) / within SD",
     )
     groups = Whole(Interval(2, 1000), description="number of groups")
     group_means = NumberList(

@@ -1,4 +1,4 @@
-"""Adjustment steps: Bonferroni, rounding, design effect, dropout, and the reverse for power."""
+"""Adjustment steps: Bonferroni, rounding, dropout, and the reverse for power (clusters: test_cluster)."""
 
 from __future__ import annotations
 
@@ -8,19 +8,6 @@ from hypothesis import strategies as st
 
 from service.engine import adjust
 from tests.engine.questions import make_q
-
-
-def test_design_effect_donner_klar():
-    # formula: Donner & Klar (2000), 1 + (m − 1)·ICC; m = 20, ICC .05 → 1.95; 64 → 125; 7 clusters
-    final, steps, extras = adjust.inflate(
-        [63.77, 63.77], make_q("two_means", adjustments={"cluster": {"mean_size": 20, "icc": 0.05}})
-    )
-    assert final == [125, 125]
-    assert extras == {"clusters_per_arm": [7, 7]}
-    de = steps[1]
-    assert de["step"] == "design_effect" and de["factor"] == 1.95
-    assert de["mean_cluster_size"] == 20 and de["icc"] == 0.05
-    assert steps[0] == {"step": "base", "per_arm_raw": [63.77, 63.77], "per_arm": [64, 64]}
 
 
 @pytest.mark.parametrize(
@@ -37,15 +24,10 @@ def test_dropout_divides_by_retention(n, rate, expected):
     assert final[0] * (1 - rate) >= n
 
 
-def test_steps_are_ordered_base_design_effect_dropout():
-    # common practice, no source: the design effect applies to analysable subjects, dropout last
-    final, steps, _ = adjust.inflate(
-        [64.0],
-        make_q(
-            "two_means", adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}}
-        ),
-    )
-    assert [s["step"] for s in steps] == ["base", "design_effect", "dropout"]
+def test_steps_are_ordered_base_dropout():
+    # common practice, no source: rounding to whole subjects first, dropout last
+    final, steps, _ = adjust.inflate([124.3], make_q("two_means", adjustments={"dropout": 0.2}))
+    assert [s["step"] for s in steps] == ["base", "dropout"]
     assert final == [157]  # 125 / 0.8 = 156.25 → 157
 
 
@@ -72,15 +54,6 @@ def test_deflate_reverses_inflate():
     effective, steps = adjust.deflate([80, 80], make_q("two_means", adjustments={"dropout": 0.2}))
     assert effective == pytest.approx([64.0, 64.0])
     assert [s["step"] for s in steps] == ["enrolled", "dropout"]
-    effective, steps = adjust.deflate(
-        [156, 156],
-        make_q(
-            "two_means", adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}}
-        ),
-    )
-    # formula: 156·0.8 / 1.95 = 64
-    assert effective == pytest.approx([64.0, 64.0])
-    assert steps[-1]["clusters_per_arm"] == [8, 8]
 
 
 def test_deflate_without_adjustments_is_identity():

@@ -2,6 +2,7 @@
 
 import copy
 import json
+import math
 
 import pytest
 
@@ -35,8 +36,11 @@ def test_two_means_reference_answer():
 
 
 def test_adjustments_in_order_cluster_then_dropout():
-    # formula: Donner & Klar (2000) design effect 1 + (20 − 1)·0.05 = 1.95; 64 → 125 per arm,
-    # 7 clusters per arm; then ÷ (1 − 0.2), rounded up (common practice, no source): 125 / 0.8 = 156.25 → 157
+    # formula: dropout 0.2 leaves clusters of 16 analysed, Donner & Klar (2000) design effect
+    # 1 + (16 − 1)·0.05 = 1.75; whole clusters of 20 enrolled; the count is the smallest k whose
+    # cluster-level noncentral t (df 2k − 2, direct scipy) reaches .80
+    from scipy import stats
+
     q = make_q(
         "two_means",
         effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
@@ -44,12 +48,18 @@ def test_adjustments_in_order_cluster_then_dropout():
     )
     record = compute(q)
     names = [s["step"] for s in record["sample_size"]["steps"]]
-    assert names == ["base", "design_effect", "dropout"]
-    de = record["sample_size"]["steps"][1]
-    assert de["factor"] == pytest.approx(1.95)
-    assert de["per_arm"] == [125, 125]
-    assert de["clusters_per_arm"] == [7, 7]
-    assert record["sample_size"]["per_arm"] == [157, 157]
+    assert names == ["base", "dropout", "design_effect", "cluster_df", "enrolled"]
+    de = record["sample_size"]["steps"][2]
+    assert de["factor"] == pytest.approx(1.75)
+
+    def power(k):
+        ncp = 0.5 / math.sqrt(1.75 / 16 * 2 / k)
+        crit = stats.t.isf(0.025, 2 * k - 2)
+        return stats.nct.sf(crit, 2 * k - 2, ncp) + stats.nct.cdf(-crit, 2 * k - 2, ncp)
+
+    k = next(k for k in range(2, 100) if power(k) >= 0.8)
+    assert record["sample_size"]["clusters_per_arm"] == [k, k]
+    assert record["sample_size"]["per_arm"] == [20 * k, 20 * k]
 
 
 def test_bonferroni_split_comes_first():

@@ -38,6 +38,7 @@ def _record_numbers(record: dict) -> set[str]:
                     fmt_count(value) if float(value).is_integer() else fmt_num(value),
                     str(value),
                     f"{value:.2f}",
+                    f"{value:.1f}",  # effective (fractional) sizes are told with one decimal
                     fmt_prob(value),
                     fmt_prob(value, 4),
                     fmt_pct(value).rstrip("%"),
@@ -68,10 +69,11 @@ def test_analytic_contains_each_step(analytic_record):
     # formula: noncentral t at alpha 0.05 / 2 (Bonferroni), d = 0.5, power .80; statsmodels agrees
     raw = TTestIndPower().solve_power(effect_size=0.5, alpha=0.025, power=0.8, ratio=1.0)
     assert steps["base"]["per_arm"] == [math.ceil(raw)] * 2
-    # formula: Donner & Klar (2000) design effect 1 + (20 − 1)·0.05 = 1.95
-    assert steps["design_effect"]["factor"] == pytest.approx(1.95)
-    # common practice, no source: enrol n / (1 − q) after the design effect
-    assert size["per_arm"][0] == math.ceil(steps["design_effect"]["per_arm"][0] / 0.8)
+    # formula: Donner & Klar (2000) design effect with the analysed cluster size after 20%
+    # dropout: 1 + (16 − 1)·0.05 = 1.75; whole clusters of 20 enrolled (clusters × 20 people)
+    assert steps["design_effect"]["factor"] == pytest.approx(1.75)
+    k = size["clusters_per_arm"][0]
+    assert size["per_arm"] == [20 * k, 20 * k]
     for piece in (
         "two-sided significance level of 0.05",
         "Bonferroni over 2 comparisons",
@@ -81,14 +83,16 @@ def test_analytic_contains_each_step(analytic_record):
         "standard deviation of 1",
         f"{math.ceil(raw)} per group",
         f"unrounded {raw:.2f}",
-        "design effect 1.95",
+        "design effect 1.75",
         "mean cluster size 20",
+        "16 analysed after 20% dropout",
         "intracluster correlation 0.05",
-        f"{steps['design_effect']['per_arm'][0]} per group",
+        f"{steps['design_effect']['per_arm_raw'][0]:.2f} individuals per group",
         f"{steps['design_effect']['clusters_per_arm'][0]} clusters per group",
-        "20% dropout",
-        f"{size['per_arm'][0]} per group",
-        f"{fmt_count(size['total'])} are to be enrolled in total",
+        f"{steps['cluster_df']['df']} degrees of freedom",
+        f"{k} clusters per group",
+        f"{size['per_arm'][0]} people per group",
+        f"{fmt_count(size['total'])} are to be enrolled in total in {2 * k} clusters",
         fmt_pct(round(analytic_record["power"]["estimate"], 3)),
         "Northbridge pilot study of 2023",
         analytic_record["method"]["formula"],
@@ -256,8 +260,9 @@ def test_noninferiority_names_the_margin():
 
 def test_the_number_check_catches_a_contradiction(analytic_record):
     # Guard the guard: a per-group size the record does not hold must be flagged.
-    text = justification(analytic_record).replace("192 per group", "191 per group")
-    with pytest.raises(AssertionError, match="191"):
+    text = justification(analytic_record).replace("200 people per group", "199 people per group")
+    assert "199 people" in text
+    with pytest.raises(AssertionError, match="199"):
         _assert_no_foreign_numbers(text, analytic_record)
 
 
@@ -281,4 +286,38 @@ def test_simulated_effect_names_effects_not_sizes():
     assert "at the simulated effect" in text and "Candidate sizes" not in text
     ref = TTestIndPower().solve_power(nobs1=64, power=0.8, alpha=0.05, ratio=1.0)
     assert abs(record["effect"]["value"] - ref) < 0.05
+    _assert_no_foreign_numbers(text, record)
+
+
+def test_cluster_power_and_fixed_clusters_are_told_in_whole_clusters():
+    # Donner & Klar (2000): 8 clusters of 20 per arm; Eldridge, Ashby & Kerry (2006) design
+    # effect 1 + ((0.4² + 1)·16 − 1)·0.05 = 1.878 with 16 analysed per cluster after 20% dropout
+    from service.engine import compute
+
+    record = compute(
+        make_q(
+            "two_means",
+            effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+            per_arm=[160, 160],
+            adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05, "cv": 0.4}},
+        )
+    )
+    text = justification(record)
+    assert "in 8 clusters per group of mean size 20" in text
+    assert "a design effect of 1.878" in text
+    assert "only 8 clusters per arm" in text
+    _assert_no_foreign_numbers(text, record)
+    record = compute(
+        make_q(
+            "two_means",
+            effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+            adjustments={"cluster": {"clusters_per_arm": 12, "icc": 0.05}},
+        )
+    )
+    text = justification(record)
+    size = record["sample_size"]
+    m = size["mean_cluster_size"]
+    assert "12 clusters per group fixed" in text
+    assert "smallest whole cluster size whose cluster-level t test" in text
+    assert f"{fmt_count(12 * m)} people per group" in text
     _assert_no_foreign_numbers(text, record)

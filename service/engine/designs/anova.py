@@ -1,4 +1,9 @@
-"""One-way ANOVA with k equal groups: noncentral F with λ = f²·N."""
+"""One-way ANOVA: noncentral F with λ = Σnᵢ(μᵢ − μ̄_w)²/σ² from the actual group sizes.
+
+With equal groups this is λ = f²·N. With unequal sizes, group means give λ directly (μ̄_w the
+size-weighted mean); Cohen's f alone is read with the size-weighted definition (Cohen 1988,
+§8.2), so λ = f²·N again. The sample-size search keeps equal groups.
+"""
 
 from __future__ import annotations
 
@@ -26,13 +31,36 @@ def _check(q: dict) -> None:
     check_superiority(q, "anova_oneway")
 
 
-def f_power(f: float, per_arm: list[float], alpha: float) -> float:
-    """Return the power of the one-way F test for Cohen's f with the given group sizes."""
+def lambda_power(lam: float, per_arm: list[float], alpha: float) -> float:
+    """Return the power of the one-way F test with noncentrality ``lam`` at the group sizes."""
+    if lam <= 0.0:
+        # Central F: the rejection rate is alpha exactly (scipy's ncf.sf misbehaves at nc = 0).
+        return float(alpha)
     k = len(per_arm)
     total = float(sum(per_arm))
     df1, df2 = k - 1.0, total - k
     crit = stats.f.isf(alpha, df1, df2)
-    return float(min(max(stats.ncf.sf(crit, df1, df2, f * f * total), 0.0), 1.0))
+    return float(min(max(stats.ncf.sf(crit, df1, df2, lam), 0.0), 1.0))
+
+
+def f_power(f: float, per_arm: list[float], alpha: float) -> float:
+    """Return the power for Cohen's f (size-weighted definition): λ = f²·N."""
+    return lambda_power(f * f * float(sum(per_arm)), per_arm, alpha)
+
+
+def means_lambda(means: list[float], sd: float, per_arm: list[float]) -> float:
+    """Return λ = Σnᵢ(μᵢ − μ̄_w)²/σ² with μ̄_w the size-weighted grand mean."""
+    total = math.fsum(per_arm)
+    grand = math.fsum(n * m for n, m in zip(per_arm, means, strict=True)) / total
+    return math.fsum(n * (m - grand) ** 2 for n, m in zip(per_arm, means, strict=True)) / sd**2
+
+
+def _means(q: dict) -> tuple[list[float], float] | None:
+    """Return (group means, sd) when the question gives them, else None."""
+    e = q.get("effect") or {}
+    if e.get("group_means") is None or e.get("sd") is None:
+        return None
+    return [float(m) for m in e["group_means"]], float(e["sd"])
 
 
 def arms(q: dict) -> int:
@@ -68,7 +96,12 @@ def power(q: dict, per_arm: list[float], alpha: float) -> float:
         raise QuestionError(
             "sample_size.per_arm", f"needs one entry per group ({_groups(q)}); got {len(per_arm)}"
         )
-    return f_power(effect_value(q, "cohens_f"), [float(n) for n in per_arm], alpha)
+    sizes = [float(n) for n in per_arm]
+    given = _means(q)
+    if given is not None and len(set(sizes)) > 1:
+        # Equal groups keep λ = f²·N (the same number, digit for digit, as before).
+        return lambda_power(means_lambda(*given, sizes), sizes, alpha)
+    return f_power(effect_value(q, "cohens_f"), sizes, alpha)
 
 
 def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
@@ -90,8 +123,13 @@ def describe(q: dict) -> dict:
         "noncentral F (one-way ANOVA), λ = f²·N",
         "Cohen (1988), ch. 8",
         [
-            "df = (k − 1, N − k) with N the total over k equal groups; f is the SD of the group "
-            "means (divisor k) over the common within-group SD.",
+            "df = (k − 1, N − k) with N the total over k groups; λ = Σnᵢ(μᵢ − μ̄_w)²/σ² from "
+            "the actual group sizes, μ̄_w the size-weighted grand mean.",
+            "Cohen's f is the SD of the group means around their size-weighted mean, each group "
+            "weighted by its share of N (Cohen 1988, §8.2), over the common within-group SD; "
+            "with equal groups this is the plain SD of the means (divisor k). Group means given "
+            "with sd are used directly.",
+            "The sample-size search assumes equal groups.",
             "The F test is two-sided by nature; the sides setting does not apply.",
         ],
     )

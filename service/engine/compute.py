@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, designs
+from . import adjust, designs, implied
 from .errors import BudgetExceeded, EngineError, QuestionError
 from .records import CAUTIONS, RECORD_VERSION, seal, versions
 
@@ -118,6 +118,8 @@ def _check_simulation(q: dict, budget: int | None) -> None:
 
 def _answer(q, design, simulated, progress, cancel, executor) -> dict:
     alpha, bonferroni = adjust.alpha_for(q)
+    # A posted data model is what is simulated: the effect stated is the one it implies.
+    from_data = implied.reconcile(q) if simulated and q["find"] != "effect" else None
     pre_steps = [bonferroni] if bonferroni else []
     record = {
         "record_version": RECORD_VERSION,
@@ -133,7 +135,7 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
     sim = None
     if find == "sample_size":
         solution = None
-        if not simulated or q.get("effect"):
+        if not simulated or (q.get("effect") and from_data is None):
             solution = _analytic_or_none(design, q, alpha, required=not simulated)
         if simulated:
             start = solution.per_arm if solution else None
@@ -186,6 +188,9 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
         if sim.get("events"):
             record["events"] = {**(record["events"] or {}), "simulated": sim["events"]}
         record["warnings"].extend(sim.get("warnings", []))
+        if from_data is not None:
+            record["method"] = dict(record["method"], implied_effect=from_data)
+            record["warnings"].extend(implied.warnings(from_data))
         repro = dict(sim["reproducibility"])
         if q["simulation"].get("data") is None:
             # The formula answer beside the simulated one, when both describe the same normal data

@@ -303,6 +303,11 @@ def _simulation(record: dict) -> str:
     repro, power, sim = record["reproducibility"], record["power"], record["question"]["simulation"]
     search = record.get("search")
     text = _data_model((record.get("method") or {}).get("data"))
+    if (record.get("method") or {}).get("implied_effect"):
+        text += (
+            " The assumed effect stated above is the one this data model implies "
+            "(derived from its arms, not taken from separately posted effect values)."
+        )
     what = "effect" if record["question"]["find"] == "effect" else "size"
     if search:
         text += (

@@ -60,6 +60,7 @@ from .effects import (
     SurvivalEffectSchema,
     TwoMeansEffectSchema,
     TwoProportionsEffectSchema,
+    posts_data_model,
 )
 from .errors import QuestionInvalid
 from .fields import (
@@ -316,7 +317,9 @@ class QuestionSchema(Strict):
         # the effect block (absent: report its required fields)
         effect = data.get("effect")
         if not posted(raw, "effect"):
-            schema = EFFECT_SCHEMAS[design](find=find or "sample_size")
+            schema = EFFECT_SCHEMAS[design](
+                find=find or "sample_size", from_data=posts_data_model(raw, find)
+            )
             missing = schema.validate({})
             for name, messages in missing.items():
                 for message in messages:
@@ -469,14 +472,17 @@ class QuestionSchema(Strict):
         hyp = data.get("hypothesis") or HypothesisSchema().load({})
         kind = hyp["kind"]
         effect = data.get("effect")
-        if effect is None:
-            effect = EFFECT_SCHEMAS[design](find=find).load({})
         sim = data.get("simulation")
         method = data.get("method")
+        if effect is None:
+            from_data = method == "simulation" and (sim or {}).get("data") is not None
+            effect = EFFECT_SCHEMAS[design](
+                find=find, from_data=from_data and find != "effect"
+            ).load({})
         if method is None:
             only_model = (
                 design == "rank_sum"
-                and effect.get("prob_superiority") is None
+                and (effect or {}).get("prob_superiority") is None
                 and sim is not None
                 and sim.get("data") is not None
             )
@@ -490,7 +496,7 @@ class QuestionSchema(Strict):
         formula = data.get("formula")
         if formula is None:
             formula = FORMULAS[design][0]
-            if design == "two_means" and effect["sd_control"] != effect["sd_treatment"]:
+            if design == "two_means" and effect.get("sd_control") != effect.get("sd_treatment"):
                 formula = "welch"
         ratio = data.get("allocation_ratio")
         ratio = 1.0 if ratio is None else ratio

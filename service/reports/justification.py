@@ -355,6 +355,9 @@ def justification(record: dict, context: dict | None = None) -> str:
     phrase = DESIGN_PHRASES.get(design, f"the {design} design")
     what = {"sample_size": "sample size", "power": "power", "effect": "detectable effect"}[find]
     opening = f"The {what} was determined for {phrase}. {_method(record)}"
+    alpha_note = (record.get("method") or {}).get("alpha_note")
+    if alpha_note:
+        opening += f" The test used {alpha_note}."
     power = record["power"]
     test_level = _alpha(q, steps)
     body = ""

@@ -20,7 +20,12 @@ def test_design_effect_donner_klar():
     de = steps[1]
     assert de["step"] == "design_effect" and de["factor"] == 1.95
     assert de["mean_cluster_size"] == 20 and de["icc"] == 0.05
-    assert steps[0] == {"step": "base", "per_arm_raw": [63.77, 63.77], "per_arm": [64, 64]}
+    assert steps[0] == {
+        "step": "base",
+        "per_arm_raw": [63.77, 63.77],
+        "per_arm": [64, 64],
+        "rounding": "each_arm",
+    }
 
 
 @pytest.mark.parametrize(

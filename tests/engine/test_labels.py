@@ -70,11 +70,11 @@ def test_noninferiority_of_proportions_defaults_to_the_farrington_manning_score_
     assert record["sample_size"]["per_arm"] == [math.ceil(n)] * 2
 
 
-def _exact_score_power(n1, n2, p1, p2, margin, alpha):
+def _exact_score_power(n1, n2, p1, p2, margin, alpha, *, upper=True, reject_map=False):
     """Exact rejection probability of the one-sided FM score test by enumerating both binomials.
 
     The restricted MLE of each outcome is found by bisection on the score equation (not the
-    closed form under test).
+    closed form under test). ``upper`` rejects for differences above the margin.
     """
     x1, x2 = np.meshgrid(np.arange(n1 + 1), np.arange(n2 + 1), indexing="ij")
     h1, h2 = x1 / n1, x2 / n2
@@ -88,7 +88,10 @@ def _exact_score_power(n1, n2, p1, p2, margin, alpha):
     q1 = (lo + hi) / 2
     q2 = q1 + margin
     sd0 = np.sqrt(q1 * (1 - q1) / n1 + q2 * (1 - q2) / n2)
-    reject = (h2 - h1 - margin) / sd0 > stats.norm.isf(alpha)
+    stat = (h2 - h1 - margin) / sd0
+    reject = stat > stats.norm.isf(alpha) if upper else stat < -stats.norm.isf(alpha)
+    if reject_map:
+        return reject
     weight = np.outer(
         stats.binom.pmf(np.arange(n1 + 1), n1, p1), stats.binom.pmf(np.arange(n2 + 1), n2, p2)
     )
@@ -284,3 +287,23 @@ def test_exact_ratio_rounding_refuses_where_it_cannot_apply(extra, why):
     with pytest.raises(QuestionInvalid) as err:
         load_question(raw)
     assert why in " ".join(err.value.errors["allocation_rounding"])
+
+
+def test_farrington_manning_equivalence_power_holds_under_exact_enumeration():
+    # Two one-sided score tests at ±0.15, both must reject; exact enumeration computed here.
+    raw = {
+        "design": "two_proportions",
+        "find": "power",
+        "effect": {"p_control": 0.6, "p_treatment": 0.62},
+        "hypothesis": {"kind": "equivalence", "margin": 0.15},
+        "sample_size": {"per_arm": [200, 200]},
+    }
+    record = compute(load_question(raw))
+    assert record["question"]["formula"] == "farrington_manning"
+    low = _exact_score_power(200, 200, 0.6, 0.62, -0.15, 0.025, reject_map=True)
+    high = _exact_score_power(200, 200, 0.6, 0.62, 0.15, 0.025, upper=False, reject_map=True)
+    weight = np.outer(
+        stats.binom.pmf(np.arange(201), 200, 0.6), stats.binom.pmf(np.arange(201), 200, 0.62)
+    )
+    exact = float((weight * (low & high)).sum())
+    assert abs(exact - record["power"]["estimate"]) < 0.02

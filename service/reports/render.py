@@ -282,8 +282,13 @@ def _step_rows(record: dict) -> list[dict]:
             )
         elif kind == "base":
             raw = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_arm_raw"]))
+            rounded = (
+                "rounded up keeping the allocation ratio exact"
+                if s.get("rounding") == "exact_ratio"
+                else "rounded up"
+            )
             detail = (
-                f"solved by the formula: {raw}, rounded up"
+                f"solved by the formula: {raw}, {rounded}"
                 if record["method"].get("kind") == "analytic"
                 else "smallest simulated size reaching the target"
             )

@@ -156,8 +156,12 @@ def test_sample_size_search_starts_from_the_data_model_not_the_effect_fields():
     plan = simulate.plan(q, 0.05)
     m0 = simulate.approximate_m(plan, 0.8)
     assert record["search"]["start"] == [math.ceil(m0)] * 2
-    # and the cost estimate is built from the same approximation
-    assert estimate_cost(q) > 0
+    # and the cost estimate comes from the data model too: the same with or without the fields,
+    # and it follows the arms (a larger shift needs fewer draws)
+    bare = posted(find="sample_size")
+    assert estimate_cost(q) == estimate_cost(bare) > 0
+    wider = dict(LOGNORMAL, treatment={"family": "lognormal", "mu": 0.9, "sigma": 0.7})
+    assert estimate_cost(posted(data=wider, find="sample_size")) < estimate_cost(bare)
 
 
 def test_cauchy_arms_have_no_moments_the_posted_fields_are_flagged_as_not_simulated():

@@ -35,3 +35,12 @@ def test_step_caption_claims_rounding_only_where_it_happened():
     solved = compute(make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1}))
     page = render_report(REQUEST, solved, curve_svg="<svg></svg>")
     assert "every step rounds each group up to whole subjects" in page
+
+
+def test_exact_ratio_rounding_is_named_in_the_steps():
+    q = make_q("two_means", effect=D_HALF, allocation_ratio=3.0, allocation_rounding="exact_ratio")
+    record = compute(q)
+    assert record["sample_size"]["per_arm"] == [43, 129]  # 42.35 / 127.04, ratio kept at 3
+    page = render_report(REQUEST, record, curve_svg="<svg></svg>")
+    assert "rounded up keeping the allocation ratio exact" in page
+    assert "keeping the allocation ratio exact." in page.split("<caption>")[1][:300]

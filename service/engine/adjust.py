@@ -8,6 +8,7 @@ randomization changes the unit (whole clusters, cluster-level df) and lives in c
 from __future__ import annotations
 
 import math
+from fractions import Fraction
 
 # Floating error can leave 64.0000000001 where the algebra says 64; do not round that up to 65.
 _EPS = 1e-9
@@ -43,19 +44,46 @@ def alpha_for(q: dict) -> tuple[float, dict | None]:
     }
 
 
+def ratio_fraction(ratio: float, max_denominator: int = 100) -> Fraction | None:
+    """Return treatment:control ``ratio`` as an exact small fraction, or None when it is not one."""
+    frac = Fraction(float(ratio)).limit_denominator(max_denominator)
+    return frac if abs(float(frac) - float(ratio)) <= 1e-9 * max(1.0, float(ratio)) else None
+
+
+def _whole(values: list[float], q: dict, floor: int = 0) -> list[int]:
+    """Round sizes up to whole subjects, each arm alone or keeping the allocation ratio exact.
+
+    exact_ratio takes the smallest multiple k of the ratio's parts (control c, treatment t with
+    t/c the ratio) with c·k and t·k each at least the size asked for.
+    """
+    if q.get("allocation_rounding") != "exact_ratio" or len(values) != 2:
+        return [max(floor, _ceil(float(x))) for x in values]
+    frac = ratio_fraction(float(q.get("allocation_ratio") or 1.0))
+    if frac is None:  # the schema refuses this; keep each-arm rounding as the safe fallback
+        return [max(floor, _ceil(float(x))) for x in values]
+    c, t = frac.denominator, frac.numerator
+    k = max(_ceil(float(values[0]) / c), _ceil(float(values[1]) / t), _ceil(floor / min(c, t)))
+    return [c * k, t * k]
+
+
 def inflate(raw_per_arm: list[float], q: dict) -> tuple[list[int], list[dict], dict]:
     """Turn raw n per arm into enrolled whole subjects: ceil, ÷ (1 − dropout)."""
     adj = _adjustments(q)
     # Fewer than 2 per arm cannot estimate a variance; small raw answers are lifted to 2.
-    per_arm = [max(2, _ceil(float(x))) for x in raw_per_arm]
+    per_arm = _whole([float(x) for x in raw_per_arm], q, floor=2)
     steps: list[dict] = [
-        {"step": "base", "per_arm_raw": [float(x) for x in raw_per_arm], "per_arm": list(per_arm)}
+        {
+            "step": "base",
+            "per_arm_raw": [float(x) for x in raw_per_arm],
+            "per_arm": list(per_arm),
+            "rounding": q.get("allocation_rounding") or "each_arm",
+        }
     ]
     extras: dict = {}
     rate = adj["dropout"]
     if rate > 0:
         # Enrol n / (1 − q) so that n remain after a fraction q drop out (n·(1 + q) keeps too few).
-        per_arm = [_ceil(n / (1.0 - rate)) for n in per_arm]
+        per_arm = _whole([n / (1.0 - rate) for n in per_arm], q)
         steps.append({"step": "dropout", "rate": rate, "per_arm": list(per_arm)})
     return per_arm, steps, extras
 

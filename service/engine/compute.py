@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, cluster, designs
+from . import adjust, cluster, designs, implied
 from .errors import BudgetExceeded, EngineError, QuestionError
 from .records import CAUTIONS, RECORD_VERSION, seal, versions
 
@@ -118,6 +118,8 @@ def _check_simulation(q: dict, budget: int | None) -> None:
 
 def _answer(q, design, simulated, progress, cancel, executor) -> dict:
     alpha, bonferroni = adjust.alpha_for(q)
+    # A posted data model is what is simulated: the effect stated is the one it implies.
+    from_data = implied.reconcile(q) if simulated and q["find"] != "effect" else None
     pre_steps = [bonferroni] if bonferroni else []
     record = {
         "record_version": RECORD_VERSION,
@@ -146,7 +148,7 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
         sim, power, analysed = part["sim"], part["power"], part["analysed"]
     elif find == "sample_size":
         solution = None
-        if not simulated or q.get("effect"):
+        if not simulated or (q.get("effect") and from_data is None):
             solution = _analytic_or_none(design, q, alpha, required=not simulated)
         if simulated:
             start = solution.per_arm if solution else None
@@ -199,6 +201,9 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
         if sim.get("events"):
             record["events"] = {**(record["events"] or {}), "simulated": sim["events"]}
         record["warnings"].extend(sim.get("warnings", []))
+        if from_data is not None:
+            record["method"] = dict(record["method"], implied_effect=from_data)
+            record["warnings"].extend(implied.warnings(from_data))
         repro = dict(sim["reproducibility"])
         if q["simulation"].get("data") is None and not clustered:
             # The formula answer beside the simulated one, when both describe the same normal data
@@ -207,6 +212,9 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
             if find == "effect":
                 basis = copy.deepcopy(q)
                 basis["effect"][record["effect"]["field"]] = record["effect"]["value"]
+            if q["design"] == "two_proportions" and q["hypothesis"]["kind"] != "superiority":
+                # The simulated z test against a margin is the Wald test: compare like with like.
+                basis = dict(basis, formula="unpooled_z")
             exact = _analytic_or_none_power(design, basis, analysed, alpha)
             if exact is not None:
                 power = dict(power, analytic=exact)
@@ -222,11 +230,30 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
                 formula="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
                 reference="Donner & Klar (2000); Eldridge, Ashby & Kerry (2006)",
             )
+    note = _alpha_note(q)
+    if note:
+        record["method"] = dict(record["method"], alpha_note=note)
     record["power"] = power
     repro["versions"] = versions()
     record["reproducibility"] = repro
     record["warnings"].extend(_warnings(design, q, analysed))
     return record
+
+
+def _alpha_note(q: dict) -> str | None:
+    """Say which level a non-inferiority or equivalence answer used and what guidance expects."""
+    kind = (q.get("hypothesis") or {}).get("kind", "superiority")
+    if kind == "superiority":
+        return None
+    what = "non-inferiority" if kind == "noninferiority" else "equivalence"
+    text = (
+        f"one-sided alpha {q['alpha']:g} for each {what} test; one-sided 0.025 is the level "
+        "regulatory guidance expects of such trials (ICH E9, 1998) and the default when no "
+        "alpha is posted"
+    )
+    if q["alpha"] > 0.025:
+        text += f"; the {q['alpha']:g} used here is above it"
+    return text
 
 
 def _analytic_or_none(design, q, alpha, *, required: bool):
@@ -270,8 +297,43 @@ def _simulate(q, alpha, per_arm, start, executor, progress, cancel) -> dict:
     )
 
 
+# The effect field and its null value per design; find = power at the null is answered (the
+# power is then the size of the test), with the same words for every design and method.
+_NULL = {
+    "two_means": ("difference", lambda e: 0.0),
+    "one_mean": ("difference", lambda e: 0.0),
+    "paired_mean": ("difference", lambda e: 0.0),
+    "two_proportions": ("p_treatment", lambda e: e.get("p_control")),
+    "anova_oneway": ("cohens_f", lambda e: 0.0),
+    "correlation": ("r", lambda e: e.get("r0", 0.0) or 0.0),
+    "rank_sum": ("prob_superiority", lambda e: 0.5),
+    "survival_logrank": ("hazard_ratio", lambda e: 1.0),
+}
+
+
+def null_effect_note(q: dict) -> str | None:
+    """The note for a find = power question whose assumed effect is the null value, else None."""
+    if q.get("find") != "power" or (q.get("hypothesis") or {}).get("kind", "superiority") != (
+        "superiority"
+    ):
+        return None
+    name, null = _NULL[q["design"]]
+    effect = q.get("effect") or {}
+    value = effect.get(name)
+    if value is None or value != null(effect):
+        return None
+    return (
+        f"the assumed effect is the null value (effect.{name} = {value:g}): the power shown is "
+        "the size of the test, the chance of rejecting when there is no effect (alpha for the "
+        "normal and t approximations; the simulated rejection rate for a simulation)"
+    )
+
+
 def _warnings(design, q, per_arm) -> list[str]:
     notes = []
+    null_note = null_effect_note(q)
+    if null_note:
+        notes.append(null_note)
     if per_arm and min(per_arm) < SMALL_ARM:
         notes.append(
             f"fewer than {SMALL_ARM} analysed per arm ({min(per_arm):g}); large-sample approximations "

@@ -443,6 +443,10 @@ def _two_sizes(per_arm) -> list[int]:
     return [int(n) for n in per_arm]
 
 
+# Effect fields a departure's data model implies; the engine derives them from the arms.
+_IMPLIED = frozenset({"difference", "sd", "sd_control", "sd_treatment", "prob_superiority"})
+
+
 def _departure_questions(
     question: dict, per_arm, *, replicates: int, seed: int
 ) -> tuple[str, list[tuple[str, str, dict, dict]]]:
@@ -491,6 +495,8 @@ def _departure_questions(
             method="simulation",
             sample_size={"per_arm": list(sizes)},
         )
+        # Each departure states the effect its own data model implies (it departs on purpose).
+        q["effect"] = {k: v for k, v in (q.get("effect") or {}).items() if k not in _IMPLIED}
         q["simulation"] = {
             "replicates": replicates,
             "seed": seed,
@@ -558,6 +564,7 @@ def robustness(
                 progress((i + min(max(float(f), 0.0), 1.0)) / len(runs))
 
         record = compute(q, executor=executor, progress=step, budget=budget)
+        analysed = [int(math.floor(n + 1e-9)) for n in record["sample_size"]["analysed_per_arm"]]
         departures.append(
             {
                 "name": name,
@@ -573,6 +580,9 @@ def robustness(
     return {
         "design": question["design"],
         "per_arm": sizes,
+        # What the departures simulated: the analysed whole numbers (enrolled less dropout and
+        # design effect, rounded down), which differ from ``per_arm`` when adjustments apply.
+        "analysed_per_arm": analysed,
         "test": test,
         "alpha": question.get("alpha"),
         # The level each simulated test used (per comparison after Bonferroni): the sizes'

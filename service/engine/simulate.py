@@ -19,7 +19,7 @@ from collections.abc import Callable
 import numpy as np
 from scipy import optimize, special, stats
 
-from . import direction, models, search, vectests
+from . import direction, implied, models, search, vectests
 from .designs import TESTS
 from .errors import Cancelled, QuestionError
 
@@ -707,6 +707,14 @@ def approximate_m(plan_: dict, target: float) -> float | None:
             return (num / gap) ** 2 if gap > 0 else None
         var = p1 * (1 - p1) + p2 * (1 - p2) / ratio
         return _shifted_n(p2 - p1, var, rule, za, zb, target)
+    if plan_["test"] == "rank_sum" and len(arms) == 2:
+        # Noether (1987): N = (za + zb)² / (12·c·(1 − c)·(P(Y > X) − ½)²), c the control share;
+        # P(Y > X) comes from the data model itself, so skewed or heavy-tailed arms start well.
+        p_sup = implied.prob_superiority(arms[0], arms[1])
+        c = 1.0 / (1.0 + ratio)
+        if abs(p_sup - 0.5) < 1e-12:
+            return None
+        return c * (za + zb) ** 2 / (12 * c * (1 - c) * (p_sup - 0.5) ** 2)
     mv = [models.moments(a) for a in arms]
     if any(m is None or v is None for m, v in mv):
         return None

@@ -398,6 +398,11 @@ def _simulation(record: dict) -> str:
     repro, power, sim = record["reproducibility"], record["power"], record["question"]["simulation"]
     search = record.get("search")
     text = _data_model((record.get("method") or {}).get("data"))
+    if (record.get("method") or {}).get("implied_effect"):
+        text += (
+            " The assumed effect stated above is the one this data model implies "
+            "(derived from its arms, not taken from separately posted effect values)."
+        )
     what = "effect" if record["question"]["find"] == "effect" else "size"
     if search:
         text += (
@@ -464,6 +469,9 @@ def justification(record: dict, context: dict | None = None) -> str:
     phrase = DESIGN_PHRASES.get(design, f"the {design} design")
     what = {"sample_size": "sample size", "power": "power", "effect": "detectable effect"}[find]
     opening = f"The {what} was determined for {phrase}. {_method(record)}"
+    alpha_note = (record.get("method") or {}).get("alpha_note")
+    if alpha_note:
+        opening += f" The test used {alpha_note}."
     power = record["power"]
     test_level = _alpha(q, steps)
     body = ""

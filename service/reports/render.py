@@ -251,6 +251,31 @@ def _arm_names(q: dict, k: int) -> list[str]:
     return ["control", "treatment"][:k]
 
 
+def _steps_caption(record: dict) -> str:
+    """Say what the step table rounded: only a sample-size answer rounds its steps."""
+    if record["question"]["find"] == "sample_size":
+        base = next((s for s in record["sample_size"]["steps"] if s["step"] == "base"), {})
+        if base.get("rounding") == "exact_ratio":
+            return (
+                "Each step starts from the row above; every step rounds up to whole subjects "
+                "keeping the allocation ratio exact."
+            )
+        return (
+            "Each step starts from the row above; every step rounds each group up to whole "
+            "subjects."
+        )
+    simulated = record["method"].get("kind") == "simulation"
+    return (
+        "Each step starts from the enrolled numbers in the row above; the numbers analysed are "
+        "not rounded"
+        + (
+            " (the simulation ran at the whole numbers at or below them)."
+            if simulated
+            else " (the power formula uses them as they are)."
+        )
+    )
+
+
 def _step_rows(record: dict) -> list[dict]:
     rows = []
     for s in record["sample_size"]["steps"]:
@@ -267,8 +292,13 @@ def _step_rows(record: dict) -> list[dict]:
             )
         elif kind == "base":
             raw = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_arm_raw"]))
+            rounded = (
+                "rounded up keeping the allocation ratio exact"
+                if s.get("rounding") == "exact_ratio"
+                else "rounded up"
+            )
             detail = (
-                f"solved by the formula: {raw}, rounded up"
+                f"solved by the formula: {raw}, {rounded}"
                 if record["method"].get("kind") == "analytic"
                 else "smallest simulated size reaching the target"
             )
@@ -478,6 +508,7 @@ def render_report(
             answer_figures=_answer_figures(record),
             per_arm_heading="Per group" if several else "Number",
             step_rows=_step_rows(record),
+            steps_caption=_steps_caption(record),
             justification=words.justification(record, context),
             curve_svg=Markup(curve_svg),
             sensitivity=sensitivity,

@@ -39,14 +39,20 @@ class EffectBase(Strict):
     # The accepted ways to post the block, for the catalogue (the solved field drops out
     # when find = effect).
     FORMS: tuple = ()
+    # Fields a posted simulation data model implies (the engine derives them from the arms),
+    # so they are optional when one is posted.
+    MODEL_FIELDS: tuple = ()
 
-    def __init__(self, *, find: str = "sample_size", **kwargs: Any):
+    def __init__(self, *, find: str = "sample_size", from_data: bool = False, **kwargs: Any):
         self.find = find
+        self.from_data = from_data
         super().__init__(**kwargs)
 
     def need(self, errors: dict, original: Any, *names: str) -> None:
-        """Record 'is required' for each of ``names`` not posted."""
+        """Record 'is required' for each of ``names`` not posted (nor implied by a data model)."""
         for name in names:
+            if self.from_data and name in self.MODEL_FIELDS:
+                continue
             if not posted(original, name):
                 errors.setdefault(name, []).append(self.fields[name].required_message())
 
@@ -88,6 +94,7 @@ class TwoMeansEffectSchema(EffectBase):
 
     FORMS = ("difference, sd", "difference, sd_control, sd_treatment")
     SOLVED = "difference"
+    MODEL_FIELDS = ("difference", "sd", "sd_control", "sd_treatment")
     difference = Number(description="expected mean difference, treatment - control")
     sd = Number(
         POSITIVE, description="common standard deviation (fills sd_control and sd_treatment)"
@@ -111,8 +118,10 @@ class TwoMeansEffectSchema(EffectBase):
         if data.get("difference") is not None:
             out["difference"] = data["difference"]
         sd = data.get("sd")
-        out["sd_control"] = sd if sd is not None else data["sd_control"]
-        out["sd_treatment"] = sd if sd is not None else data["sd_treatment"]
+        for name in ("sd_control", "sd_treatment"):
+            value = sd if sd is not None else data.get(name)
+            if value is not None:  # absent only when a data model implies it
+                out[name] = value
         return out
 
 
@@ -121,6 +130,7 @@ class OneMeanEffectSchema(EffectBase):
 
     FORMS = ("difference, sd",)
     SOLVED = "difference"
+    MODEL_FIELDS = ("difference", "sd")
     difference = Number(description="expected mean minus the null value")
     sd = Number(POSITIVE, description="standard deviation of one observation")
 
@@ -133,6 +143,7 @@ class PairedMeanEffectSchema(EffectBase):
 
     FORMS = ("difference, sd_difference", "difference, sd, correlation")
     SOLVED = "difference"
+    MODEL_FIELDS = ("difference", "sd_difference", "sd", "correlation")
     difference = Number(description="expected mean of the within-pair differences")
     sd_difference = Number(
         POSITIVE, description="standard deviation of the within-pair differences"
@@ -161,7 +172,7 @@ class PairedMeanEffectSchema(EffectBase):
             out["difference"] = data["difference"]
         if data.get("sd_difference") is not None:
             out["sd_difference"] = data["sd_difference"]
-        else:
+        elif data.get("sd") is not None:
             out["sd_difference"] = data["sd"] * math.sqrt(2.0 * (1.0 - data["correlation"]))
         return out
 
@@ -171,6 +182,7 @@ class TwoProportionsEffectSchema(EffectBase):
 
     FORMS = ("p_control, p_treatment [, continuity_correction]",)
     SOLVED = "p_treatment"
+    MODEL_FIELDS = ("p_control", "p_treatment")
     p_control = Number(UNIT_OPEN, description="event proportion in the control arm")
     p_treatment = Number(UNIT_OPEN, description="event proportion in the treatment arm")
     continuity_correction = Flag(default=False, description="apply the continuity correction")
@@ -352,4 +364,17 @@ class Effect(fields.Dict):
             raise ValidationError(f"must be an object with keys {keys}; {got(value)}")
         if design is None:
             return dict(value)  # the design is invalid and reported on its own field
-        return EFFECT_SCHEMAS[design](find=valid_find(data)).load(value)
+        find = valid_find(data)
+        return EFFECT_SCHEMAS[design](find=find, from_data=posts_data_model(data, find)).load(value)
+
+
+def posts_data_model(raw: Any, find: str | None) -> bool:
+    """True when the raw question simulates a posted data model (its arms imply the effect)."""
+    if not isinstance(raw, Mapping) or find == "effect":
+        return False
+    sim = raw.get("simulation")
+    return (
+        raw.get("method") == "simulation"
+        and isinstance(sim, Mapping)
+        and isinstance(sim.get("data"), Mapping)
+    )

@@ -63,6 +63,7 @@ from .effects import (
     SurvivalEffectSchema,
     TwoMeansEffectSchema,
     TwoProportionsEffectSchema,
+    posts_data_model,
 )
 from .errors import QuestionInvalid
 from .fields import (
@@ -191,8 +192,8 @@ class QuestionSchema(Strict):
     find = Choice(FINDS, load_default="sample_size", description="what to solve for")
     alpha = Number(
         Interval(0, 0.5, low_open=True),
-        default=0.05,
-        description="type I error rate (before any Bonferroni split)",
+        description="type I error rate (before any Bonferroni split); default 0.05, and 0.025 "
+        "(one-sided) for noninferiority and equivalence (ICH E9, 1998)",
     )
     sides = Whole(
         Interval(1, 2),
@@ -210,6 +211,12 @@ class QuestionSchema(Strict):
     allocation_ratio = Number(
         Interval(0, 1000, low_open=True),
         description="treatment:control allocation, default 1 (two-arm designs only)",
+    )
+    allocation_rounding = Choice(
+        ("each_arm", "exact_ratio"),
+        description="how a solved size becomes whole subjects: each_arm (default) rounds every "
+        "arm up on its own; exact_ratio rounds up to the smallest whole sizes in exactly the "
+        "allocation ratio (a ratio that is a fraction with denominator at most 100)",
     )
     effect = Effect(
         allow_none=True,
@@ -256,7 +263,10 @@ class QuestionSchema(Strict):
                 f"is not used when find = power (power is what is solved for); "
                 f"got {show(raw['target_power'])}",
             )
+        hyp_kind = (data.get("hypothesis") or {}).get("kind", "superiority")
         alpha, target = data.get("alpha"), data.get("target_power")
+        if alpha is None:
+            alpha = default_alpha(hyp_kind)
         if alpha is not None and target is not None and not target > alpha:
             put_error(
                 errors,
@@ -295,6 +305,16 @@ class QuestionSchema(Strict):
             raise_errors(errors)
             return
 
+        # The F test has no sides: a posted 1 would be silently ignored. 2 stays accepted only
+        # because the normalized form carries it, so a normalized question loads again unchanged.
+        if design == "anova_oneway" and posted(raw, "sides") and raw["sides"] != 2:
+            put_error(
+                errors,
+                ("sides",),
+                "does not apply to anova_oneway (the F test rejects for large F only, it has no "
+                f"sides); remove it; got {show(raw['sides'])}",
+            )
+
         # 1 is accepted everywhere so a normalized question loads again unchanged.
         if (
             posted(raw, "allocation_ratio")
@@ -308,6 +328,33 @@ class QuestionSchema(Strict):
                 f"got {show(raw['allocation_ratio'])} for design {show(design)}",
             )
 
+        rounding = data.get("allocation_rounding")
+        if rounding == "exact_ratio":
+            why = None
+            if design not in TWO_ARM:
+                why = f"applies only to two-arm designs ({', '.join(TWO_ARM)})"
+            elif find != "sample_size":
+                why = "applies only when find = sample_size (the enrolled numbers are given)"
+            elif posted(raw, "method") and raw.get("method") == "simulation":
+                why = (
+                    "is offered for analytic answers; a simulated search sizes the arms "
+                    "itself (use each_arm)"
+                )
+            elif (data.get("adjustments") or {}).get("cluster") is not None:
+                why = (
+                    "is not offered with a cluster block: clusters are enrolled whole, each arm "
+                    "rounded to whole clusters (use each_arm)"
+                )
+            elif data.get("allocation_ratio") is not None and not _simple_ratio(
+                data["allocation_ratio"]
+            ):
+                why = (
+                    "needs an allocation_ratio that is a fraction with denominator at most 100 "
+                    f"(e.g. 3 or 1.5); got allocation_ratio {show(data['allocation_ratio'])}"
+                )
+            if why:
+                put_error(errors, ("allocation_rounding",), f'{why}; got "exact_ratio"')
+
         formula = data.get("formula")
         if formula is not None and formula not in FORMULAS[design]:
             put_error(
@@ -315,11 +362,23 @@ class QuestionSchema(Strict):
                 ("formula",),
                 f"must be one of {', '.join(FORMULAS[design])} for {design}; {got(formula)}",
             )
+        elif formula is not None and design == "two_proportions" and kind is not None:
+            from service.engine.designs.proportions import APPLIES
+
+            if formula not in APPLIES[kind]:
+                put_error(
+                    errors,
+                    ("formula",),
+                    f"does not apply to a {kind} question of two proportions; use one of "
+                    f"{', '.join(APPLIES[kind])} (default {APPLIES[kind][0]}); {got(formula)}",
+                )
 
         # the effect block (absent: report its required fields)
         effect = data.get("effect")
         if not posted(raw, "effect"):
-            schema = EFFECT_SCHEMAS[design](find=find or "sample_size")
+            schema = EFFECT_SCHEMAS[design](
+                find=find or "sample_size", from_data=posts_data_model(raw, find)
+            )
             missing = schema.validate({})
             for name, messages in missing.items():
                 for message in messages:
@@ -477,14 +536,17 @@ class QuestionSchema(Strict):
         hyp = data.get("hypothesis") or HypothesisSchema().load({})
         kind = hyp["kind"]
         effect = data.get("effect")
-        if effect is None:
-            effect = EFFECT_SCHEMAS[design](find=find).load({})
         sim = data.get("simulation")
         method = data.get("method")
+        if effect is None:
+            from_data = method == "simulation" and (sim or {}).get("data") is not None
+            effect = EFFECT_SCHEMAS[design](
+                find=find, from_data=from_data and find != "effect"
+            ).load({})
         if method is None:
             only_model = (
                 design == "rank_sum"
-                and effect.get("prob_superiority") is None
+                and (effect or {}).get("prob_superiority") is None
                 and sim is not None
                 and sim.get("data") is not None
             )
@@ -498,7 +560,9 @@ class QuestionSchema(Strict):
         formula = data.get("formula")
         if formula is None:
             formula = FORMULAS[design][0]
-            if design == "two_means" and effect["sd_control"] != effect["sd_treatment"]:
+            if design == "two_proportions" and kind != "superiority":
+                formula = "farrington_manning"  # the score test is the default against a margin
+            if design == "two_means" and effect.get("sd_control") != effect.get("sd_treatment"):
                 formula = "welch"
         ratio = data.get("allocation_ratio")
         ratio = 1.0 if ratio is None else ratio
@@ -526,13 +590,14 @@ class QuestionSchema(Strict):
         return {
             "design": design,
             "find": find,
-            "alpha": data["alpha"],
+            "alpha": default_alpha(kind) if data.get("alpha") is None else data["alpha"],
             "sides": sides,
             "target_power": None
             if find == "power"
             else (0.80 if data.get("target_power") is None else data["target_power"]),
             "sample_size": sample_size if find != "sample_size" else None,
             "allocation_ratio": ratio,
+            "allocation_rounding": data.get("allocation_rounding") or "each_arm",
             "effect": effect,
             "hypothesis": hyp,
             "adjustments": adjustments,
@@ -552,6 +617,18 @@ def _implied(design: str, method: str | None, data: Any) -> float | None:
         return direction.implied(design, arms)
     except (KeyError, TypeError, ValueError, ArithmeticError, QuestionError):
         return None  # an invalid data model is reported by its own checks
+
+
+def _simple_ratio(ratio: float) -> bool:
+    from service.engine.adjust import ratio_fraction
+
+    return ratio_fraction(ratio) is not None
+
+
+def default_alpha(kind: str) -> float:
+    """The alpha used when none is posted: 0.05, or one-sided 0.025 for noninferiority and
+    equivalence, the level regulatory guidance expects of such trials (ICH E9, 1998, 5.5)."""
+    return 0.05 if kind == "superiority" else 0.025
 
 
 # ---------------------------------------------------------------------------------------------

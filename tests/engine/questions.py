@@ -98,11 +98,15 @@ def make_q(
         },
         "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1, **(adjustments or {})},
         "method": method,
-        "formula": FORMULAS[design][0],
+        "formula": FORMULAS[design][0],  # NI/equivalence proportions: see below
         "simulation": None,
     }
     if q["hypothesis"]["kind"] != "superiority":
         q["sides"] = 1
+        if design == "two_proportions":
+            # pooled_z does not apply against a margin; the unpooled Wald form keeps the
+            # Chow, Shao & Wang (2008) references of these tests.
+            q["formula"] = "unpooled_z"
     if method == "simulation":
         sim = {**SIMULATION, **(simulation or {})}
         sim["test"] = sim["test"] or TESTS[design][0]

@@ -303,15 +303,16 @@ STAY = {
 
 
 def _rank_sum_power_q(**simulation):
-    return make_q(
+    q = make_q(
         "rank_sum",
-        effect={},
         find="power",
         target_power=None,
         method="simulation",
         per_arm=[60, 60],
         simulation={"test": "rank_sum", "data": STAY, "replicates": 400, "seed": 11, **simulation},
     )
+    q["effect"] = {}  # the data model implies P(Y > X); a different posted value is refused
+    return q
 
 
 def test_rank_sum_panel_starts_with_the_planned_data_and_reproduces_the_record():

@@ -24,7 +24,9 @@ def test_every_design_is_listed_with_formulas_and_tests() -> None:
 def test_ranges_come_from_the_validator() -> None:
     # the catalogue's range for alpha is the one load_question enforces
     alpha = next(f for f in catalogue()["question"] if f["name"] == "alpha")
-    assert alpha["exclusiveMinimum"] == 0 and alpha["maximum"] == 0.5 and alpha["default"] == 0.05
+    assert alpha["exclusiveMinimum"] == 0 and alpha["maximum"] == 0.5
+    # no single default: 0.05, or 0.025 one-sided against a margin (ICH E9, 1998)
+    assert "default" not in alpha and "0.025" in alpha["description"]
     two_means = next(d for d in catalogue()["designs"] if d["name"] == "two_means")
     sd = next(f for f in two_means["effect"]["fields"] if f["name"] == "sd")
     assert sd["exclusiveMinimum"] == 0 and sd["description"]

@@ -23,6 +23,7 @@ def test_defaults_filled_for_a_minimal_question() -> None:
         "target_power": 0.80,  # common practice, no source (DEVELOPERS.md default)
         "sample_size": None,
         "allocation_ratio": 1.0,
+        "allocation_rounding": "each_arm",
         "effect": {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
         "hypothesis": {"kind": "superiority", "margin": None, "higher_is_better": True},
         "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},

@@ -94,7 +94,7 @@ FORMULAS = {
     "two_means": ("student", "welch"),
     "paired_mean": ("noncentral_t",),
     "one_mean": ("noncentral_t",),
-    "two_proportions": ("pooled_z", "unpooled_z", "arcsine"),
+    "two_proportions": ("pooled_z", "unpooled_z", "arcsine", "farrington_manning"),
     "anova_oneway": ("noncentral_f",),
     "correlation": ("fisher_z",),
     "rank_sum": ("noether",),

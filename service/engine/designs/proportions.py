@@ -1,4 +1,5 @@
-"""Two independent proportions: pooled and unpooled z, Fleiss continuity correction, arcsine (h)."""
+"""Two independent proportions: pooled and unpooled z, Fleiss continuity correction, arcsine (h),
+and the Farrington-Manning score test for non-inferiority and equivalence."""
 
 from __future__ import annotations
 
@@ -21,11 +22,15 @@ from .common import (
     two_arms,
 )
 
-# "unpooled_z" is offered for superiority once the registry lists it (the NI/equivalence
-# answers always use the unpooled variance).
-FORMULAS = tuple(_ALL_FORMULAS["two_proportions"]) + tuple(
-    f for f in ("unpooled_z",) if f not in _ALL_FORMULAS["two_proportions"]
-)
+FORMULAS = tuple(_ALL_FORMULAS["two_proportions"])
+# Which formulas answer which hypothesis. The score test with a margin of 0 is the pooled z test,
+# so farrington_manning is offered only against a margin; pooled_z and arcsine only for
+# superiority. The default for non-inferiority and equivalence is farrington_manning.
+APPLIES = {
+    "superiority": ("pooled_z", "unpooled_z", "arcsine"),
+    "noninferiority": ("farrington_manning", "unpooled_z"),
+    "equivalence": ("farrington_manning", "unpooled_z"),
+}
 _EDGE = 1e-9
 
 arms = two_arms
@@ -44,13 +49,14 @@ def _setup(q: dict) -> tuple[str, str, float | None, bool, bool]:
     cc = bool((q.get("effect") or {}).get("continuity_correction", False))
     if kind not in ("superiority", "noninferiority", "equivalence"):
         raise QuestionError("hypothesis.kind", f"'{kind}' is not offered for two_proportions")
-    if kind != "superiority":
-        if margin is None:
-            raise QuestionError("hypothesis.margin", f"is required for a {kind} question")
-        if formula == "arcsine":
-            raise QuestionError(
-                "formula", f"'arcsine' is offered for superiority only; got a {kind} question"
-            )
+    if kind != "superiority" and margin is None:
+        raise QuestionError("hypothesis.margin", f"is required for a {kind} question")
+    if formula not in APPLIES[kind]:
+        raise QuestionError(
+            "formula",
+            f"'{formula}' does not apply to a {kind} question of two proportions; "
+            f"use one of {list(APPLIES[kind])} (default {APPLIES[kind][0]})",
+        )
     if cc and (formula != "pooled_z" or kind != "superiority"):
         raise QuestionError(
             "effect.continuity_correction",
@@ -62,6 +68,42 @@ def _setup(q: dict) -> tuple[str, str, float | None, bool, bool]:
 def _var1(p1: float, p2: float, n1: float, n2: float) -> float:
     """Return the unpooled variance of p̂2 − p̂1."""
     return p1 * (1 - p1) / n1 + p2 * (1 - p2) / n2
+
+
+def restricted_mle(p1: float, p2: float, r: float, margin: float) -> tuple[float, float]:
+    """Return (p̃1, p̃2), the MLE of (control, treatment) under p̃2 − p̃1 = margin.
+
+    Closed-form root of the likelihood cubic (Miettinen & Nurminen 1985; Farrington & Manning
+    1990), evaluated at the expected proportions p1, p2 with n2 = r·n1.
+    """
+    if margin == 0:
+        pooled = (p1 + r * p2) / (1 + r)
+        return pooled, pooled
+    # Parameterised on the treatment arm (a, weight r) against the control arm (b, weight 1).
+    theta = 1.0 / r  # n_control / n_treatment
+    a = 1.0 + theta
+    b = -(1.0 + theta + p2 + theta * p1 + margin * (theta + 2.0))
+    c = margin * margin + margin * (2.0 * p2 + theta + 1.0) + p2 + theta * p1
+    d = -p2 * margin * (1.0 + margin)
+    v = b**3 / (3.0 * a) ** 3 - b * c / (6.0 * a * a) + d / (2.0 * a)
+    u = math.copysign(math.sqrt(max(b * b / (3.0 * a) ** 2 - c / (3.0 * a), 0.0)), v)
+    w = (math.pi + math.acos(max(-1.0, min(1.0, v / u**3 if u else 0.0)))) / 3.0
+    pt = 2.0 * u * math.cos(w) - b / (3.0 * a)
+    pc = pt - margin
+    return min(max(pc, 0.0), 1.0), min(max(pt, 0.0), 1.0)
+
+
+def _fm_power(p1: float, p2: float, n1: float, n2: float, bound: float, upper: bool, z_a: float):
+    """Power of one Farrington-Manning score test of H0: p2 − p1 = bound.
+
+    ``upper`` true rejects for a difference above the bound. The statistic's null SD comes from
+    the restricted MLE, its SD under the truth from p1 and p2.
+    """
+    q1, q2 = restricted_mle(p1, p2, n2 / n1, bound)
+    sd0 = math.sqrt(q1 * (1 - q1) / n1 + q2 * (1 - q2) / n2)
+    sd1 = math.sqrt(_var1(p1, p2, n1, n2))
+    gap = (p2 - p1 - bound) if upper else (bound - (p2 - p1))
+    return float(stats.norm.cdf((gap - z_a * sd0) / sd1))
 
 
 def _power_at(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: float) -> float:
@@ -86,6 +128,15 @@ def _power_at(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: float)
             power += stats.norm.cdf((-diff - k - z_a * sd0) / sd1)
         return float(min(power, 1.0))
     z_a = z(1 - alpha)
+    if formula == "farrington_manning":
+        if kind == "noninferiority":
+            return _fm_power(p1, p2, n1, n2, margin, higher, z_a)
+        both = (
+            _fm_power(p1, p2, n1, n2, -margin, True, z_a)
+            + _fm_power(p1, p2, n1, n2, margin, False, z_a)
+            - 1
+        )
+        return float(max(both, 0.0))
     sd1 = math.sqrt(_var1(p1, p2, n1, n2))
     diff = p2 - p1
     if kind == "noninferiority":
@@ -146,6 +197,15 @@ def solve_n(q: dict, alpha: float) -> Solution:
                 extra["uncorrected_per_arm"] = [n1, r * n1]
                 c = 2 * (r + 1) / (r * n1 * abs(p2 - p1))
                 n1 = n1 / 4 * (1 + math.sqrt(1 + c)) ** 2
+    elif kind == "noninferiority" and formula == "farrington_manning":
+        # Farrington & Manning (1990): n1 = [z_a·√V0 + z_b·√V1]² / (p2 − p1 − margin)², V0 from
+        # the restricted MLE under the margin, V1 from the assumed proportions (per control unit).
+        z_a = z(1 - alpha)
+        q1, q2 = restricted_mle(p1, p2, r, margin)
+        v0 = q1 * (1 - q1) + q2 * (1 - q2) / r
+        v1 = p1 * (1 - p1) + p2 * (1 - p2) / r
+        n1 = (z_a * math.sqrt(v0) + z_b * math.sqrt(v1)) ** 2 / (p2 - p1 - margin) ** 2
+        extra["restricted_mle"] = {"p_control": q1, "p_treatment": q2}
     elif kind == "noninferiority":
         z_a = z(1 - alpha)
         n1 = (z_a + z_b) ** 2 * (p1 * (1 - p1) + p2 * (1 - p2) / r) / (p2 - p1 - margin) ** 2
@@ -226,13 +286,26 @@ def describe(q: dict) -> dict:
         what = (
             "non-inferiority" if kind == "noninferiority" else "equivalence (two one-sided tests)"
         )
+        notes = [
+            f"One-sided tests at alpha against the margin {margin:g} on the difference "
+            "p_treatment − p_control."
+        ]
+        if formula == "farrington_manning":
+            notes.append(
+                "Score test: the variance under H0 uses the maximum-likelihood proportions "
+                "restricted to a difference equal to the margin; under the alternative, the "
+                "assumed proportions."
+            )
+            return analytic_method(
+                f"Farrington-Manning score test (restricted-MLE variance), {what}",
+                "Farrington & Manning (1990), Stat Med 9:1447; Miettinen & Nurminen (1985)",
+                notes,
+            )
+        notes.append("Wald test: the variance under both hypotheses is the unpooled one.")
         return analytic_method(
-            f"normal approximation, unpooled variance, {what}",
+            f"normal approximation (Wald), unpooled variance, {what}",
             "Chow, Shao & Wang (2008), ch. 4",
-            [
-                f"One-sided tests at alpha against the margin {margin:g} on the difference "
-                "p_treatment − p_control."
-            ],
+            notes,
         )
     if formula == "arcsine":
         return analytic_method(

@@ -116,8 +116,12 @@ def _power_at(q: dict, hr: float, per_arm: list[float], alpha: float) -> float:
 
 
 def power(q: dict, per_arm: list[float], alpha: float) -> float:
-    """Return the power from the expected number of events at the given n per arm."""
-    return _power_at(q, _hr(q), per_arm, alpha)
+    """Return the power from the expected number of events at the given n per arm.
+
+    A hazard ratio of 1 is answered: the power is then the size of the test.
+    """
+    hr = effect_value(q, "hazard_ratio")
+    return _power_at(q, 1.0 if hr == 1 else _hr(q), per_arm, alpha)
 
 
 def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:

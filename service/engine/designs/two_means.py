@@ -135,9 +135,13 @@ def solve_n(q: dict, alpha: float) -> Solution:
 
 
 def power(q: dict, per_arm: list[float], alpha: float) -> float:
-    """Return the exact power at the given (possibly fractional) n per arm."""
+    """Return the exact power at the given (possibly fractional) n per arm.
+
+    A zero difference under superiority is answered: the power is then the size of the test.
+    """
     delta = effect_value(q, "difference")
-    _check_effect(q, delta)
+    if not (delta == 0 and hypothesis(q)[0] == "superiority"):
+        _check_effect(q, delta)
     return _power_at(q, delta, float(per_arm[0]), float(per_arm[1]), alpha)
 
 
@@ -173,6 +177,31 @@ def solve_effect(q: dict, per_arm: list[float], alpha: float) -> dict:
     return {"field": "difference", "value": float(value)}
 
 
+def _unequal_sds(q: dict) -> bool:
+    sds = q.get("effect") or {}
+    return sds.get("sd_control") != sds.get("sd_treatment")
+
+
+def warnings_for(q: dict, per_arm: list[float]) -> list[str]:
+    """Warn when the pooled (Student) t test meets unequal SDs: its level is not kept there."""
+    simulated = q.get("method") == "simulation"
+    pooled = (
+        (q.get("simulation") or {}).get("test") == "student_t"
+        if simulated
+        else q.get("formula") == "student"
+    )
+    if not pooled or not _unequal_sds(q):
+        return []
+    what = "test student_t" if simulated else "formula student"
+    e = q["effect"]
+    return [
+        f"{what} assumes equal SDs but the SDs differ ({e['sd_control']:g} vs "
+        f"{e['sd_treatment']:g}): the pooled t test does not hold its level there (its type I "
+        "error grows well above alpha when the larger SD sits in the smaller arm); use Welch "
+        "(formula welch, test welch_t)."
+    ]
+
+
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
     formula = _formula(q)
@@ -184,8 +213,9 @@ def describe(q: dict) -> dict:
     else:
         name = "noncentral t (Student, pooled variance)"
         ref = "Cohen (1988), ch. 2"
-        sds = q.get("effect") or {}
-        if sds.get("sd_control") != sds.get("sd_treatment"):
+        if _unequal_sds(q):
+            # Say what was computed: the pooled label would be wrong here.
+            name = "noncentral t (formula student with unequal SDs: unpooled standard error, n1 + n2 − 2 df)"
             notes.append(
                 "The SDs differ; the Student formula uses their unpooled standard error "
                 "with n1 + n2 − 2 degrees of freedom. Welch is the safer choice."

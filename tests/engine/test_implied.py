@@ -1,0 +1,195 @@
+"""A posted data model states its own effect: derived from the arms, checked against posted fields.
+
+References: lognormal moments E = exp(μ + σ²/2), Var = (exp(σ²) − 1)·exp(2μ + σ²) (formula:
+Johnson, Kotz & Balakrishnan 1994, Continuous Univariate Distributions vol. 1, ch. 14); P(Y > X)
+in closed form for normal, exponential and Cauchy arms (formula: the difference of independent
+normals / Cauchys; the exponential race λx/(λx + λy)); Noether (1987), JASA 82:645, for the
+rank-sum starting n; bernoulli and Poisson ties by exact enumeration computed here with scipy.
+"""
+
+import math
+
+import pytest
+from scipy import stats
+
+from service.engine import compute, estimate_cost, implied, simulate
+from service.engine.errors import QuestionError
+from service.schemas.question import QuestionInvalid, load_question
+
+LOGNORMAL = {
+    "control": {"family": "lognormal", "mu": 1.4, "sigma": 0.7},
+    "treatment": {"family": "lognormal", "mu": 1.15, "sigma": 0.7},
+}
+
+
+def _lognormal(mu, sigma):
+    s2 = sigma * sigma
+    return math.exp(mu + s2 / 2), math.sqrt(math.expm1(s2) * math.exp(2 * mu + s2))
+
+
+def posted(design="two_means", data=LOGNORMAL, effect=None, find="power", per_arm=(100, 100)):
+    raw = {
+        "design": design,
+        "find": find,
+        "method": "simulation",
+        "simulation": {"seed": 911, "replicates": 400, "search_replicates": 400, "data": data},
+    }
+    if effect is not None:
+        raw["effect"] = effect
+    if find == "power":
+        raw["sample_size"] = {"per_arm": list(per_arm)}
+    return load_question(raw)
+
+
+def test_lognormal_arms_state_their_own_difference_and_sds():
+    m1, s1 = _lognormal(1.4, 0.7)
+    m2, s2 = _lognormal(1.15, 0.7)
+    assert (m2 - m1, s1, s2) == pytest.approx((-1.146035, 4.119852, 3.208544), abs=1e-6)
+    record = compute(posted())  # no effect fields: the data model implies them
+    eff = record["question"]["effect"]
+    assert eff["difference"] == pytest.approx(m2 - m1, rel=1e-12)
+    assert eff["sd_control"] == pytest.approx(s1, rel=1e-12)
+    assert eff["sd_treatment"] == pytest.approx(s2, rel=1e-12)
+    block = record["method"]["implied_effect"]
+    assert block["source"] == "simulation.data"
+    assert block["fields"] == ["difference", "sd_control", "sd_treatment"]
+
+
+@pytest.mark.parametrize(
+    "effect, field, shown",
+    [
+        ({"difference": -1, "sd": 3}, "effect.difference", "is -1 but"),
+        ({"difference": 5, "sd": 1}, "effect.difference", "is 5 but"),
+        ({"difference": -1.146, "sd": 3}, "effect.sd_control", "is 3 but"),
+    ],
+)
+def test_effect_fields_that_disagree_with_the_data_model_are_refused(effect, field, shown):
+    with pytest.raises(QuestionError) as err:
+        compute(posted(effect=effect))
+    assert err.value.field == field
+    assert shown in str(err.value) and "implies" in str(err.value)
+
+
+def test_rounded_effect_fields_that_agree_are_accepted_and_kept_in_the_record():
+    record = compute(posted(effect={"difference": -1.15, "sd_control": 4.12, "sd_treatment": 3.21}))
+    block = record["method"]["implied_effect"]
+    assert block["posted"] == {"difference": -1.15, "sd_control": 4.12, "sd_treatment": 3.21}
+    assert record["question"]["effect"]["difference"] == pytest.approx(-1.146035, abs=1e-6)
+
+
+def test_the_justification_states_the_implied_effect():
+    from service.reports.justification import justification
+
+    text = justification(compute(posted()))
+    assert "a difference in means of -1.14604" in text
+    assert "4.11985 (control) and 3.20854 (treatment)" in text
+    assert "the one this data model implies" in text
+
+
+@pytest.mark.parametrize(
+    "control, treatment, exact",
+    [
+        (  # normal: P(Y > X) = Φ(Δ / √(σx² + σy²))
+            {"family": "normal", "mean": 0, "sd": 1},
+            {"family": "normal", "mean": 0.5, "sd": 2},
+            stats.norm.cdf(0.5 / math.sqrt(5)),
+        ),
+        (  # exponential race: P(Y > X) = λx / (λx + λy), λ = 1/scale
+            {"family": "exponential", "scale": 2.0},
+            {"family": "exponential", "scale": 3.0},
+            0.5 / (0.5 + 1 / 3),
+        ),
+        (  # Cauchy: Y − X is Cauchy(Δ, s1 + s2)
+            {"family": "cauchy", "loc": 0, "scale": 1},
+            {"family": "cauchy", "loc": 1, "scale": 2},
+            0.5 + math.atan(1 / 3) / math.pi,
+        ),
+        (  # bernoulli, ties count one half: p2(1 − p1) + ½(p1p2 + (1 − p1)(1 − p2))
+            {"family": "bernoulli", "p": 0.3},
+            {"family": "bernoulli", "p": 0.6},
+            0.6 * 0.7 + 0.5 * (0.3 * 0.6 + 0.7 * 0.4),
+        ),
+    ],
+)
+def test_prob_superiority_matches_closed_forms(control, treatment, exact):
+    assert implied.prob_superiority(control, treatment) == pytest.approx(exact, abs=1e-8)
+
+
+def test_prob_superiority_of_poisson_arms_matches_exact_enumeration():
+    x, y = stats.poisson(3.0), stats.poisson(4.0)
+    exact = sum(
+        y.pmf(k) * (x.cdf(k - 1) + 0.5 * x.pmf(k)) for k in range(0, 80)
+    )  # exact enumeration over the support
+    got = implied.prob_superiority(
+        {"family": "poisson", "mean": 3.0}, {"family": "poisson", "mean": 4.0}
+    )
+    assert got == pytest.approx(exact, abs=1e-10)
+
+
+def test_prob_superiority_of_a_contaminated_arm_is_the_mixture_of_its_parts():
+    control = {"family": "normal", "mean": 0, "sd": 1}
+    wide = {"family": "contaminated_normal", "mean": 0.3, "sd": 1, "contamination": 0.2}
+    wide["sd_factor"] = 5
+    exact = 0.8 * stats.norm.cdf(0.3 / math.sqrt(2)) + 0.2 * stats.norm.cdf(0.3 / math.sqrt(26))
+    assert implied.prob_superiority(control, wide) == pytest.approx(exact, abs=1e-8)
+
+
+def test_rank_sum_states_the_p_its_data_model_implies_and_starts_from_noether():
+    q = posted("rank_sum", find="sample_size")
+    p = stats.norm.cdf(-0.25 / (0.7 * math.sqrt(2)))  # equal-shape lognormals: Φ(Δμ/(σ√2))
+    record = compute(q)
+    assert record["question"]["effect"]["prob_superiority"] == pytest.approx(p, abs=1e-8)
+    # Noether (1987): N = (z.975 + z.80)² / (3·(p − ½)²) in total, equal arms.
+    noether = (stats.norm.ppf(0.975) + stats.norm.ppf(0.8)) ** 2 / (3 * (p - 0.5) ** 2) / 2
+    assert record["search"]["start_source"] == "normal approximation"
+    assert record["search"]["start"][0] == math.ceil(noether)
+
+
+def test_sample_size_search_starts_from_the_data_model_not_the_effect_fields():
+    # The posted fields agree with the arms, so they are accepted, but the start still comes
+    # from the data model's own approximation (the search record says which).
+    q = posted(
+        effect={"difference": -1.146, "sd_control": 4.12, "sd_treatment": 3.21}, find="sample_size"
+    )
+    record = compute(q)
+    assert record["search"]["start_source"] == "normal approximation"
+    plan = simulate.plan(q, 0.05)
+    m0 = simulate.approximate_m(plan, 0.8)
+    assert record["search"]["start"] == [math.ceil(m0)] * 2
+    # and the cost estimate comes from the data model too: the same with or without the fields,
+    # and it follows the arms (a larger shift needs fewer draws)
+    bare = posted(find="sample_size")
+    assert estimate_cost(q) == estimate_cost(bare) > 0
+    wider = dict(LOGNORMAL, treatment={"family": "lognormal", "mu": 0.9, "sigma": 0.7})
+    assert estimate_cost(posted(data=wider, find="sample_size")) < estimate_cost(bare)
+
+
+def test_cauchy_arms_have_no_moments_the_posted_fields_are_flagged_as_not_simulated():
+    data = {
+        "control": {"family": "cauchy", "loc": 0, "scale": 1},
+        "treatment": {"family": "cauchy", "loc": 1, "scale": 1},
+    }
+    record = compute(posted(data=data, effect={"difference": 1, "sd": 1}))
+    block = record["method"]["implied_effect"]
+    assert block["not_implied"] == ["difference", "sd_control", "sd_treatment"]
+    assert "cauchy (loc 1, scale 1)" in block["note"]
+    assert any("could not be checked" in w for w in record["warnings"])
+
+
+def test_exponential_event_times_imply_the_hazard_ratio():
+    data = {
+        "control": {"family": "exponential", "scale": 12 / math.log(2)},
+        "treatment": {"family": "exponential", "scale": 16 / math.log(2)},
+    }
+    effect = {"hazard_ratio": 0.75, "median_control": 12, "accrual_period": 12, "follow_up": 12}
+    record = compute(posted("survival_logrank", data=data, effect=effect))
+    assert record["question"]["effect"]["hazard_ratio"] == pytest.approx(0.75, rel=1e-12)
+    with pytest.raises(QuestionError) as err:
+        compute(posted("survival_logrank", data=data, effect=dict(effect, hazard_ratio=0.6)))
+    assert err.value.field == "effect.hazard_ratio"
+
+
+def test_effect_fields_stay_required_without_a_data_model():
+    with pytest.raises(QuestionInvalid) as err:
+        load_question({"design": "two_means", "method": "simulation", "simulation": {"seed": 1}})
+    assert "effect.difference" in err.value.errors or "effect.sd" in err.value.errors

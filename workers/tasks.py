@@ -219,7 +219,12 @@ def run_request_job(
         row = session.get(Request, request_id)
         question = row.question
         attempts = row.attempts
-        _event(session, request_id, "running", {"owner": owner, "attempt": attempts})
+        _event(
+            session,
+            request_id,
+            "running",
+            {"owner": owner, "attempt": attempts, "status": "running"},
+        )
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
     started = utcnow()

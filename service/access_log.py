@@ -5,10 +5,12 @@ token travels in the Authorization header; anyone who can read a log line holdin
 open the report (or call the API) as its holder. ``RedactingAccessLogger`` is gunicorn's logger
 with every such value replaced by ``[redacted]`` in whatever the log format prints (request
 line, query, referrer, headers, environment), so no format setting can bring them back.
+``RedactingFilter`` does the same for werkzeug's request log (the development server).
 """
 
 from __future__ import annotations
 
+import logging
 import re
 from urllib.parse import unquote_plus
 
@@ -55,3 +57,24 @@ class RedactingAccessLogger(Logger):
             elif isinstance(value, str) and "=" in value:
                 atoms[key] = redact_query(value)
         return atoms
+
+
+class RedactingFilter(logging.Filter):
+    """A logging filter that redacts secret query values from a record's message and arguments."""
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        """Rewrite the record in place; never drop it."""
+        if isinstance(record.msg, str):
+            record.msg = redact_query(record.msg)
+        if isinstance(record.args, tuple):
+            record.args = tuple(
+                redact_query(a) if isinstance(a, str) and "=" in a else a for a in record.args
+            )
+        return True
+
+
+def redact_werkzeug_log() -> None:
+    """Install ``RedactingFilter`` on werkzeug's request logger, once."""
+    logger = logging.getLogger("werkzeug")
+    if not any(isinstance(f, RedactingFilter) for f in logger.filters):
+        logger.addFilter(RedactingFilter())

@@ -226,6 +226,23 @@ def test_the_access_logger_redacts_links_referrers_and_credentials():
     assert atoms["{authorization}i"] == REDACTED
 
 
+def test_the_development_servers_request_log_is_redacted(app, caplog):
+    """werkzeug's request logger (``flask run``) gets the same redaction once the app exists."""
+    import logging
+
+    signature = "7" * 64
+    with caplog.at_level(logging.INFO, logger="werkzeug"):
+        logging.getLogger("werkzeug").info(
+            '%s - - [%s] "%s" %s %s',
+            "127.0.0.1",
+            "02/Dec/2026 03:00:00",
+            f"GET /v1/requests/{'a' * 32}/report?link={'a' * 32}.1900000000.{signature} HTTP/1.1",
+            "200",
+            "-",
+        )
+    assert caplog.records and signature not in caplog.text and "link=[redacted]" in caplog.text
+
+
 # --- failures in words -----------------------------------------------------------------------
 
 

@@ -37,4 +37,8 @@ def create_app(config: dict | None = None) -> Flask:
         "sessions": make_sessionmaker(engine),
     }
     register_api(app)
+    # The development server logs request lines; report-link secrets must not reach them.
+    from service.access_log import redact_werkzeug_log
+
+    redact_werkzeug_log()
     return app

@@ -237,6 +237,16 @@ def _database_session() -> Iterator[Any]:
         engine.dispose()
 
 
+def _cli_actor() -> str:
+    """The audit actor of a command run on the database's machine: 'cli:<login>'."""
+    import getpass
+
+    try:
+        return f"cli:{getpass.getuser()}"
+    except (KeyError, OSError):  # no login name in a bare container
+        return "cli"
+
+
 def _stamp(value) -> str:
     return value.isoformat(timespec="seconds") if value is not None else "-"
 
@@ -264,7 +274,10 @@ def tokens_command(args: argparse.Namespace) -> int:
         if args.action == "create":
             try:
                 token_id, secret = tokens.create_token(
-                    session, args.role, args.name if args.name is not None else args.role
+                    session,
+                    args.role,
+                    args.name if args.name is not None else args.role,
+                    actor=_cli_actor(),
                 )
             except tokens.TokenInputError as exc:
                 raise InputError(str(exc)) from None
@@ -279,7 +292,7 @@ def tokens_command(args: argparse.Namespace) -> int:
                     f"  last used {_stamp(row.last_used_at)}  {row.name}"
                 )
         else:
-            row = tokens.revoke_token(session, args.token_id)
+            row = tokens.revoke_token(session, args.token_id, actor=_cli_actor())
             if row is None:
                 raise InputError(f"no token with id {args.token_id!r}")
             lines.append(f"revoked {row.id} ({row.name}, {row.role}) at {_stamp(row.revoked_at)}")
@@ -289,49 +302,56 @@ def tokens_command(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def audit_report(session) -> tuple[bool, str]:
-    """Check the audit hash chain and every stored result record; return (intact, message)."""
-    from sqlalchemy import func, select
+def audit_report(session, anchors=None):
+    """Verify the audit trail and every stored row against it; return the verification Report."""
+    from service.store.verify import verify_store
 
-    from service.engine import verify
-    from service.store.audit import verify_chain
-    from service.store.models import AuditEvent, Result
-
-    events = session.scalar(select(func.count()).select_from(AuditEvent)) or 0
-    broken = verify_chain(session)
-    if broken:
-        event = session.get(AuditEvent, broken[0])
-        return False, (
-            f"audit trail broken at event {event.id} ({event.action}, request "
-            f"{event.request_id}): its hash or its link to the previous event does not match; "
-            f"{len(broken)} of {events} events fail"
-        )
-    results = 0
-    for row in session.scalars(select(Result).order_by(Result.id)):
-        results += 1
-        record = row.record if isinstance(row.record, dict) else {}
-        stored = record.get("reproducibility", {}).get("record_sha256")
-        try:
-            intact = verify(record) and row.record_sha256 == stored
-        except (TypeError, ValueError):  # not even canonical JSON any more
-            intact = False
-        if not intact:
-            return False, (
-                f"result record of request {row.request_id} (result {row.id}) was altered: "
-                f"its content no longer matches its stored hash {row.record_sha256}"
-            )
-    return True, f"audit trail intact: {events} events, {results} results"
+    return verify_store(session, anchors)
 
 
-@subcommand("audit", "check the audit trail", arg("action", choices=("verify",), help="what to do"))
+@subcommand(
+    "audit",
+    "check the audit trail",
+    arg("action", choices=("verify",), help="what to do"),
+    arg(
+        "--anchor",
+        metavar="FILE",
+        help="anchor file kept outside the database: the chain must still contain every head "
+        "recorded there, and the new head is appended once the check passes",
+    ),
+)
 def audit_command(args: argparse.Namespace) -> int:
-    """Walk the audit hash chain and re-hash every stored result; exit 1 at the first break."""
+    """Check the chain, every question, result, status and token against it; exit 1 on findings.
+
+    Prints one line per finding, the rows too old to be covered, the summary and the anchor
+    (head event id and hash) an auditor keeps to detect deleted events at the next run.
+    """
+    from pathlib import Path
+
+    from service.store.verify import AnchorFileError, append_anchor, read_anchors
+
+    path = Path(args.anchor) if args.anchor else None
+    try:
+        anchors = read_anchors(path) if path is not None else []
+    except AnchorFileError as exc:
+        raise InputError(str(exc)) from None
     with _database_session() as session:
-        intact, message = audit_report(session)
-    if not intact:
-        print(f"sizewise: {message}", file=sys.stderr)
+        report = audit_report(session, anchors)
+    for finding in report.findings:
+        print(f"sizewise: {finding}", file=sys.stderr)
+    for what, ids in report.not_covered.items():
+        shown = ", ".join(ids[:5]) + (f" and {len(ids) - 5} more" if len(ids) > 5 else "")
+        print(
+            f"not covered (recorded before the audit events held their hashes): {len(ids)} {what}: {shown}"
+        )
+    print(report.summary())
+    if report.head is not None:
+        print(f"anchor: event {report.head.event} sha256 {report.head.sha256}")
+    if not report.intact:
         return EXIT_ENGINE
-    print(message)
+    if path is not None and report.head is not None:
+        append_anchor(path, report.head)
+        print(f"anchor appended to {path} ({len(anchors)} earlier anchor(s) still in the chain)")
     return EXIT_OK
 
 

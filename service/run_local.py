@@ -38,6 +38,9 @@ API_COMMAND: tuple[str, ...] = (
     "20",
     "--access-logfile",
     "-",
+    # Report-link signatures and bearer tokens never reach the access log.
+    "--logger-class",
+    "service.access_log.RedactingAccessLogger",
     "service:create_app()",
 )
 WORKER_COMMAND: tuple[str, ...] = (
@@ -131,7 +134,7 @@ def prepare(env: Mapping[str, str]) -> str:
     from service.config import ensure_broker_folders, load_config
     from service.store.migrate import upgrade
 
-    Path(env["SIZEWISE_VAR_DIR"]).mkdir(parents=True, exist_ok=True)
+    Path(env["SIZEWISE_VAR_DIR"]).mkdir(mode=0o700, parents=True, exist_ok=True)
     # The launcher's own settings are its children's: load_config() reads os.environ.
     os.environ.update(env)
     config = load_config()
@@ -148,6 +151,13 @@ def prepare(env: Mapping[str, str]) -> str:
             return ensure_demo_token(session)
     finally:
         engine.dispose()
+
+
+def open_private_log(path: Path):
+    """Open a log for appending, readable by its owner only (0600), tightening an older one."""
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
+    os.fchmod(fd, 0o600)
+    return os.fdopen(fd, "ab")
 
 
 def _die_with_parent() -> None:
@@ -172,9 +182,9 @@ class Supervisor:
         Its output goes to var/logs/<name>.log, so the banner on the terminal stays readable.
         """
         logs = Path(env["SIZEWISE_VAR_DIR"]) / "logs"
-        logs.mkdir(parents=True, exist_ok=True)
+        logs.mkdir(mode=0o700, parents=True, exist_ok=True)
         log_path = logs / f"{name}.log"
-        with open(log_path, "ab") as log_file:
+        with open_private_log(log_path) as log_file:
             # A signal to the launcher's group (Ctrl-C, kill -TERM -pgid) would otherwise also
             # hit the worker's pool processes directly and kill their jobs, not a warm shutdown.
             self.children[name] = subprocess.Popen(
@@ -268,7 +278,7 @@ def print_report_links(port: int) -> None:
     from sqlalchemy import select
 
     from service import demo
-    from service.api.auth import link_key, sign_link
+    from service.api.auth import link_generation, link_key, sign_link
     from service.config import load_config
     from service.store.db import make_engine, make_sessionmaker, session_scope
     from service.store.models import Request
@@ -279,9 +289,12 @@ def print_report_links(port: int) -> None:
     engine = make_engine(config["DATABASE_URL"])
     try:
         with session_scope(make_sessionmaker(engine)) as session:
-            rows = session.execute(
-                select(Request.id, Request.protocol_id).where(Request.idempotency_key.in_(keys))
-            ).all()
+            rows = [
+                (request_id, protocol_id, link_generation(session, request_id))
+                for request_id, protocol_id in session.execute(
+                    select(Request.id, Request.protocol_id).where(Request.idempotency_key.in_(keys))
+                )
+            ]
     finally:
         engine.dispose()
     if not rows:
@@ -290,8 +303,8 @@ def print_report_links(port: int) -> None:
     key = link_key(config)
     expires = utcnow() + timedelta(hours=24)
     print("demo reports (browser links, valid 24 h; each opens once its request is computed):")
-    for request_id, protocol_id in sorted(rows, key=lambda r: r[1]):
-        token = sign_link(key, request_id, expires)
+    for request_id, protocol_id, generation in sorted(rows, key=lambda r: r[1]):
+        token = sign_link(key, request_id, expires, generation)
         print(
             f"  {protocol_id}: http://127.0.0.1:{port}/v1/requests/{request_id}/report?link={token}"
         )
@@ -304,6 +317,9 @@ def print_report_links(port: int) -> None:
 
 def main() -> int:
     """Prepare var/, start a Celery worker and the API, and supervise them until told to stop."""
+    # Everything the launcher and its children create under var/ (database, logs, broker
+    # messages, the link key) is for the service's user only.
+    os.umask(0o077)
     env = local_environment()
     port = int(env["SIZEWISE_PORT"])
     sup = Supervisor()

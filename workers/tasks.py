@@ -26,6 +26,7 @@ from sqlalchemy.orm import sessionmaker
 
 from service.engine import Cancelled, EngineError, canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
+from service.engine.errors import describe_failure
 from service.engine.records import differences
 from service.store import analyses, audit, jobs
 from service.store.db import make_engine, make_sessionmaker, session_scope
@@ -188,9 +189,12 @@ def run_claimed(
                 ended = jobs.cancel(session, kind, job_id, owner)
             return "cancelled" if ended else "lost"
         message = str(exc)
+        if exc.__cause__ is not None:  # an unforeseen numeric failure: the words go to the user
+            log.warning("%s %s: %s", kind, job_id, message, exc_info=exc.__cause__)
     except Exception as exc:  # a defect, not bad input: record it rather than retry forever
+        # The exception (name, traceback) is for the logs; the stored error is in words.
         log.exception("%s %s: unexpected error", kind, job_id)
-        message = f"internal error ({type(exc).__name__}): {exc}"
+        message = f"the computation failed: {describe_failure(exc)}"
     else:
         return store(value)
 
@@ -219,7 +223,12 @@ def run_request_job(
         row = session.get(Request, request_id)
         question = row.question
         attempts = row.attempts
-        _event(session, request_id, "running", {"owner": owner, "attempt": attempts})
+        _event(
+            session,
+            request_id,
+            "running",
+            {"owner": owner, "attempt": attempts, "status": "running"},
+        )
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
     started = utcnow()

@@ -7,6 +7,7 @@ from flask import Flask
 from . import calculations, health, openapi, reports, requests, tokens
 from .auth import init_auth
 from .errors import register_error_handlers
+from .headers import init_headers
 
 
 def register_api(app: Flask) -> None:
@@ -15,3 +16,4 @@ def register_api(app: Flask) -> None:
         app.register_blueprint(module.bp)
     register_error_handlers(app)
     init_auth(app)
+    init_headers(app)

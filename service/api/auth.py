@@ -6,7 +6,8 @@ without an entry fails. Only the probes in ``PUBLIC`` need no token.
 
 A browser cannot send a bearer header, so a reader may ask for a signed report link
 (``?link=<request id>.<expiry>.<HMAC-SHA256>``, valid 24 h); it opens only the three
-``LINK_ENDPOINTS`` of that one request.
+``LINK_ENDPOINTS`` of that one request. Revoking a request's links (an audited event) changes
+the key of every signature checked from then on, so every link issued before stops working.
 
     401  no token, not a Bearer token, unknown or revoked token (with WWW-Authenticate: Bearer);
          a report link that is malformed, altered or expired
@@ -21,6 +22,7 @@ import hashlib
 import hmac
 import math
 import os
+import re
 import secrets
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -71,6 +73,8 @@ ACCESS: dict[str, frozenset[str]] = {
     "reports.curve_png": READERS,
     "reports.staff_requests": frozenset({STATISTICIAN, AUDITOR}),
     "reports.create_report_link": READERS,
+    # Whoever may issue a request's links may revoke them (intake: only its own requests).
+    "reports.revoke_report_links": READERS,
     "reports.analyses.create_analysis": REVIEWERS,
     "reports.analyses.list_analyses": READERS,
     "reports.analyses.get_analysis": READERS,
@@ -86,6 +90,9 @@ LINK_PARAM = "link"
 LINK_LIFETIME = timedelta(hours=24)
 LINK_ROLE = "report link"
 LINK_KEY_FILE = "secret_key"
+# The audit action that revokes every report link of a request issued until then.
+LINKS_REVOKED = "report_links_revoked"
+_REQUEST_ID = re.compile(r"^[0-9a-f]{32}$")
 LIMITER_EXTENSION = "sizewise_limiter"
 BUDGET_WINDOW = timedelta(hours=1)
 
@@ -152,7 +159,7 @@ def link_key(config: dict[str, Any]) -> bytes:
         return configured.encode("utf-8")
     folder = Path(os.environ.get("SIZEWISE_VAR_DIR") or Path(__file__).resolve().parents[2] / "var")
     path = folder / LINK_KEY_FILE
-    folder.mkdir(parents=True, exist_ok=True)
+    folder.mkdir(mode=0o700, parents=True, exist_ok=True)
     try:
         # O_EXCL: of several processes starting at once exactly one writes the key; all read it.
         fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
@@ -164,23 +171,46 @@ def link_key(config: dict[str, Any]) -> bytes:
     return path.read_text().strip().encode("utf-8")
 
 
-def _signature(key: bytes, request_id: str, expires: int) -> str:
-    return hmac.new(key, f"{request_id}.{expires}".encode(), hashlib.sha256).hexdigest()
+def _signature(key: bytes, request_id: str, expires: int, generation: int = 0) -> str:
+    # Generation 0 signs exactly what links signed before revocation existed, so they still work.
+    message = f"{request_id}.{expires}" + (f".{generation}" if generation else "")
+    return hmac.new(key, message.encode(), hashlib.sha256).hexdigest()
 
 
-def sign_link(key: bytes, request_id: str, expires_at: datetime) -> str:
-    """Return the link token for ``request_id`` valid until ``expires_at`` (whole seconds)."""
+def sign_link(key: bytes, request_id: str, expires_at: datetime, generation: int = 0) -> str:
+    """Return the link token for ``request_id`` valid until ``expires_at`` (whole seconds).
+
+    ``generation`` is how many times the request's links were revoked: a revocation changes
+    what a valid signature is, so every link signed before it stops working.
+    """
     expires = int(expires_at.timestamp())
-    return f"{request_id}.{expires}.{_signature(key, request_id, expires)}"
+    return f"{request_id}.{expires}.{_signature(key, request_id, expires, generation)}"
 
 
-def report_link(request_id: str, now: datetime | None = None) -> dict[str, Any]:
+def link_generation(session, request_id: str) -> int:
+    """How many times the request's report links were revoked (its audit events say)."""
+    from sqlalchemy import func, select
+
+    from service.store.models import AuditEvent
+
+    return int(
+        session.scalar(
+            select(func.count())
+            .select_from(AuditEvent)
+            .where(AuditEvent.request_id == request_id, AuditEvent.action == LINKS_REVOKED)
+        )
+        or 0
+    )
+
+
+def report_link(request_id: str, generation: int, now: datetime | None = None) -> dict[str, Any]:
     """Return a signed URL of the request's report page and when it expires (24 h from now)."""
     from flask import current_app
 
     now = now or utcnow()
     expires_at = datetime.fromtimestamp(int((now + LINK_LIFETIME).timestamp()), UTC)
-    token = sign_link(current_app.extensions["sizewise"]["link_key"], request_id, expires_at)
+    key = current_app.extensions["sizewise"]["link_key"]
+    token = sign_link(key, request_id, expires_at, generation)
     return {
         "url": f"/v1/requests/{request_id}/report?{LINK_PARAM}={token}",
         "expires_at": expires_at,
@@ -209,7 +239,22 @@ def _link_caller(token: str) -> Caller:
         )
     linked, expires_text, signature = parts
     key = current_app.extensions["sizewise"]["link_key"]
-    if not hmac.compare_digest(signature, _signature(key, linked, int(expires_text))):
+    generation = 0
+    if _REQUEST_ID.match(linked):
+        with session_scope(sessions()) as session:
+            generation = link_generation(session, linked)
+    expires = int(expires_text)
+    if not hmac.compare_digest(signature, _signature(key, linked, expires, generation)):
+        if any(
+            hmac.compare_digest(signature, _signature(key, linked, expires, older))
+            for older in range(generation)
+        ):
+            raise _link_refused(
+                "this report link was revoked (every link of the request issued before the "
+                f"revocation stopped working); ask for a new one with POST "
+                f"/v1/requests/{linked}/report-links",
+                "revoked",
+            )
         raise _link_refused(
             "the report link's signature does not match: it was altered or signed with another key",
             "signature does not match",

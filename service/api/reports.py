@@ -7,18 +7,21 @@ The report and the curve also open with a signed ``?link=`` instead of a bearer 
 from __future__ import annotations
 
 from flask import Blueprint, Response, jsonify, request
+from marshmallow import Schema, fields
 
 from service.reports.plots import curve_points, power_curve_png, power_curve_svg, sensitivity_svg
 from service.reports.render import render_report, render_staff_list
 from service.schemas.requests import ReportLinkSchema, RequestQueryArgsSchema
 from service.store import analyses as analysis_store
+from service.store.audit import append_event
 from service.store.db import session_scope
 
 from . import analyses, render
-from .auth import LINK_PARAM, report_link
+from .auth import LINK_PARAM, LINKS_REVOKED, link_generation, report_link
 from .context import sessions
 from .docs import operation
 from .errors import Conflict, ValidationFailed
+from .identity import current_actor
 from .io import reject_query
 from .views import load_request, visible_request_page
 
@@ -119,11 +122,63 @@ def curve_png(request_id: str):
     errors=(404, 422, 500, 503),
 )
 def create_report_link(request_id: str):
-    """Issue a signed report link for a request the caller may read."""
+    """Issue a signed report link for a request the caller may read (recorded, never its secret)."""
     reject_query()
     with session_scope(sessions()) as session:
         load_request(session, request_id)
-    return jsonify(_LINK_SCHEMA.dump(report_link(request_id))), 201
+        generation = link_generation(session, request_id)
+        link = report_link(request_id, generation)
+        append_event(
+            session,
+            request_id=request_id,
+            actor=current_actor(),
+            action="report_link_issued",
+            detail={"expires_at": link["expires_at"].isoformat(), "generation": generation},
+        )
+    return jsonify(_LINK_SCHEMA.dump(link)), 201
+
+
+class ReportLinksRevokedSchema(Schema):
+    """The answer to a revocation: from when and how many times the links were revoked."""
+
+    request_id = fields.String(required=True)
+    revoked_at = fields.AwareDateTime(required=True)
+    revocations = fields.Integer(
+        required=True,
+        metadata={"description": "How many times this request's links have been revoked."},
+    )
+
+
+@bp.post("/requests/<request_id>/report-links/revoke")
+@operation(
+    "Revoke every report link of the request issued so far",
+    tag="reports",
+    response=ReportLinksRevokedSchema,
+    description=(
+        "Every link issued before this call stops working at once (401, 'revoked'), even "
+        "before its 24 hours are up; links issued afterwards work. Recorded in the audit trail."
+    ),
+    errors=(401, 403, 404, 422, 429, 500, 503),
+)
+def revoke_report_links(request_id: str):
+    """Revoke the request's report links: an audited event that changes every valid signature."""
+    reject_query()
+    with session_scope(sessions()) as session:
+        load_request(session, request_id)
+        revocations = link_generation(session, request_id) + 1
+        event = append_event(
+            session,
+            request_id=request_id,
+            actor=current_actor(),
+            action=LINKS_REVOKED,
+            detail={"generation": revocations},
+        )
+        revoked_at = event.created_at
+    return jsonify(
+        ReportLinksRevokedSchema().dump(
+            {"request_id": request_id, "revoked_at": revoked_at, "revocations": revocations}
+        )
+    )
 
 
 @bp.get("/staff/requests")

@@ -15,6 +15,7 @@ from service.store.models import TOKEN_ROLES, ApiToken
 from .context import sessions
 from .docs import operation
 from .errors import NotFound, ValidationFailed
+from .identity import current_actor
 from .io import load_body, reject_query
 
 bp = Blueprint("tokens", __name__, url_prefix="/v1")
@@ -61,6 +62,10 @@ class TokenListSchema(Schema):
 _TOKEN = TokenSchema()
 
 
+def _actor() -> str:
+    return current_actor()
+
+
 def _render(row: ApiToken) -> dict:
     return _TOKEN.dump(row)
 
@@ -80,7 +85,9 @@ def create_token():
     _raw, data = load_body(TokenCreateSchema())
     try:
         with session_scope(sessions()) as session:
-            token_id, secret = store.create_token(session, data["role"], data["name"])
+            token_id, secret = store.create_token(
+                session, data["role"], data["name"], actor=_actor()
+            )
             body = _render(store.get_token(session, token_id))
     except store.TokenInputError as exc:
         raise ValidationFailed(str(exc), errors={exc.field: [str(exc)]}) from None
@@ -117,7 +124,11 @@ def revoke_token(token_id: str):
     """Revoke the token and return it."""
     reject_query()
     with session_scope(sessions()) as session:
-        row = store.revoke_token(session, token_id) if _ID_PATTERN.match(token_id) else None
+        row = (
+            store.revoke_token(session, token_id, actor=_actor())
+            if _ID_PATTERN.match(token_id)
+            else None
+        )
         if row is None:
             raise NotFound(f"no token with id '{token_id}'")
         return jsonify(_render(row))

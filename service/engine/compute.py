@@ -13,7 +13,7 @@ import secrets
 from collections.abc import Callable
 
 from . import adjust, cluster, designs, implied
-from .errors import BudgetExceeded, EngineError, QuestionError
+from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, versions
 
 Executor = Callable[[list[dict]], list[dict]]
@@ -78,7 +78,8 @@ def compute(
         # the caller's own failure (lost lease, database down) goes back untouched
         raise exc.original from None
     except Exception as exc:  # numerics failing in an unforeseen corner still get a typed error
-        raise EngineError(f"the computation failed: {type(exc).__name__}: {exc}") from exc
+        # Users read the words; the exception travels on as the cause, for the logs.
+        raise EngineError(f"the computation failed: {describe_failure(exc)}") from exc
     if progress is not None:
         progress(1.0)
     return seal(record)

@@ -41,3 +41,53 @@ class BudgetExceeded(QuestionError):
 
 class Cancelled(EngineError):
     """The caller's cancel hook returned true between two chunks."""
+
+
+# What a numeric failure means for the person who asked, in words (never the exception's name).
+_NUMERIC_FAILURES: tuple[tuple[type[BaseException], str], ...] = (
+    (
+        OverflowError,
+        "the numbers in the question overflow double precision (about 1.8e308) during the "
+        "computation; check the effect, SD, rates and sizes for values far out of scale",
+    ),
+    (
+        ZeroDivisionError,
+        "a quantity the method divides by came out as zero; check that SDs, rates and "
+        "proportions are not zero or vanishingly small (below about 1e-300)",
+    ),
+    (
+        MemoryError,
+        "the computation needs more memory than the service has; lower the sample sizes, the "
+        "replicates or the number of grid cells",
+    ),
+    (
+        RecursionError,
+        "the question is nested too deeply to compute; simplify it",
+    ),
+    (
+        ArithmeticError,
+        "a numeric step failed for these inputs (a value out of the range it can handle); "
+        "check the question for extreme values",
+    ),
+    (
+        ValueError,
+        "a numeric step could not handle these inputs (a value outside the range the method "
+        "accepts); check the question for extreme or contradictory values",
+    ),
+)
+UNFORESEEN_FAILURE = (
+    "the computation failed in a way the service did not foresee for these inputs; the error "
+    "was logged for the service's maintainers; check the question for extreme values or ask "
+    "the biostatistics core"
+)
+
+
+def describe_failure(exc: BaseException) -> str:
+    """Say in words what an unforeseen failure of a computation means for the person who asked.
+
+    The message is stored and shown to users; the exception itself belongs in the logs only.
+    """
+    for kind, words in _NUMERIC_FAILURES:
+        if isinstance(exc, kind):
+            return words
+    return UNFORESEEN_FAILURE

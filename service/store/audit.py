@@ -26,6 +26,16 @@ def _canonical(value: Any) -> str:
     return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
 
 
+def content_hash(value: Any) -> str:
+    """SHA-256 of the canonical JSON of a stored value, as the event that recorded it holds it.
+
+    ``default=str`` turns dates into their ISO form, the same before and after a database trip.
+    """
+    # One JSON round trip first, as the database makes: integer keys become strings, tuples lists.
+    plain = json.loads(json.dumps(value, default=str))
+    return hashlib.sha256(_canonical(plain).encode("utf-8")).hexdigest()
+
+
 def event_hash(event: AuditEvent) -> str:
     """Return the chain hash of ``event`` from its stored fields and its predecessor's hash."""
     created = event.created_at.isoformat()

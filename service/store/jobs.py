@@ -14,9 +14,9 @@ from datetime import datetime, timedelta
 from sqlalchemy import and_, false, or_, select, update
 from sqlalchemy.orm import Session
 
-from service.engine.records import canonical_json, differences
+from service.engine.records import canonical_json, differences, record_hash
 
-from .audit import append_event
+from .audit import append_event, content_hash
 from .models import Analysis, Request, Rerun, Result
 from .types import utcnow
 
@@ -42,6 +42,7 @@ def _request_id(session: Session, kind: str, job_id: str) -> str | None:
 
 
 def _event(session: Session, kind: str, job_id: str, actor: str, action: str, **detail) -> None:
+    """Append a job event; an event that sets a request's status names it (audit verify reads it)."""
     append_event(
         session,
         request_id=_request_id(session, kind, job_id),
@@ -49,6 +50,12 @@ def _event(session: Session, kind: str, job_id: str, actor: str, action: str, **
         action=action,
         detail={"kind": kind, "job_id": job_id, **detail},
     )
+
+
+def _status(kind: str, status: str) -> dict:
+    # Only requests have a status the audit verification follows; reruns and analyses are
+    # checked through the hashes of what they stored.
+    return {"status": status} if kind == "request" else {}
 
 
 def _queued_statuses(kind: str) -> tuple[str, ...]:
@@ -77,14 +84,17 @@ def mark_published(session: Session, kind: str, job_id: str) -> bool:
     changed = session.execute(update(model).where(model.id == job_id).values(**values)).rowcount
     if not changed:
         return False
+    status = {}
     if kind == "request":
         # Only a job nobody has picked up yet moves from received to queued.
-        session.execute(
+        queued = session.execute(
             update(Request)
             .where(Request.id == job_id, Request.status == "received")
             .values(status="queued")
-        )
-    _event(session, kind, job_id, "system", "published")
+        ).rowcount
+        if queued:
+            status = {"status": "queued"}
+    _event(session, kind, job_id, "system", "published", **status)
     return True
 
 
@@ -113,7 +123,15 @@ def claim(
             .values(status="cancelled", lease_owner=None, lease_expires_at=None, updated_at=now)
         ).rowcount
         if done:
-            _event(session, kind, job_id, owner, "cancelled", reason="cancel requested")
+            _event(
+                session,
+                kind,
+                job_id,
+                owner,
+                "cancelled",
+                reason="cancel requested",
+                status="cancelled",
+            )
         return False
     if row.attempts + 1 > max_attempts:
         reason = f"gave up after {row.attempts} attempts (limit {max_attempts})"
@@ -129,7 +147,7 @@ def claim(
             )
         ).rowcount
         if done:
-            _event(session, kind, job_id, owner, "failed", error=reason)
+            _event(session, kind, job_id, owner, "failed", error=reason, **_status(kind, "failed"))
         return False
     done = session.execute(
         update(model)
@@ -173,8 +191,6 @@ def _record_sha(record: dict) -> str:
     stored = (record.get("reproducibility") or {}).get("record_sha256")
     if stored:
         return stored
-    from service.engine.records import record_hash
-
     return record_hash(record)
 
 
@@ -245,7 +261,16 @@ def finish_request(
             existing.record_sha256,
         )
         outcome = "conflict"
-    _event(session, "request", request_id, owner, "computed", record_sha256=sha, result=outcome)
+    _event(
+        session,
+        "request",
+        request_id,
+        owner,
+        "computed",
+        record_sha256=sha,
+        result=outcome,
+        status="computed",
+    )
     return outcome
 
 
@@ -287,6 +312,7 @@ def finish_rerun(
             "rerun_done",
             identical=identical,
             differences=list(differences),
+            record_sha256=record_hash(record),
         )
     return bool(done)
 
@@ -305,7 +331,7 @@ def fail(session: Session, kind: str, job_id: str, owner: str, error: str) -> bo
         values["finished_at"] = now
     done = _update_ours(session, kind, job_id, owner, **values)
     if done:
-        _event(session, kind, job_id, owner, "failed", error=error)
+        _event(session, kind, job_id, owner, "failed", error=error, **_status(kind, "failed"))
     return bool(done)
 
 
@@ -325,7 +351,9 @@ def cancel(session: Session, kind: str, job_id: str, owner: str) -> bool:
         updated_at=now,
     )
     if done:
-        _event(session, kind, job_id, owner, "cancelled", reason="cancel requested")
+        _event(
+            session, kind, job_id, owner, "cancelled", reason="cancel requested", status="cancelled"
+        )
     return bool(done)
 
 
@@ -435,5 +463,13 @@ def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict
     )
     if done:
         kind = session.scalar(select(Analysis.kind).where(Analysis.id == analysis_id))
-        _event(session, "analysis", analysis_id, owner, "analysis_done", analysis=kind)
+        _event(
+            session,
+            "analysis",
+            analysis_id,
+            owner,
+            "analysis_done",
+            analysis=kind,
+            result_sha256=content_hash(result),
+        )
     return bool(done)

@@ -12,7 +12,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from .audit import add_with_event, append_event, events_for
+from .audit import add_with_event, append_event, content_hash, events_for
 from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
 from .types import utcnow
 
@@ -111,7 +111,34 @@ def create_request(
         request_id=row.id,
         actor=actor,
         action="submitted",
-        detail={"design": row.design, "method": row.method, "seed": row.seed},
+        detail={
+            "design": row.design,
+            "method": row.method,
+            "seed": row.seed,
+            "status": row.status,
+            # What the audit verification compares the stored rows with, later.
+            "question_sha256": question_hash(row),
+            "submission_sha256": submission_hash(row),
+        },
+    )
+
+
+def question_hash(row: Request) -> str:
+    """Hash of the stored normalized question (what the engine and every rerun compute)."""
+    return content_hash(row.question)
+
+
+def submission_hash(row: Request) -> str:
+    """Hash of the rest of the submission as stored: protocol, requester, deadline, notes, raw."""
+    return content_hash(
+        {
+            "protocol": row.protocol,
+            "requester": row.requester,
+            "deadline": row.deadline,
+            "notes": row.notes,
+            "question_raw": row.question_raw,
+            "submitted_by": row.submitted_by,
+        }
     )
 
 
@@ -199,7 +226,11 @@ def cancel_request(session: Session, row: Request, actor: str, reason: str | Non
         row.cancel_requested = True
         _touch(row)
         append_event(
-            session, request_id=row.id, actor=actor, action="cancelled", detail={"reason": reason}
+            session,
+            request_id=row.id,
+            actor=actor,
+            action="cancelled",
+            detail={"reason": reason, "status": row.status},
         )
     session.flush()
     return row
@@ -239,7 +270,13 @@ def review(session: Session, row: Request, actor: str, decision: str, note: str)
         raise TransitionRefused(decision, row.status, REVIEWABLE)
     row.status = "approved" if decision == "approve" else "returned"
     _touch(row)
-    append_event(session, request_id=row.id, actor=actor, action=row.status, detail={"note": note})
+    append_event(
+        session,
+        request_id=row.id,
+        actor=actor,
+        action=row.status,
+        detail={"note": note, "status": row.status},
+    )
     session.flush()
     return row
 

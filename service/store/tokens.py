@@ -14,6 +14,7 @@ from datetime import datetime, timedelta
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from .audit import append_event
 from .models import TOKEN_ROLES, ApiToken, Request
 from .types import utcnow
 
@@ -55,8 +56,30 @@ def check_name(name: str) -> str:
     return value
 
 
-def create_token(session: Session, role: str, name: str) -> tuple[str, str]:
-    """Store a new token of ``role`` and return ``(token_id, secret)``; the secret is not kept."""
+def _token_event(session: Session, row: ApiToken, action: str, actor: str) -> None:
+    # The event holds what the row must keep saying: role and secret hash (audit verify checks).
+    append_event(
+        session,
+        request_id=None,
+        actor=actor,
+        action=action,
+        detail={
+            "token_id": row.id,
+            "role": row.role,
+            "name": row.name,
+            "secret_sha256": row.secret_sha256,
+        },
+    )
+
+
+def create_token(
+    session: Session, role: str, name: str, *, actor: str = "system"
+) -> tuple[str, str]:
+    """Store a new token of ``role`` and return ``(token_id, secret)``; the secret is not kept.
+
+    A 'token_created' audit event records the role and the secret's hash; ``actor`` is who issued
+    the token (an admin token's id, or 'cli' for the command line).
+    """
     check_role(role)
     name = check_name(name)
     secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
@@ -69,6 +92,7 @@ def create_token(session: Session, role: str, name: str) -> tuple[str, str]:
     )
     session.add(row)
     session.flush()
+    _token_event(session, row, "token_created", actor)
     return row.id, secret
 
 
@@ -92,7 +116,7 @@ def get_token(session: Session, token_id: str) -> ApiToken | None:
     return session.get(ApiToken, token_id)
 
 
-def revoke_token(session: Session, token_id: str) -> ApiToken | None:
+def revoke_token(session: Session, token_id: str, *, actor: str = "system") -> ApiToken | None:
     """Revoke the token (idempotent: the first revocation time is kept); None if unknown."""
     row = session.get(ApiToken, token_id)
     if row is None:
@@ -100,6 +124,7 @@ def revoke_token(session: Session, token_id: str) -> ApiToken | None:
     if row.revoked_at is None:
         row.revoked_at = utcnow()
         session.flush()
+        _token_event(session, row, "token_revoked", actor)
     return row
 
 
@@ -117,8 +142,10 @@ def ensure_demo_token(session: Session) -> str:
     for row in session.scalars(
         select(ApiToken).where(ApiToken.name == DEMO_TOKEN_NAME, ApiToken.revoked_at.is_(None))
     ):
-        row.revoked_at = utcnow()
-    _token_id, secret = create_token(session, "statistician", DEMO_TOKEN_NAME)
+        revoke_token(session, row.id, actor="demo launcher")
+    _token_id, secret = create_token(
+        session, "statistician", DEMO_TOKEN_NAME, actor="demo launcher"
+    )
     return secret
 
 

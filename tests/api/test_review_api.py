@@ -39,7 +39,10 @@ def test_approve_from_computed_with_a_note(api):
     request_id = _computed(api)
     r = api.post(f"/v1/requests/{request_id}/approve", {"note": "Assumptions checked."})
     assert r.status_code == 200 and r.get_json()["status"] == "approved"
-    assert r.get_json()["history"][-1]["detail"] == {"note": "Assumptions checked."}
+    assert r.get_json()["history"][-1]["detail"] == {
+        "note": "Assumptions checked.",
+        "status": "approved",
+    }
     # Once approved it cannot be returned or approved again.
     again = api.post(f"/v1/requests/{request_id}/return", {"note": "Second thoughts."})
     assert again.status_code == 409

@@ -135,6 +135,38 @@ def test_local_launcher_end_to_end(tmp_path: Path):
         listed = api.call("GET", "/v1/requests?protocol_id=NGH-CRO-2025-014")[1]
         assert listed["total"] == 1
 
+        # A report link opened in a browser (its URL also as the Referer of a click from the
+        # page) leaves no secret in the API's log, and the served page is locked down.
+        status, link = api.call("POST", f"/v1/requests/{rid}/report-links")
+        assert status == 201, link
+        signature = link["url"].rsplit(".", 1)[1]
+        page = Request(api.base + link["url"])
+        page.add_header("Referer", api.base + link["url"])
+        with urlopen(page, timeout=10) as resp:
+            assert resp.status == 200
+            assert resp.headers["Referrer-Policy"] == "no-referrer"
+            assert "default-src 'none'" in resp.headers["Content-Security-Policy"]
+        api_log = tmp_path / "var" / "logs" / "api.log"
+
+        def logged() -> bool:
+            return "/report?link=" in api_log.read_text()
+
+        wait_for(logged, 30, "the report request in the access log")
+        text = api_log.read_text()
+        assert signature not in text and "link=[redacted]" in text
+        assert api.token not in text
+        # The database, its WAL files, the link key and the logs are the service user's alone.
+        var = tmp_path / "var"
+        for path in (
+            var / "sizewise.db",
+            var / "sizewise.db-wal",
+            var / "secret_key",
+            var / "logs" / "api.log",
+            var / "logs" / "worker.log",
+        ):
+            if path.exists() or path.name != "sizewise.db-wal":
+                assert path.stat().st_mode & 0o777 == 0o600, path
+
         os.killpg(proc.pid, signal.SIGTERM)
         try:
             rc = proc.wait(60)

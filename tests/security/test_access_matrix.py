@@ -42,6 +42,7 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/v1/requests/<request_id>/curve.png"): {INT, S, A},
     ("GET", "/v1/staff/requests"): {S, A},
     ("POST", "/v1/requests/<request_id>/report-links"): {INT, S, A},
+    ("POST", "/v1/requests/<request_id>/report-links/revoke"): {INT, S, A},
     ("POST", "/v1/requests/<request_id>/analyses"): {S},
     ("GET", "/v1/requests/<request_id>/analyses"): {INT, S, A},
     ("GET", "/v1/requests/<request_id>/analyses/<analysis_id>"): {INT, S, A},

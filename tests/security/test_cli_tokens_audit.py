@@ -122,7 +122,15 @@ def test_audit_verify_intact_then_catches_an_edited_result(api, database_url, mo
         events = conn.execute(text("SELECT COUNT(*) FROM audit_events")).scalar()
     out = run(database_url, "audit", "verify")
     assert out.returncode == 0, out.stderr
-    assert out.stdout.strip() == f"audit trail intact: {events} events, 1 results"
+    with engine.connect() as conn:
+        head_id, head_sha = conn.execute(
+            text("SELECT id, sha256 FROM audit_events ORDER BY id DESC LIMIT 1")
+        ).one()
+    assert out.stdout.strip().splitlines() == [
+        f"audit trail intact: {events} events, 1 requests, 1 results, 0 reruns, 0 analyses, "
+        "2 tokens",
+        f"anchor: event {head_id} sha256 {head_sha}",
+    ]
 
     with engine.begin() as conn:
         stored = conn.execute(text("SELECT record FROM results")).scalar()
@@ -132,7 +140,7 @@ def test_audit_verify_intact_then_catches_an_edited_result(api, database_url, mo
             text(f"UPDATE results SET record = {_json_param(conn)}"), {"v": json.dumps(record)}
         )
     code, message = _verify(monkeypatch, capsys, database_url)
-    assert code == 1 and f"result record of request {request_id}" in message
+    assert code == 1 and f"result of request {request_id}: record hash differs" in message
 
 
 def test_audit_verify_catches_an_edited_event(api, database_url, monkeypatch, capsys):

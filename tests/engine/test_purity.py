@@ -31,6 +31,7 @@ def test_public_surface_is_explicit():
         "vectests",
         "quantiles",
         "explore",
+        "ledger",
     }
     assert public - modules - set(engine.__all__) == set()
     for name in engine.__all__:

@@ -245,7 +245,7 @@ def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, re
     full: dict[int, Estimate] = {}
     goal = _effective_target(target, rule, reps)
     u = math.sqrt(goal * (1 - goal) / search_reps) / slope if slope else 0.0
-    first = True
+    first, fitted = True, slope
     lost: Exception | None = None
     while True:
         hi = min((x for x in full if _passes(full, x, target, rule, reps)), default=None)
@@ -254,7 +254,7 @@ def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, re
         if hi is not None and hi - lo == 1 or result.moves >= MAX_N_MOVES:
             break
         if not first:
-            slope = _secant(full, slope)
+            slope = _secant(full, fitted, reps)
             c, u = _predict(full, lo, hi, goal, slope, reps, result.moves)
         if hi is None and lo >= m_max:
             lost = QuestionError(
@@ -315,16 +315,23 @@ def _predict(full, lo: int, hi, goal: float, slope, reps: int, moves: int):
     return c, math.sqrt((d + 0.5) / rate + (d * slope_error) ** 2)
 
 
-def _secant(full: dict[int, Estimate], slope):
-    """The rate's change per size between the two full runs made farthest apart, else ``slope``.
+def _secant(full: dict[int, Estimate], fitted, reps: int):
+    """The slope between the two full runs farthest apart, pooled with the fitted one.
 
-    Common random numbers make it a steadier estimate than the search stage's fitted line.
+    Each is weighted by its precision: the fitted slope's relative error is taken as 25%, the
+    secant's as 1/√(replicates flipping between the two runs).
     """
     if len(full) < 2:
-        return slope
+        return fitted
     a, b = min(full), max(full)
     rise = (full[b].power - full[a].power) / (b - a)
-    return rise if rise > 0 else slope
+    if rise <= 0:
+        return fitted
+    if not fitted or fitted <= 0:
+        return rise
+    w_fit = 1 / 0.25**2
+    w_rise = rise * reps * (b - a)  # 1 / relative variance of the secant
+    return (w_fit * fitted + w_rise * rise) / (w_fit + w_rise)
 
 
 def _bracket(ok: Callable[[int], bool], m0: int, m_min: int, m_max: int) -> tuple[int, int]:

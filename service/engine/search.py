@@ -301,8 +301,11 @@ def _predict(full, lo: int, hi, goal: float, slope, reps: int, moves: int):
     rate = slope * reps if slope and slope > 0 else 0.0  # replicates flipping per size
     ends = [x for x in (lo, hi) if x in full]
     x0 = min(ends, key=lambda x: abs(full[x].power - goal))
-    if not rate:
-        return (x0 + 1.0 if x0 == lo else x0 - 1.0), math.inf
+    if not rate:  # no slope to go by: bisect a bracket, else gallop (1, 2, 4 … sizes)
+        if hi is not None and lo in full:
+            return (lo + hi) / 2, math.inf
+        step = 2.0**moves
+        return (lo + step if hi is None else hi - step), math.inf
     c = x0 + (goal - full[x0].power) / slope
     if hi is None or lo not in full:  # not bracketed yet: step past, doubling on repeats
         c = x0 + (c - x0) * 2 ** max(0, moves - 2)

@@ -264,3 +264,19 @@ def test_budget_is_enforced_on_the_draws_made():
     assert 4 * sum(r for *_, r in stopped) <= drawn - 1  # refused before drawing past it
     assert info.value.field == "simulation.replicates"
     assert "has drawn" in info.value.message and f"{drawn - 1:,}" in info.value.message
+
+
+def test_confirmation_without_a_slope_gallops_then_bisects():
+    # common practice, no source: with no slope to go by (power 0 below 40, 1 from 40 on, so
+    # no probit line fits), the full runs double their steps and bisect; they never walk by one
+    calls = []
+
+    def cliff(ms, reps, null_at):
+        calls.append((list(ms), reps))
+        shift = 5 if reps < 10000 else 0  # the search stage sees the cliff 5 sizes early
+        return [search.Estimate(reps if m >= 40 - shift else 0, reps) for m in ms]
+
+    result = solve(cliff, 60.0)
+    assert result.m == 40 and [m for m, _ in result.confirmation] == [40, 39]
+    full = [m for ms, r in calls if r == 10000 for m in ms]
+    assert len(full) <= 8 and result.moves <= search.MAX_N_MOVES

@@ -1,10 +1,12 @@
-"""The n search for simulated power: analytic start, geometric bracket, integer bisection.
+"""The n search for simulated power: analytic start, geometric bracket, fitted power curve.
 
 The search index ``m`` is the size of the first arm; the caller maps it to per-arm sizes. All
-candidates are evaluated on common random numbers, so estimated power moves smoothly with m
-and bisection is meaningful. The answer is confirmed with the full replicate count at m and
-m − 1; a contradiction gallops and bisects at full replicates until the pair agrees (bounded).
-``smallest_effect`` does the same on a continuous effect scale at a fixed n.
+candidates are evaluated on common random numbers, so estimated power moves smoothly with m.
+The search stage narrows the bracket at the search replicates by jumping to the crossing of a
+probit-on-√m line and stops once candidates differ by less than their Monte Carlo error; the
+confirmation stage finds, at the full count, an m that meets the target while m − 1 does not,
+stepping by the slope the full runs show (bounded). ``smallest_effect`` brackets, bisects and
+confirms (gallop, then bisect) on a continuous effect scale at a fixed n.
 """
 
 from __future__ import annotations

@@ -71,7 +71,7 @@ def compute(
         _check_simulation(q, budget)
     hooks = [_passthrough(h) for h in (progress, cancel, executor)]
     try:
-        record = _answer(q, design, simulated, *hooks)
+        record = _answer(q, design, simulated, *hooks, budget)
     except EngineError:
         raise
     except _CallerError as exc:
@@ -117,7 +117,7 @@ def _check_simulation(q: dict, budget: int | None) -> None:
             raise BudgetExceeded(estimate, budget)
 
 
-def _answer(q, design, simulated, progress, cancel, executor) -> dict:
+def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> dict:
     alpha, bonferroni = adjust.alpha_for(q)
     # A posted data model is what is simulated: the effect stated is the one it implies.
     from_data = implied.reconcile(q) if simulated and q["find"] != "effect" else None
@@ -153,7 +153,7 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
             solution = _analytic_or_none(design, q, alpha, required=not simulated)
         if simulated:
             start = solution.per_arm if solution else None
-            sim = _simulate(q, alpha, None, start, executor, progress, cancel)
+            sim = _simulate(q, alpha, None, start, executor, progress, cancel, budget)
             raw = [float(n) for n in sim["per_arm"]]
         else:
             raw = solution.per_arm
@@ -178,7 +178,7 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
         if find == "effect" and simulated:
             # The simulation runs at whole analysed numbers, as for find = power.
             whole = [int(math.floor(n + 1e-9)) for n in effective]
-            sim = _simulate(q, alpha, whole, None, executor, progress, cancel)
+            sim = _simulate(q, alpha, whole, None, executor, progress, cancel, budget)
             record["effect"] = sim["effect"]
             power = sim["power"]
             analysed = whole
@@ -190,7 +190,7 @@ def _answer(q, design, simulated, progress, cancel, executor) -> dict:
             power = _analytic_power(design, solved, effective, alpha)
         elif simulated:
             whole = [int(math.floor(n + 1e-9)) for n in effective]
-            sim = _simulate(q, alpha, whole, None, executor, progress, cancel)
+            sim = _simulate(q, alpha, whole, None, executor, progress, cancel, budget)
             power = sim["power"]
             analysed = whole
         else:
@@ -290,11 +290,18 @@ def _base_per_arm(steps: list[dict], raw: list[float]) -> list[int]:
     return [math.ceil(n - 1e-9) for n in raw]
 
 
-def _simulate(q, alpha, per_arm, start, executor, progress, cancel) -> dict:
+def _simulate(q, alpha, per_arm, start, executor, progress, cancel, budget) -> dict:
     from . import simulate
 
     return simulate.answer(
-        q, alpha, per_arm=per_arm, start=start, executor=executor, progress=progress, cancel=cancel
+        q,
+        alpha,
+        per_arm=per_arm,
+        start=start,
+        executor=executor,
+        progress=progress,
+        cancel=cancel,
+        budget=budget,
     )
 
 

@@ -2,7 +2,7 @@
 
 EngineError                 base: every error the engine raises on purpose
 ├── QuestionError           the question cannot be answered as posed (names a field)
-│   └── BudgetExceeded      the simulation would cost more than the budget allows
+│   └── BudgetExceeded      the simulation would cost (or is costing) more than the budget
 └── Cancelled               the caller asked to stop (checked between chunks)
 """
 
@@ -37,6 +37,19 @@ class BudgetExceeded(QuestionError):
         )
         self.estimate = estimate
         self.budget = budget
+
+    @classmethod
+    def during(cls, spent: int, batch: int, budget: int) -> BudgetExceeded:
+        """The error for a run that has drawn ``spent`` and whose next batch would pass the budget."""
+        err = cls(spent + batch, budget)
+        err.message = (
+            f"the simulation has drawn {spent:,} random numbers and its next batch needs "
+            f"{batch:,} more, past the budget of {budget:,}; the search went further than the "
+            "estimate allowed: lower the replicates, give a larger effect or ask for an analytic "
+            "answer"
+        )
+        err.args = (f"{err.field}: {err.message}",)
+        return err
 
 
 class Cancelled(EngineError):

@@ -5,17 +5,40 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 
-from scipy import optimize, stats
+import numpy as np
+from scipy import optimize, special, stats
+from scipy.special import _ufuncs
 
 from .errors import QuestionError
 
 # Largest n per arm the solvers look at; beyond it an effect is "too small to plan for".
 MAX_N = 1e9
 
+# The noncentral t survival function scipy.stats.nct.sf itself calls (clipped to [0, 1]);
+# the public frozen-distribution path around it costs far more than the value. Absent in a
+# future scipy, the public path is used.
+_NCT_SF = getattr(_ufuncs, "_nct_sf", None)
+
+
+def _t_ppf(q: float, df: float) -> float:
+    """scipy.stats.t.ppf(q, df), digit for digit: its own special function inside (0, 1)."""
+    if 0.0 < q < 1.0 and df > 0:
+        return float(special.stdtrit(df, q))
+    return float(stats.t.ppf(q, df))
+
+
+def _nct_sf(x: float, df: float, nc: float) -> float:
+    """scipy.stats.nct.sf(x, df, nc), digit for digit, without the distribution machinery."""
+    if _NCT_SF is not None and df > 0 and math.isfinite(x) and nc == nc:
+        with np.errstate(over="ignore"):
+            p = float(_NCT_SF(x, df, nc))
+        return p if p != p else min(max(p, 0.0), 1.0)  # np.clip's result, NaN kept
+    return float(stats.nct.sf(x, df, nc))
+
 
 def z(p: float) -> float:
     """Return the standard normal quantile at probability ``p``."""
-    return float(stats.norm.ppf(p))
+    return float(special.ndtri(p))  # what scipy.stats.norm.ppf computes
 
 
 def z_alpha(alpha: float, sides: int) -> float:
@@ -31,19 +54,19 @@ def z_sum(alpha: float, sides: int, power: float) -> float:
 def normal_power(shift: float, z_a: float, sides: int) -> float:
     """Return the power of a z test whose statistic is N(shift, 1), including the far tail."""
     shift = abs(shift)
-    power = stats.norm.cdf(shift - z_a)
+    power = special.ndtr(shift - z_a)  # scipy.stats.norm.cdf, without the wrapper
     if sides == 2:
-        power += stats.norm.cdf(-shift - z_a)
+        power += special.ndtr(-shift - z_a)
     return float(power)
 
 
 def t_power(ncp: float, df: float, alpha: float, sides: int) -> float:
     """Return the power of a t test with noncentrality ``ncp`` (both tails when two-sided)."""
-    tc = stats.t.ppf(1.0 - alpha / sides, df)
-    power = float(stats.nct.sf(tc, df, ncp))
+    tc = _t_ppf(1.0 - alpha / sides, df)
+    power = _nct_sf(tc, df, ncp)
     if sides == 2:
         # The far tail is negligible once ncp is large, where scipy's nct can return NaN.
-        far = float(stats.nct.sf(tc, df, -ncp))
+        far = _nct_sf(tc, df, -ncp)
         power += far if math.isfinite(far) else 0.0
     if not math.isfinite(power):
         raise ValueError(f"noncentral t power is not finite at df={df:g}, ncp={ncp:g}")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import math
@@ -22,6 +23,7 @@ CAUTIONS = (
 )
 
 
+@functools.cache  # reading package metadata costs more than an analytic answer: once a process
 def sizewise_version() -> str:
     """Return the installed sizewise version (or 'unknown' when run from a bare checkout)."""
     try:

@@ -1,10 +1,12 @@
-"""The n search for simulated power: analytic start, geometric bracket, integer bisection.
+"""The n search for simulated power: analytic start, geometric bracket, fitted power curve.
 
 The search index ``m`` is the size of the first arm; the caller maps it to per-arm sizes. All
-candidates are evaluated on common random numbers, so estimated power moves smoothly with m
-and bisection is meaningful. The answer is confirmed with the full replicate count at m and
-m − 1; a contradiction gallops and bisects at full replicates until the pair agrees (bounded).
-``smallest_effect`` does the same on a continuous effect scale at a fixed n.
+candidates are evaluated on common random numbers, so estimated power moves smoothly with m.
+The search stage narrows the bracket at the search replicates by jumping to the crossing of a
+probit-on-√m line and stops once candidates differ by less than their Monte Carlo error; the
+confirmation stage finds, at the full count, an m that meets the target while m − 1 does not,
+stepping by the slope the full runs show (bounded). ``smallest_effect`` brackets, bisects and
+confirms (gallop, then bisect) on a continuous effect scale at a fixed n.
 """
 
 from __future__ import annotations
@@ -12,12 +14,14 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from statistics import NormalDist
 
 from .errors import QuestionError
 
 Z95 = 1.959963984540054
 MAX_CANDIDATES = 15  # search-stage evaluations; a good start needs 3–7
-MAX_MOVES = 12  # extra full-replicate runs the confirmation may make
+MAX_MOVES = 12  # extra full-replicate runs the effect confirmation may make
+MAX_N_MOVES = 8  # extra full-replicate runs the n confirmation may make (3–4 typical)
 _STEPS = (0.1, 0.25, 0.6, 1.5, 4.0, 9.0)  # relative bracket steps, growing geometrically
 
 
@@ -91,8 +95,16 @@ def smallest_n(
     """Return the smallest m whose simulated power meets ``target``, confirmed at full replicates.
 
     ``evaluate(ms, replicates, null_at)`` returns one Estimate per m; ``null_at`` (set only in
-    confirmation batches) asks the caller to add its type I check at that m to the same batch.
-    Never scans m linearly.
+    a confirmation batch expected to be the last) asks the caller to add its type I check at
+    that m to the same batch. Never scans m linearly.
+
+    Two stages, both on common random numbers. The search stage brackets the answer at
+    ``search_replicates`` and narrows the bracket by jumping to the crossing of a probit power
+    curve fitted against √m, and stops once the bracket's ends differ by less than one Monte
+    Carlo standard error: below that, a smaller run cannot tell candidates apart. The
+    confirmation stage then finds, at full replicates, an m that meets the target while m − 1
+    does not, stepping by the fitted slope and interpolating between the runs it has made
+    (at most MAX_N_MOVES runs beyond the first).
     """
     if not m_min <= m_max:
         raise ValueError("m_min must not exceed m_max")
@@ -112,16 +124,219 @@ def smallest_n(
             result.candidates.append((m, est))
         return meets(seen[m], target, rule, replicates)
 
+    goal = _effective_target(target, rule, replicates)
     m0 = min(max(round(start), m_min), m_max)
     lo, hi = _bracket(ok, m0, m_min, m_max)
-    hi = _bisect_whole(ok, lo, hi)
-    _confirm(evaluate, result, hi, m_min, m_max, target, rule, replicates)
+    guess, slope = _narrow(ok, seen, lo, hi, goal, search_replicates)
+    _confirm_n(
+        evaluate, result, guess, slope, m_min, m_max, target, rule, replicates, search_replicates
+    )
     if len(result.candidates) > MAX_CANDIDATES:
         result.warnings.append(
             f"the search needed {len(result.candidates)} candidates; the starting point was far "
             "from the simulated answer"
         )
     return result
+
+
+def _effective_target(target: float, rule: str, replicates: int) -> float:
+    """Return the rejection rate at full replicates that the decision rule needs."""
+    if rule == "point":
+        return target
+    lo, hi = 0, replicates  # smallest k whose Wilson lower bound reaches the target
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if wilson(mid, replicates)[0] >= target:
+            hi = mid
+        else:
+            lo = mid
+    return hi / replicates
+
+
+def _fit(points: list[tuple[int, Estimate]], goal: float) -> tuple[float, float] | None:
+    """Fit probit(power) = a + b·√m by weighted least squares; return (crossing m, slope there).
+
+    Under a normal approximation the probit of power is linear in √m for shift alternatives,
+    so a straight line through a few candidates predicts where the target is crossed. Points
+    at 0 or 1 carry no slope information and are left out; the weights are the inverse
+    binomial variances of the probits. None when the points cannot define an increasing line.
+    """
+    xs, ys, ws = [], [], []
+    for m, e in points:
+        k, r = e.rejections, e.replicates
+        if 0 < k < r and m > 0:
+            p = k / r
+            z = _ndtri(p)
+            xs.append(math.sqrt(m))
+            ys.append(z)
+            ws.append(_phi(z) ** 2 * r / (p * (1 - p)))
+    if len(xs) < 2:
+        return None
+    sw = sum(ws)
+    mx = sum(w * x for w, x in zip(ws, xs, strict=True)) / sw
+    my = sum(w * y for w, y in zip(ws, ys, strict=True)) / sw
+    sxx = sum(w * (x - mx) ** 2 for w, x in zip(ws, xs, strict=True))
+    sxy = sum(w * (x - mx) * (y - my) for w, x, y in zip(ws, xs, ys, strict=True))
+    if sxx <= 0 or sxy <= 0:
+        return None
+    b = sxy / sxx
+    root = mx + (_ndtri(goal) - my) / b
+    if root <= 0:
+        return None
+    m = root * root
+    return m, _phi(_ndtri(goal)) * b / (2 * root)  # d power / d m at the crossing
+
+
+def _ndtri(p: float) -> float:
+    return NormalDist().inv_cdf(p)
+
+
+def _phi(z: float) -> float:
+    return math.exp(-0.5 * z * z) / math.sqrt(2 * math.pi)
+
+
+def _narrow(ok, seen: dict[int, Estimate], lo: int, hi: int, goal: float, reps: int):
+    """Narrow (lo, hi] at search replicates; return (first m to confirm, fitted slope or None).
+
+    Each step evaluates the fitted crossing (bisection when no line fits or the fit stalls);
+    it stops when hi − lo = 1 or when the ends differ by less than one Monte Carlo standard
+    error of a run at the goal: further candidates would only chase noise.
+    """
+    mcse = math.sqrt(goal * (1 - goal) / reps)
+    fit = None
+    stalls = 0
+    last = hi
+    while hi - lo > 1:
+        fit = _fit(list(seen.items()), goal)
+        if lo in seen and seen[hi].power - seen[lo].power < mcse:
+            break  # the ends cannot be told apart at this replicate count
+        if fit is not None and abs(seen[last].power - goal) < mcse:
+            break  # the last candidate is within noise of the target: the fit is as good as it gets
+        width = hi - lo
+        if fit is None or stalls >= 2:
+            mid = (lo + hi) // 2
+        else:
+            mid = min(hi - 1, max(lo + 1, math.ceil(fit[0])))
+        last = mid
+        if ok(mid):
+            hi = mid
+        else:
+            lo = mid
+        stalls = stalls + 1 if hi - lo > width / 2 else 0
+    fit = _fit(list(seen.items()), goal)
+    if fit is None:
+        return hi, None
+    return min(float(hi), max(float(lo), fit[0])), fit[1]
+
+
+def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, reps, search_reps):
+    """Find, at full replicates, an m that meets the target while m − 1 does not.
+
+    ``c`` is the predicted crossing and ``slope`` the power gained per unit of m there (None
+    when the search stage could not fit one). Each step predicts the crossing c and its error
+    u in sizes: at first from the search stage (its Monte Carlo error over the slope), then
+    from the full run nearest the target, stepping by the slope between the two full runs
+    farthest apart. Common random numbers make the rejection count grow almost steadily with
+    m: between two sizes d apart about d × slope × replicates replicates flip, so the step's
+    error is about √(d / (slope × replicates)) sizes, plus the slope's own error. When
+    [c − u, c + u] lies within one size, the pair (m, m − 1) runs in one batch, with the type I
+    check when [c − 2u, c + 2u] does; otherwise one size runs and informs the next step. At
+    most MAX_N_MOVES runs follow the first batch; if they run out, the smallest passing size is
+    reported with a warning.
+    """
+    full: dict[int, Estimate] = {}
+    goal = _effective_target(target, rule, reps)
+    u = math.sqrt(goal * (1 - goal) / search_reps) / slope if slope else 0.0
+    first, fitted = True, slope
+    lost: Exception | None = None
+    while True:
+        hi = min((x for x in full if _passes(full, x, target, rule, reps)), default=None)
+        below = (x for x in full if not _passes(full, x, target, rule, reps))
+        lo = max((x for x in below if hi is None or x < hi), default=m_min - 1)
+        if hi is not None and hi - lo == 1 or result.moves >= MAX_N_MOVES:
+            break
+        if not first:
+            slope = _secant(full, fitted, reps)
+            c, u = _predict(full, lo, hi, goal, slope, reps, result.moves)
+        if hi is None and lo >= m_max:
+            lost = QuestionError(
+                "target_power", f"simulated power stays below the target at {m_max:,}"
+            )
+            break
+        x = max(lo + 1, min(m_max if hi is None else hi, math.ceil(c - 1e-9)))
+        pair = x - 1 < c - u and c + u <= x
+        null_at = x if x - 1 < c - 2 * u and c + 2 * u <= x else None
+        if x == hi:
+            xs = [x - 1]
+        elif pair and x - 1 > lo and x - 1 >= m_min:
+            xs = [x, x - 1]
+        else:
+            xs = [x]
+        got = evaluate(xs, reps, null_at)
+        full.update(zip(xs, got, strict=True))
+        if not first:
+            result.moves += len(xs)
+        first = False
+    if lost is not None:
+        raise lost
+    passing = [x for x in full if _passes(full, x, target, rule, reps)]
+    if hi is None or hi - lo != 1:
+        result.warnings.append(
+            f"the confirmation did not settle within {MAX_N_MOVES} extra runs; the reported n is "
+            "the smallest examined whose power met the target"
+        )
+        hi = min(passing) if passing else max(full)
+    if hi == m_min and _passes(full, hi, target, rule, reps):
+        result.warnings.append(
+            f"the target is already met at the smallest size the test allows ({m_min})"
+        )
+    result.m = hi
+    result.confirmation = [(x, full[x]) for x in (hi, hi - 1) if x in full]
+
+
+def _passes(full: dict, x: int, target: float, rule: str, reps: int) -> bool:
+    return meets(full[x], target, rule, reps)
+
+
+def _predict(full, lo: int, hi, goal: float, slope, reps: int, moves: int):
+    """Return (predicted crossing, its error in sizes) stepping from the run nearest the goal."""
+    rate = slope * reps if slope and slope > 0 else 0.0  # replicates flipping per size
+    ends = [x for x in (lo, hi) if x in full]
+    x0 = min(ends, key=lambda x: abs(full[x].power - goal))
+    if not rate:  # no slope to go by: bisect a bracket, else gallop (1, 2, 4 … sizes)
+        if hi is not None and lo in full:
+            return (lo + hi) / 2, math.inf
+        step = 2.0**moves
+        return (lo + step if hi is None else hi - step), math.inf
+    c = x0 + (goal - full[x0].power) / slope
+    if hi is None or lo not in full:  # not bracketed yet: step past, doubling on repeats
+        c = x0 + (c - x0) * 2 ** max(0, moves - 2)
+    elif not lo < c <= hi:
+        c = (lo + hi) / 2
+    d = abs(c - x0)
+    span = max(full) - min(full)
+    slope_error = 0.25 if span == 0 else 1 / math.sqrt(rate * span)  # relative
+    # + ½: even at d = 0 the neighbour shares the count with probability e^(−rate)
+    return c, math.sqrt((d + 0.5) / rate + (d * slope_error) ** 2)
+
+
+def _secant(full: dict[int, Estimate], fitted, reps: int):
+    """The slope between the two full runs farthest apart, pooled with the fitted one.
+
+    Each is weighted by its precision: the fitted slope's relative error is taken as 25%, the
+    secant's as 1/√(replicates flipping between the two runs).
+    """
+    if len(full) < 2:
+        return fitted
+    a, b = min(full), max(full)
+    rise = (full[b].power - full[a].power) / (b - a)
+    if rise <= 0:
+        return fitted
+    if not fitted or fitted <= 0:
+        return rise
+    w_fit = 1 / 0.25**2
+    w_rise = rise * reps * (b - a)  # 1 / relative variance of the secant
+    return (w_fit * fitted + w_rise * rise) / (w_fit + w_rise)
 
 
 def _bracket(ok: Callable[[int], bool], m0: int, m_min: int, m_max: int) -> tuple[int, int]:
@@ -154,43 +369,6 @@ def _bracket(ok: Callable[[int], bool], m0: int, m_min: int, m_max: int) -> tupl
         f"simulated power stays below the target at {m_max:,} in the first arm; the effect is "
         "too small for this data model (or the test cannot detect it)",
     )
-
-
-def _confirm(evaluate, result: SearchResult, m: int, m_min, m_max, target, rule, replicates):
-    """Confirm m against m − 1 with full replicates; on a contradiction, gallop then bisect.
-
-    The moves use full replicates too, so the final pair (m, m − 1) is consistent at the
-    replicate count the answer reports; at most MAX_MOVES extra evaluations are made.
-    """
-    # Sizes below m_min fail without a run, as the gallop down needs.
-    ok = _FullRuns(evaluate, result, m_min - 1, target, rule, replicates)
-    full = ok.full
-    pair = [m, m - 1] if m - 1 >= m_min else [m]
-    full.update(zip(pair, evaluate(pair, replicates, m), strict=True))
-    try:
-        if not ok(m):  # too small: gallop up from m
-            above = QuestionError(
-                "target_power", f"simulated power stays below the target at {m_max:,}"
-            )
-            lo, hi = _gallop_up(ok, m, 1, lambda x, step: min(m_max, x + step), above)
-        elif m - 1 >= m_min and ok(m - 1):  # more than enough: gallop down from m − 1
-            lo, hi = _gallop_down(ok, m - 1, 1, m_min - 1)
-        else:
-            lo, hi = m - 1, m
-        m = _bisect_whole(ok, lo, hi)
-    except _Unsettled:
-        result.warnings.append(
-            f"the confirmation did not settle within {MAX_MOVES} extra runs; the reported n is the "
-            "smallest examined whose power met the target"
-        )
-        passing = ok.passing()
-        m = min(passing) if passing else max(full)
-    if m == m_min and meets(full[m], target, rule, replicates):
-        result.warnings.append(
-            f"the target is already met at the smallest size the test allows ({m_min})"
-        )
-    result.m = m
-    result.confirmation = [(x, full[x]) for x in (m, m - 1) if x in full]
 
 
 class _Unsettled(Exception):
@@ -250,17 +428,6 @@ def _gallop_down(ok, x, step, floor):
         if not ok(nxt):
             return nxt, x
         x, step = nxt, step * 2
-
-
-def _bisect_whole(ok, lo: int, hi: int) -> int:
-    """Return the smallest passing whole number in (lo, hi], ok(hi) true and ok(lo) false."""
-    while hi - lo > 1:
-        mid = (lo + hi) // 2
-        if ok(mid):
-            hi = mid
-        else:
-            lo = mid
-    return hi
 
 
 # --- the effect search -----------------------------------------------------------------------

@@ -22,6 +22,7 @@ from scipy import optimize, special, stats
 from . import direction, implied, models, search, vectests
 from .designs import TESTS
 from .errors import Cancelled, QuestionError
+from .ledger import Ledger
 
 BLOCK = 32
 BIT_GENERATOR = "PCG64"
@@ -491,7 +492,7 @@ class _Streams:
         """Return binomial(n, p) counts by inverting one uniform each (monotone in n: common numbers)."""
         u = self.gen(index, 0).random(rows)
         np.subtract(1.0, u, out=u)  # (0, 1]: ppf(0) would fall below the support
-        return stats.binom.ppf(u, n, p)
+        return vectests.binomial_quantile(u, n, p)  # = stats.binom.ppf(u, n, p), digit for digit
 
     def correlation(self, r: float, n: int, rows: int) -> np.ndarray:
         """Return sample correlations of n bivariate normal pairs via Bartlett's decomposition."""
@@ -812,11 +813,17 @@ def estimate_cost(q: dict) -> int:
 class _Runner:
     """Turns (stream, per_arm, replicates) requests into chunk batches and caches chunk results."""
 
-    def __init__(self, plan_, seed, chunk_size, executor, progress, cancel, planned):
+    def __init__(
+        self, plan_, seed, chunk_size, executor, progress, cancel, planned, *, full=0, budget=None
+    ):
         self.plan, self.seed, self.chunk_size = plan_, seed, chunk_size
         self.executor, self.progress, self.cancel = executor, progress, cancel
         self.planned, self.done, self.reported = max(planned, 1), 0, 0.0
         self.cache: dict[tuple, dict] = {}
+        self.full = full  # the full replicate count, to label runs in the ledger
+        self.ledger = Ledger(
+            budget, lambda t: t["replicates"] * _draws_per_replicate(t, t["per_arm"])
+        )
 
     def _tasks(
         self, stream: int, per_arm: list[int], reps: int, plan_: dict | None = None, tag=None
@@ -846,11 +853,15 @@ class _Runner:
         """
         wanted = [self._tasks(*r) for r in requests]
         todo: dict[tuple, dict] = {}
-        for key, task in (kt for ks in wanted for kt in ks):
-            if key not in self.cache and key not in todo:
-                todo[key] = task
+        labels: dict[tuple, str] = {}
+        for request, ks in zip(requests, wanted, strict=True):
+            for key, task in ks:
+                if key not in self.cache and key not in todo:
+                    todo[key] = task
+                    labels[key] = _label(request[0], request[2], self.full)
         if todo:
             keys, tasks = list(todo), list(todo.values())
+            self.ledger.charge(tasks, [labels[k] for k in keys])
             results = self._run(tasks)
             if len(results) != len(tasks):
                 raise QuestionError(
@@ -892,6 +903,13 @@ class _Runner:
         results = list(self.executor(tasks))
         self._tick(sum(t["replicates"] for t in tasks))
         return results
+
+
+def _label(stream: int, reps: int, full: int) -> str:
+    """The ledger's kind of run: the type I check, a full-replicate run or a search candidate."""
+    if stream == STREAM_NULL:
+        return "null"
+    return "full" if reps >= full else "search"
 
 
 # --- the simulated answer ------------------------------------------------------------------
@@ -993,11 +1011,13 @@ def answer(
     executor: Executor | None = None,
     progress: Callable[[float], None] | None = None,
     cancel: Callable[[], bool] | None = None,
+    budget: int | None = None,
 ) -> dict:
     """Return the simulated answer of a normalized question (per arm, power, type I error, search).
 
     ``find`` may be ``power``, ``sample_size`` (the n search) or ``effect`` (the smallest effect
     reaching the target power at ``per_arm``, for arms built from the effect fields).
+    ``budget`` (random draws) is enforced on the draws actually made, batch by batch.
 
     Examples
     --------
@@ -1012,14 +1032,16 @@ def answer(
     """
     find = q.get("find")
     if find == "effect":
-        return _answer_effect(q, alpha, per_arm, executor, progress, cancel)
+        return _answer_effect(q, alpha, per_arm, executor, progress, cancel, budget)
     p = plan(q, alpha)
     seed, reps, chunk_size, search_reps, rule_name = _settings(q)
     warnings: list[str] = []
     search_block = None
     if find == "power":
         final = _check_per_arm(p, per_arm, "power")
-        runner = _Runner(p, seed, chunk_size, executor, progress, cancel, 2 * reps)
+        runner = _Runner(
+            p, seed, chunk_size, executor, progress, cancel, 2 * reps, full=reps, budget=budget
+        )
         alt, null = runner.batch([(STREAM_ALT, final, reps), (STREAM_NULL, final, reps)])
     elif find == "sample_size":
         target = _target(q, "n")
@@ -1032,7 +1054,15 @@ def answer(
             )
         m_min = _m_min(p)
         runner = _Runner(
-            p, seed, chunk_size, executor, progress, cancel, 8 * search_reps + 3 * reps
+            p,
+            seed,
+            chunk_size,
+            executor,
+            progress,
+            cancel,
+            5 * search_reps + 4 * reps,
+            full=reps,
+            budget=budget,
         )
 
         def evaluate(ms: list[int], r: int, null_at: int | None) -> list[search.Estimate]:
@@ -1087,6 +1117,9 @@ def answer(
             "find", f"a simulation answers 'sample_size', 'power' or 'effect'; got {find!r}"
         )
     out = _result(p, final, alt, null, alpha, (seed, reps, chunk_size), warnings)
+    if search_block is not None:
+        pair = found.m - 1 >= m_min
+        search_block["replicates_run"] = _replicates_run(runner.ledger, reps, pair)
     out["search"] = search_block
     if p["design"] == "survival_logrank":
         events = runner.extra_sum("events", STREAM_ALT, final, reps)
@@ -1109,6 +1142,17 @@ def size_verdict(ci95: list[float], alpha: float) -> str:
     if hi < alpha:
         return "conservative"
     return "holds"
+
+
+def _replicates_run(ledger: Ledger, reps: int, pair: bool) -> dict:
+    """The replicates the search ran, by kind, beside the minimum any search must run.
+
+    The minimum is the confirmation pair (n and n − 1) and the type I check at n, each at the
+    full count; chunks reused from a search candidate's run are counted once, when first run.
+    """
+    counts = {k: ledger.count(k) for k in ("search", "full", "null")}
+    minimum = (3 if pair else 2) * reps
+    return {**counts, "total": sum(counts.values()), "minimum": minimum, "draws": ledger.draws}
 
 
 def _result(p, final, alt, null, alpha, settings, warnings) -> dict:
@@ -1241,7 +1285,7 @@ def _with_effect(q: dict, name: str, value: float) -> dict:
     return dict(q, effect={**(q.get("effect") or {}), name: value})
 
 
-def _answer_effect(q, alpha, per_arm, executor, progress, cancel) -> dict:
+def _answer_effect(q, alpha, per_arm, executor, progress, cancel, budget=None) -> dict:
     """The smallest effect whose simulated power at n reaches the target (common random numbers)."""
     name, axis = _effect_setup(q)
     design = q["design"]
@@ -1270,7 +1314,17 @@ def _answer_effect(q, alpha, per_arm, executor, progress, cancel) -> dict:
         x0, source = (1.0 if not math.isfinite(x_max) else x_max / 2), "default"
     p0 = plan_at(x0)
     final = _check_per_arm(p0, per_arm, "the effect")
-    runner = _Runner(p0, seed, chunk_size, executor, progress, cancel, 8 * search_reps + 3 * reps)
+    runner = _Runner(
+        p0,
+        seed,
+        chunk_size,
+        executor,
+        progress,
+        cancel,
+        8 * search_reps + 3 * reps,
+        full=reps,
+        budget=budget,
+    )
 
     def request(stream: int, x: float, r: int) -> tuple:
         return (stream, final, r, plan_at(x), ("effect", x))

@@ -7,7 +7,7 @@ from scipy import stats
 from statsmodels.stats.proportion import proportion_confint
 
 from service.engine import search, simulate
-from service.engine.errors import QuestionError
+from service.engine.errors import BudgetExceeded, QuestionError
 from tests.engine.questions import make_q
 
 
@@ -77,7 +77,27 @@ def test_confirmation_at_n_and_n_minus_1_with_full_replicates():
     assert (m1, m0) == (63, 62) and e1.replicates == e0.replicates == 10000
     assert e1.power >= 0.8 > e0.power
     confirm = [c for c in calls if c[1] == 10000]
-    assert confirm[0][0] == [63, 62] and confirm[0][2] == 63  # one batch, with the null check at n
+    # the search stage's error (MCSE 0.0089 over a slope of 0.006 per size) spans more than one
+    # size, so one size runs first; its full run places the pair exactly: three runs in all
+    assert sum(len(c[0]) for c in confirm) <= 3
+    assert [m for c in confirm for m in c[0]].count(62) == 1
+
+
+def test_a_steep_curve_confirms_the_pair_and_null_in_one_batch():
+    # formula: normal-approximation power Φ(d√(m/2) − z.975); d = 1.55 crosses .80 at m = 6.53,
+    # where a size gains 0.06 in power, 6.7 times the search stage's MCSE (0.0089)
+    def steep(ms, reps, null_at):
+        calls.append((list(ms), reps, null_at))
+        return [
+            search.Estimate(round(stats.norm.cdf(1.55 * math.sqrt(m / 2) - 1.959964) * reps), reps)
+            for m in ms
+        ]
+
+    calls = []
+    result = solve(steep, 7.0)
+    confirm = [c for c in calls if c[1] == 10000]
+    assert result.m == 7 and result.moves == 0
+    assert confirm == [([7, 6], 10000, 7)]
 
 
 @pytest.mark.parametrize("shift", [0.03, -0.03])
@@ -166,3 +186,97 @@ def test_simulated_search_from_a_poor_start_stays_bounded():
     out = simulate.answer(_two_means(), 0.05, per_arm=None, start=[21.0, 21.0])
     assert len(out["search"]["candidates"]) <= search.MAX_CANDIDATES
     assert abs(out["per_arm"][0] - 64) <= 2
+
+
+# --- what the search spends --------------------------------------------------------------------
+
+
+def _counting_executor(seen: list, chunks: list | None = None):
+    def executor(tasks):
+        seen.extend((t["stream"], tuple(t["per_arm"]), t["replicates"]) for t in tasks)
+        if chunks is not None:
+            chunks.extend((t["stream"], tuple(t["per_arm"]), t["chunk"]) for t in tasks)
+        return [simulate.run_chunk(t) for t in tasks]
+
+    return executor
+
+
+def _for_n(n: float, **sim) -> dict:
+    """Two means whose z-approximation answer is n per arm: d = (z.975 + z.80)·√(2/n)."""
+    d = (1.959964 + 0.841621) * math.sqrt(2 / n)
+    effect = {"difference": d, "sd_control": 1.0, "sd_treatment": 1.0}
+    return make_q("two_means", effect=effect, simulation={"seed": 11, "test": "student_t", **sim})
+
+
+@pytest.mark.parametrize("n", [20, 200])
+def test_search_spends_little_beyond_the_minimum(n):
+    # common practice, no source: the minimum any n search runs is the full count at n and n − 1
+    # plus the type I check at n (3 × 10,000); the confirmation stage may add at most half of it
+    seen: list = []
+    out = simulate.answer(_for_n(n), 0.05, executor=_counting_executor(seen))
+    block = out["search"]["replicates_run"]
+    reps = 10000
+    assert block["minimum"] == 3 * reps
+    assert block["null"] == sum(r for s, _, r in seen if s == 1) == reps
+    assert block["search"] + block["full"] == sum(r for s, _, r in seen if s == 0)
+    assert (
+        block["total"]
+        == block["search"] + block["full"] + block["null"]
+        == sum(r for *_, r in seen)
+    )
+    assert block["full"] + block["null"] <= 1.5 * block["minimum"]
+    assert block["search"] == 2000 * len(out["search"]["candidates"])
+    first, second = out["search"]["confirmation"]
+    assert first["power"] >= 0.8 > second["power"]  # the decision rule still holds at n, n − 1
+    assert second["per_arm"][0] == first["per_arm"][0] - 1 == out["per_arm"][0] - 1
+
+
+def test_search_counts_every_replicate_once_and_bounds_the_moves():
+    # common practice, no source: chunks a candidate already ran are reused, not redrawn
+    seen: list = []
+    chunks: list = []
+    out = simulate.answer(_for_n(2000), 0.05, executor=_counting_executor(seen, chunks))
+    assert len(chunks) == len(set(chunks))
+    block = out["search"]["replicates_run"]
+    assert block["total"] == sum(r for *_, r in seen)
+    assert out["search"]["moves"] <= search.MAX_N_MOVES
+    assert block["full"] <= (2 + search.MAX_N_MOVES) * 10000
+    (m1, e1), (m0, e0) = [(c["per_arm"][0], c) for c in out["search"]["confirmation"]]
+    assert m0 == m1 - 1 and e1["power"] >= 0.8 > e0["power"]
+    # formula: z approximation 2000 per arm (t test: 2001); Monte Carlo error at 10,000
+    # replicates is about 0.004 in power, 20 sizes here: 4 MCSE is ±80
+    assert abs(m1 - 2001) <= 80
+
+
+def test_budget_is_enforced_on_the_draws_made():
+    # exact count: sufficient statistics draw a mean and a variance per arm, 4 per replicate
+    seen: list = []
+    q = _for_n(200)
+    out = simulate.answer(q, 0.05, executor=_counting_executor(seen))
+    drawn = 4 * sum(r for *_, r in seen)
+    assert out["search"]["replicates_run"]["draws"] == drawn
+    again: list = []
+    same = simulate.answer(q, 0.05, executor=_counting_executor(again), budget=drawn)
+    assert same["per_arm"] == out["per_arm"] and again == seen  # the exact budget is enough
+    stopped: list = []
+    with pytest.raises(BudgetExceeded) as info:
+        simulate.answer(q, 0.05, executor=_counting_executor(stopped), budget=drawn - 1)
+    assert 4 * sum(r for *_, r in stopped) <= drawn - 1  # refused before drawing past it
+    assert info.value.field == "simulation.replicates"
+    assert "has drawn" in info.value.message and f"{drawn - 1:,}" in info.value.message
+
+
+def test_confirmation_without_a_slope_gallops_then_bisects():
+    # common practice, no source: with no slope to go by (power 0 below 40, 1 from 40 on, so
+    # no probit line fits), the full runs double their steps and bisect; they never walk by one
+    calls = []
+
+    def cliff(ms, reps, null_at):
+        calls.append((list(ms), reps))
+        shift = 5 if reps < 10000 else 0  # the search stage sees the cliff 5 sizes early
+        return [search.Estimate(reps if m >= 40 - shift else 0, reps) for m in ms]
+
+    result = solve(cliff, 60.0)
+    assert result.m == 40 and [m for m, _ in result.confirmation] == [40, 39]
+    full = [m for ms, r in calls if r == 10000 for m in ms]
+    assert len(full) <= 8 and result.moves <= search.MAX_N_MOVES

@@ -478,17 +478,20 @@ def test_progress_is_monotone_and_cancel_stops():
 
 
 def test_external_executor_receives_whole_batches():
-    # common practice, no source: confirmation at n, n − 1 and the null check travel in one batch
-    sizes = []
+    # common practice, no source: each run reaches the executor whole (all its chunks in one
+    # batch), and the type I check runs once, at the answer, never at a size later abandoned
+    batches = []
 
     def executor(tasks):
-        sizes.append({(t["stream"], tuple(t["per_arm"])) for t in tasks})
+        batches.append([(t["stream"], tuple(t["per_arm"]), t["chunk"]) for t in tasks])
         return [simulate.run_chunk(t) for t in tasks]
 
     out = run(question(find="sample_size", replicates=4000), executor=executor)
-    n = out["per_arm"]
-    assert any((1, tuple(n)) in batch for batch in sizes)
-    assert any(len(batch) >= 2 for batch in sizes)
+    n = tuple(out["per_arm"])
+    nulls = [b for b in batches if any(s == 1 for s, _, _ in b)]
+    assert len(nulls) == 1 and {(s, p) for s, p, _ in nulls[0] if s == 1} == {(1, n)}
+    assert sorted(c for s, _, c in nulls[0] if s == 1) == [0, 1, 2, 3]  # 4,000 in chunks of 1,000
+    assert all(len(b) >= 2 for b in batches)  # search runs: 2 chunks; full runs: 4
 
 
 @pytest.mark.parametrize(

@@ -140,7 +140,9 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             q,
             design,
             alpha,
-            lambda per_arm, start: _simulate(q, alpha, per_arm, start, executor, progress, cancel),
+            lambda per_arm, start: _simulate(
+                q, alpha, per_arm, start, executor, progress, cancel, budget
+            ),
         )
         part["sample_size"]["steps"] = pre_steps + part["sample_size"]["steps"]
         record["sample_size"] = part["sample_size"]

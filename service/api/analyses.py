@@ -26,6 +26,7 @@ from service.store.db import session_scope
 from service.store.models import Analysis, Request
 
 from . import render
+from .auth import charge
 from .context import sessions, settings
 from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
@@ -45,7 +46,14 @@ ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
 def analysis_params(
     question: dict, record: dict | None, kind: str, spec: dict, *, prefix: str = ""
 ) -> dict:
-    """Validate one analysis against the request, price it, and return the params to store.
+    """Validate one analysis against the request and return the params to store."""
+    return priced_analysis(question, record, kind, spec, prefix=prefix)[0]
+
+
+def priced_analysis(
+    question: dict, record: dict | None, kind: str, spec: dict, *, prefix: str = ""
+) -> tuple[dict, int]:
+    """Validate one analysis against the request, price it; return (params, estimated draws).
 
     Errors are keyed ``prefix + field`` (``grid.effect.sd``, ``analyses.robustness``); a grid or
     panel over ``SIMULATION_BUDGET`` is refused (422) with its estimate.
@@ -79,7 +87,7 @@ def analysis_params(
             f"{budget:,}; use fewer cells or fewer replicates"
         )
         raise ValidationFailed(message, errors={field: [message]}, estimate=estimate, budget=budget)
-    return params
+    return params, int(estimate)
 
 
 def _publish(analysis_id: str) -> bool:
@@ -127,8 +135,9 @@ def create_analysis(request_id: str):
             )
         result = request_store.result_for(session, request_id)
         record = result.record if result is not None else None
-        params = analysis_params(row.question, record, data["kind"], data)
+        params, estimate = priced_analysis(row.question, record, data["kind"], data)
         analysis_id = store.create_analysis(session, request_id, data["kind"], params, actor).id
+        charge(session, [(data["kind"], analysis_id, estimate)])
     if record is not None:
         _publish(analysis_id)
     with session_scope(sessions()) as session:
@@ -178,24 +187,29 @@ def get_analysis(request_id: str, analysis_id: str):
 # --- analyses and effect source posted with the request ----------------------------------
 
 
-def store_submission(session, row: Request, body: dict, actor: str) -> list[str]:
-    """Store a submission's effect source and its analyses (unpublished until computed)."""
+def store_submission(session, row: Request, body: dict, actor: str) -> list[tuple[str, str, int]]:
+    """Store a submission's effect source and its analyses (unpublished until computed).
+
+    Returns ``(kind, analysis id, estimated draws)`` of each analysis, for the token's budget.
+    """
     if body.get("effect_source") is not None:
         row.effect_source = body["effect_source"]
     asked = body.get("analyses") or {}
-    ids = []
+    stored = []
     for kind, spec in (
         ("sensitivity", asked.get("sensitivity")),
         ("robustness", asked.get("robustness")),
     ):
         if not spec:
             continue
-        params = analysis_params(
+        params, estimate = priced_analysis(
             row.question,
             None,
             kind,
             spec if isinstance(spec, dict) else {},
             prefix=f"analyses.{kind}.",
         )
-        ids.append(store.create_analysis(session, row.id, kind, params, actor).id)
-    return ids
+        stored.append(
+            (kind, store.create_analysis(session, row.id, kind, params, actor).id, estimate)
+        )
+    return stored

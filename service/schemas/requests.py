@@ -398,7 +398,10 @@ class RequestQueryArgsSchema(StrictSchema):
     submitted_to = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "Last UTC day, inclusive."}
     )
-    page = fields.Integer(load_default=1, error_messages=INT_ERRORS, validate=in_range(1))
+    # Bounded so a page number always fits the database's integers (100 x 1,000,000 rows).
+    page = fields.Integer(
+        load_default=1, error_messages=INT_ERRORS, validate=in_range(1, 1_000_000)
+    )
     per_page = fields.Integer(load_default=20, error_messages=INT_ERRORS, validate=in_range(1, 100))
 
     @validates_schema

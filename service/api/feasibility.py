@@ -42,8 +42,9 @@ def _numeric_failure(exc: EngineError) -> bool:
     return isinstance(cause, ArithmeticError) or "not finite" in str(exc)
 
 
-def _refuse(question: dict) -> ValidationFailed:
-    fields = extreme_fields(question) or ["question"]
+def _refuse(question: dict, posted: Any) -> ValidationFailed:
+    # Named as posted (the normalized question splits some fields, e.g. sd per arm).
+    fields = extreme_fields(posted) or extreme_fields(question) or ["question"]
     message = (
         "the question cannot be computed: its numbers leave double precision (a quotient "
         "overflows or a division reaches zero); use values of ordinary magnitude, e.g. other units"
@@ -51,8 +52,11 @@ def _refuse(question: dict) -> ValidationFailed:
     return ValidationFailed(message, errors={f: [message] for f in fields})
 
 
-def check_computable(question: dict) -> None:
-    """Raise ValidationFailed (422, field-keyed) when the engine cannot compute ``question``."""
+def check_computable(question: dict, posted: Any = None) -> None:
+    """Raise ValidationFailed (422, field-keyed) when the engine cannot compute ``question``.
+
+    ``posted`` is the question as posted, whose paths the refusal names.
+    """
     simulated = question.get("method") == "simulation"
     if not simulated:
         try:
@@ -62,7 +66,7 @@ def check_computable(question: dict) -> None:
                 str(exc), errors={f"question.{k}": v for k, v in exc.as_errors().items()}
             ) from None
         except EngineError as exc:
-            raise _refuse(question) from exc
+            raise _refuse(question, posted) from exc
         return
     if not question.get("effect"):
         return  # a data model only: its moments were checked by the schema
@@ -75,4 +79,4 @@ def check_computable(question: dict) -> None:
         return  # no formula counterpart for this simulation: nothing to compare against
     except EngineError as exc:
         if _numeric_failure(exc):
-            raise _refuse(question) from exc
+            raise _refuse(question, posted) from exc

@@ -144,7 +144,7 @@ def submit_request():
         if earlier is not None:
             return _created(earlier, 200)
     data = RequestCreateSchema().load(raw)
-    check_computable(data["question"])
+    check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
     question = _with_seed(data["question"])
     try:

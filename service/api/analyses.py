@@ -8,11 +8,12 @@ request that failed or was cancelled takes no new analysis (409).
 
 from __future__ import annotations
 
+import copy
 import logging
 
 from flask import Blueprint, jsonify, url_for
 
-from service.engine import QuestionError, draw_seed
+from service.engine import EngineError, QuestionError, compute, draw_seed
 from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
 from service.schemas.requests import (
     AnalysisCreateSchema,
@@ -75,6 +76,9 @@ def priced_analysis(
     else:
         params = {"grid": spec["grid"]}
         field = f"{prefix}grid"
+    if kind == "robustness" and record is None and question.get("find") == "sample_size":
+        # The panel runs at the n the request finds; until then the formula's n prices it.
+        record = formula_record(question)
     try:
         estimate = analysis_cost(kind, params, question, record)
     except QuestionError as exc:
@@ -88,6 +92,17 @@ def priced_analysis(
         )
         raise ValidationFailed(message, errors={field: [message]}, estimate=estimate, budget=budget)
     return params, int(estimate)
+
+
+def formula_record(question: dict) -> dict | None:
+    """The formula's answer to ``question`` (its analytic counterpart), or None without one."""
+    analytic = copy.deepcopy(question)
+    analytic["method"] = "analytic"
+    analytic.pop("simulation", None)
+    try:
+        return compute(analytic)
+    except EngineError:
+        return None
 
 
 def _publish(analysis_id: str) -> bool:

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import hashlib
 import hmac
+import logging
 import math
 import os
 import re
@@ -34,6 +35,8 @@ from flask_limiter import Limiter
 from flask_limiter.errors import RateLimitExceeded
 from flask_limiter.util import get_remote_address
 from limits import parse as parse_limit
+from limits.storage import MemoryStorage
+from limits.strategies import FixedWindowRateLimiter
 from werkzeug.wrappers import Response
 
 from service.engine import EngineError, estimate_cost
@@ -47,6 +50,8 @@ from .context import sessions, settings
 from .errors import ApiError, NotFound, ValidationFailed, problem
 from .identity import Caller, current_caller
 from .io import refuse_bad_path_text
+
+log = logging.getLogger(__name__)
 
 INTAKE, STATISTICIAN, AUDITOR, ADMIN = TOKEN_ROLES
 ANY_ROLE = frozenset(TOKEN_ROLES)
@@ -328,7 +333,15 @@ def _limit_unauthenticated() -> None:
     item = parse_limit(str(settings()["RATE_LIMIT"]))
     key = ("unauthenticated", f"addr:{get_remote_address()}")
     strategy = limiter.limiter
-    if strategy.hit(item, *key):
+    try:
+        allowed = strategy.hit(item, *key)
+    except Exception:  # the shared store is down: count in this process, like the limiter does
+        log.warning("rate-limit storage unavailable; counting unauthenticated calls in memory")
+        strategy = current_app.extensions.setdefault(
+            "sizewise_fallback_limiter", FixedWindowRateLimiter(MemoryStorage())
+        )
+        allowed = strategy.hit(item, *key)
+    if allowed:
         return
     reset = strategy.get_window_stats(item, *key).reset_time
     raise ApiError(

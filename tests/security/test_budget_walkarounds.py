@@ -298,3 +298,10 @@ def test_four_eyes_can_be_turned_off(make_app, api):
     request_id = _computed(app, client, api, moreau)
     r = client.post(f"/v1/requests/{request_id}/approve", json={"note": "ok"}, headers=moreau)
     assert r.status_code == 200
+
+
+def test_unauthenticated_calls_are_counted_while_the_shared_store_is_down(make_app):
+    # Nothing listens on this port: the counters fall back to this process, never to a 500.
+    app = make_app(RATE_LIMIT="2 per hour", RATELIMIT_STORAGE_URL="redis://127.0.0.1:6399/0")
+    client = app.test_client()
+    assert [client.get("/v1/designs").status_code for _ in range(3)] == [401, 401, 429]

@@ -31,6 +31,7 @@ from .auth import charge
 from .context import sessions, settings
 from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
+from .feasibility import extreme_fields
 from .identity import current_actor
 from .io import load_body, reject_query
 from .views import load_request, located
@@ -76,6 +77,7 @@ def priced_analysis(
     else:
         params = {"grid": spec["grid"]}
         field = f"{prefix}grid"
+        _refuse_extreme_cells(spec["grid"], field)
     if kind == "robustness" and record is None and question.get("find") == "sample_size":
         # The panel runs at the n the request finds; until then the formula's n prices it.
         record = formula_record(question)
@@ -92,6 +94,22 @@ def priced_analysis(
         )
         raise ValidationFailed(message, errors={field: [message]}, estimate=estimate, budget=budget)
     return params, int(estimate)
+
+
+def _refuse_extreme_cells(grid: dict, field: str) -> None:
+    """Refuse grid values whose magnitude no cell could compute with (as at submission)."""
+    errors = {}
+    for path, values in grid.items():
+        extreme = [v for v in values if extreme_fields(v)] if isinstance(values, list) else []
+        if extreme:
+            errors[f"{field}.{path}"] = [
+                f"values of magnitude above 1e100 or below 1e-100 leave double precision in the "
+                f"computation; got {extreme[0]!r}"
+            ]
+    if errors:
+        raise ValidationFailed(
+            f"{len(errors)} grid axis (axes) hold values no cell could compute with", errors=errors
+        )
 
 
 def formula_record(question: dict) -> dict | None:

@@ -262,3 +262,17 @@ def test_ordinary_questions_in_any_unit_still_pass(client, api):
         "simulation": {"replicates": 200, "seed": 1},
     }
     assert client.post("/v1/requests", json=api.request_body(simulated)).status_code == 202
+
+
+def test_grid_values_no_cell_could_compute_with_are_refused(app, client, api):
+    body = api.request_body(analyses={"sensitivity": {"grid": {"effect.difference": [0.5, 1e308]}}})
+    before = stored_rows(app)
+    problem = _problem(client.post("/v1/requests", json=body), 422)
+    assert "1e+308" in problem["errors"]["analyses.sensitivity.grid.effect.difference"][0]
+    assert stored_rows(app) == before
+    request_id = client.post("/v1/requests", json=api.request_body()).get_json()["id"]
+    before = stored_rows(app)
+    grid = {"kind": "sensitivity", "grid": {"effect.sd": [1e-320, 1.0]}}
+    problem = _problem(client.post(f"/v1/requests/{request_id}/analyses", json=grid), 422)
+    assert list(problem["errors"]) == ["grid.effect.sd"]
+    assert stored_rows(app) == before

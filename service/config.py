@@ -28,6 +28,16 @@ class Setting(NamedTuple):
     meaning: str
 
 
+def boolean(raw: str) -> bool:
+    """Parse a yes/no setting: true/1/yes/on or false/0/no/off (any case)."""
+    value = raw.strip().lower()
+    if value in ("true", "1", "yes", "on"):
+        return True
+    if value in ("false", "0", "no", "off"):
+        return False
+    raise ValueError(raw)
+
+
 SETTINGS: tuple[Setting, ...] = (
     Setting(
         "SIZEWISE_DATABASE_URL",
@@ -87,16 +97,25 @@ SETTINGS: tuple[Setting, ...] = (
     ),
     Setting(
         "SIZEWISE_RATELIMIT_STORAGE_URL",
-        "memory://",
+        "",
         str,
-        "Where the rate-limit counters live; memory:// (per process) is replaced by the broker's "
-        "URL when the broker is Redis, so every API process shares one count.",
+        "Where the rate-limit counters live. Empty: the broker's Redis when the broker is Redis, "
+        "else the SQLite file ratelimit.sqlite under SIZEWISE_VAR_DIR (or var/), so every API "
+        "process shares one count; memory:// counts per process (one process only).",
     ),
     Setting(
         "SIZEWISE_TOKEN_HOURLY_BUDGET",
         20_000_000_000,
         int,
-        "Estimated random draws the requests submitted with one token may cost within an hour.",
+        "Estimated random draws one token may cause within an hour: its simulated requests, "
+        "reruns, sensitivity grids and robustness panels together.",
+    ),
+    Setting(
+        "SIZEWISE_FOUR_EYES",
+        True,
+        boolean,
+        "Four-eyes review: a request cannot be approved by the token that submitted it nor by a "
+        "token of the same name (false, 0 or no turns it off).",
     ),
     Setting(
         "SIZEWISE_SECRET_KEY",

@@ -38,6 +38,7 @@ from service.store.models import (  # noqa: E402
     Request,
     Rerun,
     Result,
+    TokenSpend,
 )
 
 PG_HOST = "127.0.0.1"
@@ -89,7 +90,7 @@ def empty_tables(url: str) -> None:
     """Delete every row (children first) so each test starts from an empty database."""
     engine = make_engine(url)
     with engine.begin() as conn:
-        for model in (ChunkResult, Result, Rerun, AuditEvent, Request, ApiToken):
+        for model in (ChunkResult, Result, Rerun, AuditEvent, Request, ApiToken, TokenSpend):
             conn.execute(delete(model))
     engine.dispose()
 
@@ -101,6 +102,8 @@ def settings(database_url: str, tmp_path: Path) -> dict:
     return {
         "DATABASE_URL": database_url,
         "BROKER_URL": f"filesystem://{tmp_path / 'broker'}",
+        # One count per test application; the shared counters have tests of their own.
+        "RATELIMIT_STORAGE_URL": "memory://",
         "TESTING": True,
     }
 

@@ -8,11 +8,12 @@ request that failed or was cancelled takes no new analysis (409).
 
 from __future__ import annotations
 
+import copy
 import logging
 
 from flask import Blueprint, jsonify, url_for
 
-from service.engine import QuestionError, draw_seed
+from service.engine import EngineError, QuestionError, compute, draw_seed
 from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
 from service.schemas.requests import (
     AnalysisCreateSchema,
@@ -26,9 +27,11 @@ from service.store.db import session_scope
 from service.store.models import Analysis, Request
 
 from . import render
+from .auth import charge
 from .context import sessions, settings
 from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
+from .feasibility import extreme_fields
 from .identity import current_actor
 from .io import load_body, reject_query
 from .views import load_request, located
@@ -45,7 +48,14 @@ ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
 def analysis_params(
     question: dict, record: dict | None, kind: str, spec: dict, *, prefix: str = ""
 ) -> dict:
-    """Validate one analysis against the request, price it, and return the params to store.
+    """Validate one analysis against the request and return the params to store."""
+    return priced_analysis(question, record, kind, spec, prefix=prefix)[0]
+
+
+def priced_analysis(
+    question: dict, record: dict | None, kind: str, spec: dict, *, prefix: str = ""
+) -> tuple[dict, int]:
+    """Validate one analysis against the request, price it; return (params, estimated draws).
 
     Errors are keyed ``prefix + field`` (``grid.effect.sd``, ``analyses.robustness``); a grid or
     panel over ``SIMULATION_BUDGET`` is refused (422) with its estimate.
@@ -67,6 +77,10 @@ def analysis_params(
     else:
         params = {"grid": spec["grid"]}
         field = f"{prefix}grid"
+        _refuse_extreme_cells(spec["grid"], field)
+    if kind == "robustness" and record is None and question.get("find") == "sample_size":
+        # The panel runs at the n the request finds; until then the formula's n prices it.
+        record = formula_record(question)
     try:
         estimate = analysis_cost(kind, params, question, record)
     except QuestionError as exc:
@@ -79,7 +93,34 @@ def analysis_params(
             f"{budget:,}; use fewer cells or fewer replicates"
         )
         raise ValidationFailed(message, errors={field: [message]}, estimate=estimate, budget=budget)
-    return params
+    return params, int(estimate)
+
+
+def _refuse_extreme_cells(grid: dict, field: str) -> None:
+    """Refuse grid values whose magnitude no cell could compute with (as at submission)."""
+    errors = {}
+    for path, values in grid.items():
+        extreme = [v for v in values if extreme_fields(v)] if isinstance(values, list) else []
+        if extreme:
+            errors[f"{field}.{path}"] = [
+                f"values of magnitude above 1e100 or below 1e-100 leave double precision in the "
+                f"computation; got {extreme[0]!r}"
+            ]
+    if errors:
+        raise ValidationFailed(
+            f"{len(errors)} grid axis (axes) hold values no cell could compute with", errors=errors
+        )
+
+
+def formula_record(question: dict) -> dict | None:
+    """The formula's answer to ``question`` (its analytic counterpart), or None without one."""
+    analytic = copy.deepcopy(question)
+    analytic["method"] = "analytic"
+    analytic.pop("simulation", None)
+    try:
+        return compute(analytic)
+    except EngineError:
+        return None
 
 
 def _publish(analysis_id: str) -> bool:
@@ -127,8 +168,9 @@ def create_analysis(request_id: str):
             )
         result = request_store.result_for(session, request_id)
         record = result.record if result is not None else None
-        params = analysis_params(row.question, record, data["kind"], data)
+        params, estimate = priced_analysis(row.question, record, data["kind"], data)
         analysis_id = store.create_analysis(session, request_id, data["kind"], params, actor).id
+        charge(session, [(data["kind"], analysis_id, estimate)])
     if record is not None:
         _publish(analysis_id)
     with session_scope(sessions()) as session:
@@ -178,24 +220,29 @@ def get_analysis(request_id: str, analysis_id: str):
 # --- analyses and effect source posted with the request ----------------------------------
 
 
-def store_submission(session, row: Request, body: dict, actor: str) -> list[str]:
-    """Store a submission's effect source and its analyses (unpublished until computed)."""
+def store_submission(session, row: Request, body: dict, actor: str) -> list[tuple[str, str, int]]:
+    """Store a submission's effect source and its analyses (unpublished until computed).
+
+    Returns ``(kind, analysis id, estimated draws)`` of each analysis, for the token's budget.
+    """
     if body.get("effect_source") is not None:
         row.effect_source = body["effect_source"]
     asked = body.get("analyses") or {}
-    ids = []
+    stored = []
     for kind, spec in (
         ("sensitivity", asked.get("sensitivity")),
         ("robustness", asked.get("robustness")),
     ):
         if not spec:
             continue
-        params = analysis_params(
+        params, estimate = priced_analysis(
             row.question,
             None,
             kind,
             spec if isinstance(spec, dict) else {},
             prefix=f"analyses.{kind}.",
         )
-        ids.append(store.create_analysis(session, row.id, kind, params, actor).id)
-    return ids
+        stored.append(
+            (kind, store.create_analysis(session, row.id, kind, params, actor).id, estimate)
+        )
+    return stored

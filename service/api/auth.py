@@ -20,10 +20,12 @@ from __future__ import annotations
 
 import hashlib
 import hmac
+import logging
 import math
 import os
 import re
 import secrets
+import time
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -33,6 +35,9 @@ from flask.testing import FlaskClient
 from flask_limiter import Limiter
 from flask_limiter.errors import RateLimitExceeded
 from flask_limiter.util import get_remote_address
+from limits import parse as parse_limit
+from limits.storage import MemoryStorage
+from limits.strategies import FixedWindowRateLimiter
 from werkzeug.wrappers import Response
 
 from service.engine import EngineError, estimate_cost
@@ -41,9 +46,13 @@ from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES, Request
 from service.store.types import utcnow
 
+from . import counters
 from .context import sessions, settings
 from .errors import ApiError, NotFound, ValidationFailed, problem
 from .identity import Caller, current_caller
+from .io import refuse_bad_path_text
+
+log = logging.getLogger(__name__)
 
 INTAKE, STATISTICIAN, AUDITOR, ADMIN = TOKEN_ROLES
 ANY_ROLE = frozenset(TOKEN_ROLES)
@@ -89,11 +98,14 @@ LINK_ENDPOINTS = frozenset({"reports.request_report", "reports.curve_svg", "repo
 LINK_PARAM = "link"
 LINK_LIFETIME = timedelta(hours=24)
 LINK_ROLE = "report link"
+# ASCII only (str.isdigit accepts other scripts' digits; compare_digest refuses non-ASCII text).
+_LINK_PATTERN = re.compile(r"([0-9a-f]{32})\.([0-9]{1,12})\.([0-9a-f]{64})", re.ASCII)
+_REQUEST_ID = re.compile(r"[0-9a-f]{32}", re.ASCII)
 LINK_KEY_FILE = "secret_key"
 # The audit action that revokes every report link of a request issued until then.
 LINKS_REVOKED = "report_links_revoked"
-_REQUEST_ID = re.compile(r"^[0-9a-f]{32}$")
 LIMITER_EXTENSION = "sizewise_limiter"
+COUNTERS_FILE = "ratelimit.sqlite"
 BUDGET_WINDOW = timedelta(hours=1)
 
 
@@ -145,11 +157,16 @@ def _check_owner(caller: Caller) -> None:
     if caller.role != INTAKE or not isinstance(request_id, str):
         return
     with session_scope(sessions()) as session:
-        row = session.get(Request, request_id) if len(request_id) == 32 else None
+        row = session.get(Request, request_id) if _REQUEST_ID.fullmatch(request_id) else None
         owner = row.submitted_by if row is not None else None
     # Unknown ids fall through to the view, which answers the same 404 with its own checks.
     if owner is not None and owner != caller.token_id:
         raise NotFound(f"no request with id '{request_id}'")
+
+
+def var_folder() -> Path:
+    """The folder of what every API process on the host shares: SIZEWISE_VAR_DIR, else var/."""
+    return Path(os.environ.get("SIZEWISE_VAR_DIR") or Path(__file__).resolve().parents[2] / "var")
 
 
 def link_key(config: dict[str, Any]) -> bytes:
@@ -157,7 +174,7 @@ def link_key(config: dict[str, Any]) -> bytes:
     configured = str(config.get("SECRET_KEY") or "")
     if configured:
         return configured.encode("utf-8")
-    folder = Path(os.environ.get("SIZEWISE_VAR_DIR") or Path(__file__).resolve().parents[2] / "var")
+    folder = var_folder()
     path = folder / LINK_KEY_FILE
     folder.mkdir(mode=0o700, parents=True, exist_ok=True)
     try:
@@ -230,20 +247,20 @@ def _link_caller(token: str) -> Caller:
     from flask import current_app
 
     request_id = (request.view_args or {}).get("request_id", "")
-    parts = token.split(".")
-    if len(parts) != 3 or not parts[1].isdigit() or len(parts[2]) != 64:
+    match = _LINK_PATTERN.fullmatch(token)
+    if match is None:
         raise _link_refused(
             "the report link is malformed; ask for a new one with POST "
             f"/v1/requests/{request_id}/report-links",
             "must be '<request id>.<expiry>.<signature>' as issued",
         )
-    linked, expires_text, signature = parts
+    linked, expires_text, signature = match.groups()
+    expires = int(expires_text)
     key = current_app.extensions["sizewise"]["link_key"]
     generation = 0
     if _REQUEST_ID.match(linked):
         with session_scope(sessions()) as session:
             generation = link_generation(session, linked)
-    expires = int(expires_text)
     if not hmac.compare_digest(signature, _signature(key, linked, expires, generation)):
         if any(
             hmac.compare_digest(signature, _signature(key, linked, expires, older))
@@ -264,8 +281,16 @@ def _link_caller(token: str) -> Caller:
             f"this report link opens request '{linked}', not '{request_id}'",
             errors={f"query.{LINK_PARAM}": [f"issued for request '{linked}'"]},
         )
-    expires_at = datetime.fromtimestamp(int(expires_text), UTC)
-    if expires_at <= utcnow():
+    now = utcnow()
+    if expires > (now + LINK_LIFETIME).timestamp() + 1:
+        # No link is issued for longer than LINK_LIFETIME: one that claims more was not made here.
+        raise _link_refused(
+            "the report link's expiry lies further ahead than any issued link's "
+            f"{LINK_LIFETIME.total_seconds() / 3600:g} h; ask for a new one",
+            "expiry beyond the lifetime of an issued link",
+        )
+    expires_at = datetime.fromtimestamp(expires, UTC)
+    if expires_at <= now:
         raise _link_refused(
             f"the report link expired at {expires_at.isoformat()}; ask for a new one",
             f"expired at {expires_at.isoformat()}",
@@ -273,17 +298,11 @@ def _link_caller(token: str) -> Caller:
     return Caller(f"link:{request_id}", LINK_ROLE, LINK_ROLE)
 
 
-def authenticate() -> None:
-    """Before every request: verify the bearer token (or report link) and the endpoint's role."""
-    endpoint = request.endpoint
-    # No endpoint means a 404 or 405 from routing; nothing is served, so nothing to protect.
-    if endpoint is None or endpoint in PUBLIC:
-        return
+def _verified_caller(endpoint: str) -> Caller:
+    """The caller of a valid report link or bearer token; Unauthorized otherwise."""
     link = request.args.get(LINK_PARAM)
     if link is not None and endpoint in LINK_ENDPOINTS and request.method in ("GET", "HEAD"):
-        # The link names its one request, so neither the role table nor ownership applies.
-        g.caller = _link_caller(link)
-        return
+        return _link_caller(link)
     secret = _bearer_secret()
     with session_scope(sessions()) as session:
         row = token_store.verify_token(session, secret)
@@ -294,7 +313,25 @@ def authenticate() -> None:
             errors={"headers.Authorization": ["unknown or revoked token"]},
             headers={"WWW-Authenticate": f'{REALM}, error="invalid_token"'},
         )
+    return caller
+
+
+def authenticate() -> None:
+    """Before every request: verify the bearer token (or report link) and the endpoint's role."""
+    endpoint = request.endpoint
+    # No endpoint means a 404 or 405 from routing; nothing is served, so nothing to protect.
+    if endpoint is None or endpoint in PUBLIC:
+        return
+    try:
+        caller = _verified_caller(endpoint)
+    except Unauthorized:
+        # Calls that fail authentication never reach the per-token limit: count their address.
+        _limit_unauthenticated()
+        raise
     g.caller = caller
+    if caller.role == LINK_ROLE:
+        # The link names its one request, so neither the role table nor ownership applies.
+        return
     allowed = ACCESS.get(endpoint, frozenset())
     if caller.role not in allowed:
         names = ", ".join(r for r in TOKEN_ROLES if r in allowed) or "none"
@@ -313,12 +350,51 @@ def rate_limit_key() -> str:
 
 
 def storage_url(config: dict[str, Any]) -> str:
-    """Return where rate-limit counters live: the setting, or the Redis broker for memory://."""
-    url = str(config.get("RATELIMIT_STORAGE_URL") or "memory://")
+    """Return where rate-limit counters live, shared by every API process.
+
+    The setting when given; else (empty) the broker when it is Redis, else a SQLite file beside
+    the report-link key under SIZEWISE_VAR_DIR (or var/) that every process on the host opens.
+    ``memory://`` (one count per process) must be asked for explicitly.
+    """
+    url = str(config.get("RATELIMIT_STORAGE_URL") or "")
+    if url:
+        return url
     broker = str(config.get("BROKER_URL") or "")
-    if url == "memory://" and broker.startswith(("redis://", "rediss://")):
+    if broker.startswith(("redis://", "rediss://")):
         return broker
-    return url
+    return f"{counters.SCHEME}://{var_folder() / COUNTERS_FILE}"
+
+
+def _limit_unauthenticated() -> None:
+    """Count a call refused for want of a valid token against its address; 429 past the rate."""
+    from flask import current_app
+
+    limiter = current_app.extensions.get(LIMITER_EXTENSION)
+    if limiter is None or not limiter.enabled:
+        return
+    item = parse_limit(str(settings()["RATE_LIMIT"]))
+    key = ("unauthenticated", f"addr:{get_remote_address()}")
+    strategy = limiter.limiter
+    try:
+        allowed = strategy.hit(item, *key)
+    except Exception:  # the shared store is down: count in this process, like the limiter does
+        log.warning("rate-limit storage unavailable; counting unauthenticated calls in memory")
+        strategy = current_app.extensions.setdefault(
+            "sizewise_fallback_limiter", FixedWindowRateLimiter(MemoryStorage())
+        )
+        allowed = strategy.hit(item, *key)
+    if allowed:
+        return
+    reset = strategy.get_window_stats(item, *key).reset_time
+    raise ApiError(
+        f"the rate limit of {item} per address for calls without a valid token is used up; "
+        "retry after the Retry-After header's seconds",
+        status=429,
+        title="Too many requests",
+        slug="rate-limited",
+        headers={"Retry-After": str(max(1, math.ceil(reset - time.time())))},
+        limit=str(item),
+    )
 
 
 def _rate_limited(exc: RateLimitExceeded) -> Response:
@@ -337,6 +413,7 @@ def init_auth(app: Flask) -> Limiter:
     from . import health
 
     # Registered before the limiter's own hook, so the limit is keyed by the verified token.
+    app.before_request(refuse_bad_path_text)
     app.before_request(authenticate)
     config = app.extensions["sizewise"]["config"]
     app.extensions["sizewise"]["link_key"] = link_key(config)
@@ -367,7 +444,10 @@ def _cost(question: dict, field: str = "question") -> int:
 
 
 def check_submission_cost(question: dict) -> int:
-    """Refuse a submission over the per-simulation budget (422) or the token's hourly one (429)."""
+    """Refuse a simulation over the per-simulation budget (422); return its estimated draws.
+
+    The token's hourly budget is charged by ``charge`` in the transaction that stores the work.
+    """
     config = settings()
     estimate = _cost(question)
     per_simulation = int(config["SIMULATION_BUDGET"])
@@ -382,37 +462,32 @@ def check_submission_cost(question: dict) -> int:
             estimate=estimate,
             budget=per_simulation,
         )
-    if estimate == 0:
-        return 0
-    hourly = int(config["TOKEN_HOURLY_BUDGET"])
-    now = utcnow()
-    with session_scope(sessions()) as session:
-        recent = token_store.submitted_since(
-            session, current_caller().token_id, now - BUDGET_WINDOW
-        )
-    costs = [(at, _cost(q)) for at, q in recent]
-    spent = sum(c for _, c in costs)
-    remaining = max(hourly - spent, 0)
-    if estimate > remaining:
-        raise BudgetUsed(
-            f"this simulation's estimated cost of {estimate:,} draws exceeds the "
-            f"{remaining:,} draws left of this token's hourly budget of {hourly:,}",
-            headers={"Retry-After": str(_seconds_until_room(costs, estimate, hourly, now))},
-            estimate=estimate,
-            remaining=remaining,
-            budget=hourly,
-        )
     return estimate
 
 
-def _seconds_until_room(costs, estimate: int, hourly: int, now) -> int:
-    """Seconds until enough of the window's spending ages out for ``estimate`` to fit."""
-    spent = sum(c for _, c in costs)
-    for at, cost in costs:
-        spent -= cost
-        if hourly - spent >= estimate:
-            return max(1, math.ceil((at + BUDGET_WINDOW - now).total_seconds()))
-    return int(BUDGET_WINDOW.total_seconds())
+def charge(session, items: list[tuple[str, str, int]]) -> int:
+    """Reserve ``(kind, subject id, draws)`` against the caller's hourly budget, or 429.
+
+    Runs inside the transaction that stores the work, so a refusal stores nothing and concurrent
+    calls of one token cannot together pass the budget (see ``tokens.reserve_spend``).
+    """
+    hourly = int(settings()["TOKEN_HOURLY_BUDGET"])
+    try:
+        return token_store.reserve_spend(
+            session, current_caller().token_id, items, budget=hourly, window=BUDGET_WINDOW
+        )
+    except token_store.BudgetRefused as exc:
+        what = (
+            "this simulation's" if len(items) == 1 else "these simulations' (request and analyses)"
+        )
+        raise BudgetUsed(
+            f"{what} estimated cost of {exc.estimate:,} draws exceeds the "
+            f"{exc.remaining:,} draws left of this token's hourly budget of {hourly:,}",
+            headers={"Retry-After": str(exc.retry_after)},
+            estimate=exc.estimate,
+            remaining=exc.remaining,
+            budget=hourly,
+        ) from None
 
 
 def local_client(app: Flask, role: str = STATISTICIAN, name: str = "local client") -> FlaskClient:

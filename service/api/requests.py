@@ -8,7 +8,7 @@ import re
 from flask import Blueprint, jsonify, request, url_for
 from sqlalchemy.exc import IntegrityError
 
-from service.engine import draw_seed
+from service.engine import draw_seed, estimate_cost
 from service.schemas.api import (
     AssignSchema,
     CancelSchema,
@@ -27,14 +27,16 @@ from service.schemas.requests import (
 )
 from service.store import requests as store
 from service.store.db import session_scope
+from service.store.models import ApiToken
 
 from . import render
 from .analyses import store_submission
-from .auth import check_submission_cost
-from .context import sessions
+from .auth import charge, check_submission_cost
+from .context import sessions, settings
 from .docs import operation
-from .errors import Conflict, NotFound, ValidationFailed
-from .identity import current_actor, submitter
+from .errors import ApiError, Conflict, NotFound, ValidationFailed
+from .feasibility import check_computable
+from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
 from .publishing import publish_job
 from .views import load_request, located, visible_request_page
@@ -142,7 +144,8 @@ def submit_request():
         if earlier is not None:
             return _created(earlier, 200)
     data = RequestCreateSchema().load(raw)
-    check_submission_cost(data["question"])
+    check_computable(data["question"], data["question_raw"])
+    estimate = check_submission_cost(data["question"])
     question = _with_seed(data["question"])
     try:
         with session_scope(sessions()) as session:
@@ -160,7 +163,9 @@ def submit_request():
                 body_sha256=digest,
             )
             # The effect source and analyses asked for with the request are part of the same row set.
-            store_submission(session, row, data, actor)
+            analyses = store_submission(session, row, data, actor)
+            # Budget check and reservation in the transaction that stores the work: all or nothing.
+            charge(session, [("request", row.id, estimate), *analyses])
             request_id = row.id
     except IntegrityError:
         if key is None:
@@ -266,12 +271,34 @@ def comment_request(request_id: str):
     return jsonify(event), 201
 
 
-def _review(request_id: str, decision: str):
-    return _transition(
-        request_id,
-        ReviewNoteSchema(),
-        lambda session, row, actor, data: store.review(session, row, actor, decision, data["note"]),
+def _four_eyes(session, row) -> None:
+    """Refuse (403) an approval by the token that submitted the request or by its holder."""
+    if not settings()["FOUR_EYES"] or row.status not in store.REVIEWABLE:
+        return
+    caller = current_caller()
+    submitted_with = session.get(ApiToken, row.submitted_by)
+    # Token names identify people (one person may hold an intake and a statistician token).
+    same_person = submitted_with is not None and (
+        submitted_with.name.casefold() == caller.name.casefold()
     )
+    if row.submitted_by == caller.token_id or same_person:
+        raise ApiError(
+            f"request '{row.id}' was submitted by '{caller.name}'; four-eyes review needs "
+            "another statistician to approve it",
+            status=403,
+            title="Approval needs a second person",
+            slug="four-eyes",
+            errors={"token": ["the approver must not be the submitter"]},
+        )
+
+
+def _review(request_id: str, decision: str):
+    def change(session, row, actor, data):
+        if decision == "approve":
+            _four_eyes(session, row)
+        return store.review(session, row, actor, decision, data["note"])
+
+    return _transition(request_id, ReviewNoteSchema(), change)
 
 
 @bp.post("/requests/<request_id>/approve")
@@ -322,6 +349,8 @@ def create_rerun(request_id: str):
             rerun_id = store.create_rerun(session, row, actor, data.get("note")).id
         except store.ResultMissing as exc:
             raise Conflict(str(exc), current_status=exc.status) from None
+        # A rerun simulates again: the auditor's token pays like any other.
+        charge(session, [("rerun", rerun_id, estimate_cost(row.question))])
     publish_job("rerun", rerun_id)
     with session_scope(sessions()) as session:
         body = render.rerun(store.get_rerun(session, request_id, rerun_id))

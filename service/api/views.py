@@ -23,7 +23,7 @@ _ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
 
 def load_request(session: Session, request_id: str) -> Request:
     """Return the request ``request_id`` or raise 404; a malformed id is not looked up."""
-    row = store.get_request(session, request_id) if _ID_PATTERN.match(request_id) else None
+    row = store.get_request(session, request_id) if _ID_PATTERN.fullmatch(request_id) else None
     if row is None:
         raise NotFound(f"no request with id '{request_id}'")
     return row

@@ -6,6 +6,7 @@ or one sample) from the design of the question it sits in.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from typing import Any
 
@@ -32,7 +33,9 @@ FAMILY_PARAMS: dict[str, dict[str, tuple[Interval, str]]] = {
     "normal": {"mean": (REAL, "mean"), "sd": (POSITIVE, "standard deviation")},
     "lognormal": {
         "mu": (REAL, "mean of the log"),
-        "sigma": (POSITIVE, "standard deviation of the log"),
+        # Above 10 the variance is over e^100 times the squared median: draws overflow the sums
+        # every test statistic takes, so no answer could be computed.
+        "sigma": (Interval(0, 10, low_open=True), "standard deviation of the log"),
     },
     "gamma": {"shape": (POSITIVE, "shape k"), "scale": (POSITIVE, "scale theta")},
     "student_t": {
@@ -92,6 +95,26 @@ class ArmBase(Strict):
             raise ValidationError(
                 {"high": [f"must be > low ({number_text(data['low'])}); got {show(data['high'])}"]}
             )
+
+    @validates_schema(skip_on_field_errors=True)
+    def _finite_moments(self, data: dict, **kwargs: Any) -> None:
+        # Parameters each in range can still give a mean or variance past double precision
+        # (e.g. a normal sd of 1e200); the simulation could not compute with them.
+        from service.engine.models import moments
+
+        try:
+            values = moments(data)
+            finite = all(v is None or math.isfinite(v) for v in values)
+        except (OverflowError, ValueError, ZeroDivisionError):
+            finite = False
+        if not finite:
+            names = [n for n in FAMILY_PARAMS[data["family"]] if n in data]
+            message = (
+                f"the {data['family']} arm's mean or variance overflows double precision with "
+                f"{', '.join(f'{n}={show(data[n])}' for n in names)}; use smaller parameters "
+                "(or other units)"
+            )
+            raise ValidationError({n: [message] for n in names})
 
 
 def _arm_schema(family: str) -> type[Schema]:

@@ -52,9 +52,30 @@ def length(lo: int, hi: int) -> validate.Length:
     return validate.Length(min=lo, max=hi, error="must be {min} to {max} characters long")
 
 
-EMAIL_ERRORS = {"invalid": "must be an e-mail address; got {input!r}"}
-DATE_ERRORS = {"invalid": "must be an ISO date (YYYY-MM-DD); got {input!r}"}
-INT_ERRORS = {"invalid": "must be a whole number; got {input!r}"}
+class _AnotherType:
+    def __repr__(self) -> str:
+        return "a value of another type"
+
+
+class _EchoArgs(dict):
+    def __missing__(self, key: str) -> _AnotherType:
+        return _AnotherType()
+
+
+class Echo(str):
+    """A message echoing ``{input!r}`` that also formats when a field's type check gives no input.
+
+    marshmallow formats a field's "invalid" message without ``input`` when the posted value has
+    the wrong JSON type (a number for an e-mail); a plain str would raise KeyError there (a 500).
+    """
+
+    def format(self, *args, **kwargs) -> str:
+        return self.format_map(_EchoArgs(kwargs))
+
+
+EMAIL_ERRORS = {"invalid": Echo("must be an e-mail address; got {input!r}")}
+DATE_ERRORS = {"invalid": Echo("must be an ISO date (YYYY-MM-DD); got {input!r}")}
+INT_ERRORS = {"invalid": Echo("must be a whole number; got {input!r}")}
 
 
 class QuestionField(fields.Dict):
@@ -125,7 +146,7 @@ class AnalysesRequestSchema(StrictSchema):
 
     sensitivity = fields.Nested(SensitivityRequestSchema)
     robustness = fields.Boolean(
-        error_messages={"invalid": "must be true or false; got {input!r}"},
+        error_messages={"invalid": Echo("must be true or false; got {input!r}")},
         metadata={
             "description": "Simulate the test under departures from the planned data (two_means, rank_sum)."
         },
@@ -398,7 +419,10 @@ class RequestQueryArgsSchema(StrictSchema):
     submitted_to = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "Last UTC day, inclusive."}
     )
-    page = fields.Integer(load_default=1, error_messages=INT_ERRORS, validate=in_range(1))
+    # Bounded so a page number always fits the database's integers (100 x 1,000,000 rows).
+    page = fields.Integer(
+        load_default=1, error_messages=INT_ERRORS, validate=in_range(1, 1_000_000)
+    )
     per_page = fields.Integer(load_default=20, error_messages=INT_ERRORS, validate=in_range(1, 100))
 
     @validates_schema

@@ -224,3 +224,24 @@ class ApiToken(Base):
     created_at: Mapped[Stamp] = mapped_column(default=utcnow)
     last_used_at: Mapped[datetime | None]
     revoked_at: Mapped[datetime | None]
+
+
+SPEND_KINDS = ("request", "rerun", "sensitivity", "robustness")
+
+
+class TokenSpend(Base):
+    """The estimated random draws one token caused: one row per simulation it set going.
+
+    A row is written in the same transaction as the request, rerun or analysis it pays for, after
+    the token's row is locked, so the hourly budget is checked and reserved in one step.
+    """
+
+    __tablename__ = "token_spend"
+    __table_args__ = (CheckConstraint(_in("kind", SPEND_KINDS), name="kind"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    token_id: Mapped[str] = mapped_column(String(32), index=True)
+    kind: Mapped[str] = mapped_column(String(16))
+    subject_id: Mapped[str] = mapped_column(String(32))
+    cost: Mapped[int] = mapped_column(BigInteger)
+    spent_at: Mapped[Stamp] = mapped_column(default=utcnow, index=True)

@@ -7,6 +7,7 @@ A token's secret is ``sw_`` + 43 URL-safe characters (32 random bytes). It is re
 from __future__ import annotations
 
 import hashlib
+import math
 import secrets
 import uuid
 from datetime import datetime, timedelta
@@ -15,7 +16,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from .audit import append_event
-from .models import TOKEN_ROLES, ApiToken, Request
+from .models import TOKEN_ROLES, ApiToken, Request, TokenSpend
 from .types import utcnow
 
 TOKEN_PREFIX = "sw_"
@@ -149,13 +150,68 @@ def ensure_demo_token(session: Session) -> str:
     return secret
 
 
-def submitted_since(
-    session: Session, submitted_by: str, since: datetime
-) -> list[tuple[datetime, dict]]:
-    """Return ``(submitted_at, question)`` of the requests ``submitted_by`` made since ``since``."""
-    rows = session.execute(
-        select(Request.submitted_at, Request.question)
-        .where(Request.submitted_by == submitted_by, Request.submitted_at >= since)
-        .order_by(Request.submitted_at)
+class BudgetRefused(Exception):
+    """The token's hourly budget has no room for ``estimate``; nothing was reserved."""
+
+    def __init__(self, estimate: int, remaining: int, budget: int, retry_after: int):
+        super().__init__(f"estimate {estimate} > remaining {remaining} of {budget}")
+        self.estimate = estimate
+        self.remaining = remaining
+        self.budget = budget
+        self.retry_after = retry_after
+
+
+def reserve_spend(
+    session: Session,
+    token_id: str,
+    items: list[tuple[str, str, int]],
+    *,
+    budget: int,
+    window: timedelta,
+    now: datetime | None = None,
+) -> int:
+    """Record ``(kind, subject_id, cost)`` items against the token if its window has room.
+
+    One step for concurrent callers: the token's row is locked (PostgreSQL: FOR UPDATE; SQLite:
+    the ledger insert takes the database's single write lock) before the window is summed, so
+    two submissions cannot both see the same room. Raises BudgetRefused (the caller's transaction
+    must then roll back); returns the total reserved.
+    """
+    items = [(kind, subject, int(cost)) for kind, subject, cost in items if cost > 0]
+    estimate = sum(cost for _kind, _subject, cost in items)
+    if not items:
+        return 0
+    now = now or utcnow()
+    session.execute(select(ApiToken.id).where(ApiToken.id == token_id).with_for_update())
+    rows = [
+        TokenSpend(token_id=token_id, kind=kind, subject_id=subject, cost=cost, spent_at=now)
+        for kind, subject, cost in items
+    ]
+    session.add_all(rows)
+    # On SQLite this flush takes the single write lock, so the window is read after it.
+    session.flush()
+    ours = {row.id for row in rows}
+    window_rows = session.execute(
+        select(TokenSpend.id, TokenSpend.spent_at, TokenSpend.cost)
+        .where(TokenSpend.token_id == token_id, TokenSpend.spent_at >= now - window)
+        .order_by(TokenSpend.spent_at, TokenSpend.id)
+    ).all()
+    earlier = [(at, cost) for row_id, at, cost in window_rows if row_id not in ours]
+    spent = sum(cost for _at, cost in earlier)
+    if spent + estimate <= budget:
+        return estimate
+    raise BudgetRefused(
+        estimate,
+        max(budget - spent, 0),
+        budget,
+        _seconds_until_room(earlier, spent, estimate, budget, now, window),
     )
-    return [(at, question) for at, question in rows]
+
+
+def _seconds_until_room(earlier, spent: int, estimate: int, budget: int, now, window) -> int:
+    """Seconds until enough of the window's spending ages out for ``estimate`` to fit."""
+    for at, cost in earlier:
+        spent -= cost
+        if budget - spent >= estimate:
+            return max(1, math.ceil((at + window - now).total_seconds()))
+    return int(window.total_seconds())

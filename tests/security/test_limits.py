@@ -14,7 +14,7 @@ from service.api.auth import storage_url
 from service.engine import estimate_cost
 from service.schemas import load_question
 from service.store.db import session_scope
-from service.store.models import Request
+from service.store.models import TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
@@ -59,14 +59,18 @@ def test_rate_limit_is_per_token_and_answers_problem_json(make_app):
     assert all(client.get("/healthz").status_code == 200 for _ in range(5))
 
 
-def test_rate_limit_storage_follows_a_redis_broker():
-    assert storage_url({"RATELIMIT_STORAGE_URL": "memory://", "BROKER_URL": "filesystem://"}) == (
-        "memory://"
+def test_rate_limit_storage_is_shared_by_default(tmp_path, monkeypatch):
+    monkeypatch.setenv("SIZEWISE_VAR_DIR", str(tmp_path))
+    # Empty (the default): a file every process on the host opens, or the Redis broker.
+    assert storage_url({"RATELIMIT_STORAGE_URL": "", "BROKER_URL": "filesystem://"}) == (
+        f"sizewise+sqlite://{tmp_path / 'ratelimit.sqlite'}"
     )
     redis = "redis://127.0.0.1:6379/0"
-    assert storage_url({"RATELIMIT_STORAGE_URL": "memory://", "BROKER_URL": redis}) == redis
+    assert storage_url({"RATELIMIT_STORAGE_URL": "", "BROKER_URL": redis}) == redis
     other = "redis://127.0.0.1:6379/5"
     assert storage_url({"RATELIMIT_STORAGE_URL": other, "BROKER_URL": redis}) == other
+    # Per-process counting only when asked for by name.
+    assert storage_url({"RATELIMIT_STORAGE_URL": "memory://", "BROKER_URL": redis}) == "memory://"
 
 
 def _simulation(replicates: int = 1000) -> dict:
@@ -111,7 +115,7 @@ def test_hourly_budget_per_token(make_app, _body):
     assert client.post("/v1/requests", json=_body(_simulation()), headers=park).status_code == 202
     # Spending older than an hour no longer counts.
     with session_scope(app.extensions["sizewise"]["sessions"]) as session:
-        session.execute(update(Request).values(submitted_at=utcnow() - timedelta(hours=2)))
+        session.execute(update(TokenSpend).values(spent_at=utcnow() - timedelta(hours=2)))
     assert client.post("/v1/requests", json=_body(_simulation()), headers=okafor).status_code == 202
 
 
@@ -140,8 +144,8 @@ def test_rate_limit_counts_are_shared_through_a_redis_broker(make_app):
         pytest.skip("SIZEWISE_SKIP_SERVICES=1")
     # Two applications stand for two API processes; the counter lives in Redis, not in either.
     redis = "redis://127.0.0.1:6379/0"
-    first = make_app(BROKER_URL=redis, RATE_LIMIT="2 per minute")
-    second = make_app(BROKER_URL=redis, RATE_LIMIT="2 per minute")
+    first = make_app(BROKER_URL=redis, RATE_LIMIT="2 per minute", RATELIMIT_STORAGE_URL="")
+    second = make_app(BROKER_URL=redis, RATE_LIMIT="2 per minute", RATELIMIT_STORAGE_URL="")
     headers = _headers(first, "auditor", "shared")
     assert first.test_client().get("/v1/designs", headers=headers).status_code == 200
     assert second.test_client().get("/v1/designs", headers=headers).status_code == 200

@@ -1,0 +1,82 @@
+"""Refuse at submission what the worker could not compute.
+
+``POST /v1/calculations`` computes in-process, so a question whose numbers overflow is refused
+there; a submission used to be stored and fail later in the worker. ``check_computable`` runs
+the same engine checks before anything is stored: an analytic question is answered once (the
+formulas take milliseconds; the worker recomputes and records), a simulated one has its formula
+counterpart evaluated when it has one, which is where a non-finite effect shows.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from collections.abc import Mapping
+from typing import Any
+
+from service.engine import EngineError, QuestionError, compute
+
+from .errors import ValidationFailed
+
+# Magnitudes outside this band are named as the likely cause when the numerics fail.
+_LARGE, _SMALL = 1e100, 1e-100
+
+
+def extreme_fields(value: Any, path: str = "question") -> list[str]:
+    """Dotted paths of the numbers in ``value`` far outside double precision's working range."""
+    if isinstance(value, bool):
+        return []
+    if isinstance(value, (int, float)):
+        x = abs(float(value)) if math.isfinite(float(value)) else math.inf
+        return [path] if x > _LARGE or 0 < x < _SMALL else []
+    if isinstance(value, Mapping):
+        return [p for k, v in value.items() for p in extreme_fields(v, f"{path}.{k}")]
+    if isinstance(value, list):
+        return [p for i, v in enumerate(value) for p in extreme_fields(v, f"{path}.{i}")]
+    return []
+
+
+def _numeric_failure(exc: EngineError) -> bool:
+    """True when the engine failed on arithmetic (overflow, division by zero, a non-finite value)."""
+    cause = exc.__cause__
+    return isinstance(cause, ArithmeticError) or "not finite" in str(exc)
+
+
+def _refuse(question: dict, posted: Any) -> ValidationFailed:
+    # Named as posted (the normalized question splits some fields, e.g. sd per arm).
+    fields = extreme_fields(posted) or extreme_fields(question) or ["question"]
+    message = (
+        "the question cannot be computed: its numbers leave double precision (a quotient "
+        "overflows or a division reaches zero); use values of ordinary magnitude, e.g. other units"
+    )
+    return ValidationFailed(message, errors={f: [message] for f in fields})
+
+
+def check_computable(question: dict, posted: Any = None) -> None:
+    """Raise ValidationFailed (422, field-keyed) when the engine cannot compute ``question``.
+
+    ``posted`` is the question as posted, whose paths the refusal names.
+    """
+    simulated = question.get("method") == "simulation"
+    if not simulated:
+        try:
+            compute(question)
+        except QuestionError as exc:
+            raise ValidationFailed(
+                str(exc), errors={f"question.{k}": v for k, v in exc.as_errors().items()}
+            ) from None
+        except EngineError as exc:
+            raise _refuse(question, posted) from exc
+        return
+    if not question.get("effect"):
+        return  # a data model only: its moments were checked by the schema
+    analytic = copy.deepcopy(question)
+    analytic["method"] = "analytic"
+    analytic.pop("simulation", None)
+    try:
+        compute(analytic)
+    except QuestionError:
+        return  # no formula counterpart for this simulation: nothing to compare against
+    except EngineError as exc:
+        if _numeric_failure(exc):
+            raise _refuse(question, posted) from exc

@@ -16,7 +16,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from .audit import append_event
-from .models import TOKEN_ROLES, ApiToken, Request, TokenSpend
+from .models import TOKEN_ROLES, ApiToken, TokenSpend
 from .types import utcnow
 
 TOKEN_PREFIX = "sw_"

@@ -102,6 +102,9 @@ def settings(database_url: str, tmp_path: Path) -> dict:
         "DATABASE_URL": database_url,
         "BROKER_URL": f"filesystem://{tmp_path / 'broker'}",
         "TESTING": True,
+        # Most tests drive a queued request by hand; tests of the answer at submission turn
+        # it on (it is on by default in service.config).
+        "ANSWER_AT_SUBMISSION": False,
     }
 
 

@@ -146,8 +146,11 @@ def _executor(factory, hooks: _Hooks, config: dict, *, fan_out: bool, runner, or
     )
 
 
-def _event(session, request_id: str | None, action: str, detail: dict) -> None:
-    audit.append_event(session, request_id=request_id, actor=actor(), action=action, detail=detail)
+def _event(session, request_id: str | None, action: str, detail: dict, *, owner: str = "") -> None:
+    # The actor is the owner's "<role>:<host>" prefix: worker:<host>, or api:<host> when the
+    # API answered a closed-form question itself.
+    who = ":".join(owner.split(":")[:2]) if owner.count(":") >= 2 else actor()
+    audit.append_event(session, request_id=request_id, actor=who, action=action, detail=detail)
 
 
 def _claim(session, kind: str, job_id: str, owner: str, config: dict) -> bool:
@@ -209,9 +212,14 @@ def run_request_job(
     fan_out: bool = False,
     runner: Callable[[dict], dict] = engine_run_chunk,
     order: Callable[[list[int]], list[int]] | None = None,
+    factory: sessionmaker | None = None,
 ) -> str:
-    """Claim and compute one request; return its outcome ('computed', 'skipped', 'failed', ...)."""
-    factory = sessions(config)
+    """Claim and compute one request; return its outcome ('computed', 'skipped', 'failed', ...).
+
+    The API calls this too, with its own ``factory`` and an ``api:`` owner, for closed-form
+    questions: the same claim, events and record as on a worker, without the queue.
+    """
+    factory = factory or sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
         if not _claim(session, "request", request_id, owner, config):
@@ -219,7 +227,7 @@ def run_request_job(
         row = session.get(Request, request_id)
         question = row.question
         attempts = row.attempts
-        _event(session, request_id, "running", {"owner": owner, "attempt": attempts})
+        _event(session, request_id, "running", {"owner": owner, "attempt": attempts}, owner=owner)
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
     started = utcnow()
@@ -284,7 +292,13 @@ def run_rerun_job(
         request_id = rerun.request_id
         question = session.scalar(select(Request.question).where(Request.id == request_id))
         original = session.scalar(select(Result.record).where(Result.request_id == request_id))
-        _event(session, request_id, "rerun_running", {"rerun_id": rerun_id, "owner": owner})
+        _event(
+            session,
+            request_id,
+            "rerun_running",
+            {"rerun_id": rerun_id, "owner": owner},
+            owner=owner,
+        )
 
     def work(hooks: _Hooks) -> dict:
         if original is None:

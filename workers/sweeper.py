@@ -15,6 +15,9 @@ from datetime import UTC, datetime, timedelta
 
 from service.store import jobs
 from service.store.db import session_scope
+from workers.fanout import clear_orphan_units
+from workers.queue import publish_and_mark
+from workers.sessions import sessions
 
 log = logging.getLogger(__name__)
 
@@ -24,9 +27,6 @@ _STOP = threading.Event()
 
 def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     """Publish every stale job once; return how many the broker accepted."""
-    from workers.queue import publish_and_mark
-    from workers.tasks import sessions
-
     factory = sessions(config)
     now = now or datetime.now(UTC)
     with session_scope(factory) as session:
@@ -37,6 +37,9 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
             grace_seconds=grace(config).total_seconds(),
             republish_seconds=republish_after(config).total_seconds(),
         )
+        orphans = clear_orphan_units(session)
+    if orphans:
+        log.info("sweeper: deleted %d work unit(s) of ended jobs", orphans)
     published = 0
     for kind, job_id in stale:
         # A refusal means the broker is down; the next sweep tries again.

@@ -23,7 +23,7 @@ from service.store.db import session_scope
 from service.store.models import Analysis, Request, Result
 from workers.celery_app import TASK_NAMES, app
 from workers.queue import publish
-from workers.tasks import _Hooks, executor_for, new_owner, run_claimed, sessions
+from workers.tasks import _Hooks, _waited, executor_for, new_owner, run_claimed, sessions
 
 log = logging.getLogger(__name__)
 
@@ -69,6 +69,7 @@ def run_analysis_job(
             return "skipped"
         row = session.get(Analysis, analysis_id)
         kind, params, request_id = row.kind, dict(row.params), row.request_id
+        _waited("analysis", row.created_at)
         question, status = session.execute(
             select(Request.question, Request.status).where(Request.id == request_id)
         ).one()

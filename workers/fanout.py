@@ -28,6 +28,7 @@ from datetime import UTC, datetime, timedelta
 from sqlalchemy import and_, delete, insert, or_, select, update
 from sqlalchemy.exc import IntegrityError
 
+from service import metrics
 from service.engine import Cancelled, canonical_json
 from service.engine import run_chunk as engine_run_chunk
 from service.store.db import session_scope
@@ -208,6 +209,7 @@ def work_units(
         results = [runner(task) for task in tasks]
         with session_scope(sessionmaker) as session:
             store_unit(session, job_kind, job_id, key, results)
+        metrics.WORK_UNITS.labels("helper").inc()
         done += 1
     return done
 
@@ -333,6 +335,7 @@ class ChunkExecutor:
                 with session_scope(self.sessionmaker) as session:
                     store_unit(session, self.job_kind, self.job_id, key, unit_results)
                 mine.add(key)
+                metrics.WORK_UNITS.labels("orchestrator").inc()
                 self.heartbeat()
             with session_scope(self.sessionmaker) as session:
                 states = _unit_states(session, self.job_kind, self.job_id, list(pending))

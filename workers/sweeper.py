@@ -10,6 +10,7 @@ is also registered as the ``sizewise.sweep`` task for deployments that prefer Ce
 from __future__ import annotations
 
 import logging
+import os
 import threading
 from datetime import UTC, datetime, timedelta
 
@@ -23,6 +24,14 @@ log = logging.getLogger(__name__)
 
 _THREAD: threading.Thread | None = None
 _STOP = threading.Event()
+# Held for a whole sweep round, and across every fork: a pool child forked while this thread
+# held a lock (logging, the connection pool, SQLite's) would wait on it forever, and the
+# worker would take messages its replacement children never run.
+_ROUND = threading.Lock()
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(
+        before=_ROUND.acquire, after_in_parent=_ROUND.release, after_in_child=_ROUND.release
+    )
 
 
 def sweep_once(config: dict, *, now: datetime | None = None) -> int:
@@ -52,7 +61,8 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
 def _loop(config: dict, interval: float) -> None:
     while not _STOP.wait(interval):
         try:
-            sweep_once(config)
+            with _ROUND:
+                sweep_once(config)
         except Exception:  # a database hiccup must not kill the thread; try again next round
             log.exception("sweeper round failed")
 

@@ -23,6 +23,7 @@ from sqlalchemy import select
 from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import sessionmaker
 
+from service import metrics
 from service.engine import Cancelled, EngineError, canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
 from service.engine.records import differences
@@ -144,6 +145,14 @@ def _executor(factory, hooks: _Hooks, config: dict, *, fan_out: bool, runner, or
     )
 
 
+def _waited(kind: str, since: datetime | None) -> None:
+    """Observe the queue wait of a job just claimed (submission to claim)."""
+    if since is not None:
+        if since.tzinfo is None:  # SQLite hands back naive UTC
+            since = since.replace(tzinfo=UTC)
+        metrics.QUEUE_WAIT.labels(kind).observe(max((utcnow() - since).total_seconds(), 0.0))
+
+
 def _event(session, request_id: str | None, action: str, detail: dict, *, owner: str = "") -> None:
     # The actor is the owner's "<role>:<host>" prefix: worker:<host>, or api:<host> when the
     # API answered a closed-form question itself.
@@ -174,7 +183,9 @@ def run_claimed(
     Returns ``store``'s outcome, 'failed', 'cancelled' (only when ``cancellable``) or 'lost';
     an OperationalError is raised, so the lease expires and the sweeper retries the job.
     """
+    started = time.perf_counter()
     outcome = _settle(factory, config, kind, job_id, owner, work, store, cancellable, log_failure)
+    metrics.COMPUTE_TIME.labels(kind, owner.split(":", 1)[0]).observe(time.perf_counter() - started)
     if outcome != "lost":
         # The job has ended: its shared work units are of no further use.
         with session_scope(factory) as session:
@@ -234,6 +245,7 @@ def run_request_job(
         row = session.get(Request, request_id)
         question = row.question
         attempts = row.attempts
+        _waited("request", row.submitted_at)
         _event(session, request_id, "running", {"owner": owner, "attempt": attempts}, owner=owner)
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
@@ -295,6 +307,7 @@ def run_rerun_job(
             return "skipped"
         rerun = session.get(Rerun, rerun_id)
         request_id = rerun.request_id
+        _waited("rerun", rerun.requested_at)
         question = session.scalar(select(Request.question).where(Request.id == request_id))
         original = session.scalar(select(Result.record).where(Result.request_id == request_id))
         _event(

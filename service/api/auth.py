@@ -34,6 +34,7 @@ from flask_limiter.util import get_remote_address
 from werkzeug.wrappers import Response
 
 from service.engine import EngineError, estimate_cost
+from service.metrics import BUDGET_REFUSALS
 from service.store import tokens as token_store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES, Request
@@ -77,6 +78,8 @@ ACCESS: dict[str, frozenset[str]] = {
     "tokens.create_token": frozenset({ADMIN}),
     "tokens.list_tokens": frozenset({ADMIN}),
     "tokens.revoke_token": frozenset({ADMIN}),
+    # Operators' view of the pipeline; Prometheus sends an admin bearer token.
+    "metrics.metrics_page": frozenset({ADMIN}),
 }
 
 REALM = 'Bearer realm="sizewise"'
@@ -331,6 +334,7 @@ def check_submission_cost(question: dict) -> int:
             f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
             f"{per_simulation:,}; lower replicates (or search_replicates) or the sample size"
         )
+        BUDGET_REFUSALS.labels("per_simulation").inc()
         raise ValidationFailed(
             message,
             errors={"question.simulation.replicates": [message]},
@@ -349,6 +353,7 @@ def check_submission_cost(question: dict) -> int:
     spent = sum(c for _, c in costs)
     remaining = max(hourly - spent, 0)
     if estimate > remaining:
+        BUDGET_REFUSALS.labels("token_hourly").inc()
         raise BudgetUsed(
             f"this simulation's estimated cost of {estimate:,} draws exceeds the "
             f"{remaining:,} draws left of this token's hourly budget of {hourly:,}",

@@ -11,7 +11,7 @@ from __future__ import annotations
 import logging
 from datetime import datetime, timedelta
 
-from sqlalchemy import and_, false, or_, select, update
+from sqlalchemy import and_, false, or_, select, true, update
 from sqlalchemy.orm import Session
 
 from service.engine.records import canonical_json, differences
@@ -373,7 +373,14 @@ def stale_jobs(
                         model.status.in_(_queued_statuses(kind)),
                         stamp <= cutoff,
                     ),
-                    and_(model.status == "running", model.lease_expires_at < now),
+                    # A dead worker's job once per republish interval, not every sweep.
+                    and_(
+                        model.status == "running",
+                        model.lease_expires_at < now,
+                        or_(model.published_at.is_(None), model.published_at < resend)
+                        if resend is not None
+                        else true(),
+                    ),
                     lost,
                 )
             )

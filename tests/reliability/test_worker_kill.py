@@ -12,17 +12,18 @@ from __future__ import annotations
 
 import os
 import signal
+import time
 
 import psutil
 import pytest
-from sqlalchemy import func, select
+from sqlalchemy import select
 from workers_testkit import Stack
 
 from service import create_app
 from service.config import load_config
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
-from service.store.models import ChunkResult, Request, Result
+from service.store.models import Request, Result
 from tests.reliability.helpers import wait_for
 from workers.tasks import sessions
 
@@ -73,25 +74,18 @@ def stack(config: dict):
     app.extensions["sizewise"]["engine"].dispose()
 
 
-def _mid_run(factory, request_id: str) -> tuple[int, int] | None:
-    """(lease owner's pid, chunks done) once the request runs with some but not all chunks done."""
+def _mid_run(factory, request_id: str) -> tuple[int, float] | None:
+    """(lease owner's pid, progress) once the request runs part-way (recorded progress 5-60%)."""
     with session_scope(factory) as session:
-        status, owner = session.execute(
-            select(Request.status, Request.lease_owner).where(Request.id == request_id)
-        ).one()
-        done = session.scalar(
-            select(func.count())
-            .select_from(ChunkResult)
-            .where(
-                ChunkResult.job_kind == "request",
-                ChunkResult.job_id == request_id,
-                ChunkResult.status == "done",
+        status, owner, progress = session.execute(
+            select(Request.status, Request.lease_owner, Request.progress).where(
+                Request.id == request_id
             )
-        )
-    if status != "running" or owner is None or not 2 <= done < CHUNKS // 2:
+        ).one()
+    if status != "running" or owner is None or not 0.05 <= (progress or 0.0) < 0.6:
         return None
     # Lease owners are worker:<host>:<pid>:<random> (workers.tasks.new_owner).
-    return int(owner.rsplit(":", 2)[1]), done
+    return int(owner.rsplit(":", 2)[1]), progress
 
 
 @pytest.mark.parametrize("target", ["pool_child", "worker_main"])
@@ -135,3 +129,34 @@ def test_killed_worker_job_completes_with_identical_digits(config, stack, start_
             if target == "pool_child":
                 # The killed attempt was claimed, so the one that finished came after it.
                 assert attempts >= 2, (request_id, attempts)
+
+
+def test_embedded_default_survives_the_death_of_both_pool_children(sqlite_config, start_worker):
+    """The embedded default (SQLite + folder broker): kill both pool children mid-simulation;
+    the replacement children must take the job back and finish it with the undisturbed digits."""
+    config = dict(sqlite_config, LEASE_SECONDS=10, SWEEP_SECONDS=1, MAX_ATTEMPTS=6)
+    app = create_app(dict(config, TESTING=True))
+    stack = Stack(app)
+    try:
+        worker = start_worker(config, concurrency=2)
+        request_id = stack.submit(_posted(seed=7200))
+        stack.wait(request_id, until=("running", "computed"), timeout=120, worker=worker)
+        time.sleep(2.0)  # part-way through its 40 chunks (tens of seconds in all)
+        children = psutil.Process(worker.proc.pid).children()
+        assert len(children) == 2, children
+        for child in children:
+            os.kill(child.pid, signal.SIGKILL)
+        body = stack.wait(request_id, timeout=180, worker=worker)
+        assert body["status"] == "computed", (body["error"], worker.tail())
+        assert canonical_json(body["result"]) == canonical_json(compute(body["question"]))
+        assert body["attempts"] >= 2
+        # The sweeper's republishing leaves one 'published' event, however often it resent.
+        actions = [e["action"] for e in body["history"]]
+        assert actions.count("published") == 1, actions
+        # A second request still runs on the replacement children.
+        second = stack.submit(
+            _posted(seed=7201) | {"simulation": {**_posted(7201)["simulation"], "replicates": 1000}}
+        )
+        assert stack.wait(second, timeout=120, worker=worker)["status"] == "computed"
+    finally:
+        app.extensions["sizewise"]["engine"].dispose()

@@ -15,8 +15,12 @@ from pathlib import Path
 
 from celery import Celery
 from kombu import Queue
+from kombu.transport import TRANSPORT_ALIASES
 
 from service.config import broker_transport_options, load_config
+
+# filesystem:// uses kombu's folder transport with atomic message files (see fs_transport).
+TRANSPORT_ALIASES["filesystem"] = "workers.fs_transport:Transport"
 
 QUEUE = "sizewise"
 # Helper tasks (shared work units of a long simulation) wait here, never ahead of a request.

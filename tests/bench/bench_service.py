@@ -49,6 +49,7 @@ def body(question: dict) -> dict:
         "requester": {
             "name": "Clinical Research Office",
             "email": "cro@northbridge-general.example",
+            "department": "Research office",
         },
         "question": question,
     }

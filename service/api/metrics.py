@@ -1,8 +1,14 @@
-"""GET /metrics: the Prometheus text format (admin token), and the API latency histogram."""
+"""GET /metrics (Prometheus text format, admin token), the API latency histogram, X-Request-Id.
+
+Every response carries ``X-Request-Id``: the caller's own id when it is well formed (1-64 of
+letters, digits and ``._:-``), else a new random one.
+"""
 
 from __future__ import annotations
 
+import re
 import time
+import uuid
 
 from flask import Blueprint, Flask, Response, g, request
 
@@ -34,11 +40,19 @@ def metrics_page():
     return Response(body, content_type=content_type)
 
 
+REQUEST_ID_HEADER = "X-Request-Id"
+_REQUEST_ID = re.compile(r"^[A-Za-z0-9._:-]{1,64}$")
+
+
 def _start() -> None:
     g.metrics_started = time.perf_counter()
+    # A caller's well-formed id is kept (so its logs and ours can be joined); else a new one.
+    sent = request.headers.get(REQUEST_ID_HEADER, "")
+    g.request_id = sent if _REQUEST_ID.match(sent) else uuid.uuid4().hex
 
 
 def _observe(response):
+    response.headers[REQUEST_ID_HEADER] = g.get("request_id") or uuid.uuid4().hex
     started = g.pop("metrics_started", None)
     if started is not None:
         route = request.url_rule.rule if request.url_rule is not None else "unmatched"

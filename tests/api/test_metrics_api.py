@@ -39,3 +39,14 @@ def test_job_counts_latency_and_budget_refusals(api, app, client, auth):
 def test_metrics_need_an_admin_token(client, auth, anon_client):
     assert anon_client.get("/metrics").status_code == 401
     assert client.get("/metrics", headers=auth("statistician")).status_code == 403
+
+
+def test_every_response_carries_a_request_id(client, anon_client):
+    mine = client.get("/v1/designs", headers={"X-Request-Id": "ngh-cro.trace:42"})
+    assert mine.headers["X-Request-Id"] == "ngh-cro.trace:42"  # a well-formed id is kept
+    new = client.get("/v1/designs")
+    assert len(new.headers["X-Request-Id"]) == 32
+    bad = client.get("/v1/designs", headers={"X-Request-Id": "no spaces allowed"})
+    assert bad.headers["X-Request-Id"] not in ("no spaces allowed", new.headers["X-Request-Id"])
+    # Refusals carry one too.
+    assert len(anon_client.get("/v1/designs").headers["X-Request-Id"]) == 32

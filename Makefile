@@ -6,7 +6,7 @@ PY := $(VENV)/bin/python
 STAMP := $(VENV)/.sizewise-installed
 PYTEST_ARGS ?=
 
-.PHONY: install run test bench lint
+.PHONY: install run test bench bench-service lint
 
 $(PY):
 	$(PYTHON) -m venv $(VENV)
@@ -28,6 +28,10 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) -m tests.bench.bench_engine
+
+# The pipeline end to end (embedded default, and PostgreSQL + Redis when they answer).
+bench-service: $(STAMP)
+	$(PY) -m tests.bench.bench_service
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check .

@@ -19,6 +19,16 @@ VAR_DIR = REPO_ROOT / "var"
 PREFIX = "SIZEWISE_"
 
 
+def flag(raw: str) -> bool:
+    """Parse an on/off setting: 1/true/yes/on or 0/false/no/off (any case)."""
+    value = raw.strip().lower()
+    if value in ("1", "true", "yes", "on"):
+        return True
+    if value in ("0", "false", "no", "off"):
+        return False
+    raise ValueError(f"expected one of 1/true/yes/on or 0/false/no/off; got {raw!r}")
+
+
 class Setting(NamedTuple):
     """One documented setting: environment name, default, parser and meaning."""
 
@@ -53,6 +63,31 @@ SETTINGS: tuple[Setting, ...] = (
         "(filesystem:///some/dir puts them under that folder instead).",
     ),
     Setting("SIZEWISE_WORKER_CONCURRENCY", 2, int, "Worker processes per Celery worker."),
+    Setting(
+        "SIZEWISE_BROKER_POLL_SECONDS",
+        0.02,
+        float,
+        "How often a worker looks for new messages in a filesystem:// broker's folder.",
+    ),
+    Setting(
+        "SIZEWISE_ANSWER_AT_SUBMISSION",
+        True,
+        flag,
+        "Closed-form questions are computed by the API at submission (off: by the workers).",
+    ),
+    Setting(
+        "SIZEWISE_FANOUT_HELPERS",
+        1,
+        int,
+        "Helper tasks published when a long simulation batch is split: all worker processes "
+        "of all workers together, minus one (0: never split).",
+    ),
+    Setting(
+        "SIZEWISE_FANOUT_SPLIT_SECONDS",
+        1.0,
+        float,
+        "A simulation batch estimated to take longer than this is split across workers.",
+    ),
     Setting(
         "SIZEWISE_SIMULATION_BUDGET",
         2_000_000_000,

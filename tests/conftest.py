@@ -105,6 +105,9 @@ def settings(database_url: str, tmp_path: Path) -> dict:
         # One count per test application; the shared counters have tests of their own.
         "RATELIMIT_STORAGE_URL": "memory://",
         "TESTING": True,
+        # Most tests drive a queued request by hand; tests of the answer at submission turn
+        # it on (it is on by default in service.config).
+        "ANSWER_AT_SUBMISSION": False,
     }
 
 

@@ -4,8 +4,8 @@ The discipline is run_request's (``workers.tasks``): claim the analysis with a l
 store the result only while the lease is ours, fail with the reason on bad input. An analysis
 runs only once its request has a result: a worker that claims one too early gives it back
 unpublished and without using an attempt (``jobs.release_analysis``), and the sweeper
-publishes it again once the result exists (``jobs.stale_jobs``). Simulated cells fan out
-their chunks across workers through ``chunk_results`` with job kind 'analysis'.
+publishes it again once the result exists (``jobs.stale_jobs``). Long simulated batches are
+shared with helper workers through work units (``workers.fanout``, job kind 'analysis').
 """
 
 from __future__ import annotations
@@ -22,8 +22,8 @@ from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Analysis, Request, Result
 from workers.celery_app import TASK_NAMES, app
-from workers.fanout import ChunkExecutor, run_one
-from workers.tasks import _Hooks, new_owner, run_claimed, sessions
+from workers.queue import publish
+from workers.tasks import _Hooks, _waited, executor_for, new_owner, run_claimed, sessions
 
 log = logging.getLogger(__name__)
 
@@ -34,16 +34,7 @@ _ENDED_WITHOUT_RESULT = ("failed", "cancelled")
 
 def publish_analysis(analysis_id: str, config: dict) -> bool:
     """Send ``sizewise.run_analysis``; True when the broker took it (False: the sweeper retries)."""
-    from workers.queue import publish
-
     return publish("analysis", analysis_id, config)
-
-
-def publish_analysis_chunk(analysis_id: str, task: dict, config: dict) -> bool:
-    """Send one ``sizewise.run_analysis_chunk`` so another worker helps with a batch."""
-    from workers.queue import publish_chunk
-
-    return publish_chunk("analysis", analysis_id, task, config)
 
 
 def _run(kind: str, params: dict, question: dict, record: dict, **hooks) -> dict:
@@ -78,6 +69,7 @@ def run_analysis_job(
             return "skipped"
         row = session.get(Analysis, analysis_id)
         kind, params, request_id = row.kind, dict(row.params), row.request_id
+        _waited("analysis", row.created_at)
         question, status = session.execute(
             select(Request.question, Request.status).where(Request.id == request_id)
         ).one()
@@ -100,21 +92,7 @@ def run_analysis_job(
                 f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
                 f"{budget:,}; use fewer cells or fewer replicates"
             )
-        executor = ChunkExecutor(
-            factory,
-            job_kind="analysis",
-            job_id=analysis_id,
-            owner=owner,
-            lease_seconds=lease,
-            publish=(
-                (lambda _kind, job_id, task: publish_analysis_chunk(job_id, task, config))
-                if fan_out
-                else None
-            ),
-            heartbeat=hooks.renew,
-            runner=runner,
-            order=order,
-        )
+        executor = executor_for(factory, hooks, config, fan_out=fan_out, runner=runner, order=order)
         return _run(
             kind,
             params,
@@ -133,23 +111,6 @@ def run_analysis_job(
     return run_claimed(factory, config, "analysis", analysis_id, owner, work, store)
 
 
-def run_analysis_chunk_job(analysis_id: str, task: dict, config: dict) -> str:
-    """Help a running analysis with one chunk; quiet when it is taken, done or not running."""
-    factory = sessions(config)
-    with session_scope(factory) as session:
-        status = session.scalar(select(Analysis.status).where(Analysis.id == analysis_id))
-    if status != "running":
-        return "skipped"
-    return run_one(
-        factory,
-        job_kind="analysis",
-        job_id=analysis_id,
-        task=task,
-        owner=new_owner(),
-        lease_seconds=float(config["LEASE_SECONDS"]),
-    )
-
-
 @app.task(name=TASK_NAME, acks_late=True)
 def run_analysis(analysis_id: str) -> str:
     """Compute one analysis by id (safe to deliver twice)."""
@@ -157,6 +118,6 @@ def run_analysis(analysis_id: str) -> str:
 
 
 @app.task(name=CHUNK_TASK_NAME, acks_late=True)
-def run_analysis_chunk(analysis_id: str, task: dict) -> str:
-    """Compute one chunk of a running analysis if no one else has (safe to deliver twice)."""
-    return run_analysis_chunk_job(analysis_id, task, dict(app.conf.sizewise))
+def run_analysis_chunk(*_args) -> str:
+    """A chunk message of the previous release: chunks are no longer messages; drop it."""
+    return "obsolete"

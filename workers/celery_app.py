@@ -4,6 +4,9 @@ Run a worker with ``celery -A workers.celery_app worker --pool prefork --concurr
 Every Celery setting lives in :func:`celery_settings`, one dict, so the queue's behaviour can be
 read (and tested) in one place. Our database is the source of truth: results are not stored in
 Celery, tasks take an id only, and every task is safe to run twice.
+
+Imports run one way only: celery_app ← queue ← sweeper ← tasks ← analysis_tasks. This module
+imports no other worker module; the worker imports the tasks through ``include``.
 """
 
 from __future__ import annotations
@@ -11,15 +14,24 @@ from __future__ import annotations
 from pathlib import Path
 
 from celery import Celery
+from kombu import Queue
+from kombu.transport import TRANSPORT_ALIASES
 
 from service.config import broker_transport_options, load_config
 
+# filesystem:// uses kombu's folder transport with atomic message files (see fs_transport).
+TRANSPORT_ALIASES["filesystem"] = "workers.fs_transport:Transport"
+
 QUEUE = "sizewise"
+# Helper tasks (shared work units of a long simulation) wait here, never ahead of a request.
+HELPER_QUEUE = "sizewise.helpers"
 
 TASK_NAMES = {
     "request": "sizewise.run_request",
     "rerun": "sizewise.run_rerun",
     "analysis": "sizewise.run_analysis",
+    "helper": "sizewise.run_helper",
+    # chunk messages of the previous release, drained and dropped
     "chunk": "sizewise.run_chunk",
     "analysis_chunk": "sizewise.run_analysis_chunk",
     "sweep": "sizewise.sweep",
@@ -39,6 +51,8 @@ def _transport_options(config: dict) -> dict:
         options.setdefault("control_folder", str(root / "control"))
         for key in ("data_folder_in", "data_folder_out", "processed_folder", "control_folder"):
             Path(options[key]).mkdir(parents=True, exist_ok=True)
+        # kombu's default is one look at the folder per second: a queue that answers in seconds.
+        options.setdefault("polling_interval", float(config.get("BROKER_POLL_SECONDS", 0.02)))
     elif url.startswith(("redis://", "rediss://")):
         # A dead Redis must fail the API's publish fast rather than hang a request thread.
         options.setdefault("socket_connect_timeout", 3)
@@ -84,6 +98,12 @@ def celery_settings(config: dict) -> dict:
         "task_time_limit": hard,
         "task_soft_time_limit": soft,
         "task_default_queue": QUEUE,
+        # Every worker consumes both queues (requests listed first); helpers go to their own.
+        "task_queues": (
+            Queue(QUEUE, routing_key=QUEUE),
+            Queue(HELPER_QUEUE, routing_key=HELPER_QUEUE),
+        ),
+        "task_routes": {TASK_NAMES["helper"]: {"queue": HELPER_QUEUE, "routing_key": HELPER_QUEUE}},
         "task_create_missing_queues": True,
         "worker_concurrency": int(config.get("WORKER_CONCURRENCY", 2)),
         "timezone": "UTC",
@@ -102,6 +122,3 @@ def make_celery(config: dict) -> Celery:
 
 # SIZEWISE_* environment variables override the defaults (service.config).
 app = make_celery(load_config())
-
-# Importing the tasks registers them on ``app`` (``include`` does the same inside the worker).
-from workers import tasks as _tasks  # noqa: E402,F401

@@ -74,10 +74,13 @@ def publish_and_mark(kind: str, job_id: str, config: dict, factory) -> bool:
     return True
 
 
-def publish_chunk(kind: str, job_id: str, task: dict, config: dict) -> bool:
-    """Send one chunk message so another worker can help with a batch of ``kind``'s job."""
+def publish_helpers(kind: str, job_id: str, count: int, config: dict) -> int:
+    """Send ``count`` helper tasks for a job's work units (helper queue); return how many went."""
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
-    if kind == "analysis":  # analyses have their own chunk task, keyed by the analysis alone
-        return _send(TASK_NAMES["analysis_chunk"], [job_id, task], config)
-    return _send(TASK_NAMES["chunk"], [kind, job_id, task], config)
+    sent = 0
+    for _ in range(max(int(count), 0)):
+        if not _send(TASK_NAMES["helper"], [kind, job_id], config):
+            break  # the broker is down: the orchestrator computes the units itself
+        sent += 1
+    return sent

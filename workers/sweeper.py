@@ -10,23 +10,32 @@ is also registered as the ``sizewise.sweep`` task for deployments that prefer Ce
 from __future__ import annotations
 
 import logging
+import os
 import threading
 from datetime import UTC, datetime, timedelta
 
 from service.store import jobs
 from service.store.db import session_scope
+from workers.fanout import clear_orphan_units
+from workers.queue import publish_and_mark
+from workers.sessions import sessions
 
 log = logging.getLogger(__name__)
 
 _THREAD: threading.Thread | None = None
 _STOP = threading.Event()
+# Held for a whole sweep round, and across every fork: a pool child forked while this thread
+# held a lock (logging, the connection pool, SQLite's) would wait on it forever, and the
+# worker would take messages its replacement children never run.
+_ROUND = threading.Lock()
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(
+        before=_ROUND.acquire, after_in_parent=_ROUND.release, after_in_child=_ROUND.release
+    )
 
 
 def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     """Publish every stale job once; return how many the broker accepted."""
-    from workers.queue import publish_and_mark
-    from workers.tasks import sessions
-
     factory = sessions(config)
     now = now or datetime.now(UTC)
     with session_scope(factory) as session:
@@ -37,6 +46,9 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
             grace_seconds=grace(config).total_seconds(),
             republish_seconds=republish_after(config).total_seconds(),
         )
+        orphans = clear_orphan_units(session)
+    if orphans:
+        log.info("sweeper: deleted %d work unit(s) of ended jobs", orphans)
     published = 0
     for kind, job_id in stale:
         # A refusal means the broker is down; the next sweep tries again.
@@ -49,7 +61,8 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
 def _loop(config: dict, interval: float) -> None:
     while not _STOP.wait(interval):
         try:
-            sweep_once(config)
+            with _ROUND:
+                sweep_once(config)
         except Exception:  # a database hiccup must not kill the thread; try again next round
             log.exception("sweeper round failed")
 

@@ -12,32 +12,33 @@ from __future__ import annotations
 import logging
 import os
 import socket
-import threading
 import time
 import uuid
 from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import Any
 
-from celery.signals import worker_process_init, worker_ready, worker_shutdown
+from celery.signals import worker_ready, worker_shutdown
 from sqlalchemy import select
 from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import sessionmaker
 
+from service import metrics
 from service.engine import Cancelled, EngineError, canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
 from service.engine.errors import describe_failure
 from service.engine.records import differences
 from service.store import analyses, audit, jobs
-from service.store.db import make_engine, make_sessionmaker, session_scope
+from service.store.db import session_scope
+from service.store.jobs import KINDS
 from service.store.models import Request, Rerun, Result
 from workers.celery_app import TASK_NAMES, app
-from workers.fanout import ChunkExecutor, run_one
+from workers.fanout import UNIT_SECONDS, ChunkExecutor, clear_units, work_units
+from workers.queue import publish_and_mark, publish_helpers
+from workers.sessions import sessions
+from workers.sweeper import start_thread, stop_thread, sweep_once
 
 log = logging.getLogger(__name__)
-
-_SESSIONS: dict[tuple[int, str], Any] = {}
-_SESSIONS_LOCK = threading.Lock()
 
 
 class LeaseLost(Exception):
@@ -63,25 +64,6 @@ def new_owner() -> str:
     """Return a lease owner unique to this attempt: ``worker:<hostname>:<pid>:<random>``."""
     # jobs.* write audit events with the owner as actor, so it starts with actor().
     return f"{actor()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
-
-
-def sessions(config: dict) -> sessionmaker:
-    """Return this process's sessionmaker for the config's database (one per process and URL)."""
-    key = (os.getpid(), str(config["DATABASE_URL"]))
-    with _SESSIONS_LOCK:
-        factory = _SESSIONS.get(key)
-        if factory is None:
-            factory = make_sessionmaker(make_engine(key[1]))
-            _SESSIONS[key] = factory
-    return factory
-
-
-@worker_process_init.connect
-def _forget_parent_connections(**_kwargs) -> None:
-    """A forked pool process must not reuse the parent's pooled connections."""
-    for (_pid, _url), factory in list(_SESSIONS.items()):
-        factory.kw["bind"].dispose(close=False)
-    _SESSIONS.clear()
 
 
 class _Hooks:
@@ -122,33 +104,61 @@ class _Hooks:
         return self._cancelled
 
 
-def _chunk_publisher(config: dict) -> Callable[[str, str, dict], bool]:
-    """Return a function that publishes one ``sizewise.run_chunk`` message (False on failure)."""
-    from workers.queue import publish_chunk
+def helper_publisher(kind: str, job_id: str, config: dict) -> Callable[[int], int]:
+    """Return a function that publishes ``count`` helper tasks for the job; returns how many."""
 
-    def publish(kind: str, job_id: str, task: dict) -> bool:
-        return publish_chunk(kind, job_id, task, config)
+    def publish(count: int) -> int:
+        return publish_helpers(kind, job_id, count, config)
 
     return publish
 
 
-def _executor(factory, hooks: _Hooks, config: dict, *, fan_out: bool, runner, order):
+def executor_for(
+    factory, hooks: _Hooks, config: dict, *, fan_out: bool, runner, order, should_stop=None
+) -> ChunkExecutor:
+    """The engine's executor for one job: shares long batches with helpers when ``fan_out``."""
     return ChunkExecutor(
         factory,
         job_kind=hooks.kind,
         job_id=hooks.job_id,
         owner=hooks.owner,
         lease_seconds=float(config["LEASE_SECONDS"]),
-        publish=_chunk_publisher(config) if fan_out else None,
+        publish_helpers=helper_publisher(hooks.kind, hooks.job_id, config) if fan_out else None,
+        helpers=int(config.get("FANOUT_HELPERS", 1)),
+        split_seconds=float(config.get("FANOUT_SPLIT_SECONDS", 1.0)),
+        unit_seconds=float(config.get("FANOUT_UNIT_SECONDS", UNIT_SECONDS)),
         heartbeat=hooks.renew,
-        should_stop=hooks.cancel,
+        should_stop=should_stop,
         runner=runner,
         order=order,
     )
 
 
-def _event(session, request_id: str | None, action: str, detail: dict) -> None:
-    audit.append_event(session, request_id=request_id, actor=actor(), action=action, detail=detail)
+def _executor(factory, hooks: _Hooks, config: dict, *, fan_out: bool, runner, order):
+    return executor_for(
+        factory,
+        hooks,
+        config,
+        fan_out=fan_out,
+        runner=runner,
+        order=order,
+        should_stop=hooks.cancel,
+    )
+
+
+def _waited(kind: str, since: datetime | None) -> None:
+    """Observe the queue wait of a job just claimed (submission to claim)."""
+    if since is not None:
+        if since.tzinfo is None:  # SQLite hands back naive UTC
+            since = since.replace(tzinfo=UTC)
+        metrics.QUEUE_WAIT.labels(kind).observe(max((utcnow() - since).total_seconds(), 0.0))
+
+
+def _event(session, request_id: str | None, action: str, detail: dict, *, owner: str = "") -> None:
+    # The actor is the owner's "<role>:<host>" prefix: worker:<host>, or api:<host> when the
+    # API answered a closed-form question itself.
+    who = ":".join(owner.split(":")[:2]) if owner.count(":") >= 2 else actor()
+    audit.append_event(session, request_id=request_id, actor=who, action=action, detail=detail)
 
 
 def _claim(session, kind: str, job_id: str, owner: str, config: dict) -> bool:
@@ -174,6 +184,17 @@ def run_claimed(
     Returns ``store``'s outcome, 'failed', 'cancelled' (only when ``cancellable``) or 'lost';
     an OperationalError is raised, so the lease expires and the sweeper retries the job.
     """
+    started = time.perf_counter()
+    outcome = _settle(factory, config, kind, job_id, owner, work, store, cancellable, log_failure)
+    metrics.COMPUTE_TIME.labels(kind, owner.split(":", 1)[0]).observe(time.perf_counter() - started)
+    if outcome != "lost":
+        # The job has ended: its shared work units are of no further use.
+        with session_scope(factory) as session:
+            clear_units(session, kind, job_id)
+    return outcome
+
+
+def _settle(factory, config, kind, job_id, owner, work, store, cancellable, log_failure) -> str:
     hooks = _Hooks(factory, kind=kind, job_id=job_id, owner=owner, config=config)
     try:
         value = work(hooks)
@@ -213,9 +234,14 @@ def run_request_job(
     fan_out: bool = False,
     runner: Callable[[dict], dict] = engine_run_chunk,
     order: Callable[[list[int]], list[int]] | None = None,
+    factory: sessionmaker | None = None,
 ) -> str:
-    """Claim and compute one request; return its outcome ('computed', 'skipped', 'failed', ...)."""
-    factory = sessions(config)
+    """Claim and compute one request; return its outcome ('computed', 'skipped', 'failed', ...).
+
+    The API calls this too, with its own ``factory`` and an ``api:`` owner, for closed-form
+    questions: the same claim, events and record as on a worker, without the queue.
+    """
+    factory = factory or sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
         if not _claim(session, "request", request_id, owner, config):
@@ -223,11 +249,13 @@ def run_request_job(
         row = session.get(Request, request_id)
         question = row.question
         attempts = row.attempts
+        _waited("request", row.submitted_at)
         _event(
             session,
             request_id,
             "running",
             {"owner": owner, "attempt": attempts, "status": "running"},
+            owner=owner,
         )
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
@@ -266,8 +294,6 @@ def run_request_job(
 
 def _publish_waiting_analyses(factory, request_id: str, config: dict) -> None:
     """Hand the broker the analyses that waited for this result (else the sweeper does, later)."""
-    from workers.queue import publish_and_mark
-
     with session_scope(factory) as session:
         ids = analyses.waiting(session, request_id)
     for analysis_id in ids:
@@ -291,9 +317,16 @@ def run_rerun_job(
             return "skipped"
         rerun = session.get(Rerun, rerun_id)
         request_id = rerun.request_id
+        _waited("rerun", rerun.requested_at)
         question = session.scalar(select(Request.question).where(Request.id == request_id))
         original = session.scalar(select(Result.record).where(Result.request_id == request_id))
-        _event(session, request_id, "rerun_running", {"rerun_id": rerun_id, "owner": owner})
+        _event(
+            session,
+            request_id,
+            "rerun_running",
+            {"rerun_id": rerun_id, "owner": owner},
+            owner=owner,
+        )
 
     def work(hooks: _Hooks) -> dict:
         if original is None:
@@ -323,27 +356,34 @@ def run_rerun_job(
     return run_claimed(factory, config, "rerun", rerun_id, owner, work, store, log_failure=False)
 
 
-def _job_running(session, kind: str, job_id: str) -> bool:
-    model = Request if kind == "request" else Rerun
-    return session.scalar(select(model.status).where(model.id == job_id)) == "running"
+def run_helper_job(kind: str, job_id: str, config: dict, *, runner=engine_run_chunk) -> str:
+    """Help a running job: compute its pending work units until none is left.
 
-
-def run_chunk_job(kind: str, job_id: str, task: dict, config: dict) -> str:
-    """Help a running job with one chunk: claim, compute, store; quiet when taken or finished."""
-    if kind not in ("request", "rerun"):
-        raise ValueError(f"job_kind must be 'request' or 'rerun'; got {kind!r}")
+    Leaves early (before the next unit) when the job is no longer running or when a request or
+    rerun waits in the queue, so helper work never holds up a request. Returns 'skipped' when
+    there was nothing to do, else 'helped:<units>'.
+    """
+    if kind not in KINDS:
+        raise ValueError(f"job_kind must be one of {', '.join(KINDS)}; got {kind!r}")
     factory = sessions(config)
-    with session_scope(factory) as session:
-        if not _job_running(session, kind, job_id):
-            return "skipped"
-    return run_one(
+
+    def keep_going() -> bool:
+        with session_scope(factory) as session:
+            if jobs.job_status(session, kind, job_id) != "running":
+                return False
+            return not jobs.work_waiting(session)
+
+    done = work_units(
         factory,
         job_kind=kind,
         job_id=job_id,
-        task=task,
         owner=new_owner(),
-        lease_seconds=float(config["LEASE_SECONDS"]),
+        runner=runner,
+        keep_going=keep_going,
     )
+    if done:
+        log.info("%s %s: a helper computed %d unit(s)", kind, job_id, done)
+    return f"helped:{done}" if done else "skipped"
 
 
 def _config() -> dict:
@@ -362,31 +402,31 @@ def run_rerun(rerun_id: str) -> str:
     return run_rerun_job(rerun_id, _config(), fan_out=True)
 
 
+@app.task(name=TASK_NAMES["helper"], acks_late=True)
+def run_helper(job_kind: str, job_id: str) -> str:
+    """Help a running job with its pending work units (safe to deliver twice)."""
+    return run_helper_job(job_kind, job_id, _config())
+
+
 @app.task(name=TASK_NAMES["chunk"], acks_late=True)
-def run_chunk(job_kind: str, job_id: str, task: dict) -> str:
-    """Compute one chunk of a running job if no one else has (safe to deliver twice)."""
-    return run_chunk_job(job_kind, job_id, task, _config())
+def run_chunk(*_args) -> str:
+    """A chunk message of the previous release: chunks are no longer messages; drop it."""
+    return "obsolete"
 
 
 @app.task(name=TASK_NAMES["sweep"], acks_late=True)
 def sweep() -> int:
     """Republish unpublished and abandoned jobs; return how many were published."""
-    from workers.sweeper import sweep_once
-
     return sweep_once(_config())
 
 
 @worker_ready.connect
 def _start_sweeper(sender=None, **_kwargs) -> None:
     """Start the background sweeper thread in the worker's main process."""
-    from workers.sweeper import start_thread
-
     start_thread(_config())
 
 
 @worker_shutdown.connect
 def _stop_sweeper(**_kwargs) -> None:
     """Stop the sweeper thread when the worker shuts down."""
-    from workers.sweeper import stop_thread
-
     stop_thread()

@@ -41,6 +41,7 @@ from limits.strategies import FixedWindowRateLimiter
 from werkzeug.wrappers import Response
 
 from service.engine import EngineError, estimate_cost
+from service.metrics import BUDGET_REFUSALS
 from service.store import tokens as token_store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES, Request
@@ -90,6 +91,8 @@ ACCESS: dict[str, frozenset[str]] = {
     "tokens.create_token": frozenset({ADMIN}),
     "tokens.list_tokens": frozenset({ADMIN}),
     "tokens.revoke_token": frozenset({ADMIN}),
+    # Operators' view of the pipeline; Prometheus sends an admin bearer token.
+    "metrics.metrics_page": frozenset({ADMIN}),
 }
 
 REALM = 'Bearer realm="sizewise"'
@@ -456,6 +459,7 @@ def check_submission_cost(question: dict) -> int:
             f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
             f"{per_simulation:,}; lower replicates (or search_replicates) or the sample size"
         )
+        BUDGET_REFUSALS.labels("per_simulation").inc()
         raise ValidationFailed(
             message,
             errors={"question.simulation.replicates": [message]},
@@ -477,6 +481,7 @@ def charge(session, items: list[tuple[str, str, int]]) -> int:
             session, current_caller().token_id, items, budget=hourly, window=BUDGET_WINDOW
         )
     except token_store.BudgetRefused as exc:
+        BUDGET_REFUSALS.labels("token_hourly").inc()
         what = (
             "this simulation's" if len(items) == 1 else "these simulations' (request and analyses)"
         )

@@ -1,8 +1,16 @@
-"""Hand a committed job to the queue; a failure only delays it (the sweeper publishes later)."""
+"""Hand a committed job to the queue, or answer a closed-form question here and now.
+
+A publish failure only delays a job (the sweeper publishes later). A closed-form question costs
+milliseconds, so the API answers it itself with the worker's own code path (same claim, audit
+events and sealed record); only simulations and analyses go through the broker.
+"""
 
 from __future__ import annotations
 
 import logging
+import os
+import socket
+import uuid
 
 from service.store import jobs
 from service.store.db import session_scope
@@ -32,3 +40,27 @@ def publish_job(kind: str, job_id: str) -> bool:
     except Exception:  # the task is sent; a missing marker only means a harmless republish
         log.exception("could not mark %s %s published", kind, job_id)
     return True
+
+
+def api_owner() -> str:
+    """Return a lease owner for a job the API runs itself: ``api:<hostname>:<pid>:<random>``."""
+    return f"api:{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+
+
+def answer_now(request_id: str) -> str | None:
+    """Compute a closed-form request in this process; return the outcome, None if not done here.
+
+    None means the request could not be run here (worker package missing, database hiccup): the
+    caller then publishes it as usual. A claimed request whose run broke off is left on its lease
+    and the sweeper hands it to a worker when the lease expires.
+    """
+    try:
+        from workers.tasks import run_request_job
+    except ImportError as exc:
+        log.warning("worker code unavailable (%s); request %s goes to the queue", exc, request_id)
+        return None
+    try:
+        return run_request_job(request_id, settings(), owner=api_owner(), factory=sessions())
+    except Exception:  # never fail a request that is already stored
+        log.exception("request %s: computing at submission failed; left to the workers", request_id)
+        return None

@@ -38,7 +38,7 @@ from .errors import ApiError, Conflict, NotFound, ValidationFailed
 from .feasibility import check_computable
 from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
-from .publishing import publish_job
+from .publishing import answer_now, publish_job
 from .views import load_request, located, visible_request_page
 
 bp = Blueprint("requests", __name__, url_prefix="/v1")
@@ -124,7 +124,9 @@ def _created(body: dict, status: int):
     response=RequestSchema,
     body=RequestCreateSchema,
     description=(
-        "Stores the request, then hands it to the queue. With an Idempotency-Key header the "
+        "Stores the request. A closed-form (analytic) question is answered at once and comes "
+        "back with status computed and its record; a simulation is handed to the queue. "
+        "With an Idempotency-Key header the "
         "same key and body return the first request (200); the same key with another body is 422."
     ),
     errors=(400, 413, 415, 422, 429, 500, 503),
@@ -176,7 +178,10 @@ def submit_request():
         if earlier is None:
             raise
         return _created(earlier, 200)
-    publish_job("request", request_id)
+    # A closed-form answer costs milliseconds: compute it here rather than queue it.
+    here = question.get("method") != "simulation" and settings().get("ANSWER_AT_SUBMISSION", True)
+    if not here or answer_now(request_id) in (None, "skipped"):
+        publish_job("request", request_id)
     with session_scope(sessions()) as session:
         body = render.request_detail(session, store.get_request(session, request_id))
     return _created(body, 202)

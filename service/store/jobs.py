@@ -11,7 +11,7 @@ from __future__ import annotations
 import logging
 from datetime import datetime, timedelta
 
-from sqlalchemy import and_, false, or_, select, update
+from sqlalchemy import and_, false, or_, select, true, update
 from sqlalchemy.orm import Session
 
 from service.engine.records import canonical_json, differences, record_hash
@@ -77,13 +77,21 @@ def _update_ours(session: Session, kind: str, job_id: str, owner: str, **values)
 
 
 def mark_published(session: Session, kind: str, job_id: str) -> bool:
-    """Record that the job's task reached the broker (the outbox marker); False if no such job."""
+    """Record that the job's task reached the broker (the outbox marker); False if no such job.
+
+    Only the first publish writes a 'published' event (and moves a request to 'queued').
+    """
     model = _model(kind)
     now = utcnow()
-    values: dict = {"published_at": now, **_touch(kind, now)}
-    changed = session.execute(update(model).where(model.id == job_id).values(**values)).rowcount
-    if not changed:
+    row = session.execute(select(model.published_at).where(model.id == job_id)).first()
+    if row is None:
         return False
+    values: dict = {"published_at": now, **_touch(kind, now)}
+    session.execute(update(model).where(model.id == job_id).values(**values))
+    if row.published_at is not None:
+        # A republish (lost message, dead worker) changes nothing a reader of the trail needs:
+        # the next claim writes its own event. One 'published' event per job, not per sweep.
+        return True
     status = {}
     if kind == "request":
         # Only a job nobody has picked up yet moves from received to queued.
@@ -393,7 +401,14 @@ def stale_jobs(
                         model.status.in_(_queued_statuses(kind)),
                         stamp <= cutoff,
                     ),
-                    and_(model.status == "running", model.lease_expires_at < now),
+                    # A dead worker's job once per republish interval, not every sweep.
+                    and_(
+                        model.status == "running",
+                        model.lease_expires_at < now,
+                        or_(model.published_at.is_(None), model.published_at < resend)
+                        if resend is not None
+                        else true(),
+                    ),
                     lost,
                 )
             )
@@ -473,3 +488,23 @@ def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict
             result_sha256=content_hash(result),
         )
     return bool(done)
+
+
+def work_waiting(session: Session) -> bool:
+    """True when a published request or rerun waits unclaimed (helpers then make way for it)."""
+    for model in (Request, Rerun):
+        waiting = session.scalar(
+            select(model.id)
+            .where(model.status.in_(_queued_statuses("request" if model is Request else "rerun")))
+            .where(model.published_at.is_not(None))
+            .limit(1)
+        )
+        if waiting is not None:
+            return True
+    return False
+
+
+def job_status(session: Session, kind: str, job_id: str) -> str | None:
+    """Return the job's status (None when there is no such job)."""
+    model = _model(kind)
+    return session.scalar(select(model.status).where(model.id == job_id))

@@ -175,13 +175,17 @@ class Analysis(Base):
 
 
 class ChunkResult(Base):
-    """One simulation chunk of a job, leased and stored so a retried job skips finished chunks."""
+    """One unit of a split simulation batch (several engine chunks), claimed by any worker.
+
+    ``tasks`` holds the unit's chunk tasks and ``result`` their results, in the same order.
+    A retried job reuses finished units; the rows are deleted when the job ends.
+    """
 
     __tablename__ = "chunk_results"
     __table_args__ = (
         UniqueConstraint("job_kind", "job_id", "task_key", name="uq_chunk_results_job_task"),
         CheckConstraint(_in("job_kind", CHUNK_JOB_KINDS), name="job_kind"),
-        CheckConstraint(_in("status", ("running", "done")), name="status"),
+        CheckConstraint(_in("status", ("pending", "running", "done")), name="status"),
     )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
@@ -191,6 +195,7 @@ class ChunkResult(Base):
     status: Mapped[str] = mapped_column(String(16))
     lease_owner: Mapped[str | None] = mapped_column(String(200))
     lease_expires_at: Mapped[datetime | None]
+    tasks: Mapped[Any | None] = mapped_column(JSON)
     result: Mapped[Any | None] = mapped_column(JSON)
     created_at: Mapped[Stamp] = mapped_column(default=utcnow)
     finished_at: Mapped[datetime | None]

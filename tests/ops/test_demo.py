@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import pytest
@@ -74,7 +75,12 @@ def test_demo_covers_an_analytic_trial_a_simulation_and_a_survival_study(config)
 def test_demo_requests_are_queued_with_an_audit_trail(config):
     demo.load(config)
     rows = _rows(config)
-    assert all(r.published_at is not None and r.status == "queued" for r in rows)
+    # Closed-form questions are answered at submission; the simulation waits for a worker.
+    assert {(r.method, r.status) for r in rows} == {
+        ("analytic", "computed"),
+        ("simulation", "queued"),
+    }
+    assert all((r.published_at is not None) == (r.method == "simulation") for r in rows)
     factory = make_sessionmaker(make_engine(config["DATABASE_URL"]))
     with session_scope(factory) as session:
         for row in rows:
@@ -83,7 +89,10 @@ def test_demo_requests_are_queued_with_an_audit_trail(config):
             )
             assert count >= 1, row.protocol_id
     queued = list((Path(config["BROKER_TRANSPORT_OPTIONS"]["data_folder_in"])).glob("*.msg"))
-    assert len(queued) == 3
+    tasks = [json.loads(p.read_text())["headers"]["task"] for p in queued]
+    # The simulation's task; the analyses of the answered requests are handed over at once.
+    assert tasks.count("sizewise.run_request") == 1
+    assert set(tasks) <= {"sizewise.run_request", "sizewise.run_analysis"}
 
 
 def test_demo_set_in_the_invented_hospital():

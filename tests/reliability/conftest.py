@@ -16,5 +16,6 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "workers"))
 from workers_testkit import (  # noqa: E402,F401
     pg_url,
     redis_url,
+    sqlite_config,
     start_worker,
 )

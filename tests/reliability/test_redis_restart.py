@@ -124,7 +124,8 @@ def config(pg_url: str, redis_url: str, private_redis: RedisServer) -> dict:
 
 @pytest.fixture
 def client(config: dict):
-    app = create_app(dict(config, TESTING=True))
+    # Analytic questions would be answered by the API itself; these tests are about the queue.
+    app = create_app(dict(config, TESTING=True, ANSWER_AT_SUBMISSION=False))
     try:
         yield local_client(app, "statistician", "research-office")
     finally:
@@ -231,7 +232,9 @@ def test_submission_is_accepted_while_the_shared_broker_and_limiter_redis_is_dow
     pg_url, private_redis
 ):
     # The default deployment: rate-limit counters live on the broker's Redis too.
-    app = create_app(dict(_config(pg_url, private_redis.url), TESTING=True))
+    app = create_app(
+        dict(_config(pg_url, private_redis.url), TESTING=True, ANSWER_AT_SUBMISSION=False)
+    )
     try:
         client = local_client(app, "statistician", "research-office")
         _submit(client, 30)

@@ -12,17 +12,18 @@ from __future__ import annotations
 
 import os
 import signal
+import time
 
 import psutil
 import pytest
-from sqlalchemy import func, select
+from sqlalchemy import select
 from workers_testkit import Stack
 
 from service import create_app
 from service.config import load_config
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
-from service.store.models import ChunkResult, Request, Result
+from service.store.models import Request, Result
 from tests.reliability.helpers import wait_for
 from workers.tasks import sessions
 
@@ -74,24 +75,21 @@ def stack(config: dict):
 
 
 def _mid_run(factory, request_id: str) -> tuple[int, int] | None:
-    """(lease owner's pid, chunks done) once the request runs with some but not all chunks done."""
+    """(lease owner's pid, attempt) once the request runs on a worker (the test then waits 2 s).
+
+    Progress is written per engine batch, and this question is one batch, so the test cannot
+    wait for a progress value; 2 s into a run of tens of seconds is part-way.
+    """
     with session_scope(factory) as session:
-        status, owner = session.execute(
-            select(Request.status, Request.lease_owner).where(Request.id == request_id)
-        ).one()
-        done = session.scalar(
-            select(func.count())
-            .select_from(ChunkResult)
-            .where(
-                ChunkResult.job_kind == "request",
-                ChunkResult.job_id == request_id,
-                ChunkResult.status == "done",
+        status, owner, attempts = session.execute(
+            select(Request.status, Request.lease_owner, Request.attempts).where(
+                Request.id == request_id
             )
-        )
-    if status != "running" or owner is None or not 2 <= done < CHUNKS // 2:
+        ).one()
+    if status != "running" or owner is None:
         return None
     # Lease owners are worker:<host>:<pid>:<random> (workers.tasks.new_owner).
-    return int(owner.rsplit(":", 2)[1]), done
+    return int(owner.rsplit(":", 2)[1]), attempts
 
 
 @pytest.mark.parametrize("target", ["pool_child", "worker_main"])
@@ -101,9 +99,10 @@ def test_killed_worker_job_completes_with_identical_digits(config, stack, start_
     finished = []
     for round_number in range(3):
         request_id = stack.submit(_posted(seed=7100 + round_number))
-        pid, done = wait_for(
+        pid, _attempt = wait_for(
             lambda rid=request_id: _mid_run(factory, rid), 120, f"{request_id} mid-run", 0.05
         )
+        time.sleep(2.0)
         child = psutil.Process(pid)
         main_pids = {w.proc.pid for w in workers if w.proc is not None}
         # The lease holder is a prefork pool child of one of our worker main processes.
@@ -135,3 +134,42 @@ def test_killed_worker_job_completes_with_identical_digits(config, stack, start_
             if target == "pool_child":
                 # The killed attempt was claimed, so the one that finished came after it.
                 assert attempts >= 2, (request_id, attempts)
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason=(
+        "open: with the folder broker Celery uses billiard's plain Pool, whose children share "
+        "one queue lock (a semaphore); a child killed while holding it leaves the replacement "
+        "children waiting on it forever (seen: both replacements blocked on a futex)"
+    ),
+)
+def test_embedded_default_survives_the_death_of_both_pool_children(sqlite_config, start_worker):
+    """The embedded default (SQLite + folder broker): kill both pool children mid-simulation;
+    the replacement children must take the job back and finish it with the undisturbed digits."""
+    config = dict(sqlite_config, LEASE_SECONDS=10, SWEEP_SECONDS=1, MAX_ATTEMPTS=6)
+    app = create_app(dict(config, TESTING=True))
+    stack = Stack(app)
+    try:
+        worker = start_worker(config, concurrency=2)
+        request_id = stack.submit(_posted(seed=7200))
+        stack.wait(request_id, until=("running", "computed"), timeout=120, worker=worker)
+        time.sleep(2.0)  # part-way through its 40 chunks (tens of seconds in all)
+        children = psutil.Process(worker.proc.pid).children()
+        assert len(children) == 2, children
+        for child in children:
+            os.kill(child.pid, signal.SIGKILL)
+        body = stack.wait(request_id, timeout=90, worker=worker)
+        assert body["status"] == "computed", (body["error"], worker.tail())
+        assert canonical_json(body["result"]) == canonical_json(compute(body["question"]))
+        assert body["attempts"] >= 2
+        # The sweeper's republishing leaves one 'published' event, however often it resent.
+        actions = [e["action"] for e in body["history"]]
+        assert actions.count("published") == 1, actions
+        # A second request still runs on the replacement children.
+        second = stack.submit(
+            _posted(seed=7201) | {"simulation": {**_posted(7201)["simulation"], "replicates": 1000}}
+        )
+        assert stack.wait(second, timeout=120, worker=worker)["status"] == "computed"
+    finally:
+        app.extensions["sizewise"]["engine"].dispose()

@@ -49,6 +49,7 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("POST", "/v1/tokens"): {ADM},
     ("GET", "/v1/tokens"): {ADM},
     ("POST", "/v1/tokens/<token_id>/revoke"): {ADM},
+    ("GET", "/metrics"): {ADM},
 }
 
 BODIES = {

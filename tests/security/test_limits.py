@@ -7,6 +7,7 @@ from datetime import timedelta
 from pathlib import Path
 
 import pytest
+from prometheus_client import REGISTRY
 from sqlalchemy import update
 
 from service import create_app
@@ -125,8 +126,12 @@ def test_over_budget_simulation_is_refused_at_intake(make_app, settings, _body):
     app = make_app(SIMULATION_BUDGET=estimate - 1)
     client = app.test_client()
     headers = _headers(app, "statistician", "j.moreau")
+    refusals = {"budget": "per_simulation"}
+    before = REGISTRY.get_sample_value("sizewise_budget_refusals_total", refusals) or 0
     r = client.post("/v1/requests", json=_body(question), headers=headers)
     assert r.status_code == 422 and r.mimetype == PROBLEM
+    # Operators see it on /metrics (this process's registry).
+    assert REGISTRY.get_sample_value("sizewise_budget_refusals_total", refusals) == before + 1
     errors = r.get_json()["errors"]
     assert list(errors) == ["question.simulation.replicates"]
     assert f"{estimate:,}" in errors["question.simulation.replicates"][0]

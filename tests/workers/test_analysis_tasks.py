@@ -21,8 +21,8 @@ from service.store.db import session_scope
 from service.store.models import Analysis, ChunkResult, Request
 from service.store.types import utcnow
 from workers import sweeper
-from workers.analysis_tasks import run_analysis_chunk_job, run_analysis_job
-from workers.tasks import run_request_job
+from workers.analysis_tasks import run_analysis_job
+from workers.tasks import run_helper_job, run_request_job
 
 GRID = {"effect.difference": [0.3, 0.6]}
 
@@ -111,17 +111,14 @@ def test_a_simulated_grid_fans_out_and_its_digits_depend_only_on_the_cell(sqlite
             cell["power"] == record["power"]["estimate"] and cell["mcse"] == record["power"]["mcse"]
         )
     with session_scope(factory) as session:
-        kinds = set(
-            session.scalars(select(ChunkResult.job_kind).where(ChunkResult.job_id == first))
-        )
-    assert kinds == {"analysis"}
+        left = session.scalars(select(ChunkResult.job_kind).where(ChunkResult.job_id == first))
+        assert list(left) == []  # the analysis ended: its work units are gone
 
 
-def test_a_chunk_helper_only_helps_a_running_analysis(sqlite_config, factory):
+def test_a_helper_only_helps_a_running_analysis(sqlite_config, factory):
     request_id = insert_request(factory, _simulated())
     analysis_id = _analysis(factory, request_id, "sensitivity", {"grid": GRID})
-    task = {"kind": "not used"}
-    assert run_analysis_chunk_job(analysis_id, task, sqlite_config) == "skipped"
+    assert run_helper_job("analysis", analysis_id, sqlite_config) == "skipped"
 
 
 def test_robustness_of_a_simulated_request(sqlite_config, factory):

@@ -1,25 +1,25 @@
-"""The chunk executor: claims in chunk_results, takeover after a lease expires, engine order kept.
+"""The executor: a batch runs locally unless sharing pays; shared work units in chunk_results.
 
 These tests drive the executor with a small seeded chunk function of the same shape as the
-engine's (JSON in, JSON out, pure); test_tasks.py runs the real engine through it.
+engine's (JSON in, JSON out, pure); test_tasks.py runs the real engine through it. The reference
+for every result is that function called in-process, in the batch's order.
 """
 
 from __future__ import annotations
 
-import queue as queue_mod
 import random
 import threading
 from datetime import timedelta
 
 import numpy as np
 import pytest
-from sqlalchemy import func, select
+from sqlalchemy import select
 
 from service.engine import Cancelled
 from service.store.db import session_scope
 from service.store.models import ChunkResult
 from service.store.types import utcnow
-from workers.fanout import ChunkExecutor, run_one, task_key
+from workers.fanout import ChunkExecutor, clear_units, task_key, work_units
 
 
 def seeded_chunk(task: dict) -> dict:
@@ -49,7 +49,7 @@ class Counting:
 def executor(factory, job_id="job1", **kw) -> ChunkExecutor:
     kw.setdefault("owner", "worker:test:1:a")
     kw.setdefault("lease_seconds", 30)
-    kw.setdefault("poll_seconds", 0.05)
+    kw.setdefault("poll_seconds", 0.01)
     kw.setdefault("runner", seeded_chunk)
     return ChunkExecutor(factory, job_kind="request", job_id=job_id, **kw)
 
@@ -64,106 +64,140 @@ def shuffled(seed: int):
     return order
 
 
-def test_shuffled_order_returns_results_in_the_batch_order(factory):
+def sharing(factory, job_id="job1", *, helpers=1, sent=None, **kw) -> ChunkExecutor:
+    """An executor that splits at once into units of about two chunks (the timing is forced)."""
+    sent = [] if sent is None else sent
+    ex = executor(
+        factory,
+        job_id=job_id,
+        publish_helpers=lambda n: sent.append(n) or n,
+        helpers=helpers,
+        split_seconds=0.0,
+        **kw,
+    )
+    ex.unit_seconds = 0.0  # one chunk per unit
+    return ex
+
+
+def rows(factory, job_id="job1") -> list[ChunkResult]:
+    with session_scope(factory) as session:
+        found = session.scalars(select(ChunkResult).where(ChunkResult.job_id == job_id)).all()
+        session.expunge_all()
+        return list(found)
+
+
+def test_a_short_batch_runs_locally_in_the_batch_order_and_writes_nothing(factory):
     tasks = batch()
     expected = [seeded_chunk(t) for t in tasks]  # what the engine's in-process default returns
-    got = executor(factory, order=shuffled(3))(tasks)
+    sent: list[int] = []
+    got = executor(
+        factory, order=shuffled(3), publish_helpers=lambda n: sent.append(n) or n, helpers=1
+    )(tasks)
     assert got == expected
-    with session_scope(factory) as session:
-        done = session.scalar(select(func.count()).where(ChunkResult.status == "done"))
-    assert done == len(tasks)
+    assert sent == [] and rows(factory) == []  # well under a second: no sharing, no round trip
 
 
-def test_finished_chunks_are_reused_not_recomputed(factory):
-    tasks = batch()
-    first = executor(factory)(tasks)
-    runner = Counting()
-    again = executor(factory, owner="worker:test:2:b", runner=runner)(tasks)
-    assert again == first and runner.calls == 0
-
-
-def test_identical_tasks_share_one_row_and_one_result(factory):
+def test_identical_tasks_are_computed_once(factory):
     task = batch(1)[0]
     runner = Counting()
     got = executor(factory, runner=runner)([task, dict(task), task])
     assert got == [seeded_chunk(task)] * 3 and runner.calls == 1
 
 
-def test_every_missing_chunk_is_published_when_the_batch_has_several(factory):
-    tasks = batch(5)
-    sent: list[tuple] = []
-    executor(factory, publish=lambda kind, job, task: sent.append((kind, job, task)) or True)(tasks)
-    assert sent == [("request", "job1", t) for t in tasks]
-    sent.clear()
-    executor(factory, job_id="job2", publish=lambda *a: sent.append(a) or True)(tasks[:1])
-    assert sent == []  # one chunk: nothing to share
+def test_a_long_batch_is_cut_into_units_and_a_few_helpers_are_published(factory):
+    tasks = batch(9)
+    sent: list[int] = []
+    ex = sharing(factory, sent=sent, helpers=3)
+    got = ex(tasks)
+    assert got == [seeded_chunk(t) for t in tasks]
+    # The first chunk measured the speed; the other 8 became units; at most `helpers` messages.
+    assert ex.units == 8 and sent == [3]
+    units = rows(factory)
+    assert len(units) == 8 and {u.status for u in units} == {"done"}
+    assert [t for u in sorted(units, key=lambda u: u.id) for t in u.tasks] == tasks[1:]
+    with session_scope(factory) as session:
+        assert clear_units(session, "request", "job1") == 8
+    assert rows(factory) == []
 
 
-def test_a_chunk_left_by_a_dead_worker_is_redone_after_its_lease_expires(factory):
+def test_a_helper_shares_the_units_and_the_digits_do_not_change(factory):
+    tasks = batch(40)
+    helper_runner = Counting(slow(seeded_chunk))
+    own_runner = Counting(slow(seeded_chunk))
+    helped: list[int] = []
+
+    def publish(n: int) -> int:
+        def helper() -> None:
+            helped.append(
+                work_units(
+                    factory,
+                    job_kind="request",
+                    job_id="job1",
+                    owner="worker:helper:2:b",
+                    runner=helper_runner,
+                )
+            )
+
+        threads.append(threading.Thread(target=helper))
+        threads[-1].start()
+        return n
+
+    threads: list[threading.Thread] = []
+    ex = executor(factory, publish_helpers=publish, helpers=1, split_seconds=0.0, runner=own_runner)
+    ex.unit_seconds = 0.0
+    got = ex(tasks)
+    for thread in threads:
+        thread.join(30)
+    assert got == [seeded_chunk(t) for t in tasks]
+    # Each chunk was computed by exactly one of the two (claims never overlap), both worked.
+    assert own_runner.calls + helper_runner.calls == len(tasks)
+    assert helper_runner.calls >= 1 and ex.units_by_others == helped[0] >= 1
+    # A helper arriving after the end finds nothing and leaves at once.
+    late = Counting()
+    assert work_units(factory, job_kind="request", job_id="job1", owner="w:l:3:c", runner=late) == 0
+    assert late.calls == 0
+
+
+def slow(fn, seconds: float = 0.01):
+    import time
+
+    def run(task: dict) -> dict:
+        time.sleep(seconds)
+        return fn(task)
+
+    return run
+
+
+def test_a_unit_left_by_a_dead_worker_is_redone_after_its_lease_expires(factory):
     tasks = batch(4)
     with session_scope(factory) as session:
         session.add(
             ChunkResult(
                 job_kind="request",
                 job_id="job1",
-                task_key=task_key(tasks[2]),
+                task_key=task_key([tasks[2]]),
+                tasks=[tasks[2]],
                 status="running",
                 lease_owner="worker:gone:9:dead",
-                lease_expires_at=utcnow() + timedelta(seconds=1),
+                lease_expires_at=utcnow() + timedelta(seconds=0.5),
             )
         )
     runner = Counting()
-    got = executor(factory, runner=runner)(tasks)
+    ex = sharing(factory, runner=runner)
+    got = ex(tasks)
     assert got == [seeded_chunk(t) for t in tasks]
-    assert runner.calls == 4  # including the dead worker's chunk, once its lease ran out
-    with session_scope(factory) as session:
-        owner = session.scalar(
-            select(ChunkResult.lease_owner).where(ChunkResult.task_key == task_key(tasks[2]))
-        )
-    assert owner == "worker:test:1:a"
+    assert runner.calls == 4  # including the dead worker's unit, once its lease ran out
+    owners = {u.task_key: u.lease_owner for u in rows(factory)}
+    assert owners[task_key([tasks[2]])] == "worker:test:1:a"
 
 
-def test_a_helper_worker_shares_the_batch_and_the_digits_do_not_change(factory):
-    tasks = batch(30)
-    inbox: queue_mod.Queue = queue_mod.Queue()
-    helper_runner = Counting()
-
-    def helper() -> None:
-        while (item := inbox.get()) is not None:
-            kind, job_id, task = item
-            run_one(
-                factory,
-                job_kind=kind,
-                job_id=job_id,
-                task=task,
-                owner="worker:helper:2:b",
-                lease_seconds=30,
-                runner=helper_runner,
-            )
-
-    thread = threading.Thread(target=helper)
-    thread.start()
-    own_runner = Counting()
-    try:
-        got = executor(factory, publish=lambda *a: inbox.put(a) or True, runner=own_runner)(tasks)
-    finally:
-        inbox.put(None)
-        thread.join(30)
-    assert got == [seeded_chunk(t) for t in tasks]
-    # Each chunk was computed by exactly one of the two (claims never overlap).
-    assert own_runner.calls + helper_runner.calls == len(tasks)
-    assert (
-        run_one(
-            factory,
-            job_kind="request",
-            job_id="job1",
-            task=tasks[0],
-            owner="worker:late:3:c",
-            lease_seconds=30,
-            runner=seeded_chunk,
-        )
-        == "done"
-    )
+def test_a_retried_job_reuses_the_units_its_first_attempt_finished(factory):
+    tasks = batch(6)
+    first = sharing(factory)(tasks)
+    runner = Counting()
+    again = sharing(factory, owner="worker:test:2:b", runner=runner)(tasks)
+    assert again == first
+    assert runner.calls == 1  # only the chunk the first attempt ran locally (never a unit)
 
 
 def test_a_stop_request_is_honoured_between_chunks(factory):

@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import base64
+import json
 import random
 from datetime import timedelta
+from pathlib import Path
 
 import pytest
 from sqlalchemy import func, select, update
@@ -179,14 +182,45 @@ def test_shuffled_chunk_order_gives_the_record_of_the_in_process_executor(sqlite
     # The simulated power agrees with the noncentral t within 4 Monte Carlo standard errors.
     power = result.record["power"]
     assert abs(power["estimate"] - POWER_D05_N30) < 4 * power["mcse"]
+    # The job has ended: no work unit is left behind in the table.
     with session_scope(factory) as session:
-        chunks = session.scalar(
-            select(func.count()).where(
-                ChunkResult.job_id == request_id, ChunkResult.status == "done"
-            )
-        )
-    # At least 4000 / 500 = 8 chunks for the power (the engine may add type I error chunks).
-    assert chunks >= 8
+        left = session.scalar(select(func.count()).where(ChunkResult.job_id == request_id))
+    assert left == 0
+
+
+def test_a_shared_job_gives_the_in_process_record_and_leaves_no_unit(sqlite_config, factory):
+    question = two_means_question(method="simulation", replicates=4000, chunk_size=250)
+    expected = compute(question)
+    request_id = insert_request(factory, question)
+    helped: list[str] = []
+    runs = []
+
+    def runner(task: dict) -> dict:
+        # The first unit the orchestrator takes: a helper (same process, same code) joins in.
+        runs.append(1)
+        if len(runs) == 3 and not helped:
+            helped.append(tasks.run_helper_job("request", request_id, sqlite_config))
+        return engine_run_chunk(task)
+
+    # Split every batch at once, one chunk per unit; helper tasks go to the real (folder) broker.
+    config = dict(sqlite_config, FANOUT_SPLIT_SECONDS=0.0, FANOUT_UNIT_SECONDS=0.0)
+    assert tasks.run_request_job(request_id, config, fan_out=True, runner=runner) == "computed"
+    [result] = _results(factory, request_id)
+    assert canonical_json(result.record) == canonical_json(expected)
+    assert helped and helped[0].startswith("helped:")
+    # FANOUT_HELPERS (1) message per split batch, on the helper queue; delivered after the job
+    # ended, each finds nothing to do.
+    sent = [
+        json.loads(p.read_text())
+        for p in (Path(config["BROKER_TRANSPORT_OPTIONS"]["data_folder_in"])).iterdir()
+    ]
+    assert sent and all(m["headers"]["task"] == "sizewise.run_helper" for m in sent)
+    for message in sent:
+        kind, job_id = json.loads(base64.b64decode(message["body"]))[0]
+        assert tasks.run_helper_job(kind, job_id, config) == "skipped"
+    with session_scope(factory) as session:
+        left = session.scalar(select(func.count()).where(ChunkResult.job_id == request_id))
+    assert left == 0
 
 
 def test_a_lost_lease_stops_the_job_without_writing(sqlite_config, factory):
@@ -212,11 +246,11 @@ def test_a_lost_lease_stops_the_job_without_writing(sqlite_config, factory):
     assert _results(factory, request_id) == []
 
 
-def test_a_chunk_message_for_a_finished_job_exits_quietly(sqlite_config, factory):
+def test_a_helper_message_for_a_finished_job_exits_quietly(sqlite_config, factory):
     request_id = insert_request(factory, two_means_question())
-    assert tasks.run_chunk_job("request", request_id, {"any": 1}, sqlite_config) == "skipped"
-    with pytest.raises(ValueError, match="job_kind must be 'request' or 'rerun'; got 'report'"):
-        tasks.run_chunk_job("report", request_id, {}, sqlite_config)
+    assert tasks.run_helper_job("request", request_id, sqlite_config) == "skipped"
+    with pytest.raises(ValueError, match="job_kind must be one of request, rerun, analysis"):
+        tasks.run_helper_job("report", request_id, sqlite_config)
 
 
 def _rerun(factory, request_id: str, record: dict) -> str:

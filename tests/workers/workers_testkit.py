@@ -151,7 +151,7 @@ def pg_url() -> Iterator[str]:
         upgrade(url)
         yield url
     finally:
-        from workers.tasks import _SESSIONS
+        from workers.sessions import _SESSIONS
 
         for factory in list(_SESSIONS.values()):
             factory.kw["bind"].dispose()
@@ -182,6 +182,9 @@ class WorkerProcess:
             "SIMULATION_BUDGET",
         ):
             env[f"SIZEWISE_{key}"] = str(self.config[key])
+        for key in ("FANOUT_HELPERS", "FANOUT_SPLIT_SECONDS", "ANSWER_AT_SUBMISSION"):
+            if key in self.config:
+                env[f"SIZEWISE_{key}"] = str(self.config[key])
         env["SIZEWISE_WORKER_CONCURRENCY"] = str(self.concurrency)
         env["PYTHONPATH"] = str(REPO)
         return env
@@ -201,7 +204,7 @@ class WorkerProcess:
                 "--concurrency",
                 str(self.concurrency),
                 "-Q",
-                "sizewise",
+                "sizewise,sizewise.helpers",
                 "--without-mingle",
                 "--without-gossip",
                 "--without-heartbeat",

@@ -1,0 +1,42 @@
+"""Each worker module imports alone in a fresh interpreter (no import circle among them)."""
+
+from __future__ import annotations
+
+import ast
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[2]
+MODULES = ("celery_app", "queue", "sweeper", "tasks", "analysis_tasks", "fanout", "sessions")
+# celery_app ← queue ← sweeper ← tasks ← analysis_tasks: a module imports only those before it.
+ORDER = ("sessions", "fanout", "celery_app", "queue", "sweeper", "tasks", "analysis_tasks")
+
+
+@pytest.mark.parametrize("name", MODULES)
+def test_module_imports_alone(name):
+    done = subprocess.run(
+        [sys.executable, "-c", f"import workers.{name}"],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+
+
+@pytest.mark.parametrize("name", ORDER)
+def test_worker_imports_point_one_way(name):
+    tree = ast.parse((REPO / "workers" / f"{name}.py").read_text())
+    imported = set()
+    for node in ast.walk(tree):  # function-level imports count too: no hidden circle
+        if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("workers."):
+            imported.add(node.module.split(".")[1])
+        elif isinstance(node, ast.Import):
+            imported.update(
+                a.name.split(".")[1] for a in node.names if a.name.startswith("workers.")
+            )
+    allowed = set(ORDER[: ORDER.index(name)])
+    assert imported <= allowed, f"workers.{name} imports {sorted(imported - allowed)}"

@@ -260,6 +260,11 @@ def _steps_caption(record: dict) -> str:
                 "Each step starts from the row above; every step rounds up to whole subjects "
                 "keeping the allocation ratio exact."
             )
+        if (record["question"].get("adjustments") or {}).get("cluster"):
+            return (
+                "Each step starts from the row above; the design-effect row shows the unrounded "
+                "number of individuals, and the cluster rows round up to whole clusters."
+            )
         return (
             "Each step starts from the row above; every step rounds each group up to whole "
             "subjects."

@@ -44,3 +44,14 @@ def test_exact_ratio_rounding_is_named_in_the_steps():
     page = render_report(REQUEST, record, curve_svg="<svg></svg>")
     assert "rounded up keeping the allocation ratio exact" in page
     assert "keeping the allocation ratio exact." in page.split("<caption>")[1][:300]
+
+
+def test_cluster_step_caption_says_which_rows_are_whole_clusters():
+    # Donner & Klar (2000): design effect 1 + (20 − 1)·0.05 = 1.95 turns 63.77 into 124.3
+    # individuals, which the table shows unrounded before the whole-cluster rows.
+    q = make_q("two_means", effect=D_HALF, adjustments={"cluster": {"mean_size": 20, "icc": 0.05}})
+    page = render_report(REQUEST, compute(q), curve_svg="<svg></svg>")
+    caption = page.split("<caption>")[1].split("</caption>")[0]
+    assert "unrounded number of individuals" in caption and "whole clusters" in caption
+    assert "every step rounds each group up" not in caption
+    assert "124.3 individuals" in page

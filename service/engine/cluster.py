@@ -345,6 +345,17 @@ def _check_method(q: dict) -> None:
         )
 
 
+def _dropout_step(c: dict, **sizes: float) -> dict:
+    """The record step for dropout inside clusters (it shrinks the analysed cluster size)."""
+    return {
+        "step": "dropout",
+        "unit": "people per cluster",
+        "rate": c["dropout"],
+        "note": "people lost inside clusters; the analysed cluster size shrinks",
+        **sizes,
+    }
+
+
 def answer(q: dict, design, alpha: float, simulate) -> dict:
     """Answer a cluster question: sample_size block, power, effect, simulation and notes.
 
@@ -366,14 +377,7 @@ def answer(q: dict, design, alpha: float, simulate) -> dict:
             if q.get("method") != "simulation":
                 raise
         if keep < 1:
-            steps.append(
-                {
-                    "step": "dropout",
-                    "unit": "people per cluster",
-                    "rate": c["dropout"],
-                    "note": "people lost inside clusters; the analysed cluster size shrinks",
-                }
-            )
+            steps.append(_dropout_step(c))
         if c["clusters_per_arm"] is None:
             m = c["mean_size"]
             m_a = m * keep
@@ -468,16 +472,7 @@ def answer(q: dict, design, alpha: float, simulate) -> dict:
             },
         ]
         if keep < 1:
-            steps.append(
-                {
-                    "step": "dropout",
-                    "unit": "people per cluster",
-                    "rate": c["dropout"],
-                    "note": "people lost inside clusters; the analysed cluster size shrinks",
-                    "mean_cluster_size": m,
-                    "analysed_cluster_size": m_a,
-                }
-            )
+            steps.append(_dropout_step(c, mean_cluster_size=m, analysed_cluster_size=m_a))
         eff = effective(clusters, m_a, c["icc"], c["cv"])
         steps.append(
             {

@@ -89,7 +89,7 @@ def test_calculation_two_means_sample_size(client):
     assert r.status_code == 200
     # Cohen (1988), Table 2.4.1: d = 0.5, two-sided alpha .05, power .80 -> 64 per group.
     assert r.get_json()["sample_size"]["per_arm"] == [64, 64]
-    # statsmodels solves the same noncentral t: 63.77 per group (REFERENCES.md, recomputed).
+    # statsmodels solves the same noncentral t: 63.77 per group (Cohen 1988, Table 2.4.1: 64; recomputed).
     raw = TTestIndPower().solve_power(effect_size=0.5, alpha=0.05, power=0.8)
     assert r.get_json()["sample_size"]["steps"][0]["per_arm_raw"][0] == pytest.approx(raw, abs=0.01)
 

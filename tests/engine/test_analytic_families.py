@@ -65,7 +65,7 @@ def test_anova_bad_groups_names_the_field():
     [
         (0.1, 782.65, 783),  # Cohen 1988, Table 3.4.1 prints 783; recomputed
         (0.3, 84.93, 85),  # Cohen 1988, Table 3.4.1 prints 85; recomputed
-        # Cohen 1988, Table 3.4.1 prints 28, which Fisher z does not reproduce (REFERENCES.md):
+        # Cohen 1988, Table 3.4.1 prints 28, which Fisher z does not reproduce:
         # the method's own answer is tested, and the describe block notes the difference
         (0.5, 29.01, 30),
     ],
@@ -78,7 +78,7 @@ def test_correlation_fisher_z(r, raw, ceil):
 
 
 def test_correlation_note_on_cohen_r_half():
-    # REFERENCES.md: Cohen prints 28 for r = 0.5; the record says so
+    # Cohen (1988) Table 3.4.1 prints 28 for r = 0.5; the record says so
     notes = " ".join(get("correlation").describe(make_q("correlation"))["notes"])
     assert "28" in notes and "0.5" in notes
 

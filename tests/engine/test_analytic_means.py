@@ -38,7 +38,7 @@ def test_two_means_cohen_table(d, power, raw, ceil):
 
 
 def test_two_means_allocation_two_to_one():
-    # formula: noncentral t with n2 = 2·n1; Cohen 1988 eq. 2.3.1 (harmonic mean 64) — REFERENCES.md
+    # formula: noncentral t with n2 = 2·n1; Cohen 1988 eq. 2.3.1 (harmonic mean 64)
     q = make_q("two_means", allocation_ratio=2.0)
     raw, final = answer(q)
     assert raw[0] == pytest.approx(47.74, abs=0.01)
@@ -46,7 +46,7 @@ def test_two_means_allocation_two_to_one():
 
 
 def test_two_means_power_at_30_per_group():
-    # formula: noncentral t, 0.4779 (REFERENCES.md); statsmodels TTestIndPower agrees
+    # formula: noncentral t, 0.4779 ; statsmodels TTestIndPower agrees
     q = make_q("two_means")
     got = get("two_means").power(q, [30, 30], 0.05)
     assert got == pytest.approx(0.4779, abs=1e-4)
@@ -117,7 +117,7 @@ def test_welch_power_against_simulated_welch_test():
 
 
 def test_noninferiority_means_chow_shao_wang():
-    # Chow, Shao & Wang 2008, ch. 3 print 13 with z quantiles; the noncentral t answer is 14 (REFERENCES.md)
+    # Chow, Shao & Wang 2008, ch. 3 print 13 with z quantiles; the noncentral t answer is 14
     q = make_q(
         "two_means",
         effect={"difference": 0.05, "sd_control": 0.1, "sd_treatment": 0.1},
@@ -173,7 +173,7 @@ def _tost_q(**effect):
 
 
 def test_tost_reference():
-    # formula: TOST, normal 68.51 → 69, exact bivariate noncentral t → 70 (REFERENCES.md)
+    # formula: TOST, normal 68.51 → 69, exact bivariate noncentral t → 70
     normal = 2 * 0.1**2 * (stats.norm.ppf(0.95) + stats.norm.ppf(0.90)) ** 2 / 0.05**2
     assert normal == pytest.approx(68.51, abs=0.01)
     raw, final = answer(_tost_q())
@@ -282,7 +282,7 @@ def test_describe_names_method_and_reference():
             198.15,
             199,
         ),  # formula: noncentral t
-        # formula: d_z = Δ / (σ·√(2(1−ρ))) with Δ/σ = 0.5, ρ = 0.7 → 0.6455 (REFERENCES.md)
+        # formula: d_z = Δ / (σ·√(2(1−ρ))) with Δ/σ = 0.5, ρ = 0.7 → 0.6455
         ("paired_mean", {"difference": 0.5, "sd_difference": math.sqrt(2 * (1 - 0.7))}, 20.84, 21),
     ],
 )

@@ -69,7 +69,7 @@ def test_p_event_against_numerical_integration(a, f, loss):
 
 
 def test_subjects_from_events():
-    # formula: events ÷ mean P(event), 380 / mean(.7295, .6303) = 558.91 → 559 total (REFERENCES.md)
+    # formula: events ÷ mean P(event), 380 / mean(.7295, .6303) = 558.91 → 559 total
     q = make_q()
     sol = DESIGN.solve_n(q, 0.05)
     assert sol.extra["p_event"]["control"] == pytest.approx(0.7295, abs=1e-4)

@@ -104,7 +104,7 @@ def test_power_questions_give_monotone_power():
 
 
 def test_survival_grid_over_hazard_ratio():
-    # HR 0.75, control median 12 (hazard ln 2 / 12), accrual 24, follow-up 12 (REFERENCES.md)
+    # HR 0.75, control median 12 (hazard ln 2 / 12), accrual 24, follow-up 12
     q = make_q("survival_logrank")
     result = sensitivity(q, {"effect.hazard_ratio": [0.5, 0.75, 0.8]})
     totals = [c["total"] for c in result["cells"]]

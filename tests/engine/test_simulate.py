@@ -81,7 +81,7 @@ def test_student_power_within_4_mcse_of_noncentral_t(d, n, sufficient):
 
 
 def test_reference_power_d05_n30():
-    # formula: noncentral t, 0.4779 (REFERENCES.md "Monte Carlo error"); statsmodels agrees
+    # formula: noncentral t, 0.4779; statsmodels agrees (MCSE: Morris, White & Crowther 2019)
     exact = TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05, ratio=1.0)
     assert exact == pytest.approx(0.4779, abs=1e-4)
     out = run(question(replicates=10000))
@@ -107,7 +107,7 @@ def test_type_i_error_normal_null_n30():
 
 
 def test_reference_solve_d05_power80():
-    # published 64 per group: Cohen 1988, Table 2.4.1 (REFERENCES.md, ±1 for Monte Carlo error)
+    # published 64 per group: Cohen 1988, Table 2.4.1 (±1 for Monte Carlo error)
     out = run(question(find="sample_size", replicates=40000))
     assert abs(out["per_arm"][0] - 64) <= 1 and out["per_arm"][0] == out["per_arm"][1]
     first, second = out["search"]["confirmation"]
@@ -162,7 +162,7 @@ def test_noninferiority_power_matches_noncentral_t():
 
 
 def test_tost_solve_near_reference():
-    # formula: TOST σ = 0.1, Δ = 0, margin 0.05: 70 per group with the exact t (REFERENCES.md), ±2
+    # formula: TOST σ = 0.1, Δ = 0, margin 0.05: 70 per group with the exact t, ±2
     hyp = {"kind": "equivalence", "margin": 0.05, "higher_is_better": True}
     effect = {"difference": 0.0, "sd_control": 0.1, "sd_treatment": 0.1}
     out = run(

@@ -110,7 +110,7 @@ def test_type_i_error_is_checked_at_the_given_n() -> None:
     "design, per_arm, effect, approx",
     [
         # p = .40 vs .60 needs 96.92 → 97 per group (formula, pooled normal approximation;
-        # REFERENCES.md); the simulated z test is exact, so allow 0.01 in power (from memory:
+        # Fleiss, Levin & Paik 2003); the simulated z test is exact, so allow 0.01 in power (from memory:
         # the approximation is within a point of power here).
         ("two_proportions", [97, 97], {"p_control": 0.4}, 0.01),
         # r = 0.3 needs 85 pairs (Cohen 1988, Table 3.4.1; Fisher z, recomputed); the simulated
@@ -133,7 +133,7 @@ def test_simulated_effect_agrees_with_the_formula(design, per_arm, effect, appro
 @pytest.mark.parametrize(
     "design, per_arm, origin, approx",
     [
-        # d = 0.5 needs 33.37 → 34 (formula: noncentral t; REFERENCES.md): exact in simulation.
+        # d = 0.5 needs 33.37 → 34 (formula: noncentral t): exact in simulation.
         ("one_mean", [34], 0.0, 0.0),
         ("paired_mean", [34], 0.0, 0.0),
         # f = 0.25, k = 3 needs 52.40 → 53 per group (Cohen 1988, Table 8.4.4; recomputed).

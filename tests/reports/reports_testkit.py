@@ -3,7 +3,7 @@
 from tests.engine.questions import EFFECTS
 
 D_HALF = EFFECTS["two_means"]  # d = 0.5
-# Control median 12 months -> hazard ln 2 / 12; accrual 24, extra follow-up 12 (REFERENCES.md).
+# Control median 12 months -> hazard ln 2 / 12; accrual 24, extra follow-up 12.
 SURVIVAL = EFFECTS["survival_logrank"]
 
 # Invented demo request (Northbridge General Hospital research office); not real data.

@@ -139,7 +139,7 @@ def test_simulated_sample_size_reports_monte_carlo_error(simulated_record):
 def test_simulated_power_against_the_noncentral_t(simulated_power_record):
     text = justification(simulated_power_record)
     power = simulated_power_record["power"]
-    # formula: noncentral t power at d = 0.5, n = 30 per group is 0.4779 (REFERENCES.md);
+    # formula: noncentral t power at d = 0.5, n = 30 per group is 0.4779 (recomputed with statsmodels TTestIndPower);
     # statsmodels TTestIndPower agrees; the simulated estimate lies within 4 MCSE of it
     exact = TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05, ratio=1.0)
     assert exact == pytest.approx(0.4779, abs=1e-4)

@@ -1,6 +1,6 @@
 """Posted (raw) questions the schema tests share."""
 
-# Log-rank with a control median of 12, accrual 24 and 12 more of follow-up (REFERENCES.md).
+# Log-rank with a control median of 12, accrual 24 and 12 more of follow-up (Lachin & Foulkes 1986).
 SURV = {
     "design": "survival_logrank",
     "effect": {

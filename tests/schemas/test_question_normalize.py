@@ -50,7 +50,7 @@ def test_two_means_unequal_sds_default_to_welch() -> None:
 
 
 def test_paired_sd_and_correlation_give_sd_difference() -> None:
-    # formula: sd_diff = sd*sqrt(2(1-rho)); REFERENCES.md: delta/sigma 0.5, rho 0.7 -> d_z 0.6455
+    # formula: sd_diff = sd*sqrt(2(1-rho)); delta/sigma 0.5, rho 0.7 -> d_z 0.6455
     q = load_question(
         {"design": "paired_mean", "effect": {"difference": 0.5, "sd": 1.0, "correlation": 0.7}}
     )
@@ -111,7 +111,7 @@ def test_proportions_and_correlation_defaults() -> None:
 
 @pytest.mark.parametrize("kind, margin", [("noninferiority", -0.05), ("equivalence", 0.05)])
 def test_margin_hypotheses_are_one_sided(kind: str, margin: float) -> None:
-    # REFERENCES.md NI/TOST rows: sigma 0.1, margin 0.05, one-sided alpha .05
+    # Chow, Shao & Wang (2008), ch. 3 (NI and TOST): sigma 0.1, margin 0.05, one-sided alpha .05
     q = load_question(
         {
             "design": "two_means",
@@ -168,7 +168,7 @@ def test_split_total_largest_remainders(total: int, weights: list, expected: lis
 
 
 def test_total_split_by_allocation_in_question() -> None:
-    # REFERENCES.md: allocation 2:1 on d = 0.5 gives 48 / 96 per arm, 144 in total
+    # formula: noncentral t, Cohen (1988) eq. 2.3.1: allocation 2:1 on d = 0.5 gives 48 / 96 per arm, 144 in total
     q = load_question(
         {
             "design": "two_means",

@@ -18,7 +18,7 @@ from service.store.models import ChunkResult
 pytestmark = [pytest.mark.services, pytest.mark.slow]
 
 # Power of the two-sided t test at d = 0.5, n = 30 per group, alpha .05: 0.4779
-# (formula: noncentral t, REFERENCES.md; recomputed with statsmodels TTestIndPower).
+# (formula: noncentral t; recomputed with statsmodels TTestIndPower).
 POWER_D05_N30 = TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05, ratio=1.0)
 
 

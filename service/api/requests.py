@@ -25,6 +25,7 @@ from service.schemas.requests import (
     RerunListSchema,
     RerunSchema,
 )
+from service.schemas.shared import shared
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import ApiToken
@@ -145,7 +146,7 @@ def submit_request():
             earlier = _replay(session, key, digest)
         if earlier is not None:
             return _created(earlier, 200)
-    data = RequestCreateSchema().load(raw)
+    data = shared(RequestCreateSchema).load(raw)
     check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
     question = _with_seed(data["question"])

@@ -147,7 +147,7 @@ def submit_request():
         if earlier is not None:
             return _created(earlier, 200)
     data = shared(RequestCreateSchema).load(raw)
-    check_computable(data["question"], data["question_raw"])
+    answer = check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
     question = _with_seed(data["question"])
     try:
@@ -181,7 +181,7 @@ def submit_request():
         return _created(earlier, 200)
     # A closed-form answer costs milliseconds: compute it here rather than queue it.
     here = question.get("method") != "simulation" and settings().get("ANSWER_AT_SUBMISSION", True)
-    if not here or answer_now(request_id) in (None, "skipped"):
+    if not here or answer_now(request_id, answer) in (None, "skipped"):
         publish_job("request", request_id)
     with session_scope(sessions()) as session:
         body = render.request_detail(session, store.get_request(session, request_id))

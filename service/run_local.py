@@ -28,10 +28,15 @@ API_COMMAND: tuple[str, ...] = (
     "python",
     "-m",
     "gunicorn",
+    # Two processes for two cores, four threads each: a request spends part of its time waiting
+    # on SQLite or PostgreSQL, and gthread keeps a client's connection open between calls (sync
+    # workers close every one). Measured with wrk on 2 cores: gthread about 1.7x the requests/s.
     "--workers",
     "2",
     "--worker-class",
-    "sync",
+    "gthread",
+    "--threads",
+    "4",
     "--timeout",
     "60",
     "--graceful-timeout",

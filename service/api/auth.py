@@ -14,6 +14,11 @@ the key of every signature checked from then on, so every link issued before sto
     403  a valid token whose role is not allowed on the endpoint; a report link of another request
     404  an intake token asking for another caller's request (its existence is not revealed)
     429  the per-token rate limit, or the per-token hourly cost budget, is used up
+
+A verified token is remembered by each API process for ``TOKEN_CACHE_SECONDS`` (1 s), so a busy
+caller costs one token lookup per second per process, not one per call. A revocation therefore
+takes effect at once in the process that made it and within 1 s in every other process (and
+for the command line's ``revoke``). Unknown or revoked secrets are never remembered.
 """
 
 from __future__ import annotations
@@ -25,6 +30,7 @@ import math
 import os
 import re
 import secrets
+import threading
 import time
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -110,6 +116,45 @@ LINKS_REVOKED = "report_links_revoked"
 LIMITER_EXTENSION = "sizewise_limiter"
 COUNTERS_FILE = "ratelimit.sqlite"
 BUDGET_WINDOW = timedelta(hours=1)
+# How long a process may keep accepting a token revoked by another process (see the docstring).
+TOKEN_CACHE_SECONDS = 1.0
+TOKEN_CACHE_SIZE = 4096
+TOKEN_CACHE = "token_cache"
+
+
+class TokenCache:
+    """Verified callers by secret hash for a short time; one per application (API process)."""
+
+    def __init__(self, seconds: float = TOKEN_CACHE_SECONDS, size: int = TOKEN_CACHE_SIZE):
+        self.seconds, self.size = seconds, size
+        self._entries: dict[str, tuple[Caller, float]] = {}
+        self._lock = threading.Lock()
+
+    def get(self, key: str) -> Caller | None:
+        """The caller verified under ``key`` less than ``seconds`` ago, else None."""
+        entry = self._entries.get(key)
+        if entry is None or time.monotonic() - entry[1] >= self.seconds:
+            return None
+        return entry[0]
+
+    def put(self, key: str, caller: Caller) -> None:
+        with self._lock:
+            if len(self._entries) >= self.size:
+                self._entries.clear()  # many distinct tokens at once: start over, stay bounded
+            self._entries[key] = (caller, time.monotonic())
+
+    def forget(self, token_id: str) -> None:
+        """Drop every entry of ``token_id`` (its revocation in this process applies at once)."""
+        with self._lock:
+            for key in [k for k, (c, _at) in self._entries.items() if c.token_id == token_id]:
+                del self._entries[key]
+
+
+def token_cache() -> TokenCache:
+    """This application's cache of verified tokens."""
+    from flask import current_app
+
+    return current_app.extensions["sizewise"][TOKEN_CACHE]
 
 
 class Unauthorized(ApiError):
@@ -307,9 +352,18 @@ def _verified_caller(endpoint: str) -> Caller:
     if link is not None and endpoint in LINK_ENDPOINTS and request.method in ("GET", "HEAD"):
         return _link_caller(link)
     secret = _bearer_secret()
+    cache = token_cache()
+    key = token_store.hash_secret(secret)
+    caller = cache.get(key)
+    if caller is not None:
+        return caller
+    # The lookup also writes last_used_at (at most once a minute), so a cached token's last
+    # use is recorded within TOKEN_CACHE_SECONDS of that resolution.
     with session_scope(sessions()) as session:
         row = token_store.verify_token(session, secret)
         caller = Caller(row.id, row.name, row.role) if row is not None else None
+    if caller is not None:
+        cache.put(key, caller)
     if caller is None:
         raise Unauthorized(
             "the bearer token is not valid: unknown or revoked",
@@ -420,6 +474,7 @@ def init_auth(app: Flask) -> Limiter:
     app.before_request(authenticate)
     config = app.extensions["sizewise"]["config"]
     app.extensions["sizewise"]["link_key"] = link_key(config)
+    app.extensions["sizewise"][TOKEN_CACHE] = TokenCache()
     limiter = Limiter(
         rate_limit_key,
         application_limits=[str(config["RATE_LIMIT"])],

@@ -7,6 +7,7 @@ from flask import Blueprint, jsonify
 from service.engine import EngineError, QuestionError, compute
 from service.schemas.api import CatalogueSchema, ResultRecordSchema
 from service.schemas.requests import CalculationCreateSchema
+from service.schemas.shared import shared
 
 from .context import settings
 from .docs import operation
@@ -43,7 +44,7 @@ def designs():
 def calculate():
     """Validate an analytic question and return the engine's result record."""
     reject_query()
-    _raw, data = load_body(CalculationCreateSchema())
+    _raw, data = load_body(shared(CalculationCreateSchema))
     question = data["question"]
     if question.get("method") == "simulation":
         raise ValidationFailed(

@@ -4,12 +4,18 @@ The embedded default runs several gunicorn workers and no Redis; counters in eac
 memory would let a caller make the configured rate once per process. This ``limits`` storage
 keeps the fixed-window counters in one SQLite file instead (``sizewise+sqlite:///path``); each
 increment is one ``BEGIN IMMEDIATE`` transaction, so concurrent processes count exactly.
+
+Each thread of each process keeps one open connection (opening one costs more than the count),
+and the file is in WAL mode with ``synchronous=NORMAL``: a commit appends to the log without an
+fsync, readers never wait for the writer, and exactness comes from the write lock, not from the
+disk. A power cut may lose the last counts of a window (they are throttling state, not records).
 """
 
 from __future__ import annotations
 
 import os
 import sqlite3
+import threading
 import time
 from pathlib import Path
 
@@ -30,17 +36,36 @@ class SqliteFileStorage(Storage):
         self.path.parent.mkdir(parents=True, exist_ok=True)
         if not self.path.exists():
             os.close(os.open(self.path, os.O_WRONLY | os.O_CREAT, 0o600))
-        with self._connect() as conn:
-            conn.execute(_TABLE)
+        self._local = threading.local()
+        conn = self._connect()
+        conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute(_TABLE)
 
     @property
     def base_exceptions(self) -> type[Exception]:
         return sqlite3.Error
 
     def _connect(self) -> sqlite3.Connection:
-        conn = sqlite3.connect(self.path, timeout=10, isolation_level=None)
+        """This thread's connection, opened once (again after a fork: a child needs its own)."""
+        local = self._local
+        conn = getattr(local, "conn", None)
+        if conn is not None and local.pid == os.getpid():
+            return conn
+        conn = sqlite3.connect(self.path, timeout=10, isolation_level=None, check_same_thread=True)
         conn.execute("PRAGMA busy_timeout=10000")
+        conn.execute("PRAGMA synchronous=NORMAL")
+        local.conn, local.pid = conn, os.getpid()
         return conn
+
+    def _drop(self) -> None:
+        """Forget this thread's connection after an error, so the next call opens a fresh one."""
+        conn = getattr(self._local, "conn", None)
+        self._local.conn = None
+        if conn is not None:
+            try:
+                conn.close()
+            except sqlite3.Error:
+                pass
 
     def incr(self, key: str, expiry: float, amount: int = 1) -> int:
         """Add ``amount`` to the key's count (a new window when it expired) and return the count."""
@@ -64,54 +89,46 @@ class SqliteFileStorage(Storage):
             conn.execute("COMMIT")
             return count
         except BaseException:
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
+            self._drop()  # closing rolls back whatever the transaction had begun
             raise
-        finally:
-            conn.close()
 
     def get(self, key: str) -> int:
         """The key's count in its current window (0 when none)."""
-        conn = self._connect()
-        try:
-            row = conn.execute(
-                "SELECT n FROM counters WHERE key = ? AND expires > ?", (key, time.time())
-            ).fetchone()
-        finally:
-            conn.close()
+        row = self._read("SELECT n FROM counters WHERE key = ? AND expires > ?", (key, time.time()))
         return int(row[0]) if row else 0
 
     def get_expiry(self, key: str) -> float:
         """When the key's window ends (epoch seconds; now when it has none)."""
-        conn = self._connect()
-        try:
-            row = conn.execute("SELECT expires FROM counters WHERE key = ?", (key,)).fetchone()
-        finally:
-            conn.close()
+        row = self._read("SELECT expires FROM counters WHERE key = ?", (key,))
         return float(row[0]) if row else time.time()
+
+    def _read(self, sql: str, params: tuple) -> tuple | None:
+        try:
+            return self._connect().execute(sql, params).fetchone()
+        except BaseException:
+            self._drop()
+            raise
 
     def check(self) -> bool:
         """True when the file can be read."""
         try:
-            conn = self._connect()
-            conn.execute("SELECT 1 FROM counters LIMIT 1")
-            conn.close()
+            self._read("SELECT 1 FROM counters LIMIT 1", ())
             return True
         except sqlite3.Error:
             return False
 
     def reset(self) -> int | None:
         """Drop every counter; return how many there were."""
-        conn = self._connect()
         try:
-            return conn.execute("DELETE FROM counters").rowcount
-        finally:
-            conn.close()
+            return self._connect().execute("DELETE FROM counters").rowcount
+        except BaseException:
+            self._drop()
+            raise
 
     def clear(self, key: str) -> None:
         """Drop one key's counter."""
-        conn = self._connect()
         try:
-            conn.execute("DELETE FROM counters WHERE key = ?", (key,))
-        finally:
-            conn.close()
+            self._connect().execute("DELETE FROM counters WHERE key = ?", (key,))
+        except BaseException:
+            self._drop()
+            raise

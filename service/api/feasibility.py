@@ -2,9 +2,10 @@
 
 ``POST /v1/calculations`` computes in-process, so a question whose numbers overflow is refused
 there; a submission used to be stored and fail later in the worker. ``check_computable`` runs
-the same engine checks before anything is stored: an analytic question is answered once (the
-formulas take milliseconds; the worker recomputes and records), a simulated one has its formula
-counterpart evaluated when it has one, which is where a non-finite effect shows.
+the same engine checks before anything is stored: an analytic question is answered once, and
+that record is returned so the API can store it as the request's answer without computing it
+again; a simulated one has its formula counterpart evaluated when it has one, which is where a
+non-finite effect shows.
 """
 
 from __future__ import annotations
@@ -52,31 +53,33 @@ def _refuse(question: dict, posted: Any) -> ValidationFailed:
     return ValidationFailed(message, errors={f: [message] for f in fields})
 
 
-def check_computable(question: dict, posted: Any = None) -> None:
+def check_computable(question: dict, posted: Any = None) -> dict | None:
     """Raise ValidationFailed (422, field-keyed) when the engine cannot compute ``question``.
 
-    ``posted`` is the question as posted, whose paths the refusal names.
+    ``posted`` is the question as posted, whose paths the refusal names. Returns the analytic
+    question's record (the engine's answer: deterministic, so the same as any later compute of
+    this question), None for a simulation.
     """
     simulated = question.get("method") == "simulation"
     if not simulated:
         try:
-            compute(question)
+            return compute(question)
         except QuestionError as exc:
             raise ValidationFailed(
                 str(exc), errors={f"question.{k}": v for k, v in exc.as_errors().items()}
             ) from None
         except EngineError as exc:
             raise _refuse(question, posted) from exc
-        return
     if not question.get("effect"):
-        return  # a data model only: its moments were checked by the schema
+        return None  # a data model only: its moments were checked by the schema
     analytic = copy.deepcopy(question)
     analytic["method"] = "analytic"
     analytic.pop("simulation", None)
     try:
         compute(analytic)
     except QuestionError:
-        return  # no formula counterpart for this simulation: nothing to compare against
+        return None  # no formula counterpart for this simulation: nothing to compare against
     except EngineError as exc:
         if _numeric_failure(exc):
             raise _refuse(question, posted) from exc
+    return None

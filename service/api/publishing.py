@@ -47,8 +47,11 @@ def api_owner() -> str:
     return f"api:{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
 
 
-def answer_now(request_id: str) -> str | None:
+def answer_now(request_id: str, answer: dict | None = None) -> str | None:
     """Compute a closed-form request in this process; return the outcome, None if not done here.
+
+    ``answer`` is the record already computed from the request's question at submission (it is
+    stored as is when the stored question is the one it answers).
 
     None means the request could not be run here (worker package missing, database hiccup): the
     caller then publishes it as usual. A claimed request whose run broke off is left on its lease
@@ -60,7 +63,9 @@ def answer_now(request_id: str) -> str | None:
         log.warning("worker code unavailable (%s); request %s goes to the queue", exc, request_id)
         return None
     try:
-        return run_request_job(request_id, settings(), owner=api_owner(), factory=sessions())
+        return run_request_job(
+            request_id, settings(), owner=api_owner(), factory=sessions(), answer=answer
+        )
     except Exception:  # never fail a request that is already stored
         log.exception("request %s: computing at submission failed; left to the workers", request_id)
         return None

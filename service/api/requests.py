@@ -25,6 +25,7 @@ from service.schemas.requests import (
     RerunListSchema,
     RerunSchema,
 )
+from service.schemas.shared import shared
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import ApiToken
@@ -145,8 +146,8 @@ def submit_request():
             earlier = _replay(session, key, digest)
         if earlier is not None:
             return _created(earlier, 200)
-    data = RequestCreateSchema().load(raw)
-    check_computable(data["question"], data["question_raw"])
+    data = shared(RequestCreateSchema).load(raw)
+    answer = check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
     question = _with_seed(data["question"])
     try:
@@ -180,7 +181,7 @@ def submit_request():
         return _created(earlier, 200)
     # A closed-form answer costs milliseconds: compute it here rather than queue it.
     here = question.get("method") != "simulation" and settings().get("ANSWER_AT_SUBMISSION", True)
-    if not here or answer_now(request_id) in (None, "skipped"):
+    if not here or answer_now(request_id, answer) in (None, "skipped"):
         publish_job("request", request_id)
     with session_scope(sessions()) as session:
         body = render.request_detail(session, store.get_request(session, request_id))

@@ -12,6 +12,7 @@ from service.store import tokens as store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES, ApiToken
 
+from .auth import token_cache
 from .context import sessions
 from .docs import operation
 from .errors import NotFound, ValidationFailed
@@ -115,7 +116,8 @@ def list_tokens():
 
 @bp.post("/tokens/<token_id>/revoke")
 @operation(
-    "Revoke a token (it stops working at once; revoking twice keeps the first time)",
+    "Revoke a token (it stops working within 1 s on every API process; revoking twice keeps "
+    "the first time)",
     tag="tokens",
     response=TokenSchema,
     errors=(401, 403, 404, 422, 429, 500, 503),
@@ -131,4 +133,7 @@ def revoke_token(token_id: str):
         )
         if row is None:
             raise NotFound(f"no token with id '{token_id}'")
-        return jsonify(_render(row))
+        rendered = _render(row)
+    # Committed: this process stops accepting it now, the others within TOKEN_CACHE_SECONDS.
+    token_cache().forget(token_id)
+    return jsonify(rendered)

@@ -24,6 +24,7 @@ from .fields import (
     posted,
     show,
 )
+from .shared import shared
 from .vocabulary import DECISION_RULES, KINDS, MAX_N, SEED_LIMIT, valid_design
 
 
@@ -226,4 +227,4 @@ class SimulationField(Obj):
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
         self.check_object(value)
-        return SimulationSchema(design=valid_design(data)).load(value)
+        return shared(SimulationSchema, design=valid_design(data)).load(value)

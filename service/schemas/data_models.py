@@ -27,6 +27,7 @@ from .fields import (
     number_text,
     show,
 )
+from .shared import shared
 
 # Parameter name -> (interval, description). Order is the documented order.
 FAMILY_PARAMS: dict[str, dict[str, tuple[Interval, str]]] = {
@@ -153,7 +154,7 @@ class Arm(fields.Dict):
             raise ValidationError(
                 {"family": [f"must be one of {', '.join(self.families)}; {got(family)}"]}
             )
-        return ARM_SCHEMAS[family]().load(value)
+        return shared(ARM_SCHEMAS[family]).load(value)
 
 
 class ArmList(fields.List):

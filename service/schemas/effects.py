@@ -29,6 +29,7 @@ from .fields import (
     raise_errors,
     show,
 )
+from .shared import shared
 from .vocabulary import valid_design, valid_find
 
 
@@ -365,7 +366,9 @@ class Effect(fields.Dict):
         if design is None:
             return dict(value)  # the design is invalid and reported on its own field
         find = valid_find(data)
-        return EFFECT_SCHEMAS[design](find=find, from_data=posts_data_model(data, find)).load(value)
+        return shared(
+            EFFECT_SCHEMAS[design], find=find, from_data=posts_data_model(data, find)
+        ).load(value)
 
 
 def posts_data_model(raw: Any, find: str | None) -> bool:

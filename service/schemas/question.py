@@ -90,6 +90,7 @@ from .fields import (
     raise_errors,
     show,
 )
+from .shared import shared
 from .vocabulary import (
     DECISION_RULES,
     FINDS,
@@ -533,7 +534,7 @@ class QuestionSchema(Strict):
     @post_load(pass_original=True)
     def _normalize(self, data: dict, original_data: Any, **kwargs: Any) -> dict:
         design, find = data["design"], data["find"]
-        hyp = data.get("hypothesis") or HypothesisSchema().load({})
+        hyp = data.get("hypothesis") or shared(HypothesisSchema).load({})
         kind = hyp["kind"]
         effect = data.get("effect")
         sim = data.get("simulation")
@@ -552,7 +553,7 @@ class QuestionSchema(Strict):
             )
             method = "simulation" if only_model else "analytic"
         if method == "simulation":
-            sim = sim if sim is not None else SimulationSchema(design=design).load({})
+            sim = sim if sim is not None else shared(SimulationSchema, design=design).load({})
             if sim.get("test") is None:
                 sim["test"] = TESTS[design][0]
         else:
@@ -586,7 +587,7 @@ class QuestionSchema(Strict):
             implied = _implied(design, method, (sim or {}).get("data"))
             aim = direction.one_sided({"hypothesis": hyp, "effect": effect}, design, implied)
             hyp = {**hyp, "higher_is_better": aim > 0}
-        adjustments = data.get("adjustments") or AdjustmentsSchema().load({})
+        adjustments = data.get("adjustments") or shared(AdjustmentsSchema).load({})
         return {
             "design": design,
             "find": find,
@@ -667,7 +668,7 @@ def load_question(raw: Any) -> dict:
             {"question": [f"must be a JSON object with at least a design; {got(raw)}"]}
         )
     try:
-        return QuestionSchema().load(dict(raw))
+        return shared(QuestionSchema).load(dict(raw))
     except ValidationError as exc:
         raise QuestionInvalid(flatten_errors(exc.messages)) from None
 

@@ -126,3 +126,23 @@ def test_analyses_posted_with_an_analytic_request_are_handed_to_the_queue(live_a
     with session_scope(live_api.sessions()) as session:
         row = session.get(Analysis, analysis["id"])
         assert row.status == "queued" and row.published_at is not None
+
+
+def test_an_answer_given_to_the_job_is_stored_only_for_the_question_it_answers(api, app):
+    # The API hands the record it computed while checking the submission to the job, so the
+    # question is computed once; a record of any other question must never be stored instead.
+    config = app.extensions["sizewise"]["config"]
+    queued = api.submit(api.request_body(question_body())).get_json()
+    other = compute(
+        dict(queued["question"], effect=dict(queued["question"]["effect"], difference=0.4))
+    )
+    assert run_request_job(queued["id"], config, answer=other) == "computed"
+    stored = api.client.get(f"/v1/requests/{queued['id']}").get_json()["result"]
+    assert canonical_json(stored) == canonical_json(compute(queued["question"]))
+    assert stored["sample_size"]["per_arm"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
+    # The matching record is stored as is: the same digits the engine gives for the question.
+    again = api.submit(api.request_body(question_body())).get_json()
+    answer = compute(again["question"])
+    assert run_request_job(again["id"], config, answer=answer) == "computed"
+    stored = api.client.get(f"/v1/requests/{again['id']}").get_json()["result"]
+    assert canonical_json(stored) == canonical_json(answer)

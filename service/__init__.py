@@ -41,4 +41,10 @@ def create_app(config: dict | None = None) -> Flask:
     from service.access_log import redact_werkzeug_log
 
     redact_werkzeug_log()
+    if not settings.get("TESTING"):
+        # The served application (gunicorn, the development server) logs JSON lines on stderr,
+        # each with the request id of the HTTP request it belongs to (service.jsonlog).
+        from service.jsonlog import configure
+
+        configure()
     return app

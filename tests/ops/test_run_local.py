@@ -257,5 +257,30 @@ def test_the_embedded_worker_survives_kill_9_of_its_pool_and_of_its_process(tmp_
         assert canonical_json(done["result"]) == canonical_json(compute(done["question"]))
         assert "worker exited (code -9); starting it again" in log.read_text()
         assert proc.poll() is None  # the launcher itself kept running
+
+        # The served API logs JSON lines; its line for the submission has the request id that
+        # the worker's first attempt repeated (later attempts were sent again by the sweeper).
+        logs = tmp_path / "var" / "logs"
+        posted = [
+            line
+            for line in _json_lines(logs / "api.log")
+            if line["logger"] == "service.api.requests" and line["message"].startswith("POST ")
+        ]
+        assert len(posted) == 1 and posted[0]["message"].startswith("POST /v1/requests 202 ")
+        claims = [
+            line
+            for line in _json_lines(logs / "worker.log")
+            if line.get("job_id") == rid and "claimed" in line["message"]
+        ]
+        assert claims and claims[0]["request_id"] == posted[0]["request_id"], claims
     finally:
         stop_group(proc, grace=10)
+
+
+def _json_lines(path: Path) -> list[dict]:
+    """The JSON-object lines of a log (start-up banners and warnings are plain text)."""
+    found = []
+    for raw in path.read_text(errors="replace").splitlines():
+        if raw.startswith("{"):
+            found.append(json.loads(raw))
+    return found

@@ -41,4 +41,11 @@ def create_app(config: dict | None = None) -> Flask:
     from service.access_log import redact_werkzeug_log
 
     redact_werkzeug_log()
+    if config is None and not settings.get("TESTING"):
+        # The served application (gunicorn's and flask's ``service:create_app()``) logs JSON
+        # lines on stderr, each with its HTTP request id (service.jsonlog). A caller passing a
+        # config (tests, the demo loader in a launcher) keeps its own logging.
+        from service.jsonlog import configure
+
+        configure()
     return app

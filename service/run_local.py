@@ -67,6 +67,12 @@ HEALTH_PATH = "/healthz"
 EXAMPLE_FILE = "two_means.json"
 # How long each child gets to finish its work after the stop signal before it is killed.
 STOP_GRACE_SECONDS = 25.0
+# A worker process that dies (kill -9, the OOM killer) is started again, and the sweeper hands
+# its job to the new one; more restarts than this within the window means something is broken
+# (a bad setting, a full disk) and the launcher stops instead of looping.
+RESTARTABLE = frozenset({"worker"})
+MAX_RESTARTS = 5
+RESTART_WINDOW_SECONDS = 120.0
 
 
 def var_dir() -> Path:
@@ -179,6 +185,8 @@ class Supervisor:
 
     def __init__(self) -> None:
         self.children: dict[str, subprocess.Popen] = {}
+        self.commands: dict[str, tuple[list[str], dict[str, str]]] = {}
+        self.restarts: dict[str, list[float]] = {}
         self.stop_requested = threading.Event()
 
     def start(self, name: str, argv: list[str], env: Mapping[str, str]) -> None:
@@ -186,6 +194,7 @@ class Supervisor:
 
         Its output goes to var/logs/<name>.log, so the banner on the terminal stays readable.
         """
+        self.commands[name] = (list(argv), dict(env))
         logs = Path(env["SIZEWISE_VAR_DIR"]) / "logs"
         logs.mkdir(mode=0o700, parents=True, exist_ok=True)
         log_path = logs / f"{name}.log"
@@ -204,6 +213,30 @@ class Supervisor:
         print(
             f"sizewise: started {name} (pid {self.children[name].pid}, log {log_path})", flush=True
         )
+
+    def restart(self, name: str) -> bool:
+        """Start an exited restartable child again; False when it may not (or too often).
+
+        What the dead process forked (an orphaned pool child still computing) is killed first:
+        its job's lease then expires and the sweeper hands the job to the new process.
+        """
+        if name not in RESTARTABLE or self.stop_requested.is_set():
+            return False
+        now = time.monotonic()
+        recent = [t for t in self.restarts.get(name, []) if now - t < RESTART_WINDOW_SECONDS]
+        if len(recent) >= MAX_RESTARTS:
+            return False
+        self.restarts[name] = [*recent, now]
+        old = self.children[name]
+        try:
+            os.killpg(old.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        old.wait()
+        print(f"sizewise: {name} exited (code {old.returncode}); starting it again", flush=True)
+        argv, env = self.commands[name]
+        self.start(name, argv, env)
+        return True
 
     def request_stop(self, signum: int, _frame: object) -> None:
         """Signal handler: remember that a stop was asked for."""
@@ -348,7 +381,9 @@ def main() -> int:
             print(f"sizewise: no report links ({exc})", flush=True)
         while not sup.stop_requested.wait(0.5):
             failed = sup.exited()
-            if failed:
+            if failed and sup.restart(failed):
+                failed = None
+            elif failed:
                 break
     elif not sup.stop_requested.is_set():
         failed = sup.exited() or "api (not healthy in time)"

@@ -14,9 +14,11 @@ from __future__ import annotations
 from pathlib import Path
 
 from celery import Celery
+from celery.signals import setup_logging
 from kombu import Queue
 from kombu.transport import TRANSPORT_ALIASES
 
+from service import jsonlog
 from service.config import broker_transport_options, load_config
 
 # filesystem:// uses kombu's folder transport with atomic message files (see fs_transport).
@@ -118,6 +120,12 @@ def make_celery(config: dict) -> Celery:
     # The tasks read the service config from here (database URL, lease, budget).
     app.conf.sizewise = dict(config)
     return app
+
+
+@setup_logging.connect
+def _json_logging(loglevel=None, **_kwargs) -> None:
+    """The worker logs JSON lines (service.jsonlog); connecting here replaces Celery's set-up."""
+    jsonlog.configure(loglevel or "INFO")
 
 
 # SIZEWISE_* environment variables override the defaults (service.config).

@@ -12,6 +12,7 @@ import threading
 
 from celery import Celery
 
+from service import jsonlog
 from service.store import jobs
 from service.store.db import session_scope
 from workers.celery_app import TASK_NAMES, make_celery
@@ -27,6 +28,10 @@ PUBLISH_RETRY_POLICY = {
     "interval_step": 0.2,
     "interval_max": 0.5,
 }
+
+# The message header that carries the HTTP request id of the submission (service.jsonlog): the
+# task's arguments stay ids only, and the worker repeats the id on the job's log lines.
+REQUEST_ID_HEADER = "sizewise_request_id"
 
 _APPS: dict[tuple, Celery] = {}
 _APPS_LOCK = threading.Lock()
@@ -48,9 +53,17 @@ def _app(config: dict) -> Celery:
 
 
 def _send(name: str, args: list, config: dict) -> bool:
+    # The request id in force (the API's HTTP request, or the job a worker runs) goes along.
+    request_id = jsonlog.current().get("request_id")
+    headers = {REQUEST_ID_HEADER: request_id} if request_id else None
     try:
         _app(config).send_task(
-            name, args=args, retry=True, retry_policy=PUBLISH_RETRY_POLICY, ignore_result=True
+            name,
+            args=args,
+            retry=True,
+            retry_policy=PUBLISH_RETRY_POLICY,
+            ignore_result=True,
+            headers=headers,
         )
     except Exception as exc:  # kombu raises several types for a dead broker; all mean "later"
         log.warning("could not publish %s%s: %s", name, tuple(args[:2]), exc)

@@ -18,12 +18,12 @@ from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import Any
 
-from celery.signals import worker_ready, worker_shutdown
+from celery.signals import task_postrun, task_prerun, worker_ready, worker_shutdown
 from sqlalchemy import select
 from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import sessionmaker
 
-from service import metrics
+from service import jsonlog, metrics
 from service.engine import Cancelled, EngineError, canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
 from service.engine.errors import describe_failure
@@ -34,7 +34,7 @@ from service.store.jobs import KINDS
 from service.store.models import Request, Rerun, Result
 from workers.celery_app import TASK_NAMES, app
 from workers.fanout import UNIT_SECONDS, ChunkExecutor, clear_units, work_units
-from workers.queue import publish_and_mark, publish_helpers
+from workers.queue import REQUEST_ID_HEADER, publish_and_mark, publish_helpers
 from workers.sessions import sessions
 from workers.sweeper import start_thread, stop_thread, sweep_once
 
@@ -424,6 +424,39 @@ def run_chunk(*_args) -> str:
 def sweep() -> int:
     """Republish unpublished and abandoned jobs; return how many were published."""
     return sweep_once(_config())
+
+
+def job_of(task_name: str, args) -> tuple[str | None, str | None]:
+    """Return (job kind, job id) that a task message is about, (None, None) for other tasks."""
+    args = list(args or ())
+    if task_name == TASK_NAMES["helper"] and len(args) >= 2:
+        return str(args[0]), str(args[1])
+    for kind in KINDS:
+        if task_name == TASK_NAMES.get(kind) and args:
+            return kind, str(args[0])
+    return None, None
+
+
+_LOG_CONTEXTS: dict[str, object] = {}
+
+
+@task_prerun.connect
+def _bind_log_context(task_id=None, task=None, args=None, **_kwargs) -> None:
+    """Every line a job logs carries its kind, id and the HTTP request id that published it."""
+    kind, job_id = job_of(getattr(task, "name", ""), args)
+    request = getattr(task, "request", None)
+    request_id = request.get(REQUEST_ID_HEADER) if request is not None else None
+    _LOG_CONTEXTS[task_id] = jsonlog.bind(request_id=request_id, job_kind=kind, job_id=job_id)
+
+
+@task_postrun.connect
+def _unbind_log_context(task_id=None, **_kwargs) -> None:
+    token = _LOG_CONTEXTS.pop(task_id, None)
+    if token is not None:
+        try:
+            jsonlog.unbind(token)
+        except ValueError:  # bound in another context: nothing of ours to restore
+            pass
 
 
 @worker_ready.connect

@@ -177,3 +177,110 @@ def test_local_launcher_end_to_end(tmp_path: Path):
         assert not api.healthy()
     finally:
         stop_group(proc, grace=5)
+
+
+def _worker_pid(log: Path) -> int:
+    """The pid of the worker process the launcher started last (from its start-up line)."""
+    found = re.findall(r"started worker \(pid (\d+),", log.read_text())
+    assert found, tail(log)
+    return int(found[-1])
+
+
+def test_the_embedded_worker_survives_kill_9_of_its_pool_and_of_its_process(tmp_path: Path):
+    """``make run``: kill both pool children mid-simulation, then the worker process itself;
+    the launcher starts a new worker, the sweeper hands it the job, and the record's digits are
+    those of an undisturbed run (the engine in this process, same stored question)."""
+    import psutil
+
+    from service.engine import canonical_json, compute
+
+    port = free_port()
+    base = {k: v for k, v in os.environ.items() if not k.startswith("SIZEWISE_")}
+    base.update(
+        SIZEWISE_VAR_DIR=str(tmp_path / "var"),
+        SIZEWISE_PORT=str(port),
+        SIZEWISE_LEASE_SECONDS="5",
+        SIZEWISE_SWEEP_SECONDS="1",
+        SIZEWISE_MAX_ATTEMPTS="6",
+    )
+    log = tmp_path / "run_local.log"
+    proc = start([sys.executable, "-m", "service.run_local"], base, log)
+    try:
+        wait_for(lambda: _banner_token(log), 120, f"the launcher's banner\n{tail(log)}", step=0.5)
+        api = Api(port, _banner_token(log))
+        question = {
+            "design": "rank_sum",
+            "find": "power",
+            "sample_size": {"total": 1000},
+            "simulation": {
+                "replicates": 12_000,
+                "chunk_size": 500,
+                "seed": 7300,
+                "data": {
+                    "control": {"family": "lognormal", "mu": 1.0, "sigma": 0.8},
+                    "treatment": {"family": "lognormal", "mu": 1.1, "sigma": 0.8},
+                },
+            },
+        }
+        body = readme_example_request() | {"question": question}
+        status, created = api.call("POST", "/v1/requests", body)
+        assert status == 202, created
+        rid = created["id"]
+
+        def running(min_attempts: int):
+            def check():
+                got = api.call("GET", f"/v1/requests/{rid}")[1]
+                assert got["status"] not in TERMINAL, (got["status"], got.get("error"))
+                return got["status"] == "running" and got["attempts"] >= min_attempts
+
+            return check
+
+        wait_for(running(1), 60, f"the simulation running\n{tail(log)}", step=0.1)
+        worker = psutil.Process(_worker_pid(log))
+        children = worker.children()
+        assert len(children) == 2, children
+        for child in children:
+            os.kill(child.pid, signal.SIGKILL)
+        # New pool children take the job back (after its lease expires) ...
+        wait_for(running(2), 90, f"the job taken back\n{tail(log)}", step=0.1)
+        # ... and then the whole worker process dies; the launcher starts another one.
+        os.kill(worker.pid, signal.SIGKILL)
+        wait_for(lambda: _worker_pid(log) != worker.pid, 30, f"a new worker\n{tail(log)}", step=0.2)
+
+        def ended() -> dict | None:
+            got = api.call("GET", f"/v1/requests/{rid}")[1]
+            return got if got["status"] in TERMINAL else None
+
+        done = wait_for(ended, 180, f"the request computed\n{tail(log)}", step=0.5)
+        assert done["status"] == "computed", done.get("error")
+        assert done["attempts"] >= 3
+        assert canonical_json(done["result"]) == canonical_json(compute(done["question"]))
+        assert "worker exited (code -9); starting it again" in log.read_text()
+        assert proc.poll() is None  # the launcher itself kept running
+
+        # The served API logs JSON lines; its line for the submission has the request id that
+        # the worker's first attempt repeated (later attempts were sent again by the sweeper).
+        logs = tmp_path / "var" / "logs"
+        posted = [
+            line
+            for line in _json_lines(logs / "api.log")
+            if line["logger"] == "service.api.requests" and line["message"].startswith("POST ")
+        ]
+        assert len(posted) == 1 and posted[0]["message"].startswith("POST /v1/requests 202 ")
+        claims = [
+            line
+            for line in _json_lines(logs / "worker.log")
+            if line.get("job_id") == rid and "claimed" in line["message"]
+        ]
+        assert claims and claims[0]["request_id"] == posted[0]["request_id"], claims
+    finally:
+        stop_group(proc, grace=10)
+
+
+def _json_lines(path: Path) -> list[dict]:
+    """The JSON-object lines of a log (start-up banners and warnings are plain text)."""
+    found = []
+    for raw in path.read_text(errors="replace").splitlines():
+        if raw.startswith("{"):
+            found.append(json.loads(raw))
+    return found

@@ -136,14 +136,6 @@ def test_killed_worker_job_completes_with_identical_digits(config, stack, start_
                 assert attempts >= 2, (request_id, attempts)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason=(
-        "open: with the folder broker Celery uses billiard's plain Pool, whose children share "
-        "one queue lock (a semaphore); a child killed while holding it leaves the replacement "
-        "children waiting on it forever (seen: both replacements blocked on a futex)"
-    ),
-)
 def test_embedded_default_survives_the_death_of_both_pool_children(sqlite_config, start_worker):
     """The embedded default (SQLite + folder broker): kill both pool children mid-simulation;
     the replacement children must take the job back and finish it with the undisturbed digits."""

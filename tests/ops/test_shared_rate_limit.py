@@ -57,6 +57,11 @@ def _burst(url: str, headers: dict) -> list[int]:
     return codes
 
 
+def _pids(log: Path) -> set[str]:
+    """The worker processes that answered /v1/designs, from the access log's pid column."""
+    return set(re.findall(r"^<?(\d+)>? (?:200|401|429) /v1/designs$", log.read_text(), re.M))
+
+
 def test_rate_limit_is_shared_by_the_embedded_api_processes(tmp_path: Path):
     var = tmp_path / "var"
     port = free_port()
@@ -89,12 +94,19 @@ def test_rate_limit_is_shared_by_the_embedded_api_processes(tmp_path: Path):
         designs = f"http://127.0.0.1:{port}/v1/designs"
         with_token = _burst(designs, {"Authorization": f"Bearer {secret}"})
         without = _burst(designs, {})
+        # The kernel may hand every connection of a burst to one process; more bursts (all past
+        # the limit) go on until the other process has answered too, and it must refuse as well.
+        extra: list[int] = []
+        for _ in range(10):
+            if len(_pids(log)) == 2:
+                break
+            extra += _burst(designs, {})
     finally:
         stop_group(proc)
     assert sorted(with_token) == [200] * RATE + [429] * (CALLS - RATE), json.dumps(with_token)
     assert sorted(without) == [401] * RATE + [429] * (CALLS - RATE), json.dumps(without)
-    pids = set(re.findall(r"^<?(\d+)>? (?:200|401|429) /v1/designs$", log.read_text(), re.M))
-    assert len(pids) == 2, tail(log)
+    assert set(extra) <= {429}, json.dumps(extra)
+    assert len(_pids(log)) == 2, tail(log)
     # The counters live in the shared file under the var/ folder, created owner-only.
     counters = var / "ratelimit.sqlite"
     assert counters.exists() and (counters.stat().st_mode & 0o077) == 0

@@ -12,6 +12,7 @@ from service.schemas.shared import shared
 from .context import settings
 from .docs import operation
 from .errors import ApiError, ValidationFailed
+from .feasibility import question_refused
 from .io import load_body, reject_query
 
 bp = Blueprint("calculations", __name__, url_prefix="/v1")
@@ -54,9 +55,7 @@ def calculate():
     try:
         record = compute(question, budget=int(settings()["SIMULATION_BUDGET"]))
     except QuestionError as exc:
-        raise ValidationFailed(
-            str(exc), errors={f"question.{k}": v for k, v in exc.as_errors().items()}
-        ) from None
+        raise question_refused(exc) from None
     except EngineError as exc:
         raise ApiError(str(exc), status=422, title="Cannot answer", slug="engine-error") from None
     return jsonify(record)

@@ -37,6 +37,13 @@ def extreme_fields(value: Any, path: str = "question") -> list[str]:
     return []
 
 
+def question_refused(exc: QuestionError) -> ValidationFailed:
+    """The 422 for a question the engine refuses, keyed by the question's field paths."""
+    return ValidationFailed(
+        str(exc), errors={f"question.{k}": v for k, v in exc.as_errors().items()}
+    )
+
+
 def _numeric_failure(exc: EngineError) -> bool:
     """True when the engine failed on arithmetic (overflow, division by zero, a non-finite value)."""
     cause = exc.__cause__
@@ -65,9 +72,7 @@ def check_computable(question: dict, posted: Any = None) -> dict | None:
         try:
             return compute(question)
         except QuestionError as exc:
-            raise ValidationFailed(
-                str(exc), errors={f"question.{k}": v for k, v in exc.as_errors().items()}
-            ) from None
+            raise question_refused(exc) from None
         except EngineError as exc:
             raise _refuse(question, posted) from exc
     if not question.get("effect"):

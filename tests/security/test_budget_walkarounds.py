@@ -16,7 +16,6 @@ import pytest
 from sqlalchemy import func, select, update
 from werkzeug.serving import make_server
 
-from service import create_app
 from service.api.analyses import formula_record
 from service.engine import compute, estimate_cost
 from service.engine.explore import analysis_cost
@@ -28,21 +27,6 @@ from service.store.models import Analysis, Request, TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
-
-
-@pytest.fixture
-def make_app(settings):
-    """Build an app on the test database with extra settings."""
-    made = []
-
-    def build(**extra):
-        application = create_app(dict(settings, **extra))
-        made.append(application)
-        return application
-
-    yield build
-    for application in made:
-        application.extensions["sizewise"]["engine"].dispose()
 
 
 def _token(app, role: str, name: str) -> tuple[str, dict]:

@@ -10,7 +10,6 @@ import pytest
 from prometheus_client import REGISTRY
 from sqlalchemy import update
 
-from service import create_app
 from service.api.auth import storage_url
 from service.engine import estimate_cost
 from service.schemas import load_question
@@ -19,21 +18,6 @@ from service.store.models import TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
-
-
-@pytest.fixture
-def make_app(settings):
-    """Build an app on the test database with extra settings."""
-    made = []
-
-    def build(**extra):
-        application = create_app(dict(settings, **extra))
-        made.append(application)
-        return application
-
-    yield build
-    for application in made:
-        application.extensions["sizewise"]["engine"].dispose()
 
 
 def _headers(app, role: str, name: str) -> dict:

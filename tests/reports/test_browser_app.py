@@ -37,15 +37,20 @@ BODY = {
     },
     "effect_source": "SD from the 2024 Northbridge audit of rehabilitation visits",
     "question": {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
-        "effect": {"difference": 40, "sd": 90},
+        "effect": {"difference": 40},
+        "assumptions": {"sd": 90},
         "adjustments": {"dropout": 0.15},
     },
-    "analyses": {
-        "sensitivity": {"grid": {"effect.difference": [30, 40, 50], "effect.sd": [80, 90, 100]}},
-        "robustness": True,
-    },
+    "explorations": [
+        {
+            "type": "sensitivity_grid",
+            "grid": {"effect.difference": [30, 40, 50], "assumptions.sd": [80, 90, 100]},
+        },
+        {"type": "robustness_panel"},
+    ],
 }
 
 

@@ -5,14 +5,13 @@ from html.parser import HTMLParser
 
 import pytest
 from markupsafe import escape
-from reports_testkit import D_HALF, REQUEST
+from reports_testkit import REQUEST, question
 
 from service.engine import CAUTIONS
 from service.engine.explore import robustness, sensitivity
 from service.reports.justification import justification
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report, render_staff_list
-from tests.engine.questions import make_q
 
 BLOCKS = (
     "protocol",
@@ -49,11 +48,11 @@ def _parse(page: str) -> _Ids:
 
 @pytest.fixture(scope="module")
 def full_page(simulated_record):
-    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
+    q = question(adjustments={"dropout": 0.1})
     sens = sensitivity(q, {"effect.difference": [0.4, 0.5, 0.6]})
     rob = robustness(
         simulated_record["question"],
-        simulated_record["sample_size"]["per_arm"],
+        simulated_record["sample_size"]["per_group"],
         replicates=300,
         seed=11,
     )

@@ -124,7 +124,7 @@ def test_input_is_escaped(analytic_record):
 
 def test_staff_list():
     rows = [
-        REQUEST,
+        dict(REQUEST, question=question(), method="analytic"),
         dict(REQUEST, id="a" * 32, status="running", progress=0.4, assigned_to=None),
         dict(
             REQUEST,
@@ -140,4 +140,6 @@ def test_staff_list():
     assert f'href="/v1/requests/{"a" * 32}/report"' in page
     assert "&lt;b&gt;Falls&lt;/b&gt;" in page
     assert "3 requests: 1 computing, 1 computed, awaiting review, 1 failed" in page
+    # the first row's cell and analysis in words (test_prose checks them against the design)
+    assert "Continuous outcome, two groups" in page
     assert "No requests yet." in render_staff_list([])

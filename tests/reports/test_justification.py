@@ -4,10 +4,9 @@ import math
 import re
 
 import pytest
+from reports_testkit import answer
 from scipy import stats
 from statsmodels.stats.power import TTestIndPower
-
-from reports_testkit import answer
 
 from service.reports.justification import (
     fmt_count,

@@ -5,9 +5,8 @@ from __future__ import annotations
 import math
 
 import pytest
-from statsmodels.stats.power import TTestIndPower
-
 from reports_testkit import SURVIVAL, answer
+from statsmodels.stats.power import TTestIndPower
 
 from service.reports.justification import justification
 

@@ -15,7 +15,7 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
-from reports_testkit import REQUEST, SURVIVAL, answer, question
+from reports_testkit import REQUEST, answer, question
 
 from service.engine import compute, designs
 from service.reports import describe

@@ -12,9 +12,7 @@ from service.reports.render import render_report
 
 
 def test_robustness_header_names_the_analyzed_numbers_that_were_simulated():
-    q = question(
-        find="power", sample_size={"per_group": [137, 137]}, adjustments={"dropout": 0.1}
-    )
+    q = question(find="power", sample_size={"per_group": [137, 137]}, adjustments={"dropout": 0.1})
     record = compute(q)
     panel = robustness(q, [137, 137], replicates=200, seed=5)
     assert panel["per_group"] == [137, 137]
@@ -26,9 +24,7 @@ def test_robustness_header_names_the_analyzed_numbers_that_were_simulated():
 
 
 def test_step_caption_claims_rounding_only_where_it_happened():
-    power = answer(
-        find="power", sample_size={"per_group": [47, 47]}, adjustments={"dropout": 0.1}
-    )
+    power = answer(find="power", sample_size={"per_group": [47, 47]}, adjustments={"dropout": 0.1})
     page = render_report(REQUEST, power, curve_svg="<svg></svg>")
     assert (
         "rounded up at every step" not in page and "rounds" not in page.split("<caption>")[1][:200]

@@ -69,9 +69,7 @@ def test_refused_cells_are_gaps():
     )  # Cohen 1988, Table 2.4.1
 
 
-def test_report_shows_the_grid_as_table_and_curves_and_pending_explorations(
-    analytic_record, grid
-):
+def test_report_shows_the_grid_as_table_and_curves_and_pending_explorations(analytic_record, grid):
     page = render_report(
         REQUEST,
         analytic_record,

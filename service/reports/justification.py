@@ -34,7 +34,9 @@ __all__ = [
     "fmt_num",
     "fmt_pct",
     "fmt_power",
+    "events_of",
     "fmt_prob",
+    "hypothesis_words",
     "justification",
     "method_note",
     "method_sentence",
@@ -90,7 +92,7 @@ def _analyzed(sizes: list, q: dict) -> str:
 # --- the question in words ---------------------------------------------------------------------
 
 
-def _hypothesis(q: dict) -> str:
+def hypothesis_words(q: dict) -> str:
     hyp = q.get("hypothesis") or {}
     aim, margin = hyp.get("aim", "superiority"), hyp.get("margin")
     if aim == "noninferiority":
@@ -365,7 +367,7 @@ def size_verdict(t1: dict, alpha: float | None = None) -> str:
 # --- the paragraph -----------------------------------------------------------------------------
 
 
-def _events(record: dict) -> dict | None:
+def events_of(record: dict) -> dict | None:
     """The analytic events block: required, unrounded and P(event) per group, else None."""
     ev = record.get("events") or {}
     if ev.get("required") is None:
@@ -378,13 +380,13 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
     steps = size["steps"]
     analytic = record["method"].get("method") != "simulation"
     base = next(s for s in steps if s["step"] == "base")
-    aim = _hypothesis(q)
+    aim = hypothesis_words(q)
     lead = "" if aim == "to detect" else f" {aim[0].upper()}{aim[1:]},"
     body = (
         f"{lead} {'with' if lead else 'With'} {test_level} and a target power of "
         f"{fmt_pct(q['target_power'])}, and assuming {assumed_text(q, record)},"
     )
-    ev = _events(record)
+    ev = events_of(record)
     if ev:
         p = ev["probability"]
         body += (
@@ -443,7 +445,7 @@ def _given_size_body(record: dict, context: dict | None, test_level: str) -> str
         )
     assumed = assumed_text(q, record)
     if q["find"] == "power":
-        verb = _hypothesis(q)
+        verb = hypothesis_words(q)
         target = f"{verb} {assumed}" if verb == "to detect" else f"{verb}, assuming {assumed}"
         body += f", the power {target} is {fmt_power(record['power']['estimate'])}."
     else:

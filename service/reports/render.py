@@ -132,7 +132,7 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
         better = (
             " (higher is better)" if hyp.get("higher_is_better", True) else " (lower is better)"
         )
-        rows.append(("Hypothesis", words._hypothesis(q).removeprefix("to ").capitalize() + better))
+        rows.append(("Hypothesis", words.hypothesis_words(q).removeprefix("to ").capitalize() + better))
     if describe.group_count(q) == 2:
         rows.append(
             (
@@ -196,7 +196,7 @@ def _answer_figures(record: dict) -> list[dict]:
             }
         )
     figures.append({"value": words.fmt_count(size["total"]), "label": "enrolled in total"})
-    events = words._events(record)
+    events = words.events_of(record)
     if events:
         figures.append({"value": words.fmt_count(events["required"]), "label": "events required"})
     if q["find"] == "effect" and record.get("effect"):
@@ -281,7 +281,7 @@ def _step_rows(record: dict) -> list[dict]:
                 if record["method"].get("method") != "simulation"
                 else "smallest simulated size reaching the target"
             )
-            events = words._events(record)
+            events = words.events_of(record)
             if events:
                 detail += (
                     f"; {words.fmt_count(events['required'])} events ÷ mean P(event) "

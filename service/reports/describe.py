@@ -2,14 +2,14 @@
 
 The report never names a design. It looks up the cell (``outcome`` × ``layout``) in the engine's
 registry and reads the cell's label, its analyses' labels, its field labels and units, and its
-``Phrases``. A phrase function the design does not provide falls back to a sentence built from
-the field declarations ("a standard deviation of 12"), so a newly registered design renders
-without any edit here.
+``Phrases`` (``effect(q, record)``, ``assumptions(q)``). A design registered without phrases
+gets sentences built from its field declarations ("standard deviation 12"), so a newly
+registered design renders without any edit here.
 """
 
 from __future__ import annotations
 
-from service.engine import designs
+from service.engine import QuestionError, designs
 
 __all__ = [
     "analysis_label",
@@ -69,11 +69,8 @@ def cell(q: dict):
     """Return the design object of the question's cell (ValueError naming the field if unknown)."""
     try:
         return designs.get(q.get("outcome"), q.get("layout"))
-    except (KeyError, TypeError, ValueError) as exc:
-        raise ValueError(
-            f"question.layout: no design for outcome {q.get('outcome')!r} × layout "
-            f"{q.get('layout')!r}"
-        ) from exc
+    except QuestionError as exc:
+        raise ValueError(f"question.{exc.field}: {exc.message}") from exc
 
 
 def cell_label(q: dict) -> str:
@@ -86,7 +83,7 @@ def _analysis(q: dict, record: dict | None = None):
     name = ((record or {}).get("method") or {}).get("analysis") or q.get("analysis")
     if not name:
         name = design.default_analysis(q)
-    return next((a for a in design.analyses if a.name == name), None)
+    return next((a for a in design.analyses if a.name == name), None)  # None: not offered
 
 
 def analysis_label(q: dict, record: dict | None = None) -> str:
@@ -148,31 +145,21 @@ def _generic(q: dict, block: str, skip: tuple[str, ...] = ()) -> str:
     return ", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]
 
 
-def _phrase(q: dict, name: str, *args):
-    """Call the design's phrase ``name`` when it declares one; None when it does not."""
-    fn = getattr(cell(q).phrases, name, None)
-    return fn(*args) if callable(fn) else None
-
-
 def effect_text(q: dict, record: dict | None = None) -> str:
-    """The effect to detect, as entered ('a difference in means of -5'); '' when solved for."""
-    text = _phrase(q, "effect_sentence", q, record)
-    if text is None:
-        text = _generic(q, "effect")
-    return text
+    """The effect to detect, as entered ('a mean difference of -5 …')."""
+    phrases = cell(q).phrases
+    return phrases.effect(q, record) if phrases is not None else _generic(q, "effect")
 
 
 def assumptions_text(q: dict) -> str:
-    """What the study assumes, as entered ('a standard deviation of 12'), with its time unit."""
-    text = _phrase(q, "assumptions_sentence", q)
-    if text is None:
-        text = _generic(q, "assumptions")
-    return text
+    """What the study assumes, as entered ('SD 8 and correlation 0.6'), with its time unit."""
+    phrases = cell(q).phrases
+    return phrases.assumptions(q) if phrases is not None else _generic(q, "assumptions")
 
 
-def assumed_text(q: dict, record: dict | None = None) -> str:
+def assumed_text(q: dict, record: dict | None = None, *, effect: bool = True) -> str:
     """The effect and the assumptions in one phrase, as the investigator entered them."""
-    parts = [t for t in (effect_text(q, record), assumptions_text(q)) if t]
+    parts = [t for t in (effect_text(q, record) if effect else "", assumptions_text(q)) if t]
     return " with ".join(parts) if parts else "the stated assumptions"
 
 
@@ -181,25 +168,21 @@ def derived_text(q: dict, record: dict) -> str:
     derived = (record.get("method") or {}).get("derived") or {}
     if not derived:
         return ""
-    labels = _phrase(q, "derived_labels") or {}
+    declared = _fields(cell(q))
     parts = []
     for name, value in derived.items():
-        label = labels.get(name) or field_label(q, name)
-        if isinstance(value, dict):
-            value = ", ".join(f"{k.replace('_', ' ')} {fmt_num(v)}" for k, v in value.items())
-        elif isinstance(value, (list, tuple)):
-            value = ", ".join(fmt_num(v) for v in value)
-        elif not isinstance(value, str):
-            value = fmt_num(value)
-        parts.append(f"{label} {value}")
+        f = declared.get(name)
+        if f is not None and not isinstance(value, (dict, str)):
+            parts.append(f"{f.label} {_value_text(q, f, value)}")
+        elif isinstance(value, (int, float)):
+            parts.append(f"{name.replace('_', ' ')} {fmt_num(value)}")
+        else:
+            parts.append(f"{name.replace('_', ' ')} {value}")
     return "; ".join(parts)
 
 
 def unit_words(q: dict) -> tuple[str, str]:
     """What one enrolled unit is called: pairs in a paired layout, participants otherwise."""
-    words = _phrase(q, "unit_words")
-    if words:
-        return tuple(words)
     return ("pair", "pairs") if q.get("layout") == "paired" else ("participant", "participants")
 
 

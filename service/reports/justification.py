@@ -443,7 +443,8 @@ def _given_size_body(record: dict, context: dict | None, test_level: str) -> str
         body += (
             f" (after {' and '.join(words)}, an effective {_analyzed(analyzed, q)} are analyzed)"
         )
-    assumed = assumed_text(q, record)
+    # find = effect: the effect is the answer, so "given" names only the assumptions
+    assumed = assumed_text(q, record, effect=q["find"] == "power")
     if q["find"] == "power":
         verb = hypothesis_words(q)
         target = f"{verb} {assumed}" if verb == "to detect" else f"{verb}, assuming {assumed}"

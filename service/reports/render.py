@@ -104,6 +104,7 @@ def _version(record: dict | None = None) -> str:
 
 def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
     """Return the normalized question as (label, plain-English value) rows."""
+    cell = describe.cell(q)
     rows = [
         ("Design", describe.cell_label(q)),
         ("Planned analysis", describe.analysis_label(q, record)),
@@ -121,7 +122,10 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
             )
         else:
             rows.append(("Enrolled in total", words.fmt_count(q["sample_size"]["total"])))
-    effect = describe.effect_text(q, record)
+    if q["find"] == "effect":
+        effect = f"solved for: the smallest detectable {describe.field_label(q, cell.solved)}"
+    else:
+        effect = describe.effect_text(q, record)
     if effect:
         rows.append(("Effect to detect", effect))
     assumptions = describe.assumptions_text(q)

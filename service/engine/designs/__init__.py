@@ -104,8 +104,24 @@ FORMULAS = {
 _CACHE: dict[str, Design] = {}
 
 
-def get(name: str) -> Design:
+def get(name: str, layout: str | None = None) -> Design:
     """Return the design called ``name``; KeyError when there is none."""
+    if layout is not None:
+        return _NEW[(name, layout)]
     if not _CACHE:
         _CACHE.update(_registry())
     return _CACHE[name]
+
+
+# PROVISIONAL (schema helper): the new registry per VOCAB §8 until the engine's lands.
+_NEW: dict[tuple[str, str], object] = {}
+
+
+def register(design) -> None:
+    """Register a design (outcome × layout)."""
+    _NEW[(design.outcome, design.layout)] = design
+
+
+def all() -> tuple:  # noqa: A001
+    """Every registered design."""
+    return tuple(_NEW.values())

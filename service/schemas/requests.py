@@ -12,13 +12,9 @@ from marshmallow import Schema, ValidationError, fields, post_load, validate, va
 
 from service.engine import DESIGN_NAMES
 from service.schemas.errors import QuestionInvalid
+from service.schemas.explorations import ExplorationSchema, ExplorationsField, exploration_errors
 from service.schemas.question import load_question
-from service.store.models import (
-    ANALYSIS_KINDS,
-    ANALYSIS_STATUSES,
-    REQUEST_STATUSES,
-    RERUN_STATUSES,
-)
+from service.store.models import REQUEST_STATUSES, RERUN_STATUSES
 
 ID_PATTERN = r"^[0-9a-f]{32}$"
 
@@ -116,43 +112,6 @@ class RequesterSchema(StrictSchema):
     department = fields.String(required=True, allow_none=True, validate=length(1, 200))
 
 
-GRID_DESCRIPTION = (
-    "Dotted field path of the question -> list of values, e.g. "
-    '{"effect.difference": [4, 5, 6], "adjustments.dropout": [0.1, 0.2]}; at most 3 axes and '
-    '400 cells; for two_means "effect.sd" moves both SDs.'
-)
-
-
-class GridField(fields.Dict):
-    """A sensitivity grid: field path -> list of values (checked against the question later)."""
-
-    def __init__(self, **kwargs):
-        super().__init__(
-            keys=fields.String(validate=length(1, 100)),
-            values=fields.List(fields.Raw(), validate=validate.Length(min=1, max=400)),
-            metadata={"description": GRID_DESCRIPTION},
-            **kwargs,
-        )
-
-
-class SensitivityRequestSchema(StrictSchema):
-    """A sensitivity grid asked for with the request."""
-
-    grid = GridField(required=True)
-
-
-class AnalysesRequestSchema(StrictSchema):
-    """What-if analyses to run once the request is computed."""
-
-    sensitivity = fields.Nested(SensitivityRequestSchema)
-    robustness = fields.Boolean(
-        error_messages={"invalid": Echo("must be true or false; got {input!r}")},
-        metadata={
-            "description": "Simulate the test under departures from the planned data (two_means, rank_sum)."
-        },
-    )
-
-
 def _budget() -> int | None:
     """The per-simulation budget of the running app (None outside one, e.g. in the CLI)."""
     from flask import current_app, has_app_context
@@ -160,47 +119,6 @@ def _budget() -> int | None:
     if not has_app_context():
         return None
     return int(current_app.extensions["sizewise"]["config"]["SIMULATION_BUDGET"])
-
-
-def analysis_errors(
-    question: dict, sensitivity: dict | None, robustness: bool | None
-) -> dict[str, list[str]]:
-    """Return field-keyed errors of a sensitivity grid and a robustness panel for ``question``."""
-    from service.engine import QuestionError
-    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
-
-    errors: dict[str, list[str]] = {}
-    q = question
-    if q.get("method") == "simulation" and (q.get("simulation") or {}).get("seed") is None:
-        # The seed is drawn after validation; it changes no path, value or cost.
-        q = {**q, "simulation": {**q["simulation"], "seed": 0}}
-    asked = []
-    if sensitivity is not None:
-        asked.append(("sensitivity", {"grid": sensitivity["grid"]}, "sensitivity.grid"))
-    if robustness:
-        refusal = robustness_refusal(question.get("design"))
-        if refusal is not None:
-            errors["robustness"] = [refusal]
-        else:
-            replicates = (q.get("simulation") or {}).get("replicates") or ROBUSTNESS_REPLICATES
-            asked.append(("robustness", {"replicates": replicates, "seed": 0}, "robustness"))
-    budget = _budget()
-    for kind, params, field in asked:
-        try:
-            estimate = analysis_cost(kind, params, q, None)
-        except QuestionError as exc:
-            if kind == "robustness":
-                errors["robustness"] = [str(exc)]
-            else:
-                key = exc.field if exc.field.startswith("grid") else "grid"
-                errors[f"sensitivity.{key}"] = [exc.message]
-            continue
-        if budget is not None and estimate > budget:
-            errors[field] = [
-                f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
-                f"{budget:,}; use fewer cells or fewer replicates"
-            ]
-    return errors
 
 
 class RequestCreateSchema(StrictSchema):
@@ -226,22 +144,14 @@ class RequestCreateSchema(StrictSchema):
             "justification (e.g. 'SD from the 2024 audit of clinic visits')."
         },
     )
-    analyses = fields.Nested(
-        AnalysesRequestSchema,
-        metadata={
-            "description": "Analyses computed after the request (sensitivity grid, robustness)."
-        },
-    )
+    explorations = ExplorationsField()
 
     @validates_schema(skip_on_field_errors=True)
-    def analyses_fit_the_question(self, data: dict, **_kwargs) -> None:
-        """Check the asked-for analyses against the normalized question (paths, values, design)."""
-        asked = data.get("analyses") or {}
-        errors = analysis_errors(
-            data["question"], asked.get("sensitivity"), asked.get("robustness")
-        )
+    def explorations_fit_the_question(self, data: dict, **_kwargs) -> None:
+        """Check the asked-for explorations against the normalized question (paths, values, cell)."""
+        errors = exploration_errors(data["question"], data.get("explorations") or [], _budget())
         if errors:
-            raise ValidationError({f"analyses.{k}": v for k, v in errors.items()})
+            raise ValidationError({f"explorations.{k}": v for k, v in errors.items()})
 
     @post_load(pass_original=True)
     def keep_raw_question(self, data: dict, original: Any, **_kwargs) -> dict:
@@ -254,56 +164,6 @@ class CalculationCreateSchema(StrictSchema):
     """Body of POST /v1/calculations: one analytic question."""
 
     question = QuestionField(required=True)
-
-
-class AnalysisCreateSchema(StrictSchema):
-    """Body of POST /v1/requests/{id}/analyses."""
-
-    kind = fields.String(required=True, validate=one_of(ANALYSIS_KINDS))
-    grid = GridField()
-    replicates = fields.Integer(
-        validate=in_range(200, 2_000_000),
-        error_messages=INT_ERRORS,
-        metadata={
-            "description": "Robustness only: trials per data model (default: the request's)."
-        },
-    )
-
-    @validates_schema
-    def fields_fit_the_kind(self, data: dict, **_kwargs) -> None:
-        """A sensitivity analysis needs a grid; a robustness panel takes none."""
-        kind = data.get("kind")
-        if kind == "sensitivity" and "grid" not in data:
-            raise ValidationError("required for kind 'sensitivity'", "grid")
-        if kind == "sensitivity" and "replicates" in data:
-            raise ValidationError(
-                "only for kind 'robustness'; a grid uses the request's", "replicates"
-            )
-        if kind == "robustness" and "grid" in data:
-            raise ValidationError("only for kind 'sensitivity'", "grid")
-
-
-class AnalysisSchema(StrictSchema):
-    """A sensitivity grid or robustness panel of a request, and its result when done."""
-
-    id = fields.String()
-    request_id = fields.String()
-    kind = fields.String(validate=one_of(ANALYSIS_KINDS))
-    params = fields.Dict()
-    status = fields.String(validate=one_of(ANALYSIS_STATUSES))
-    requested_by = fields.String()
-    created_at = fields.AwareDateTime()
-    published_at = fields.AwareDateTime(allow_none=True)
-    attempts = fields.Integer()
-    result = fields.Dict(allow_none=True)
-    error = fields.String(allow_none=True)
-    finished_at = fields.AwareDateTime(allow_none=True)
-
-
-class AnalysisListSchema(StrictSchema):
-    """GET /v1/requests/{id}/analyses."""
-
-    items = fields.List(fields.Nested(AnalysisSchema))
 
 
 class ReportLinkSchema(StrictSchema):
@@ -382,7 +242,7 @@ class RequestSchema(StrictSchema):
     history = fields.List(fields.Nested(AuditEventSchema))
     reruns = fields.Nested(RerunSummarySchema)
     effect_source = fields.String(allow_none=True)
-    analyses = fields.List(fields.Nested(AnalysisSchema(exclude=("result",))))
+    explorations = fields.List(fields.Nested(ExplorationSchema(exclude=("result",))))
 
 
 class RequestPageSchema(StrictSchema):
@@ -390,7 +250,9 @@ class RequestPageSchema(StrictSchema):
 
     items = fields.List(
         fields.Nested(
-            RequestSchema(exclude=("result", "history", "question_submitted", "reruns", "analyses"))
+            RequestSchema(
+                exclude=("result", "history", "question_submitted", "reruns", "explorations")
+            )
         )
     )
     page = fields.Integer()

@@ -21,9 +21,11 @@ REPS = 4000
 SEED = 5
 
 
-def power_q(design: str, effect: dict, per_arm, test: str | None = None, **top) -> dict:
+def power_q(design: str, effect: dict, per_group, test: str | None = None, **top) -> dict:
     sim = {"replicates": REPS, "seed": SEED, **({"test": test} if test else {})}
-    return make_q(design, effect=effect, per_arm=per_arm, sides=1, simulation=sim, **top)
+    return make_q(
+        design, effect=effect, per_group=per_group, alternative="one-sided", simulation=sim, **top
+    )
 
 
 def within(estimate: float, reference: float, reps: int = REPS, k: float = 4.0) -> bool:
@@ -81,7 +83,7 @@ def fisher_one_sided_exact(p1, n1, p2, n2, sign: int, alpha: float = 0.05) -> fl
         ("one_mean", {"difference": -1.0}, -1),
         ("paired_mean", {"difference": 2.0}, 1),
         ("two_proportions", {"p_control": 0.10, "p_treatment": 0.05}, -1),
-        ("correlation", {"r": 0.1, "r0": 0.3}, -1),
+        ("correlation", {"r": 0.1, "r_null": 0.3}, -1),
         ("rank_sum", {"prob_superiority": 0.38}, -1),
         ("survival_logrank", {"hazard_ratio": 0.7}, 1),  # longer times: "higher"
         ("survival_logrank", {"hazard_ratio": 1.4}, -1),
@@ -89,19 +91,24 @@ def fisher_one_sided_exact(p1, n1, p2, n2, sign: int, alpha: float = 0.05) -> fl
 )
 def test_direction_follows_the_assumed_effect_whatever_higher_is_better_says(design, effect, sign):
     for better in (True, False):
-        q = make_q(design, effect=effect, sides=1, hypothesis={"higher_is_better": better})
+        q = make_q(
+            design, effect=effect, alternative="one-sided", hypothesis={"higher_is_better": better}
+        )
         assert direction.one_sided(q, design) == sign
 
 
 def test_direction_without_an_effect_or_under_a_margin_comes_from_higher_is_better():
-    q = make_q("two_means", find="effect", per_arm=(50, 50), sides=1)
+    q = make_q(
+        "continuous", "two_groups", find="effect", per_group=(50, 50), alternative="one-sided"
+    )
     assert direction.one_sided(q, "two_means") == 1
     q["hypothesis"]["higher_is_better"] = False
     assert direction.one_sided(q, "two_means") == -1
     ni = make_q(
-        "two_means",
+        "continuous",
+        "two_groups",
         effect={"difference": 0.3},
-        hypothesis={"kind": "noninferiority", "margin": 0.5, "higher_is_better": False},
+        hypothesis={"aim": "noninferiority", "margin": 0.5, "higher_is_better": False},
     )
     assert direction.one_sided(ni, "two_means") == -1
 
@@ -114,7 +121,7 @@ SD = {"sd_control": 12.0, "sd_treatment": 12.0}
 @pytest.mark.parametrize("test", ["student_t", "welch_t"])
 @pytest.mark.parametrize("difference", [5.0, -5.0])
 def test_two_means_one_sided_power_matches_noncentral_t_both_signs(test, difference):
-    # The blood-pressure example: difference −5, SD 12, 100 per arm; exact one-sided t ≈ 0.90.
+    # The blood-pressure example: difference −5, SD 12, 100 per group; exact one-sided t ≈ 0.90.
     q = power_q("two_means", {"difference": difference, **SD}, (100, 100), test)
     power = compute(q)["power"]
     exact = t_one_sided(difference / (12.0 * math.sqrt(2 / 100)), 198)
@@ -161,7 +168,7 @@ def test_fisher_one_sided_matches_exact_enumeration_both_signs(p1, p2):
 
 
 @pytest.mark.parametrize(
-    "design,effect,per_arm",
+    "design,effect,per_group",
     [
         # Noether (1987), JASA 82:645
         ("rank_sum", {"prob_superiority": 0.62}, (100, 100)),
@@ -169,15 +176,15 @@ def test_fisher_one_sided_matches_exact_enumeration_both_signs(p1, p2):
         # Fisher z (Cohen 1988, ch. 3); the simulation applies the exact t test of ρ = 0
         ("correlation", {"r": 0.3}, (70,)),
         ("correlation", {"r": -0.3}, (70,)),
-        ("correlation", {"r": 0.5, "r0": 0.3}, (120,)),
-        ("correlation", {"r": 0.1, "r0": 0.3}, (120,)),
+        ("correlation", {"r": 0.5, "r_null": 0.3}, (120,)),
+        ("correlation", {"r": 0.1, "r_null": 0.3}, (120,)),
         # Schoenfeld (1983), Biometrics 39:499, with the exponential P(event) of the design
         ("survival_logrank", {"hazard_ratio": 0.7}, (150, 150)),
         ("survival_logrank", {"hazard_ratio": 1 / 0.7}, (150, 150)),
     ],
 )
-def test_one_sided_power_matches_the_formula_both_signs(design, effect, per_arm):
-    power = compute(power_q(design, effect, per_arm))["power"]
+def test_one_sided_power_matches_the_formula_both_signs(design, effect, per_group):
+    power = compute(power_q(design, effect, per_group))["power"]
     assert power["analytic"] > 0.7
     assert within(power["estimate"], power["analytic"])
 
@@ -185,14 +192,16 @@ def test_one_sided_power_matches_the_formula_both_signs(design, effect, per_arm)
 def test_one_sided_search_for_a_reduction_finds_the_analytic_size():
     # Two proportions 0.10 → 0.05, one-sided: the search used to stop at "power stays below".
     q = make_q(
-        "two_proportions",
-        effect={"p_control": 0.10, "p_treatment": 0.05},
-        sides=1,
+        "binary",
+        "two_groups",
+        effect={"p_treatment": 0.05},
+        assumptions={"p_control": 0.10},
+        alternative="one-sided",
         simulation={"replicates": 2000, "search_replicates": 1000, "seed": SEED},
     )
-    analytic = compute(dict(q, method="analytic", simulation=None))["sample_size"]["per_arm"][0]
+    analytic = compute(dict(q, method="analytic", simulation=None))["sample_size"]["per_group"][0]
     record = compute(q)
-    assert abs(record["sample_size"]["per_arm"][0] - analytic) <= 0.15 * analytic
+    assert abs(record["sample_size"]["per_group"][0] - analytic) <= 0.15 * analytic
     assert record["power"]["estimate"] > 0.75
 
 
@@ -212,10 +221,11 @@ def test_a_data_model_sets_the_direction_of_the_simulated_test():
 
 def test_survival_effect_search_looks_above_one_when_shorter_times_are_better():
     q = make_q(
-        "survival_logrank",
+        "time_to_event",
+        "two_groups",
         find="effect",
-        per_arm=(150, 150),
-        sides=1,
+        per_group=(150, 150),
+        alternative="one-sided",
         hypothesis={"higher_is_better": False},
         target_power=0.8,
     )
@@ -223,10 +233,11 @@ def test_survival_effect_search_looks_above_one_when_shorter_times_are_better():
     assert analytic > 1
     # The simulated log-rank test at that hazard ratio, looking the same way, has the power.
     sim = make_q(
-        "survival_logrank",
+        "time_to_event",
+        "two_groups",
         effect={"hazard_ratio": analytic},
-        per_arm=(150, 150),
-        sides=1,
+        per_group=(150, 150),
+        alternative="one-sided",
         hypothesis={"higher_is_better": False},
         simulation={"replicates": REPS, "seed": SEED},
     )

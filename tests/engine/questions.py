@@ -93,12 +93,14 @@ def make_q(
     adjustments: dict | None = None,
     simulation: dict | None = None,
     per_group: Sequence[int] | None = None,
+    values: dict | None = None,
     **overrides,
 ) -> dict:
     """Return a normalized question of the cell; top-level ``overrides`` are applied last.
 
     ``effect``, ``assumptions``, ``analysis_options``, ``hypothesis``, ``adjustments`` and
-    ``simulation`` are merged into the defaults; ``simulation`` (or ``method="simulation"``)
+    ``simulation`` are merged into the defaults; ``values`` holds field values by name, each
+    placed in the block its cell declares (for tests parametrized over cells); ``simulation`` (or ``method="simulation"``)
     makes a simulation question. ``per_group`` sets the enrolled sizes and makes it a
     ``find = "power"`` question unless ``find`` says otherwise. A non-superiority hypothesis is
     one-sided unless ``alternative`` is given. The analysis is the cell's first that the method
@@ -113,6 +115,8 @@ def make_q(
         "analysis_options": dict(analysis_options or {}),
     }
     design = get(outcome, layout)
+    for name, value in (values or {}).items():
+        posted[design.field(name).block][name] = value
     q = {
         "outcome": outcome,
         "layout": layout,

@@ -20,7 +20,6 @@ def means_blocks(means, sd):
     return {"effect": {"group_means": list(means)}, "assumptions": {"sd": sd}}
 
 
-
 def ncf_power(means, sd, sizes, alpha=0.05):
     """formula: noncentral F, λ = Σnᵢ(μᵢ−μ̄_w)²/σ², μ̄_w the size-weighted mean (direct scipy)."""
     total = sum(sizes)
@@ -49,9 +48,7 @@ def test_unequal_power_uses_the_actual_sizes(means, sizes):
 
 def test_issue_example_is_071():
     # formula: noncentral F, λ = Σnᵢ(μᵢ−μ̄_w)²/σ²: λ = 40·0.04 + 10·0.04 + 10·0.64 = 8.33…
-    q = make_q(
-        "continuous", "k_groups", **means_blocks([0, 0, 1], 1.0), per_group=[40, 10, 10]
-    )
+    q = make_q("continuous", "k_groups", **means_blocks([0, 0, 1], 1.0), per_group=[40, 10, 10])
     assert compute(q)["power"]["estimate"] == pytest.approx(0.71, abs=0.01)
 
 

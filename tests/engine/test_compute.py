@@ -37,7 +37,7 @@ def test_two_means_reference_answer():
     assert base["per_group_raw"][0] == pytest.approx(63.77, abs=0.01)
     assert record["power"]["estimate"] >= 0.8
     assert record["power"]["mcse"] is None
-    assert record["method"]["aim"] == "analytic"
+    assert record["method"]["method"] == "analytic"
 
 
 def test_adjustments_in_order_cluster_then_dropout():
@@ -232,17 +232,24 @@ def test_simulation_without_seed_is_a_question_error():
     assert info.value.field == "simulation.seed"
 
 
-def test_unknown_design_is_a_question_error():
-    q = make_q(
-        "continuous",
-        "two_groups",
-        effect={"difference": 0.5},
-        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
-    )
-    q["design"] = "three_means"
+def test_unknown_cell_is_a_question_error_listing_the_cells():
+    q = make_q("continuous", "two_groups")
+    q["layout"] = "three_groups"
     with pytest.raises(QuestionError) as info:
         compute(q)
-    assert info.value.field == "design" and "two_means" in info.value.message
+    assert info.value.field == "layout" and '"continuous × two_groups"' in info.value.message
+    q["outcome"] = "count"
+    with pytest.raises(QuestionError) as info:
+        compute(q)
+    assert info.value.field == "outcome" and '"binary × two_groups"' in info.value.message
+
+
+def test_an_analysis_the_method_cannot_honor_is_refused_naming_the_offered_ones():
+    q = make_q("continuous", "single_group", analysis="signed_rank")
+    with pytest.raises(QuestionError) as info:
+        compute(q)
+    assert info.value.field == "analysis"
+    assert "analytic" in info.value.message and "t_test" in info.value.message
 
 
 def test_numeric_failure_is_typed():

@@ -22,7 +22,7 @@ from scipy import stats
 from service.engine import simulate
 from tests.engine.questions import make_q
 
-N = 64  # per arm
+N = 64  # per group
 LOGNORMAL = {
     "control": {"family": "lognormal", "mu": 0.0, "sigma": 0.5},
     "treatment": {"family": "lognormal", "mu": 0.2, "sigma": 0.5},
@@ -48,8 +48,8 @@ def question(find: str, test: str, data: dict | None, replicates: int) -> dict:
         "data": data,
         "chunk_size": 10000,
     }
-    per_arm = [N, N] if find == "power" else None
-    return make_q("two_means", find=find, simulation=simulation, per_arm=per_arm)
+    per_group = [N, N] if find == "power" else None
+    return make_q("continuous", "two_groups", find=find, simulation=simulation, per_group=per_group)
 
 
 def chunk_time(test: str, data: dict | None, reps: int, *, sufficient: bool | None = None) -> float:
@@ -102,18 +102,18 @@ def main() -> None:
     out = {}
 
     def solve():
-        out.update(simulate.answer(q, 0.05, per_arm=None, start=None))
+        out.update(simulate.answer(q, 0.05, per_group=None, start=None))
 
     t_solve = best(solve)
     print(
         f"(4) simulated solve d = 0.5, power .80, 10,000 replicates at the answer: {t_solve:.3f} s "
-        f"(goal ≤ 0.3 s) → {out['per_arm']} per arm, power {out['power']['estimate']:.4f}, "
+        f"(goal ≤ 0.3 s) → {out['per_group']} per group, power {out['power']['estimate']:.4f}, "
         f"{len(out['search']['candidates'])} search candidates"
     )
 
 
 MEMORY_GOAL_MB = 256
-BIG_N = 2000  # per arm
+BIG_N = 2000  # per group
 
 
 def peak_mb(q: dict) -> tuple[float, float]:
@@ -122,7 +122,7 @@ def peak_mb(q: dict) -> tuple[float, float]:
     tracemalloc.reset_peak()
     t0 = time.perf_counter()
     try:
-        simulate.answer(q, 0.05, per_arm=q["sample_size"]["per_arm"])
+        simulate.answer(q, 0.05, per_group=q["sample_size"]["per_group"])
         _, peak = tracemalloc.get_traced_memory()
     finally:
         tracemalloc.stop()
@@ -140,10 +140,10 @@ def memory() -> None:
         for reps in counts:
             simulation = {"replicates": reps, "seed": 1, "test": test, "data": LOGNORMAL}
             simulation["chunk_size"] = 10000
-            q = make_q(design, per_arm=[BIG_N, BIG_N], simulation=simulation)
+            q = make_q(design, per_group=[BIG_N, BIG_N], simulation=simulation)
             mb, seconds = peak_mb(q)
             print(
-                f"(5) {label}, n = {BIG_N:,} per arm, {reps:,} replicates: peak {mb:6.1f} MB, "
+                f"(5) {label}, n = {BIG_N:,} per group, {reps:,} replicates: peak {mb:6.1f} MB, "
                 f"{mb / MEMORY_GOAL_MB:5.3f} of the {MEMORY_GOAL_MB} MB goal ({seconds:.1f} s)"
             )
 
@@ -185,17 +185,19 @@ def search_replicates() -> None:
     from service.engine import compute
 
     for n in (20, 200, 2000):
-        d = (1.959964 + 0.841621) * math.sqrt(2 / n)  # z approximation: n per arm
+        d = (1.959964 + 0.841621) * math.sqrt(2 / n)  # z approximation: n per group
         ratios, answers = [], []
         for seed in SEARCH_SEEDS:
             q = make_q(
-                "two_means",
-                effect={"difference": d, "sd_control": 1.0, "sd_treatment": 1.0},
+                "continuous",
+                "two_groups",
+                effect={"difference": d},
+                assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
                 simulation={"seed": seed, "test": "student_t"},
             )
             block = compute(q)["search"]["replicates_run"]
             ratios.append(block["total"] / block["minimum"])
-            answers.append(compute(q)["sample_size"]["per_arm"][0])
+            answers.append(compute(q)["sample_size"]["per_group"][0])
         print(
             f"(7) n search at n ≈ {n:,} (10,000 replicates, seeds {SEARCH_SEEDS[0]}–"
             f"{SEARCH_SEEDS[-1]}): replicates run / minimum "
@@ -208,12 +210,12 @@ def kernel_floors() -> None:
     """(8) Print each kernel's time per replicate over the time of drawing its data with numpy."""
     reps = 20000
 
-    def chunk(design, test, per_arm, data=None):
+    def chunk(design, test, per_group, data=None):
         simulation = {"seed": 1, "test": test, "data": data, "replicates": reps}
-        q = make_q(design, per_arm=per_arm, simulation={**simulation, "chunk_size": reps})
+        q = make_q(design, per_group=per_group, simulation={**simulation, "chunk_size": reps})
         plan = simulate.plan(q, 0.05)
         task = simulate.make_task(
-            plan, list(per_arm), stream=0, chunk=0, chunk_size=reps, replicates=reps, seed=1
+            plan, list(per_group), stream=0, chunk=0, chunk_size=reps, replicates=reps, seed=1
         )
         return best(lambda: simulate.run_chunk(dict(task))), task
 

@@ -27,7 +27,7 @@ def _lognormal(mu, sigma):
     return math.exp(mu + s2 / 2), math.sqrt(math.expm1(s2) * math.exp(2 * mu + s2))
 
 
-def posted(design="two_means", data=LOGNORMAL, effect=None, find="power", per_arm=(100, 100)):
+def posted(design="two_means", data=LOGNORMAL, effect=None, find="power", per_group=(100, 100)):
     raw = {
         "design": design,
         "find": find,
@@ -37,7 +37,7 @@ def posted(design="two_means", data=LOGNORMAL, effect=None, find="power", per_ar
     if effect is not None:
         raw["effect"] = effect
     if find == "power":
-        raw["sample_size"] = {"per_arm": list(per_arm)}
+        raw["sample_size"] = {"per_group": list(per_group)}
     return load_question(raw)
 
 
@@ -60,7 +60,7 @@ def test_lognormal_arms_state_their_own_difference_and_sds():
     [
         ({"difference": -1, "sd": 3}, "effect.difference", "is -1 but"),
         ({"difference": 5, "sd": 1}, "effect.difference", "is 5 but"),
-        ({"difference": -1.146, "sd": 3}, "effect.sd_control", "is 3 but"),
+        ({"difference": -1.146, "sd": 3}, "assumptions.sd_control", "is 3 but"),
     ],
 )
 def test_effect_fields_that_disagree_with_the_data_model_are_refused(effect, field, shown):
@@ -71,7 +71,9 @@ def test_effect_fields_that_disagree_with_the_data_model_are_refused(effect, fie
 
 
 def test_rounded_effect_fields_that_agree_are_accepted_and_kept_in_the_record():
-    record = compute(posted(effect={"difference": -1.15, "sd_control": 4.12, "sd_treatment": 3.21}))
+    record = compute(
+        posted(effect={"difference": -1.15}, assumptions={"sd_control": 4.12, "sd_treatment": 3.21})
+    )
     block = record["method"]["implied_effect"]
     assert block["posted"] == {"difference": -1.15, "sd_control": 4.12, "sd_treatment": 3.21}
     assert record["question"]["effect"]["difference"] == pytest.approx(-1.146035, abs=1e-6)
@@ -149,7 +151,9 @@ def test_sample_size_search_starts_from_the_data_model_not_the_effect_fields():
     # The posted fields agree with the arms, so they are accepted, but the start still comes
     # from the data model's own approximation (the search record says which).
     q = posted(
-        effect={"difference": -1.146, "sd_control": 4.12, "sd_treatment": 3.21}, find="sample_size"
+        effect={"difference": -1.146},
+        assumptions={"sd_control": 4.12, "sd_treatment": 3.21},
+        find="sample_size",
     )
     record = compute(q)
     assert record["search"]["start_source"] == "normal approximation"
@@ -169,7 +173,7 @@ def test_cauchy_arms_have_no_moments_the_posted_fields_are_flagged_as_not_simula
         "control": {"family": "cauchy", "loc": 0, "scale": 1},
         "treatment": {"family": "cauchy", "loc": 1, "scale": 1},
     }
-    record = compute(posted(data=data, effect={"difference": 1, "sd": 1}))
+    record = compute(posted(data=data, effect={"difference": 1}, assumptions={"sd": 1}))
     block = record["method"]["implied_effect"]
     assert block["not_implied"] == ["difference", "sd_control", "sd_treatment"]
     assert "cauchy (loc 1, scale 1)" in block["note"]
@@ -181,7 +185,7 @@ def test_exponential_event_times_imply_the_hazard_ratio():
         "control": {"family": "exponential", "scale": 12 / math.log(2)},
         "treatment": {"family": "exponential", "scale": 16 / math.log(2)},
     }
-    effect = {"hazard_ratio": 0.75, "median_control": 12, "accrual_period": 12, "follow_up": 12}
+    effect = {"hazard_ratio": 0.75, "control_median": 12, "accrual": 12, "follow_up": 12}
     record = compute(posted("survival_logrank", data=data, effect=effect))
     assert record["question"]["effect"]["hazard_ratio"] == pytest.approx(0.75, rel=1e-12)
     with pytest.raises(QuestionError) as err:
@@ -191,5 +195,12 @@ def test_exponential_event_times_imply_the_hazard_ratio():
 
 def test_effect_fields_stay_required_without_a_data_model():
     with pytest.raises(QuestionInvalid) as err:
-        load_question({"design": "two_means", "method": "simulation", "simulation": {"seed": 1}})
-    assert "effect.difference" in err.value.errors or "effect.sd" in err.value.errors
+        load_question(
+            {
+                "outcome": "continuous",
+                "layout": "two_groups",
+                "method": "simulation",
+                "simulation": {"seed": 1},
+            }
+        )
+    assert "effect.difference" in err.value.errors or "assumptions.sd" in err.value.errors

@@ -29,7 +29,9 @@ def test_binomial_quantile_is_scipy_binom_ppf(n, p):
 
 def test_two_proportion_chunk_matches_scipy_quantiles():
     # exact: the chunk's rejections recomputed from the same uniforms with scipy.stats.binom.ppf
-    q = make_q("two_proportions", per_arm=(120, 120), simulation={"seed": 5, "replicates": 3000})
+    q = make_q(
+        "binary", "two_groups", per_group=(120, 120), simulation={"seed": 5, "replicates": 3000}
+    )
     p = simulate.plan(q, 0.05)
     task = simulate.make_task(
         p, [120, 120], stream=0, chunk=0, chunk_size=3000, replicates=3000, seed=5

@@ -15,7 +15,7 @@ import pytest
 from scipy import optimize, stats
 
 from service.engine import compute
-from service.engine.designs.proportions import restricted_mle
+from service.engine.designs.binary_two_groups import restricted_mle
 from service.schemas.question import QuestionInvalid, load_question
 
 
@@ -47,9 +47,10 @@ def test_restricted_mle_is_the_constrained_maximum(p1, p2, r, margin):
 
 def _ni(**extra):
     raw = {
-        "design": "two_proportions",
+        "outcome": "binary",
+        "layout": "two_groups",
         "effect": {"p_control": 0.7, "p_treatment": 0.7},
-        "hypothesis": {"kind": "noninferiority", "margin": -0.1},
+        "hypothesis": {"aim": "noninferiority", "margin": -0.1},
     }
     raw.update(extra)
     return load_question(raw)
@@ -66,8 +67,8 @@ def test_noninferiority_of_proportions_defaults_to_the_farrington_manning_score_
     v0, v1 = q1 * (1 - q1) + q2 * (1 - q2), 2 * 0.7 * 0.3
     za, zb = stats.norm.isf(0.025), stats.norm.ppf(0.8)
     n = (za * math.sqrt(v0) + zb * math.sqrt(v1)) ** 2 / 0.1**2
-    assert record["sample_size"]["steps"][0]["per_arm_raw"][0] == pytest.approx(n, rel=1e-8)
-    assert record["sample_size"]["per_arm"] == [math.ceil(n)] * 2
+    assert record["sample_size"]["steps"][0]["per_group_raw"][0] == pytest.approx(n, rel=1e-8)
+    assert record["sample_size"]["per_group"] == [math.ceil(n)] * 2
 
 
 def _exact_score_power(n1, n2, p1, p2, margin, alpha, *, upper=True, reject_map=False):
@@ -100,7 +101,7 @@ def _exact_score_power(n1, n2, p1, p2, margin, alpha, *, upper=True, reject_map=
 
 def test_farrington_manning_power_holds_under_exact_enumeration():
     record = compute(_ni())
-    n = record["sample_size"]["per_arm"][0]
+    n = record["sample_size"]["per_group"][0]
     exact = _exact_score_power(n, n, 0.7, 0.7, -0.1, 0.025)
     assert abs(exact - record["power"]["estimate"]) < 0.02  # normal approximation vs exact
     size = _exact_score_power(n, n, 0.75, 0.65, -0.1, 0.025)  # at the margin: the level
@@ -116,20 +117,21 @@ def test_a_formula_that_does_not_apply_to_noninferiority_is_refused(formula):
 
 
 def test_unpooled_wald_stays_an_option_and_is_labelled_so():
-    q = _ni(formula="unpooled_z")
+    q = _ni(analysis="unpooled_z")
     record = compute(q)
     assert record["question"]["formula"] == "unpooled_z"
     assert "Wald" in record["method"]["formula"]
     za, zb = stats.norm.isf(0.025), stats.norm.ppf(0.8)
     n = (za + zb) ** 2 * 2 * 0.21 / 0.1**2  # Chow, Shao & Wang (2008), ch. 4, formula
-    assert record["sample_size"]["steps"][0]["per_arm_raw"][0] == pytest.approx(n, rel=1e-10)
+    assert record["sample_size"]["steps"][0]["per_group_raw"][0] == pytest.approx(n, rel=1e-10)
 
 
 def test_farrington_manning_against_superiority_is_refused():
     with pytest.raises(QuestionInvalid) as err:
         load_question(
             {
-                "design": "two_proportions",
+                "outcome": "binary",
+                "layout": "two_groups",
                 "effect": {"p_control": 0.3, "p_treatment": 0.5},
                 "formula": "farrington_manning",
             }
@@ -140,12 +142,12 @@ def test_farrington_manning_against_superiority_is_refused():
 @pytest.mark.parametrize(
     "design, effect, hyp",
     [
-        ("two_means", {"difference": 0, "sd": 1}, {"kind": "noninferiority", "margin": -0.3}),
-        ("two_means", {"difference": 0, "sd": 1}, {"kind": "equivalence", "margin": 0.3}),
+        ("two_means", {"difference": 0, "sd": 1}, {"aim": "noninferiority", "margin": -0.3}),
+        ("two_means", {"difference": 0, "sd": 1}, {"aim": "equivalence", "margin": 0.3}),
         (
             "two_proportions",
             {"p_control": 0.5, "p_treatment": 0.5},
-            {"kind": "equivalence", "margin": 0.1},
+            {"aim": "equivalence", "margin": 0.1},
         ),
     ],
 )
@@ -160,15 +162,18 @@ def test_margin_hypotheses_default_to_one_sided_0025_and_say_so(design, effect, 
 
 
 def test_superiority_keeps_alpha_005_and_a_posted_005_under_a_margin_is_flagged():
-    q = load_question({"design": "two_means", "effect": {"difference": 0.5, "sd": 1}})
+    q = load_question(
+        {"outcome": "continuous", "layout": "two_groups", "effect": {"difference": 0.5, "sd": 1}}
+    )
     assert q["alpha"] == 0.05
     record = compute(
         load_question(
             {
-                "design": "two_means",
+                "outcome": "continuous",
+                "layout": "two_groups",
                 "alpha": 0.05,
                 "effect": {"difference": 0, "sd": 1},
-                "hypothesis": {"kind": "noninferiority", "margin": -0.3},
+                "hypothesis": {"aim": "noninferiority", "margin": -0.3},
             }
         )
     )
@@ -187,17 +192,20 @@ def test_pooled_t_with_unequal_sds_is_warned_and_points_to_welch():
     assert 0.14 < size < 0.165
     q = load_question(
         {
-            "design": "two_means",
+            "outcome": "continuous",
+            "layout": "two_groups",
             "find": "power",
             "formula": "student",
             "effect": {"difference": 0.5, "sd_control": 1, "sd_treatment": 2},
-            "sample_size": {"per_arm": [60, 20]},
+            "sample_size": {"per_group": [60, 20]},
         }
     )
     record = compute(q)
     assert any("Welch" in w and "does not hold its level" in w for w in record["warnings"])
     assert "pooled variance" not in record["method"]["formula"]
-    equal = compute(dict(q, effect={"difference": 0.5, "sd_control": 1, "sd_treatment": 1}))
+    equal = compute(
+        dict(q, effect={"difference": 0.5}, assumptions={"sd_control": 1, "sd_treatment": 1})
+    )
     assert not any("Welch" in w for w in equal["warnings"])
 
 
@@ -209,7 +217,7 @@ ZERO = {
     "correlation": ({"r": 0}, [40]),
     "rank_sum": ({"prob_superiority": 0.5}, [40, 40]),
     "survival_logrank": (
-        {"hazard_ratio": 1, "median_control": 12, "accrual_period": 12, "follow_up": 12},
+        {"hazard_ratio": 1, "control_median": 12, "accrual": 12, "follow_up": 12},
         [40, 40],
     ),
 }
@@ -217,9 +225,9 @@ ZERO = {
 
 @pytest.mark.parametrize("design", sorted(ZERO))
 def test_zero_effect_find_power_is_the_size_of_the_test_everywhere(design):
-    effect, per_arm = ZERO[design]
+    effect, per_group = ZERO[design]
     raw = {"design": design, "find": "power", "effect": effect}
-    raw["sample_size"] = {"per_arm": per_arm}
+    raw["sample_size"] = {"per_group": per_group}
     record = compute(load_question(raw))
     # Normal and t approximations at a zero shift reject with probability alpha exactly.
     assert record["power"]["estimate"] == pytest.approx(0.05, abs=1e-12)
@@ -229,12 +237,12 @@ def test_zero_effect_find_power_is_the_size_of_the_test_everywhere(design):
 
 @pytest.mark.parametrize("design", ["two_means", "survival_logrank"])
 def test_zero_effect_simulated_power_is_the_simulated_size(design):
-    effect, per_arm = ZERO[design]
+    effect, per_group = ZERO[design]
     raw = {
         "design": design,
         "find": "power",
         "effect": effect,
-        "sample_size": {"per_arm": per_arm},
+        "sample_size": {"per_group": per_group},
         "method": "simulation",
         "simulation": {"seed": 77, "replicates": 2000},
     }
@@ -247,24 +255,34 @@ def test_zero_effect_simulated_power_is_the_simulated_size(design):
 def test_sides_on_anova_is_refused():
     with pytest.raises(QuestionInvalid) as err:
         load_question(
-            {"design": "anova_oneway", "sides": 1, "effect": {"cohens_f": 0.25, "groups": 3}}
+            {
+                "outcome": "continuous",
+                "layout": "k_groups",
+                "alternative": "one-sided",
+                "effect": {"cohens_f": 0.25, "groups": 3},
+            }
         )
     assert "does not apply to anova_oneway" in " ".join(err.value.errors["sides"])
 
 
 def test_exact_ratio_rounding_keeps_three_to_one():
-    base = {"design": "two_means", "effect": {"difference": 0.5, "sd": 1}, "allocation_ratio": 3}
+    base = {
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "effect": {"difference": 0.5, "sd": 1},
+        "allocation_ratio": 3,
+    }
     each = compute(load_question(base))
     exact = compute(load_question(dict(base, allocation_rounding="exact_ratio")))
     # Cohen (1988) eq. 2.3.1 with n2 = 3·n1 (noncentral t): raw 42.35 / 127.04.
-    assert each["sample_size"]["per_arm"] == [43, 128]
-    assert exact["sample_size"]["per_arm"] == [43, 129]
+    assert each["sample_size"]["per_group"] == [43, 128]
+    assert exact["sample_size"]["per_group"] == [43, 129]
     assert each["sample_size"]["steps"][0]["rounding"] == "each_arm"
     assert exact["sample_size"]["steps"][0]["rounding"] == "exact_ratio"
     with_dropout = compute(
         load_question(dict(base, allocation_rounding="exact_ratio", adjustments={"dropout": 0.15}))
     )
-    n1, n2 = with_dropout["sample_size"]["per_arm"]
+    n1, n2 = with_dropout["sample_size"]["per_group"]
     assert n2 == 3 * n1 and n1 >= 43 / 0.85
 
 
@@ -272,14 +290,15 @@ def test_exact_ratio_rounding_keeps_three_to_one():
     "extra, why",
     [
         ({"allocation_ratio": math.e}, "denominator at most 100"),
-        ({"find": "power", "sample_size": {"per_arm": [20, 60]}}, "find = sample_size"),
+        ({"find": "power", "sample_size": {"per_group": [20, 60]}}, "find = sample_size"),
         ({"method": "simulation"}, "analytic answers"),
         ({"adjustments": {"cluster": {"mean_size": 20, "icc": 0.05}}}, "whole clusters"),
     ],
 )
 def test_exact_ratio_rounding_refuses_where_it_cannot_apply(extra, why):
     raw = {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "effect": {"difference": 0.5, "sd": 1},
         "allocation_ratio": 3,
         "allocation_rounding": "exact_ratio",
@@ -293,11 +312,12 @@ def test_exact_ratio_rounding_refuses_where_it_cannot_apply(extra, why):
 def test_farrington_manning_equivalence_power_holds_under_exact_enumeration():
     # Two one-sided score tests at ±0.15, both must reject; exact enumeration computed here.
     raw = {
-        "design": "two_proportions",
+        "outcome": "binary",
+        "layout": "two_groups",
         "find": "power",
         "effect": {"p_control": 0.6, "p_treatment": 0.62},
-        "hypothesis": {"kind": "equivalence", "margin": 0.15},
-        "sample_size": {"per_arm": [200, 200]},
+        "hypothesis": {"aim": "equivalence", "margin": 0.15},
+        "sample_size": {"per_group": [200, 200]},
     }
     record = compute(load_question(raw))
     assert record["question"]["formula"] == "farrington_manning"

@@ -17,7 +17,7 @@ from tests.engine.questions import make_q
 NORMAL_EFFECT = {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}
 
 
-def question(design="two_means", effect=None, *, find="power", per_arm=(30, 30), **sim) -> dict:
+def question(design="two_means", effect=None, *, find="power", per_group=(30, 30), **sim) -> dict:
     """A simulation question at this file's seed and replicates; other keywords go to ``simulation``.
 
     ``sides``, ``hypothesis``, ``allocation_ratio`` and ``target_power`` are question-level keys.
@@ -31,15 +31,15 @@ def question(design="two_means", effect=None, *, find="power", per_arm=(30, 30),
         design,
         effect=effect,
         find=find,
-        per_arm=per_arm if find == "power" else None,
+        per_group=per_group if find == "power" else None,
         simulation={"replicates": 4000, "seed": 20240611, **sim},
         **top,
     )
 
 
 def run(q, **kw):
-    per_arm = q["sample_size"]["per_arm"] if q["find"] == "power" else None
-    return simulate.answer(q, q["alpha"], per_arm=per_arm, start=kw.pop("start", None), **kw)
+    per_group = q["sample_size"]["per_group"] if q["find"] == "power" else None
+    return simulate.answer(q, q["alpha"], per_group=per_group, start=kw.pop("start", None), **kw)
 
 
 def within(est: dict, exact: float, k: float = 4.0) -> bool:
@@ -64,8 +64,9 @@ def nct_power(d, n1, n2, alpha=0.05):
 def test_student_power_within_4_mcse_of_noncentral_t(d, n, sufficient):
     # formula: noncentral t power computed in the test with scipy.stats.nct
     q = question(
-        effect={"difference": d, "sd_control": 1.0, "sd_treatment": 1.0},
-        per_arm=(n, n),
+        effect={"difference": d},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+        per_group=(n, n),
         test="student_t",
     )
     p = simulate.plan(q, 0.05)
@@ -98,7 +99,9 @@ def test_type_i_error_normal_null_n30():
     # common practice, no source: a t test under a normal null rejects at about alpha
     out = run(
         question(
-            effect={"difference": 0.0, "sd_control": 1.0, "sd_treatment": 1.0}, replicates=10000
+            effect={"difference": 0.0},
+            assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+            replicates=10000,
         )
     )
     assert within(out["power"], 0.05)
@@ -109,17 +112,17 @@ def test_type_i_error_normal_null_n30():
 def test_reference_solve_d05_power80():
     # published 64 per group: Cohen 1988, Table 2.4.1 (±1 for Monte Carlo error)
     out = run(question(find="sample_size", replicates=40000))
-    assert abs(out["per_arm"][0] - 64) <= 1 and out["per_arm"][0] == out["per_arm"][1]
+    assert abs(out["per_group"][0] - 64) <= 1 and out["per_group"][0] == out["per_group"][1]
     first, second = out["search"]["confirmation"]
     assert first["power"] >= 0.8 > second["power"]
-    assert second["per_arm"][0] == first["per_arm"][0] - 1
+    assert second["per_group"][0] == first["per_group"][0] - 1
     assert first["replicates"] == second["replicates"] == 40000
 
 
 def test_welch_unequal_sd_power_matches_statsmodels_approximation():
     # formula: Welch power ≈ noncentral t with Satterthwaite df (statsmodels-free, scipy.nct)
     effect = {"difference": 0.6, "sd_control": 1.0, "sd_treatment": 2.0}
-    out = run(question(effect=effect, per_arm=(40, 60), test="welch_t", replicates=8000))
+    out = run(question(effect=effect, per_group=(40, 60), test="welch_t", replicates=8000))
     se = math.sqrt(1 / 40 + 4 / 60)
     df = (1 / 40 + 4 / 60) ** 2 / ((1 / 40) ** 2 / 39 + (4 / 60) ** 2 / 59)
     tc = stats.t.isf(0.025, df)
@@ -130,7 +133,9 @@ def test_welch_unequal_sd_power_matches_statsmodels_approximation():
 
 def test_one_sample_power_matches_noncentral_t():
     # formula: one-sample noncentral t, ncp = d·√n, df = n − 1 (scipy.stats.nct)
-    out = run(question("one_mean", {"difference": 0.5, "sd": 1.0}, per_arm=(34,), replicates=8000))
+    out = run(
+        question("one_mean", {"difference": 0.5, "sd": 1.0}, per_group=(34,), replicates=8000)
+    )
     tc = stats.t.isf(0.025, 33)
     exact = stats.nct.sf(tc, 33, 0.5 * math.sqrt(34)) + stats.nct.cdf(-tc, 33, 0.5 * math.sqrt(34))
     assert within(out["power"], exact)
@@ -140,7 +145,7 @@ def test_one_sample_power_matches_noncentral_t():
 def test_anova_power_matches_noncentral_f():
     # formula: noncentral F with λ = f²·N (Cohen 1988, ch. 8), computed with scipy.stats.ncf
     q = question(
-        "anova_oneway", {"cohens_f": 0.25, "groups": 3}, per_arm=(40, 40, 40), replicates=8000
+        "anova_oneway", {"cohens_f": 0.25, "groups": 3}, per_group=(40, 40, 40), replicates=8000
     )
     out = run(q)
     crit = stats.f.isf(0.05, 2, 117)
@@ -151,9 +156,17 @@ def test_anova_power_matches_noncentral_f():
 
 def test_noninferiority_power_matches_noncentral_t():
     # formula: one-sided shifted t, ncp = (Δ − margin)/(σ√(2/n)); Chow, Shao & Wang (2008) ch. 3 setting
-    hyp = {"kind": "noninferiority", "margin": -0.05, "higher_is_better": True}
+    hyp = {"aim": "noninferiority", "margin": -0.05, "higher_is_better": True}
     effect = {"difference": 0.05, "sd_control": 0.1, "sd_treatment": 0.1}
-    out = run(question(effect=effect, per_arm=(14, 14), sides=1, hypothesis=hyp, replicates=8000))
+    out = run(
+        question(
+            effect=effect,
+            per_group=(14, 14),
+            alternative="one-sided",
+            hypothesis=hyp,
+            replicates=8000,
+        )
+    )
     df, ncp = 26, 0.1 / (0.1 * math.sqrt(2 / 14))
     exact = stats.nct.sf(stats.t.isf(0.05, df), df, ncp)
     assert within(out["power"], exact)
@@ -163,12 +176,18 @@ def test_noninferiority_power_matches_noncentral_t():
 
 def test_tost_solve_near_reference():
     # formula: TOST σ = 0.1, Δ = 0, margin 0.05: 70 per group with the exact t, ±2
-    hyp = {"kind": "equivalence", "margin": 0.05, "higher_is_better": True}
+    hyp = {"aim": "equivalence", "margin": 0.05, "higher_is_better": True}
     effect = {"difference": 0.0, "sd_control": 0.1, "sd_treatment": 0.1}
     out = run(
-        question(effect=effect, find="sample_size", sides=1, hypothesis=hyp, replicates=20000)
+        question(
+            effect=effect,
+            find="sample_size",
+            alternative="one-sided",
+            hypothesis=hyp,
+            replicates=20000,
+        )
     )
-    assert abs(out["per_arm"][0] - 70) <= 2
+    assert abs(out["per_group"][0] - 70) <= 2
 
 
 def _exact_z_power(n1, n2, p1, p2, alpha=0.05):
@@ -189,7 +208,7 @@ def test_z_test_power_matches_enumeration():
     q = question(
         "two_proportions",
         {"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False},
-        per_arm=(50, 60),
+        per_group=(50, 60),
         replicates=8000,
     )
     out = run(q)
@@ -202,7 +221,7 @@ def test_fisher_power_matches_enumeration():
     q = question(
         "two_proportions",
         {"p_control": 0.3, "p_treatment": 0.7, "continuity_correction": False},
-        per_arm=(20, 20),
+        per_group=(20, 20),
         test="fisher_exact",
         replicates=8000,
     )
@@ -230,7 +249,7 @@ def test_binomial_counts_invert_the_cdf():
 
 def test_correlation_matches_raw_bivariate_normal():
     # recomputed: an independent raw-data simulation with numpy and the t test of ρ = 0
-    out = run(question("correlation", {"r": 0.3, "r0": 0.0}, per_arm=(50,), replicates=8000))
+    out = run(question("correlation", {"r": 0.3, "r_null": 0.0}, per_group=(50,), replicates=8000))
     rng = np.random.default_rng(7)
     z = rng.standard_normal((8000, 2, 50))
     x, y = z[:, 0], 0.3 * z[:, 0] + math.sqrt(1 - 0.09) * z[:, 1]
@@ -244,7 +263,9 @@ def test_correlation_matches_raw_bivariate_normal():
 
 def test_rank_sum_null_and_noether_power():
     # formula: Noether (1987) normal approximation, N = (z + z)²/(12c(1 − c)(p − ½)²); loose (±0.03)
-    out = run(question("rank_sum", {"prob_superiority": 0.6382}, per_arm=(69, 69), replicates=6000))
+    out = run(
+        question("rank_sum", {"prob_superiority": 0.6382}, per_group=(69, 69), replicates=6000)
+    )
     z = stats.norm.ppf(0.975)
     noether = stats.norm.cdf(math.sqrt(138 * 12 * 0.25 * (0.6382 - 0.5) ** 2) - z)
     assert abs(out["power"]["estimate"] - noether) < 0.03
@@ -256,7 +277,7 @@ def test_signed_rank_null():
     q = question(
         "paired_mean",
         {"difference": 0.4, "sd_difference": 1.0},
-        per_arm=(30,),
+        per_group=(30,),
         test="signed_rank",
         replicates=6000,
     )
@@ -271,7 +292,7 @@ def test_kruskal_null_with_lognormal_groups():
     q = question(
         "anova_oneway",
         {"cohens_f": 0.25, "groups": 3},
-        per_arm=(20, 20, 20),
+        per_group=(20, 20, 20),
         test="kruskal_wallis",
         data=data,
         replicates=4000,
@@ -281,16 +302,16 @@ def test_kruskal_null_with_lognormal_groups():
 
 SURVIVAL = {
     "hazard_ratio": 0.5,
-    "hazard_control": math.log(2) / 12,
-    "accrual_period": 24.0,
+    "control_hazard": math.log(2) / 12,
+    "accrual": 24.0,
     "follow_up": 12.0,
-    "loss_rate": 0.0,
+    "loss_hazard": 0.0,
 }
 
 
 def test_logrank_events_match_lachin_foulkes():
     # formula: P(event) = 1 − [e^(−λf) − e^(−λ(a+f))]/(λa), Lachin & Foulkes (1986); control 0.729495
-    q = question("survival_logrank", SURVIVAL, per_arm=(60, 60), replicates=2000)
+    q = question("survival_logrank", SURVIVAL, per_group=(60, 60), replicates=2000)
     out = run(q)
     lam = math.log(2) / 12
 
@@ -308,7 +329,7 @@ def test_logrank_events_match_lachin_foulkes():
 
 def test_logrank_power_near_schoenfeld():
     # formula: Schoenfeld (1983): power = Φ(√(D/4)·|ln HR| − z.975) at the expected events D; ±0.03
-    q = question("survival_logrank", SURVIVAL, per_arm=(50, 50), replicates=4000)
+    q = question("survival_logrank", SURVIVAL, per_group=(50, 50), replicates=4000)
     out = run(q)
     d = out["events"]["mean_per_replicate"]
     approx = stats.norm.cdf(math.sqrt(d / 4) * math.log(2) - stats.norm.ppf(0.975))
@@ -321,7 +342,7 @@ def test_heavy_tails_show_in_the_null_check():
         "control": {"family": "lognormal", "mu": 0.0, "sigma": 1.5},
         "treatment": {"family": "lognormal", "mu": 0.0, "sigma": 0.3},
     }
-    out = run(question(per_arm=(10, 40), test="welch_t", data=data, replicates=4000))
+    out = run(question(per_group=(10, 40), test="welch_t", data=data, replicates=4000))
     assert out["type_i_error"]["verdict"] == "exceeds"
     assert any("type I error" in w for w in out["warnings"])
 
@@ -359,7 +380,7 @@ def test_shuffled_chunks_through_json_give_the_same_digits():
 
 
 @pytest.mark.parametrize(
-    "design,effect,test,data,per_arm",
+    "design,effect,test,data,per_group",
     [
         (
             "two_means",
@@ -401,13 +422,13 @@ def test_shuffled_chunks_through_json_give_the_same_digits():
         ("two_means", NORMAL_EFFECT, "student_t", None, [64, 64]),
     ],
 )
-def test_memory_sub_batches_do_not_change_digits(design, effect, test, data, per_arm):
+def test_memory_sub_batches_do_not_change_digits(design, effect, test, data, per_group):
     # common practice, no source: rows drawn in any sub-batch size give the same numbers
-    q = question(design, effect, per_arm=per_arm, test=test, data=data)
+    q = question(design, effect, per_group=per_group, test=test, data=data)
     p = simulate.plan(q, 0.05)
     for stream in (0, 1):
         task = simulate.make_task(
-            p, per_arm, stream=stream, chunk=3, chunk_size=300, replicates=300, seed=41
+            p, per_group, stream=stream, chunk=3, chunk_size=300, replicates=300, seed=41
         )
         whole = simulate.run_chunk(dict(task))
         assert whole == simulate.run_chunk(dict(task, max_rows=7))
@@ -483,11 +504,11 @@ def test_external_executor_receives_whole_batches():
     batches = []
 
     def executor(tasks):
-        batches.append([(t["stream"], tuple(t["per_arm"]), t["chunk"]) for t in tasks])
+        batches.append([(t["stream"], tuple(t["per_group"]), t["chunk"]) for t in tasks])
         return [simulate.run_chunk(t) for t in tasks]
 
     out = run(question(find="sample_size", replicates=4000), executor=executor)
-    n = tuple(out["per_arm"])
+    n = tuple(out["per_group"])
     nulls = [b for b in batches if any(s == 1 for s, _, _ in b)]
     assert len(nulls) == 1 and {(s, p) for s, p, _ in nulls[0] if s == 1} == {(1, n)}
     assert sorted(c for s, _, c in nulls[0] if s == 1) == [0, 1, 2, 3]  # 4,000 in chunks of 1,000
@@ -497,7 +518,7 @@ def test_external_executor_receives_whole_batches():
 @pytest.mark.parametrize(
     "mutate,field",
     [
-        (lambda q: q["simulation"].update(test="logrank"), "simulation.test"),
+        (lambda q: q["simulation"].update(test="logrank"), "analysis"),
         (
             lambda q: q["simulation"].update(
                 data={
@@ -519,14 +540,14 @@ def test_external_executor_receives_whole_batches():
         (
             lambda q: (
                 q.update(
-                    hypothesis={"kind": "noninferiority", "margin": -0.1, "higher_is_better": True},
-                    sides=1,
+                    hypothesis={"aim": "noninferiority", "margin": -0.1, "higher_is_better": True},
+                    alternative="one-sided",
                 )
                 or q["simulation"].update(test="rank_sum")
             ),
-            "simulation.test",
+            "analysis",
         ),
-        (lambda q: q["effect"].pop("sd_control"), "effect.sd_control"),
+        (lambda q: q["effect"].pop("sd_control"), "assumptions.sd_control"),
     ],
 )
 def test_bad_questions_raise_question_errors(mutate, field):
@@ -538,12 +559,12 @@ def test_bad_questions_raise_question_errors(mutate, field):
     assert info.value.field == field
 
 
-def test_wrong_per_arm_shape_is_named():
-    # common practice, no source: power needs one size per arm
+def test_wrong_per_group_shape_is_named():
+    # common practice, no source: power needs one size per group
     q = question()
     with pytest.raises(QuestionError) as info:
-        simulate.answer(q, 0.05, per_arm=[30], start=None)
-    assert info.value.field == "sample_size.per_arm" and "[30]" in info.value.message
+        simulate.answer(q, 0.05, per_group=[30], start=None)
+    assert info.value.field == "sample_size.per_group" and "[30]" in info.value.message
 
 
 def test_survival_needs_positive_event_times():
@@ -551,7 +572,7 @@ def test_survival_needs_positive_event_times():
     q = question(
         "survival_logrank",
         SURVIVAL,
-        per_arm=(40, 40),
+        per_group=(40, 40),
         data={
             "control": {"family": "normal", "mean": 10, "sd": 2},
             "treatment": {"family": "exponential", "scale": 20},
@@ -565,8 +586,8 @@ def test_survival_needs_positive_event_times():
 def test_estimate_cost_counts_replicates_draws_and_candidates():
     # formula: power = 2 runs (effect and null) × R × draws per replicate
     q = question(replicates=10000)
-    assert simulate.estimate_cost(q) == 2 * 10000 * 4  # sufficient statistics: 2 draws per arm
-    raw = question(per_arm=(64, 64), test="rank_sum")
+    assert simulate.estimate_cost(q) == 2 * 10000 * 4  # sufficient statistics: 2 draws per group
+    raw = question(per_group=(64, 64), test="rank_sum")
     assert simulate.estimate_cost(raw) == 2 * 4000 * 128
     solve = question(find="sample_size", replicates=10000)
     small = simulate.estimate_cost(solve)

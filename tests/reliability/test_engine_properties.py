@@ -66,8 +66,8 @@ def _effect(design: str):
     return st.fixed_dictionaries(
         {
             "hazard_ratio": _floats(0.4, 0.85),
-            "median_control": _floats(6.0, 36.0),
-            "accrual_period": _floats(6.0, 24.0),
+            "control_median": _floats(6.0, 36.0),
+            "accrual": _floats(6.0, 24.0),
             "follow_up": _floats(0.0, 24.0),
         }
     )
@@ -113,7 +113,7 @@ def questions(draw) -> dict:
         question["target_power"] = draw(_floats(0.6, 0.95))
     else:
         size = draw(st.integers(4, 200))
-        question["sample_size"] = {"per_arm": [size] * _arms(design, effect)}
+        question["sample_size"] = {"per_group": [size] * _arms(design, effect)}
         if draw(st.integers(0, 3)) == 0:
             question["method"] = "simulation"
             question["simulation"] = _simulation(design, draw)
@@ -143,9 +143,9 @@ def test_valid_questions_give_a_sealed_record_or_a_field_error(raw):
         assert str(exc), type(exc).__name__
         return
     assert verify(record)
-    per_arm = record["sample_size"]["per_arm"]
-    assert len(per_arm) >= 1 and all(isinstance(n, int) and n >= 2 for n in per_arm), per_arm
-    assert record["sample_size"]["total"] == sum(per_arm)
+    per_group = record["sample_size"]["per_group"]
+    assert len(per_group) >= 1 and all(isinstance(n, int) and n >= 2 for n in per_group), per_group
+    assert record["sample_size"]["total"] == sum(per_group)
     power = record["power"]["estimate"]
     assert 0.0 <= power <= 1.0, power
     if question["method"] == "simulation":

@@ -12,8 +12,7 @@ from scipy import optimize, special, stats
 
 from . import implied, models, search
 from .chunks import ChunkTask, draws_per_replicate
-from .plan import Plan, first_min, make_plan, per_group_for
-from .plan import effect_setup, with_effect
+from .plan import Plan, effect_setup, first_min, make_plan, per_group_for, with_effect
 
 FALLBACK_FIRST = 50  # first-group size tried when no approximation exists (e.g. Cauchy data)
 _COST_SPAN = 1.5  # the estimate assumes candidates within 1.5× the start
@@ -53,8 +52,8 @@ def first_size(plan: Plan, target: float) -> float | None:
 def correlation_first(plan: Plan, target: float) -> float | None:
     """Pairs from Fisher's z."""
     za, zb = _za_zb(plan, target)
-    r, r0 = plan.models[0]["r"], plan.settings["r_null"]
-    gap = abs(math.atanh(r) - math.atanh(r0))
+    r, r_null = plan.models[0]["r"], plan.settings["r_null"]
+    gap = abs(math.atanh(r) - math.atanh(r_null))
     return ((za + zb) / gap) ** 2 + 3 if gap > 0 else None
 
 

@@ -22,6 +22,7 @@ from .errors import QuestionError
 # rounded to about three significant digits and refuses a different assumption.
 TOLERANCE = 0.01
 
+
 def posted_models(data: dict, design) -> tuple[list[dict], list[str]]:
     """Return the posted data models of ``simulation.data`` in question order, with their labels.
 
@@ -44,7 +45,10 @@ def posted_models(data: dict, design) -> tuple[list[dict], list[str]]:
                 "simulation.data.groups", "must be the only key, a list of at least 2 groups"
             )
         labels = [f"groups.{i}" for i in range(len(groups))]
-        return [models.check_arm(a, f"simulation.data.{lab}") for a, lab in zip(groups, labels, strict=True)], labels
+        return [
+            models.check_arm(a, f"simulation.data.{lab}")
+            for a, lab in zip(groups, labels, strict=True)
+        ], labels
     if set(data) != set(keys):
         raise QuestionError(
             "simulation.data",

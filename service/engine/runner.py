@@ -31,7 +31,14 @@ def _task_draws(task: dict) -> int:
 
 
 def make_task(
-    plan: Plan, per_group: list[int], *, stream: int, chunk: int, chunk_size: int, replicates: int, seed: int
+    plan: Plan,
+    per_group: list[int],
+    *,
+    stream: int,
+    chunk: int,
+    chunk_size: int,
+    replicates: int,
+    seed: int,
 ) -> dict:
     """Return the JSON task for one chunk: everything ``run_chunk`` needs, nothing else."""
     return ChunkTask(

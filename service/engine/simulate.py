@@ -17,8 +17,7 @@ from .approximate import FALLBACK_FIRST, estimate_cost, first_size
 from .chunks import BIT_GENERATOR, SEED_SCHEME, STREAM_ALT, STREAM_NULL, run_chunk
 from .errors import QuestionError
 from .ledger import Ledger
-from .plan import Plan, SimSettings, effect_setup, first_min, make_plan, per_group_for
-from .plan import with_effect
+from .plan import Plan, SimSettings, effect_setup, first_min, make_plan, per_group_for, with_effect
 from .runner import Executor, Request, Runner
 
 __all__ = ["answer", "estimate_cost", "run_chunk", "size_verdict"]
@@ -263,7 +262,9 @@ def answer(
             full=reps,
             budget=budget,
         )
-        alt, null = runner.batch([Request(STREAM_ALT, final, reps), Request(STREAM_NULL, final, reps)])
+        alt, null = runner.batch(
+            [Request(STREAM_ALT, final, reps), Request(STREAM_NULL, final, reps)]
+        )
     else:
         target = _target(q, "n")
         if per_group:  # a posted per-group shape sets the allocation
@@ -305,7 +306,9 @@ def answer(
         )
         warnings.extend(found.warnings)
         final = per_group_for(p, found.m)
-        alt, null = runner.batch([Request(STREAM_ALT, final, reps), Request(STREAM_NULL, final, reps)])
+        alt, null = runner.batch(
+            [Request(STREAM_ALT, final, reps), Request(STREAM_NULL, final, reps)]
+        )
         search_block = _search_block(
             [float(x) for x in (start or [])] or per_group_for(p, math.ceil(m0)),
             source,

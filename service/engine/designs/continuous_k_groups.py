@@ -15,8 +15,16 @@ from scipy import stats
 from .. import models
 from ..errors import QuestionError
 from ..quantiles import solve_effect_or_raise, solve_n_or_raise
-from .base import Analysis, DecisionRule, Design, EffectAxis, Field, Phrases, SimulationModel
-from .base import Solution
+from .base import (
+    Analysis,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+    Solution,
+)
 from .common import analysis_of, analytic_method, check_aim, fmt, make_validate, no_warnings, values
 
 FIELDS = (
@@ -258,7 +266,9 @@ def default_data(q: dict) -> list[dict]:
         w = [float(n) / math.fsum(sizes) for n in sizes]
         center = math.fsum(wi * i for i, wi in enumerate(w))
         spread = math.sqrt(math.fsum(wi * (i - center) ** 2 for i, wi in enumerate(w)))
-        return [{"family": "normal", "mean": f / spread * (i - center), "sd": 1.0} for i in range(k)]
+        return [
+            {"family": "normal", "mean": f / spread * (i - center), "sd": 1.0} for i in range(k)
+        ]
     step = f / math.sqrt((k * k - 1) / 12.0)
     return [{"family": "normal", "mean": step * (i - (k - 1) / 2), "sd": 1.0} for i in range(k)]
 

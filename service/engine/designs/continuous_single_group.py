@@ -10,8 +10,16 @@ from collections.abc import Callable
 from .. import models
 from ..errors import QuestionError
 from ..quantiles import solve_effect_or_raise, solve_n_or_raise, t_power
-from .base import Analysis, DecisionRule, Design, EffectAxis, Field, Phrases, SimulationModel
-from .base import Solution
+from .base import (
+    Analysis,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+    Solution,
+)
 from .common import (
     analysis_of,
     analytic_method,

@@ -11,8 +11,18 @@ from .. import models
 from ..errors import QuestionError
 from ..quantiles import power_unreachable, root, solve_effect_or_raise, solve_n_or_raise, t_power
 from . import ordinal_two_groups as noether
-from .base import AIMS, Analysis, ClusterSupport, DecisionRule, Design, EffectAxis, Field
-from .base import Phrases, SimulationModel, Solution
+from .base import (
+    AIMS,
+    Analysis,
+    ClusterSupport,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+    Solution,
+)
 from .common import (
     analysis_of,
     analytic_method,
@@ -220,7 +230,9 @@ def solve_n(q: dict, alpha: float) -> Solution:
     target = float(q["target_power"])
     if _analysis(q) == "rank_sum":
         s1, s2 = sds(q)
-        per_group, details = noether.solve(_p_sup(delta, s1, s2), allocation(q), alpha, tails(q), target)
+        per_group, details = noether.solve(
+            _p_sup(delta, s1, s2), allocation(q), alpha, tails(q), target
+        )
         return Solution(per_group=per_group, details=details)
     n1 = solve_n_or_raise(
         lambda n: _power_at(q, delta, n, r * n, alpha),
@@ -366,7 +378,9 @@ def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict]
     if aim == "superiority":
         text = "treatment shifted to the control mean (difference 0), shape unchanged"
     elif aim == "noninferiority":
-        text = f"treatment shifted so the difference equals the margin ({margin:g}), the null boundary"
+        text = (
+            f"treatment shifted so the difference equals the margin ({margin:g}), the null boundary"
+        )
     else:
         text = f"treatment shifted so the difference equals the upper margin (+{margin:g}), a null boundary"
     return null, text
@@ -408,6 +422,18 @@ def implied_fields(q: dict, arms: list[dict]) -> dict:
     return {"fields": fields, "missing": missing, "replaces": checks}
 
 
+def planned_moments(q: dict) -> tuple[float, float, float, float]:
+    """(control mean, difference, sd_control, sd_treatment) the robustness panel departs from."""
+    difference = number(q, FIELDS, "difference")
+    sc, st = sds(q)
+    data = (q.get("simulation") or {}).get("data")
+    # The control mean only positions the skewed families; a posted normal model supplies it.
+    mean0 = 0.0
+    if isinstance(data, dict) and (data.get("control") or {}).get("family") == "normal":
+        mean0 = float(data["control"]["mean"])
+    return mean0, difference, sc, st
+
+
 SIMULATION = SimulationModel(
     data_keys=("control", "treatment"),
     default_data=default_data,
@@ -417,6 +443,7 @@ SIMULATION = SimulationModel(
     implied_contrast=implied_contrast,
     implied_fields=implied_fields,
     approximate_n=None,  # the machinery's moment-based approximation applies
+    planned_moments=planned_moments,
 )
 
 

@@ -9,7 +9,7 @@ _TWO_MEANS = {
     "design": "two_means",
     "find": "sample_size",
     "alpha": 0.05,
-    "sides": 2,
+    "tails": 2,
     "target_power": 0.8,
     "sample_size": None,
     "allocation_ratio": 1.0,

@@ -11,11 +11,11 @@ import threading
 import pytest
 from test_browser import CHROMIUM, _chromium, _page_errors, _png_pixels  # noqa: F401
 from werkzeug.serving import make_server
+from workers.analysis_tasks import run_analysis_job
 
 from service import create_app
 from service.api.auth import local_client
 from service.store.migrate import upgrade
-from workers.analysis_tasks import run_analysis_job
 
 pytestmark = pytest.mark.skipif(
     not __import__("os").path.exists(CHROMIUM)

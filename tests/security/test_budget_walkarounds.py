@@ -18,8 +18,8 @@ from werkzeug.serving import make_server
 
 from service.api.explorations import counterpart_record
 from service.engine import compute, estimate_cost
-from service.schemas.explorations import price
 from service.schemas import load_question
+from service.schemas.explorations import price
 from service.store import jobs
 from service.store import tokens as token_store
 from service.store.db import session_scope

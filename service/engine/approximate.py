@@ -52,8 +52,8 @@ def first_size(plan: Plan, target: float) -> float | None:
 def correlation_first(plan: Plan, target: float) -> float | None:
     """Pairs from Fisher's z."""
     za, zb = _za_zb(plan, target)
-    r, r0 = plan.models[0]["r"], plan.settings["r_null"]
-    gap = abs(math.atanh(r) - math.atanh(r0))
+    r, r_null = plan.models[0]["r"], plan.settings["r_null"]
+    gap = abs(math.atanh(r) - math.atanh(r_null))
     return ((za + zb) / gap) ** 2 + 3 if gap > 0 else None
 
 

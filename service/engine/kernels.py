@@ -142,8 +142,8 @@ def _fisher(streams: Streams, task: ChunkTask, rows: int):
 def _pearson(streams: Streams, task: ChunkTask, rows: int):
     n = task.per_group[0]
     r = streams.correlation(task.models[0]["r"], n, rows)
-    r0 = task.settings["r_null"]
-    return vectests.correlation_reject(r, n, r0, task.alpha, task.rule), {}
+    r_null = task.settings["r_null"]
+    return vectests.correlation_reject(r, n, r_null, task.alpha, task.rule), {}
 
 
 def _event_rows(streams: Streams, task: ChunkTask, rows: int):

@@ -98,15 +98,15 @@ def simulated_analysis(q: dict, design: Design) -> str:
 def decision_rule(q: dict, design: Design) -> DecisionRule:
     """The rule before the groups are known: aim, tails, the direction the effect points."""
     aim, margin, higher = hypothesis(q)
-    tails = tails(q)
+    count = tails(q)
     better = 1 if higher else -1
     # One-sided: towards the assumed effect (direction.py); make_plan re-aims it at the groups.
-    pointing = direction.one_sided(q, design) if tails == 1 else better
+    pointing = direction.one_sided(q, design) if count == 1 else better
     if aim != "superiority":
         if margin is None:
             raise QuestionError("hypothesis.margin", f"is required for {aim}")
         return DecisionRule(aim, "one-sided", pointing, float(margin))
-    return DecisionRule(aim, "one-sided" if tails == 1 else "two-sided", pointing, None)
+    return DecisionRule(aim, "one-sided" if count == 1 else "two-sided", pointing, None)
 
 
 def _cluster(q: dict, design: Design, arms: list[dict], labels: list[str]) -> dict | None:

@@ -6,7 +6,7 @@ at an extreme); only those expected failures give None, anything else is a defec
 
 from __future__ import annotations
 
-from .designs.base import Design
+from .designs.base import Design, Solution
 from .designs.common import analysis_of
 from .errors import EngineError
 
@@ -30,15 +30,21 @@ def analytic_basis(design: Design, q: dict) -> dict | None:
     return dict(q, analysis=offered[0])
 
 
-def analytic_n(design: Design, q: dict, alpha: float) -> list[float] | None:
-    """The analytic raw n per group, or None when the formula cannot answer."""
+def analytic_solution(design: Design, q: dict, alpha: float) -> Solution | None:
+    """The analytic solve (raw n per group and details), or None when the formula cannot answer."""
     basis = analytic_basis(design, q)
     if basis is None:
         return None
     try:
-        return design.solve_n(basis, alpha).per_group
+        return design.solve_n(basis, alpha)
     except EXPECTED:
         return None
+
+
+def analytic_n(design: Design, q: dict, alpha: float) -> list[float] | None:
+    """The analytic raw n per group, or None when the formula cannot answer."""
+    solution = analytic_solution(design, q, alpha)
+    return None if solution is None else solution.per_group
 
 
 def analytic_power(design: Design, q: dict, per_group: list[float], alpha: float) -> float | None:

@@ -226,13 +226,15 @@ def pearson_r(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return sxy / np.sqrt(np.einsum("ij,ij->i", xc, xc) * np.einsum("ij,ij->i", yc, yc))
 
 
-def correlation_reject(r: np.ndarray, n: int, r0: float, alpha: float, rule: dict) -> np.ndarray:
-    """Reject H0: ρ = r0 — the exact t test of ρ = 0 when r0 = 0, else the Fisher z test."""
-    if r0 == 0:
+def correlation_reject(
+    r: np.ndarray, n: int, r_null: float, alpha: float, rule: dict
+) -> np.ndarray:
+    """Reject H0: ρ = r_null — the exact t test of ρ = 0 when r_null = 0, else the Fisher z test."""
+    if r_null == 0:
         with np.errstate(divide="ignore", invalid="ignore"):
             t = r * math.sqrt(n - 2) / np.sqrt(np.maximum(1.0 - r * r, 0.0))
         return decide(t, 1.0, n - 2, alpha, rule)
-    z = (np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15)) - math.atanh(r0)) * math.sqrt(n - 3)
+    z = (np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15)) - math.atanh(r_null)) * math.sqrt(n - 3)
     return decide(z, 1.0, None, alpha, rule)
 
 

@@ -86,10 +86,10 @@ def _pairs(per_group: list[float]) -> float:
 def solve_n(q: dict, alpha: float) -> Solution:
     """Return the unrounded number of pairs, n = ((z_a + z_b) / |atanh r − atanh r_null|)² + 3."""
     _check(q)
-    r, r0 = _r(q, "r"), _r(q, "r_null")
-    if r == r0:
-        raise QuestionError("effect.r", f"must differ from r_null ({r0:g}); got {r:g}")
-    shift = abs(math.atanh(r) - math.atanh(r0))
+    r, r_null = _r(q, "r"), _r(q, "r_null")
+    if r == r_null:
+        raise QuestionError("effect.r", f"must differ from r_null ({r_null:g}); got {r:g}")
+    shift = abs(math.atanh(r) - math.atanh(r_null))
     n = (z_sum(alpha, tails(q), float(q["target_power"])) / shift) ** 2 + 3.0
     return Solution(per_group=[n], details={"fisher_z_difference": shift})
 
@@ -97,22 +97,22 @@ def solve_n(q: dict, alpha: float) -> Solution:
 def power(q: dict, per_group: list[float], alpha: float) -> float:
     """Return the Fisher-z power at the given number of pairs (n > 3)."""
     _check(q)
-    r, r0 = _r(q, "r"), _r(q, "r_null")
+    r, r_null = _r(q, "r"), _r(q, "r_null")
     n = _pairs(per_group)
-    shift = abs(math.atanh(r) - math.atanh(r0)) * math.sqrt(n - 3.0)
+    shift = abs(math.atanh(r) - math.atanh(r_null)) * math.sqrt(n - 3.0)
     return normal_power(shift, z_alpha(alpha, tails(q)), tails(q))
 
 
 def solve_effect(q: dict, per_group: list[float], alpha: float) -> dict:
     """Return the correlation nearest r_null (above it unless lower is better) reaching target."""
     _check(q)
-    r0 = _r(q, "r_null")
+    r_null = _r(q, "r_null")
     n = _pairs(per_group)
     target = float(q["target_power"])
     # Solve on the z scale (unbounded), then map back; the far tail keeps this a root search.
     x = normal_effect(math.sqrt(n - 3.0), z_alpha(alpha, tails(q)), tails(q), target, 50.0)
     higher = hypothesis(q)[2]
-    value = math.tanh(math.atanh(r0) + (x if higher else -x))
+    value = math.tanh(math.atanh(r_null) + (x if higher else -x))
     if not -1.0 < value < 1.0:
         raise power_unreachable("sample_size.per_group", target, per_group)
     return {"field": "r", "value": value}
@@ -144,14 +144,14 @@ def default_data(q: dict) -> list[dict]:
 
 
 def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
-    r0 = _r(q, "r_null")
-    return [{"family": "bivariate_normal", "r": r0}], f"correlation set to r_null = {r0:g}"
+    r_null = _r(q, "r_null")
+    return [{"family": "bivariate_normal", "r": r_null}], f"correlation set to r_null = {r_null:g}"
 
 
 def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:
-    r0 = _r(q, "r_null")
-    room = 1.0 - r0 if rule.direction > 0 else 1.0 + r0
-    return EffectAxis(r0, rule.direction, room)
+    r_null = _r(q, "r_null")
+    room = 1.0 - r_null if rule.direction > 0 else 1.0 + r_null
+    return EffectAxis(r_null, rule.direction, room)
 
 
 def approximate_n(plan, target: float) -> float | None:
@@ -182,8 +182,8 @@ def effect_sentence(q: dict, record: dict | None) -> str:
 
 
 def assumptions_sentence(q: dict) -> str:
-    r0 = values(q, FIELDS).get("r_null", 0.0)
-    return f"a null correlation of {fmt(r0)}" if r0 else ""
+    r_null = values(q, FIELDS).get("r_null", 0.0)
+    return f"a null correlation of {fmt(r_null)}" if r_null else ""
 
 
 def _contrast(q: dict) -> float | None:

@@ -160,6 +160,8 @@ class SimulationModel:
         (for one-sided direction), None when undefined.
     implied_fields : optional models -> {"fields", "missing", "note"} a posted data model implies.
     approximate_n : optional (plan, target) -> a normal-approximation first-group size or None.
+    planned_moments : optional q -> (control mean, difference, sd_control, sd_treatment) of the
+        planned data, for the robustness panel's departures; None: the panel is not offered.
     direction_sign : +1, or −1 when the test statistic falls as the outcome improves (log-rank).
     min_size : the smallest group size the analyses accept.
     """
@@ -175,6 +177,7 @@ class SimulationModel:
     implied_contrast: Callable[[list[dict]], float | None] | None = None
     implied_fields: Callable[[dict, list[dict]], dict] | None = None
     approximate_n: Callable[[object, float], float | None] | None = None
+    planned_moments: Callable[[dict], tuple[float, float, float, float]] | None = None
     direction_sign: int = 1
     min_size: int = 2
 

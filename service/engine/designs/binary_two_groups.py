@@ -192,22 +192,22 @@ def _fm_power(p1: float, p2: float, n1: float, n2: float, bound: float, upper: b
 def _power_at(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: float) -> float:
     """Return the power for true proportions p1 (control) and p2 (treatment) at n1 and n2."""
     analysis, aim, margin, higher, cc = _setup(q)
-    tails = tails(q)
+    count = tails(q)
     if aim == "superiority":
-        z_a = z_alpha(alpha, tails)
+        z_a = z_alpha(alpha, count)
         if analysis == "arcsine":
             h = 2 * math.asin(math.sqrt(p2)) - 2 * math.asin(math.sqrt(p1))
-            return normal_power(h / math.sqrt(1 / n1 + 1 / n2), z_a, tails)
+            return normal_power(h / math.sqrt(1 / n1 + 1 / n2), z_a, count)
         diff = abs(p2 - p1)
         sd1 = math.sqrt(_var1(p1, p2, n1, n2))
         if analysis == "unpooled_z":
-            return normal_power(diff / sd1, z_a, tails)
+            return normal_power(diff / sd1, z_a, count)
         pbar = (n1 * p1 + n2 * p2) / (n1 + n2)
         sd0 = math.sqrt(pbar * (1 - pbar) * (1 / n1 + 1 / n2))
         # Fleiss' correction shrinks the observed difference by (1/n1 + 1/n2)/2.
         k = (1 / n1 + 1 / n2) / 2 if cc else 0.0
         power = stats.norm.cdf((diff - k - z_a * sd0) / sd1)
-        if tails == 2:
+        if count == 2:
             power += stats.norm.cdf((-diff - k - z_a * sd0) / sd1)
         return float(min(power, 1.0))
     z_a = z(1 - alpha)
@@ -260,11 +260,11 @@ def solve_n(q: dict, alpha: float) -> Solution:
     p1, p2 = _prob(q, "p_control"), _prob(q, "p_treatment")
     _check_effect(q, p1, p2)
     r = allocation(q)[1]
-    tails = tails(q)
+    count = tails(q)
     z_b = z(float(q["target_power"]))
     details: dict = {}
     if aim == "superiority":
-        z_a = z_alpha(alpha, tails)
+        z_a = z_alpha(alpha, count)
         if analysis == "arcsine":
             h = 2 * math.asin(math.sqrt(p2)) - 2 * math.asin(math.sqrt(p1))
             n1 = (1 + 1 / r) * ((z_a + z_b) / h) ** 2

@@ -422,6 +422,18 @@ def implied_fields(q: dict, arms: list[dict]) -> dict:
     return {"fields": fields, "missing": missing, "replaces": checks}
 
 
+def planned_moments(q: dict) -> tuple[float, float, float, float]:
+    """(control mean, difference, sd_control, sd_treatment) the robustness panel departs from."""
+    difference = number(q, FIELDS, "difference")
+    sc, st = sds(q)
+    data = (q.get("simulation") or {}).get("data")
+    # The control mean only positions the skewed families; a posted normal model supplies it.
+    mean0 = 0.0
+    if isinstance(data, dict) and (data.get("control") or {}).get("family") == "normal":
+        mean0 = float(data["control"]["mean"])
+    return mean0, difference, sc, st
+
+
 SIMULATION = SimulationModel(
     data_keys=("control", "treatment"),
     default_data=default_data,
@@ -431,6 +443,7 @@ SIMULATION = SimulationModel(
     implied_contrast=implied_contrast,
     implied_fields=implied_fields,
     approximate_n=None,  # the machinery's moment-based approximation applies
+    planned_moments=planned_moments,
 )
 
 

@@ -186,6 +186,31 @@ def implied_fields(q: dict, arms: list[dict]) -> dict:
     return {"fields": {"prob_superiority": implied.prob_superiority(arms[0], arms[1])}}
 
 
+def planned_moments(q: dict) -> tuple[float, float, float, float]:
+    """(control mean, difference, sd_control, sd_treatment) of the planned data: the posted
+    groups' moments, else unit normals shifted to give P(Y > X) (as ``default_data``)."""
+    data = (q.get("simulation") or {}).get("data")
+    if isinstance(data, dict) and {"control", "treatment"} <= set(data):
+        found = []
+        for name in ("control", "treatment"):
+            mean, var = models.moments(models.check_arm(data[name], f"simulation.data.{name}"))
+            if mean is None or var is None or not math.isfinite(var):
+                raise QuestionError(
+                    f"simulation.data.{name}",
+                    "the robustness panel matches each departure to the group's mean and SD; "
+                    f"the {data[name].get('family')!r} group has none",
+                )
+            found.append((mean, math.sqrt(var)))
+        (m0, s0), (m1, s1) = found
+        return m0, m1 - m0, s0, s1
+    p = values(q, FIELDS).get("prob_superiority")
+    if isinstance(p, bool) or not isinstance(p, (int, float)) or not 0 < p < 1:
+        raise QuestionError(
+            "effect.prob_superiority", f"must be a number in (0, 1) for the panel; got {p!r}"
+        )
+    return 0.0, default_data(q)[1]["mean"], 1.0, 1.0
+
+
 SIMULATION = SimulationModel(
     data_keys=("control", "treatment"),
     default_data=default_data,
@@ -195,6 +220,7 @@ SIMULATION = SimulationModel(
     implied_contrast=lambda arms: models.center(arms[1]) - models.center(arms[0]),
     implied_fields=implied_fields,
     approximate_n=approximate_n,
+    planned_moments=planned_moments,
 )
 
 

@@ -164,7 +164,7 @@ def _setup(q: dict) -> dict:
     check_aim(q, DESIGN)
     analysis_of(q, DESIGN, "analytic")
     return {
-        "formula": values(q, FIELDS)["events_formula"],
+        "events_formula": values(q, FIELDS)["events_formula"],
         "hazard": control_hazard(q),
         **timeline(q),
     }
@@ -216,7 +216,7 @@ def solve_n(q: dict, alpha: float) -> Solution:
     s = _setup(q)
     hr = _hr(q)
     r = allocation(q)[1]
-    raw = _events(s["formula"], hr, r, z_sum(alpha, tails(q), float(q["target_power"])))
+    raw = _events(s["events_formula"], hr, r, z_sum(alpha, tails(q), float(q["target_power"])))
     required = int(math.ceil(raw - _EPS))
     pc, pt = _p_events(s, hr)
     mean = (pc + r * pt) / (1.0 + r)
@@ -240,7 +240,7 @@ def _power_at(q: dict, hr: float, per_group: list[float], alpha: float) -> float
     n1, n2 = float(per_group[0]), float(per_group[1])
     pc, pt = _p_events(s, hr)
     events = n1 * pc + n2 * pt
-    shift = _shift(s["formula"], hr, n2 / n1, events)
+    shift = _shift(s["events_formula"], hr, n2 / n1, events)
     return normal_power(shift, z_alpha(alpha, tails(q)), tails(q))
 
 
@@ -302,7 +302,7 @@ def warnings_for(q: dict, per_group: list[float]) -> list[str]:
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
     s = _setup(q)
-    if s["formula"] == "freedman":
+    if s["events_formula"] == "freedman":
         name = "log-rank events by Freedman, (z_a + z_b)²(1 + r·HR)² / (r(1 − HR)²)"
         ref = "Freedman (1982), Stat Med 1:121; Lachin & Foulkes (1986), Biometrics 42:507"
     else:

@@ -12,8 +12,6 @@ from __future__ import annotations
 
 from typing import Any
 
-from service.store.models import EXPLORATION_TYPES
-
 
 class ExplorationRefused(Exception):
     """An exploration that does not fit its question or budget; ``errors`` keyed inside the item."""
@@ -77,10 +75,10 @@ def price(
     ``replicates``).
     """
     from service.engine import QuestionError
-    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
+    from service.engine.explore import ROBUSTNESS_REPLICATES, exploration_cost, robustness_refusal
 
-    kind = EXPLORATION_TYPES[item["type"]]
-    if kind == "robustness":
+    kind = item["type"]
+    if kind == "robustness_panel":
         message = robustness_refusal(question)
         if message is not None:
             raise ExplorationRefused(message, {"type": [message]})
@@ -98,12 +96,12 @@ def price(
         field = "grid"
         _refuse_extreme_cells(item["grid"])
     try:
-        estimate = int(analysis_cost(kind, params, question, record))
+        estimate = int(exploration_cost(kind, params, question, record))
     except QuestionError as exc:
         key = (
             exc.field
             if exc.field.startswith("grid")
-            else ("type" if kind == "robustness" else "grid")
+            else ("type" if kind == "robustness_panel" else "grid")
         )
         raise ExplorationRefused(str(exc), {key: [exc.message]}) from None
     message = budget_refusal(estimate, budget) if budget is not None else None

@@ -78,7 +78,7 @@ def request_report(request_id: str):
         record,
         curve_svg=power_curve_svg(curve_points(record)),
         sensitivity=grid,
-        sensitivity_svg=sensitivity_svg(grid) if grid else None,
+        sensitivity_svg=sensitivity_svg(grid, record["question"]) if grid else None,
         robustness=done.get("robustness_panel"),
         pending=pending,
     )
@@ -93,7 +93,7 @@ def request_report(request_id: str):
     errors=PAGE_ERRORS,
 )
 def curve_svg(request_id: str):
-    """Power against n per arm around the answer, as SVG."""
+    """Power against the enrolled size around the answer, as SVG with its title and assumptions."""
     return _curve(request_id, power_curve_svg, "image/svg+xml")
 
 
@@ -105,7 +105,7 @@ def curve_svg(request_id: str):
     errors=PAGE_ERRORS,
 )
 def curve_png(request_id: str):
-    """Power against n per arm around the answer, as PNG for documents."""
+    """Power against the enrolled size around the answer, as PNG that stands alone in a document."""
     return _curve(request_id, power_curve_png, "image/png")
 
 

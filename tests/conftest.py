@@ -174,8 +174,7 @@ def client(app, tokens) -> FlaskClient:
 
 
 def question_body(**overrides) -> dict:
-    """An analytic question on a continuous outcome in two groups as the intake form posts it
-    (d = 0.5, power 0.80)."""
+    """An analytic question (continuous outcome, two groups, d = 0.5, power 0.80) as posted."""
     question = {
         "outcome": "continuous",
         "layout": "two_groups",

@@ -13,9 +13,11 @@ from typing import Any
 from marshmallow import Schema, ValidationError, fields, post_load, validate, validates_schema
 
 from service.schemas.errors import QuestionInvalid
+from service.schemas.explorations import price_errors
 from service.schemas.question import load_question
 from service.store.models import (
-    ANALYSIS_STATUSES,
+    EXPLORATION_STATUSES,
+    EXPLORATION_TYPES,
     REQUEST_STATUSES,
     RERUN_STATUSES,
 )
@@ -126,7 +128,6 @@ GRID_DESCRIPTION = (
     '{"effect.difference": [4, 5, 6], "assumptions.sd": [10, 12], "adjustments.dropout": '
     "[0.1, 0.2]}; at most 3 axes and 400 cells."
 )
-EXPLORATION_TYPES = ("sensitivity_grid", "robustness_panel")
 
 
 class GridField(fields.Dict):
@@ -147,7 +148,7 @@ class ExplorationCreateSchema(StrictSchema):
 
     type = fields.String(
         required=True,
-        validate=one_of(EXPLORATION_TYPES),
+        validate=one_of(tuple(EXPLORATION_TYPES)),
         metadata={"description": "sensitivity_grid or robustness_panel"},
     )
     grid = GridField()
@@ -186,42 +187,7 @@ def _budget() -> int | None:
 
 def exploration_errors(question: dict, items: list[dict]) -> dict[str, list[str]]:
     """Field-keyed errors of the explorations asked for with ``question`` (``3.grid.alpha``)."""
-    from service.engine import QuestionError
-    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
-
-    errors: dict[str, list[str]] = {}
-    q = question
-    if q.get("method") == "simulation" and (q.get("simulation") or {}).get("seed") is None:
-        # The seed is drawn after validation; it changes no path, value or cost.
-        q = {**q, "simulation": {**q["simulation"], "seed": 0}}
-    budget = _budget()
-    for index, item in enumerate(items):
-        if item["type"] == "sensitivity_grid":
-            kind, params, field = "sensitivity", {"grid": item["grid"]}, f"{index}.grid"
-        else:
-            refusal = robustness_refusal(question)
-            if refusal is not None:
-                errors[f"{index}.type"] = [refusal]
-                continue
-            replicates = (
-                item.get("replicates")
-                or (q.get("simulation") or {}).get("replicates")
-                or ROBUSTNESS_REPLICATES
-            )
-            kind, params, field = "robustness", {"replicates": replicates, "seed": 0}, str(index)
-        try:
-            estimate = analysis_cost(kind, params, q, None)
-        except QuestionError as exc:
-            key = exc.field if exc.field.startswith("grid") else "grid"
-            where = f"{index}.{key}" if kind == "sensitivity" else f"{index}.type"
-            errors[where] = [exc.message]
-            continue
-        if budget is not None and estimate > budget:
-            errors[field] = [
-                f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
-                f"{budget:,}; use fewer cells or fewer replicates"
-            ]
-    return errors
+    return price_errors(question, items, _budget())
 
 
 class RequestCreateSchema(StrictSchema):
@@ -284,9 +250,9 @@ class ExplorationSchema(StrictSchema):
 
     id = fields.String()
     request_id = fields.String()
-    type = fields.String(validate=one_of(EXPLORATION_TYPES))
+    type = fields.String(validate=one_of(tuple(EXPLORATION_TYPES)))
     params = fields.Dict()
-    status = fields.String(validate=one_of(ANALYSIS_STATUSES))
+    status = fields.String(validate=one_of(EXPLORATION_STATUSES))
     requested_by = fields.String()
     created_at = fields.AwareDateTime()
     published_at = fields.AwareDateTime(allow_none=True)

@@ -95,7 +95,7 @@ def create_request(
         notes=notes,
         question_raw=question_raw,
         question=question,
-        design=question["design"],
+        design=design_key(question),
         method=question["method"],
         seed=simulation.get("seed"),
         progress=0.0,
@@ -112,7 +112,8 @@ def create_request(
         actor=actor,
         action="submitted",
         detail={
-            "design": row.design,
+            "outcome": question["outcome"],
+            "layout": question["layout"],
             "method": row.method,
             "seed": row.seed,
             "status": row.status,
@@ -121,6 +122,11 @@ def create_request(
             "submission_sha256": submission_hash(row),
         },
     )
+
+
+def design_key(question: dict) -> str:
+    """The value of the ``requests.design`` column: ``<outcome>/<layout>`` (filters and lists)."""
+    return f"{question['outcome']}/{question['layout']}"
 
 
 def question_hash(row: Request) -> str:

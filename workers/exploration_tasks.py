@@ -17,7 +17,7 @@ from sqlalchemy import select
 
 from service.engine import EngineError
 from service.engine import run_chunk as engine_run_chunk
-from service.engine.explore import analysis_cost, robustness, sensitivity
+from service.engine.explore import exploration_cost, robustness, sensitivity
 from service.schemas.explorations import budget_refusal
 from service.store import jobs
 from service.store.db import session_scope
@@ -31,8 +31,8 @@ log = logging.getLogger(__name__)
 _ENDED_WITHOUT_RESULT = ("failed", "cancelled")
 
 
-def _run(stored_kind: str, params: dict, question: dict, record: dict, **hooks) -> dict:
-    if stored_kind == "sensitivity":
+def _run(exploration_type: str, params: dict, question: dict, record: dict, **hooks) -> dict:
+    if exploration_type == "sensitivity_grid":
         return sensitivity(question, params["grid"], base=record, **hooks)
     return robustness(
         question,
@@ -62,7 +62,7 @@ def run_exploration_job(
         ):
             return "skipped"
         row = session.get(Exploration, exploration_id)
-        stored_kind, params, request_id = row.stored_kind, dict(row.params), row.request_id
+        exploration_type, params, request_id = row.type, dict(row.params), row.request_id
         waited("exploration", row.created_at)
         question, status = session.execute(
             select(Request.question, Request.status).where(Request.id == request_id)
@@ -82,12 +82,13 @@ def run_exploration_job(
             )
         budget = int(config["SIMULATION_BUDGET"])
         # Priced again here: a robustness panel posted with the request only now knows its n.
-        refusal = budget_refusal(analysis_cost(stored_kind, params, question, record), budget)
+        cost = exploration_cost(exploration_type, params, question, record)
+        refusal = budget_refusal(cost, budget)
         if refusal is not None:
             raise EngineError(refusal)
         executor = executor_for(factory, hooks, config, fan_out=fan_out, runner=runner, order=order)
         return _run(
-            stored_kind,
+            exploration_type,
             params,
             question,
             record,

@@ -72,7 +72,8 @@ PUBLIC = frozenset({"health.healthz", "health.readyz"})
 # endpoint -> roles allowed; intake's reads are further limited to its own requests.
 ACCESS: dict[str, frozenset[str]] = {
     "openapi.openapi_json": ANY_ROLE,
-    "calculations.designs": ANY_ROLE,
+    "calculations.catalogue": ANY_ROLE,
+    "calculations.question_schema": ANY_ROLE,
     "calculations.calculate": SUBMITTERS,
     "requests.submit_request": SUBMITTERS,
     "requests.list_requests": READERS,

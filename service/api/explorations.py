@@ -13,12 +13,11 @@ import copy
 from flask import Blueprint, jsonify, url_for
 
 from service.engine import EngineError, compute, draw_seed
-from service.schemas.explorations import (
-    ExplorationItemSchema,
+from service.schemas.explorations import ExplorationRefused, price
+from service.schemas.requests import (
+    ExplorationCreateSchema,
     ExplorationListSchema,
-    ExplorationRefused,
     ExplorationSchema,
-    price,
 )
 from service.schemas.shared import shared
 from service.store import explorations as store
@@ -93,7 +92,7 @@ def counterpart_record(question: dict) -> dict | None:
     tag="explorations",
     status=202,
     response=ExplorationSchema,
-    body=ExplorationItemSchema,
+    body=ExplorationCreateSchema,
     description=(
         "Runs on a worker once the request is computed (at once if it already is). A "
         "sensitivity_grid re-solves the question at every combination of the listed values; a "
@@ -108,7 +107,7 @@ def create_exploration(request_id: str):
     """Store an exploration of the request and publish it when the request has a result."""
     reject_query()
     actor = current_actor()
-    _raw, item = load_body(shared(ExplorationItemSchema))
+    _raw, item = load_body(shared(ExplorationCreateSchema))
     with session_scope(sessions()) as session:
         row = load_request(session, request_id)
         if row.status in _NO_NEW_EXPLORATION:

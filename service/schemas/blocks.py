@@ -20,7 +20,7 @@ from .fields import (
     posted,
     show,
 )
-from .shared import shared
+from .shared import per_design
 from .vocabulary import AIMS, DECISION_RULES, MAX_N, SEED_LIMIT, cell_of
 
 
@@ -206,9 +206,15 @@ class SimulationSchema(Strict):
         super().__init__(**kwargs)
 
 
+@per_design
+def simulation_schema(design: Any) -> SimulationSchema:
+    """The shared simulation schema of a cell (None: the cell is unknown)."""
+    return SimulationSchema(design=design)
+
+
 class SimulationField(Obj):
     """The ``simulation`` block, validated against the question's cell."""
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
         self.check_object(value)
-        return shared(SimulationSchema, design=cell_of(data)).load(value)
+        return simulation_schema(cell_of(data)).load(value)

@@ -4,12 +4,10 @@ One generic pass per question, driven by the design's declarations:
 
 1. each block is loaded through the schema generated from its fields (types, ranges, choices,
    unknown keys — a key declared in another block of the cell is pointed there);
-2. requiredness: a field with a default is optional; the design's ``forms`` are the accepted
-   alternative sets (``sd`` or ``sd_control`` + ``sd_treatment``) and the posted fields must
-   match one of them; a declared field in no form is always required; the ``solved`` field is
-   required, except that find = effect solves it (it must then be absent) and a posted
-   simulation data model may imply it (as it may imply the fields the design says it implies);
-3. when all of that holds, the design's pure ``validate`` gives the cross-field rules.
+2. the design's pure ``validate`` then decides requiredness from its ``forms`` (``sd``, or
+   ``sd_control`` + ``sd_treatment``), ``find`` (which solves the ``solved`` field) and a posted
+   data model (which implies some fields), and applies the cell's cross-field rules; its
+   "is required" messages gain what the field allows.
 
 The normalized blocks keep what was posted and add the declared defaults.
 """
@@ -24,12 +22,6 @@ from marshmallow import ValidationError
 from . import declared
 from .fields import got, show
 from .vocabulary import BLOCKS
-
-
-def implied_fields(design: Any) -> frozenset[str]:
-    """Fields a posted simulation data model states for this design (engine/implied.py)."""
-    sim = getattr(design, "simulation", None)
-    return frozenset(getattr(sim, "implied", ()) or ())
 
 
 def field_map(design: Any) -> dict[str, Any]:
@@ -93,97 +85,44 @@ class Cell:
             return f"{message}; {key} belongs in {other.block}"
         return message
 
-    def posted(self) -> set[str]:
-        """Names of the declared fields posted with a non-null value (valid or not)."""
-        out = set()
-        for block in BLOCKS:
-            value = self.raw.get(block)
-            if isinstance(value, Mapping):
-                out |= {
-                    k
-                    for k, v in value.items()
-                    if v is not None and k in self.fields and self.fields[k].block == block
-                }
-        return out
-
-    # -- 2. requiredness --------------------------------------------------------------------
-
-    def check_forms(self) -> None:
-        """Required, forbidden and alternative fields, by the design's forms."""
-        solved = self.design.solved
-        posted = self.posted()
-        forms = [frozenset(f) for f in self.design.forms]
-        in_forms = frozenset().union(*forms) if forms else frozenset()
-        optional = {n for n, f in self.fields.items() if f.default is not None}
-        spared = implied_fields(self.design) | {solved} if self.from_data else set()
-        if self.find == "effect":
-            self._solved_is_absent(posted)
-            with_solved = [f for f in forms if solved in f]
-            if with_solved:
-                # The other forms would fix the effect (group means): not offered here.
-                kept = [f - {solved} for f in with_solved]
-                for name in sorted((in_forms - frozenset().union(*kept)) & posted - {solved}):
-                    self.add(
-                        name,
-                        f"cannot be given when find = effect ({solved} is solved for; give "
-                        f"{_forms_text(kept)}); got {show(self._value(name))}",
-                    )
-                forms = kept
-            else:
-                forms = [f - {solved} for f in forms]
-            in_forms = frozenset().union(*forms) if forms else frozenset()
-        elif solved not in in_forms and solved not in posted and solved not in spared:
-            self.add(solved, declared.required_message(self.fields[solved]))
-        always = set(self.fields) - in_forms - optional - {solved}
-        for name in sorted(always - posted - spared):
-            self.add(name, declared.required_message(self.fields[name]))
-        if forms:
-            self._one_form(forms, posted & in_forms, spared)
-
-    def _solved_is_absent(self, posted: set[str]) -> None:
-        solved = self.design.solved
-        if solved in posted:
-            self.add(
-                solved,
-                f"is solved for when find = effect; remove it; got {show(self._value(solved))}",
-            )
-
-    def _one_form(self, forms: list[frozenset], given: set[str], spared: set[str]) -> None:
-        if any(given == f for f in forms) or (self.from_data and not given):
-            return
-
-        def score(item: tuple[int, frozenset]) -> tuple[int, int]:
-            index, form = item
-            return (len(form & given) - len(given - form), -index)
-
-        best = max(enumerate(forms), key=score)[1]
-        others = [f for f in forms if f != best]
-        extra = sorted(given - best)
-        for name in sorted(best - given - spared):
-            hint = f" (or give {_forms_text(others)})" if others and not extra else ""
-            self.add(name, declared.required_message(self.fields[name]) + hint)
-        for name in extra:
-            self.add(
-                name,
-                f"give {_forms_text(forms)}, not several of these; got {show(self._value(name))}",
-            )
-
-    def _value(self, name: str) -> Any:
-        return (self.raw.get(self.fields[name].block) or {}).get(name)
-
-    # -- 3. the design's own rules and the normalized blocks ---------------------------------
+    # -- 2. the design's own rules and the normalized blocks ---------------------------------
 
     def check(self) -> None:
-        """Run every check; the design's ``validate`` only once the fields themselves hold."""
+        """Types and ranges, then the design's ``validate`` on the values that passed them
+        (a field that failed its own check is reported there only)."""
         self.load_blocks()
-        self.check_forms()
-        if self.errors:
-            return
-        for where, messages in (
-            self.design.validate(self.blocks(), self.find, self.from_data) or {}
-        ).items():
+        failed = set(self.errors)
+        found = self.design.validate(self.loaded, self.find, self.from_data) or {}
+        for where, messages in found.items():
+            if where in failed:
+                continue
             for message in messages:
-                self.add(where, message)
+                self.add(where, self._allowed_named(where, message))
+
+    def _allowed_named(self, where: str, message: str) -> str:
+        # Messages say what is allowed and echo what was posted: "is required: a number > 0
+        # (or give control_hazard)", "is solved for when find = effect; remove it; got 0.5".
+        name = where.rsplit(".", 1)[-1]
+        if name not in self.fields:
+            return message
+        if message.startswith("is required"):
+            rest = message[len("is required") :] or self._alternative(name)
+            return f"is required: {declared.allowed(self.fields[name])}{rest}"
+        value = self._value(name)
+        if value is not None and "got" not in message:
+            return f"{message}; got {show(value)}"
+        return message
+
+    def _alternative(self, name: str) -> str:
+        """' (or give x)': the fields of the other forms that stand in for ``name``."""
+        mine = {n for form in self.design.forms if name in form for n in form}
+        others = [n for form in self.design.forms if name not in form for n in form]
+        instead = [n for n in dict.fromkeys(others) if n not in mine]
+        return f" (or give {' + '.join(instead)})" if mine and instead else ""
+
+    def _value(self, name: str) -> Any:
+        block = self.raw.get(self.fields[name].block)
+        return block.get(name) if isinstance(block, Mapping) else None
 
     def blocks(self) -> dict[str, dict]:
         """The normalized blocks: what was posted, plus the declared defaults."""
@@ -192,11 +131,6 @@ class Cell:
             if f.default is not None and name not in out[f.block]:
                 out[f.block][name] = f.default
         return out
-
-
-def _forms_text(forms: list[frozenset]) -> str:
-    texts = [" + ".join(sorted(f)) for f in forms if f]
-    return ", or ".join(texts) if texts else "nothing"
 
 
 def _flat(messages: Any, prefix: str = "") -> dict[str, list[str]]:

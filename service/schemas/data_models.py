@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from functools import lru_cache
 from typing import Any
 
 from marshmallow import Schema, ValidationError, fields, validates_schema
@@ -27,7 +26,7 @@ from .fields import (
     number_text,
     show,
 )
-from .shared import shared
+from .shared import per_design, shared
 
 # Parameter name -> (interval, description). Order is the documented order.
 FAMILY_PARAMS: dict[str, dict[str, tuple[Interval, str]]] = {
@@ -66,16 +65,9 @@ FAMILY_PARAMS: dict[str, dict[str, tuple[Interval, str]]] = {
 }
 FAMILIES = tuple(FAMILY_PARAMS)
 CONTINUOUS_AND_COUNT = tuple(f for f in FAMILIES if f != "bernoulli")
-# What a data model looks like follows from the cell's words, not from a design name: its keys
-# from the layout (VOCAB §4), its families from the outcome. A design's simulation model may
-# say otherwise (``data_keys``, ``families``); an outcome with no families takes no data model
-# (association pairs are drawn bivariate normal from r).
-LAYOUT_DATA_KEYS: dict[str, tuple[str, ...]] = {
-    "two_groups": ("control", "treatment"),
-    "k_groups": ("groups",),
-    "single_group": ("group",),
-    "paired": ("differences",),
-}
+# A data model's keys come from the design's simulation model (``data_keys``); the families it
+# may use follow from the outcome's word (binary outcomes are Bernoulli draws, event times
+# Weibull or exponential), unless the simulation model lists its own (``families``).
 OUTCOME_FAMILIES: dict[str, tuple[str, ...]] = {
     "binary": ("bernoulli",),
     "time_to_event": ("weibull", "exponential"),
@@ -94,11 +86,7 @@ def families_for(design: Any) -> tuple[str, ...]:
 
 def data_keys(design: Any) -> tuple[str, ...]:
     """The keys of a cell's data model: control/treatment, groups, group or differences."""
-    sim = getattr(design, "simulation", None)
-    declared = getattr(sim, "data_keys", None)
-    if declared is not None:
-        return tuple(declared)
-    return LAYOUT_DATA_KEYS.get(design.layout, ())
+    return tuple(getattr(getattr(design, "simulation", None), "data_keys", ()) or ())
 
 
 def takes_data(design: Any) -> bool:
@@ -191,7 +179,7 @@ class DistributionList(fields.List):
         return super()._deserialize(value, attr, data, **kwargs)
 
 
-@lru_cache(maxsize=256)
+@per_design
 def data_schema(design: Any) -> Schema | None:
     """The shared schema of a cell's data model, or None when the cell takes none."""
     if not takes_data(design):

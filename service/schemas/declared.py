@@ -9,13 +9,13 @@ posted data model, and ``cell.py`` decides it.
 
 from __future__ import annotations
 
-from functools import lru_cache
 from typing import Any
 
 from marshmallow import Schema
 from marshmallow import fields as mfields
 
 from .fields import Choice, Flag, Interval, Number, NumberList, Strict, Whole
+from .shared import per_design
 
 
 def interval(field: Any) -> Interval:
@@ -55,7 +55,7 @@ def block_fields(design: Any, block: str) -> tuple:
     return tuple(f for f in design.fields if f.block == block)
 
 
-@lru_cache(maxsize=256)
+@per_design
 def block_schema(design: Any, block: str) -> Schema:
     """The shared schema instance of one block of a design (designs are frozen: hashable)."""
     spec = {f.name: marshmallow_field(f) for f in block_fields(design, block)}

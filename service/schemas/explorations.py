@@ -1,109 +1,16 @@
-"""Explorations of a request: the one body item, the stored row as the API shows it, and its price.
+"""The price of an exploration: checked against its question, its draws estimated, its budget.
 
 An exploration follows up a computed request: a sensitivity grid re-solves the question at
 every combination of listed values; a robustness panel simulates the planned test under
-departures from the planned data. One item shape serves both places it is posted:
-
-    {"type": "sensitivity_grid", "grid": {"effect.difference": [4, 5, 6], ...}}
-    {"type": "robustness_panel", "replicates": 5000}        # replicates optional
-
-``POST /v1/requests/{id}/explorations`` takes one item; ``POST /v1/requests`` takes a list of
-them under ``explorations``. :func:`price` checks an item against the normalized question and
-estimates its draws, for both.
+departures from the planned data. Its body item (``requests.ExplorationCreateSchema``) is the
+same posted with a request or later; :func:`price` is the one check of both paths (the API
+view stores what it returns), and :func:`budget_refusal` the one wording of the per-simulation
+budget (submission, explorations, the worker).
 """
 
 from __future__ import annotations
 
 from typing import Any
-
-from marshmallow import ValidationError, fields, validate, validates_schema
-
-from service.store.models import EXPLORATION_STATUSES, EXPLORATION_TYPES
-
-from .fields import Choice, Interval, Strict, Whole
-
-TYPES = tuple(EXPLORATION_TYPES)
-MAX_ITEMS = 10  # explorations posted with one request
-
-GRID_DESCRIPTION = (
-    "Dotted field path of the question -> list of values, e.g. "
-    '{"effect.difference": [4, 5, 6], "adjustments.dropout": [0.1, 0.2]}; at most 3 axes and '
-    "400 cells."
-)
-
-
-class GridField(fields.Dict):
-    """A sensitivity grid: field path -> list of values (checked against the question later)."""
-
-    def __init__(self, **kwargs: Any):
-        super().__init__(
-            keys=fields.String(validate=validate.Length(1, 100)),
-            values=fields.List(fields.Raw(), validate=validate.Length(min=1, max=400)),
-            metadata={"description": GRID_DESCRIPTION},
-            **kwargs,
-        )
-
-
-class ExplorationItemSchema(Strict):
-    """One exploration to run once the request is computed."""
-
-    type = Choice(TYPES, required=True, description="What to explore.")
-    grid = GridField()
-    replicates = Whole(
-        Interval(200, 2_000_000),
-        description="robustness_panel only: replicates per data model (default: the request's).",
-    )
-
-    @validates_schema(skip_on_field_errors=True)
-    def fields_fit_the_type(self, data: dict, **_kwargs: Any) -> None:
-        """A sensitivity grid needs a grid; a robustness panel takes none."""
-        kind = data.get("type")
-        if kind == "sensitivity_grid" and "grid" not in data:
-            raise ValidationError("required for type 'sensitivity_grid'", "grid")
-        if kind == "sensitivity_grid" and data.get("replicates") is not None:
-            raise ValidationError(
-                "only for type 'robustness_panel'; a grid uses the request's", "replicates"
-            )
-        if kind == "robustness_panel" and "grid" in data:
-            raise ValidationError("only for type 'sensitivity_grid'", "grid")
-
-
-class ExplorationSchema(Strict):
-    """A sensitivity grid or robustness panel of a request, and its result when done."""
-
-    id = fields.String()
-    request_id = fields.String()
-    type = fields.String(validate=validate.OneOf(TYPES))
-    params = fields.Dict()
-    status = fields.String(validate=validate.OneOf(EXPLORATION_STATUSES))
-    requested_by = fields.String()
-    created_at = fields.AwareDateTime()
-    published_at = fields.AwareDateTime(allow_none=True)
-    attempts = fields.Integer()
-    result = fields.Dict(allow_none=True)
-    error = fields.String(allow_none=True)
-    finished_at = fields.AwareDateTime(allow_none=True)
-
-
-class ExplorationListSchema(Strict):
-    """GET /v1/requests/{id}/explorations."""
-
-    items = fields.List(fields.Nested(ExplorationSchema))
-
-
-class ExplorationsField(fields.List):
-    """``explorations`` of a request body: a list of items (at most MAX_ITEMS)."""
-
-    def __init__(self, **kwargs: Any):
-        super().__init__(
-            fields.Nested(ExplorationItemSchema),
-            validate=validate.Length(max=MAX_ITEMS),
-            metadata={
-                "description": "Explorations computed once the request is (sensitivity grids, "
-                "robustness panels); each item as in POST /v1/requests/{id}/explorations."
-            },
-            **kwargs,
-        )
 
 
 class ExplorationRefused(Exception):
@@ -168,10 +75,10 @@ def price(
     ``replicates``).
     """
     from service.engine import QuestionError
-    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
+    from service.engine.explore import ROBUSTNESS_REPLICATES, exploration_cost, robustness_refusal
 
-    kind = EXPLORATION_TYPES[item["type"]]
-    if kind == "robustness":
+    kind = item["type"]
+    if kind == "robustness_panel":
         message = robustness_refusal(question)
         if message is not None:
             raise ExplorationRefused(message, {"type": [message]})
@@ -189,12 +96,12 @@ def price(
         field = "grid"
         _refuse_extreme_cells(item["grid"])
     try:
-        estimate = int(analysis_cost(kind, params, question, record))
+        estimate = int(exploration_cost(kind, params, question, record))
     except QuestionError as exc:
         key = (
             exc.field
             if exc.field.startswith("grid")
-            else ("type" if kind == "robustness" else "grid")
+            else ("type" if kind == "robustness_panel" else "grid")
         )
         raise ExplorationRefused(str(exc), {key: [exc.message]}) from None
     message = budget_refusal(estimate, budget) if budget is not None else None
@@ -203,7 +110,7 @@ def price(
     return params, estimate
 
 
-def exploration_errors(question: dict, items: list[dict], budget: int | None) -> dict:
+def price_errors(question: dict, items: list[dict], budget: int | None) -> dict:
     """Field-keyed errors (``<index>.<field>``) of the explorations posted with a request."""
     q = question
     if q.get("method") == "simulation" and (q.get("simulation") or {}).get("seed") is None:

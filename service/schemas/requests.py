@@ -1,7 +1,9 @@
 """API schemas for study requests: the submission body, the stored record and list filters.
 
 The ``question`` member is validated by ``service.schemas.question.load_question``; its errors
-come back keyed under ``question.`` (``question.effect.sd``), like every other field path.
+come back keyed under ``question.`` (``question.assumptions.sd``), like every other field path.
+An exploration (sensitivity grid, robustness panel) has one body shape, ``ExplorationCreateSchema``,
+whether it comes in a request's ``explorations`` list or later on its own.
 """
 
 from __future__ import annotations
@@ -10,11 +12,15 @@ from typing import Any
 
 from marshmallow import Schema, ValidationError, fields, post_load, validate, validates_schema
 
-from service.engine import DESIGN_NAMES
 from service.schemas.errors import QuestionInvalid
-from service.schemas.explorations import ExplorationSchema, ExplorationsField, exploration_errors
+from service.schemas.explorations import price_errors
 from service.schemas.question import load_question
-from service.store.models import REQUEST_STATUSES, RERUN_STATUSES
+from service.store.models import (
+    EXPLORATION_STATUSES,
+    EXPLORATION_TYPES,
+    REQUEST_STATUSES,
+    RERUN_STATUSES,
+)
 
 ID_PATTERN = r"^[0-9a-f]{32}$"
 
@@ -75,7 +81,12 @@ INT_ERRORS = {"invalid": Echo("must be a whole number; got {input!r}")}
 
 
 class QuestionField(fields.Dict):
-    """A raw question object, validated and normalized by ``load_question``."""
+    """A raw question object, validated and normalized by ``load_question``; the OpenAPI
+    document points it at the generated Question component (``x-question``)."""
+
+    def __init__(self, **kwargs):
+        kwargs["metadata"] = {**kwargs.get("metadata", {}), "x-question": True}
+        super().__init__(**kwargs)
 
     def _deserialize(self, value, attr, data, **kwargs) -> dict:
         raw = super()._deserialize(value, attr, data, **kwargs)
@@ -112,6 +123,59 @@ class RequesterSchema(StrictSchema):
     department = fields.String(required=True, allow_none=True, validate=length(1, 200))
 
 
+GRID_DESCRIPTION = (
+    "Dotted path of the question -> list of values, e.g. "
+    '{"effect.difference": [4, 5, 6], "assumptions.sd": [10, 12], "adjustments.dropout": '
+    "[0.1, 0.2]}; at most 3 axes and 400 cells."
+)
+
+
+class GridField(fields.Dict):
+    """A sensitivity grid: field path -> list of values (checked against the question later)."""
+
+    def __init__(self, **kwargs):
+        super().__init__(
+            keys=fields.String(validate=length(1, 100)),
+            values=fields.List(fields.Raw(), validate=validate.Length(min=1, max=400)),
+            metadata={"description": GRID_DESCRIPTION},
+            **kwargs,
+        )
+
+
+class ExplorationCreateSchema(StrictSchema):
+    """One exploration of a request: a sensitivity grid or a robustness panel. The same item is
+    posted in a request's ``explorations`` list and to POST /v1/requests/{id}/explorations."""
+
+    type = fields.String(
+        required=True,
+        validate=one_of(tuple(EXPLORATION_TYPES)),
+        metadata={"description": "sensitivity_grid or robustness_panel"},
+    )
+    grid = GridField()
+    replicates = fields.Integer(
+        validate=in_range(200, 2_000_000),
+        error_messages=INT_ERRORS,
+        metadata={
+            "description": "robustness_panel only: replicates per data model (default: the "
+            "request's, or 5,000 for an analytic request)"
+        },
+    )
+
+    @validates_schema
+    def fields_fit_the_type(self, data: dict, **_kwargs) -> None:
+        """A sensitivity grid needs a grid; a robustness panel takes none."""
+        kind = data.get("type")
+        if kind == "sensitivity_grid" and "grid" not in data:
+            raise ValidationError("is required for type sensitivity_grid", "grid")
+        if kind == "sensitivity_grid" and "replicates" in data:
+            raise ValidationError(
+                "applies to type robustness_panel only; a grid uses the request's replicates",
+                "replicates",
+            )
+        if kind == "robustness_panel" and "grid" in data:
+            raise ValidationError("applies to type sensitivity_grid only", "grid")
+
+
 def _budget() -> int | None:
     """The per-simulation budget of the running app (None outside one, e.g. in the CLI)."""
     from flask import current_app, has_app_context
@@ -119,6 +183,11 @@ def _budget() -> int | None:
     if not has_app_context():
         return None
     return int(current_app.extensions["sizewise"]["config"]["SIMULATION_BUDGET"])
+
+
+def exploration_errors(question: dict, items: list[dict]) -> dict[str, list[str]]:
+    """Field-keyed errors of the explorations asked for with ``question`` (``3.grid.alpha``)."""
+    return price_errors(question, items, _budget())
 
 
 class RequestCreateSchema(StrictSchema):
@@ -134,7 +203,7 @@ class RequestCreateSchema(StrictSchema):
     notes = fields.String(allow_none=True, validate=validate.Length(max=5000))
     question = QuestionField(
         required=True,
-        metadata={"description": "The sample-size question; see GET /v1/designs."},
+        metadata={"description": "The sample-size question; see GET /v1/catalogue."},
     )
     effect_source = fields.String(
         allow_none=True,
@@ -144,12 +213,19 @@ class RequestCreateSchema(StrictSchema):
             "justification (e.g. 'SD from the 2024 audit of clinic visits')."
         },
     )
-    explorations = ExplorationsField()
+    explorations = fields.List(
+        fields.Nested(ExplorationCreateSchema),
+        validate=validate.Length(max=10, error="must list at most {max} explorations"),
+        metadata={
+            "description": "Explorations computed once the request is answered (sensitivity "
+            "grids, robustness panels), each shaped as for POST /v1/requests/{id}/explorations."
+        },
+    )
 
     @validates_schema(skip_on_field_errors=True)
     def explorations_fit_the_question(self, data: dict, **_kwargs) -> None:
-        """Check the asked-for explorations against the normalized question (paths, values, cell)."""
-        errors = exploration_errors(data["question"], data.get("explorations") or [], _budget())
+        """Check the asked-for explorations against the normalized question (paths, cost)."""
+        errors = exploration_errors(data["question"], data.get("explorations") or [])
         if errors:
             raise ValidationError({f"explorations.{k}": v for k, v in errors.items()})
 
@@ -161,9 +237,35 @@ class RequestCreateSchema(StrictSchema):
 
 
 class CalculationCreateSchema(StrictSchema):
-    """Body of POST /v1/calculations: one analytic question."""
+    """Body of POST /v1/calculations: one analytic question, the same document as a request's
+    ``question`` and ``sizewise compute FILE``."""
 
-    question = QuestionField(required=True)
+    question = QuestionField(
+        required=True, metadata={"description": "The question; see GET /v1/catalogue."}
+    )
+
+
+class ExplorationSchema(StrictSchema):
+    """A sensitivity grid or robustness panel of a request, and its result when done."""
+
+    id = fields.String()
+    request_id = fields.String()
+    type = fields.String(validate=one_of(tuple(EXPLORATION_TYPES)))
+    params = fields.Dict()
+    status = fields.String(validate=one_of(EXPLORATION_STATUSES))
+    requested_by = fields.String()
+    created_at = fields.AwareDateTime()
+    published_at = fields.AwareDateTime(allow_none=True)
+    attempts = fields.Integer()
+    result = fields.Dict(allow_none=True)
+    error = fields.String(allow_none=True)
+    finished_at = fields.AwareDateTime(allow_none=True)
+
+
+class ExplorationListSchema(StrictSchema):
+    """GET /v1/requests/{id}/explorations."""
+
+    items = fields.List(fields.Nested(ExplorationSchema))
 
 
 class ReportLinkSchema(StrictSchema):
@@ -225,7 +327,8 @@ class RequestSchema(StrictSchema):
     requester = fields.Dict()
     deadline = fields.Date(allow_none=True)
     notes = fields.String(allow_none=True)
-    design = fields.String()
+    outcome = fields.String()
+    layout = fields.String()
     method = fields.String()
     seed = fields.Integer(allow_none=True)
     question = fields.Dict(metadata={"description": "Normalized question, seed filled in."})
@@ -274,7 +377,12 @@ class RequestQueryArgsSchema(StrictSchema):
     requester = fields.Email(
         error_messages=EMAIL_ERRORS, metadata={"description": "The requester's e-mail address."}
     )
-    design = fields.String(validate=one_of(DESIGN_NAMES))
+    outcome = fields.String(
+        validate=length(1, 40), metadata={"description": "The cell's outcome, e.g. continuous."}
+    )
+    layout = fields.String(
+        validate=length(1, 40), metadata={"description": "The cell's layout, e.g. two_groups."}
+    )
     submitted_from = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "First UTC day, inclusive."}
     )

@@ -11,6 +11,8 @@ from typing import Any
 
 from service.engine import direction as engine_direction
 from service.engine.adjust import split_total
+from service.engine.errors import QuestionError
+from service.engine.models import check_arm
 
 from .fields import posted
 from .shared import shared
@@ -79,16 +81,16 @@ def _hypothesis_default() -> dict:
 
 def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
     """The normalized question (VOCAB §1): what was posted, every default filled in."""
-    from .blocks import AdjustmentsSchema, SimulationSchema
+    from .blocks import AdjustmentsSchema, simulation_schema
 
     find = data.get("find") or "sample_size"
-    hyp = dict(data.get("hypothesis") or _hypothesis_default())
+    hyp = {**_hypothesis_default(), **(data.get("hypothesis") or {})}
     aim = hyp["aim"]
     how = method(design, data, raw, blocks)
     alternative = data.get("alternative") or ("two-sided" if aim == "superiority" else "one-sided")
     sim = data.get("simulation") if how == "simulation" else None
     if how == "simulation" and sim is None:
-        sim = shared(SimulationSchema, design=design).load({})
+        sim = simulation_schema(design).load({})
     q = {
         "outcome": design.outcome,
         "layout": design.layout,
@@ -133,7 +135,7 @@ def group_count(design: Any, q: dict) -> int | None:
     """The number of groups of the (checked) question, or None when it cannot be told yet."""
     try:
         return int(design.groups(q))
-    except (KeyError, TypeError, ValueError):
+    except (KeyError, TypeError, ValueError, QuestionError):
         return None
 
 
@@ -160,4 +162,11 @@ def _implied(design: Any, q: dict) -> float | None:
     data = (q.get("simulation") or {}).get("data")
     if q.get("method") != "simulation" or not isinstance(data, Mapping):
         return None
-    return engine_direction.implied_from_data(design, data)
+    keys = getattr(design.simulation, "data_keys", ())
+    try:
+        if keys == ("groups",):
+            return None  # k groups have no one-sided direction
+        models = [check_arm(dict(data[k]), f"simulation.data.{k}") for k in keys]
+        return engine_direction.implied(design, models)
+    except (KeyError, TypeError, ValueError, ArithmeticError, QuestionError):
+        return None  # an invalid data model is reported by its own checks

@@ -57,10 +57,8 @@ def cell_of(data: Any) -> Any | None:
     outcome, layout = data.get("outcome"), data.get("layout")
     if not isinstance(outcome, str) or not isinstance(layout, str):
         return None
-    try:
-        return designs.get(outcome, layout)
-    except KeyError:
-        return None
+    found = [d for d in cells() if d.outcome == outcome and d.layout == layout]
+    return found[0] if found else None
 
 
 def valid_find(data: Any) -> str:

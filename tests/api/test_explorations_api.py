@@ -181,13 +181,13 @@ def test_an_exploration_of_a_request_not_yet_computed_waits_unpublished(api):
         (
             {"type": "robustness_panel", "grid": {"alpha": [0.05]}},
             "grid",
-            "only for type 'sensitivity_grid'",
+            "applies to type sensitivity_grid only",
         ),
         ({"type": "robustness_panel", "replicates": 10}, "replicates", "got 10"),
         (
             {"type": "sensitivity_grid", "grid": {"alpha": [0.05]}, "replicates": 500},
             "replicates",
-            "only for type 'robustness_panel'",
+            "applies to type robustness_panel only",
         ),
         (
             {"type": "sensitivity_grid", "grid": {"simulation.seed": [1]}},

@@ -255,6 +255,7 @@ def test_noninferiority_names_the_margin():
         effect={"difference": 0.05},
         assumptions={"sd": 0.1},
         alternative="one-sided",
+        alpha=0.05,
         hypothesis={"aim": "noninferiority", "margin": -0.05},
     )
     text = justification(record)

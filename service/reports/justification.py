@@ -111,10 +111,10 @@ def _one_sided_words(q: dict) -> str:
 
 
 def _alpha(q: dict, steps: list[dict]) -> str:
-    sides = "" if is_omnibus(q) else f"{q.get('alternative', 'two-sided')} "
-    text = f"a {sides}significance level of {fmt_num(q['alpha'])}"
+    alternative = "" if is_omnibus(q) else f"{q.get('alternative', 'two-sided')} "
+    text = f"a {alternative}significance level of {fmt_num(q['alpha'])}"
     aim = (q.get("hypothesis") or {}).get("aim", "superiority")
-    if sides == "one-sided " and aim == "superiority":
+    if alternative == "one-sided " and aim == "superiority":
         text += f" (the alternative: {_one_sided_words(q)})"
     for step in steps:
         if step["step"] == "bonferroni":

@@ -158,11 +158,11 @@ def _curve_title(record: dict, x_label: str) -> str:
 def _curve_assumptions(record: dict) -> list[str]:
     """The lines under the title: design and analysis, the test's level, the assumed values."""
     q = record["question"]
-    sides = "" if describe.is_omnibus(q) else f", {q.get('alternative', 'two-sided')}"
+    alternative = "" if describe.is_omnibus(q) else f", {q.get('alternative', 'two-sided')}"
     how = "Monte Carlo simulation" if q.get("method") == "simulation" else "analytic"
     lines = [
         f"{describe.cell_label(q)}; {describe.analysis_label(q, record)} ({how}); "
-        f"alpha {describe.fmt_num(q['alpha'])}{sides}",
+        f"alpha {describe.fmt_num(q['alpha'])}{alternative}",
         f"Assuming {describe.assumed_text(_power_question(record), record)}",
     ]
     adjustments = []

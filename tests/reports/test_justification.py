@@ -246,7 +246,7 @@ def test_other_cells(posted, pieces):
         assert piece in text, piece
     _assert_no_foreign_numbers(text, record)
     if posted.get("layout") == "k_groups":
-        assert "two-sided" not in text  # the F test has no sides
+        assert "two-sided" not in text  # the F test has no direction
 
 
 def test_noninferiority_names_the_margin():

@@ -23,6 +23,7 @@ import matplotlib
 matplotlib.use("Agg")  # no display on servers and workers; must precede any pyplot import
 
 from matplotlib.figure import Figure  # noqa: E402  (after the backend is chosen)
+from matplotlib.ticker import PercentFormatter  # noqa: E402
 
 from service.engine import QuestionError, compute  # noqa: E402
 
@@ -254,6 +255,7 @@ def _figure(points: dict) -> Figure:
     ax.set_xlabel(points["x_label"], color=_INK)
     ax.set_ylabel("Power", color=_INK)
     ax.set_ylim(0, 1.02)
+    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
     ax.grid(True, color="#d5dbe1", lw=0.6)
     ax.tick_params(colors=_INK)
     for side in ("top", "right"):
@@ -342,6 +344,7 @@ def sensitivity_svg(grid_result: dict, question: dict | None = None) -> str:
     ax.set_ylabel(data["y_label"], color=_INK)
     if data["y_label"] == "Power":
         ax.set_ylim(0, 1.02)
+        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
     ax.grid(True, color="#d5dbe1", lw=0.6)
     ax.tick_params(colors=_INK)
     for side in ("top", "right"):

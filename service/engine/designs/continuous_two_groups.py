@@ -109,7 +109,8 @@ validate = make_validate(FIELDS, FORMS, "difference", MODEL_FIELDS)
 
 def sds(q: dict) -> tuple[float, float]:
     """Return (sd_control, sd_treatment): the common sd twice, or the two posted SDs."""
-    if values(q, FIELDS).get("sd") is not None:
+    v = values(q, FIELDS)
+    if v.get("sd") is not None or (v.get("sd_control") is None and v.get("sd_treatment") is None):
         sd = number(q, FIELDS, "sd")
         return sd, sd
     return number(q, FIELDS, "sd_control"), number(q, FIELDS, "sd_treatment")

@@ -323,7 +323,8 @@ def _rank_sum_power_q(**simulation):
         target_power=None,
         method="simulation",
         per_group=[60, 60],
-        simulation={"test": "rank_sum", "data": STAY, "replicates": 400, "seed": 11, **simulation},
+        analysis="rank_sum",
+        simulation={"data": STAY, "replicates": 400, "seed": 11, **simulation},
     )
     q["effect"] = {}  # the data model implies P(Y > X); a different posted value is refused
     return q

@@ -50,7 +50,8 @@ def test_fisher_below_alpha_is_conservative_not_a_failure():
         effect={"p_treatment": 0.6},
         assumptions={"p_control": 0.3},
         per_group=(40, 40),
-        simulation={"test": "fisher_exact", "replicates": 4000, "seed": 11},
+        analysis="fisher_exact",
+        simulation={"replicates": 4000, "seed": 11},
     )
     record = compute(q)
     t1 = record["type_i_error"]
@@ -84,7 +85,8 @@ def test_a_liberal_test_exceeds_and_warns():
         effect={"difference": 0.5},
         assumptions={"sd_control": 1.0, "sd_treatment": 2.0},
         per_group=(60, 20),
-        simulation={"test": "student_t", "replicates": 4000, "seed": 3},
+        analysis="pooled_t",
+        simulation={"replicates": 4000, "seed": 3},
     )
     record = compute(q)
     assert record["type_i_error"]["verdict"] == "exceeds"

@@ -31,11 +31,11 @@ from service.store.db import session_scope
 from service.store.models import ApiToken
 
 from . import render
-from .analyses import store_submission
 from .auth import charge, check_submission_cost
 from .context import sessions, settings
 from .docs import operation
 from .errors import ApiError, Conflict, NotFound, ValidationFailed
+from .explorations import store_submission
 from .feasibility import check_computable
 from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
@@ -165,10 +165,10 @@ def submit_request():
                 idempotency_key=key,
                 body_sha256=digest,
             )
-            # The effect source and analyses asked for with the request are part of the same row set.
-            analyses = store_submission(session, row, data, actor)
+            # The effect source and explorations asked for with the request are one row set.
+            explorations = store_submission(session, row, data, actor)
             # Budget check and reservation in the transaction that stores the work: all or nothing.
-            charge(session, [("request", row.id, estimate), *analyses])
+            charge(session, [("request", row.id, estimate), *explorations])
             request_id = row.id
     except IntegrityError:
         if key is None:

@@ -12,7 +12,13 @@ from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Request
 
-QUESTION = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1.0}}
+QUESTION = {
+    "outcome": "continuous",
+    "layout": "two_groups",
+    "find": "sample_size",
+    "effect": {"difference": 0.5},
+    "assumptions": {"sd": 1.0},
+}
 
 
 def _computed(api) -> str:
@@ -46,6 +52,9 @@ def test_curve_svg_and_png(client, api):
     root = ET.fromstring(svg.get_data(as_text=True))
     gids = {el.get("id") for el in root.iter()}
     assert {"target-line", "chosen-n"} <= gids
+    # the standalone drawing says what it shows and under which assumptions
+    drawn = " ".join(" ".join(root.itertext()).split())
+    assert "with the chosen size marked" in drawn and "Continuous outcome, two groups" in drawn
     png = client.get(f"/v1/requests/{request_id}/curve.png")
     assert png.status_code == 200 and png.data[:8] == b"\x89PNG\r\n\x1a\n"
 
@@ -64,6 +73,7 @@ def test_staff_list_shows_status(client, api):
     assert r.status_code == 200 and r.mimetype == "text/html"
     page = r.get_data(as_text=True)
     assert request_id in page and "computed" in page
+    assert "Continuous outcome, two groups" in page and "two_groups" not in page
     assert client.get("/v1/staff/requests?status=bogus").status_code == 422
 
 
@@ -97,7 +107,7 @@ def test_a_report_link_opens_nothing_else(anon_client, api):
     token = _link(api, request_id).split("link=", 1)[1]
     for path in (
         f"/v1/requests/{request_id}",
-        f"/v1/requests/{request_id}/analyses",
+        f"/v1/requests/{request_id}/explorations",
         "/v1/requests",
     ):
         r = anon_client.get(f"{path}?link={token}")

@@ -131,16 +131,19 @@ REQUEST = {
     "notes": "Primary outcome: 6-minute walk distance at 12 weeks.",
     "effect_source": "SD from the 2024 audit of clinic visits",
     "question": {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
         "adjustments": {"dropout": 0.1, "cluster": {"mean_size": 5, "icc": 0.05}},
     },
-    "analyses": {"sensitivity": {"grid": {"effect.difference": [0.4, 0.5]}}},
+    "explorations": [{"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.5]}}],
 }
-PLAIN = {k: v for k, v in REQUEST.items() if k != "analyses"}
+PLAIN = {k: v for k, v in REQUEST.items() if k != "explorations"}
 SIMULATED = {
-    "design": "rank_sum",
+    "outcome": "ordinal",
+    "layout": "two_groups",
     "find": "power",
     "sample_size": {"total": 80},
     "method": "simulation",
@@ -160,8 +163,8 @@ BODIES = [
     ("statistician", "/v1/calculations", {"question": REQUEST["question"]}),
     (
         "statistician",
-        "/v1/requests/{id}/analyses",
-        {"kind": "sensitivity", "grid": {"alpha": [0.05, 0.01]}},
+        "/v1/requests/{id}/explorations",
+        {"type": "sensitivity_grid", "grid": {"alpha": [0.05, 0.01]}},
     ),
     ("statistician", "/v1/requests/{id}/comments", {"text": "Which SD source?"}),
     ("statistician", "/v1/requests/{id}/assign", {"to": "j.moreau"}),
@@ -269,7 +272,7 @@ def test_no_query_path_or_link_reaches_a_5xx(target):
         _check(app, lambda: client.get(f"/v1/staff/requests?{qs}", headers=statistician))
         for path in (
             f"/v1/requests/{ident}",
-            f"/v1/requests/{request_id}/analyses/{ident}",
+            f"/v1/requests/{request_id}/explorations/{ident}",
             f"/v1/requests/{request_id}/reruns/{ident}",
         ):
             _check(app, lambda p=path: client.get(p, headers=headers["intake"]))

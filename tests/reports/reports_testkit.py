@@ -1,10 +1,26 @@
-"""Invented demo inputs for the report tests; questions come from tests/engine/questions.py."""
+"""Invented demo inputs for the report tests: questions as an investigator posts them.
 
-from tests.engine.questions import EFFECTS
+Every question goes through the public normalizer (``load_question``), so the tests read the
+same vocabulary as the API, the CLI and the examples (VOCAB §1).
+"""
 
-D_HALF = EFFECTS["two_means"]  # d = 0.5
-# Control median 12 months -> hazard ln 2 / 12; accrual 24, extra follow-up 12.
-SURVIVAL = EFFECTS["survival_logrank"]
+from service.engine import compute
+from service.schemas import load_question
+
+# d = 0.5: difference 0.5 with SD 1 (Cohen 1988, Table 2.4.1: 64 per group at power .80).
+D_HALF = {"effect": {"difference": 0.5}, "assumptions": {"sd": 1.0}}
+# Control median 12 months, accrual 24 and further follow-up 12 months, HR 0.75.
+SURVIVAL = {
+    "outcome": "time_to_event",
+    "layout": "two_groups",
+    "effect": {"hazard_ratio": 0.75},
+    "assumptions": {
+        "time_unit": "months",
+        "control_median": 12.0,
+        "accrual": 24.0,
+        "follow_up": 12.0,
+    },
+}
 
 # Invented demo request (Northbridge General Hospital research office); not real data.
 REQUEST = {
@@ -24,3 +40,15 @@ REQUEST = {
     "deadline": "2025-03-31",
     "context": {"effect_source": "the Northbridge pilot study of 2023"},
 }
+
+
+def question(**posted) -> dict:
+    """The normalized question of a posted one; continuous × two groups, d = 0.5 by default."""
+    body = {"outcome": "continuous", "layout": "two_groups", "find": "sample_size", **D_HALF}
+    body.update(posted)
+    return load_question(body)
+
+
+def answer(**posted) -> dict:
+    """The engine's record for a posted question (see ``question``)."""
+    return compute(question(**posted))

@@ -15,7 +15,13 @@ from service.store import requests as store
 from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.migrate import upgrade
 
-QUESTION = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1.0}}
+QUESTION = {
+    "outcome": "continuous",
+    "layout": "two_groups",
+    "find": "sample_size",
+    "effect": {"difference": 0.5},
+    "assumptions": {"sd": 1.0},
+}
 
 
 def _sizewise(*args: str, env: dict | None = None) -> subprocess.CompletedProcess:

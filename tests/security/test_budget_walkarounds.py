@@ -1,6 +1,6 @@
-"""Budgets and limits that could be walked around: analyses, parallel submissions, calls without
+"""Budgets and limits that could be walked around: explorations, parallel submissions, calls without
 a valid token, and self-approval. Both backends (PostgreSQL locks the token row; SQLite has one
-writer). The estimates are the engine's own (``estimate_cost``, ``analysis_cost``), so each
+writer). The estimates are the engine's own (``estimate_cost``, and ``price`` of the explorations), so each
 budget below is set to fit an exact number of simulations.
 """
 
@@ -16,14 +16,14 @@ import pytest
 from sqlalchemy import func, select, update
 from werkzeug.serving import make_server
 
-from service.api.analyses import formula_record
+from service.api.explorations import counterpart_record
 from service.engine import compute, estimate_cost
-from service.engine.explore import analysis_cost
 from service.schemas import load_question
+from service.schemas.explorations import price
 from service.store import jobs
 from service.store import tokens as token_store
 from service.store.db import session_scope
-from service.store.models import Analysis, Request, TokenSpend
+from service.store.models import Exploration, Request, TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
@@ -45,26 +45,25 @@ def _count(app, model, **where) -> int:
 
 def _simulation(replicates: int = 400) -> dict:
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [30, 30]},
-        "effect": {"difference": 0.5, "sd": 1},
+        "sample_size": {"per_group": [30, 30]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1},
         "method": "simulation",
         "simulation": {"replicates": replicates, "seed": 20250611},
     }
 
 
 def _robustness_cost(question: dict) -> int:
-    q = load_question(question)
-    return analysis_cost(
-        "robustness", {"replicates": q["simulation"]["replicates"], "seed": 0}, q, None
-    )
+    return price(load_question(question), None, {"type": "robustness_panel"}, budget=None)[1]
 
 
-# --- analyses count against the hourly budget -------------------------------------------------
+# --- explorations count against the hourly budget -------------------------------------------------
 
 
-def test_analyses_attached_to_a_submission_are_charged(make_app, api):
+def test_explorations_attached_to_a_submission_are_charged(make_app, api):
     question = _simulation()
     request_cost = estimate_cost(load_question(question))
     panel_cost = _robustness_cost(question)
@@ -73,14 +72,14 @@ def test_analyses_attached_to_a_submission_are_charged(make_app, api):
     app = make_app(TOKEN_HOURLY_BUDGET=request_cost + panel_cost - 1)
     client = app.test_client()
     token_id, headers = _token(app, "intake", "a.okafor")
-    body = api.request_body(question, analyses={"robustness": True})
+    body = api.request_body(question, explorations=[{"type": "robustness_panel"}])
     r = client.post("/v1/requests", json=body, headers=headers)
     assert r.status_code == 429 and r.mimetype == PROBLEM
     problem = r.get_json()
     assert problem["estimate"] == request_cost + panel_cost
     assert problem["remaining"] == request_cost + panel_cost - 1
-    # Nothing of it was stored: no request, no analysis, no reservation.
-    assert (_count(app, Request), _count(app, Analysis), _count(app, TokenSpend)) == (0, 0, 0)
+    # Nothing of it was stored: no request, no exploration, no reservation.
+    assert (_count(app, Request), _count(app, Exploration), _count(app, TokenSpend)) == (0, 0, 0)
     # Without the panel it fits; the ledger holds exactly its estimate.
     r = client.post("/v1/requests", json=api.request_body(question), headers=headers)
     assert r.status_code == 202
@@ -89,7 +88,7 @@ def test_analyses_attached_to_a_submission_are_charged(make_app, api):
     assert rows == [("request", request_cost, token_id)]
 
 
-def test_analyses_posted_later_are_charged(make_app, api):
+def test_explorations_posted_later_are_charged(make_app, api):
     question = _simulation()
     request_cost = estimate_cost(load_question(question))
     panel_cost = _robustness_cost(question)
@@ -99,37 +98,37 @@ def test_analyses_posted_later_are_charged(make_app, api):
     statistician_id, headers = _token(app, "statistician", "j.moreau")
     r = client.post("/v1/requests", json=api.request_body(question), headers=headers)
     assert r.status_code == 202
-    path = f"/v1/requests/{r.get_json()['id']}/analyses"
-    assert client.post(path, json={"kind": "robustness"}, headers=headers).status_code == 202
-    before = _count(app, Analysis)
-    r = client.post(path, json={"kind": "robustness"}, headers=headers)
+    path = f"/v1/requests/{r.get_json()['id']}/explorations"
+    assert client.post(path, json={"type": "robustness_panel"}, headers=headers).status_code == 202
+    before = _count(app, Exploration)
+    r = client.post(path, json={"type": "robustness_panel"}, headers=headers)
     assert r.status_code == 429 and r.get_json()["remaining"] == 0
-    assert _count(app, Analysis) == before
+    assert _count(app, Exploration) == before
     assert _count(app, TokenSpend, token_id=statistician_id) == 2
     # Another statistician has a budget of their own.
     _id, other = _token(app, "statistician", "l.park")
-    assert client.post(path, json={"kind": "robustness"}, headers=other).status_code == 202
+    assert client.post(path, json={"type": "robustness_panel"}, headers=other).status_code == 202
     # A sensitivity grid over the simulated request simulates every cell: charged too.
-    grid = {"kind": "sensitivity", "grid": {"effect.difference": [0.4, 0.5, 0.6]}}
+    grid = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.5, 0.6]}}
     r = client.post(path, json=grid, headers=headers)
     assert r.status_code == 429
     # Spending older than the hour no longer counts.
     with session_scope(app.extensions["sizewise"]["sessions"]) as session:
         session.execute(update(TokenSpend).values(spent_at=utcnow() - timedelta(hours=2)))
-    assert client.post(path, json={"kind": "robustness"}, headers=headers).status_code == 202
+    assert client.post(path, json={"type": "robustness_panel"}, headers=headers).status_code == 202
 
 
 def test_panel_of_a_sample_size_question_is_priced_at_the_formula_n(make_app, api):
     question = dict(_simulation(), find="sample_size")
     question.pop("sample_size")
     q = load_question(question)
-    record = formula_record(q)
+    record = counterpart_record(q)
     assert record is not None
-    panel = analysis_cost("robustness", {"replicates": 400, "seed": 0}, q, record)
+    panel = price(q, record, {"type": "robustness_panel", "replicates": 400}, budget=None)[1]
     request_cost = estimate_cost(q)
     app = make_app(TOKEN_HOURLY_BUDGET=request_cost + panel - 1)
     _id, headers = _token(app, "intake", "a.okafor")
-    body = api.request_body(question, analyses={"robustness": True})
+    body = api.request_body(question, explorations=[{"type": "robustness_panel"}])
     r = app.test_client().post("/v1/requests", json=body, headers=headers)
     assert r.status_code == 429 and r.get_json()["estimate"] == request_cost + panel
 

@@ -60,10 +60,12 @@ def test_rate_limit_storage_is_shared_by_default(tmp_path, monkeypatch):
 
 def _simulation(replicates: int = 1000) -> dict:
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [30, 30]},
-        "effect": {"difference": 0.5, "sd": 1},
+        "sample_size": {"per_group": [30, 30]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1},
         "method": "simulation",
         "simulation": {"replicates": replicates, "seed": 20250611},
     }
@@ -95,7 +97,14 @@ def test_hourly_budget_per_token(make_app, _body):
     assert f"{estimate:,}" in body["detail"] and f"{remaining:,}" in body["detail"]
     assert 0 < int(r.headers["Retry-After"]) <= 3600
     # Analytic questions cost no draws; another token has its own budget.
-    analytic = _body({"design": "correlation", "find": "sample_size", "effect": {"r": 0.3}})
+    analytic = _body(
+        {
+            "outcome": "association",
+            "layout": "single_group",
+            "find": "sample_size",
+            "effect": {"r": 0.3},
+        }
+    )
     assert client.post("/v1/requests", json=analytic, headers=okafor).status_code == 202
     assert client.post("/v1/requests", json=_body(_simulation()), headers=park).status_code == 202
     # Spending older than an hour no longer counts.

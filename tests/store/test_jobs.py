@@ -16,7 +16,13 @@ from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.models import Request, Result
 from service.store.types import utcnow
 
-QUESTION = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1}}
+QUESTION = {
+    "outcome": "continuous",
+    "layout": "two_groups",
+    "find": "sample_size",
+    "effect": {"difference": 0.5},
+    "assumptions": {"sd": 1},
+}
 
 
 @pytest.fixture

@@ -10,9 +10,19 @@ from pathlib import Path
 import pytest
 
 REPO = Path(__file__).resolve().parents[2]
-MODULES = ("celery_app", "queue", "sweeper", "tasks", "analysis_tasks", "fanout", "sessions")
-# celery_app ← queue ← sweeper ← tasks ← analysis_tasks: a module imports only those before it.
-ORDER = ("sessions", "fanout", "celery_app", "queue", "sweeper", "tasks", "analysis_tasks")
+# sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ← exploration_tasks:
+# a module imports only those before it.
+ORDER = (
+    "sessions",
+    "fanout",
+    "celery_app",
+    "queue",
+    "running",
+    "sweeper",
+    "tasks",
+    "exploration_tasks",
+)
+MODULES = ORDER
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -14,7 +14,6 @@ from service.engine.errors import QuestionError
 from service.schemas import QuestionInvalid, load_question
 from tests.engine.questions import make_q
 
-
 TWO_GROUPS = ("continuous", "two_groups")
 BINARY = ("binary", "two_groups")
 

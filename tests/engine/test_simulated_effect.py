@@ -14,7 +14,7 @@ import math
 import pytest
 from statsmodels.stats.power import TTestIndPower
 
-from service.engine import QuestionError, compute, estimate_cost, search, simulate
+from service.engine import QuestionError, compute, estimate_cost, search
 from service.engine.designs import get
 from tests.engine.questions import make_q
 

@@ -129,7 +129,9 @@ def default_analysis(q: dict) -> str:
     data = (q.get("simulation") or {}).get("data") if q.get("method") == "simulation" else None
     if isinstance(data, dict) and isinstance(data.get("control"), dict):
         try:
-            sds = [models.moments(models.check_arm(data[k], k))[1] for k in ("control", "treatment")]
+            sds = [
+                models.moments(models.check_arm(data[k], k))[1] for k in ("control", "treatment")
+            ]
         except (QuestionError, KeyError):  # a malformed model is reported by the plan, on its path
             return "pooled_t"
         if None not in sds and abs(sds[0] - sds[1]) > 1e-12 * max(sds):

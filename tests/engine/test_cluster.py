@@ -139,7 +139,7 @@ def test_dropout_shrinks_the_analyzed_cluster_size():
     assert de["factor"] == 1.75 and de["analyzed_cluster_size"] == 16
 
 
-def test_two_proportions_with_clusters():
+def test_binary_two_groups_with_clusters():
     # formula: unpooled p(1 − p)·DE/(k·m) per group, noncentral t with 2k − 2 df
     rec = compute(
         cq(

@@ -217,7 +217,7 @@ def _exact_z_power(n1, n2, p1, p2, alpha=0.05):
     return float((w * reject).sum())
 
 
-def test_z_test_power_matches_enumeration():
+def test_pooled_z_power_matches_enumeration():
     # recomputed: exact power by full enumeration of binomial outcomes (scipy.stats.binom)
     q = question(
         BINARY,
@@ -538,7 +538,7 @@ def test_external_executor_receives_whole_batches():
         ),
         (
             lambda q: q["simulation"].update(
-                data={"sample": {"family": "normal", "mean": 0, "sd": 1}}
+                data={"group": {"family": "normal", "mean": 0, "sd": 1}}
             ),
             "simulation.data",
         ),

@@ -54,7 +54,7 @@ def formula_power(q: dict, per_group: list[int]):
     return power_at
 
 
-def test_two_means_d_at_64_per_group_is_half() -> None:
+def test_two_groups_d_at_64_per_group_is_half() -> None:
     q = effect_question(("continuous", "two_groups"), [64, 64])
     record = compute(q)
     # Cohen 1988, Table 2.4.1: n = 64 per group for d = 0.5 at power .80, two-sided .05;
@@ -99,7 +99,7 @@ def test_effect_search_reports_candidates_on_common_random_numbers() -> None:
 def test_type_i_error_is_checked_at_the_given_n() -> None:
     record = compute(effect_question(("continuous", "two_groups"), [64, 64]))
     t1 = record["type_i_error"]
-    # A calibrated test rejects a true null at alpha: within 4 Monte Carlo SEs of 0.05 (formula).
+    # A test that holds its level rejects a true null at alpha: within 4 Monte Carlo SEs of 0.05 (formula).
     assert t1["replicates"] == 10000 and t1["alpha"] == 0.05
     assert abs(t1["estimate"] - 0.05) <= 4 * math.sqrt(0.05 * 0.95 / 10000)
     assert "difference 0" in t1["null_model"]

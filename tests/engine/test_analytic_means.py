@@ -30,14 +30,14 @@ from tests.engine.questions import answer, make_q
         (0.5, 0.90, 85.03, 86),  # Cohen 1988, Table 2.4.1 prints 85 (nearest); recomputed
     ],
 )
-def test_two_means_cohen_table(d, power, raw, ceil):
+def test_two_groups_cohen_table(d, power, raw, ceil):
     q = make_q("continuous", "two_groups", effect={"difference": d}, target_power=power)
     got_raw, got = answer(q)
     assert got_raw[0] == pytest.approx(raw, abs=0.01)
     assert got == [ceil, ceil]
 
 
-def test_two_means_allocation_two_to_one():
+def test_two_groups_allocation_two_to_one():
     # formula: noncentral t with n2 = 2·n1; Cohen 1988 eq. 2.3.1 (harmonic mean 64)
     q = make_q("continuous", "two_groups", allocation_ratio=2.0)
     raw, final = answer(q)
@@ -45,7 +45,7 @@ def test_two_means_allocation_two_to_one():
     assert final == [48, 96]
 
 
-def test_two_means_power_at_30_per_group():
+def test_two_groups_power_at_30_per_group():
     # formula: noncentral t, 0.4779 ; statsmodels TTestIndPower agrees
     q = make_q("continuous", "two_groups")
     got = get("continuous", "two_groups").power(q, [30, 30], 0.05)
@@ -58,7 +58,7 @@ def test_two_means_power_at_30_per_group():
 @pytest.mark.parametrize(
     ("alpha", "alternative"), [(0.05, "two-sided"), (0.01, "two-sided"), (0.05, "one-sided")]
 )
-def test_two_means_matches_statsmodels(d, ratio, alpha, alternative):
+def test_two_groups_matches_statsmodels(d, ratio, alpha, alternative):
     # statsmodels TTestIndPower (general-purpose library): same noncentral t, nobs2 = ratio·nobs1
     alt = "two-sided" if alternative == "two-sided" else "larger"
     q = make_q(
@@ -82,7 +82,7 @@ def test_two_means_matches_statsmodels(d, ratio, alpha, alternative):
 
 
 @pytest.mark.parametrize("n", [20, 64, 150])
-def test_two_means_solve_effect_matches_statsmodels(n):
+def test_two_groups_solve_effect_matches_statsmodels(n):
     # statsmodels TTestIndPower solved for the effect size at fixed n
     q = make_q("continuous", "two_groups", find="effect")
     got = get("continuous", "two_groups").solve_effect(q, [n, n], 0.05)
@@ -91,7 +91,7 @@ def test_two_means_solve_effect_matches_statsmodels(n):
     assert got["value"] == pytest.approx(ref, rel=1e-5)
 
 
-def test_two_means_lower_is_better_returns_negative_difference():
+def test_two_groups_lower_is_better_returns_negative_difference():
     # formula: the two-sided t power is symmetric in the sign of the difference
     q = make_q("continuous", "two_groups", hypothesis={"higher_is_better": False})
     got = get("continuous", "two_groups").solve_effect(q, [64, 64], 0.05)
@@ -327,7 +327,7 @@ def test_one_sample_and_paired_reference(layout, assumptions, difference, raw, c
 @pytest.mark.parametrize(
     ("alpha", "alternative"), [(0.05, "two-sided"), (0.01, "two-sided"), (0.05, "one-sided")]
 )
-def test_one_mean_matches_statsmodels(d, alpha, alternative):
+def test_single_group_matches_statsmodels(d, alpha, alternative):
     # statsmodels TTestPower (general-purpose library): one-sample noncentral t, df = n − 1
     alt = "two-sided" if alternative == "two-sided" else "larger"
     design = get("continuous", "single_group")

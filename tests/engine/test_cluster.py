@@ -14,12 +14,15 @@ from service.engine.errors import QuestionError
 from service.schemas import QuestionInvalid, load_question
 from tests.engine.questions import make_q
 
+TWO_GROUPS = ("continuous", "two_groups")
+BINARY = ("binary", "two_groups")
 
-def cq(design="two_means", per_group=None, cl=None, **kw):
+
+def cq(cell=TWO_GROUPS, per_group=None, cl=None, **kw):
     """A question with clusters of 20 and ICC 0.05 unless told otherwise."""
     adj = {"cluster": {"mean_size": 20.0, "icc": 0.05, "cv": 0.0, **(cl or {})}}
     adj.update(kw.pop("adjustments", {}))
-    return make_q(design, per_group=per_group, adjustments=adj, **kw)
+    return make_q(*cell, per_group=per_group, adjustments=adj, **kw)
 
 
 def nct_cluster_power(diff, sd, k1, k2, m, icc, cv=0.0, alpha=0.05):
@@ -136,11 +139,11 @@ def test_dropout_shrinks_the_analyzed_cluster_size():
     assert de["factor"] == 1.75 and de["analyzed_cluster_size"] == 16
 
 
-def test_two_proportions_with_clusters():
+def test_binary_two_groups_with_clusters():
     # formula: unpooled p(1 − p)·DE/(k·m) per group, noncentral t with 2k − 2 df
     rec = compute(
         cq(
-            "two_proportions",
+            BINARY,
             per_group=[200, 200],
             effect={"p_treatment": 0.45},
             assumptions={"p_control": 0.3},
@@ -152,14 +155,12 @@ def test_two_proportions_with_clusters():
     assert rec["power"]["estimate"] == pytest.approx(
         float(stats.nct.sf(crit, df, ncp) + stats.nct.cdf(-crit, df, ncp)), abs=1e-12
     )
-    rec = compute(
-        cq("two_proportions", effect={"p_treatment": 0.45}, assumptions={"p_control": 0.3})
-    )
+    rec = compute(cq(BINARY, effect={"p_treatment": 0.45}, assumptions={"p_control": 0.3}))
     k = rec["sample_size"]["clusters_per_group"][0]
     assert rec["sample_size"]["per_group"] == [20 * k, 20 * k]
 
 
-def test_partial_clusters_and_other_designs_are_refused():
+def test_partial_clusters_and_other_cells_are_refused():
     with pytest.raises(QuestionError) as err:
         compute(cq(per_group=[125, 125]))
     assert err.value.field == "sample_size.per_group" and "120 or 140" in str(err.value)
@@ -185,7 +186,8 @@ def test_schema_cluster_block():
     base = {
         "outcome": "continuous",
         "layout": "two_groups",
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
     }
     q = load_question({**base, "adjustments": {"cluster": {"mean_size": 20, "icc": 0.05}}})
     assert q["adjustments"]["cluster"]["cv"] == 0.0
@@ -209,7 +211,6 @@ def _sim(q, reps=4000):
     q["simulation"] = {
         "replicates": reps,
         "seed": 20261202,
-        "test": "z_test" if q["design"] == "two_proportions" else "student_t",
         "data": None,
         "decision_rule": "point",
         "chunk_size": 1000,
@@ -219,32 +220,32 @@ def _sim(q, reps=4000):
 
 
 @pytest.mark.parametrize(
-    ("design", "per_group", "cl", "effect"),
+    ("cell", "per_group", "cl", "values"),
     [
-        ("two_means", [40, 40], {}, {"difference": 1.2}),  # boundary: 2 clusters per group, df 2
-        ("two_means", [60, 60], {}, {"difference": 0.8}),  # few clusters: 3 per group, df 4
-        ("two_means", [120, 240], {"cv": 0.4}, {"difference": 0.45}),  # 6 vs 12 clusters
-        ("two_means", [80, 80], {"mean_size": 10, "icc": 0.1}, {"difference": 0.6}),
-        ("two_means", [240, 240], {"cv": 0.6, "icc": 0.03}, {"difference": 0.35}),  # unequal
-        ("two_means", [200, 200], {"icc": 0.0}, {"difference": 0.3}),  # boundary ICC 0
-        ("two_means", [200, 200], {}, {"difference": 0.0}),  # boundary: no effect → alpha
+        (TWO_GROUPS, [40, 40], {}, {"difference": 1.2}),  # boundary: 2 clusters per group, df 2
+        (TWO_GROUPS, [60, 60], {}, {"difference": 0.8}),  # few clusters: 3 per group, df 4
+        (TWO_GROUPS, [120, 240], {"cv": 0.4}, {"difference": 0.45}),  # 6 vs 12 clusters
+        (TWO_GROUPS, [80, 80], {"mean_size": 10, "icc": 0.1}, {"difference": 0.6}),
+        (TWO_GROUPS, [240, 240], {"cv": 0.6, "icc": 0.03}, {"difference": 0.35}),  # unequal
+        (TWO_GROUPS, [200, 200], {"icc": 0.0}, {"difference": 0.3}),  # boundary ICC 0
+        (TWO_GROUPS, [200, 200], {}, {"difference": 0.0}),  # boundary: no effect → alpha
         (
-            "two_proportions",
+            BINARY,
             [300, 300],
             {"mean_size": 30, "icc": 0.05},
             {"p_control": 0.3, "p_treatment": 0.45},
         ),
         (
-            "two_proportions",
+            BINARY,
             [400, 400],
             {"cv": 0.5, "icc": 0.02},
             {"p_control": 0.2, "p_treatment": 0.3},
         ),
     ],
 )
-def test_simulated_power_agrees_with_analytic(design, per_group, cl, effect):
+def test_simulated_power_agrees_with_analytic(cell, per_group, cl, values):
     # the cluster-level simulation against the noncentral t formula, within 4 MCSE
-    rec = _sim(cq(design, per_group=per_group, cl=cl, effect=effect))
+    rec = _sim(cq(cell, per_group=per_group, cl=cl, values=values))
     p = rec["power"]
     assert abs(p["estimate"] - p["analytic"]) <= 4 * max(p["mcse"], 0.0035)
     assert rec["type_i_error"]["estimate"] == pytest.approx(0.05, abs=4 * 0.0035)
@@ -299,7 +300,7 @@ def test_cost_estimate_counts_clusters_not_people():
 
     q = cq(per_group=[160, 160])
     q["method"] = "simulation"
-    q["simulation"] = {"replicates": 1000, "seed": 1, "test": "student_t", "data": None}
+    q["simulation"] = {"replicates": 1000, "seed": 1, "data": None}
     assert simulate.estimate_cost(q) == 2 * 1000 * 3 * 16
 
 
@@ -307,18 +308,13 @@ def test_simulation_refusals_name_the_field():
     # common practice, no source: what the cluster simulation cannot do is refused clearly
     q = cq(per_group=[160, 160])
     q["method"] = "simulation"
-    q["simulation"] = {
-        "replicates": 100,
-        "seed": 1,
-        "test": "rank_sum",
-        "data": None,
-        "chunk_size": 100,
-    }
+    q["simulation"] = {"replicates": 100, "seed": 1, "data": None, "chunk_size": 100}
+    q["analysis"] = "rank_sum"
     with pytest.raises(QuestionError) as err:
         compute(q)
     assert err.value.field == "analysis"
+    q["analysis"] = "pooled_t"
     q["simulation"].update(
-        test="student_t",
         data={
             "control": {"family": "normal", "mean": 0, "sd": 1},
             "treatment": {"family": "normal", "mean": 0.5, "sd": 1},

@@ -21,7 +21,7 @@ from tests.engine.questions import make_q
 # --- analytic answers through the whole pipeline ------------------------------------------
 
 
-def test_two_means_reference_answer():
+def test_two_groups_reference_answer():
     # published 64: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided .05, power .80); recomputed
     record = compute(
         make_q(

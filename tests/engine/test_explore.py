@@ -9,9 +9,10 @@ from statsmodels.stats.power import TTestIndPower
 
 from service.engine import QuestionError, compute
 from service.engine.explore import DEPARTURES, MAX_CELLS, robustness, sensitivity
-from tests.engine.questions import EFFECTS, make_q
+from tests.engine.questions import make_q
 
-D_HALF = EFFECTS["two_means"]  # d = 0.5
+D_HALF = {"difference": 0.5}  # d = 0.5 with both SDs 1
+SDS = {"sd_control": 1.0, "sd_treatment": 1.0}
 
 
 def _cell(result: dict, **values) -> dict:
@@ -22,14 +23,16 @@ def _cell(result: dict, **values) -> dict:
 
 
 def test_cells_equal_single_compute_calls():
-    q = make_q("continuous", "two_groups", effect=D_HALF, adjustments={"dropout": 0.1})
+    q = make_q(
+        "continuous", "two_groups", effect=D_HALF, assumptions=SDS, adjustments={"dropout": 0.1}
+    )
     grid = {"effect.difference": [0.4, 0.5, 0.8], "assumptions.sd_control": [1.0, 1.2]}
     result = sensitivity(q, grid)
     assert result["shape"] == [3, 2] and len(result["cells"]) == 6
     for cell in result["cells"]:
         single = copy.deepcopy(q)
         single["effect"]["difference"] = cell["values"]["effect.difference"]
-        single["effect"]["sd_control"] = cell["values"]["assumptions.sd_control"]
+        single["assumptions"]["sd_control"] = cell["values"]["assumptions.sd_control"]
         record = compute(single)
         assert cell["per_group"] == record["sample_size"]["per_group"]
         assert cell["total"] == record["sample_size"]["total"]
@@ -39,7 +42,7 @@ def test_cells_equal_single_compute_calls():
 
 
 def test_reference_cells():
-    q = make_q("continuous", "two_groups", effect=D_HALF)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS)
     result = sensitivity(
         q, {"effect.difference": [0.2, 0.5, 0.8], "adjustments.dropout": [0.0, 0.2]}
     )
@@ -65,7 +68,7 @@ def test_reference_cells():
 
 
 def test_monotone_in_effect_sd_and_dropout():
-    q = make_q("continuous", "two_groups", effect=D_HALF)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS)
     diffs = [0.3, 0.4, 0.5, 0.6, 0.8]
     sds = [0.8, 1.0, 1.2, 1.5]
     drops = [0.0, 0.1, 0.2, 0.3]
@@ -92,7 +95,7 @@ def test_monotone_in_effect_sd_and_dropout():
 
 
 def test_power_questions_give_monotone_power():
-    q = make_q("continuous", "two_groups", effect=D_HALF, per_group=[30, 30])
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS, per_group=[30, 30])
     result = sensitivity(q, {"effect.difference": [0.3, 0.5, 0.7]})
     powers = [c["power"] for c in result["cells"]]
     assert powers == sorted(powers)
@@ -113,7 +116,7 @@ def test_survival_grid_over_hazard_ratio():
 
 
 def test_cells_the_engine_refuses_are_reported():
-    q = make_q("continuous", "two_groups", effect=D_HALF)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS)
     result = sensitivity(q, {"effect.difference": [0.0, 0.5]})
     bad, good = result["cells"]
     assert bad["per_group"] is None and "difference" in bad["error"]
@@ -153,7 +156,7 @@ def test_cells_the_engine_refuses_are_reported():
         (
             {},
             {"assumptions.sd": [1.0], "assumptions.sd_control": [1.0]},
-            "grid.effect.sd",
+            "grid.assumptions.sd",
             "do not combine",
         ),
         (
@@ -165,7 +168,7 @@ def test_cells_the_engine_refuses_are_reported():
     ],
 )
 def test_bad_grids_name_the_field(question_overrides, grid, field, words):
-    q = make_q("continuous", "two_groups", effect=D_HALF, **question_overrides)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS, **question_overrides)
     with pytest.raises(QuestionError) as info:
         sensitivity(q, grid)
     assert info.value.field == field
@@ -183,6 +186,7 @@ def simulated_q():
         "continuous",
         "two_groups",
         effect=D_HALF,
+        assumptions=SDS,
         simulation={"replicates": REPS, "search_replicates": 600},
     )
 
@@ -266,7 +270,7 @@ def test_departures_move_power_the_known_way(panel):
     assert lo <= 0.05 <= hi
 
 
-def test_analytic_question_uses_the_formulas_test():
+def test_analytic_question_uses_the_planned_analysis():
     q = make_q(
         "continuous",
         "two_groups",
@@ -275,7 +279,7 @@ def test_analytic_question_uses_the_formulas_test():
         analysis="welch_t",
     )
     result = robustness(q, [40, 40], replicates=200, seed=5)
-    assert result["test"] == "welch_t"
+    assert result["analysis"] == "welch_t"
 
 
 @pytest.mark.parametrize(
@@ -294,7 +298,7 @@ def test_bad_robustness_inputs(simulated_q, kwargs, field, words):
     assert info.value.field == field and words in info.value.message
 
 
-def test_robustness_is_for_continuous_two_group_designs_only():
+def test_robustness_is_for_continuous_and_ordinal_two_group_cells_only():
     q = make_q(
         "binary",
         "two_groups",
@@ -304,8 +308,8 @@ def test_robustness_is_for_continuous_two_group_designs_only():
     )
     with pytest.raises(QuestionError) as info:
         robustness(q, [97, 97], replicates=200, seed=1)
-    assert info.value.field == "design" and "two_proportions" in info.value.message
-    assert "two_means and rank_sum" in info.value.message
+    assert info.value.field == "layout" and "binary × two_groups" in info.value.message
+    assert "continuous × two_groups and ordinal × two_groups" in info.value.message
 
 
 # An invented length-of-stay model (lognormal, as a ward's records might fit); demo data only.
@@ -323,7 +327,8 @@ def _rank_sum_power_q(**simulation):
         target_power=None,
         method="simulation",
         per_group=[60, 60],
-        simulation={"test": "rank_sum", "data": STAY, "replicates": 400, "seed": 11, **simulation},
+        analysis="rank_sum",
+        simulation={"data": STAY, "replicates": 400, "seed": 11, **simulation},
     )
     q["effect"] = {}  # the data model implies P(Y > X); a different posted value is refused
     return q
@@ -332,7 +337,7 @@ def _rank_sum_power_q(**simulation):
 def test_rank_sum_panel_starts_with_the_planned_data_and_reproduces_the_record():
     q = _rank_sum_power_q()
     panel = robustness(q, [60, 60], replicates=400, seed=11)
-    assert panel["design"] == "rank_sum" and panel["test"] == "rank_sum"
+    assert panel["outcome"] == "ordinal" and panel["analysis"] == "rank_sum"
     names = [d["name"] for d in panel["departures"]]
     assert names == ["as_planned", *DEPARTURES]
     record = compute(q)

@@ -157,7 +157,7 @@ def test_one_sample_one_sided_power_matches_noncentral_t_both_signs(cell, values
 
 
 @pytest.mark.parametrize("p1,p2", [(0.05, 0.10), (0.10, 0.05)])
-def test_two_proportions_z_one_sided_matches_exact_enumeration_both_signs(p1, p2):
+def test_binary_two_groups_z_one_sided_matches_exact_enumeration_both_signs(p1, p2):
     q = power_q(
         ("binary", "two_groups"), {"p_control": p1, "p_treatment": p2}, (400, 400), "pooled_z"
     )

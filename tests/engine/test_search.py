@@ -152,14 +152,14 @@ def test_mcse_reference():
     assert search.Estimate(5000, 10000).mcse == pytest.approx(0.005)
 
 
-def _two_means(**sim):
+def _two_groups(**sim):
     """The two-means simulation question these tests search on (seed 11, Student t)."""
-    return make_q("continuous", "two_groups", simulation={"seed": 11, "test": "student_t", **sim})
+    return make_q("continuous", "two_groups", simulation={"seed": 11, **sim})
 
 
 def test_simulated_search_starts_from_the_analytic_start():
     # published 64 per group: Cohen 1988, Table 2.4.1 (raw 63.77), used as the start; answer ±2
-    out = simulate.answer(_two_means(), 0.05, per_group=None, start=[63.77, 63.77])
+    out = simulate.answer(_two_groups(), 0.05, per_group=None, start=[63.77, 63.77])
     s = out["search"]
     assert s["start"] == [63.77, 63.77] and s["start_source"] == "analytic"
     assert s["candidates"][0]["per_group"] == [64, 64]
@@ -169,7 +169,7 @@ def test_simulated_search_starts_from_the_analytic_start():
 
 def test_simulated_search_from_its_own_normal_approximation():
     # formula: z approximation 2(z.975 + z.80)²/d² + 1 = 63.8 when no analytic start is given
-    q = _two_means(
+    q = _two_groups(
         data={
             "control": {"family": "normal", "mean": 0.0, "sd": 1.0},
             "treatment": {"family": "normal", "mean": 0.5, "sd": 1.0},
@@ -183,7 +183,7 @@ def test_simulated_search_from_its_own_normal_approximation():
 
 def test_simulated_search_from_a_poor_start_stays_bounded():
     # published 64 per group: Cohen 1988, Table 2.4.1; a start at a third of it still converges
-    out = simulate.answer(_two_means(), 0.05, per_group=None, start=[21.0, 21.0])
+    out = simulate.answer(_two_groups(), 0.05, per_group=None, start=[21.0, 21.0])
     assert len(out["search"]["candidates"]) <= search.MAX_CANDIDATES
     assert abs(out["per_group"][0] - 64) <= 2
 
@@ -209,7 +209,7 @@ def _for_n(n: float, **sim) -> dict:
         "continuous",
         "two_groups",
         effect=effect,
-        simulation={"seed": 11, "test": "student_t", **sim},
+        simulation={"seed": 11, **sim},
     )
 
 

@@ -50,14 +50,15 @@ def test_fisher_below_alpha_is_conservative_not_a_failure():
         effect={"p_treatment": 0.6},
         assumptions={"p_control": 0.3},
         per_group=(40, 40),
-        simulation={"test": "fisher_exact", "replicates": 4000, "seed": 11},
+        analysis="fisher_exact",
+        simulation={"replicates": 4000, "seed": 11},
     )
     record = compute(q)
     t1 = record["type_i_error"]
     lo, hi = t1["ci95"]
     assert lo <= exact <= hi  # the simulated size agrees with the exact enumeration
     assert t1["verdict"] == "conservative"
-    assert "calibrated" not in t1
+    assert set(t1) == {"estimate", "mcse", "ci95", "replicates", "alpha", "verdict", "null_model"}
     assert not any("type I error" in w for w in record["warnings"])
 
 
@@ -84,7 +85,8 @@ def test_a_liberal_test_exceeds_and_warns():
         effect={"difference": 0.5},
         assumptions={"sd_control": 1.0, "sd_treatment": 2.0},
         per_group=(60, 20),
-        simulation={"test": "student_t", "replicates": 4000, "seed": 3},
+        analysis="pooled_t",
+        simulation={"replicates": 4000, "seed": 3},
     )
     record = compute(q)
     assert record["type_i_error"]["verdict"] == "exceeds"

@@ -138,7 +138,7 @@ def test_pearson_matches_scipy():
 
 
 def test_fisher_z_for_nonzero_null():
-    # formula: Fisher z test, z = (atanh r − atanh r0)·√(n − 3), two-sided normal reference
+    # formula: Fisher z test, z = (atanh r − atanh r_null)·√(n − 3), two-sided normal reference
     r = np.array([0.1, 0.3, 0.5, 0.7])
     z = (np.arctanh(r) - np.arctanh(0.3)) * np.sqrt(47)
     want = 2 * stats.norm.sf(np.abs(z)) < 0.05

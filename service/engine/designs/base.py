@@ -252,6 +252,7 @@ class Design:
     contrast: Callable[[dict], float | None]
     null_effect: Callable[[dict], float | None]
     cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
+    directional: bool = True  # False: the tests have no direction (F), one-sided is refused
     notes: tuple[str, ...] = ()  # cell-level notes for the catalogue
 
     @property

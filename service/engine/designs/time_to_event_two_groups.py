@@ -356,7 +356,7 @@ def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict]
 def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:
     """Longer times count as better, so a one-sided search looks below 1; only when shorter
     times are better does it look above 1 (each candidate's test faces its own direction)."""
-    if rule.tails == 1 and rule.direction > 0:
+    if rule.tails == 1 and rule.direction < 0:
         return EffectAxis(1.0, 1, math.inf)
     return EffectAxis(1.0, -1, 1.0)
 

@@ -169,7 +169,8 @@ def list_requests(
     status: str | None = None,
     protocol_id: str | None = None,
     requester: str | None = None,
-    design: str | None = None,
+    outcome: str | None = None,
+    layout: str | None = None,
     submitted_from: date | None = None,
     submitted_to: date | None = None,
     submitted_by: str | None = None,
@@ -184,8 +185,11 @@ def list_requests(
         conditions.append(Request.protocol_id == protocol_id)
     if requester is not None:
         conditions.append(func.lower(Request.requester_email) == requester.lower())
-    if design is not None:
-        conditions.append(Request.design == design)
+    # The design column holds "<outcome>/<layout>" (design_key).
+    if outcome is not None:
+        conditions.append(Request.design.startswith(f"{outcome}/", autoescape=True))
+    if layout is not None:
+        conditions.append(Request.design.endswith(f"/{layout}", autoescape=True))
     if submitted_by is not None:
         conditions.append(Request.submitted_by == submitted_by)
     if submitted_from is not None:

@@ -174,7 +174,16 @@ BODIES = [
     ("auditor", "/v1/requests/{id}/reruns", {"note": "yearly check"}),
     ("admin", "/v1/tokens", {"role": "intake", "name": "front desk"}),
 ]
-QUERY_KEYS = ["status", "protocol_id", "requester", "design", "page", "per_page", "submitted_from"]
+QUERY_KEYS = [
+    "status",
+    "protocol_id",
+    "requester",
+    "outcome",
+    "layout",
+    "page",
+    "per_page",
+    "submitted_from",
+]
 
 
 @pytest.fixture

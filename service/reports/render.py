@@ -136,7 +136,9 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
         better = (
             " (higher is better)" if hyp.get("higher_is_better", True) else " (lower is better)"
         )
-        rows.append(("Hypothesis", words.hypothesis_words(q).removeprefix("to ").capitalize() + better))
+        rows.append(
+            ("Hypothesis", words.hypothesis_words(q).removeprefix("to ").capitalize() + better)
+        )
     if describe.group_count(q) == 2:
         rows.append(
             (

@@ -198,7 +198,7 @@ def group_names(q: dict, k: int) -> list[str]:
 
 
 def is_omnibus(q: dict) -> bool:
-    """A test across more than two groups has no sides: saying 'two-sided' would misdescribe it."""
+    """A test across more than two groups has no direction: 'two-sided' would misdescribe it."""
     return group_count(q) > 2
 
 

@@ -18,6 +18,7 @@ from service import create_app
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
 from service.store.models import Exploration
+from tests.conftest import question_body
 from workers.tasks import run_request_job
 
 
@@ -33,16 +34,6 @@ def live_app(settings):
 def live_api(live_app, api, tokens):
     """The ``api`` helpers bound to ``live_app``."""
     return type(api)(live_app.test_client(), live_app, type(tokens)(live_app))
-
-
-def question_body(**overrides) -> dict:
-    question = {
-        "design": "two_means",
-        "find": "sample_size",
-        "effect": {"difference": 0.5, "sd": 1.0},
-    }
-    question.update(overrides)
-    return question
 
 
 def _messages(settings) -> list[dict]:
@@ -63,7 +54,7 @@ def test_analytic_question_comes_back_computed_with_the_engine_record(live_api, 
     assert body["status"] == "computed" and body["progress"] == 1.0
     # Reference: d = 0.5, two-sided 5%, 80% power; the noncentral t solved by statsmodels.
     n = TTestIndPower().solve_power(effect_size=0.5, alpha=0.05, power=0.8)
-    assert body["result"]["sample_size"]["per_arm"] == [64, 64] == [round(n + 0.5)] * 2
+    assert body["result"]["sample_size"]["per_group"] == [64, 64] == [round(n + 0.5)] * 2
     # The stored record is exactly the engine's record for the stored question.
     direct = compute(body["question"])
     assert canonical_json(body["result"]) == canonical_json(direct)
@@ -136,7 +127,7 @@ def test_an_answer_given_to_the_job_is_stored_only_for_the_question_it_answers(a
     assert run_request_job(queued["id"], config, answer=other) == "computed"
     stored = api.client.get(f"/v1/requests/{queued['id']}").get_json()["result"]
     assert canonical_json(stored) == canonical_json(compute(queued["question"]))
-    assert stored["sample_size"]["per_arm"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
+    assert stored["sample_size"]["per_group"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
     # The matching record is stored as is: the same digits the engine gives for the question.
     again = api.submit(api.request_body(question_body())).get_json()
     answer = compute(again["question"])

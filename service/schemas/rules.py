@@ -53,6 +53,7 @@ def check(ctx: Context) -> None:
     margin_aims(ctx)
     if ctx.design is None:
         return
+    directionless(ctx)
     allocation(ctx)
     cell_fields(ctx)
     analysis_and_method(ctx)
@@ -128,6 +129,16 @@ def margin_aims(ctx: Context) -> None:
             "hypothesis.margin",
             f"must be in (-1, 1) for {ctx.design.cell} (a difference of proportions); "
             f"got {show(margin)}",
+        )
+
+
+def directionless(ctx: Context) -> None:
+    """A cell whose tests have no direction (an F test) takes no one-sided alternative."""
+    if ctx.data.get("alternative") == "one-sided" and not getattr(ctx.design, "directional", True):
+        ctx.add(
+            "alternative",
+            f'must be "two-sided" for {ctx.design.cell}: its tests have no direction (they '
+            'reject for large statistics only); got "one-sided"',
         )
 
 

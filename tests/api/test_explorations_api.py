@@ -16,17 +16,12 @@ from service.engine import estimate_cost
 from service.schemas.question import load_question
 from service.store.db import session_scope
 from service.store.models import Exploration
+from tests.conftest import question_body
 from workers.exploration_tasks import run_exploration_job
 from workers.tasks import run_request_job
 
 PROBLEM = "application/problem+json"
-QUESTION = {
-    "outcome": "continuous",
-    "layout": "two_groups",
-    "find": "sample_size",
-    "effect": {"difference": 0.5},
-    "assumptions": {"sd": 1.0},
-}
+QUESTION = question_body()  # continuous outcome, two groups, d = 0.5
 GRID = {"effect.difference": [0.4, 0.5, 0.6], "assumptions.sd": [1.0, 1.2]}
 SOURCE = "SD from the 2024 Northbridge audit of clinic visits"
 
@@ -219,16 +214,12 @@ def test_a_robustness_panel_of_another_cell_is_refused_on_its_type(api):
 
 
 def test_a_grid_over_the_budget_is_refused_with_its_estimate(app, api):
-    question = {
-        "outcome": "continuous",
-        "layout": "two_groups",
-        "find": "power",
-        "sample_size": {"per_group": [40, 40]},
-        "effect": {"difference": 0.5},
-        "assumptions": {"sd": 1.0},
-        "method": "simulation",
-        "simulation": {"replicates": 2000, "seed": 7},
-    }
+    question = question_body(
+        find="power",
+        sample_size={"per_group": [40, 40]},
+        method="simulation",
+        simulation={"replicates": 2000, "seed": 7},
+    )
     request_id = api.submit(api.request_body(question)).get_json()["id"]
     differences = [0.3, 0.4, 0.5, 0.6]
     # The grid costs what its cells cost asked one by one (the engine's own estimate).
@@ -266,16 +257,12 @@ def test_unknown_request_and_exploration_are_404(client, api):
 
 
 def test_a_simulated_grid_keeps_the_requests_seed_in_every_cell(app, client, api):
-    question = {
-        "outcome": "continuous",
-        "layout": "two_groups",
-        "find": "power",
-        "sample_size": {"per_group": [30, 30]},
-        "effect": {"difference": 0.5},
-        "assumptions": {"sd": 1.0},
-        "method": "simulation",
-        "simulation": {"replicates": 1000, "seed": 20250101, "chunk_size": 500},
-    }
+    question = question_body(
+        find="power",
+        sample_size={"per_group": [30, 30]},
+        method="simulation",
+        simulation={"replicates": 1000, "seed": 20250101, "chunk_size": 500},
+    )
     body = api.request_body(
         question,
         explorations=[{"type": "sensitivity_grid", "grid": {"effect.difference": [0.3, 0.6]}}],

@@ -25,11 +25,11 @@ from service.engine import compute
 from service.store import jobs
 from service.store import tokens as token_store
 from service.store.db import session_scope
-from service.store.models import Analysis, ApiToken, AuditEvent, Request, Rerun, TokenSpend
+from service.store.models import ApiToken, AuditEvent, Exploration, Request, Rerun, TokenSpend
 
 pytestmark = pytest.mark.slow
 
-TABLES = (Request, Analysis, AuditEvent, Rerun, TokenSpend, ApiToken)
+TABLES = (Request, Exploration, AuditEvent, Rerun, TokenSpend, ApiToken)
 
 NASTY = [
     "\ud800",
@@ -174,7 +174,16 @@ BODIES = [
     ("auditor", "/v1/requests/{id}/reruns", {"note": "yearly check"}),
     ("admin", "/v1/tokens", {"role": "intake", "name": "front desk"}),
 ]
-QUERY_KEYS = ["status", "protocol_id", "requester", "design", "page", "per_page", "submitted_from"]
+QUERY_KEYS = [
+    "status",
+    "protocol_id",
+    "requester",
+    "outcome",
+    "layout",
+    "page",
+    "per_page",
+    "submitted_from",
+]
 
 
 @pytest.fixture

@@ -213,8 +213,8 @@ def test_calls_without_a_valid_token_are_rate_limited(make_app, api):
     client = app.test_client()
     # No token, a malformed header, an unknown token: all 401, all counted against the address.
     attempts = [{}, {"Authorization": "Basic eDp5"}, {"Authorization": "Bearer sw_" + "x" * 43}]
-    assert [client.get("/v1/designs", headers=h).status_code for h in attempts] == [401] * 3
-    r = client.get("/v1/designs", headers={"Authorization": "Bearer sw_guess"})
+    assert [client.get("/v1/catalogue", headers=h).status_code for h in attempts] == [401] * 3
+    r = client.get("/v1/catalogue", headers={"Authorization": "Bearer sw_guess"})
     assert r.status_code == 429 and r.mimetype == PROBLEM
     assert "per address" in r.get_json()["detail"] and int(r.headers["Retry-After"]) > 0
     # Guessing report-link signatures is counted the same way.
@@ -224,9 +224,9 @@ def test_calls_without_a_valid_token_are_rate_limited(make_app, api):
     # Another address has its own count, and a valid token its own bucket.
     other = app.test_client()
     other.environ_base["REMOTE_ADDR"] = "10.0.0.7"
-    assert other.get("/v1/designs").status_code == 401
+    assert other.get("/v1/catalogue").status_code == 401
     _id, headers = _token(app, "auditor", "k.ito")
-    assert client.get("/v1/designs", headers=headers).status_code == 200
+    assert client.get("/v1/catalogue", headers=headers).status_code == 200
 
 
 # --- four eyes --------------------------------------------------------------------------------
@@ -287,4 +287,4 @@ def test_unauthenticated_calls_are_counted_while_the_shared_store_is_down(make_a
     # Nothing listens on this port: the counters fall back to this process, never to a 500.
     app = make_app(RATE_LIMIT="2 per hour", RATELIMIT_STORAGE_URL="redis://127.0.0.1:6399/0")
     client = app.test_client()
-    assert [client.get("/v1/designs").status_code for _ in range(3)] == [401, 401, 429]
+    assert [client.get("/v1/catalogue").status_code for _ in range(3)] == [401, 401, 429]

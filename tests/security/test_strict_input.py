@@ -16,11 +16,11 @@ from sqlalchemy import func, select
 
 from service.api.auth import sign_link
 from service.store.db import session_scope
-from service.store.models import Analysis, ApiToken, AuditEvent, Request, Rerun, TokenSpend
+from service.store.models import ApiToken, AuditEvent, Exploration, Request, Rerun, TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
-STORED = (Request, Analysis, AuditEvent, Rerun, TokenSpend)
+STORED = (Request, Exploration, AuditEvent, Rerun, TokenSpend)
 
 
 def stored_rows(app) -> dict[str, int]:

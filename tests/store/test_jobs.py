@@ -15,14 +15,9 @@ from service.store.audit import verify_chain
 from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.models import Request, Result
 from service.store.types import utcnow
+from tests.conftest import question_body
 
-QUESTION = {
-    "outcome": "continuous",
-    "layout": "two_groups",
-    "find": "sample_size",
-    "effect": {"difference": 0.5},
-    "assumptions": {"sd": 1},
-}
+QUESTION = question_body()
 
 
 @pytest.fixture

@@ -106,8 +106,14 @@ class Cell:
 
     def _alternative(self, name: str) -> str:
         """' (or give x)': the fields of the other forms that stand in for ``name``."""
-        mine = {n for form in self.design.forms if name in form for n in form}
-        others = [n for form in self.design.forms if name not in form for n in form]
+        forms = [
+            form
+            for form in self.design.forms
+            # find = effect takes no effect field: forms holding one are no alternative then
+            if self.find != "effect" or all(self.fields[n].block != "effect" for n in form)
+        ]
+        mine = {n for form in forms if name in form for n in form}
+        others = [n for form in forms if name not in form for n in form]
         instead = [n for n in dict.fromkeys(others) if n not in mine]
         return f" (or give {' + '.join(instead)})" if mine and instead else ""
 

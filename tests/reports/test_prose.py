@@ -27,8 +27,7 @@ from service.schemas import load_question
 EXAMPLES = Path(__file__).resolve().parents[2] / "service" / "examples"
 
 # A raw token: snake_case words such as welch_t, two_groups, noncentral_f, sd_difference.
-# One-letter subscripts of a formula (z_a in an approximation's name) are notation, not tokens.
-_TOKEN = re.compile(r"\b[a-z]+(?:_[a-z0-9]+)*_[a-z0-9]{2,}\b|\b[a-z]{2,}_[a-z0-9]+\b")
+_TOKEN = re.compile(r"\b[a-z]+(?:_[a-z0-9]+)+\b")
 
 
 class _Visible(HTMLParser):

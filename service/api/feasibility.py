@@ -48,7 +48,8 @@ def question_refused(exc: QuestionError) -> ValidationFailed:
 def _numeric_failure(exc: EngineError) -> bool:
     """True when the engine failed on arithmetic (overflow, division by zero, a non-finite value)."""
     cause = exc.__cause__
-    return isinstance(cause, ArithmeticError) or "not finite" in str(exc)
+    text = f"{exc} {cause or ''}"
+    return isinstance(cause, ArithmeticError) or "not finite" in text or "numeric step" in text
 
 
 def _refuse(question: dict, posted: Any, exc: EngineError) -> ValidationFailed:

@@ -1,6 +1,6 @@
 """Cluster-randomized two-group trials: whole clusters are the unit of randomization and analysis.
 
-The analysis is the cluster-level summary test: each cluster's mean (or proportion), arms
+The analysis is the cluster-level summary test: each cluster's mean (or proportion), groups
 compared by a t test with k₁ + k₂ − 2 degrees of freedom (Donner & Klar 2000). Power is the
 noncentral t at that df with the noncentrality of the individual-level comparison at the
 effective size k·m/DE per group, DE = 1 + ((cv² + 1)·m − 1)·ICC (Eldridge, Ashby & Kerry 2006;

@@ -126,6 +126,11 @@ def _check_question(q: dict, design, simulated: bool) -> None:
         raise QuestionError(
             "alternative", f"must be 'two-sided' or 'one-sided'; got {alternative!r}"
         )
+    if alternative == "one-sided" and not design.directional:
+        raise QuestionError(
+            "alternative",
+            f"the tests of {design.cell} have no direction; only 'two-sided' applies",
+        )
     aim = check_aim(q, design)
     if aim != "superiority" and alternative != "one-sided":
         raise QuestionError(

@@ -20,7 +20,7 @@ from typing import Any
 from marshmallow import ValidationError
 
 from . import declared
-from .fields import got
+from .fields import got, show
 from .vocabulary import BLOCKS
 
 
@@ -100,12 +100,29 @@ class Cell:
                 self.add(where, self._allowed_named(where, message))
 
     def _allowed_named(self, where: str, message: str) -> str:
-        # "is required" says what is allowed: "is required: a number > 0 (or give ...)".
+        # Messages say what is allowed and echo what was posted: "is required: a number > 0
+        # (or give control_hazard)", "is solved for when find = effect; remove it; got 0.5".
         name = where.rsplit(".", 1)[-1]
-        if message.startswith("is required") and name in self.fields:
-            rest = message[len("is required") :]
+        if name not in self.fields:
+            return message
+        if message.startswith("is required"):
+            rest = message[len("is required") :] or self._alternative(name)
             return f"is required: {declared.allowed(self.fields[name])}{rest}"
+        value = self._value(name)
+        if value is not None and "got" not in message:
+            return f"{message}; got {show(value)}"
         return message
+
+    def _alternative(self, name: str) -> str:
+        """' (or give x)': the fields of the other forms that stand in for ``name``."""
+        mine = {n for form in self.design.forms if name in form for n in form}
+        others = [n for form in self.design.forms if name not in form for n in form]
+        instead = [n for n in dict.fromkeys(others) if n not in mine]
+        return f" (or give {' + '.join(instead)})" if mine and instead else ""
+
+    def _value(self, name: str) -> Any:
+        block = self.raw.get(self.fields[name].block)
+        return block.get(name) if isinstance(block, Mapping) else None
 
     def blocks(self) -> dict[str, dict]:
         """The normalized blocks: what was posted, plus the declared defaults."""

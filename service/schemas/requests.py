@@ -369,6 +369,15 @@ class RerunListSchema(StrictSchema):
     items = fields.List(fields.Nested(RerunSchema(exclude=("record",))))
 
 
+def _cell_word(which: str, value: str) -> None:
+    """Refuse an outcome or layout no registered cell has, listing those that exist."""
+    from service.schemas.vocabulary import layouts, outcomes
+
+    words = outcomes() if which == "outcome" else layouts()
+    if value not in words:
+        raise ValidationError(f"must be one of: {', '.join(words)}; got {value!r}")
+
+
 class RequestQueryArgsSchema(StrictSchema):
     """Query parameters of GET /v1/requests."""
 
@@ -378,10 +387,12 @@ class RequestQueryArgsSchema(StrictSchema):
         error_messages=EMAIL_ERRORS, metadata={"description": "The requester's e-mail address."}
     )
     outcome = fields.String(
-        validate=length(1, 40), metadata={"description": "The cell's outcome, e.g. continuous."}
+        validate=lambda v: _cell_word("outcome", v),
+        metadata={"description": "Only requests on this outcome, e.g. continuous."},
     )
     layout = fields.String(
-        validate=length(1, 40), metadata={"description": "The cell's layout, e.g. two_groups."}
+        validate=lambda v: _cell_word("layout", v),
+        metadata={"description": "Only requests with this layout, e.g. two_groups."},
     )
     submitted_from = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "First UTC day, inclusive."}

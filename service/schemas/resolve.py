@@ -84,7 +84,7 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
     from .blocks import AdjustmentsSchema, simulation_schema
 
     find = data.get("find") or "sample_size"
-    hyp = dict(data.get("hypothesis") or _hypothesis_default())
+    hyp = {**_hypothesis_default(), **(data.get("hypothesis") or {})}
     aim = hyp["aim"]
     how = method(design, data, raw, blocks)
     alternative = data.get("alternative") or ("two-sided" if aim == "superiority" else "one-sided")

@@ -266,16 +266,6 @@ def simulation(ctx: Context) -> None:
             "assumptions) or ask find = power for each candidate data model; got a data model"
             + keys,
         )
-    # A data model states the effect only to a simulation: a formula needs the field itself.
-    solved, blocks = ctx.design.solved, _blocks(ctx)
-    block = {f.name: f.block for f in ctx.design.fields}[solved]
-    lacking = bool(blocks) and ctx.find != "effect" and solved not in blocks.get(block, {})
-    if lacking and sim_data is not None and method == "analytic":
-        ctx.add(
-            f"{block}.{solved}",
-            "is required for method = analytic (a formula needs it; a data model states it "
-            "only to a simulation)",
-        )
 
 
 # -- rules that need the whole checked cell ------------------------------------------------------
@@ -295,10 +285,12 @@ def effect_against_hypothesis(ctx: Context) -> None:
     margin = (q["hypothesis"] or {}).get("margin")
     if ctx.aim == "superiority":
         if effect == 0:
+            null = ctx.design.null_effect(q)
+            shown = "its value under the null hypothesis" if null is None else number_text(null)
             ctx.add(
                 f"{block}.{solved}",
-                "must differ from its null value when solving for the sample size (no effect "
-                f"to detect); got {show(value)}",
+                f"must differ from {shown} (the null value) when solving for the sample size "
+                f"(no effect to detect); got {show(value)}",
             )
         return
     if margin is None:

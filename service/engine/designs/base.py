@@ -136,14 +136,6 @@ class EffectAxis:
 
 
 @dataclass(frozen=True)
-class Arms:
-    """The simulated groups of a plan: data models, their labels and the record's data block."""
-
-    models: list[dict]
-    labels: list[str]
-
-
-@dataclass(frozen=True)
 class SimulationModel:
     """How a cell is simulated.
 
@@ -252,6 +244,7 @@ class Design:
     contrast: Callable[[dict], float | None]
     null_effect: Callable[[dict], float | None]
     cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
+    directional: bool = True  # False: the tests have no direction (F), one-sided is refused
     notes: tuple[str, ...] = ()  # cell-level notes for the catalogue
 
     @property

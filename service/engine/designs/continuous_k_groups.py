@@ -353,4 +353,5 @@ DESIGN = Design(
     example="northbridge_diet_three_arm.json",
     contrast=lambda q: None,  # the F test has no direction
     null_effect=lambda q: 0.0,
+    directional=False,
 )

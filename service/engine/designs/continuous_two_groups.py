@@ -109,7 +109,8 @@ validate = make_validate(FIELDS, FORMS, "difference", MODEL_FIELDS)
 
 def sds(q: dict) -> tuple[float, float]:
     """Return (sd_control, sd_treatment): the common sd twice, or the two posted SDs."""
-    if values(q, FIELDS).get("sd") is not None:
+    v = values(q, FIELDS)
+    if v.get("sd") is not None or (v.get("sd_control") is None and v.get("sd_treatment") is None):
         sd = number(q, FIELDS, "sd")
         return sd, sd
     return number(q, FIELDS, "sd_control"), number(q, FIELDS, "sd_treatment")
@@ -121,8 +122,21 @@ def _unequal(q: dict) -> bool:
 
 
 def default_analysis(q: dict) -> str:
-    """Welch when the two SDs differ, else the pooled t test."""
-    return "welch_t" if _unequal(q) else "pooled_t"
+    """Welch when the two SDs differ (as posted, or as a posted data model implies), else the
+    pooled t test."""
+    if _unequal(q):
+        return "welch_t"
+    data = (q.get("simulation") or {}).get("data") if q.get("method") == "simulation" else None
+    if isinstance(data, dict) and isinstance(data.get("control"), dict):
+        try:
+            sds = [
+                models.moments(models.check_arm(data[k], k))[1] for k in ("control", "treatment")
+            ]
+        except (QuestionError, KeyError):  # a malformed model is reported by the plan, on its path
+            return "pooled_t"
+        if None not in sds and abs(sds[0] - sds[1]) > 1e-12 * max(sds):
+            return "welch_t"
+    return "pooled_t"
 
 
 def _analysis(q: dict) -> str:
@@ -313,7 +327,7 @@ def describe(q: dict) -> dict:
         block = noether.method_block(q, analysis, label)
         block["derived"] = derive(q)
         block["notes"].append(
-            "P(Y > X) = Φ(difference / √(sd_control² + sd_treatment²)) for normal outcomes."
+            "P(Y > X) = Φ(difference / √(σ₁² + σ₂²)) for normal outcomes (σ₁, σ₂ the group SDs)."
         )
         return block
     notes = []
@@ -409,16 +423,15 @@ def implied_fields(q: dict, arms: list[dict]) -> dict:
         fields["difference"] = m2 - m1
     else:
         missing.append("difference")
-    if v1 is not None and v2 is not None and abs(v1 - v2) <= 1e-12 * max(v1, v2):
+    checks: dict = {}
+    common = (q.get("assumptions") or {}).get("sd") is not None
+    if v1 is None or v2 is None:  # no finite SD: name the SD fields in the form posted
+        missing += ["sd"] if common else ["sd_control", "sd_treatment"]
+    elif abs(v1 - v2) <= 1e-12 * max(v1, v2):
         fields["sd"] = math.sqrt(v1)
-        checks = {}
     else:
-        for name, v in (("sd_control", v1), ("sd_treatment", v2)):
-            if v is not None:
-                fields[name] = math.sqrt(v)
-            else:
-                missing.append(name)
-        checks = {"sd": [n for n in ("sd_control", "sd_treatment") if n in fields]}
+        fields["sd_control"], fields["sd_treatment"] = math.sqrt(v1), math.sqrt(v2)
+        checks = {"sd": ["sd_control", "sd_treatment"]}  # a posted common SD must fit both
     return {"fields": fields, "missing": missing, "replaces": checks}
 
 

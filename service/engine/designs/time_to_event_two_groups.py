@@ -303,10 +303,10 @@ def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
     s = _setup(q)
     if s["events_formula"] == "freedman":
-        name = "log-rank events by Freedman, (z_a + z_b)²(1 + r·HR)² / (r(1 − HR)²)"
+        name = "log-rank events by Freedman, (zα + zβ)²(1 + r·HR)² / (r(1 − HR)²)"
         ref = "Freedman (1982), Stat Med 1:121; Lachin & Foulkes (1986), Biometrics 42:507"
     else:
-        name = "log-rank events by Schoenfeld, (z_a + z_b)² / (p(1 − p)·ln²HR)"
+        name = "log-rank events by Schoenfeld, (zα + zβ)² / (p(1 − p)·ln²HR)"
         ref = "Schoenfeld (1983), Biometrics 39:499; Lachin & Foulkes (1986), Biometrics 42:507"
     return analytic_method(
         "logrank",
@@ -356,7 +356,7 @@ def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict]
 def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:
     """Longer times count as better, so a one-sided search looks below 1; only when shorter
     times are better does it look above 1 (each candidate's test faces its own direction)."""
-    if rule.tails == 1 and rule.direction > 0:
+    if rule.tails == 1 and rule.direction < 0:
         return EffectAxis(1.0, 1, math.inf)
     return EffectAxis(1.0, -1, 1.0)
 

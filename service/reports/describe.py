@@ -198,8 +198,8 @@ def group_names(q: dict, k: int) -> list[str]:
 
 
 def is_omnibus(q: dict) -> bool:
-    """A test across more than two groups has no sides: saying 'two-sided' would misdescribe it."""
-    return group_count(q) > 2
+    """A cell whose tests have no direction (the F test): 'two-sided' would misdescribe it."""
+    return not cell(q).directional
 
 
 def label_of_analysis(q: dict, name: str | None) -> str:

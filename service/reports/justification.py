@@ -111,10 +111,10 @@ def _one_sided_words(q: dict) -> str:
 
 
 def _alpha(q: dict, steps: list[dict]) -> str:
-    sides = "" if is_omnibus(q) else f"{q.get('alternative', 'two-sided')} "
-    text = f"a {sides}significance level of {fmt_num(q['alpha'])}"
+    alternative = "" if is_omnibus(q) else f"{q.get('alternative', 'two-sided')} "
+    text = f"a {alternative}significance level of {fmt_num(q['alpha'])}"
     aim = (q.get("hypothesis") or {}).get("aim", "superiority")
-    if sides == "one-sided " and aim == "superiority":
+    if alternative == "one-sided " and aim == "superiority":
         text += f" (the alternative: {_one_sided_words(q)})"
     for step in steps:
         if step["step"] == "bonferroni":
@@ -239,14 +239,11 @@ def _clusters(clusters: list) -> str:
 
 def method_sentence(record: dict) -> str:
     """How the answer was computed: the method, its approximation and reference."""
-    q, m = record["question"], record.get("method") or {}
-    test = analysis_label(q, record)
+    m = record.get("method") or {}
     if m.get("method") == "simulation":
-        text = f"The calculation used Monte Carlo simulation of {test}."
-    else:
-        how = "; ".join(str(x) for x in (m.get("approximation"), m.get("reference")) if x)
-        text = f"The calculation was analytic for {test}" + (f" ({how})." if how else ".")
-    return text
+        return "The calculation used Monte Carlo simulation of the planned analysis."
+    how = "; ".join(str(x) for x in (m.get("approximation"), m.get("reference")) if x)
+    return "The calculation was analytic" + (f" ({how})." if how else ".")
 
 
 def method_note(record: dict) -> str:
@@ -465,7 +462,7 @@ def justification(record: dict, context: dict | None = None) -> str:
         q["find"]
     ]
     opening = (
-        f"The {what} was determined for the design “{cell_label(q)}”, to be analyzed with "
+        f"The {what} was determined for the design “{cell_label(q)}”; planned analysis: "
         f"{analysis_label(q, record)}. {method_sentence(record)}"
     )
     alpha_note = (record.get("method") or {}).get("alpha_note")

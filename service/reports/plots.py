@@ -23,6 +23,7 @@ import matplotlib
 matplotlib.use("Agg")  # no display on servers and workers; must precede any pyplot import
 
 from matplotlib.figure import Figure  # noqa: E402  (after the backend is chosen)
+from matplotlib.ticker import PercentFormatter  # noqa: E402
 
 from service.engine import QuestionError, compute  # noqa: E402
 
@@ -158,11 +159,11 @@ def _curve_title(record: dict, x_label: str) -> str:
 def _curve_assumptions(record: dict) -> list[str]:
     """The lines under the title: design and analysis, the test's level, the assumed values."""
     q = record["question"]
-    sides = "" if describe.is_omnibus(q) else f", {q.get('alternative', 'two-sided')}"
+    alternative = "" if describe.is_omnibus(q) else f", {q.get('alternative', 'two-sided')}"
     how = "Monte Carlo simulation" if q.get("method") == "simulation" else "analytic"
     lines = [
         f"{describe.cell_label(q)}; {describe.analysis_label(q, record)} ({how}); "
-        f"alpha {describe.fmt_num(q['alpha'])}{sides}",
+        f"alpha {describe.fmt_num(q['alpha'])}{alternative}",
         f"Assuming {describe.assumed_text(_power_question(record), record)}",
     ]
     adjustments = []
@@ -254,6 +255,7 @@ def _figure(points: dict) -> Figure:
     ax.set_xlabel(points["x_label"], color=_INK)
     ax.set_ylabel("Power", color=_INK)
     ax.set_ylim(0, 1.02)
+    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
     ax.grid(True, color="#d5dbe1", lw=0.6)
     ax.tick_params(colors=_INK)
     for side in ("top", "right"):
@@ -342,6 +344,7 @@ def sensitivity_svg(grid_result: dict, question: dict | None = None) -> str:
     ax.set_ylabel(data["y_label"], color=_INK)
     if data["y_label"] == "Power":
         ax.set_ylim(0, 1.02)
+        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
     ax.grid(True, color="#d5dbe1", lw=0.6)
     ax.tick_params(colors=_INK)
     for side in ("top", "right"):

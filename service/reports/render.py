@@ -110,8 +110,8 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
         ("Planned analysis", describe.analysis_label(q, record)),
         ("Looking for", _FIND.get(q["find"], q["find"]).capitalize()),
     ]
-    sides = "" if describe.is_omnibus(q) else q.get("alternative", "two-sided")
-    rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {sides}".strip()))
+    alternative = "" if describe.is_omnibus(q) else q.get("alternative", "two-sided")
+    rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {alternative}".strip()))
     if q.get("target_power") is not None:
         rows.append(("Target power", words.fmt_pct(q["target_power"])))
     if q.get("sample_size"):
@@ -551,7 +551,7 @@ def render_staff_list(
         counts[status] = counts.get(status, 0) + 1
         protocol, requester = r.get("protocol") or {}, r.get("requester") or {}
         progress = r.get("progress")
-        design, analysis = _study_words(r.get("question"))
+        cell, analysis = _study_words(r.get("question"))
         rows.append(
             {
                 "href": report_href.format(id=r.get("id", "")),
@@ -559,7 +559,7 @@ def render_staff_list(
                 "protocol_id": protocol.get("id") or "",
                 "requester": requester.get("name") or "—",
                 "department": requester.get("department"),
-                "design": design,
+                "cell": cell,
                 "analysis": analysis,
                 "method": _METHODS.get(r.get("method"), ""),
                 "status": status,

@@ -201,15 +201,15 @@ class SimulationSchema(Strict):
         description="replicates per candidate n in the search",
     )
 
-    def __init__(self, *, design: Any = None, **kwargs: Any):
-        self.design = design  # the cell's design: shapes ``data``
+    def __init__(self, *, cell: Any = None, **kwargs: Any):
+        self.cell = cell  # the cell's design object: shapes ``data``
         super().__init__(**kwargs)
 
 
 @per_design
 def simulation_schema(design: Any) -> SimulationSchema:
     """The shared simulation schema of a cell (None: the cell is unknown)."""
-    return SimulationSchema(design=design)
+    return SimulationSchema(cell=design)
 
 
 class SimulationField(Obj):

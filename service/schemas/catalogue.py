@@ -25,7 +25,7 @@ from .blocks import (
 from .data_models import FAMILIES, FAMILY_SCHEMAS, data_keys, families_for, takes_data
 from .fields import Number, Whole
 from .json_schema import SCHEMA_PATH
-from .vocabulary import cell_name, cells
+from .vocabulary import cells
 
 _RANGE_KEYS = ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum", "minItems", "enum")
 
@@ -133,7 +133,7 @@ def describe_cell(design: Any) -> dict[str, Any]:
     return {
         "outcome": design.outcome,
         "layout": design.layout,
-        "name": cell_name(design),
+        "name": design.cell,
         "label": design.label,
         "analyses": [
             {

@@ -199,7 +199,7 @@ class DataModel(fields.Dict):
     """A simulation data model, shaped by the cell of the question it sits in."""
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
-        design = getattr(self.parent, "design", None)
+        design = getattr(self.parent, "cell", None)
         if design is None:
             if not isinstance(value, Mapping):
                 raise ValidationError(f"must be an object; {got(value)}")

@@ -20,7 +20,7 @@ from marshmallow import fields as mfields
 from . import declared
 from .data_models import FAMILY_PARAMS, data_keys, families_for
 from .fields import Choice, Flag, Number, NumberList, Obj, Text, Whole
-from .vocabulary import BLOCKS, cell_name, cells, layouts, outcomes
+from .vocabulary import BLOCKS, cells, layouts, outcomes
 
 DIALECT = "https://json-schema.org/draft/2020-12/schema"
 SCHEMA_PATH = "/v1/catalogue/question.schema.json"
@@ -106,7 +106,7 @@ def data_schema(design: Any) -> dict:
     families = families_for(design)
     keys = data_keys(design)
     if getattr(design, "simulation", None) is None or not families or not keys:
-        return {"type": "null", "description": f"no data model for {cell_name(design)}"}
+        return {"type": "null", "description": f"no data model for {design.cell}"}
     one = {"oneOf": [distribution_schema(f) for f in families]}
     if keys == ("groups",):
         props: dict = {"groups": {"type": "array", "items": one, "minItems": 2}}

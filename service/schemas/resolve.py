@@ -46,7 +46,7 @@ def method(design: Any, data: dict, raw: Mapping, blocks: dict | None = None) ->
     simulation for a data model posted without the effect it implies; else analytic."""
     if data.get("method") is not None:
         return data["method"]
-    asked = next((a for a in design.analyses if a.name == data.get("analysis")), None)
+    asked = next((a for a in design.analyses if a.name == data.get("analysis")), None)  # valid
     if asked is not None:
         return "analytic" if "analytic" in asked.methods else asked.methods[0]
     find = data.get("find") or "sample_size"
@@ -60,7 +60,7 @@ def method(design: Any, data: dict, raw: Mapping, blocks: dict | None = None) ->
 def analysis(design: Any, method_: str, aim: str, blocks: dict, data: dict) -> str | None:
     """The design's default analysis when the method and aim take it, else the cell's first
     analysis that does; None when none does."""
-    fits = [a.name for a in design.analyses if method_ in a.methods and aim in a.aims]
+    fits = design.analyses_for(method_, aim)
     q = {
         **blocks,
         "find": data.get("find") or "sample_size",

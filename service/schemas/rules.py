@@ -18,7 +18,7 @@ from . import resolve
 from .cell import Cell
 from .data_models import data_keys
 from .fields import got, number_text, posted, put_error, show
-from .vocabulary import cell_name, cells, takes_ratio
+from .vocabulary import cells, takes_ratio
 
 
 @dataclass
@@ -53,6 +53,7 @@ def check(ctx: Context) -> None:
     margin_aims(ctx)
     if ctx.design is None:
         return
+    directionless(ctx)
     allocation(ctx)
     cell_fields(ctx)
     analysis_and_method(ctx)
@@ -114,26 +115,31 @@ def margin_aims(ctx: Context) -> None:
         )
     if ctx.design is None:
         return
-    if aim not in aims_of(ctx.design):
-        offering = [f'"{cell_name(d)}"' for d in cells() if aim in aims_of(d)]
+    if aim not in ctx.design.aims():
+        offering = [f'"{d.cell}"' for d in cells() if aim in d.aims()]
         ctx.add(
             "hypothesis.aim",
             f"{aim} is offered only for {', '.join(offering) or 'no cell'}; "
-            f'got "{aim}" with "{cell_name(ctx.design)}"',
+            f'got "{aim}" with "{ctx.design.cell}"',
         )
     margin = (ctx.data.get("hypothesis") or {}).get("margin")
     solved = {f.name: f for f in ctx.design.fields}.get(ctx.design.solved)
     if margin is not None and getattr(solved, "unit", None) == "proportion" and not abs(margin) < 1:
         ctx.add(
             "hypothesis.margin",
-            f"must be in (-1, 1) for {cell_name(ctx.design)} (a difference of proportions); "
+            f"must be in (-1, 1) for {ctx.design.cell} (a difference of proportions); "
             f"got {show(margin)}",
         )
 
 
-def aims_of(design: Any) -> tuple[str, ...]:
-    """Every aim some analysis of the cell answers."""
-    return tuple(dict.fromkeys(a for analysis in design.analyses for a in analysis.aims))
+def directionless(ctx: Context) -> None:
+    """A cell whose tests have no direction (an F test) takes no one-sided alternative."""
+    if ctx.data.get("alternative") == "one-sided" and not getattr(ctx.design, "directional", True):
+        ctx.add(
+            "alternative",
+            f'must be "two-sided" for {ctx.design.cell}: its tests have no direction (they '
+            'reject for large statistics only); got "one-sided"',
+        )
 
 
 # -- allocation ---------------------------------------------------------------------------------
@@ -147,7 +153,7 @@ def allocation(ctx: Context) -> None:
         ctx.add(
             "allocation_ratio",
             f"applies only to two-group layouts; got {show(raw['allocation_ratio'])} for "
-            f'"{cell_name(design)}"',
+            f'"{design.cell}"',
         )
     if data.get("allocation_rounding") != "exact_ratio":
         return
@@ -191,47 +197,44 @@ def cell_fields(ctx: Context) -> None:
 
 def analysis_and_method(ctx: Context) -> None:
     """The analysis is one of the cell's, offered by the method and for the aim."""
-    design, raw = ctx.design, ctx.raw
+    design, asked = ctx.design, ctx.data.get("analysis")
     names = [a.name for a in design.analyses]
-    asked = ctx.data.get("analysis")
     if asked is not None and asked not in names:
-        ctx.add(
-            "analysis",
-            f'must be one of {", ".join(names)} for "{cell_name(design)}"; {got(asked)}',
-        )
+        ctx.add("analysis", f'must be one of {", ".join(names)} for "{design.cell}"; {got(asked)}')
         return
-    if "method" not in ctx.data and posted(raw, "method"):
+    if "method" not in ctx.data and posted(ctx.raw, "method"):
         return  # the method failed its own check
     method = resolve.method(design, ctx.data, ctx.raw, _blocks(ctx))
-    analysis = asked
-    if analysis is None:
-        if ctx.aim is None or ctx.cell is None or ctx.cell.errors:
-            return
-        analysis = resolve.analysis(design, method, ctx.aim, _blocks(ctx), ctx.data)
-        if analysis is None:
-            offered = [a.name for a in design.analyses if method in a.methods]
+    if asked is not None:
+        _asked_analysis_fits(ctx, design.analysis(asked), method)
+    elif ctx.aim is not None and ctx.cell is not None and not ctx.cell.errors:
+        if resolve.analysis(design, method, ctx.aim, _blocks(ctx), ctx.data) is None:
+            offered = design.analyses_for(method)
             ctx.add(
                 "method",
-                f'{method} answers no {ctx.aim} question for "{cell_name(design)}"'
+                f'{method} answers no {ctx.aim} question for "{design.cell}"'
                 + (f" (it offers {', '.join(offered)})" if offered else "")
                 + f"; got {show(method)}",
             )
-            return
-    chosen = next(a for a in design.analyses if a.name == analysis)
+
+
+def _asked_analysis_fits(ctx: Context, chosen: Any, method: str) -> None:
+    """A posted analysis must be honored by the method and answer the aim."""
+    design = ctx.design
     if method not in chosen.methods:
-        offered = [a.name for a in design.analyses if method in a.methods]
+        offered = design.analyses_for(method)
         ctx.add(
             "analysis",
-            f'{analysis} is not offered by the {method} method for "{cell_name(design)}"; '
+            f'{chosen.name} is not offered by the {method} method for "{design.cell}"; '
             f"{method} offers {', '.join(offered) or 'no analysis'} there "
-            f"({analysis}: {' and '.join(chosen.methods)} only); got {show(analysis)}",
+            f"({chosen.name}: {' and '.join(chosen.methods)} only); got {show(chosen.name)}",
         )
     elif ctx.aim is not None and ctx.aim not in chosen.aims:
-        fitting = [a.name for a in design.analyses if ctx.aim in a.aims and method in a.methods]
+        fitting = design.analyses_for(method, ctx.aim)
         ctx.add(
             "analysis",
-            f"{analysis} answers {' and '.join(chosen.aims)} only; for {ctx.aim} use one of "
-            f"{', '.join(fitting) or 'none'}; got {show(analysis)}",
+            f"{chosen.name} answers {' and '.join(chosen.aims)} only; for {ctx.aim} use one of "
+            f"{', '.join(fitting) or 'none'}; got {show(chosen.name)}",
         )
 
 

@@ -10,14 +10,14 @@ from collections.abc import Mapping
 from typing import Any
 
 from service.engine import designs
+from service.engine.designs.base import AIMS, BLOCKS, METHODS
+
+__all__ = ["AIMS", "BLOCKS", "METHODS"]  # the engine's words, re-exported for the schema modules
 
 FINDS = ("sample_size", "power", "effect")
-METHODS = ("analytic", "simulation")
-AIMS = ("superiority", "noninferiority", "equivalence")
 ALTERNATIVES = ("two-sided", "one-sided")
 ROUNDINGS = ("each_group", "exact_ratio")
 DECISION_RULES = ("point", "lower_bound")
-BLOCKS = ("effect", "assumptions", "analysis_options")
 # Layouts whose groups are sized by the treatment:control allocation ratio (a word of the
 # vocabulary, not a design: every two-group cell takes it).
 RATIO_LAYOUTS = ("two_groups",)
@@ -40,14 +40,9 @@ def layouts(outcome: str | None = None) -> tuple[str, ...]:
     return tuple(dict.fromkeys(d.layout for d in cells() if outcome in (None, d.outcome)))
 
 
-def cell_name(design: Any) -> str:
-    """'continuous × two_groups': how messages name a cell."""
-    return f"{design.outcome} × {design.layout}"
-
-
 def cells_text() -> str:
     """Every cell, quoted, for messages that list what is allowed."""
-    return ", ".join(f'"{cell_name(d)}"' for d in cells())
+    return ", ".join(f'"{d.cell}"' for d in cells())
 
 
 def cell_of(data: Any) -> Any | None:

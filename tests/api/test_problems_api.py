@@ -111,7 +111,7 @@ def test_unknown_id_on_reads(client, path):
         ("status=done", "query.status"),
         ("outcome=two_medians", "query.outcome"),
         ("layout=crossover", "query.layout"),
-        ("design=continuous", "query.design"),
+        ("cell=continuous", "query.cell"),
         ("requester=not-an-email", "query.requester"),
         ("submitted_from=yesterday", "query.submitted_from"),
         ("submitted_from=2025-03-02&submitted_to=2025-03-01", "query.submitted_to"),

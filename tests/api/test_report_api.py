@@ -12,18 +12,10 @@ from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Request
 
-QUESTION = {
-    "outcome": "continuous",
-    "layout": "two_groups",
-    "find": "sample_size",
-    "effect": {"difference": 0.5},
-    "assumptions": {"sd": 1.0},
-}
-
 
 def _computed(api) -> str:
     """Submit a request and store its engine record as a worker would."""
-    request_id = api.submit(api.request_body(QUESTION)).get_json()["id"]
+    request_id = api.submit(api.request_body()).get_json()["id"]
     with session_scope(api.sessions()) as s:
         question = s.get(Request, request_id).question
         assert jobs.claim(s, "request", request_id, "worker-test", 60, 3)
@@ -41,7 +33,7 @@ def test_report_page_tells_the_whole_story(client, api):
     # published 64 per group: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided .05, power .80)
     assert "64" in page and "128" in page
     assert "<svg" in page and "statistician" in page.lower()
-    record = compute(load_question(QUESTION))
+    record = compute(load_question(api.question_body()))
     assert record["reproducibility"]["record_sha256"] in page
 
 
@@ -60,7 +52,7 @@ def test_curve_svg_and_png(client, api):
 
 
 def test_report_before_a_result_is_a_conflict(client, api):
-    request_id = api.submit(api.request_body(QUESTION)).get_json()["id"]
+    request_id = api.submit(api.request_body()).get_json()["id"]
     r = client.get(f"/v1/requests/{request_id}/report")
     assert r.status_code == 409 and r.mimetype == "application/problem+json"
     assert "no result yet" in r.get_json()["detail"]

@@ -6,21 +6,12 @@ same vocabulary as the API, the CLI and the examples (VOCAB §1).
 
 from service.engine import compute
 from service.schemas import load_question
+from tests.schemas.posted import SURV as SURVIVAL  # HR 0.75, control median 12 months
+
+__all__ = ["D_HALF", "REQUEST", "SURVIVAL", "answer", "posted", "question"]
 
 # d = 0.5: difference 0.5 with SD 1 (Cohen 1988, Table 2.4.1: 64 per group at power .80).
 D_HALF = {"effect": {"difference": 0.5}, "assumptions": {"sd": 1.0}}
-# Control median 12 months, accrual 24 and further follow-up 12 months, HR 0.75.
-SURVIVAL = {
-    "outcome": "time_to_event",
-    "layout": "two_groups",
-    "effect": {"hazard_ratio": 0.75},
-    "assumptions": {
-        "time_unit": "months",
-        "control_median": 12.0,
-        "accrual": 24.0,
-        "follow_up": 12.0,
-    },
-}
 
 # Invented demo request (Northbridge General Hospital research office); not real data.
 REQUEST = {
@@ -42,11 +33,16 @@ REQUEST = {
 }
 
 
-def question(**posted) -> dict:
-    """The normalized question of a posted one; continuous × two groups, d = 0.5 by default."""
+def posted(**fields) -> dict:
+    """A question as posted; continuous × two groups, d = 0.5, unless ``fields`` say otherwise."""
     body = {"outcome": "continuous", "layout": "two_groups", "find": "sample_size", **D_HALF}
-    body.update(posted)
-    return load_question(body)
+    body.update(fields)
+    return body
+
+
+def question(**fields) -> dict:
+    """The normalized question of a posted one (see ``posted``)."""
+    return load_question(posted(**fields))
 
 
 def answer(**posted) -> dict:

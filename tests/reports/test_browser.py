@@ -139,7 +139,7 @@ def test_screenshot_is_not_blank(site, tmp_path):
     assert shot.exists(), result.stderr[-2000:]
     width, height, distinct = _png_pixels(shot.read_bytes())
     assert (width, height) == (1280, 2000)
-    assert distinct > 100  # text, chart and tables: far more than a blank or single-colour page
+    assert distinct > 100  # text, chart and tables: far more than a blank or single-color page
     from matplotlib import image
 
     pixels = image.imread(str(shot))

@@ -246,7 +246,7 @@ def test_other_cells(posted, pieces):
         assert piece in text, piece
     _assert_no_foreign_numbers(text, record)
     if posted.get("layout") == "k_groups":
-        assert "two-sided" not in text  # the F test has no sides
+        assert "two-sided" not in text  # the F test has no direction
 
 
 def test_noninferiority_names_the_margin():
@@ -255,6 +255,7 @@ def test_noninferiority_names_the_margin():
         effect={"difference": 0.05},
         assumptions={"sd": 0.1},
         alternative="one-sided",
+        alpha=0.05,
         hypothesis={"aim": "noninferiority", "margin": -0.05},
     )
     text = justification(record)

@@ -27,13 +27,15 @@ from service.schemas import load_question
 EXAMPLES = Path(__file__).resolve().parents[2] / "service" / "examples"
 
 # A raw token: snake_case words such as welch_t, two_groups, noncentral_f, sd_difference.
-_TOKEN = re.compile(r"\b[a-z]+(?:_[a-z0-9]+)+\b")
+# One-letter subscripts of a formula (z_a in an approximation's name) are notation, not tokens.
+_TOKEN = re.compile(r"\b[a-z]+(?:_[a-z0-9]+)*_[a-z0-9]{2,}\b|\b[a-z]{2,}_[a-z0-9]+\b")
 
 
 class _Visible(HTMLParser):
-    """The text a reader sees: not the stylesheet, the script, the drawing or the JSON."""
+    """The prose a reader sees: not the stylesheet, script, drawing, or code and JSON quoted
+    verbatim for re-running (the seed scheme, the normalized question)."""
 
-    _HIDDEN = {"style", "script", "svg", "pre", "title"}
+    _HIDDEN = {"style", "script", "svg", "pre", "code", "title"}
 
     def __init__(self):
         super().__init__()
@@ -58,10 +60,6 @@ def _visible(page: str) -> str:
 
 def _page(record: dict) -> str:
     return render_report(REQUEST, record, curve_svg="<svg></svg>")
-
-
-def _sentences(text: str, count: int) -> str:
-    return " ".join(re.split(r"(?<=\.) (?=[A-Z])", text)[:count])
 
 
 def test_analytic_and_simulated_power_print_alike(simulated_power_record):
@@ -97,7 +95,7 @@ def test_paired_prints_the_entered_sd_and_correlation_not_the_derived_sd():
     derived = record["method"]["derived"]["sd_difference"]
     assert derived == pytest.approx(math.sqrt(51.2))
     text = justification(record)
-    opening = _sentences(text, 4)
+    opening = text[: text.index("Method note")]
     assert "8" in re.findall(r"\d+(?:\.\d+)?", opening) and "0.6" in opening
     assert describe.fmt_num(derived) not in opening and "7.16" not in opening
     note = text[text.index("Method note") :]
@@ -122,15 +120,14 @@ def test_find_effect_names_the_field_by_its_label():
     assert record["effect"]["field"] not in text.replace(label, "")
 
 
-def test_no_raw_tokens_in_any_cells_report():
-    """Every registered cell's example renders with words, never snake_case tokens."""
-    for design in designs.all():
-        posted = json.loads((EXAMPLES / design.example).read_text(encoding="utf-8"))
-        record = compute(load_question(posted))
+def test_no_raw_tokens_in_any_examples_report():
+    """Every example (each cell's, and the simulated ones) renders with words, never tokens."""
+    for path in sorted(EXAMPLES.glob("*.json")):
+        record = compute(load_question(json.loads(path.read_text(encoding="utf-8"))))
         page = _visible(_page(record))
-        assert not _TOKEN.findall(page), (design.label, sorted(set(_TOKEN.findall(page))))
+        assert not _TOKEN.findall(page), (path.name, sorted(set(_TOKEN.findall(page))))
         text = justification(record)
-        assert not _TOKEN.findall(text), (design.label, _TOKEN.findall(text))
+        assert not _TOKEN.findall(text), (path.name, _TOKEN.findall(text))
         for retired in ("simulated trials", "trials per", "analysed", "calibrated"):
             assert retired not in page
 
@@ -168,3 +165,23 @@ def test_staff_list_rows_name_the_cell_and_the_analysis():
     assert REQUEST["protocol"]["title"] in row
     assert design.label in row and describe.analysis_label(q) in row
     assert not _TOKEN.findall(row)
+
+
+def test_every_entered_value_is_printed_as_entered():
+    """Each cell's example: every number posted in effect and assumptions is in the paragraph."""
+    for design in designs.all():
+        posted = json.loads((EXAMPLES / design.example).read_text(encoding="utf-8"))
+        record = compute(load_question(posted))
+        text = justification(record)
+        opening = text.split("Method note")[0]
+        for block in ("effect", "assumptions"):
+            for name, value in (posted.get(block) or {}).items():
+                for v in value if isinstance(value, list) else [value]:
+                    if isinstance(v, (int, float)) and not isinstance(v, bool):
+                        assert describe.fmt_num(v) in opening, (design.label, name, v)
+
+
+def test_the_cautions_stay():
+    page = _visible(_page(answer()))
+    for words in ("planning aid", "qualified statistician", "Ethics committees, regulators"):
+        assert words in page, words

@@ -4,6 +4,7 @@ Exact arithmetic only: 137 enrolled with 10% dropout leave 123.3 analyzed, simul
 (common practice, no source: dropout divides the analyzed n by 1 − rate).
 """
 
+from markupsafe import escape
 from reports_testkit import REQUEST, answer, question
 
 from service.engine import compute
@@ -20,6 +21,7 @@ def test_robustness_header_names_the_analyzed_numbers_that_were_simulated():
     page = render_report(REQUEST, record, curve_svg="<svg></svg>", robustness=panel)
     assert "simulated at 123 analyzed per group (from 137 enrolled per group" in page
     assert "200 replicates" in page and "trials" not in page
+    assert f"{escape(record['method']['analysis_label'])} simulated at 123" in page
     assert "at 137 per group" not in page
 
 

@@ -81,3 +81,8 @@ def test_report_shows_the_grid_as_table_and_curves_and_pending_explorations(anal
     assert 'id="sensitivity-figure"' in page and "sensitivity-line-1" in page
     assert "Robustness panel: queued" in page
     assert REQUEST["context"]["effect_source"] in page
+    # the grid's columns are named by the cell's field labels, never by the dotted path
+    q = analytic_record["question"]
+    for path in ("effect.difference", "assumptions.sd"):
+        assert f">{describe.path_label(q, path).capitalize()}</th>" in page
+        assert path not in page.split('id="sensitivity"')[1].split("</table>")[0]

@@ -261,7 +261,7 @@ def _source(context: dict | None) -> str:
     if source and str(source).strip():
         return f" The assumed values are based on {str(source).strip().rstrip('.')}."
     return (
-        " [State the source of the assumed values: pilot data, literature or clinical judgement.]"
+        " [State the source of the assumed values: pilot data, literature or clinical judgment.]"
     )
 
 

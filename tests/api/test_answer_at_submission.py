@@ -18,7 +18,6 @@ from service import create_app
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
 from service.store.models import Exploration
-from tests.conftest import question_body
 from workers.tasks import run_request_job
 
 
@@ -34,6 +33,18 @@ def live_app(settings):
 def live_api(live_app, api, tokens):
     """The ``api`` helpers bound to ``live_app``."""
     return type(api)(live_app.test_client(), live_app, type(tokens)(live_app))
+
+
+def question_body(**overrides) -> dict:
+    question = {
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "find": "sample_size",
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
+    }
+    question.update(overrides)
+    return question
 
 
 def _messages(settings) -> list[dict]:
@@ -104,8 +115,8 @@ def test_simulation_question_is_still_queued(live_api, settings):
 
 
 def test_explorations_posted_with_an_analytic_request_are_handed_to_the_queue(live_api, settings):
-    item = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.6]}}
-    body = live_api.submit(live_api.request_body(question_body(), explorations=[item])).get_json()
+    grid = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.6]}}
+    body = live_api.submit(live_api.request_body(question_body(), explorations=[grid])).get_json()
     assert body["status"] == "computed"
     (exploration,) = body["explorations"]
     # The request is computed, so its exploration is published for a worker at once.

@@ -157,8 +157,24 @@ def _publish(analysis_id: str) -> bool:
 def create_analysis(request_id: str):
     """Store an analysis of the request and publish it when the request has a result."""
     reject_query()
-    actor = current_actor()
     _raw, data = load_body(AnalysisCreateSchema())
+    analysis_id = start_analysis(request_id, data)
+    with session_scope(sessions()) as session:
+        body = render.analysis(session.get(Analysis, analysis_id))
+    return located(
+        body,
+        202,
+        url_for("reports.analyses.get_analysis", request_id=request_id, analysis_id=analysis_id),
+    )
+
+
+def start_analysis(request_id: str, data: dict) -> str:
+    """Store a validated analysis body (kind, grid or replicates), charge and publish it.
+
+    The API's and the desk's one way in: 409 for a failed or cancelled request, 422 for an
+    analysis the request cannot take or over the budget. Returns the analysis id.
+    """
+    actor = current_actor()
     with session_scope(sessions()) as session:
         row = load_request(session, request_id)
         if row.status in _NO_NEW_ANALYSIS:
@@ -173,13 +189,7 @@ def create_analysis(request_id: str):
         charge(session, [(data["kind"], analysis_id, estimate)])
     if record is not None:
         _publish(analysis_id)
-    with session_scope(sessions()) as session:
-        body = render.analysis(session.get(Analysis, analysis_id))
-    return located(
-        body,
-        202,
-        url_for("reports.analyses.get_analysis", request_id=request_id, analysis_id=analysis_id),
-    )
+    return analysis_id
 
 
 @bp.get("/requests/<request_id>/analyses")

@@ -43,11 +43,27 @@ class Desk:
 
 
 @pytest.fixture
-def desk_app(settings):
-    """The service with the desk, answering analytic questions at submission."""
-    application = create_app(dict(settings, ANSWER_AT_SUBMISSION=True, DESK_IDLE_MINUTES=30))
-    yield application
-    application.extensions["sizewise"]["engine"].dispose()
+def make_desk_app(settings):
+    """``make_desk_app(**extra)``: the service with the desk, answering analytic questions at
+    submission, with extra settings."""
+    made = []
+
+    def build(**extra):
+        application = create_app(
+            dict(settings, ANSWER_AT_SUBMISSION=True, DESK_IDLE_MINUTES=30, **extra)
+        )
+        made.append(application)
+        return application
+
+    yield build
+    for application in made:
+        application.extensions["sizewise"]["engine"].dispose()
+
+
+@pytest.fixture
+def desk_app(make_desk_app):
+    """The service with the desk (Secure cookie, as outside local runs)."""
+    return make_desk_app()
 
 
 @pytest.fixture

@@ -135,7 +135,7 @@ def rerun(request_id: str):
 def issue():
     """Admins: issue a token and show its secret on this page, once."""
     created = issue_token(request.form.get("role", ""), request.form.get("name", ""))
-    return page("desk/tokens.html.j2", tokens=all_tokens(), roles=TOKEN_ROLES, issued=created)
+    return page("desk/tokens.html", tokens=all_tokens(), roles=TOKEN_ROLES, issued=created)
 
 
 @bp.post("/tokens/<token_id>/revoke")

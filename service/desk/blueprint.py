@@ -69,7 +69,7 @@ def _sign_in_needed(exc: SignInNeeded):
 @bp.errorhandler(CSRFError)
 def _csrf_refused(exc: CSRFError):
     return page(
-        "desk/error.html.j2",
+        "desk/error.html",
         400,
         title="Form refused",
         message=f"This form was refused: {exc.description} Reload the page and send it again.",
@@ -93,7 +93,7 @@ def _refused(exc: ApiError):
             f"Your role ({exc.extra.get('role')}) may not do this; it is for: {', '.join(roles)}."
         )
     return page(
-        "desk/error.html.j2", exc.status, title=titles.get(exc.status, exc.title), message=message
+        "desk/error.html", exc.status, title=titles.get(exc.status, exc.title), message=message
     )
 
 
@@ -101,4 +101,4 @@ def _refused(exc: ApiError):
 def _invalid(exc: ValidationError):
     messages = flatten_errors(exc.messages)
     text = "; ".join(f"{k}: {' '.join(v)}" for k, v in messages.items())
-    return page("desk/error.html.j2", 422, title="Invalid input", message=text)
+    return page("desk/error.html", 422, title="Invalid input", message=text)

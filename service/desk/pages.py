@@ -34,7 +34,7 @@ def home():
 @bp.get("/sign-in")
 def sign_in_form():
     """The sign-in form: one field, the token."""
-    return page("desk/sign_in.html.j2", next=safe_next(request.args.get("next")))
+    return page("desk/sign_in.html", next=safe_next(request.args.get("next")))
 
 
 @bp.post("/sign-in")
@@ -44,7 +44,7 @@ def sign_in():
     target = safe_next(request.form.get("next"))
     if caller is None:
         flash("That token is unknown or revoked. Check it and try again.", "error")
-        return page("desk/sign_in.html.j2", 401, next=target)
+        return page("desk/sign_in.html", 401, next=target)
     return redirect(target)
 
 
@@ -85,7 +85,7 @@ def queue_page():
         )
         rows = [_row_view(r, today) for r in found.rows]
     return page(
-        "desk/queue.html.j2",
+        "desk/queue.html",
         filters=filters,
         found=found,
         rows=rows,
@@ -122,7 +122,7 @@ def request_page(request_id: str):
     report = report_parts(detail, done) if detail["result"] is not None else None
     status = detail["status"]
     return page(
-        "desk/request.html.j2",
+        "desk/request.html",
         req=detail,
         status_label=STATUS_LABELS.get(status, status),
         cell=labels.question_label(detail["question"]),
@@ -164,4 +164,4 @@ def _question_rows(question: dict) -> list[tuple[str, str]]:
 @bp.get("/tokens")
 def tokens():
     """Admins: every token (never a secret), the form to issue one, a revoke button each."""
-    return page("desk/tokens.html.j2", tokens=all_tokens(), roles=TOKEN_ROLES, issued=None)
+    return page("desk/tokens.html", tokens=all_tokens(), roles=TOKEN_ROLES, issued=None)

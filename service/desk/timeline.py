@@ -27,7 +27,7 @@ def _text(action: str, detail: dict) -> str:
     for key in ("text", "note", "reason", "error"):
         if detail.get(key):
             return str(detail[key])
-    if detail.get("status") and detail["status"] != action:
+    if detail.get("status") and action not in _ACTIONS:
         return f"status {detail['status']}"
     return ""
 

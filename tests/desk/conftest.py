@@ -50,7 +50,7 @@ def make_desk_app(settings):
 
     def build(**extra):
         application = create_app(
-            dict(settings, ANSWER_AT_SUBMISSION=True, DESK_IDLE_MINUTES=30, **extra)
+            {**settings, "ANSWER_AT_SUBMISSION": True, "DESK_IDLE_MINUTES": 30, **extra}
         )
         made.append(application)
         return application

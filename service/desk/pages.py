@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from flask import flash, redirect, request, url_for
+from sqlalchemy import select
 
 from service.api import render
 from service.api.context import sessions
@@ -69,7 +70,7 @@ def _row_view(row, today) -> dict:
         "status_label": STATUS_LABELS.get(row.status, row.status),
         "assigned_to": row.assigned_to,
         "deadline": row.deadline,
-        "overdue": queue.is_overdue(row, today),
+        "overdue": queue.is_overdue(row.deadline, row.status, today),
     }
 
 
@@ -98,8 +99,6 @@ def queue_page():
 
 def _colleagues(db) -> list[str]:
     """Names of active statistician tokens: the people a request can be assigned to."""
-    from sqlalchemy import select
-
     return list(
         db.scalars(
             select(ApiToken.name)
@@ -116,6 +115,7 @@ def request_page(request_id: str):
     with session_scope(sessions()) as db:
         row = load_request(db, request_id)
         detail = render.request_detail(db, row)
+        overdue = queue.is_overdue(row.deadline, row.status, utcnow().date())
         done = {k: a.result for k, a in analysis_store.latest_done(db, request_id).items()}
         reruns = [render.rerun(r) for r in store.reruns_for(db, request_id)]
         colleagues = _colleagues(db)
@@ -139,17 +139,7 @@ def request_page(request_id: str):
             "explore": status not in ("failed", "cancelled"),
             "rerun": detail["result"] is not None,
         },
-        overdue=row_overdue(detail),
-    )
-
-
-def row_overdue(detail: dict) -> bool:
-    """Whether the request shown is overdue (see queue.is_overdue)."""
-    deadline = detail.get("deadline")
-    return (
-        bool(deadline)
-        and str(deadline) < utcnow().date().isoformat()
-        and (detail["status"] in queue.OPEN_STATUSES)
+        overdue=overdue,
     )
 
 

@@ -144,6 +144,6 @@ def load(session: Session, f: Filters, *, me: str, submitted_by: str | None, tod
     return Queue(list(rows), total, counts, list(assignees), page, pages)
 
 
-def is_overdue(row: Request, today: date) -> bool:
-    """Past its needed-by date and still waiting on the core."""
-    return row.deadline is not None and row.deadline < today and row.status in OPEN_STATUSES
+def is_overdue(deadline: date | None, status: str, today: date) -> bool:
+    """Past its needed-by date and still waiting on the core (the overdue filter's rule)."""
+    return deadline is not None and deadline < today and status in OPEN_STATUSES

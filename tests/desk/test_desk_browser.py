@@ -132,6 +132,19 @@ def browser(tmp_path_factory):
         driver.quit()
 
 
+def _navigates(driver, act) -> None:
+    """Run ``act`` (a click or a script that submits) and wait until the next page has loaded."""
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support import expected_conditions
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    old = driver.find_element(By.TAG_NAME, "html")
+    act()
+    wait = WebDriverWait(driver, 60)
+    wait.until(expected_conditions.staleness_of(old))
+    wait.until(lambda d: d.execute_script("return document.readyState") == "complete")
+
+
 def _sign_in(driver, service, who: str) -> None:
     from selenium.webdriver.common.by import By
 
@@ -139,7 +152,7 @@ def _sign_in(driver, service, who: str) -> None:
     driver.get(f"{service['url']}/desk/")
     assert "/desk/sign-in" in driver.current_url
     driver.find_element(By.ID, "token").send_keys(service["secrets"][who])
-    driver.find_element(By.ID, "sign-in").click()
+    _navigates(driver, driver.find_element(By.ID, "sign-in").click)
     role, name = PEOPLE[who]
     assert driver.find_element(By.ID, "signed-in-as").text == f"{name} ({role})"
 
@@ -163,15 +176,16 @@ def test_sign_in_filter_open_a_request_and_approve_it(browser, service):
     assert "overdue" in hip_row.get_attribute("class") and "overdue" in hip_row.text
 
     Select(browser.find_element(By.ID, "f-status")).select_by_value("computed")
-    browser.find_element(By.ID, "apply-filters").click()
+    _navigates(browser, browser.find_element(By.ID, "apply-filters").click)
     assert "status=computed" in browser.current_url
     assert set(_queue_ids(browser)) == {ids["hip"], ids["other"]}
 
-    browser.find_element(By.LINK_TEXT, "Early mobilisation after hip fracture surgery").click()
+    link = browser.find_element(By.LINK_TEXT, "Early mobilisation after hip fracture surgery")
+    _navigates(browser, link.click)
     assert browser.find_element(By.ID, "request-status").get_attribute("data-status") == "computed"
     assert browser.find_element(By.ID, "justification-text").text  # today's report is there
     browser.find_element(By.ID, "approve-note").send_keys("Effect size agreed with the PI.")
-    browser.find_element(By.ID, "approve").click()
+    _navigates(browser, browser.find_element(By.ID, "approve").click)
 
     status = browser.find_element(By.ID, "request-status")
     assert status.get_attribute("data-status") == "approved" and status.text == "Approved"
@@ -189,7 +203,7 @@ def test_a_form_posted_without_its_csrf_token_is_refused(browser, service):
     browser.execute_script(
         "document.querySelector('#comment-form input[name=csrf_token]').remove();"
     )
-    browser.find_element(By.ID, "comment").click()
+    _navigates(browser, browser.find_element(By.ID, "comment").click)
     assert browser.find_element(By.TAG_NAME, "h1").text == "Form refused"
     assert "CSRF token is missing" in browser.find_element(By.ID, "refusal-message").text
     browser.get(f"{service['url']}/desk/requests/{service['ids']['other']}")
@@ -208,7 +222,7 @@ def test_an_intake_token_sees_only_its_own_requests(browser, service):
     # Intake reads; it has no review forms.
     browser.get(f"{service['url']}/desk/requests/{ids['hip']}")
     assert not browser.find_elements(By.ID, "review")
-    browser.find_element(By.ID, "sign-out").click()
+    _navigates(browser, browser.find_element(By.ID, "sign-out").click)
     assert "/desk/sign-in" in browser.current_url
     browser.get(f"{service['url']}/desk/requests")
     assert "/desk/sign-in" in browser.current_url  # the session ended on sign-out
@@ -223,8 +237,7 @@ def test_an_auditor_sees_no_approve_button_and_cannot_approve_by_posting(browser
     assert not browser.find_elements(By.ID, "approve")
     assert browser.find_elements(By.ID, "rerun")  # the auditor's own action is offered
     # Build the approve form by hand, with this page's valid CSRF token, and post it.
-    browser.execute_script(
-        """
+    script = """
         const token = document.querySelector('input[name=csrf_token]').value;
         const form = document.createElement('form');
         form.method = 'post';
@@ -236,8 +249,9 @@ def test_an_auditor_sees_no_approve_button_and_cannot_approve_by_posting(browser
         }
         document.body.appendChild(form);
         form.submit();
-        """,
-        f"/desk/requests/{request_id}/approve",
+        """
+    _navigates(
+        browser, lambda: browser.execute_script(script, f"/desk/requests/{request_id}/approve")
     )
     assert browser.find_element(By.TAG_NAME, "h1").text == "Not allowed for your role"
     assert (

@@ -165,3 +165,22 @@ def test_a_session_in_use_stays_open(desk_app, desk):
         _age(db, minutes=29)
     assert d.get("/desk/requests").status_code == 200
     assert d.get("/desk/requests").status_code == 200
+
+
+def test_every_page_checks_the_token_itself_not_only_the_session(desk_app, desk, desk_tokens):
+    from service.api.auth import TOKEN_CACHE
+    from service.store.models import ApiToken
+    from service.store.types import utcnow
+
+    d = desk("statistician", "r.patel")
+    token_id = desk_tokens.token_id("statistician", "r.patel")
+    with session_scope(_sessions(desk_app)) as db:
+        # Revoked by hand: the session row stays live, only the token changes.
+        db.get(ApiToken, token_id).revoked_at = utcnow()
+    # What another process's revocation looks like once this one's 1 s token cache has lapsed.
+    desk_app.extensions["sizewise"][TOKEN_CACHE].forget(token_id)
+    r = d.get("/desk/requests")
+    assert r.status_code == 302
+    assert "Your token was revoked" in d.get(r.headers["Location"]).get_data(as_text=True)
+    with session_scope(_sessions(desk_app)) as db:
+        assert db.scalars(select(DeskSession.end_reason)).one() == "revoked"

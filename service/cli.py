@@ -1,9 +1,11 @@
 """The ``sizewise`` command.
 
-Sub-commands live in one registry; adding one is a decorated function::
+Sub-commands live in one registry; adding one is a decorated function whose docstring is the
+text ``sizewise NAME --help`` prints above that sub-command's own options::
 
     @subcommand("serve", "run the HTTP API", arg("--port", type=int, default=8000))
     def serve(args: argparse.Namespace) -> int:
+        '''Run the HTTP API on the given port.'''
         ...
 
 Exit codes: 0 success, 1 the engine failed, 2 bad input (unreadable file, invalid JSON or an
@@ -13,6 +15,7 @@ invalid question; the errors go to stderr field by field, never as a traceback).
 from __future__ import annotations
 
 import argparse
+import inspect
 import json
 import sys
 from collections.abc import Callable, Iterator
@@ -22,6 +25,7 @@ from importlib import resources
 from typing import Any
 
 EXIT_OK, EXIT_ENGINE, EXIT_INPUT = 0, 1, 2
+EXIT_CODES = "exit codes: 0 success, 1 the engine or the database failed, 2 bad input"
 
 
 class InputError(Exception):
@@ -43,12 +47,14 @@ def arg(*flags: str, **options: Any) -> Arg:
 
 @dataclass(frozen=True)
 class Command:
-    """A registered sub-command."""
+    """A registered sub-command: ``help`` is its line in the command list, ``description`` the
+    text of its own ``--help`` (the run function's docstring)."""
 
     name: str
     help: str
     args: tuple[Arg, ...]
     run: Callable[[argparse.Namespace], int]
+    description: str = ""
 
 
 COMMANDS: dict[str, Command] = {}
@@ -58,7 +64,7 @@ def subcommand(name: str, help: str, *args: Arg) -> Callable:
     """Register the decorated ``run(args) -> exit code`` function as ``sizewise NAME``."""
 
     def register(run: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
-        COMMANDS[name] = Command(name, help, args, run)
+        COMMANDS[name] = Command(name, help, args, run, inspect.cleandoc(run.__doc__ or help))
         return run
 
     return register
@@ -153,7 +159,13 @@ class ProgressBar:
     arg("--progress", action="store_true", help="show a progress bar on stderr while simulating"),
 )
 def compute_command(args: argparse.Namespace) -> int:
-    """Validate the question, draw a seed if a simulation lacks one, compute and print."""
+    """Answer a question and print its result record as canonical JSON (the hashed form).
+
+    FILE holds the same question document as the "question" member of a request posted to the
+    API: outcome, layout, find, effect, assumptions and the rest. A simulation without a seed
+    gets one drawn from the operating system, and the record states it, so the answer can be
+    reproduced. An invalid question prints one line per field and exits 2.
+    """
     from service.engine import EngineError, QuestionError, compute, draw_seed
 
     question = _load(args.file)
@@ -175,7 +187,12 @@ def compute_command(args: argparse.Namespace) -> int:
 
 @subcommand("validate", "check a question and print its normalized form", _FILE, _PRETTY)
 def validate_command(args: argparse.Namespace) -> int:
-    """Print the normalized question, every default filled in."""
+    """Check a question without answering it and print its normalized form.
+
+    The normalized form keeps what was entered and fills every default (analysis, alpha,
+    alternative, target power, adjustments): it is the question a result record stores. An
+    invalid question prints one line per field and exits 2.
+    """
     print(dump(_load(args.file), args.pretty))
     return EXIT_OK
 
@@ -192,7 +209,11 @@ def example_names() -> list[str]:
     arg("name", nargs="?", help="an example name (without .json)"),
 )
 def examples_command(args: argparse.Namespace) -> int:
-    """List the shipped example questions, or print one of them."""
+    """List the example questions shipped with sizewise, or print one of them.
+
+    The examples are invented studies of the Northbridge General Hospital research office, one
+    or more per outcome and layout; a printed example can be passed to compute or validate.
+    """
     names = example_names()
     if args.name is None:
         print("\n".join(names))
@@ -260,7 +281,12 @@ def _stamp(value) -> str:
     arg("--name", help="who holds a new token (default: the role)"),
 )
 def tokens_command(args: argparse.Namespace) -> int:
-    """Create a token (its secret is the last line printed), list tokens, or revoke one."""
+    """Issue, list or revoke the API tokens of the configured database.
+
+    create prints the new token's id, role and name, then its secret on the last line (shown
+    only once); list prints one line per token; revoke ID ends a token at once. Each change is
+    written to the audit trail.
+    """
     from service.store import tokens
 
     if args.action == "create" and args.role is None:
@@ -321,10 +347,11 @@ def audit_report(session, anchors=None):
     ),
 )
 def audit_command(args: argparse.Namespace) -> int:
-    """Check the chain, every question, result, status and token against it; exit 1 on findings.
+    """Verify the audit trail of the configured database; exit 1 on findings.
 
-    Prints one line per finding, the rows too old to be covered, the summary and the anchor
-    (head event id and hash) an auditor keeps to detect deleted events at the next run.
+    Checks the hash chain, then every stored question, result, status and token against its
+    event. Prints one line per finding, the rows too old to be covered, the summary and the
+    anchor (head event id and hash) an auditor keeps to detect deleted events at the next run.
     """
     from pathlib import Path
 
@@ -393,7 +420,12 @@ def _report_source(source: str) -> tuple[dict, dict]:
     arg("--out", default=".", help="folder to write into (default: the current folder)"),
 )
 def report_command(args: argparse.Namespace) -> int:
-    """Write <name>.html and <name>.svg, the same page the service serves."""
+    """Write the HTML report and the power curve (SVG) of a result record or a stored request.
+
+    The source is a stored request id (read from the configured database) or a JSON file
+    holding a result record or a request with its result. Writes
+    sizewise-report-<id>.html and .svg into the folder and prints the HTML file's path.
+    """
     from pathlib import Path
 
     from service.reports.plots import curve_points, power_curve_svg
@@ -423,7 +455,13 @@ def build_parser() -> argparse.ArgumentParser:
     )
     subs = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for command in COMMANDS.values():
-        sub = subs.add_parser(command.name, help=command.help, description=command.help)
+        sub = subs.add_parser(
+            command.name,
+            help=command.help,
+            description=command.description,
+            epilog=EXIT_CODES,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
         for a in command.args:
             sub.add_argument(*a.flags, **a.options)
         sub.set_defaults(run=command.run)

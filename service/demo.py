@@ -3,8 +3,9 @@
 Northbridge General Hospital and its studies are invented; the numbers are for demonstration
 only. Each protocol goes through the real API (token check, validation, seed, audit trail, queue)
 as the research office's intake form would send it, with a fixed Idempotency-Key, so loading
-twice stores nothing new. Each asks for analyses (sensitivity grids, and robustness panels for
-the blood-pressure and length-of-stay studies) that the workers compute once the request is computed.
+twice stores nothing new. Each asks for explorations (sensitivity grids, and robustness panels
+for the blood-pressure and length-of-stay studies) that the workers compute once the request is
+computed.
 """
 
 from __future__ import annotations
@@ -38,22 +39,25 @@ PROTOCOLS: tuple[tuple[str, dict[str, Any]], ...] = (
             "effect_source": "SD from the 2024 Northbridge hypertension clinic audit of home readings",
             # How the answer moves with the effect, the SD and dropout; and how the t test
             # behaves if the pressures are skewed or heavy-tailed.
-            "analyses": {
-                "sensitivity": {
+            "explorations": [
+                {
+                    "type": "sensitivity_grid",
                     "grid": {
                         "effect.difference": [-4.0, -5.0, -6.0],
-                        "effect.sd": [10.0, 12.0, 14.0],
+                        "assumptions.sd": [10.0, 12.0, 14.0],
                         "adjustments.dropout": [0.1, 0.2],
-                    }
+                    },
                 },
-                "robustness": True,
-            },
+                {"type": "robustness_panel"},
+            ],
             "question": {
-                "design": "two_means",
+                "outcome": "continuous",
+                "layout": "two_groups",
                 "find": "sample_size",
                 "alpha": 0.05,
                 "target_power": 0.9,
-                "effect": {"difference": -5.0, "sd": 12.0},
+                "effect": {"difference": -5.0},
+                "assumptions": {"sd": 12.0},
                 "adjustments": {"dropout": 0.1},
             },
         },
@@ -76,14 +80,16 @@ PROTOCOLS: tuple[tuple[str, dict[str, Any]], ...] = (
             "effect_source": "lognormal fit to the orthopaedic ward's 2023 length-of-stay records",
             # Simulated cells, fanned out across the workers on the request's own seed; and how
             # the rank-sum test fares if the stays are not lognormal after all.
-            "analyses": {
-                "sensitivity": {
-                    "grid": {"adjustments.dropout": [0.0, 0.1, 0.2], "alpha": [0.05, 0.025]}
+            "explorations": [
+                {
+                    "type": "sensitivity_grid",
+                    "grid": {"adjustments.dropout": [0.0, 0.1, 0.2], "alpha": [0.05, 0.025]},
                 },
-                "robustness": True,
-            },
+                {"type": "robustness_panel"},
+            ],
             "question": {
-                "design": "rank_sum",
+                "outcome": "ordinal",
+                "layout": "two_groups",
                 "find": "power",
                 "sample_size": {"total": 120},
                 "simulation": {
@@ -110,26 +116,29 @@ PROTOCOLS: tuple[tuple[str, dict[str, Any]], ...] = (
                 "email": "a.okonkwo-stein@northbridge-general.example",
                 "department": "Cardiology",
             },
-            "notes": "Median time to readmission in the control arm about 10 months; "
+            "notes": "Median time to readmission in the control group about 10 months; "
             "18 months of recruitment and 12 more of follow-up.",
-            "analyses": {
-                "sensitivity": {
+            "explorations": [
+                {
+                    "type": "sensitivity_grid",
                     "grid": {
                         "effect.hazard_ratio": [0.65, 0.7, 0.75],
                         "adjustments.dropout": [0.0, 0.1],
-                    }
+                    },
                 }
-            },
+            ],
             "question": {
-                "design": "survival_logrank",
+                "outcome": "time_to_event",
+                "layout": "two_groups",
                 "find": "sample_size",
                 "target_power": 0.8,
-                "effect": {
-                    "hazard_ratio": 0.7,
-                    "median_control": 10.0,
-                    "accrual_period": 18.0,
+                "effect": {"hazard_ratio": 0.7},
+                "assumptions": {
+                    "time_unit": "months",
+                    "control_median": 10.0,
+                    "accrual": 18.0,
                     "follow_up": 12.0,
-                    "loss_rate": 0.01,
+                    "loss_hazard": 0.01,
                 },
             },
         },

@@ -30,7 +30,7 @@ API_LATENCY = Histogram(
 )
 QUEUE_WAIT = Histogram(
     "sizewise_job_queue_wait_seconds",
-    "Time from submission (or rerun/analysis request) to the claim that ran the job.",
+    "Time from submission (or rerun/exploration request) to the claim that ran the job.",
     ["kind"],
     buckets=_SLOW,
 )
@@ -62,18 +62,18 @@ class JobCounts:
         from sqlalchemy import func, select
 
         from service.store.db import session_scope
-        from service.store.models import Analysis, Request, Rerun
+        from service.store.jobs import JOB_KINDS
 
         family = GaugeMetricFamily(
             "sizewise_jobs", "Jobs in the database by kind and status.", labels=["kind", "status"]
         )
         with session_scope(self.sessionmaker) as session:
-            for kind, model in (("request", Request), ("rerun", Rerun), ("analysis", Analysis)):
+            for job in JOB_KINDS.values():
                 rows = session.execute(
-                    select(model.status, func.count()).group_by(model.status)
+                    select(job.model.status, func.count()).group_by(job.model.status)
                 ).all()
                 for status, count in rows:
-                    family.add_metric([kind, status], count)
+                    family.add_metric([job.name, status], count)
         yield family
 
 

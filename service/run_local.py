@@ -64,7 +64,7 @@ WORKER_COMMAND: tuple[str, ...] = (
     "--without-heartbeat",
 )
 HEALTH_PATH = "/healthz"
-EXAMPLE_FILE = "two_means.json"
+EXAMPLE_FILE = "northbridge_bp_trial.json"  # continuous outcome, two groups (the README's trial)
 # How long each child gets to finish its work after the stop signal before it is killed.
 STOP_GRACE_SECONDS = 25.0
 # A worker process that dies (kill -9, the OOM killer) is started again, and the sweeper hands

@@ -184,11 +184,13 @@ def client(app, tokens) -> FlaskClient:
 
 
 def question_body(**overrides) -> dict:
-    """An analytic two-means question as the intake form posts it (d = 0.5, power 0.80)."""
+    """An analytic question (continuous outcome, two groups, d = 0.5, power 0.80) as posted."""
     question = {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
     }
     question.update(overrides)
     return question

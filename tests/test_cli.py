@@ -11,11 +11,12 @@ import pytest
 from scipy import stats
 
 import service.cli as cli
-from service.engine import EngineError, canonical_json, verify
+from service.engine import EngineError, canonical_json, designs, verify
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = ROOT / "service" / "examples"
 SIZEWISE = ROOT / ".venv" / "bin" / "sizewise"
+TWO = {"outcome": "continuous", "layout": "two_groups"}
 
 
 def run(*args: str, stdin: str | None = None) -> subprocess.CompletedProcess:
@@ -39,20 +40,27 @@ def test_invalid_question_exits_2_with_field_list(tmp_path: Path) -> None:
     out = run(
         "compute",
         write(
-            tmp_path, {"design": "two_means", "alpha": 1.5, "effect": {"difference": 0.5, "sd": -1}}
+            tmp_path,
+            {
+                "outcome": "continuous",
+                "layout": "two_groups",
+                "alpha": 1.5,
+                "effect": {"difference": 0.5},
+                "assumptions": {"sd": -1},
+            },
         ),
     )
     assert out.returncode == 2 and out.stdout == ""
     assert "alpha: must be in (0, 0.5]; got 1.5" in out.stderr
-    assert "effect.sd: must be > 0; got -1" in out.stderr
+    assert "assumptions.sd: must be > 0; got -1" in out.stderr
     assert "Traceback" not in out.stderr
 
 
 @pytest.mark.parametrize(
     "text, needle",
     [
-        ('{"design": "two_means",', "not valid JSON"),
-        ('{"design": "two_means", "alpha": NaN}', "NaN is not a JSON number"),
+        ('{"outcome": "continuous",', "not valid JSON"),
+        ('{"outcome": "continuous", "alpha": NaN}', "NaN is not a JSON number"),
         ("[1, 2]", "question: must be a JSON object"),
         ("", "not valid JSON"),
     ],
@@ -72,7 +80,8 @@ def test_engine_error_exits_1(monkeypatch, capsys, tmp_path: Path) -> None:
         raise EngineError("the search did not bracket a solution")
 
     monkeypatch.setattr("service.engine.compute", failing)
-    code = cli.main(["compute", write(tmp_path, {"design": "correlation", "effect": {"r": 0.3}})])
+    question = {"outcome": "association", "layout": "single_group", "effect": {"r": 0.3}}
+    code = cli.main(["compute", write(tmp_path, question)])
     err = capsys.readouterr().err
     assert code == 1 and "the search did not bracket a solution" in err
 
@@ -86,17 +95,19 @@ def test_seed_is_drawn_when_a_simulation_has_none(monkeypatch, capsys, tmp_path:
 
     monkeypatch.setattr("service.engine.compute", capture)
     monkeypatch.setattr("service.engine.draw_seed", lambda: 4242)
-    raw = {"design": "two_means", "method": "simulation", "effect": {"difference": 0.5, "sd": 1}}
+    raw = {**TWO, "method": "simulation", "effect": {"difference": 0.5}, "assumptions": {"sd": 1}}
     assert cli.main(["compute", write(tmp_path, raw)]) == 0
     assert seen["simulation"]["seed"] == 4242
     assert json.loads(capsys.readouterr().out)["question"]["simulation"]["seed"] == 4242
 
 
 def test_validate_reads_stdin_and_prints_normalized_question() -> None:
-    out = run("validate", "-", stdin='{"design": "correlation", "effect": {"r": 0.3}}')
+    stdin = '{"outcome": "association", "layout": "single_group", "effect": {"r": 0.3}}'
+    out = run("validate", "-", stdin=stdin)
     assert out.returncode == 0, out.stderr
     q = json.loads(out.stdout)
-    assert q["effect"] == {"r": 0.3, "r0": 0.0} and q["formula"] == "fisher_z"
+    assert q["effect"] == {"r": 0.3} and q["assumptions"] == {"r_null": 0.0}
+    assert q["analysis"] == "pearson"
     assert out.stdout.strip() == canonical_json(q)
 
 
@@ -120,19 +131,15 @@ def test_examples_are_listed_and_all_valid() -> None:
     names = out.stdout.split()
     assert out.returncode == 0 and len(names) >= 8
     assert {p.stem for p in EXAMPLES.glob("*.json")} == set(names)
-    designs = set()
+    cells = set()
     for name in names:
         shown = run("examples", name)
         assert shown.returncode == 0
-        designs.add(json.loads(shown.stdout)["design"])
+        question = json.loads(shown.stdout)
+        cells.add((question["outcome"], question["layout"]))
         assert run("validate", str(EXAMPLES / f"{name}.json")).returncode == 0
-    assert designs == set(cli_designs())
-
-
-def cli_designs():
-    from service.engine.designs import DESIGN_NAMES
-
-    return DESIGN_NAMES
+    # one example or more per registered cell
+    assert cells == {(d.outcome, d.layout) for d in designs.all()}
 
 
 def test_python_dash_m_works() -> None:
@@ -146,6 +153,48 @@ def test_python_dash_m_works() -> None:
     assert out.returncode == 0 and "northbridge_bp_trial" in out.stdout
 
 
+# ----- help: each subcommand describes itself and only its own options ------------------------
+
+
+@pytest.mark.parametrize("name", sorted(cli.COMMANDS))
+def test_each_subcommand_help_describes_it_and_only_its_options(name: str, capsys) -> None:
+    with pytest.raises(SystemExit) as done:
+        cli.main([name, "--help"])
+    assert done.value.code == 0
+    text = capsys.readouterr().out
+    command = cli.COMMANDS[name]
+    assert text.startswith(f"usage: sizewise {name}")
+    # its own description, first line and more
+    assert command.description.splitlines()[0] in text and len(command.description) > len(
+        command.help
+    )
+    own = {flag for a in command.args for flag in a.flags if flag.startswith("-")}
+    for option in own:
+        assert option in text
+    others = {
+        flag
+        for other in cli.COMMANDS.values()
+        if other.name != name
+        for a in other.args
+        for flag in a.flags
+        if flag.startswith("-")
+    } - own
+    for option in others:
+        assert option not in text, f"{name} --help shows {option} of another subcommand"
+    for other in cli.COMMANDS.values():
+        if other.name != name:
+            assert other.description.splitlines()[0] not in text
+
+
+def test_help_words_follow_the_vocabulary(capsys) -> None:
+    with pytest.raises(SystemExit):
+        cli.main(["compute", "--help"])
+    text = capsys.readouterr().out
+    # the question document is described in the words of the API (VOCAB §1)
+    for word in ("outcome", "layout", "effect", "assumptions", '"question"'):
+        assert word in text
+
+
 # ----- happy paths (need service.engine.compute) ----------------------------------------------
 
 
@@ -153,11 +202,11 @@ def test_compute_analytic_matches_cohen(tmp_path: Path) -> None:
     # published 64 per group: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided alpha .05, power .80)
     out = run(
         "compute",
-        write(tmp_path, {"design": "two_means", "effect": {"difference": 0.5, "sd": 1.0}}),
+        write(tmp_path, {**TWO, "effect": {"difference": 0.5}, "assumptions": {"sd": 1.0}}),
     )
     assert out.returncode == 0, out.stderr
     record = json.loads(out.stdout)
-    assert record["sample_size"]["per_arm"] == [64, 64]
+    assert record["sample_size"]["per_group"] == [64, 64]
     assert verify(record)
     assert out.stdout.strip() == canonical_json(record)
 
@@ -178,7 +227,7 @@ def test_compute_simulation_is_byte_identical_for_a_seed() -> None:
     assert first.stdout == second.stdout
     record = json.loads(first.stdout)
     assert record["reproducibility"]["seed"] == 20240611
-    # formula: noncentral t power at d = 5/12, n = 64 per arm, two-sided alpha .05, recomputed
+    # formula: noncentral t power at d = 5/12, n = 64 per group, two-sided alpha .05, recomputed
     # with scipy; the simulated estimate must lie within 4 Monte Carlo standard errors
     n, d = 64, 5 / 12
     df, nc = 2 * n - 2, d * (n / 2) ** 0.5

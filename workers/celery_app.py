@@ -5,8 +5,9 @@ Every Celery setting lives in :func:`celery_settings`, one dict, so the queue's 
 read (and tested) in one place. Our database is the source of truth: results are not stored in
 Celery, tasks take an id only, and every task is safe to run twice.
 
-Imports run one way only: celery_app ← queue ← sweeper ← tasks ← analysis_tasks. This module
-imports no other worker module; the worker imports the tasks through ``include``.
+Imports run one way only: sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ←
+exploration_tasks (tests/workers/test_imports.py). This module imports no other worker module;
+the worker imports the tasks through ``include``.
 """
 
 from __future__ import annotations
@@ -31,11 +32,9 @@ HELPER_QUEUE = "sizewise.helpers"
 TASK_NAMES = {
     "request": "sizewise.run_request",
     "rerun": "sizewise.run_rerun",
-    "analysis": "sizewise.run_analysis",
+    "exploration": "sizewise.run_exploration",
+    # the one chunk task of every job: computes pending work units of a running job
     "helper": "sizewise.run_helper",
-    # chunk messages of the previous release, drained and dropped
-    "chunk": "sizewise.run_chunk",
-    "analysis_chunk": "sizewise.run_analysis_chunk",
     "sweep": "sizewise.sweep",
 }
 
@@ -115,7 +114,7 @@ def celery_settings(config: dict) -> dict:
 
 def make_celery(config: dict) -> Celery:
     """Build the Celery app for ``config`` (the dict from service.config.load_config())."""
-    app = Celery("sizewise", include=["workers.tasks", "workers.analysis_tasks"])
+    app = Celery("sizewise", include=["workers.tasks", "workers.exploration_tasks"])
     app.conf.update(celery_settings(config))
     # The tasks read the service config from here (database URL, lease, budget).
     app.conf.sizewise = dict(config)

@@ -23,7 +23,7 @@ import hashlib
 import logging
 import time
 from collections.abc import Callable
-from datetime import UTC, datetime, timedelta
+from datetime import timedelta
 
 from sqlalchemy import and_, delete, insert, or_, select, update
 from sqlalchemy.exc import IntegrityError
@@ -31,7 +31,9 @@ from sqlalchemy.exc import IntegrityError
 from service import metrics
 from service.engine import Cancelled, canonical_json
 from service.engine import run_chunk as engine_run_chunk
+from service.store import jobs
 from service.store.db import session_scope
+from service.store.types import utcnow
 
 log = logging.getLogger(__name__)
 
@@ -40,11 +42,6 @@ HelperPublisher = Callable[[int], int]
 
 UNIT_SECONDS = 0.25  # a unit long enough to dwarf its two database round trips
 UNIT_LEASE_SECONDS = 15.0  # a dead helper's unit is taken over after this long
-
-
-def utcnow() -> datetime:
-    """Return the current time as a timezone-aware UTC datetime."""
-    return datetime.now(UTC)
 
 
 def task_key(task) -> str:
@@ -61,9 +58,9 @@ def _table():
 
 def _weight(task: dict) -> float:
     """Relative cost of a chunk: replicates times observations per replicate."""
-    per_arm = task.get("per_arm") or [1]
+    per_group = task.get("per_group") or [1]
     try:
-        size = sum(int(n) for n in per_arm)
+        size = sum(int(n) for n in per_group)
     except (TypeError, ValueError):
         size = 1
     return float(task.get("replicates") or 1) * max(size, 1)
@@ -71,7 +68,7 @@ def _weight(task: dict) -> float:
 
 def _job(job_kind: str, job_id: str):
     table = _table()
-    return and_(table.c.job_kind == job_kind, table.c.job_id == job_id)
+    return and_(table.c.job_kind == jobs.job_kind(job_kind).unit_key, table.c.job_id == job_id)
 
 
 def clear_units(session, job_kind: str, job_id: str) -> int:
@@ -106,7 +103,7 @@ def add_units(session, job_kind: str, job_id: str, units: list[list[dict]]) -> l
             with session.begin_nested():  # a savepoint, so a duplicate leaves the rest usable
                 session.execute(
                     insert(table).values(
-                        job_kind=job_kind,
+                        job_kind=jobs.job_kind(job_kind).unit_key,
                         job_id=job_id,
                         task_key=key,
                         status="pending",
@@ -358,13 +355,12 @@ class ChunkExecutor:
 
 def clear_orphan_units(session) -> int:
     """Delete the unit rows of jobs that are no longer waiting or running (the sweeper's chore)."""
-    from service.store.models import Analysis, Request, Rerun
-
     table = _table()
     gone = 0
-    for kind, model in (("request", Request), ("rerun", Rerun), ("analysis", Analysis)):
-        live = select(model.id).where(model.status.in_(("received", "queued", "running")))
+    for job in jobs.JOB_KINDS.values():
+        model = job.model
+        live = select(model.id).where(model.status.in_((*job.queued, "running")))
         gone += session.execute(
-            delete(table).where(table.c.job_kind == kind, table.c.job_id.not_in(live))
+            delete(table).where(table.c.job_kind == job.unit_key, table.c.job_id.not_in(live))
         ).rowcount
     return gone

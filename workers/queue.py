@@ -1,6 +1,6 @@
 """The queue boundary: hand a job id to the broker, briefly and boundedly.
 
-The API calls :func:`publish` only after its database commit; a False return is not an error
+The API calls :func:`publish_and_mark` only after its database commit; a False return is not an error
 for the caller: the job stays unpublished (``published_at`` null) and the sweeper publishes it
 later. Nothing here waits for a task's result — the database is the source of truth.
 """
@@ -18,8 +18,6 @@ from service.store.db import session_scope
 from workers.celery_app import TASK_NAMES, make_celery
 
 log = logging.getLogger(__name__)
-
-KINDS = ("request", "rerun", "analysis")
 
 # A dead broker must cost the API well under a few seconds, never a hung request thread.
 PUBLISH_RETRY_POLICY = {
@@ -72,25 +70,31 @@ def _send(name: str, args: list, config: dict) -> bool:
 
 
 def publish(kind: str, job_id: str, config: dict) -> bool:
-    """Send the task for a request or rerun; True when the broker took it, False otherwise."""
-    if kind not in KINDS:
-        raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    """Send the task of a job (``jobs.JOB_KINDS``); True when the broker took it, else False."""
+    jobs.job_kind(kind)  # ValueError naming the jobs for anything else
     return _send(TASK_NAMES[kind], [job_id], config)
 
 
 def publish_and_mark(kind: str, job_id: str, config: dict, factory) -> bool:
-    """Publish the job and set its outbox marker; False (nothing marked) when the broker refused."""
+    """Publish the job, then set its outbox marker: the one path of the API, worker and sweeper.
+
+    False (nothing marked) when the broker refused; the sweeper publishes the job later. A
+    marker that cannot be written after the broker took the task is only logged: the job then
+    looks unsent and is published once more, which is harmless (one worker can claim it).
+    """
     if not publish(kind, job_id, config):
         return False
-    with session_scope(factory) as session:
-        jobs.mark_published(session, kind, job_id)
+    try:
+        with session_scope(factory) as session:
+            jobs.mark_published(session, kind, job_id)
+    except Exception:  # the task is sent; a missing marker costs one harmless republish
+        log.exception("could not mark %s %s published", kind, job_id)
     return True
 
 
 def publish_helpers(kind: str, job_id: str, count: int, config: dict) -> int:
     """Send ``count`` helper tasks for a job's work units (helper queue); return how many went."""
-    if kind not in KINDS:
-        raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    jobs.job_kind(kind)
     sent = 0
     for _ in range(max(int(count), 0)):
         if not _send(TASK_NAMES["helper"], [kind, job_id], config):

@@ -48,6 +48,7 @@ from werkzeug.wrappers import Response
 
 from service.engine import EngineError, estimate_cost
 from service.metrics import BUDGET_REFUSALS
+from service.schemas.explorations import budget_refusal
 from service.store import tokens as token_store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES, Request
@@ -71,7 +72,8 @@ PUBLIC = frozenset({"health.healthz", "health.readyz"})
 # endpoint -> roles allowed; intake's reads are further limited to its own requests.
 ACCESS: dict[str, frozenset[str]] = {
     "openapi.openapi_json": ANY_ROLE,
-    "calculations.designs": ANY_ROLE,
+    "calculations.catalogue": ANY_ROLE,
+    "calculations.question_schema": ANY_ROLE,
     "calculations.calculate": SUBMITTERS,
     "requests.submit_request": SUBMITTERS,
     "requests.list_requests": READERS,
@@ -91,9 +93,9 @@ ACCESS: dict[str, frozenset[str]] = {
     "reports.create_report_link": READERS,
     # Whoever may issue a request's links may revoke them (intake: only its own requests).
     "reports.revoke_report_links": READERS,
-    "reports.analyses.create_analysis": REVIEWERS,
-    "reports.analyses.list_analyses": READERS,
-    "reports.analyses.get_analysis": READERS,
+    "reports.explorations.create_exploration": REVIEWERS,
+    "reports.explorations.list_explorations": READERS,
+    "reports.explorations.get_exploration": READERS,
     "tokens.create_token": frozenset({ADMIN}),
     "tokens.list_tokens": frozenset({ADMIN}),
     "tokens.revoke_token": frozenset({ADMIN}),
@@ -113,7 +115,7 @@ PAGE_MIRRORS: dict[str, str] = {
     "desk.approve": "requests.approve_request",
     "desk.return_request": "requests.return_request",
     "desk.cancel": "requests.cancel_request",
-    "desk.explore": "reports.analyses.create_analysis",
+    "desk.explore": "reports.explorations.create_exploration",
     "desk.rerun": "requests.create_rerun",
     "desk.tokens": "tokens.list_tokens",
     "desk.issue": "tokens.create_token",
@@ -562,11 +564,10 @@ def check_submission_cost(question: dict) -> int:
     config = settings()
     estimate = _cost(question)
     per_simulation = int(config["SIMULATION_BUDGET"])
-    if estimate > per_simulation:
-        message = (
-            f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
-            f"{per_simulation:,}; lower replicates (or search_replicates) or the sample size"
-        )
+    message = budget_refusal(
+        estimate, per_simulation, "lower replicates (or search_replicates) or the sample size"
+    )
+    if message is not None:
         BUDGET_REFUSALS.labels("per_simulation").inc()
         raise ValidationFailed(
             message,
@@ -591,7 +592,9 @@ def charge(session, items: list[tuple[str, str, int]]) -> int:
     except token_store.BudgetRefused as exc:
         BUDGET_REFUSALS.labels("token_hourly").inc()
         what = (
-            "this simulation's" if len(items) == 1 else "these simulations' (request and analyses)"
+            "this simulation's"
+            if len(items) == 1
+            else "these simulations' (request and explorations)"
         )
         raise BudgetUsed(
             f"{what} estimated cost of {exc.estimate:,} draws exceeds the "

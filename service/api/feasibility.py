@@ -1,7 +1,8 @@
 """Refuse at submission what the worker could not compute.
 
-``POST /v1/calculations`` computes in-process, so a question whose numbers overflow is refused
-there; a submission used to be stored and fail later in the worker. ``check_computable`` runs
+``POST /v1/calculations`` answers through ``check_computable`` too, so both refuse a question
+the engine cannot answer with a 422 naming the field (an overflow: the fields of extreme
+magnitude; a solve that fails: what it solves for), never a generic failure. ``check_computable`` runs
 the same engine checks before anything is stored: an analytic question is answered once, and
 that record is returned so the API can store it as the request's answer without computing it
 again; a simulated one has its formula counterpart evaluated when it has one, which is where a
@@ -47,17 +48,43 @@ def question_refused(exc: QuestionError) -> ValidationFailed:
 def _numeric_failure(exc: EngineError) -> bool:
     """True when the engine failed on arithmetic (overflow, division by zero, a non-finite value)."""
     cause = exc.__cause__
-    return isinstance(cause, ArithmeticError) or "not finite" in str(exc)
+    text = f"{exc} {cause or ''}"
+    return isinstance(cause, ArithmeticError) or "not finite" in text or "numeric step" in text
 
 
-def _refuse(question: dict, posted: Any) -> ValidationFailed:
-    # Named as posted (the normalized question splits some fields, e.g. sd per arm).
-    fields = extreme_fields(posted) or extreme_fields(question) or ["question"]
+def _refuse(question: dict, posted: Any, exc: EngineError) -> ValidationFailed:
+    if not _numeric_failure(exc):
+        return _unsolved(question, exc)
+    # Named as posted when the posted document is at hand.
+    fields = extreme_fields(posted) or extreme_fields(question) or [_solved_path(question)]
     message = (
         "the question cannot be computed: its numbers leave double precision (a quotient "
         "overflows or a division reaches zero); use values of ordinary magnitude, e.g. other units"
     )
     return ValidationFailed(message, errors={f: [message] for f in fields})
+
+
+def _solved_path(question: dict) -> str:
+    """The question path of what the engine solves for: the sample size, the power's inputs
+    (the enrolled numbers) or the cell's solved effect field."""
+    find = question.get("find")
+    if find == "power":
+        return "question.sample_size"
+    if find == "effect":
+        try:
+            from service.engine import designs
+
+            design = designs.get(question["outcome"], question["layout"])
+            block = next(f.block for f in design.fields if f.name == design.solved)
+            return f"question.{block}.{design.solved}"
+        except (KeyError, StopIteration):
+            return "question.find"
+    return "question.target_power"
+
+
+def _unsolved(question: dict, exc: EngineError) -> ValidationFailed:
+    message = f"the engine cannot answer this question as posed: {exc}"
+    return ValidationFailed(message, errors={_solved_path(question): [message]})
 
 
 def check_computable(question: dict, posted: Any = None) -> dict | None:
@@ -74,7 +101,7 @@ def check_computable(question: dict, posted: Any = None) -> dict | None:
         except QuestionError as exc:
             raise question_refused(exc) from None
         except EngineError as exc:
-            raise _refuse(question, posted) from exc
+            raise _refuse(question, posted, exc) from exc
     if not question.get("effect"):
         return None  # a data model only: its moments were checked by the schema
     analytic = copy.deepcopy(question)
@@ -86,5 +113,5 @@ def check_computable(question: dict, posted: Any = None) -> dict | None:
         return None  # no formula counterpart for this simulation: nothing to compare against
     except EngineError as exc:
         if _numeric_failure(exc):
-            raise _refuse(question, posted) from exc
+            raise _refuse(question, posted, exc) from exc
     return None

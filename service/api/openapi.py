@@ -12,7 +12,7 @@ from apispec.ext.marshmallow.common import resolve_schema_cls
 from flask import Blueprint, Flask, current_app, jsonify
 from marshmallow import Schema
 
-from service.schemas import register_openapi_types
+from service.schemas import question_json_schema, register_openapi_types
 from service.schemas.api import ProblemSchema
 
 from .auth import PAGES_PREFIX, PUBLIC
@@ -45,6 +45,8 @@ def _operation_dict(op: Operation, endpoint: str, *, secured: bool) -> dict:
     success: dict = {"description": HTTPStatus(op.status).phrase}
     if op.response is not None:
         success["content"] = {op.media_type: {"schema": op.response}}
+    elif op.media_type.endswith("+json"):  # a JSON document of its own kind (a JSON Schema)
+        success["content"] = {op.media_type: {"schema": {"type": "object"}}}
     elif op.media_type != "application/json":  # pages and pictures: a body that is not JSON
         body = {"type": "string", "contentMediaType": op.media_type}
         success["content"] = {op.media_type: {"schema": body}}
@@ -108,6 +110,9 @@ def build_spec(app: Flask) -> dict:
     )
     register_openapi_types(plugin)  # needs the converter that APISpec's init just made
     spec.components.schema("Problem", schema=ProblemSchema)
+    # The question is generated from the designs' declarations (OpenAPI 3.1 schemas are JSON
+    # Schema 2020-12), not from QuestionSchema's fields, whose cell blocks are open objects.
+    spec.components.schema("Question", component=question_component())
     spec.components.security_scheme(
         BEARER_SCHEME,
         {
@@ -138,7 +143,24 @@ def build_spec(app: Flask) -> dict:
             for name in sorted(rule.arguments)
         ]
         spec.path(path=path, operations=operations, parameters=parameters or None)
-    return spec.to_dict()
+    return _link_questions(spec.to_dict())
+
+
+def question_component() -> dict:
+    """The question's JSON Schema as an OpenAPI component (no dialect keyword of its own)."""
+    return {k: v for k, v in question_json_schema().items() if k != "$schema"}
+
+
+def _link_questions(document: dict) -> dict:
+    """Point every body member that holds a question at the generated Question component."""
+    for component in document.get("components", {}).get("schemas", {}).values():
+        member = component.get("properties", {}).get("question")
+        if isinstance(member, dict) and member.get("x-question"):
+            component["properties"]["question"] = {
+                "$ref": "#/components/schemas/Question",
+                "description": member.get("description", "The question."),
+            }
+    return document
 
 
 @bp.get("/openapi.json")

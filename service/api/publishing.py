@@ -2,7 +2,7 @@
 
 A publish failure only delays a job (the sweeper publishes later). A closed-form question costs
 milliseconds, so the API answers it itself with the worker's own code path (same claim, audit
-events and sealed record); only simulations and analyses go through the broker.
+events and sealed record); only simulations and explorations go through the broker.
 """
 
 from __future__ import annotations
@@ -12,9 +12,6 @@ import os
 import socket
 import uuid
 
-from service.store import jobs
-from service.store.db import session_scope
-
 from .context import sessions, settings
 
 log = logging.getLogger(__name__)
@@ -23,23 +20,15 @@ log = logging.getLogger(__name__)
 def publish_job(kind: str, job_id: str) -> bool:
     """Publish the job's task after the commit and mark it published; False leaves it for later."""
     try:
-        from workers.queue import publish
+        from workers.queue import publish_and_mark
     except ImportError as exc:  # the worker package is optional for the API process
         log.warning("queue unavailable (%s); %s %s left for the sweeper", exc, kind, job_id)
         return False
     try:
-        sent = publish(kind, job_id, settings())
+        return publish_and_mark(kind, job_id, settings(), sessions())
     except Exception:  # never fail a request that is already stored
         log.exception("publishing %s %s failed; left for the sweeper", kind, job_id)
         return False
-    if not sent:
-        return False
-    try:
-        with session_scope(sessions()) as session:
-            jobs.mark_published(session, kind, job_id)
-    except Exception:  # the task is sent; a missing marker only means a harmless republish
-        log.exception("could not mark %s %s published", kind, job_id)
-    return True
 
 
 def api_owner() -> str:

@@ -6,21 +6,17 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
-from service.schemas.requests import (
-    AnalysisSchema,
-    AuditEventSchema,
-    RequestSchema,
-    RerunSchema,
-)
-from service.store import analyses as analysis_store
+from service.schemas.requests import AuditEventSchema, RequestSchema, RerunSchema
+from service.store import explorations as exploration_store
 from service.store import requests as store
-from service.store.models import Analysis, Request, Rerun
+from service.store.models import Request, Rerun
 
 _DETAIL = RequestSchema()
-_SUMMARY = RequestSchema(exclude=("result", "history", "question_submitted", "reruns", "analyses"))
+_SUMMARY = RequestSchema(
+    exclude=("result", "history", "question_submitted", "reruns", "explorations")
+)
 _RERUN = RerunSchema()
 _EVENT = AuditEventSchema()
-_ANALYSIS = AnalysisSchema()
 
 
 def _base(row: Request) -> dict[str, Any]:
@@ -34,7 +30,8 @@ def _base(row: Request) -> dict[str, Any]:
         "requester": row.requester,
         "deadline": row.deadline,
         "notes": row.notes,
-        "design": row.design,
+        "outcome": row.question["outcome"],
+        "layout": row.question["layout"],
         "method": row.method,
         "seed": row.seed,
         "question": row.question,
@@ -62,7 +59,7 @@ def request_detail(session: Session, row: Request) -> dict:
         "different": sum(1 for r in reruns if r.identical is False),
         "latest": reruns[-1] if reruns else None,
     }
-    data["analyses"] = analysis_store.analyses_for(session, row.id)
+    data["explorations"] = exploration_store.explorations_for(session, row.id)
     return _DETAIL.dump(data)
 
 
@@ -79,11 +76,6 @@ def request_page(page: store.Page, number: int, per_page: int) -> dict:
 def rerun(row: Rerun) -> dict:
     """Return one rerun."""
     return _RERUN.dump(row)
-
-
-def analysis(row: Analysis) -> dict:
-    """Return one analysis with its result."""
-    return _ANALYSIS.dump(row)
 
 
 def event(row) -> dict:

@@ -12,11 +12,11 @@ from marshmallow import Schema, fields
 from service.reports.plots import curve_points, power_curve_png, power_curve_svg, sensitivity_svg
 from service.reports.render import render_report, render_staff_list
 from service.schemas.requests import ReportLinkSchema, RequestQueryArgsSchema
-from service.store import analyses as analysis_store
+from service.store import explorations as exploration_store
 from service.store.audit import append_event
 from service.store.db import session_scope
 
-from . import analyses, render
+from . import explorations, render
 from .auth import LINK_PARAM, LINKS_REVOKED, link_generation, report_link
 from .context import sessions
 from .docs import operation
@@ -26,7 +26,7 @@ from .io import reject_query
 from .views import load_request, visible_request_page
 
 bp = Blueprint("reports", __name__, url_prefix="/v1")
-bp.register_blueprint(analyses.bp)
+bp.register_blueprint(explorations.bp)
 
 PAGE_ERRORS = (404, 409, 422, 500, 503)
 _LINK_SCHEMA = ReportLinkSchema()
@@ -43,10 +43,10 @@ def _page_query() -> None:
 
 
 def _detail_with_result(request_id: str) -> tuple[dict, dict]:
-    """The request's detail and its latest finished analyses; 409 while it has no result yet."""
+    """The request's detail and its latest finished explorations; 409 while it has no result yet."""
     with session_scope(sessions()) as session:
         detail = render.request_detail(session, load_request(session, request_id))
-        done = {k: a.result for k, a in analysis_store.latest_done(session, request_id).items()}
+        done = {k: e.result for k, e in exploration_store.latest_done(session, request_id).items()}
     if detail["result"] is None:
         raise Conflict(
             f"request '{request_id}' has no result yet (status '{detail['status']}'); "
@@ -67,27 +67,27 @@ def _curve(request_id: str, draw, mimetype: str) -> Response:
     "The request's report page (HTML)", tag="reports", media_type="text/html", errors=PAGE_ERRORS
 )
 def request_report(request_id: str):
-    """Render the protocol-ready report: answer, steps, justification, curve, analyses, cautions."""
+    """Render the protocol-ready report: answer, steps, justification, curve, explorations, cautions."""
     _page_query()
     detail, done = _detail_with_result(request_id)
     return Response(report_html(detail, done), mimetype="text/html")
 
 
 def report_html(detail: dict, done: dict) -> str:
-    """The report page of a request with a result and its latest finished analyses.
+    """The report page of a request with a result and its latest finished explorations.
 
     The API's report and the desk's request page both show it.
     """
     record = detail["result"]
-    grid = done.get("sensitivity")
-    pending = [a for a in detail["analyses"] if a["status"] in ("queued", "running")]
+    grid = done.get("sensitivity_grid")
+    pending = [e for e in detail["explorations"] if e["status"] in ("queued", "running")]
     return render_report(
         detail,
         record,
         curve_svg=power_curve_svg(curve_points(record)),
         sensitivity=grid,
-        sensitivity_svg=sensitivity_svg(grid) if grid else None,
-        robustness=done.get("robustness"),
+        sensitivity_svg=sensitivity_svg(grid, record["question"]) if grid else None,
+        robustness=done.get("robustness_panel"),
         pending=pending,
     )
 
@@ -100,7 +100,7 @@ def report_html(detail: dict, done: dict) -> str:
     errors=PAGE_ERRORS,
 )
 def curve_svg(request_id: str):
-    """Power against n per arm around the answer, as SVG."""
+    """Power against the enrolled size around the answer, as SVG with its title and assumptions."""
     return _curve(request_id, power_curve_svg, "image/svg+xml")
 
 
@@ -112,7 +112,7 @@ def curve_svg(request_id: str):
     errors=PAGE_ERRORS,
 )
 def curve_png(request_id: str):
-    """Power against n per arm around the answer, as PNG for documents."""
+    """Power against the enrolled size around the answer, as PNG that stands alone in a document."""
     return _curve(request_id, power_curve_png, "image/png")
 
 

@@ -31,11 +31,11 @@ from service.store.db import session_scope
 from service.store.models import ApiToken
 
 from . import render
-from .analyses import store_submission
 from .auth import charge, check_submission_cost
 from .context import sessions, settings
 from .docs import operation
 from .errors import ApiError, Conflict, NotFound, ValidationFailed
+from .explorations import store_submission
 from .feasibility import check_computable
 from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
@@ -137,15 +137,25 @@ def _created(body: dict, status: int):
 def submit_request():
     """Store a new request and publish it to the workers."""
     reject_query()
-    actor = current_actor()
     key = _idempotency_key()
-    raw = raw_json_body()
+    body, status = submit(raw_json_body(), key)
+    return _created(body, status)
+
+
+def submit(raw: object, key: str | None = None) -> tuple[dict, int]:
+    """Validate, store and answer (or queue) one submission; return (request detail, status).
+
+    The one way in for POST /v1/requests and the intake page: the same schema (marshmallow's
+    ValidationError, or ValidationFailed naming the field), the same budget and the same store.
+    Status 200 is an idempotent replay of ``key``'s earlier request, 202 a new one.
+    """
+    actor = current_actor()
     digest = store.body_digest(raw)
     if key is not None:
         with session_scope(sessions()) as session:
             earlier = _replay(session, key, digest)
         if earlier is not None:
-            return _created(earlier, 200)
+            return earlier, 200
     data = shared(RequestCreateSchema).load(raw)
     answer = check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
@@ -165,10 +175,10 @@ def submit_request():
                 idempotency_key=key,
                 body_sha256=digest,
             )
-            # The effect source and analyses asked for with the request are part of the same row set.
-            analyses = store_submission(session, row, data, actor)
+            # The effect source and explorations asked for with the request are one row set.
+            explorations = store_submission(session, row, data, actor)
             # Budget check and reservation in the transaction that stores the work: all or nothing.
-            charge(session, [("request", row.id, estimate), *analyses])
+            charge(session, [("request", row.id, estimate), *explorations])
             request_id = row.id
     except IntegrityError:
         if key is None:
@@ -178,14 +188,13 @@ def submit_request():
             earlier = _replay(session, key, digest)
         if earlier is None:
             raise
-        return _created(earlier, 200)
+        return earlier, 200
     # A closed-form answer costs milliseconds: compute it here rather than queue it.
     here = question.get("method") != "simulation" and settings().get("ANSWER_AT_SUBMISSION", True)
     if not here or answer_now(request_id, answer) in (None, "skipped"):
         publish_job("request", request_id)
     with session_scope(sessions()) as session:
-        body = render.request_detail(session, store.get_request(session, request_id))
-    return _created(body, 202)
+        return render.request_detail(session, store.get_request(session, request_id)), 202
 
 
 @bp.get("/requests")

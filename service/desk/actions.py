@@ -5,15 +5,15 @@ from __future__ import annotations
 
 from flask import flash, redirect, request, url_for
 
-from service.api.analyses import start_analysis
 from service.api.context import sessions
 from service.api.errors import ValidationFailed
+from service.api.explorations import start_exploration
 from service.api.identity import current_actor, current_caller
 from service.api.requests import review_decision, start_rerun, transition_refused
 from service.api.tokens import all_tokens, issue_token, revoke
 from service.api.views import load_request
 from service.schemas.api import AssignSchema, CancelSchema, CommentSchema, ReviewNoteSchema
-from service.schemas.requests import AnalysisCreateSchema
+from service.schemas.requests import ExplorationCreateSchema
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES
@@ -108,15 +108,16 @@ def _grid_values(text: str) -> list[float]:
 @bp.post("/requests/<request_id>/explore")
 def explore(request_id: str):
     """Ask for a sensitivity grid (one path, its values) or a robustness panel."""
-    kind = request.form.get("kind", "")
-    body: dict = {"kind": kind}
-    if kind == "sensitivity":
+    kind = request.form.get("type", "")
+    body: dict = {"type": kind}
+    if kind == "sensitivity_grid":
         path = request.form.get("path", "").strip()
         body["grid"] = {path: _grid_values(request.form.get("values", ""))}
-    data = AnalysisCreateSchema().load(body)
-    start_analysis(request_id, data)
+    start_exploration(request_id, ExplorationCreateSchema().load(body))
     flash(
-        "Sensitivity grid asked for." if kind == "sensitivity" else "Robustness panel asked for.",
+        "Sensitivity grid asked for."
+        if kind == "sensitivity_grid"
+        else "Robustness panel asked for.",
         "ok",
     )
     return redirect(url_for("desk.request_page", request_id=request_id))

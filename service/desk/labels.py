@@ -1,66 +1,32 @@
 """The one place the desk reads a stored question: its cell's filter value and human label.
 
-A cell is outcome × layout (issue 10's vocabulary); a question stored before it names a
-``design`` instead, which maps to its cell here. Nothing else in the desk looks inside a question.
+A cell is outcome × layout; its label is the registered design's own (``design.label``).
+Nothing else in the desk looks inside a question.
 """
 
 from __future__ import annotations
 
-from sqlalchemy import ColumnElement, or_
+from sqlalchemy import ColumnElement
 
+from service.engine import designs
+from service.engine.errors import QuestionError
 from service.store.models import Request
-
-# Old design name -> (outcome, layout), as issue 10's vocabulary maps them.
-_OLD_DESIGNS = {
-    "one_mean": ("continuous", "single_group"),
-    "paired_mean": ("continuous", "paired"),
-    "two_means": ("continuous", "two_groups"),
-    "two_proportions": ("binary", "two_groups"),
-    "anova_oneway": ("continuous", "k_groups"),
-    "correlation": ("association", "single_group"),
-    "rank_sum": ("ordinal", "two_groups"),
-    "survival_logrank": ("time_to_event", "two_groups"),
-}
-_OUTCOMES = {
-    "continuous": "Continuous outcome",
-    "binary": "Binary outcome",
-    "ordinal": "Ordinal outcome",
-    "time_to_event": "Time-to-event outcome",
-    "association": "Association",
-}
-_LAYOUTS = {
-    "single_group": "one group",
-    "paired": "paired",
-    "two_groups": "two groups",
-    "k_groups": "several groups",
-}
-
-
-def _cell(question: dict) -> tuple[str, str] | None:
-    outcome, layout = question.get("outcome"), question.get("layout")
-    if outcome and layout:
-        return str(outcome), str(layout)
-    return _OLD_DESIGNS.get(str(question.get("design")))
+from service.store.requests import design_key
 
 
 def cell_value(question: dict) -> str:
     """The filter value of the question's cell, ``outcome.layout`` (empty when unknown)."""
-    cell = _cell(question or {})
-    return f"{cell[0]}.{cell[1]}" if cell else ""
+    outcome, layout = (question or {}).get("outcome"), (question or {}).get("layout")
+    return f"{outcome}.{layout}" if outcome and layout else ""
 
 
 def cell_label(value: str) -> str:
     """The human label of a cell's filter value: 'Continuous outcome, two groups'."""
     outcome, _, layout = value.partition(".")
     try:
-        from service.engine import designs
-
-        return designs.get(outcome, layout).label  # the engine's own label, when it has one
-    except Exception:  # before issue 10's registry, or an unknown cell: say it plainly
-        pass
-    if outcome not in _OUTCOMES:
-        return value or "Unknown design"
-    return f"{_OUTCOMES[outcome]}, {_LAYOUTS.get(layout, layout.replace('_', ' '))}"
+        return designs.get(outcome, layout).label
+    except QuestionError:  # a cell no longer registered: say so rather than fail the page
+        return f"Unknown cell ({value})" if value else "Unknown cell"
 
 
 def question_label(question: dict) -> str:
@@ -69,15 +35,14 @@ def question_label(question: dict) -> str:
 
 
 def cells() -> list[str]:
-    """Every cell's filter value, in the vocabulary's order."""
-    return [f"{o}.{lay}" for o, lay in _OLD_DESIGNS.values()]
+    """Every registered cell's filter value, in catalogue order."""
+    return [f"{d.outcome}.{d.layout}" for d in designs.all()]
 
 
 def where_cell(value: str) -> ColumnElement[bool]:
     """The SQL condition selecting requests of the cell ``value`` (the stored design column)."""
-    names = [name for name, cell in _OLD_DESIGNS.items() if f"{cell[0]}.{cell[1]}" == value]
-    # Matches both the old design names and a design column holding the cell itself.
-    return or_(Request.design == value, Request.design.in_(names))
+    outcome, _, layout = value.partition(".")
+    return Request.design == design_key({"outcome": outcome, "layout": layout})
 
 
 # Blocks of a question whose numbers a sensitivity grid may vary, and the top-level numbers.

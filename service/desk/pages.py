@@ -11,7 +11,7 @@ from service.api.identity import current_caller, visible_submitter
 from service.api.tokens import all_tokens
 from service.api.views import load_request
 from service.reports.render import STATUS_LABELS, question_rows
-from service.store import analyses as analysis_store
+from service.store import explorations as exploration_store
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import REQUEST_STATUSES, TOKEN_ROLES, ApiToken
@@ -116,7 +116,7 @@ def request_page(request_id: str):
         row = load_request(db, request_id)
         detail = render.request_detail(db, row)
         overdue = queue.is_overdue(row.deadline, row.status, utcnow().date())
-        done = {k: a.result for k, a in analysis_store.latest_done(db, request_id).items()}
+        done = {k: e.result for k, e in exploration_store.latest_done(db, request_id).items()}
         reruns = [render.rerun(r) for r in store.reruns_for(db, request_id)]
         colleagues = _colleagues(db)
     report = report_parts(detail, done) if detail["result"] is not None else None

@@ -4,15 +4,11 @@ Pure numpy/scipy (see README.md beside this file). The public surface is listed 
 """
 
 from .compute import compute, draw_seed, estimate_cost, run_chunk
-from .designs import DESIGN_NAMES, FORMULAS, TESTS
 from .errors import BudgetExceeded, Cancelled, EngineError, QuestionError
 from .records import CAUTIONS, canonical_json, record_hash, verify
 
 __all__ = [
     "CAUTIONS",
-    "DESIGN_NAMES",
-    "FORMULAS",
-    "TESTS",
     "BudgetExceeded",
     "Cancelled",
     "EngineError",

@@ -51,7 +51,7 @@ def ratio_fraction(ratio: float, max_denominator: int = 100) -> Fraction | None:
 
 
 def _whole(values: list[float], q: dict, floor: int = 0) -> list[int]:
-    """Round sizes up to whole subjects, each arm alone or keeping the allocation ratio exact.
+    """Round sizes up to whole subjects, each group alone or keeping the allocation ratio exact.
 
     exact_ratio takes the smallest multiple k of the ratio's parts (control c, treatment t with
     t/c the ratio) with c·k and t·k each at least the size asked for.
@@ -59,55 +59,54 @@ def _whole(values: list[float], q: dict, floor: int = 0) -> list[int]:
     if q.get("allocation_rounding") != "exact_ratio" or len(values) != 2:
         return [max(floor, _ceil(float(x))) for x in values]
     frac = ratio_fraction(float(q.get("allocation_ratio") or 1.0))
-    if frac is None:  # the schema refuses this; keep each-arm rounding as the safe fallback
+    if frac is None:  # the schema refuses this; keep each-group rounding as the safe fallback
         return [max(floor, _ceil(float(x))) for x in values]
     c, t = frac.denominator, frac.numerator
     k = max(_ceil(float(values[0]) / c), _ceil(float(values[1]) / t), _ceil(floor / min(c, t)))
     return [c * k, t * k]
 
 
-def inflate(raw_per_arm: list[float], q: dict) -> tuple[list[int], list[dict], dict]:
-    """Turn raw n per arm into enrolled whole subjects: ceil, ÷ (1 − dropout)."""
+def inflate(raw_per_group: list[float], q: dict) -> tuple[list[int], list[dict]]:
+    """Turn raw n per group into enrolled whole subjects: ceil, ÷ (1 − dropout)."""
     adj = _adjustments(q)
-    # Fewer than 2 per arm cannot estimate a variance; small raw answers are lifted to 2.
-    per_arm = _whole([float(x) for x in raw_per_arm], q, floor=2)
+    # Fewer than 2 per group cannot estimate a variance; small raw answers are lifted to 2.
+    per_group = _whole([float(x) for x in raw_per_group], q, floor=2)
     steps: list[dict] = [
         {
             "step": "base",
-            "per_arm_raw": [float(x) for x in raw_per_arm],
-            "per_arm": list(per_arm),
-            "rounding": q.get("allocation_rounding") or "each_arm",
+            "per_group_raw": [float(x) for x in raw_per_group],
+            "per_group": list(per_group),
+            "rounding": q.get("allocation_rounding") or "each_group",
         }
     ]
-    extras: dict = {}
     rate = adj["dropout"]
     if rate > 0:
         # Enrol n / (1 − q) so that n remain after a fraction q drop out (n·(1 + q) keeps too few).
-        per_arm = _whole([n / (1.0 - rate) for n in per_arm], q)
-        steps.append({"step": "dropout", "rate": rate, "per_arm": list(per_arm)})
-    return per_arm, steps, extras
+        per_group = _whole([n / (1.0 - rate) for n in per_group], q)
+        steps.append({"step": "dropout", "rate": rate, "per_group": list(per_group)})
+    return per_group, steps
 
 
-def deflate(enrolled_per_arm: list[int], q: dict) -> tuple[list[float], list[dict]]:
-    """Turn enrolled n per arm into the effective n for power: × (1 − dropout)."""
+def deflate(enrolled_per_group: list[int], q: dict) -> tuple[list[float], list[dict]]:
+    """Turn enrolled n per group into the effective n for power: × (1 − dropout)."""
     adj = _adjustments(q)
-    per_arm = [float(n) for n in enrolled_per_arm]
-    steps: list[dict] = [{"step": "enrolled", "per_arm": [int(n) for n in enrolled_per_arm]}]
+    per_group = [float(n) for n in enrolled_per_group]
+    steps: list[dict] = [{"step": "enrolled", "per_group": [int(n) for n in enrolled_per_group]}]
     rate = adj["dropout"]
     if rate > 0:
-        per_arm = [n * (1.0 - rate) for n in per_arm]
-        steps.append({"step": "dropout", "rate": rate, "per_arm": list(per_arm)})
-    return per_arm, steps
+        per_group = [n * (1.0 - rate) for n in per_group]
+        steps.append({"step": "dropout", "rate": rate, "per_group": list(per_group)})
+    return per_group, steps
 
 
 def split_total(total: int, allocation: list[float]) -> list[int]:
-    """Split ``total`` subjects over arms in proportion to ``allocation`` by largest remainders."""
+    """Split ``total`` subjects over groups in proportion to ``allocation`` by largest remainders."""
     weights = [float(a) for a in allocation]
     s = sum(weights)
     quotas = [total * w / s for w in weights]
     parts = [int(math.floor(x)) for x in quotas]
     left = total - sum(parts)
-    # Ties go to the earlier arm (control first) so the split is deterministic.
+    # Ties go to the earlier group (control first) so the split is deterministic.
     order = sorted(range(len(quotas)), key=lambda i: (-(quotas[i] - parts[i]), i))
     for i in order[:left]:
         parts[i] += 1

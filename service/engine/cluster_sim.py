@@ -1,8 +1,8 @@
-"""Simulated cluster-randomized trials: cluster random effects, analysed by the cluster-level test.
+"""Simulated cluster-randomized trials: cluster random effects, analyzed by the cluster-level test.
 
-A chunk task whose ``extra`` holds ``cluster`` ({"mean_size": analysed m, "cv", "icc"}) has
-``per_arm`` in clusters. Per arm ``a`` the generators of (arm a, variate v, block 0) draw, row
-by row over the arm's clusters:
+A chunk task whose ``settings`` hold ``cluster`` ({"mean_size": analyzed m, "cv", "icc"}) has
+``per_group`` in clusters. Per group ``a`` the generators of (group a, variate v, block 0) draw,
+row by row over the group's clusters:
 
 * variate 0: cluster sizes, gamma with mean m and coefficient of variation cv, rounded to a
   whole number ≥ 1 (cv = 0: every cluster has round(m), at least 1);
@@ -71,11 +71,11 @@ def cluster_t(y1, m1, y2, m2):
     return means[1] - means[0], se, df
 
 
-def reject(streams, task: dict, rows: int) -> tuple[np.ndarray, dict]:
-    """Return the reject decisions of ``rows`` simulated cluster trials."""
-    cl = task["extra"]["cluster"]
-    (a1, a2), (k1, k2) = task["arms"], task["per_arm"]
+def reject(streams, task, rows: int) -> tuple[np.ndarray, dict]:
+    """Return the reject decisions of ``rows`` simulated cluster trials (a ChunkTask)."""
+    cl = task.settings["cluster"]
+    (a1, a2), (k1, k2) = task.models, task.per_group
     y1, m1 = _arm(streams, 0, a1, k1, cl, rows)
     y2, m2 = _arm(streams, 1, a2, k2, cl, rows)
     est, se, df = cluster_t(y1, m1, y2, m2)
-    return vectests.decide(est, se, df, task["alpha"], task["rule"]), {}
+    return vectests.decide(est, se, df, task.alpha, task.rule), {}

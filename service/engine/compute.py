@@ -12,12 +12,15 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, cluster, designs, implied
+from . import adjust, cluster, designs, implied, starting
+from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, versions
 
 Executor = Callable[[list[dict]], list[dict]]
-SMALL_ARM = 10  # below this per arm, large-sample approximations and simulated tests are fragile
+SMALL_GROUP = (
+    10  # below this per group, large-sample approximations and simulated tests are fragile
+)
 
 
 def draw_seed() -> int:
@@ -55,18 +58,13 @@ def compute(
     --------
     >>> from service.engine.examples import example_question
     >>> q = example_question()  # two means, d = 0.5, SD 1, two-sided 5%, 80% power
-    >>> compute(q)["sample_size"]["per_arm"]
+    >>> compute(q)["sample_size"]["per_group"]
     [64, 64]
     """
     q = copy.deepcopy(question)
-    try:
-        design = designs.get(q["design"])
-    except KeyError:
-        raise QuestionError(
-            "design",
-            f"unknown design {q.get('design')!r}; allowed: {', '.join(designs.DESIGN_NAMES)}",
-        ) from None
+    design = designs.get(q.get("outcome"), q.get("layout"))
     simulated = q.get("method") == "simulation"
+    _check_question(q, design, simulated)
     if simulated:
         _check_simulation(q, budget)
     hooks = [_passthrough(h) for h in (progress, cancel, executor)]
@@ -117,10 +115,42 @@ def _check_simulation(q: dict, budget: int | None) -> None:
             raise BudgetExceeded(estimate, budget)
 
 
+def _check_question(q: dict, design, simulated: bool) -> None:
+    """The engine's own check of what the schema validates: the cell's fields, aim, analysis."""
+    if q.get("find") not in ("sample_size", "power", "effect"):
+        raise QuestionError(
+            "find", f"must be 'sample_size', 'power' or 'effect'; got {q.get('find')!r}"
+        )
+    alternative = q.get("alternative", "two-sided")
+    if alternative not in ("two-sided", "one-sided"):
+        raise QuestionError(
+            "alternative", f"must be 'two-sided' or 'one-sided'; got {alternative!r}"
+        )
+    if alternative == "one-sided" and not design.directional:
+        raise QuestionError(
+            "alternative",
+            f"the tests of {design.cell} have no direction; only 'two-sided' applies",
+        )
+    aim = check_aim(q, design)
+    if aim != "superiority" and alternative != "one-sided":
+        raise QuestionError(
+            "alternative", f"a {aim} question is tested one-sided; got {alternative!r}"
+        )
+    if not simulated or not design.simulation:
+        analysis_of(q, design, "analytic")
+    from_data = bool(
+        simulated
+        and q["find"] != "effect"
+        and isinstance((q.get("simulation") or {}).get("data"), dict)
+    )
+    blocks = {b: q.get(b) or {} for b in ("effect", "assumptions", "analysis_options")}
+    raise_first(design.validate(blocks, q["find"], from_data))
+
+
 def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> dict:
     alpha, bonferroni = adjust.alpha_for(q)
     # A posted data model is what is simulated: the effect stated is the one it implies.
-    from_data = implied.reconcile(q) if simulated and q["find"] != "effect" else None
+    from_data = implied.reconcile(q, design) if simulated and q["find"] != "effect" else None
     pre_steps = [bonferroni] if bonferroni else []
     record = {
         "record_version": RECORD_VERSION,
@@ -140,50 +170,55 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             q,
             design,
             alpha,
-            lambda per_arm, start: _simulate(
-                q, alpha, per_arm, start, executor, progress, cancel, budget
+            lambda per_group, start: _simulate(
+                q, alpha, per_group, start, executor, progress, cancel, budget
             ),
         )
         part["sample_size"]["steps"] = pre_steps + part["sample_size"]["steps"]
         record["sample_size"] = part["sample_size"]
         record["effect"] = part["effect"]
         record["warnings"].extend(part["warnings"])
-        sim, power, analysed = part["sim"], part["power"], part["analysed"]
+        sim, power, analyzed = part["sim"], part["power"], part["analyzed"]
     elif find == "sample_size":
         solution = None
-        if not simulated or (q.get("effect") and from_data is None):
-            solution = _analytic_or_none(design, q, alpha, required=not simulated)
+        if not simulated:
+            solution = design.solve_n(q, alpha)
+        elif q.get("effect") and from_data is None:
+            solution = starting.analytic_solution(design, q, alpha)
         if simulated:
-            start = solution.per_arm if solution else None
+            start = solution.per_group if solution else None
             sim = _simulate(q, alpha, None, start, executor, progress, cancel, budget)
-            raw = [float(n) for n in sim["per_arm"]]
+            raw = [float(n) for n in sim["per_group"]]
         else:
-            raw = solution.per_arm
-        final, steps, extras = adjust.inflate(raw, q)
-        base = _base_per_arm(steps, raw)
+            raw = solution.per_group
+        if solution is not None:
+            record["events"] = solution.details.get("events")
+        final, steps = adjust.inflate(raw, q)
+        base = _base_per_group(steps, raw)
         power = sim["power"] if sim else _analytic_power(design, q, base, alpha)
-        if solution and "events" in solution.extra:
-            record["events"] = solution.extra
-        record["sample_size"] = {"per_arm": final, "total": sum(final), "steps": pre_steps + steps}
-        record["sample_size"].update(extras)
-        analysed = base
+        record["sample_size"] = {
+            "per_group": final,
+            "total": sum(final),
+            "steps": pre_steps + steps,
+        }
+        analyzed = base
     else:
-        enrolled = list(q["sample_size"]["per_arm"])
+        enrolled = list(q["sample_size"]["per_group"])
         effective, steps = adjust.deflate(enrolled, q)
         record["sample_size"] = {
-            "per_arm": enrolled,
+            "per_group": enrolled,
             "total": sum(enrolled),
             "steps": pre_steps + steps,
-            "analysed_per_arm": effective,
+            "analyzed_per_group": effective,
         }
-        analysed = effective
+        analyzed = effective
         if find == "effect" and simulated:
-            # The simulation runs at whole analysed numbers, as for find = power.
+            # The simulation runs at whole analyzed numbers, as for find = power.
             whole = [int(math.floor(n + 1e-9)) for n in effective]
             sim = _simulate(q, alpha, whole, None, executor, progress, cancel, budget)
             record["effect"] = sim["effect"]
             power = sim["power"]
-            analysed = whole
+            analyzed = whole
         elif find == "effect":
             effect = design.solve_effect(q, effective, alpha)
             record["effect"] = effect
@@ -194,7 +229,7 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             whole = [int(math.floor(n + 1e-9)) for n in effective]
             sim = _simulate(q, alpha, whole, None, executor, progress, cancel, budget)
             power = sim["power"]
-            analysed = whole
+            analyzed = whole
         else:
             power = _analytic_power(design, q, effective, alpha)
     if sim is not None:
@@ -209,16 +244,14 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             record["warnings"].extend(implied.warnings(from_data))
         repro = dict(sim["reproducibility"])
         if q["simulation"].get("data") is None and not clustered:
-            # The formula answer beside the simulated one, when both describe the same normal data
-            # (for find = effect: the formula's power at the simulated effect).
+            # The analytic answer beside the simulated one, when both describe the same normal
+            # data (for find = effect: the analytic power at the simulated effect); the
+            # simulated analysis's own formula when it has one.
             basis = q
             if find == "effect":
                 basis = copy.deepcopy(q)
                 basis["effect"][record["effect"]["field"]] = record["effect"]["value"]
-            if q["design"] == "two_proportions" and q["hypothesis"]["kind"] != "superiority":
-                # The simulated z test against a margin is the Wald test: compare like with like.
-                basis = dict(basis, formula="unpooled_z")
-            exact = _analytic_or_none_power(design, basis, analysed, alpha)
+            exact = starting.analytic_power(design, basis, analyzed, alpha)
             if exact is not None:
                 power = dict(power, analytic=exact)
     else:
@@ -228,9 +261,9 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         record["method"] = dict(
             record["method"], notes=[*record["method"].get("notes", []), *cluster.method_notes(q)]
         )
-        if record["method"]["kind"] == "analytic":
+        if record["method"]["method"] == "analytic":
             record["method"].update(
-                formula="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
+                approximation="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
                 reference="Donner & Klar (2000); Eldridge, Ashby & Kerry (2006)",
             )
     note = _alpha_note(q)
@@ -239,16 +272,16 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     record["power"] = power
     repro["versions"] = versions()
     record["reproducibility"] = repro
-    record["warnings"].extend(_warnings(design, q, analysed))
+    record["warnings"].extend(_warnings(design, q, analyzed))
     return record
 
 
 def _alpha_note(q: dict) -> str | None:
     """Say which level a non-inferiority or equivalence answer used and what guidance expects."""
-    kind = (q.get("hypothesis") or {}).get("kind", "superiority")
-    if kind == "superiority":
+    aim = (q.get("hypothesis") or {}).get("aim", "superiority")
+    if aim == "superiority":
         return None
-    what = "non-inferiority" if kind == "noninferiority" else "equivalence"
+    what = "non-inferiority" if aim == "noninferiority" else "equivalence"
     text = (
         f"one-sided alpha {q['alpha']:g} for each {what} test; one-sided 0.025 is the level "
         "regulatory guidance expects of such trials (ICH E9, 1998) and the default when no "
@@ -259,46 +292,29 @@ def _alpha_note(q: dict) -> str | None:
     return text
 
 
-def _analytic_or_none(design, q, alpha, *, required: bool):
-    """The analytic solve; for a simulation it is only a starting point, so failure is tolerated."""
-    if required:
-        return design.solve_n(q, alpha)
-    try:
-        return design.solve_n(q, alpha)
-    except (EngineError, ValueError, ArithmeticError, KeyError, TypeError):
-        return None
-
-
-def _analytic_or_none_power(design, q, per_arm, alpha):
-    try:
-        return float(design.power(q, per_arm, alpha))
-    except (EngineError, ValueError, ArithmeticError, KeyError, TypeError):
-        return None
-
-
-def _analytic_power(design, q, per_arm, alpha) -> dict:
+def _analytic_power(design, q, per_group, alpha) -> dict:
     return {
-        "estimate": float(design.power(q, per_arm, alpha)),
+        "estimate": float(design.power(q, per_group, alpha)),
         "mcse": None,
         "ci95": None,
         "replicates": None,
     }
 
 
-def _base_per_arm(steps: list[dict], raw: list[float]) -> list[int]:
+def _base_per_group(steps: list[dict], raw: list[float]) -> list[int]:
     for step in steps:
         if step.get("step") == "base":
-            return list(step["per_arm"])
+            return list(step["per_group"])
     return [math.ceil(n - 1e-9) for n in raw]
 
 
-def _simulate(q, alpha, per_arm, start, executor, progress, cancel, budget) -> dict:
+def _simulate(q, alpha, per_group, start, executor, progress, cancel, budget) -> dict:
     from . import simulate
 
     return simulate.answer(
         q,
         alpha,
-        per_arm=per_arm,
+        per_group=per_group,
         start=start,
         executor=executor,
         progress=progress,
@@ -307,30 +323,20 @@ def _simulate(q, alpha, per_arm, start, executor, progress, cancel, budget) -> d
     )
 
 
-# The effect field and its null value per design; find = power at the null is answered (the
-# power is then the size of the test), with the same words for every design and method.
-_NULL = {
-    "two_means": ("difference", lambda e: 0.0),
-    "one_mean": ("difference", lambda e: 0.0),
-    "paired_mean": ("difference", lambda e: 0.0),
-    "two_proportions": ("p_treatment", lambda e: e.get("p_control")),
-    "anova_oneway": ("cohens_f", lambda e: 0.0),
-    "correlation": ("r", lambda e: e.get("r0", 0.0) or 0.0),
-    "rank_sum": ("prob_superiority", lambda e: 0.5),
-    "survival_logrank": ("hazard_ratio", lambda e: 1.0),
-}
-
-
 def null_effect_note(q: dict) -> str | None:
-    """The note for a find = power question whose assumed effect is the null value, else None."""
-    if q.get("find") != "power" or (q.get("hypothesis") or {}).get("kind", "superiority") != (
+    """The note for a find = power question whose assumed effect is the null value, else None.
+
+    Answered with the same words for every cell and method: the power is then the size.
+    """
+    if q.get("find") != "power" or (q.get("hypothesis") or {}).get("aim", "superiority") != (
         "superiority"
     ):
         return None
-    name, null = _NULL[q["design"]]
-    effect = q.get("effect") or {}
-    value = effect.get(name)
-    if value is None or value != null(effect):
+    design = designs.get(q.get("outcome"), q.get("layout"))
+    name = design.solved
+    values = {**(q.get("effect") or {}), **design.derive(q)}
+    value = values.get(name)
+    if value is None or value != design.null_effect(q):
         return None
     return (
         f"the assumed effect is the null value (effect.{name} = {value:g}): the power shown is "
@@ -339,16 +345,15 @@ def null_effect_note(q: dict) -> str | None:
     )
 
 
-def _warnings(design, q, per_arm) -> list[str]:
+def _warnings(design, q, per_group) -> list[str]:
     notes = []
     null_note = null_effect_note(q)
     if null_note:
         notes.append(null_note)
-    if per_arm and min(per_arm) < SMALL_ARM:
+    if per_group and min(per_group) < SMALL_GROUP:
         notes.append(
-            f"fewer than {SMALL_ARM} analysed per arm ({min(per_arm):g}); large-sample approximations "
-            "may be poor and the answer is sensitive to the assumptions"
+            f"fewer than {SMALL_GROUP} analyzed per group ({min(per_group):g}); large-sample "
+            "approximations may be poor and the answer is sensitive to the assumptions"
         )
-    if design.warnings_for is not None:
-        notes.extend(design.warnings_for(q, per_arm))
+    notes.extend(design.warnings_for(q, per_group))
     return notes

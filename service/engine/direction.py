@@ -19,38 +19,15 @@ from __future__ import annotations
 
 import math
 
-# design -> (effect field, its null value or the effect field holding it)
-_NULL = {
-    "two_means": ("difference", 0.0),
-    "one_mean": ("difference", 0.0),
-    "paired_mean": ("difference", 0.0),
-    "two_proportions": ("p_treatment", "p_control"),
-    "correlation": ("r", "r0"),
-    "rank_sum": ("prob_superiority", 0.5),
-    "survival_logrank": ("hazard_ratio", 1.0),
-}
 
-
-def assumed_effect(q: dict, design: str) -> float | None:
+def assumed_effect(q: dict, design) -> float | None:
     """Return the assumed effect minus its null value on the outcome scale, or None.
 
-    For survival the value is −ln(hazard ratio): positive when treatment times are longer.
-    None when the design has no one-sided test or the effect is not given (find = effect).
+    For time to event the value is −ln(hazard ratio): positive when treatment times are longer.
+    None when the cell has no direction (k groups) or the effect is not given (find = effect).
     """
-    if design not in _NULL:
-        return None
-    name, null = _NULL[design]
-    effect = q.get("effect") or {}
-    value = effect.get(name)
-    if isinstance(null, str):  # p_control (required) or r0 (default 0)
-        if null == "p_control" and effect.get(null) is None:
-            return None
-        null = effect.get(null) or 0.0
-    if not _number(value) or not _number(null):
-        return None
-    if design == "survival_logrank":
-        return -math.log(value) if value > 0 else None
-    return float(value) - float(null)
+    value = design.contrast(q)
+    return float(value) if _number(value) else None
 
 
 def _number(x) -> bool:
@@ -61,7 +38,7 @@ def _sign(x: float | None) -> int:
     return 0 if x is None or not math.isfinite(x) or x == 0 else (1 if x > 0 else -1)
 
 
-def one_sided(q: dict, design: str, implied: float | None = None) -> int:
+def one_sided(q: dict, design, implied: float | None = None) -> int:
     """Return +1 or −1: the outcome direction the one-sided alternative points to.
 
     ``implied`` is the effect a posted data model implies (difference of arm means, minus the
@@ -69,28 +46,27 @@ def one_sided(q: dict, design: str, implied: float | None = None) -> int:
     """
     h = q.get("hypothesis") or {}
     better = 1 if h.get("higher_is_better", True) else -1
-    if h.get("kind", "superiority") != "superiority":
+    if h.get("aim", "superiority") != "superiority":
         return better
     effect = implied if implied is not None else assumed_effect(q, design)
     return _sign(effect) or better
 
 
-def conflict(q: dict, design: str, implied: float | None = None) -> str | None:
+def conflict(q: dict, design, implied: float | None = None) -> str | None:
     """Return why a posted higher_is_better contradicts the effect of a one-sided question.
 
     Only a one-sided superiority question with an assumed effect off its null can conflict.
     """
     h = q.get("hypothesis") or {}
-    if h.get("kind", "superiority") != "superiority" or int(q.get("sides") or 2) != 1:
+    if h.get("aim", "superiority") != "superiority" or q.get("alternative") != "one-sided":
         return None
     effect = implied if implied is not None else assumed_effect(q, design)
     sign = _sign(effect)
     better = 1 if h.get("higher_is_better", True) else -1
     if sign == 0 or sign == better:
         return None
-    name = _NULL[design][0]
-    where = "the data model" if implied is not None else f"effect.{name}"
-    if design == "survival_logrank":
+    where = "the data model" if implied is not None else f"effect.{design.solved}"
+    if design.simulation is not None and design.simulation.direction_sign < 0:
         words = {
             1: "longer times to the event (hazard ratio below 1)",
             -1: "shorter times to the event (hazard ratio above 1)",
@@ -101,25 +77,21 @@ def conflict(q: dict, design: str, implied: float | None = None) -> str | None:
         f"is {'true' if better > 0 else 'false'}, so the one-sided test would look for "
         f"{words[better]}, but the assumed effect ({where}) points to {words[sign]}: that "
         f"test could not detect it. Set higher_is_better to {'false' if better > 0 else 'true'} "
-        "if that direction is the benefit, correct the effect, or use sides 2"
+        "if that direction is the benefit, correct the effect, or use a two-sided alternative"
     )
 
 
-def implied(design: str, arms: list[dict]) -> float | None:
-    """Return the effect simulated arms imply on the outcome scale, or None.
+def implied(design, arms: list[dict]) -> float | None:
+    """Return the effect simulated groups imply on the outcome scale, or None.
 
-    Two arms: treatment minus control mean (location when the mean does not exist; for event
-    times, the mean time, so longer times count as higher). One sample: its mean (the null is 0).
+    Two groups: treatment minus control mean (location when the mean does not exist; for event
+    times, the mean time, so longer times count as higher). One group: its mean (the null is 0).
     """
-    from .models import center
-
+    model = design.simulation
+    if model is None or model.implied_contrast is None:
+        return None
     try:
-        if design in ("one_mean", "paired_mean") and len(arms) == 1:
-            value = center(arms[0])
-        elif design in ("two_means", "two_proportions", "rank_sum", "survival_logrank"):
-            value = center(arms[1]) - center(arms[0])
-        else:
-            return None
+        value = model.implied_contrast(arms)
     except (ArithmeticError, IndexError):  # a mean beyond a float: the effect fields decide
         return None
-    return value if math.isfinite(value) else None
+    return value if value is not None and math.isfinite(value) else None

@@ -3,8 +3,8 @@
 Both re-ask the engine through ``compute`` so every number equals what a single question would
 give. The sensitivity grid re-solves a question over a grid of field values (a simulated one
 only with the caller's executor, i.e. as a worker job, every cell on the question's seed); the
-robustness panel re-simulates a two_means question's power and type I error at a fixed n under
-declared departures from normal data. Pure: numpy/scipy/stdlib and ``service.engine`` only.
+robustness panel re-simulates a two-group question's power and type I error at a fixed n under
+declared departures from its planned data (cells whose model says how: ``planned_moments``). Pure: numpy/scipy/stdlib and ``service.engine`` only.
 """
 
 from __future__ import annotations
@@ -14,26 +14,40 @@ import itertools
 import math
 from collections.abc import Callable
 
-from scipy import special
-
+from . import designs
 from .adjust import alpha_for
 from .compute import compute, estimate_cost
-from .designs import TESTS
-from .errors import BudgetExceeded, QuestionError
-from .models import check_arm, moments
+from .errors import BudgetExceeded, EngineError, QuestionError
 
 MAX_CELLS = 400  # an analytic cell costs milliseconds; bigger grids are a job, not a request
 MAX_AXES = 3
 
-# Two-means shortcut: one path that moves both SDs together (a posted "sd" fills both too).
-_BOTH_SDS = "effect.sd"
+# Paths whose value must stay an integer (the engine reads them as counts); the cells' integer
+# fields are added from their declarations.
+_INTEGER_PATHS = {"adjustments.comparisons", "adjustments.cluster.clusters_per_group"}
+_FIELD_BLOCKS = ("effect", "assumptions", "analysis_options")
 
-# Paths whose value must stay an integer (the engine reads them as counts).
-_INTEGER_PATHS = {
-    "adjustments.comparisons",
-    "effect.groups",
-    "adjustments.cluster.clusters_per_arm",
-}
+
+def _design(q: dict):
+    return designs.get(q.get("outcome"), q.get("layout"))
+
+
+def _integer_paths(q: dict) -> set[str]:
+    return _INTEGER_PATHS | {f.path for f in _design(q).fields if f.type == "integer"}
+
+
+def _single_forms(q: dict) -> dict[str, set[str]]:
+    """Declared fields that alone make a form (e.g. ``assumptions.sd``), each with the fields of
+    the other forms it replaces: a grid may move such a field though another form was posted."""
+    design = _design(q)
+    out = {}
+    for form in design.forms:
+        if len(form) == 1:
+            others = {n for f in design.forms if f != form for n in f}
+            field = design.field(form[0])
+            if field.type in ("number", "integer"):
+                out[field.path] = {design.field(n).path for n in others}
+    return out
 
 
 # --- sensitivity grid ---------------------------------------------------------------------
@@ -53,37 +67,32 @@ def _numeric_paths(q: dict, prefix: str = "") -> list[str]:
 
 def _allowed_paths(q: dict) -> list[str]:
     # Fields a grid may move: the assumptions, not the bookkeeping (seeds, replicates, chunking).
-    paths = [
-        p
-        for p in _numeric_paths(q)
-        if p.split(".")[0] in ("alpha", "target_power", "allocation_ratio", "effect", "adjustments")
-    ]
-    if q.get("design") == "two_means":
-        paths.append(_BOTH_SDS)
-    return paths
+    movable = ("alpha", "target_power", "allocation_ratio", *_FIELD_BLOCKS, "adjustments")
+    paths = [p for p in _numeric_paths(q) if p.split(".")[0] in movable]
+    return paths + [p for p in _single_forms(q) if p not in paths]
 
 
 def _set_path(q: dict, path: str, value: float) -> None:
-    """Set one dotted path in ``q`` (in place); ``effect.sd`` sets both SDs of two_means."""
-    if path == _BOTH_SDS and q.get("design") == "two_means":
-        q["effect"]["sd_control"] = value
-        q["effect"]["sd_treatment"] = value
-        return
+    """Set one dotted path in ``q`` (in place); a single-field form replaces the other forms'
+    fields (``assumptions.sd`` stands for both group SDs)."""
+    for other in _single_forms(q).get(path, ()):
+        block, name = other.split(".")
+        (q.get(block) or {}).pop(name, None)
     *parents, leaf = path.split(".")
     node = q
     for key in parents:
-        node = node[key]
-    node[leaf] = int(value) if path in _INTEGER_PATHS else value
+        node = node.setdefault(key, {}) if key in _FIELD_BLOCKS else node[key]
+    node[leaf] = int(value) if path in _integer_paths(q) else value
 
 
-def _check_values(path: str, values) -> list[float]:
+def _check_values(path: str, values, integers: set[str]) -> list[float]:
     if not isinstance(values, (list, tuple)) or not values:
         raise QuestionError(f"grid.{path}", f"must be a non-empty list of numbers; got {values!r}")
     out = []
     for i, v in enumerate(values):
         if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
             raise QuestionError(f"grid.{path}.{i}", f"must be a finite number; got {v!r}")
-        if path in _INTEGER_PATHS and float(v) != int(v):
+        if path in integers and float(v) != int(v):
             raise QuestionError(f"grid.{path}.{i}", f"must be a whole number; got {v!r}")
         out.append(float(v))
     if len(set(out)) != len(out):
@@ -106,13 +115,14 @@ def _check_grid(q: dict, grid) -> list[tuple[str, list[float]]]:
                 f"grid.{path}",
                 f"is not a numeric field of this question; allowed: {', '.join(allowed)}",
             )
-        axes.append((path, _check_values(path, values)))
+        axes.append((path, _check_values(path, values, _integer_paths(q))))
     paths = [p for p, _ in axes]
-    if _BOTH_SDS in paths and {"effect.sd_control", "effect.sd_treatment"} & set(paths):
-        raise QuestionError(
-            "grid.effect.sd",
-            "moves both SDs; do not combine it with effect.sd_control/sd_treatment",
-        )
+    for path, replaced in _single_forms(q).items():
+        clash = sorted(replaced & set(paths))
+        if path in paths and clash:
+            raise QuestionError(
+                f"grid.{path}", f"replaces {', '.join(clash)}; do not combine them in one grid"
+            )
     cells = math.prod(len(v) for _, v in axes)
     if cells > MAX_CELLS:
         raise QuestionError(
@@ -165,7 +175,7 @@ def grid_cost(question: dict, grid: dict[str, list[float]]) -> int:
     Examples
     --------
     >>> from service.engine.examples import example_question
-    >>> q = example_question(find="power", target_power=None, sample_size={"per_arm": [30, 30]})
+    >>> q = example_question(find="power", target_power=None, sample_size={"per_group": [30, 30]})
     >>> grid_cost(q, {"effect.difference": [0.4, 0.5]})
     0
     """
@@ -190,8 +200,9 @@ def sensitivity(
     question : a normalized question (DEVELOPERS.md) with ``find`` ``sample_size`` or ``power``;
         analytic, or simulated when ``executor`` is given (every cell keeps the question's seed,
         so a cell's digits depend only on the cell's question).
-    grid : dotted field path -> values, e.g. ``{"effect.difference": [0.4, 0.5]}``; for two_means
-        ``"effect.sd"`` sets both SDs. At most 3 axes and 400 cells.
+    grid : dotted field path -> values, e.g. ``{"effect.difference": [0.4, 0.5]}``; a field that
+        alone makes a form moves though another form was posted (``"assumptions.sd"`` sets both
+        group SDs). At most 3 axes and 400 cells.
     executor, budget : passed to ``compute`` for every cell (chunk fan-out, cost refusal).
     progress : called with the fraction of the grid done, also within a simulated cell.
     base : the question's own result record, when the caller has it (saves one computation).
@@ -199,14 +210,15 @@ def sensitivity(
     Returns
     -------
     dict with ``axes`` (path and values, in grid order), ``cells`` (row-major over the axes, the
-    last axis fastest; each with ``values``, ``per_arm``, ``total``, ``power``, ``mcse`` and
-    ``error``), ``find``, ``design``, ``method`` and ``base`` (the question's own answer).
+    last axis fastest; each with ``values``, ``per_group``, ``total``, ``power``, ``mcse`` and
+    ``error``), ``find``, ``outcome``, ``layout``, ``method`` and ``base`` (the question's own
+    answer).
 
     Examples
     --------
     >>> from service.engine.examples import example_question
-    >>> q = example_question()  # two means, d = 0.5, SD 1, two-sided 5%, 80% power
-    >>> [c["per_arm"] for c in sensitivity(q, {"effect.difference": [0.5, 0.8]})["cells"]]
+    >>> q = example_question()  # two groups, d = 0.5, SD 1, two-sided 5%, 80% power
+    >>> [c["per_group"] for c in sensitivity(q, {"effect.difference": [0.5, 0.8]})["cells"]]
     [[64, 64], [26, 26]]
     """
     _check_question(question, simulated_ok=executor is not None)
@@ -227,13 +239,14 @@ def sensitivity(
         if progress is not None:
             progress((i + 1) / len(pairs))
     return {
-        "design": question["design"],
+        "outcome": question["outcome"],
+        "layout": question["layout"],
         "find": question["find"],
         "method": question.get("method", "analytic"),
         "seed": (question.get("simulation") or {}).get("seed"),
         "axes": [{"path": p, "values": v} for p, v in axes],
         "shape": [len(v) for _, v in axes],
-        "base": {k: own[k] for k in ("per_arm", "total", "power")},
+        "base": {k: own[k] for k in ("per_group", "total", "power")},
         "cells": cells,
     }
 
@@ -241,7 +254,7 @@ def sensitivity(
 def _summary(record: dict) -> dict:
     size, power = record["sample_size"], record["power"]
     return {
-        "per_arm": list(size["per_arm"]),
+        "per_group": list(size["per_group"]),
         "total": size["total"],
         "power": power["estimate"],
         "mcse": power.get("mcse"),
@@ -259,7 +272,7 @@ def _cell(q: dict, values: dict, **hooks) -> dict:
     except QuestionError as exc:
         return {
             "values": values,
-            "per_arm": None,
+            "per_group": None,
             "total": None,
             "power": None,
             "mcse": None,
@@ -279,21 +292,30 @@ T_DF = 3.0
 # Cauchy scale matched to the normal's interquartile range: IQR = 2·scale = 2·z.75·sd.
 _Z75 = 0.6744897501960817
 SD_FACTOR = 2.0
-# Trials per data model when the question has no replicates of its own (an analytic request).
+# Replicates per data model when the question has none of its own (an analytic request).
 ROBUSTNESS_REPLICATES = 5000
 
-_FORMULA_TEST = {"student": "student_t", "welch": "welch_t"}
-# Two-group designs with a continuous outcome, whose data can depart from the normal.
-ROBUSTNESS_DESIGNS = ("two_means", "rank_sum")
+
+def robustness_cells() -> list[str]:
+    """The cells that offer a robustness panel: their model says the planned data's moments."""
+    return [
+        d.cell
+        for d in designs.all()
+        if d.simulation is not None and d.simulation.planned_moments is not None
+    ]
 
 
-def robustness_refusal(design: object) -> str | None:
-    """The message refusing a robustness panel for ``design``, or None when it is offered."""
-    if design in ROBUSTNESS_DESIGNS:
+def robustness_refusal(question: dict) -> str | None:
+    """The message refusing a robustness panel for the question's cell, or None when offered."""
+    try:
+        design = _design(question)
+    except EngineError as exc:
+        return str(exc)
+    if design.simulation is not None and design.simulation.planned_moments is not None:
         return None
     return (
         "the robustness panel simulates departures from the planned data for "
-        f"{' and '.join(ROBUSTNESS_DESIGNS)} only; this request's design is {design!r}"
+        f"{' and '.join(robustness_cells())} only; this request's cell is {design.cell}"
     )
 
 
@@ -315,8 +337,8 @@ def _lognormal(mean: float, sd: float) -> dict:
     s2 = LOGNORMAL_SIGMA**2
     # sd² = (e^σ² − 1)·e^(2μ + σ²) fixes μ; the shift then moves the mean into place.
     mu = math.log(sd / math.sqrt(math.expm1(s2))) - s2 / 2
-    arm = {"family": "lognormal", "mu": mu, "sigma": LOGNORMAL_SIGMA}
-    return _with_shift(arm, mean - math.exp(mu + s2 / 2))
+    model = {"family": "lognormal", "mu": mu, "sigma": LOGNORMAL_SIGMA}
+    return _with_shift(model, mean - math.exp(mu + s2 / 2))
 
 
 def _gamma(mean: float, sd: float) -> dict:
@@ -330,13 +352,13 @@ def _cauchy(mean: float, sd: float) -> dict:
     return {"family": "cauchy", "loc": mean, "scale": _Z75 * sd}
 
 
-def _with_shift(arm: dict, shift: float) -> dict:
+def _with_shift(model: dict, shift: float) -> dict:
     if shift != 0.0:
-        arm["shift"] = shift
-    return arm
+        model["shift"] = shift
+    return model
 
 
-# name -> (description, arm builder, treatment SD factor)
+# name -> (description, model builder, treatment SD factor)
 DEPARTURES: dict[str, tuple[str, object, float]] = {
     "normal": (
         "Normal data with the assumed means and SDs: the reference case the answer was planned for.",
@@ -344,20 +366,20 @@ DEPARTURES: dict[str, tuple[str, object, float]] = {
         1.0,
     ),
     "heavy_tails": (
-        f"Heavier tails: Student t with {T_DF:g} degrees of freedom in each arm, scaled to the same "
+        f"Heavier tails: Student t with {T_DF:g} degrees of freedom in each group, scaled to the same "
         "mean and SD (more outlying values than the normal).",
         _student_t,
         1.0,
     ),
     "skew_lognormal": (
         f"Right skew: shifted lognormal (log-scale SD {LOGNORMAL_SIGMA:g}, skewness about 2.3) in "
-        "each arm, matched to the assumed mean and SD.",
+        "each group, matched to the assumed mean and SD.",
         _lognormal,
         1.0,
     ),
     "skew_gamma": (
         f"Moderate right skew: shifted gamma (shape {GAMMA_SHAPE:g}, skewness about 1.4) in each "
-        "arm, matched to the assumed mean and SD.",
+        "group, matched to the assumed mean and SD.",
         _gamma,
         1.0,
     ),
@@ -367,7 +389,7 @@ DEPARTURES: dict[str, tuple[str, object, float]] = {
         SD_FACTOR,
     ),
     "cauchy": (
-        "The extreme: Cauchy data (no mean or variance), centred at the assumed means with the "
+        "The extreme: Cauchy data (no mean or variance), centered at the assumed means with the "
         "normal model's interquartile range.",
         _cauchy,
         1.0,
@@ -375,82 +397,32 @@ DEPARTURES: dict[str, tuple[str, object, float]] = {
 }
 
 
-def _rank_sum_moments(question: dict) -> tuple[float, float, float, float]:
-    """(control mean, difference, sd_c, sd_t) of a rank_sum question's planned data."""
-    data = (question.get("simulation") or {}).get("data")
-    if isinstance(data, dict) and {"control", "treatment"} <= set(data):
-        found = []
-        for arm_name in ("control", "treatment"):
-            mean, var = moments(check_arm(data[arm_name], f"simulation.data.{arm_name}"))
-            if mean is None or var is None or not math.isfinite(var):
-                raise QuestionError(
-                    f"simulation.data.{arm_name}",
-                    "the robustness panel matches each departure to the arm's mean and SD; "
-                    f"the {data[arm_name].get('family')!r} arm has none",
-                )
-            found.append((mean, math.sqrt(var)))
-        (m0, s0), (m1, s1) = found
-        return m0, m1 - m0, s0, s1
-    p = (question.get("effect") or {}).get("prob_superiority")
-    if isinstance(p, bool) or not isinstance(p, (int, float)) or not 0 < p < 1:
-        raise QuestionError(
-            "effect.prob_superiority", f"must be a number in (0, 1) for the panel; got {p!r}"
-        )
-    # A normal shift with SD 1 gives P(Y > X) = Φ(Δ/√2) (the Noether start uses the same model).
-    return 0.0, math.sqrt(2.0) * float(special.ndtri(p)), 1.0, 1.0
-
-
-def _robustness_iv(question: dict, per_arm) -> tuple[float, float, float, float, list[int]]:
-    """Validate the robustness inputs; return (control mean, difference, sd_c, sd_t, per_arm)."""
-    design = question.get("design") if isinstance(question, dict) else question
-    refusal = robustness_refusal(design)
+def _robustness_iv(question: dict, per_group) -> tuple[float, float, float, float, list[int]]:
+    """Validate the robustness inputs; return (control mean, difference, sd_c, sd_t, sizes)."""
+    refusal = robustness_refusal(question)
     if refusal is not None:
-        raise QuestionError("design", refusal)
-    sizes = _two_sizes(per_arm)
-    if design == "rank_sum":
-        return (*_rank_sum_moments(question), sizes)
-    effect = question.get("effect") or {}
-    for name in ("difference", "sd_control", "sd_treatment"):
-        value = effect.get(name)
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise QuestionError(
-                f"effect.{name}", f"must be a number for the robustness panel; got {value!r}"
-            )
-    sim = question.get("simulation") or {}
-    data = sim.get("data")
-    # The control mean only positions the skewed families; a posted normal model supplies it.
-    mean0 = 0.0
-    if isinstance(data, dict) and (data.get("control") or {}).get("family") == "normal":
-        mean0 = float(data["control"]["mean"])
-    return (
-        mean0,
-        float(effect["difference"]),
-        float(effect["sd_control"]),
-        float(effect["sd_treatment"]),
-        sizes,
-    )
+        raise QuestionError("layout", refusal)
+    sizes = _two_sizes(per_group)
+    return (*_design(question).simulation.planned_moments(question), sizes)
 
 
-def _two_sizes(per_arm) -> list[int]:
+def _two_sizes(per_group) -> list[int]:
     if not (
-        isinstance(per_arm, (list, tuple))
-        and len(per_arm) == 2
-        and all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in per_arm)
+        isinstance(per_group, (list, tuple))
+        and len(per_group) == 2
+        and all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in per_group)
     ):
         raise QuestionError(
-            "per_arm", f"must be two whole numbers ≥ 2 (control, treatment); got {per_arm!r}"
+            "per_group", f"must be two whole numbers ≥ 2 (control, treatment); got {per_group!r}"
         )
-    return [int(n) for n in per_arm]
-
-
-# Effect fields a departure's data model implies; the engine derives them from the arms.
-_IMPLIED = frozenset({"difference", "sd", "sd_control", "sd_treatment", "prob_superiority"})
+    return [int(n) for n in per_group]
 
 
 def _departure_questions(
-    question: dict, per_arm, *, replicates: int, seed: int
+    question: dict, per_group, *, replicates: int, seed: int
 ) -> tuple[str, list[tuple[str, str, dict, dict]]]:
-    """Validate the inputs; return the test and (name, description, data, question) per departure."""
+    """Validate the inputs; return the analysis and (name, description, data, question) per
+    departure."""
     if (question.get("adjustments") or {}).get("cluster"):
         raise QuestionError(
             "adjustments.cluster",
@@ -458,7 +430,7 @@ def _departure_questions(
             "offered for cluster-randomized questions (ask find = power with method "
             "simulation for the cluster-level check)",
         )
-    mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_arm)
+    mean0, diff, sd_c, sd_t, sizes = _robustness_iv(question, per_group)
     if (
         isinstance(replicates, bool)
         or not isinstance(replicates, int)
@@ -472,8 +444,14 @@ def _departure_questions(
             "simulation.seed", f"must be a whole number in [0, 2**53); got {seed!r}"
         )
     base_sim = question.get("simulation") or {}
-    design = question["design"]
-    test = base_sim.get("test") or _FORMULA_TEST.get(question.get("formula"), TESTS[design][0])
+    design = _design(question)
+    analysis = question.get("analysis") or design.default_analysis(question)
+    if analysis not in design.analyses_for("simulation"):
+        raise QuestionError(
+            "analysis",
+            f"the robustness panel simulates the planned analysis; '{analysis}' is not "
+            f"simulated for {design.cell}",
+        )
     planned = base_sim.get("data")
     models = [
         (
@@ -487,38 +465,40 @@ def _departure_questions(
         # A posted data model is the case the answer was planned for; the normal one is matched.
         models.insert(0, ("as_planned", "The data model stated in the question.", planned))
     runs = []
+    implied = {f.name for f in design.fields if f.block in ("effect", "assumptions")}
     for name, description, data in models:
         q = copy.deepcopy(question)
         q.update(
             find="power",
             target_power=None,
             method="simulation",
-            sample_size={"per_arm": list(sizes)},
+            analysis=analysis,
+            sample_size={"per_group": list(sizes)},
         )
         # Each departure states the effect its own data model implies (it departs on purpose).
-        q["effect"] = {k: v for k, v in (q.get("effect") or {}).items() if k not in _IMPLIED}
+        for block in ("effect", "assumptions"):
+            q[block] = {k: v for k, v in (q.get(block) or {}).items() if k not in implied}
         q["simulation"] = {
             "replicates": replicates,
             "seed": seed,
-            "test": test,
             "data": data,
             "decision_rule": base_sim.get("decision_rule", "point"),
             "chunk_size": base_sim.get("chunk_size", 1000),
             "search_replicates": base_sim.get("search_replicates", 2000),
         }
         runs.append((name, description, data, q))
-    return test, runs
+    return analysis, runs
 
 
-def robustness_cost(question: dict, per_arm: list[int], *, replicates: int, seed: int) -> int:
+def robustness_cost(question: dict, per_group: list[int], *, replicates: int, seed: int) -> int:
     """Return the estimated random draws of the robustness panel (sum over the departures)."""
-    _test, runs = _departure_questions(question, per_arm, replicates=replicates, seed=seed)
+    _analysis, runs = _departure_questions(question, per_group, replicates=replicates, seed=seed)
     return sum(int(estimate_cost(q)) for *_rest, q in runs)
 
 
 def robustness(
     question: dict,
-    per_arm: list[int],
+    per_group: list[int],
     *,
     replicates: int,
     seed: int,
@@ -526,14 +506,14 @@ def robustness(
     progress: Callable[[float], None] | None = None,
     budget: int | None = None,
 ) -> dict:
-    """Simulate the chosen test's power and type I error at ``per_arm`` under declared departures.
+    """Simulate the planned analysis's power and type I error at ``per_group`` under departures.
 
     Parameters
     ----------
-    question : a normalized two_means question (analytic or simulation); its effect gives the
-        means and SDs, its simulation test (or the formula's t test) the test.
-    per_arm : enrolled n per arm as in the record; dropout and design effect are removed as in
-        any power question.
+    question : a normalized question of a cell that offers the panel (analytic or simulation);
+        its effect and assumptions give the means and SDs, its analysis the test.
+    per_group : enrolled n per group as in the record; dropout and design effect are removed as
+        in any power question.
     replicates, seed : Monte Carlo size and seed, the same for every departure (common random
         numbers where the families allow).
     executor, budget : passed to ``compute`` for every departure (chunk fan-out, cost refusal).
@@ -541,7 +521,7 @@ def robustness(
 
     Returns
     -------
-    dict with ``per_arm``, ``test``, ``replicates``, ``seed`` and ``departures``: one entry per
+    dict with ``per_group``, ``analysis``, ``replicates``, ``seed`` and ``departures``: one per
     departure with ``name``, ``description``, ``data`` (the model simulated), ``power`` and
     ``type_i_error`` (estimate, mcse, ci95, the alpha the test used and the size verdict) and
     the run's ``record_sha256``; ``alpha_per_comparison`` is the level every test used.
@@ -549,12 +529,12 @@ def robustness(
     Examples
     --------
     >>> from service.engine.examples import example_question
-    >>> q = example_question()  # two means, d = 0.5, SD 1, two-sided 5%, 80% power
+    >>> q = example_question()  # two groups, d = 0.5, SD 1, two-sided 5%, 80% power
     >>> panel = robustness(q, [64, 64], replicates=400, seed=7)
     >>> [d["name"] for d in panel["departures"]][:2]
     ['normal', 'heavy_tails']
     """
-    test, runs = _departure_questions(question, per_arm, replicates=replicates, seed=seed)
+    analysis, runs = _departure_questions(question, per_group, replicates=replicates, seed=seed)
     departures = []
     for i, (name, description, data, q) in enumerate(runs):
         step = None
@@ -564,7 +544,7 @@ def robustness(
                 progress((i + min(max(float(f), 0.0), 1.0)) / len(runs))
 
         record = compute(q, executor=executor, progress=step, budget=budget)
-        analysed = [int(math.floor(n + 1e-9)) for n in record["sample_size"]["analysed_per_arm"]]
+        analyzed = [int(math.floor(n + 1e-9)) for n in record["sample_size"]["analyzed_per_group"]]
         departures.append(
             {
                 "name": name,
@@ -576,14 +556,15 @@ def robustness(
                 "record_sha256": record["reproducibility"]["record_sha256"],
             }
         )
-    sizes = list(runs[0][3]["sample_size"]["per_arm"])
+    sizes = list(runs[0][3]["sample_size"]["per_group"])
     return {
-        "design": question["design"],
-        "per_arm": sizes,
-        # What the departures simulated: the analysed whole numbers (enrolled less dropout and
-        # design effect, rounded down), which differ from ``per_arm`` when adjustments apply.
-        "analysed_per_arm": analysed,
-        "test": test,
+        "outcome": question["outcome"],
+        "layout": question["layout"],
+        "per_group": sizes,
+        # What the departures simulated: the analyzed whole numbers (enrolled less dropout and
+        # design effect, rounded down), which differ from ``per_group`` when adjustments apply.
+        "analyzed_per_group": analyzed,
+        "analysis": analysis,
         "alpha": question.get("alpha"),
         # The level each simulated test used (per comparison after Bonferroni): the sizes'
         # verdicts are against it.
@@ -607,20 +588,29 @@ def _size(block: dict | None) -> dict | None:
     return {**_estimate(block), "alpha": block.get("alpha"), "verdict": block.get("verdict")}
 
 
-def analysis_cost(kind: str, params: dict, question: dict, record: dict | None) -> int:
-    """Return the estimated draws of a stored analysis (``kind`` sensitivity or robustness).
+EXPLORATION_TYPES = ("sensitivity_grid", "robustness_panel")
+
+
+def exploration_cost(
+    exploration_type: str, params: dict, question: dict, record: dict | None
+) -> int:
+    """Return the estimated draws of an exploration (``sensitivity_grid`` or ``robustness_panel``).
 
     A robustness panel needs the n: from ``record``, else from a find = power question; 0 when
     neither gives it yet (the worker prices it again once the record exists).
     """
-    if kind == "sensitivity":
+    if exploration_type not in EXPLORATION_TYPES:
+        raise QuestionError(
+            "type", f"must be one of {', '.join(EXPLORATION_TYPES)}; got {exploration_type!r}"
+        )
+    if exploration_type == "sensitivity_grid":
         return grid_cost(question, params["grid"])
     if record is None:
-        per_arm = ((question.get("sample_size") or {}).get("per_arm")) or None
-        if per_arm is None:
+        per_group = ((question.get("sample_size") or {}).get("per_group")) or None
+        if per_group is None:
             return 0
     else:
-        per_arm = record["sample_size"]["per_arm"]
+        per_group = record["sample_size"]["per_group"]
     return robustness_cost(
-        question, list(per_arm), replicates=params["replicates"], seed=params["seed"]
+        question, list(per_group), replicates=params["replicates"], seed=params["seed"]
     )

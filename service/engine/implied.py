@@ -1,10 +1,10 @@
 """The effect a posted simulation data model implies, and its check against posted effect fields.
 
-A simulated question that posts ``simulation.data`` simulates those arms, not the effect fields:
-the record and the report must state the effect the arms imply. ``derive`` returns it per design
-(means and SDs from the arms' moments, P(Y > X) by numerical integration, the hazard ratio of
-proportional-hazards arms); ``reconcile`` puts it into the question, refusing posted effect
-fields that disagree with it beyond ``TOLERANCE``.
+A simulated question that posts ``simulation.data`` simulates those groups, not the effect fields:
+the record and the report must state the effect the groups imply. Each cell's simulation model
+says what its groups imply (``implied_fields``: means and SDs from moments, P(Y > X) by numerical
+integration, the hazard ratio of proportional-hazards groups); ``reconcile`` puts it into the
+question, refusing posted fields that disagree with it beyond ``TOLERANCE``.
 """
 
 from __future__ import annotations
@@ -22,21 +22,39 @@ from .errors import QuestionError
 # rounded to about three significant digits and refuses a different assumption.
 TOLERANCE = 0.01
 
-_TWO_ARM = ("two_means", "two_proportions", "rank_sum", "survival_logrank")
 
+def posted_models(data: dict, design) -> tuple[list[dict], list[str]]:
+    """Return the posted data models of ``simulation.data`` in question order, with their labels.
 
-def _arms(data: dict, design: str) -> list[dict]:
-    if design in _TWO_ARM:
-        keys = ["control", "treatment"]
-        return [models.check_arm(data.get(k), f"simulation.data.{k}") for k in keys]
-    if design in ("one_mean", "paired_mean"):
-        return [models.check_arm(data.get("sample"), "simulation.data.sample")]
-    if design == "anova_oneway":
+    The cell's ``data_keys`` say the shape: named groups ("control", "treatment"; "group";
+    "differences") or ("groups",), a list of at least two groups.
+    """
+    keys = design.simulation.data_keys if design.simulation else ()
+    if not keys:
+        raise QuestionError(
+            "simulation.data",
+            f"{design.cell} simulates from its effect and assumptions; a posted data model is "
+            "not accepted",
+        )
+    if not isinstance(data, dict):
+        raise QuestionError("simulation.data", f"must be an object; got {data!r}")
+    if keys == ("groups",):
+        groups = data.get("groups")
+        if set(data) != {"groups"} or not isinstance(groups, list) or len(groups) < 2:
+            raise QuestionError(
+                "simulation.data.groups", "must be the only key, a list of at least 2 groups"
+            )
+        labels = [f"groups.{i}" for i in range(len(groups))]
         return [
-            models.check_arm(a, f"simulation.data.groups.{i}")
-            for i, a in enumerate(data.get("groups") or [])
-        ]
-    return []
+            models.check_arm(a, f"simulation.data.{lab}")
+            for a, lab in zip(groups, labels, strict=True)
+        ], labels
+    if set(data) != set(keys):
+        raise QuestionError(
+            "simulation.data",
+            f"must have exactly the keys {', '.join(keys)}; got {', '.join(sorted(data))}",
+        )
+    return [models.check_arm(data[k], f"simulation.data.{k}") for k in keys], list(keys)
 
 
 def _sd(var: float | None) -> float | None:
@@ -112,107 +130,45 @@ def prob_superiority(control: dict, treatment: dict) -> float:
     return min(max(total, 0.0), 1.0)
 
 
-# --- the implied effect per design ------------------------------------------------------------
+# --- the implied effect per cell ---------------------------------------------------------------
 
 
-def derive(q: dict) -> dict | None:
-    """Return ``{"fields": {...}, "missing": [...], "note": str}`` implied by the posted data model.
+def derive(q: dict, design) -> dict | None:
+    """Return ``{"fields": {...}, "missing": [...], "note": str, "replaces": {...}}`` implied by
+    the posted data model; None when none is posted (or the cell takes none).
 
-    ``fields`` maps effect field names to the values the arms imply; ``missing`` names effect
-    fields the data model cannot imply (e.g. the SD of a Cauchy arm) and ``note`` says why.
-    None when no data model is posted.
+    ``fields`` maps the cell's field names to the values the groups imply; ``missing`` names
+    fields the data model cannot imply (e.g. the SD of a Cauchy group) and ``note`` says why;
+    ``replaces`` maps a posted field to the implied fields it is checked against and then gives
+    way to (a common sd against two unequal group SDs).
     """
     sim = q.get("simulation") or {}
     data = sim.get("data")
-    design = q.get("design")
-    if data is None or not isinstance(data, dict) or design == "correlation":
+    model = design.simulation
+    if data is None or not isinstance(data, dict) or model is None:
         return None
-    arms = _arms(data, design)
-    if not arms:
+    if not model.data_keys or model.implied_fields is None:
         return None
-    mv = [models.moments(a) for a in arms]
-    fields: dict = {}
-    missing: list[str] = []
-    notes: list[str] = []
-    if design == "two_means":
-        (m1, v1), (m2, v2) = mv
-        if m1 is not None and m2 is not None:
-            fields["difference"] = m2 - m1
-        else:
-            missing.append("difference")
-        for name, v in (("sd_control", v1), ("sd_treatment", v2)):
-            if v is not None:
-                fields[name] = _sd(v)
-            else:
-                missing.append(name)
-    elif design in ("one_mean", "paired_mean"):
-        m, v = mv[0]
-        sd_name = "sd" if design == "one_mean" else "sd_difference"
-        if m is not None:
-            fields["difference"] = m
-        else:
-            missing.append("difference")
-        if v is not None:
-            fields[sd_name] = _sd(v)
-        else:
-            missing.append(sd_name)
-    elif design == "two_proportions":
-        if all(a["family"] == "bernoulli" for a in arms):
-            fields["p_control"], fields["p_treatment"] = arms[0]["p"], arms[1]["p"]
-    elif design == "rank_sum":
-        fields["prob_superiority"] = prob_superiority(arms[0], arms[1])
-    elif design == "anova_oneway":
-        if all(m is not None and v is not None for m, v in mv):
-            means = [m for m, _ in mv]
-            within = sum(v for _, v in mv) / len(mv)
-            grand = sum(means) / len(means)
-            spread = math.sqrt(sum((m - grand) ** 2 for m in means) / len(means))
-            fields["group_means"] = means
-            fields["sd"] = math.sqrt(within)
-            fields["cohens_f"] = spread / math.sqrt(within)
-            fields["groups"] = len(means)
-            if len({round(v, 12) for _, v in mv}) > 1:
-                notes.append(
-                    "the groups' variances differ; sd is the root mean within-group variance"
-                )
-        else:
-            missing += ["group_means", "sd", "cohens_f"]
-    elif design == "survival_logrank":
-        hr, lam = _hazards(arms)
-        if hr is not None:
-            fields["hazard_ratio"] = hr
-            if lam is not None:
-                fields["hazard_control"] = lam
-        else:
-            missing += ["hazard_ratio", "hazard_control"]
-            notes.append(
-                "the event-time arms do not have proportional hazards, so no single hazard "
-                "ratio describes them"
-            )
-    if missing and design != "survival_logrank":
+    arms, _ = posted_models(data, design)
+    got = model.implied_fields(q, arms)
+    fields = dict(got.get("fields") or {})
+    missing = list(got.get("missing") or [])
+    notes = [got["note"]] if got.get("note") else []
+    if missing and not got.get("note"):
         notes.append(
             "the data model has no finite "
-            + " or ".join(sorted({"mean" if "difference" in n else "SD" for n in missing}))
+            + " or ".join(sorted({"SD" if n.startswith("sd") else "mean" for n in missing}))
             + " for "
             + ", ".join(missing)
-            + "; the arms are described by "
+            + "; the groups are described by "
             + "; ".join(_location_scale(a) for a in arms)
         )
-    return {"fields": fields, "missing": missing, "note": "; ".join(notes)}
-
-
-def _hazards(arms: list[dict]) -> tuple[float | None, float | None]:
-    """Return (hazard ratio, control hazard) of proportional-hazards arms, else (None, None)."""
-    a, b = arms
-    if a.get("shift") or b.get("shift"):
-        return None, None
-    if a["family"] == b["family"] == "exponential":
-        return a["scale"] / b["scale"], 1.0 / a["scale"]
-    if a["family"] == b["family"] == "weibull" and a["shape"] == b["shape"]:
-        k = a["shape"]
-        hr = (a["scale"] / b["scale"]) ** k
-        return hr, (None if k != 1 else 1.0 / a["scale"])
-    return None, None
+    return {
+        "fields": fields,
+        "missing": missing,
+        "note": "; ".join(notes),
+        "replaces": dict(got.get("replaces") or {}),
+    }
 
 
 def _location_scale(arm: dict) -> str:
@@ -228,55 +184,70 @@ def _tolerance(name: str, posted: float, implied: float, fields: dict) -> float:
     return TOLERANCE * scale
 
 
-def reconcile(q: dict) -> dict | None:
-    """Put the data model's implied effect into ``q["effect"]``; return what was derived.
+def _check(path: str, have: float, value: float, name: str, fields: dict) -> None:
+    if abs(float(have) - value) > _tolerance(name, float(have), value, fields):
+        raise QuestionError(
+            path,
+            f"is {have:g} but the posted data model (simulation.data) implies {value:.6g}; "
+            f"they must agree within {TOLERANCE:.0%} — remove {path} (the data model's "
+            "value is used) or correct one of them",
+        )
 
-    Refuses (QuestionError naming ``effect.<field>``) a posted effect field that disagrees with
-    the implied value beyond the tolerance, showing both values. Returns None without a data
+
+def reconcile(q: dict, design) -> dict | None:
+    """Put the data model's implied values into the question's blocks; return what was derived.
+
+    Refuses (QuestionError naming the field path) a posted field that disagrees with the
+    implied value beyond the tolerance, showing both values. Returns None without a data
     model; else the record's ``method.implied_effect`` block.
     """
-    implied = derive(q)
+    implied = derive(q, design)
     if implied is None:
         return None
-    effect = dict(q.get("effect") or {})
     fields = implied["fields"]
+    blocks = {b: dict(q.get(b) or {}) for b in ("effect", "assumptions")}
+    block_of = {f.name: f.block for f in design.fields}
     posted = {}
     for name, value in fields.items():
-        have = effect.get(name)
-        if have is None or isinstance(value, list):
+        have = blocks[block_of[name]].get(name)
+        if have is None:
+            continue
+        if isinstance(value, list):
+            for i, (h, v) in enumerate(zip(have, value, strict=False)):
+                if abs(h - v) > TOLERANCE * max(abs(h), abs(v), fields.get("sd") or 0.0):
+                    raise QuestionError(
+                        f"{block_of[name]}.{name}.{i}",
+                        f"is {h:g} but the posted data model (simulation.data.groups.{i}) "
+                        f"implies a mean of {v:.6g}; they must agree within {TOLERANCE:.0%}",
+                    )
             continue
         posted[name] = have
-        if abs(float(have) - value) > _tolerance(name, float(have), value, fields):
-            raise QuestionError(
-                f"effect.{name}",
-                f"is {have:g} but the posted data model (simulation.data) implies {value:.6g}; "
-                f"they must agree within {TOLERANCE:.0%} — remove effect.{name} (the data model's "
-                "value is used) or correct one of them",
-            )
-    if "group_means" in fields and effect.get("group_means") is not None:
-        for i, (have, value) in enumerate(
-            zip(effect["group_means"], fields["group_means"], strict=False)
-        ):
-            if abs(have - value) > TOLERANCE * max(abs(have), abs(value), fields["sd"]):
-                raise QuestionError(
-                    f"effect.group_means.{i}",
-                    f"is {have:g} but the posted data model (simulation.data.groups.{i}) implies "
-                    f"a mean of {value:.6g}; they must agree within {TOLERANCE:.0%}",
-                )
-    effect.update(fields)
-    if "hazard_control" in fields and effect.get("median_control") is not None:
-        effect["median_control"] = math.log(2.0) / fields["hazard_control"]
-    not_simulated = {k: effect[k] for k in implied["missing"] if effect.get(k) is not None}
-    q["effect"] = effect
+        _check(f"{block_of[name]}.{name}", have, value, name, fields)
+    for name, against in implied["replaces"].items():
+        have = blocks[block_of[name]].get(name)
+        if have is None:
+            continue
+        for other in against:
+            _check(f"{block_of[name]}.{name}", have, fields[other], other, fields)
+        posted[name] = have
+        del blocks[block_of[name]][name]
+    for name, value in fields.items():
+        blocks[block_of[name]][name] = value
+    not_simulated = {}
+    for k in implied["missing"]:
+        have = blocks[block_of[k]].get(k)
+        if have is not None:
+            not_simulated[f"{block_of[k]}.{k}"] = have
+    q.update(blocks)
     block = {
         "source": "simulation.data",
-        "fields": sorted(fields),
+        "fields": sorted(f"{block_of[k]}.{k}" for k in fields),
         "tolerance": TOLERANCE,
     }
     if posted:
-        block["posted"] = posted
+        block["posted"] = {f"{block_of[k]}.{k}": v for k, v in posted.items()}
     if implied["missing"]:
-        block["not_implied"] = implied["missing"]
+        block["not_implied"] = [f"{block_of[k]}.{k}" for k in implied["missing"]]
     if not_simulated:
         block["posted_not_checked"] = not_simulated
     if implied["note"]:
@@ -289,7 +260,7 @@ def warnings(block: dict) -> list[str]:
     out = []
     unchecked = block.get("posted_not_checked") or {}
     if unchecked:
-        shown = ", ".join(f"effect.{k} = {v:g}" for k, v in unchecked.items())
+        shown = ", ".join(f"{k} = {v:g}" for k, v in unchecked.items())
         out.append(
             f"{shown} could not be checked against the data model and were not simulated "
             f"({block.get('note', 'the data model does not imply them')}); they are kept as "

@@ -1,6 +1,6 @@
-"""Data models for simulation: one distribution per arm, validated, with moments and a sampler.
+"""Data models for simulation: one distribution per group, validated, with moments and a sampler.
 
-An arm is a plain dict ``{"family": name, ...parameters}`` (DEVELOPERS.md lists the families).
+A group's data model is a plain dict ``{"family": name, ...parameters}`` (DEVELOPERS.md lists the families).
 The engine adds one private parameter, ``shift``, a constant added to every draw; it is how the
 null model moves an arm onto the control's mean without changing the arm's shape.
 """

@@ -11,7 +11,7 @@ from scipy.special import _ufuncs
 
 from .errors import QuestionError
 
-# Largest n per arm the solvers look at; beyond it an effect is "too small to plan for".
+# Largest n per group the solvers look at; beyond it an effect is "too small to plan for".
 MAX_N = 1e9
 
 # The noncentral t survival function scipy.stats.nct.sf itself calls (clipped to [0, 1]);
@@ -41,46 +41,36 @@ def z(p: float) -> float:
     return float(special.ndtri(p))  # what scipy.stats.norm.ppf computes
 
 
-def z_alpha(alpha: float, sides: int) -> float:
-    """Return the critical normal value for a test at ``alpha`` with ``sides`` tails."""
-    return z(1.0 - alpha / sides)
+def z_alpha(alpha: float, tails: int) -> float:
+    """Return the critical normal value for a test at ``alpha`` with ``tails`` tails."""
+    return z(1.0 - alpha / tails)
 
 
-def z_sum(alpha: float, sides: int, power: float) -> float:
+def z_sum(alpha: float, tails: int, power: float) -> float:
     """Return z_alpha + z_beta, the sum at the heart of every normal sample-size formula."""
-    return z_alpha(alpha, sides) + z(power)
+    return z_alpha(alpha, tails) + z(power)
 
 
-def normal_power(shift: float, z_a: float, sides: int) -> float:
+def normal_power(shift: float, z_a: float, tails: int) -> float:
     """Return the power of a z test whose statistic is N(shift, 1), including the far tail."""
     shift = abs(shift)
     power = special.ndtr(shift - z_a)  # scipy.stats.norm.cdf, without the wrapper
-    if sides == 2:
+    if tails == 2:
         power += special.ndtr(-shift - z_a)
     return float(power)
 
 
-def t_power(ncp: float, df: float, alpha: float, sides: int) -> float:
+def t_power(ncp: float, df: float, alpha: float, tails: int) -> float:
     """Return the power of a t test with noncentrality ``ncp`` (both tails when two-sided)."""
-    tc = _t_ppf(1.0 - alpha / sides, df)
+    tc = _t_ppf(1.0 - alpha / tails, df)
     power = _nct_sf(tc, df, ncp)
-    if sides == 2:
+    if tails == 2:
         # The far tail is negligible once ncp is large, where scipy's nct can return NaN.
         far = _nct_sf(tc, df, -ncp)
         power += far if math.isfinite(far) else 0.0
     if not math.isfinite(power):
         raise ValueError(f"noncentral t power is not finite at df={df:g}, ncp={ncp:g}")
     return min(max(power, 0.0), 1.0)
-
-
-def effect_value(q: dict, name: str, default: float | None = None) -> float:
-    """Return ``q["effect"][name]`` (or ``default`` when unset) as a float; QuestionError if neither."""
-    value = (q.get("effect") or {}).get(name)
-    if value is None:
-        value = default
-    if value is None:
-        raise QuestionError(f"effect.{name}", "is required for this question")
-    return float(value)
 
 
 def root(f: Callable[[float], float], lo: float, hi: float) -> float:
@@ -117,31 +107,31 @@ def solve_n_or_raise(
         raise QuestionError(
             field,
             f"{value:g} is too small an effect: power {target:g} is not reached below "
-            f"{MAX_N:.0e} per arm",
+            f"{MAX_N:.0e} per group",
         )
     return n
 
 
 def solve_effect_or_raise(
-    f: Callable[[float], float], target: float, per_arm: list[float], *, hi: float
+    f: Callable[[float], float], target: float, per_group: list[float], *, hi: float
 ) -> float:
     """Return the smallest effect ≥ 0 where the increasing power curve ``f`` reaches ``target``."""
     x = solve_increasing(f, target, 0.0, hi=hi)
     if x is None:
-        raise power_unreachable("sample_size.per_arm", target, per_arm)
+        raise power_unreachable("sample_size.per_group", target, per_group)
     return x
 
 
-def normal_effect(unit: float, z_a: float, sides: int, target: float, hi: float) -> float:
+def normal_effect(unit: float, z_a: float, tails: int, target: float, hi: float) -> float:
     """Return the effect x in [0, hi] at which a z test with mean ``unit``·x reaches ``target``."""
-    return root(lambda x: normal_power(unit * x, z_a, sides) - target, 0.0, hi)
+    return root(lambda x: normal_power(unit * x, z_a, tails) - target, 0.0, hi)
 
 
-def power_unreachable(field: str, target: float, per_arm: list[float]) -> QuestionError:
+def power_unreachable(field: str, target: float, per_group: list[float]) -> QuestionError:
     """Return the error raised when no effect reaches the target power at the given n."""
-    shown = [round(float(n), 2) for n in per_arm]
+    shown = [round(float(n), 2) for n in per_group]
     return QuestionError(
         field,
-        f"no effect in the allowed range reaches power {target:g} with {shown} per arm "
+        f"no effect in the allowed range reaches power {target:g} with {shown} per group "
         "after adjustments; enrol more or lower the target power",
     )

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 import scipy
 
-RECORD_VERSION = 1
+RECORD_VERSION = 2  # 2: the outcome × layout vocabulary (issue 10)
 
 CAUTIONS = (
     "A computed sample size is a planning aid, not a decision: it rests on the assumed effect, "

@@ -1,6 +1,6 @@
 """The n search for simulated power: analytic start, geometric bracket, fitted power curve.
 
-The search index ``m`` is the size of the first arm; the caller maps it to per-arm sizes. All
+The search index ``m`` is the size of the first group; the caller maps it to per-group sizes. All
 candidates are evaluated on common random numbers, so estimated power moves smoothly with m.
 The search stage narrows the bracket at the search replicates by jumping to the crossing of a
 probit-on-√m line and stops once candidates differ by less than their Monte Carlo error; the
@@ -366,7 +366,7 @@ def _bracket(ok: Callable[[int], bool], m0: int, m_min: int, m_max: int) -> tupl
         lo = m
     raise QuestionError(
         "target_power",
-        f"simulated power stays below the target at {m_max:,} in the first arm; the effect is "
+        f"simulated power stays below the target at {m_max:,} in the first group; the effect is "
         "too small for this data model (or the test cannot detect it)",
     )
 

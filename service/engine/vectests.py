@@ -5,7 +5,7 @@ value per replicate. Statistics follow scipy.stats' conventions (treatment minus
 against X) so the kernels can be checked against scipy on small data sets. A *rule* dict says
 what "reject" means:
 
-    {"kind": "superiority" | "noninferiority" | "equivalence", "sides": 1 | 2,
+    {"aim": "superiority" | "noninferiority" | "equivalence", "alternative": "two-sided" | "one-sided",
      "direction": +1 | -1, "margin": float | None}
 
 ``direction`` is the sign of the alternative for one-sided tests (+1: treatment higher).
@@ -50,34 +50,34 @@ def _exceeds(stat: np.ndarray, df, level: float) -> np.ndarray:
 
 def decide(est: np.ndarray, se: np.ndarray, df, alpha: float, rule: dict) -> np.ndarray:
     """Return the reject decisions of a (shifted) Wald or t statistic ``(est − δ)/se`` under ``rule``."""
-    kind = rule.get("kind", "superiority")
+    aim = rule.get("aim", "superiority")
     with np.errstate(divide="ignore", invalid="ignore"):
-        if kind == "superiority":
+        if aim == "superiority":
             stat = est / se
-            if rule["sides"] == 2:
+            if rule["alternative"] == "two-sided":
                 return _exceeds(np.abs(stat), df, alpha / 2)
             return _exceeds(rule["direction"] * stat, df, alpha)
         margin = rule["margin"]
-        if kind == "noninferiority":
+        if aim == "noninferiority":
             return _exceeds(rule["direction"] * (est - margin) / se, df, alpha)
-        if kind == "equivalence":
+        if aim == "equivalence":
             lower = _exceeds((est + margin) / se, df, alpha)
             upper = _exceeds(-(est - margin) / se, df, alpha)
             return lower & upper
-    raise ValueError(f"unknown hypothesis kind {kind!r}")
+    raise ValueError(f"unknown hypothesis aim {aim!r}")
 
 
 def pvalue(est: np.ndarray, se: np.ndarray, df, rule: dict) -> np.ndarray:
     """Return p-values of the statistic under ``rule`` (TOST: the larger of the two one-sided p)."""
-    kind = rule.get("kind", "superiority")
+    aim = rule.get("aim", "superiority")
     with np.errstate(divide="ignore", invalid="ignore"):
-        if kind == "superiority":
+        if aim == "superiority":
             stat = est / se
-            if rule["sides"] == 2:
+            if rule["alternative"] == "two-sided":
                 return np.minimum(1.0, 2 * _upper_tail(np.abs(stat), df))
             return _upper_tail(rule["direction"] * stat, df)
         margin = rule["margin"]
-        if kind == "noninferiority":
+        if aim == "noninferiority":
             return _upper_tail(rule["direction"] * (est - margin) / se, df)
         lower = _upper_tail((est + margin) / se, df)
         upper = _upper_tail(-(est - margin) / se, df)
@@ -226,13 +226,15 @@ def pearson_r(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return sxy / np.sqrt(np.einsum("ij,ij->i", xc, xc) * np.einsum("ij,ij->i", yc, yc))
 
 
-def correlation_reject(r: np.ndarray, n: int, r0: float, alpha: float, rule: dict) -> np.ndarray:
-    """Reject H0: ρ = r0 — the exact t test of ρ = 0 when r0 = 0, else the Fisher z test."""
-    if r0 == 0:
+def correlation_reject(
+    r: np.ndarray, n: int, r_null: float, alpha: float, rule: dict
+) -> np.ndarray:
+    """Reject H0: ρ = r_null — the exact t test of ρ = 0 when r_null = 0, else the Fisher z test."""
+    if r_null == 0:
         with np.errstate(divide="ignore", invalid="ignore"):
             t = r * math.sqrt(n - 2) / np.sqrt(np.maximum(1.0 - r * r, 0.0))
         return decide(t, 1.0, n - 2, alpha, rule)
-    z = (np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15)) - math.atanh(r0)) * math.sqrt(n - 3)
+    z = (np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15)) - math.atanh(r_null)) * math.sqrt(n - 3)
     return decide(z, 1.0, None, alpha, rule)
 
 
@@ -322,7 +324,7 @@ def fisher_pvalues(c1, n1: int, c2, n2: int, rule: dict) -> np.ndarray:
         pmf = np.exp(_hypergeom_logpmf(support, n, int(total), n2))
         where = s == total
         k = c2[where] - lo
-        if rule["sides"] == 2:
+        if rule["alternative"] == "two-sided":
             pobs = pmf[k]
             order = np.argsort(pmf, kind="stable")
             cum = np.cumsum(pmf[order])

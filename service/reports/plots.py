@@ -1,6 +1,8 @@
 """The power curve: power against n per group around the answer, as data and as a drawing.
 
-``curve_points`` asks the engine (find = power) at about a dozen sizes and returns plain data;
+``curve_points`` asks the engine (find = power) at about a dozen sizes and returns plain data,
+with a title and the assumptions it was drawn under (design, analysis, alpha, alternative,
+effect, assumptions, adjustments) so that a saved drawing stands alone in a document;
 ``power_curve_svg`` / ``power_curve_png`` only draw it. The SVG's elements carry ids
 (``target-line``, ``chosen-n``, ``analytic-curve``, ``simulated-points``) so tests and the page
 can find them. ``sensitivity_svg`` draws a sensitivity grid (``service.engine.explore``): the
@@ -14,14 +16,18 @@ import copy
 import io
 import math
 import re
+import textwrap
 
 import matplotlib
 
 matplotlib.use("Agg")  # no display on servers and workers; must precede any pyplot import
 
 from matplotlib.figure import Figure  # noqa: E402  (after the backend is chosen)
+from matplotlib.ticker import PercentFormatter  # noqa: E402
 
 from service.engine import QuestionError, compute  # noqa: E402
+
+from . import describe  # noqa: E402
 
 __all__ = [
     "curve_points",
@@ -34,7 +40,7 @@ __all__ = [
 DEFAULT_POINTS = 12
 DEFAULT_SPAN = (0.5, 1.5)
 CURVE_REPLICATES = 1000  # per simulated point: MCSE ≤ 0.016, enough to see the curve's shape
-_MIN_N = {"correlation": 4}
+_MIN_N = 2  # sizes a design cannot take (too few for its df) are left out point by point
 
 _INK = "#1d2733"
 _ANALYTIC = "#1f5fa8"
@@ -51,11 +57,11 @@ def _sizes(chosen: int, points: int, span: tuple[float, float], floor: int) -> l
     return sorted(n for n in sizes if n >= floor)
 
 
-def _per_arm_for(record: dict, m: int) -> list[int]:
-    """Per-arm sizes when the first arm has ``m``, keeping the record's arm proportions."""
-    per_arm = record["sample_size"]["per_arm"]
-    first = per_arm[0]
-    return [m] + [max(1, math.ceil(m * n / first - 1e-9)) for n in per_arm[1:]]
+def _per_group_for(record: dict, m: int) -> list[int]:
+    """Group sizes when the first group has ``m``, keeping the record's group proportions."""
+    sizes = record["sample_size"]["per_group"]
+    first = sizes[0]
+    return [m] + [max(1, math.ceil(m * n / first - 1e-9)) for n in sizes[1:]]
 
 
 def _power_question(record: dict) -> dict:
@@ -89,9 +95,8 @@ def curve_points(
             "span", f"must be (low, high) with 0 < low < 1 < high ≤ 4; got {span!r}"
         )
     q = _power_question(record)
-    design = q["design"]
-    chosen = int(record["sample_size"]["per_arm"][0])
-    sizes = _sizes(chosen, points, tuple(span), _MIN_N.get(design, 2))
+    chosen = int(record["sample_size"]["per_group"][0])
+    sizes = _sizes(chosen, points, tuple(span), _MIN_N)
     simulated = q.get("method") == "simulation"
 
     analytic_q = None
@@ -104,7 +109,7 @@ def curve_points(
     analytic = []
     if analytic_q is not None:
         for m in sizes:
-            analytic.append(_power_at(analytic_q, _per_arm_for(record, m)))
+            analytic.append(_power_at(analytic_q, _per_group_for(record, m)))
         if all(p is None for p in analytic):
             analytic = []
 
@@ -116,17 +121,17 @@ def curve_points(
         sim_q = copy.deepcopy(q)
         sim_q["simulation"] = dict(sim, replicates=reps)
         for m in sizes:
-            est = _simulated_at(sim_q, _per_arm_for(record, m))
+            est = _simulated_at(sim_q, _per_group_for(record, m))
             if est is not None:
                 sim_points.append({"n": m, **est})
 
     target = record["question"].get("target_power")
+    x_label = "Enrolled per group" if len(record["sample_size"]["per_group"]) > 1 else "Enrolled"
     return {
-        "design": design,
+        "title": _curve_title(record, x_label),
+        "assumptions": _curve_assumptions(record),
         "method": "simulation" if simulated else "analytic",
-        "x_label": "Enrolled per group"
-        if len(record["sample_size"]["per_arm"]) > 1
-        else "Enrolled",
+        "x_label": x_label,
         "n": sizes,
         "analytic": analytic,
         "simulated": sim_points,
@@ -137,16 +142,53 @@ def curve_points(
     }
 
 
-def _power_at(q: dict, per_arm: list[int]) -> float | None:
-    q = dict(q, sample_size={"per_arm": per_arm})
+def _curve_title(record: dict, x_label: str) -> str:
+    """Say what the marked size is: chosen (find = sample size) or stated (power, effect)."""
+    q = record["question"]
+    if q["find"] == "sample_size":
+        return f"Power against {x_label.lower()}, with the chosen size marked"
+    if q["find"] == "effect" and record.get("effect"):
+        label = describe.field_label(q, record["effect"]["field"])
+        return (
+            f"Power at the smallest detectable {label} against {x_label.lower()}, with the "
+            "stated size marked"
+        )
+    return f"Power against {x_label.lower()}, with the stated size marked"
+
+
+def _curve_assumptions(record: dict) -> list[str]:
+    """The lines under the title: design and analysis, the test's level, the assumed values."""
+    q = record["question"]
+    alternative = "" if describe.is_omnibus(q) else f", {q.get('alternative', 'two-sided')}"
+    how = "Monte Carlo simulation" if q.get("method") == "simulation" else "analytic"
+    lines = [
+        f"{describe.cell_label(q)}; {describe.analysis_label(q, record)} ({how}); "
+        f"alpha {describe.fmt_num(q['alpha'])}{alternative}",
+        f"Assuming {describe.assumed_text(_power_question(record), record)}",
+    ]
+    adjustments = []
+    adj = q.get("adjustments") or {}
+    if adj.get("dropout"):
+        adjustments.append(f"dropout {describe.fmt_pct(adj['dropout'])}")
+    if adj.get("cluster"):
+        adjustments.append(f"clustering (ICC {describe.fmt_num(adj['cluster']['icc'])})")
+    if (adj.get("comparisons") or 1) > 1:
+        adjustments.append(f"Bonferroni over {adj['comparisons']} comparisons")
+    if adjustments:
+        lines.append("Adjusted for " + ", ".join(adjustments))
+    return lines
+
+
+def _power_at(q: dict, per_group: list[int]) -> float | None:
+    q = dict(q, sample_size={"per_group": per_group})
     try:
         return compute(q)["power"]["estimate"]
     except QuestionError:
         return None  # a size the design cannot take (e.g. too few for its df) is left out
 
 
-def _simulated_at(q: dict, per_arm: list[int]) -> dict | None:
-    q = dict(q, sample_size={"per_arm": per_arm})
+def _simulated_at(q: dict, per_group: list[int]) -> dict | None:
+    q = dict(q, sample_size={"per_group": per_group})
     try:
         power = compute(q)["power"]
     except QuestionError:
@@ -158,9 +200,13 @@ def _simulated_at(q: dict, per_arm: list[int]) -> dict | None:
 
 
 def _figure(points: dict) -> Figure:
-    fig = Figure(figsize=(7.2, 4.0), dpi=100, layout="constrained")
+    fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
     ax = fig.add_subplot()
     ax.set_gid("power-curve-axes")
+    # The title and the assumptions travel with the drawing (a saved PNG stands alone).
+    fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
+    notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
+    ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
     if points["analytic"]:
         pairs = [
             (n, p) for n, p in zip(points["n"], points["analytic"], strict=True) if p is not None
@@ -189,7 +235,9 @@ def _figure(points: dict) -> Figure:
             col.set_gid(f"simulated-ci-{i}")
     target = points.get("target_power")
     if target is not None:
-        t = ax.axhline(target, color=_TARGET, ls="--", lw=1.2, label=f"target power {target:g}")
+        t = ax.axhline(
+            target, color=_TARGET, ls="--", lw=1.2, label=f"target power {describe.fmt_pct(target)}"
+        )
         t.set_gid("target-line")
     chosen = points["chosen"]
     v = ax.axvline(chosen["n"], color=_CHOSEN, ls=":", lw=1.5)
@@ -201,12 +249,13 @@ def _figure(points: dict) -> Figure:
         ms=7,
         color=_CHOSEN,
         ls="none",
-        label=f"answer: {chosen['n']:,} (power {chosen['power']:.3f})",
+        label=f"answer: {chosen['n']:,} (power {describe.fmt_power(chosen['power'])})",
     )
     dot.set_gid("chosen-point")
     ax.set_xlabel(points["x_label"], color=_INK)
     ax.set_ylabel("Power", color=_INK)
     ax.set_ylim(0, 1.02)
+    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
     ax.grid(True, color="#d5dbe1", lw=0.6)
     ax.tick_params(colors=_INK)
     for side in ("top", "right"):
@@ -233,37 +282,25 @@ def _svg(fig: Figure, title_id: str, title: str) -> str:
 
 def power_curve_svg(points: dict) -> str:
     """Draw the curve data as an SVG document string ready to inline in HTML (no XML prolog)."""
-    title = f"Power against {points['x_label'].lower()}, with the chosen size marked"
-    return _svg(_figure(points), "curve-title", title)
+    return _svg(_figure(points), "curve-title", points["title"])
 
 
 # --- the sensitivity grid as curves -----------------------------------------------------------
 
-_LINE_COLOURS = ("#1f5fa8", "#b34700", "#0b7a4b", "#7a3fa0", "#a8891f", "#1f8fa8", "#a81f4f")
-_PATH_WORDS = {
-    "alpha": "alpha",
-    "target_power": "target power",
-    "allocation_ratio": "allocation ratio",
-    "effect.sd": "SD",
-    "adjustments.dropout": "dropout",
-    "adjustments.comparisons": "comparisons",
-    "adjustments.cluster.icc": "ICC",
-    "adjustments.cluster.mean_size": "cluster size",
-    "adjustments.cluster.cv": "cluster-size CV",
-    "adjustments.cluster.clusters_per_arm": "clusters per arm",
-}
+_LINE_COLORS = ("#1f5fa8", "#b34700", "#0b7a4b", "#7a3fa0", "#a8891f", "#1f8fa8", "#a81f4f")
 
 
-def _path_words(path: str) -> str:
-    return _PATH_WORDS.get(path, path.rsplit(".", 1)[-1].replace("_", " "))
-
-
-def sensitivity_lines(grid_result: dict) -> dict:
+def sensitivity_lines(grid_result: dict, question: dict | None = None) -> dict:
     """Return a sensitivity grid as lines: x = the first axis, one line per other-axis combination.
 
     The y value is the enrolled n of the first group for find = sample_size and the power for
-    find = power; cells the engine refused are gaps (None).
+    find = power; cells the engine refused are gaps (None). ``question`` (the record's) names
+    the axes with its cell's field labels.
     """
+
+    def _path_words(path: str) -> str:
+        return describe.path_label(question, path)
+
     axes = grid_result["axes"]
     if not axes:
         raise ValueError("grid_result.axes: a sensitivity grid has at least one axis")
@@ -279,10 +316,10 @@ def sensitivity_lines(grid_result: dict) -> dict:
             lines[key] = {"label": label or "as asked", "x": [], "y": []}
         y = None
         if not cell.get("error"):
-            y = cell["power"] if y_power else (cell["per_arm"] or [None])[0]
+            y = cell["power"] if y_power else (cell["per_group"] or [None])[0]
         lines[key]["x"].append(cell["values"][first["path"]])
         lines[key]["y"].append(y)
-    several = len(grid_result["base"]["per_arm"] or []) > 1
+    several = len(grid_result["base"]["per_group"] or []) > 1
     return {
         "x_label": _path_words(first["path"]).capitalize(),
         "y_label": "Power" if y_power else ("Enrolled per group" if several else "Enrolled"),
@@ -290,23 +327,24 @@ def sensitivity_lines(grid_result: dict) -> dict:
     }
 
 
-def sensitivity_svg(grid_result: dict) -> str:
+def sensitivity_svg(grid_result: dict, question: dict | None = None) -> str:
     """Draw a sensitivity grid (``explore.sensitivity``'s result) as an inline SVG string."""
-    data = sensitivity_lines(grid_result)
+    data = sensitivity_lines(grid_result, question)
     fig = Figure(figsize=(7.2, 4.0), dpi=100, layout="constrained")
     ax = fig.add_subplot()
     ax.set_gid("sensitivity-axes")
     for i, line in enumerate(data["lines"]):
-        colour = _LINE_COLOURS[i % len(_LINE_COLOURS)]
+        color = _LINE_COLORS[i % len(_LINE_COLORS)]
         ys = [float("nan") if y is None else y for y in line["y"]]
         (drawn,) = ax.plot(
-            line["x"], ys, marker="o", ms=4, lw=1.8, color=colour, label=line["label"]
+            line["x"], ys, marker="o", ms=4, lw=1.8, color=color, label=line["label"]
         )
         drawn.set_gid(f"sensitivity-line-{i}")
     ax.set_xlabel(data["x_label"], color=_INK)
     ax.set_ylabel(data["y_label"], color=_INK)
     if data["y_label"] == "Power":
         ax.set_ylim(0, 1.02)
+        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
     ax.grid(True, color="#d5dbe1", lw=0.6)
     ax.tick_params(colors=_INK)
     for side in ("top", "right"):

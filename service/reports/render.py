@@ -13,8 +13,9 @@ from pathlib import Path
 from jinja2 import Environment, FileSystemLoader
 from markupsafe import Markup
 
-from service.engine import CAUTIONS, DESIGN_NAMES
+from service.engine import CAUTIONS
 
+from . import describe
 from . import justification as words
 
 __all__ = ["STATUS_LABELS", "question_rows", "render_report", "render_staff_list"]
@@ -30,30 +31,6 @@ STATUS_LABELS = {
     "returned": "Returned to requester",
     "failed": "Failed",
     "cancelled": "Cancelled",
-}
-
-_FIELD_LABELS = {
-    "alpha": "Significance level",
-    "target_power": "Target power",
-    "allocation_ratio": "Allocation ratio",
-    "effect.difference": "Difference",
-    "effect.sd": "SD (both groups)",
-    "effect.sd_control": "SD, control",
-    "effect.sd_treatment": "SD, treatment",
-    "effect.sd_difference": "SD of differences",
-    "effect.p_control": "Proportion, control",
-    "effect.p_treatment": "Proportion, treatment",
-    "effect.hazard_ratio": "Hazard ratio",
-    "effect.hazard_control": "Control hazard",
-    "effect.cohens_f": "Effect size f",
-    "effect.r": "Correlation",
-    "effect.prob_superiority": "P(treatment > control)",
-    "adjustments.dropout": "Dropout",
-    "adjustments.cluster.icc": "ICC",
-    "adjustments.cluster.mean_size": "Cluster size",
-    "adjustments.cluster.cv": "Cluster-size CV",
-    "adjustments.cluster.clusters_per_arm": "Clusters per arm",
-    "adjustments.comparisons": "Comparisons",
 }
 
 _DEPARTURE_LABELS = {
@@ -72,24 +49,23 @@ _FIND = {
 }
 
 
-def _sizes_text(per_arm) -> str:
+_METHODS = {"analytic": "analytic", "simulation": "Monte Carlo simulation"}
+_EXPLORATIONS = {"sensitivity_grid": "Sensitivity grid", "robustness_panel": "Robustness panel"}
+
+
+def _sizes_text(sizes) -> str:
     # Power questions deflate enrolled numbers to fractional effective sizes; show one decimal.
-    if all(float(x).is_integer() for x in per_arm):
-        return _per_arm_text([int(x) for x in per_arm])
-    return " / ".join(f"{x:.1f}" for x in dict.fromkeys(per_arm))
+    if all(float(x).is_integer() for x in sizes):
+        return _per_group_text([int(x) for x in sizes])
+    return " / ".join(f"{x:.1f}" for x in dict.fromkeys(sizes))
 
 
-def _test_name(test: str) -> str:
-    name = words.TEST_NAMES.get(test, test)
-    return name[4:5].upper() + name[5:] if name.startswith("the ") else name
-
-
-def _per_arm_text(per_arm) -> str:
-    if not per_arm:
+def _per_group_text(sizes) -> str:
+    if not sizes:
         return "—"
-    if len(set(per_arm)) == 1:
-        return words.fmt_count(per_arm[0])
-    return " / ".join(words.fmt_count(n) for n in per_arm)
+    if len(set(sizes)) == 1:
+        return words.fmt_count(sizes[0])
+    return " / ".join(words.fmt_count(n) for n in sizes)
 
 
 @lru_cache(maxsize=1)
@@ -105,10 +81,9 @@ def _env() -> Environment:
         count=words.fmt_count,
         prob=words.fmt_prob,
         prob4=lambda p: words.fmt_prob(p, 4),
-        per_arm=_per_arm_text,
-        field_label=lambda path: _FIELD_LABELS.get(path, path),
+        power=words.fmt_power,
+        per_group=_per_group_text,
         departure_label=lambda name: _DEPARTURE_LABELS.get(name, name.replace("_", " ")),
-        test_name=_test_name,
     )
     return env
 
@@ -127,128 +102,133 @@ def _version(record: dict | None = None) -> str:
     return sizewise_version()
 
 
-def question_rows(q: dict) -> list[tuple[str, str]]:
+def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
     """Return the normalized question as (label, plain-English value) rows."""
-    design = q["design"]
+    cell = describe.cell(q)
     rows = [
-        ("Design", words.DESIGN_PHRASES.get(design, design).capitalize()),
+        ("Design", describe.cell_label(q)),
+        ("Planned analysis", describe.analysis_label(q, record)),
         ("Looking for", _FIND.get(q["find"], q["find"]).capitalize()),
     ]
-    sides = (
-        ""
-        if design == "anova_oneway"
-        else ("one-sided" if int(q.get("sides", 2)) == 1 else "two-sided")
-    )
-    rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {sides}".strip()))
+    alternative = "" if describe.is_omnibus(q) else q.get("alternative", "two-sided")
+    rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {alternative}".strip()))
     if q.get("target_power") is not None:
         rows.append(("Target power", words.fmt_pct(q["target_power"])))
     if q.get("sample_size"):
-        rows.append(
-            (
-                "Enrolled per group" if len(q["sample_size"]["per_arm"]) > 1 else "Enrolled",
-                _per_arm_text(q["sample_size"]["per_arm"]),
+        sizes = q["sample_size"].get("per_group") or []
+        if sizes:
+            rows.append(
+                ("Enrolled per group" if len(sizes) > 1 else "Enrolled", _per_group_text(sizes))
             )
-        )
-    rows.append(("Assumed effect", words._effect(q)))
+        else:
+            rows.append(("Enrolled in total", words.fmt_count(q["sample_size"]["total"])))
+    if q["find"] == "effect":
+        effect = f"solved for: the smallest detectable {describe.field_label(q, cell.solved)}"
+    else:
+        effect = describe.effect_text(q, record)
+    if effect:
+        rows.append(("Effect to detect", effect))
+    assumptions = describe.assumptions_text(q)
+    if assumptions:
+        rows.append(("Assumptions", assumptions))
     hyp = q.get("hypothesis") or {}
-    if hyp.get("kind", "superiority") != "superiority":
-        rows.append(
-            (
-                "Hypothesis",
-                words._hypothesis(q).removeprefix("to ").capitalize()
-                + (
-                    " (higher is better)"
-                    if hyp.get("higher_is_better", True)
-                    else " (lower is better)"
-                ),
-            )
+    if hyp.get("aim", "superiority") != "superiority":
+        better = (
+            " (higher is better)" if hyp.get("higher_is_better", True) else " (lower is better)"
         )
-    if design in ("two_means", "two_proportions", "rank_sum", "survival_logrank"):
+        rows.append(
+            ("Hypothesis", words.hypothesis_words(q).removeprefix("to ").capitalize() + better)
+        )
+    if describe.group_count(q) == 2:
         rows.append(
             (
                 "Allocation",
                 f"{words.fmt_num(q.get('allocation_ratio') or 1.0)} : 1 (treatment : control)",
             )
         )
+    rows.append(("Adjustments", _adjustments_text(q)))
+    if q.get("method") == "simulation":
+        sim = q["simulation"]
+        rows.append(
+            (
+                "Method",
+                f"Monte Carlo simulation, {words.fmt_count(sim['replicates'])} replicates, "
+                f"seed {sim['seed']}",
+            )
+        )
+    else:
+        rows.append(("Method", _analytic_text(record)))
+    return rows
+
+
+def _analytic_text(record: dict | None) -> str:
+    """'Analytic (noncentral t, exact)': the record's approximation in its own words."""
+    approximation = ((record or {}).get("method") or {}).get("approximation")
+    return f"Analytic ({approximation})" if approximation else "Analytic"
+
+
+def _adjustments_text(q: dict) -> str:
     adj = q.get("adjustments") or {}
     parts = []
-    if adj.get("comparisons", 1) > 1:
+    if (adj.get("comparisons") or 1) > 1:
         parts.append(f"Bonferroni over {adj['comparisons']} comparisons")
     if adj.get("cluster"):
         c = adj["cluster"]
         size = (
             f"clusters of mean size {words.fmt_num(c['mean_size'])}"
             if c.get("mean_size") is not None
-            else f"{words.fmt_count(c['clusters_per_arm'])} clusters per group (size solved)"
+            else f"{words.fmt_count(c['clusters_per_group'])} clusters per group (size solved)"
         )
         parts.append(f"{size}, ICC {words.fmt_num(c['icc'])}")
         if c.get("cv"):
             parts.append(f"cluster-size CV {words.fmt_num(c['cv'])}")
     if adj.get("dropout"):
         parts.append(f"dropout {words.fmt_pct(adj['dropout'])}")
-    rows.append(("Adjustments", "; ".join(parts) if parts else "none"))
-    if q.get("method") == "simulation":
-        sim = q["simulation"]
-        rows.append(
-            (
-                "Method",
-                f"Monte Carlo simulation of {words.TEST_NAMES.get(sim['test'], sim['test'])}, "
-                f"{words.fmt_count(sim['replicates'])} replicates, seed {sim['seed']}",
-            )
-        )
-    else:
-        rows.append(("Method", f"analytic ({q.get('formula') or 'default formula'})"))
-    return rows
+    return "; ".join(parts) if parts else "none"
 
 
 def _answer_figures(record: dict) -> list[dict]:
     q, size, power = record["question"], record["sample_size"], record["power"]
     figures = []
-    several = len(size["per_arm"]) > 1
-    if several:
+    sizes = size["per_group"]
+    if len(sizes) > 1:
+        names = describe.group_names(q, len(sizes))
         figures.append(
             {
-                "value": _per_arm_text(size["per_arm"]),
+                "value": _per_group_text(sizes),
                 "label": "enrolled per group"
-                if len(set(size["per_arm"])) == 1
-                else "enrolled per group (" + " / ".join(_arm_names(q, len(size["per_arm"]))) + ")",
+                if len(set(sizes)) == 1
+                else "enrolled per group (" + " / ".join(names) + ")",
             }
         )
     figures.append({"value": words.fmt_count(size["total"]), "label": "enrolled in total"})
-    if record.get("events"):
-        figures.append(
-            {
-                "value": words.fmt_count(record["events"]["events"]["required"]),
-                "label": "events required",
-            }
-        )
+    events = words.events_of(record)
+    if events:
+        figures.append({"value": words.fmt_count(events["required"]), "label": "events required"})
     if q["find"] == "effect" and record.get("effect"):
         figures.append(
             {
                 "value": words.fmt_num(record["effect"]["value"]),
-                "label": f"detectable {record['effect']['field'].replace('_', ' ')}",
+                "label": f"smallest detectable {describe.field_label(q, record['effect']['field'])}",
             }
         )
-    label = (
-        "power"
-        if power.get("mcse") is None
-        else (f"simulated power (MCSE {words.fmt_prob(power['mcse'], 4)})")
-    )
-    figures.append({"value": words.fmt_prob(power["estimate"]), "label": label})
-    if size.get("clusters_per_arm"):
+    if power.get("mcse") is None:
+        label = "power"
+    else:
+        lo, hi = power["ci95"]
+        label = f"simulated power (95% interval {words.fmt_power(lo)} to {words.fmt_power(hi)})"
+    figures.append({"value": words.fmt_power(power["estimate"]), "label": label})
+    if size.get("clusters_per_group"):
         figures.append(
-            {"value": _per_arm_text(size["clusters_per_arm"]), "label": "whole clusters per group"}
+            {
+                "value": _per_group_text(size["clusters_per_group"]),
+                "label": "whole clusters per group",
+            }
         )
         figures.append(
             {"value": words.fmt_num(size["mean_cluster_size"]), "label": "people per cluster"}
         )
     return figures
-
-
-def _arm_names(q: dict, k: int) -> list[str]:
-    if q["design"] == "anova_oneway":
-        return [f"group {i + 1}" for i in range(k)]
-    return ["control", "treatment"][:k]
 
 
 def _steps_caption(record: dict) -> str:
@@ -269,9 +249,9 @@ def _steps_caption(record: dict) -> str:
             "Each step starts from the row above; every step rounds each group up to whole "
             "subjects."
         )
-    simulated = record["method"].get("kind") == "simulation"
+    simulated = record["method"].get("method") == "simulation"
     return (
-        "Each step starts from the enrolled numbers in the row above; the numbers analysed are "
+        "Each step starts from the enrolled numbers in the row above; the numbers analyzed are "
         "not rounded"
         + (
             " (the simulation ran at the whole numbers at or below them)."
@@ -284,8 +264,8 @@ def _steps_caption(record: dict) -> str:
 def _step_rows(record: dict) -> list[dict]:
     rows = []
     for s in record["sample_size"]["steps"]:
-        kind = s["step"]
-        if kind == "bonferroni":
+        which = s["step"]
+        if which == "bonferroni":
             rows.append(
                 {
                     "name": "Multiple comparisons",
@@ -295,8 +275,8 @@ def _step_rows(record: dict) -> list[dict]:
                     "result": "—",
                 }
             )
-        elif kind == "base":
-            raw = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_arm_raw"]))
+        elif which == "base":
+            raw = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_group_raw"]))
             rounded = (
                 "rounded up keeping the allocation ratio exact"
                 if s.get("rounding") == "exact_ratio"
@@ -304,27 +284,27 @@ def _step_rows(record: dict) -> list[dict]:
             )
             detail = (
                 f"solved by the formula: {raw}, {rounded}"
-                if record["method"].get("kind") == "analytic"
+                if record["method"].get("method") != "simulation"
                 else "smallest simulated size reaching the target"
             )
-            if record.get("events"):
-                ev = record["events"]
+            events = words.events_of(record)
+            if events:
                 detail += (
-                    f"; {words.fmt_count(ev['events']['required'])} events ÷ mean P(event) "
-                    f"{words.fmt_prob(ev['p_event']['mean'])}"
+                    f"; {words.fmt_count(events['required'])} events ÷ mean P(event) "
+                    f"{words.fmt_prob(events['probability']['mean'])}"
                 )
             rows.append(
                 {
                     "name": "Base size",
                     "base": True,
                     "detail": detail,
-                    "result": _per_arm_text(s["per_arm"]),
+                    "result": _per_group_text(s["per_group"]),
                 }
             )
-        elif "unit" in s and (kind != "enrolled" or "clusters_per_arm" in s):
+        elif "unit" in s and (which != "enrolled" or "clusters_per_group" in s):
             rows.append(_cluster_row(s))  # cluster-randomized: each step says its unit
-        elif kind == "design_effect":
-            clusters = _per_arm_text(s.get("clusters_per_arm"))
+        elif which == "design_effect":
+            clusters = _per_group_text(s.get("clusters_per_group"))
             rows.append(
                 {
                     "name": "Design effect",
@@ -332,129 +312,136 @@ def _step_rows(record: dict) -> list[dict]:
                     "detail": f"1 + ({words.fmt_num(s['mean_cluster_size'])} − 1) × "
                     f"{words.fmt_num(s['icc'])} = {words.fmt_num(s['factor'])}; "
                     f"{clusters} clusters per group",
-                    "result": _sizes_text(s["per_arm"]),
+                    "result": _sizes_text(s["per_group"]),
                 }
             )
-        elif kind == "dropout":
+        elif which == "dropout":
             verb = "divide" if record["question"]["find"] == "sample_size" else "multiply"
             rows.append(
                 {
                     "name": "Dropout",
                     "base": False,
                     "detail": f"{words.fmt_pct(s['rate'])}: {verb} by 1 − {words.fmt_num(s['rate'])}",
-                    "result": _sizes_text(s["per_arm"]),
+                    "result": _sizes_text(s["per_group"]),
                 }
             )
-        elif kind == "enrolled":
+        elif which == "enrolled":
             rows.append(
                 {
                     "name": "Enrolled",
                     "base": True,
                     "detail": "as stated in the question",
-                    "result": _per_arm_text(s["per_arm"]),
+                    "result": _per_group_text(s["per_group"]),
                 }
             )
         else:
             rows.append(
                 {
-                    "name": kind.replace("_", " ").capitalize(),
+                    "name": which.replace("_", " ").capitalize(),
                     "base": False,
                     "detail": "",
-                    "result": _per_arm_text(s.get("per_arm")),
+                    "result": _per_group_text(s.get("per_group")),
                 }
             )
     return rows
 
 
 def _de_text(s: dict) -> str:
-    m = words.fmt_num(s.get("analysed_cluster_size", s["mean_cluster_size"]))
+    m = words.fmt_num(s.get("analyzed_cluster_size", s["mean_cluster_size"]))
     cv = f"({words.fmt_num(s['cv'])}² + 1) × " if s.get("cv") else ""
     return f"1 + ({cv}{m} − 1) × {words.fmt_num(s['icc'])} = {words.fmt_num(s['factor'])}"
 
 
 def _cluster_row(s: dict) -> dict:
     """A step of a cluster-randomized record, its unit said in the result."""
-    kind = s["step"]
-    if kind == "design_effect":
-        if "per_arm_raw" in s:  # solving: individuals by the normal approximation
+    which = s["step"]
+    if which == "design_effect":
+        if "per_group_raw" in s:  # solving: individuals by the normal approximation
             detail = (
                 f"{_de_text(s)}; individuals needed by the normal approximation, "
-                f"{_per_arm_text(s['clusters_per_arm'])} clusters of "
-                f"{words.fmt_num(s['analysed_cluster_size'])} analysed per group"
+                f"{_per_group_text(s['clusters_per_group'])} clusters of "
+                f"{words.fmt_num(s['analyzed_cluster_size'])} analyzed per group"
             )
             return {
                 "name": "Design effect",
                 "base": False,
                 "detail": detail,
-                "result": _sizes_text(s["per_arm_raw"]) + " individuals",
+                "result": _sizes_text(s["per_group_raw"]) + " individuals",
             }
         return {
             "name": "Design effect",
             "base": False,
             "detail": f"{_de_text(s)}; effective individuals = clusters × "
-            f"{words.fmt_num(s['analysed_cluster_size'])} ÷ design effect",
-            "result": _sizes_text(s["per_arm"]) + " effective individuals",
+            f"{words.fmt_num(s['analyzed_cluster_size'])} ÷ design effect",
+            "result": _sizes_text(s["per_group"]) + " effective individuals",
         }
-    if kind == "cluster_df":
+    if which == "cluster_df":
         return {
             "name": "Cluster-level test",
             "base": False,
             "detail": f"t test on cluster summaries, {s['df']} df (clusters − 2); "
-            f"power {words.fmt_prob(s['power'])}",
-            "result": _per_arm_text(s["clusters_per_arm"]) + " clusters",
+            f"power {words.fmt_power(s['power'])}",
+            "result": _per_group_text(s["clusters_per_group"]) + " clusters",
         }
-    if kind == "simulation":
+    if which == "simulation":
         return {
             "name": "Simulation",
             "base": False,
             "detail": f"smallest simulated number of clusters reaching the target; "
-            f"power {words.fmt_prob(s['power'])}",
-            "result": _per_arm_text(s["clusters_per_arm"]) + " clusters",
+            f"power {words.fmt_power(s['power'])}",
+            "result": _per_group_text(s["clusters_per_group"]) + " clusters",
         }
-    if kind == "cluster_size":
+    if which == "cluster_size":
         return {
             "name": "Cluster size",
             "base": False,
-            "detail": f"{_per_arm_text(s['clusters_per_arm'])} clusters fixed; {_de_text(s)}; "
-            f"{s['df']} df; power {words.fmt_prob(s['power'])}",
+            "detail": f"{_per_group_text(s['clusters_per_group'])} clusters fixed; {_de_text(s)}; "
+            f"{s['df']} df; power {words.fmt_power(s['power'])}",
             "result": f"{words.fmt_num(s['mean_cluster_size'])} people per cluster",
         }
-    if kind == "clusters":
+    if which == "clusters":
         return {
             "name": "Clusters",
             "base": False,
             "detail": f"enrolled ÷ mean cluster size {words.fmt_num(s['mean_cluster_size'])}; "
             f"{s['df']} df",
-            "result": _per_arm_text(s["clusters_per_arm"]) + " clusters",
+            "result": _per_group_text(s["clusters_per_group"]) + " clusters",
         }
-    if kind == "dropout":
+    if which == "dropout":
         return {
             "name": "Dropout",
             "base": False,
             "detail": f"{words.fmt_pct(s['rate'])} of each cluster lost",
-            "result": f"{words.fmt_num(s['analysed_cluster_size'])} analysed per cluster",
+            "result": f"{words.fmt_num(s['analyzed_cluster_size'])} analyzed per cluster",
         }
     return {  # enrolled
         "name": "Enrolled",
         "base": True,
-        "detail": f"{_per_arm_text(s['clusters_per_arm'])} whole clusters × "
+        "detail": f"{_per_group_text(s['clusters_per_group'])} whole clusters × "
         f"{words.fmt_num(s['mean_cluster_size'])} people",
-        "result": _per_arm_text(s["per_arm"]) + " people",
+        "result": _per_group_text(s["per_group"]) + " people",
     }
 
 
 def _method_text(record: dict) -> str:
-    m = record.get("method") or {}
-    if m.get("kind") == "analytic":
-        return f"{m.get('formula', '')} — {m.get('reference', '')}".strip(" —")
-    return m.get("description") or "Monte Carlo simulation"
+    """The reproducibility section's method line: how, which test, derived values."""
+    m, q = record.get("method") or {}, record["question"]
+    test = describe.analysis_label(q, record)
+    if m.get("method") == "simulation":
+        text = f"Monte Carlo simulation of {test}"
+    else:
+        text = f"{_analytic_text(record)}, {test}"
+        if m.get("reference"):
+            text += f" — {m['reference']}"
+    derived = describe.derived_text(q, record)
+    return f"{text}. Derived from the entered values: {derived}." if derived else f"{text}."
 
 
 def _robustness_view(panel: dict | None, q: dict) -> dict | None:
-    """The robustness panel with each size's verdict against the alpha its test used.
+    """The robustness panel with its analysis label and each verdict against the alpha used.
 
-    Panels stored before verdicts were recorded carry only the overall alpha; the level of
-    each test is then alpha divided by the Bonferroni comparisons, as the engine split it.
+    A panel without a per-comparison alpha is judged at alpha divided by the Bonferroni
+    comparisons, as the engine split it.
     """
     if not panel:
         return panel
@@ -469,7 +456,12 @@ def _robustness_view(panel: dict | None, q: dict) -> dict | None:
             verdict = words.size_verdict({**t1, "alpha": t1.get("alpha") or level})
             t1 = {**t1, "verdict": verdict, "label": words.SIZE_LABELS[verdict]}
         departures.append({**d, "type_i_error": t1})
-    return {**panel, "alpha_per_comparison": level, "departures": departures}
+    return {
+        **panel,
+        "analysis_label": describe.label_of_analysis(q, panel.get("analysis")),
+        "alpha_per_comparison": level,
+        "departures": departures,
+    }
 
 
 def render_report(
@@ -485,18 +477,17 @@ def render_report(
     """Render the full HTML report of one request and its result record.
 
     ``curve_svg`` and ``sensitivity_svg`` must come from ``plots`` (they are inlined
-    unescaped); ``pending`` lists analyses still queued or running (each with ``kind`` and
-    ``status``). The justification's effect source is read from
+    unescaped); ``pending`` lists explorations still queued or running (each with ``type``
+    and ``status``). The justification's effect source is read from
     ``request["context"]["effect_source"]`` or ``request["effect_source"]`` when present.
     """
     q = record["question"]
-    if q.get("design") not in DESIGN_NAMES:
-        raise ValueError(f"record.question.design: unknown design {q.get('design')!r}")
+    describe.cell(q)  # an unknown cell is refused here, naming the field
     context = dict(request.get("context") or {})
     if request.get("effect_source") and "effect_source" not in context:
         context["effect_source"] = request["effect_source"]
     status = request.get("status") or "computed"
-    several = len(record["sample_size"]["per_arm"]) > 1
+    several = len(record["sample_size"]["per_group"]) > 1
     return (
         _env()
         .get_template("report.html.j2")
@@ -509,19 +500,24 @@ def render_report(
             status=status,
             status_label=STATUS_LABELS.get(status, status),
             record=record,
-            question_rows=question_rows(q),
+            simulated=(record.get("method") or {}).get("method") == "simulation",
+            question_rows=question_rows(q, record),
             answer_figures=_answer_figures(record),
-            per_arm_heading="Per group" if several else "Number",
+            per_group_heading="Per group" if several else "Number",
             step_rows=_step_rows(record),
             steps_caption=_steps_caption(record),
             justification=words.justification(record, context),
             curve_svg=Markup(curve_svg),
             sensitivity=sensitivity,
+            sensitivity_axes=[
+                {"path": a["path"], "label": describe.path_label(q, a["path"]).capitalize()}
+                for a in (sensitivity or {}).get("axes") or []
+            ],
             sensitivity_svg=Markup(sensitivity_svg) if sensitivity_svg else None,
             robustness=_robustness_view(robustness, q),
             pending=[
                 {
-                    "kind": a.get("kind", ""),
+                    "label": _EXPLORATIONS.get(a.get("type"), "Exploration"),
                     "status": STATUS_LABELS.get(a.get("status"), a.get("status")),
                 }
                 for a in pending or []
@@ -532,6 +528,16 @@ def render_report(
             cautions=record.get("cautions") or list(CAUTIONS),
         )
     )
+
+
+def _study_words(q: dict | None) -> tuple[str, str]:
+    """The staff list's design and analysis cells; dashes when the question names no known cell."""
+    if not q:
+        return "—", ""
+    try:
+        return describe.cell_label(q), describe.analysis_label(q)
+    except ValueError:
+        return "—", ""
 
 
 def render_staff_list(
@@ -545,6 +551,7 @@ def render_staff_list(
         counts[status] = counts.get(status, 0) + 1
         protocol, requester = r.get("protocol") or {}, r.get("requester") or {}
         progress = r.get("progress")
+        cell, analysis = _study_words(r.get("question"))
         rows.append(
             {
                 "href": report_href.format(id=r.get("id", "")),
@@ -552,8 +559,9 @@ def render_staff_list(
                 "protocol_id": protocol.get("id") or "",
                 "requester": requester.get("name") or "—",
                 "department": requester.get("department"),
-                "design": (r.get("design") or "").replace("_", " "),
-                "method": r.get("method"),
+                "cell": cell,
+                "analysis": analysis,
+                "method": _METHODS.get(r.get("method"), ""),
                 "status": status,
                 "status_label": STATUS_LABELS.get(status, status),
                 "progress": None if progress is None else words.fmt_pct(round(float(progress), 2)),

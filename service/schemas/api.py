@@ -77,7 +77,7 @@ class HealthSchema(Schema):
 
 
 class CatalogueSchema(Schema):
-    """GET /v1/designs: the designs, their fields, formulas and tests."""
+    """GET /v1/catalogue: the cells (outcome × layout), their analyses and fields."""
 
     class Meta:
         # The catalogue's shape belongs to service.schemas.catalogue; pass it through unchanged.

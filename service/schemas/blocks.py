@@ -6,8 +6,6 @@ from typing import Any
 
 from marshmallow import ValidationError, validates_schema
 
-from service.engine.designs import TESTS
-
 from .data_models import DataModel
 from .fields import (
     UNIT_HALF_OPEN,
@@ -18,45 +16,43 @@ from .fields import (
     NumberList,
     Obj,
     Strict,
-    Text,
     Whole,
-    got,
     posted,
     show,
 )
-from .shared import shared
-from .vocabulary import DECISION_RULES, KINDS, MAX_N, SEED_LIMIT, valid_design
+from .shared import per_design
+from .vocabulary import AIMS, DECISION_RULES, MAX_N, SEED_LIMIT, cell_of
 
 
 class SampleSizeSchema(Strict):
-    """Enrolled numbers: ``per_arm`` (control first) or a ``total`` split by the allocation."""
+    """Enrolled numbers: ``per_group`` (control first) or a ``total`` split by the allocation."""
 
-    per_arm = NumberList(
-        Whole(Interval(2, MAX_N), required=True, description="enrolled subjects in one arm"),
+    per_group = NumberList(
+        Whole(Interval(2, MAX_N), required=True, description="enrolled subjects in one group"),
         min_length=1,
-        description="enrolled subjects per arm, control (or first group) first",
+        description="enrolled subjects per group, control (or the first group) first",
     )
     total = Whole(
-        Interval(2, MAX_N), description="total enrolled; split over the arms by the allocation"
+        Interval(2, MAX_N), description="total enrolled; split over the groups by the allocation"
     )
 
     @validates_schema(pass_original=True, skip_on_field_errors=False)
     def _one_form(self, data: dict, original_data: Any, **kwargs: Any) -> None:
-        has_arm, has_total = posted(original_data, "per_arm"), posted(original_data, "total")
-        if has_arm and has_total:
-            raise ValidationError({"total": ["give per_arm or total, not both; got both"]})
-        if not has_arm and not has_total:
+        has_list, has_total = posted(original_data, "per_group"), posted(original_data, "total")
+        if has_list and has_total:
+            raise ValidationError({"total": ["give per_group or total, not both; got both"]})
+        if not has_list and not has_total:
             raise ValidationError(
-                {"per_arm": ["is required: a list of whole numbers >= 2 (or give total)"]}
+                {"per_group": ["is required: a list of whole numbers >= 2 (or give total)"]}
             )
 
 
 class HypothesisSchema(Strict):
-    """Superiority, non-inferiority or equivalence, with its margin on the effect's scale."""
+    """Superiority, noninferiority or equivalence, with its margin on the effect's scale."""
 
-    kind = Choice(KINDS, load_default="superiority", description="the hypothesis to be shown")
+    aim = Choice(AIMS, load_default="superiority", description="what the study aims to show")
     margin = Number(
-        description="non-inferiority margin (< 0 when higher is better, > 0 otherwise) or "
+        description="noninferiority margin (< 0 when higher is better, > 0 otherwise) or "
         "equivalence margin (> 0; bounds are +/- margin), on the treatment - control scale"
     )
     higher_is_better = Flag(
@@ -67,10 +63,10 @@ class HypothesisSchema(Strict):
 
     @validates_schema(skip_on_field_errors=False)
     def _margin(self, data: dict, **kwargs: Any) -> None:
-        if "kind" not in data:
-            return  # the kind failed its own check
-        kind, margin = data["kind"], data.get("margin")
-        if kind == "superiority":
+        if "aim" not in data:
+            return  # the aim failed its own check
+        aim, margin = data["aim"], data.get("margin")
+        if aim == "superiority":
             if margin is not None:
                 raise ValidationError(
                     {
@@ -85,10 +81,10 @@ class HypothesisSchema(Strict):
                 need = {
                     "noninferiority": "a number < 0 (> 0 when higher_is_better is false)",
                     "equivalence": "a number > 0",
-                }[kind]
-                raise ValidationError({"margin": [f"is required for {kind}: {need}"]})
+                }[aim]
+                raise ValidationError({"margin": [f"is required for {aim}: {need}"]})
             return  # the margin failed its own type check and is reported there
-        if kind == "equivalence" and not margin > 0:
+        if aim == "equivalence" and not margin > 0:
             raise ValidationError(
                 {
                     "margin": [
@@ -96,7 +92,7 @@ class HypothesisSchema(Strict):
                     ]
                 }
             )
-        if kind == "noninferiority":
+        if aim == "noninferiority":
             hib = data.get("higher_is_better", True)
             if hib and not margin < 0:
                 raise ValidationError(
@@ -124,7 +120,7 @@ class ClusterSchema(Strict):
     mean_size = Number(
         Interval(1, None),
         description="mean cluster size (people enrolled per cluster); required unless "
-        "clusters_per_arm is given to solve for it",
+        "clusters_per_group is given to solve for it",
     )
     icc = Number(UNIT_HALF_OPEN, required=True, description="intracluster correlation")
     cv = Number(
@@ -132,24 +128,24 @@ class ClusterSchema(Strict):
         default=0.0,
         description="coefficient of variation of cluster size (0: equal clusters)",
     )
-    clusters_per_arm = Whole(
+    clusters_per_group = Whole(
         Interval(2, 100_000),
-        description="fixed clusters per arm: find = sample_size then solves for the cluster size",
+        description="fixed clusters per group: find = sample_size then solves for the cluster size",
     )
 
     @validates_schema(pass_original=True, skip_on_field_errors=False)
     def _size(self, data: dict, original: Any, **kwargs: Any) -> None:
-        if not posted(original, "mean_size") and not posted(original, "clusters_per_arm"):
+        if not posted(original, "mean_size") and not posted(original, "clusters_per_group"):
             raise ValidationError(
-                {"mean_size": ["is required (or give clusters_per_arm to solve for it)"]}
+                {"mean_size": ["is required (or give clusters_per_group to solve for it)"]}
             )
-        if posted(original, "mean_size") and posted(original, "clusters_per_arm"):
+        if posted(original, "mean_size") and posted(original, "clusters_per_group"):
             raise ValidationError(
                 {
-                    "clusters_per_arm": [
+                    "clusters_per_group": [
                         "cannot be given with mean_size: give mean_size to solve for the number "
-                        "of clusters, or clusters_per_arm to solve for the cluster size; got "
-                        f"{show(original['clusters_per_arm'])}"
+                        "of clusters, or clusters_per_group to solve for the cluster size; got "
+                        f"{show(original['clusters_per_group'])}"
                     ]
                 }
             )
@@ -170,7 +166,7 @@ class AdjustmentsSchema(Strict):
 
 
 class SimulationSchema(Strict):
-    """Monte Carlo settings; ``data`` and ``test`` are checked against the question's design."""
+    """Monte Carlo settings; ``data`` is checked against the question's cell."""
 
     replicates = Whole(
         Interval(200, 2_000_000),
@@ -181,13 +177,13 @@ class SimulationSchema(Strict):
         Interval(0, SEED_LIMIT, high_open=True, text="[0, 2**53)"),
         description="root seed; null draws one from the OS entropy pool",
     )
-    test = Text(
-        description="the test applied to each simulated data set; default the design's first"
-    )
     data = DataModel(
         allow_none=True,
         load_default=None,
-        metadata={"description": "the data model; null uses normal data built from the effect"},
+        metadata={
+            "description": "the data model; null draws the cell's own data from the effect and "
+            "assumptions"
+        },
     )
     decision_rule = Choice(
         DECISION_RULES,
@@ -205,26 +201,20 @@ class SimulationSchema(Strict):
         description="replicates per candidate n in the search",
     )
 
-    def __init__(self, *, design: str | None = None, **kwargs: Any):
-        self.design = design
+    def __init__(self, *, cell: Any = None, **kwargs: Any):
+        self.cell = cell  # the cell's design object: shapes ``data``
         super().__init__(**kwargs)
 
-    @validates_schema(skip_on_field_errors=False)
-    def _fits_design(self, data: dict, **kwargs: Any) -> None:
-        test = data.get("test")
-        if self.design is not None and test is not None and test not in TESTS[self.design]:
-            raise ValidationError(
-                {
-                    "test": [
-                        f"must be one of {', '.join(TESTS[self.design])} for {self.design}; {got(test)}"
-                    ]
-                }
-            )
+
+@per_design
+def simulation_schema(design: Any) -> SimulationSchema:
+    """The shared simulation schema of a cell (None: the cell is unknown)."""
+    return SimulationSchema(cell=design)
 
 
 class SimulationField(Obj):
-    """The ``simulation`` block, validated against the question's design."""
+    """The ``simulation`` block, validated against the question's cell."""
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
         self.check_object(value)
-        return shared(SimulationSchema, design=valid_design(data)).load(value)
+        return simulation_schema(cell_of(data)).load(value)

@@ -1,25 +1,38 @@
-"""The design catalogue served by ``GET /v1/designs``, generated from the question schemas.
+"""The catalogue served by ``GET /v1/catalogue``, generated from the designs and the schemas.
 
-Nothing here is a second table: field names, types, ranges, defaults and help text come from the
-marshmallow fields' metadata in ``effects.py`` and ``question.py``; formulas and tests from the engine registry.
+Nothing here is a second table: each cell (outcome × layout), its analyses, its fields (type,
+range, unit, default, help) and its forms come from the design object the engine registers;
+the common question fields, blocks and distribution families from the marshmallow schemas.
 """
 
 from __future__ import annotations
 
+import json
+from importlib import resources
+from pathlib import Path
 from typing import Any
 
 from marshmallow import Schema, fields
 
-from service.engine.designs import DESIGN_NAMES, FORMULAS, TESTS
-
-from . import question as q
+from . import declared
+from .blocks import (
+    AdjustmentsSchema,
+    ClusterSchema,
+    HypothesisSchema,
+    SampleSizeSchema,
+    SimulationSchema,
+)
+from .data_models import FAMILIES, FAMILY_SCHEMAS, data_keys, families_for, takes_data
+from .fields import Number, Whole
+from .json_schema import SCHEMA_PATH
+from .vocabulary import cells
 
 _RANGE_KEYS = ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum", "minItems", "enum")
 
 
 def field_type(field: fields.Field) -> str:
     """The JSON type name of a schema field."""
-    if isinstance(field, q.Whole):
+    if isinstance(field, Whole):
         return "integer"
     if isinstance(field, fields.Float):
         return "number"
@@ -33,7 +46,7 @@ def field_type(field: fields.Field) -> str:
 
 
 def describe_field(name: str, field: fields.Field) -> dict[str, Any]:
-    """One field as a catalogue entry: type, help text, range, default, and whether required."""
+    """One schema field as a catalogue entry: type, help text, range, default, requiredness."""
     meta = field.metadata
     entry: dict[str, Any] = {
         "name": name,
@@ -46,9 +59,9 @@ def describe_field(name: str, field: fields.Field) -> dict[str, Any]:
             entry[key] = meta[key]
     if "default" in meta:
         entry["default"] = meta["default"]
-    if isinstance(field, q.Number):
+    if isinstance(field, Number):
         entry["allowed"] = field.allowed()
-    if isinstance(field, fields.List) and isinstance(field.inner, q.Number):
+    if isinstance(field, fields.List) and isinstance(field.inner, Number):
         entry["items"] = describe_field("item", field.inner)
     return entry
 
@@ -58,57 +71,111 @@ def describe_schema(schema: type[Schema]) -> list[dict[str, Any]]:
     return [describe_field(name, f) for name, f in schema._declared_fields.items()]
 
 
-def _first_line(doc: str | None) -> str:
-    return (doc or "").strip().splitlines()[0] if doc else ""
+def describe_declared(design: Any, field: Any) -> dict[str, Any]:
+    """One declared design field: where it goes, what it is, what it allows, when it is needed."""
+    entry: dict[str, Any] = {
+        "name": field.name,
+        "path": f"{field.block}.{field.name}",
+        "block": field.block,
+        "type": field.type,
+        "label": field.label,
+        "help": field.help,
+        "unit": field.unit,
+        "allowed": declared.allowed(field),
+        "needed": needed(design, field),
+    }
+    for key in ("minimum", "maximum", "min_items", "default"):
+        if getattr(field, key) is not None:
+            entry[key] = getattr(field, key)
+    if field.minimum is not None:
+        entry["exclusive_minimum"] = bool(field.exclusive_minimum)
+    if field.maximum is not None:
+        entry["exclusive_maximum"] = bool(field.exclusive_maximum)
+    if field.choices:
+        entry["choices"] = list(field.choices)
+    return entry
 
 
-def describe_design(design: str) -> dict[str, Any]:
-    """One design's catalogue entry."""
-    effect = q.EFFECT_SCHEMAS[design]
-    shape = q.DATA_SHAPES[design]
-    data_schema = q.DATA_SCHEMAS[design]
+def needed(design: Any, field: Any) -> str:
+    """When a field must be posted, in words (the rule ``cell.py`` enforces)."""
+    if field.default is not None:
+        return "optional"
+    if field.name == design.solved:
+        return "required, except for find = effect, which solves for it"
+    forms = [form for form in design.forms if field.name in form]
+    if forms:
+        others = [" + ".join(f) for f in design.forms if field.name not in f]
+        return (
+            "required in the form "
+            + " or ".join(" + ".join(f) for f in forms)
+            + (f" (alternative: {', or '.join(others)})" if others else "")
+        )
+    return "required"
+
+
+def example(design: Any) -> dict | None:
+    """The design's example question: a file of service/examples, or a path of its own."""
+    name = getattr(design, "example", "") or ""
+    if not name:
+        return None
+    path = Path(name)
+    try:
+        if path.is_absolute():
+            return json.loads(path.read_text("utf-8"))
+        text = resources.files("service.examples").joinpath(name).read_text("utf-8")
+        return json.loads(text)
+    except (OSError, ValueError):
+        return None
+
+
+def describe_cell(design: Any) -> dict[str, Any]:
+    """One cell's catalogue entry (VOCAB §7)."""
     return {
-        "name": design,
-        "description": _first_line(effect.__doc__),
-        "two_arm": design in q.TWO_ARM,
-        "effect": {
-            "fields": describe_schema(effect),
-            "forms": list(effect.FORMS),
-            "solved_for_when_find_is_effect": effect.SOLVED,
-        },
-        "hypotheses": list(q.KINDS) if design in q.MARGIN_DESIGNS else ["superiority"],
-        "formulas": list(FORMULAS[design]),
-        "default_formula": FORMULAS[design][0],
-        "tests": list(TESTS[design]),
-        "default_test": TESTS[design][0],
-        "data_model": None
-        if data_schema is None
-        else {
-            "shape": shape,
-            "keys": list(data_schema._declared_fields),
-            "families": list(q.families_for(design)),
-        },
+        "outcome": design.outcome,
+        "layout": design.layout,
+        "name": design.cell,
+        "label": design.label,
+        "analyses": [
+            {
+                "name": a.name,
+                "label": a.label,
+                "methods": list(a.methods),
+                "aims": list(a.aims),
+                "reference": a.reference,
+            }
+            for a in design.analyses
+        ],
+        "fields": [describe_declared(design, f) for f in design.fields],
+        "forms": [list(f) for f in design.forms],
+        "solved": design.solved,
+        "data_model": {"keys": list(data_keys(design)), "families": list(families_for(design))}
+        if takes_data(design)
+        else None,
+        "example": example(design),
     }
 
 
 def describe_family(family: str) -> dict[str, Any]:
     """One distribution family: its parameters with ranges and help text."""
-    fields_ = [e for e in describe_schema(q.ARM_SCHEMAS[family]) if e["name"] != "family"]
-    return {"name": family, "parameters": fields_}
+    params = [e for e in describe_schema(FAMILY_SCHEMAS[family]) if e["name"] != "family"]
+    return {"name": family, "parameters": params}
 
 
 def catalogue() -> dict[str, Any]:
-    """The full catalogue: the question's top-level fields, every design and every family."""
+    """Every registered cell, the question's common fields and blocks, the data families."""
+    from .question import QuestionSchema
+
     blocks = {
-        "sample_size": q.SampleSizeSchema,
-        "hypothesis": q.HypothesisSchema,
-        "adjustments": q.AdjustmentsSchema,
-        "adjustments.cluster": q.ClusterSchema,
-        "simulation": q.SimulationSchema,
+        "sample_size": SampleSizeSchema,
+        "hypothesis": HypothesisSchema,
+        "adjustments": AdjustmentsSchema,
+        "adjustments.cluster": ClusterSchema,
+        "simulation": SimulationSchema,
     }
     return {
-        "question": describe_schema(q.QuestionSchema),
+        "cells": [describe_cell(d) for d in cells()],
+        "question": describe_schema(QuestionSchema),
         "blocks": {name: describe_schema(s) for name, s in blocks.items()},
-        "designs": [describe_design(d) for d in DESIGN_NAMES],
-        "families": [describe_family(f) for f in q.FAMILIES],
+        "families": [describe_family(f) for f in FAMILIES],
+        "json_schema": SCHEMA_PATH,
     }

@@ -1,7 +1,8 @@
-"""Simulation data models: one arm schema per distribution family, one data shape per design.
+"""Simulation data models: one schema per distribution family, one data shape per cell.
 
-An arm is ``{"family": name, ...parameters}``; ``DataModel`` picks the shape (two arms, groups
-or one sample) from the design of the question it sits in.
+A distribution is ``{"family": name, ...parameters}``; ``DataModel`` picks the shape (control
+and treatment, a list of groups, one group, the paired differences) from the cell of the
+question it sits in.
 """
 
 from __future__ import annotations
@@ -11,8 +12,6 @@ from collections.abc import Mapping
 from typing import Any
 
 from marshmallow import Schema, ValidationError, fields, validates_schema
-
-from service.engine.designs import DESIGN_NAMES
 
 from .fields import (
     POSITIVE,
@@ -27,7 +26,7 @@ from .fields import (
     number_text,
     show,
 )
-from .shared import shared
+from .shared import per_design, shared
 
 # Parameter name -> (interval, description). Order is the documented order.
 FAMILY_PARAMS: dict[str, dict[str, tuple[Interval, str]]] = {
@@ -66,29 +65,41 @@ FAMILY_PARAMS: dict[str, dict[str, tuple[Interval, str]]] = {
 }
 FAMILIES = tuple(FAMILY_PARAMS)
 CONTINUOUS_AND_COUNT = tuple(f for f in FAMILIES if f != "bernoulli")
-ARM_FAMILIES = {
-    "two_proportions": ("bernoulli",),
-    "survival_logrank": ("weibull", "exponential"),
-}
-DATA_SHAPES = {
-    "two_means": "two_arm",
-    "two_proportions": "two_arm",
-    "rank_sum": "two_arm",
-    "survival_logrank": "two_arm",
-    "anova_oneway": "groups",
-    "one_mean": "sample",
-    "paired_mean": "sample",
-    "correlation": None,  # bivariate normal pairs are drawn from r; no data model is taken
+# A data model's keys come from the design's simulation model (``data_keys``); the families it
+# may use follow from the outcome's word (binary outcomes are Bernoulli draws, event times
+# Weibull or exponential), unless the simulation model lists its own (``families``).
+OUTCOME_FAMILIES: dict[str, tuple[str, ...]] = {
+    "binary": ("bernoulli",),
+    "time_to_event": ("weibull", "exponential"),
+    "association": (),
 }
 
 
-def families_for(design: str) -> tuple[str, ...]:
-    """Distribution families a design's data model may use."""
-    return ARM_FAMILIES.get(design, CONTINUOUS_AND_COUNT)
+def families_for(design: Any) -> tuple[str, ...]:
+    """Distribution families a cell's data model may use (none: it takes no data model)."""
+    sim = getattr(design, "simulation", None)
+    declared = getattr(sim, "families", None)
+    if declared is not None:
+        return tuple(declared)
+    return OUTCOME_FAMILIES.get(design.outcome, CONTINUOUS_AND_COUNT)
 
 
-class ArmBase(Strict):
-    """Common checks of a data-model arm."""
+def data_keys(design: Any) -> tuple[str, ...]:
+    """The keys of a cell's data model: control/treatment, groups, group or differences."""
+    return tuple(getattr(getattr(design, "simulation", None), "data_keys", ()) or ())
+
+
+def takes_data(design: Any) -> bool:
+    """True when the cell simulates and accepts a posted data model."""
+    return (
+        getattr(design, "simulation", None) is not None
+        and bool(families_for(design))
+        and bool(data_keys(design))
+    )
+
+
+class DistributionBase(Strict):
+    """Common checks of a data-model distribution."""
 
     @validates_schema(skip_on_field_errors=True)
     def _uniform_order(self, data: dict, **kwargs: Any) -> None:
@@ -111,39 +122,41 @@ class ArmBase(Strict):
         if not finite:
             names = [n for n in FAMILY_PARAMS[data["family"]] if n in data]
             message = (
-                f"the {data['family']} arm's mean or variance overflows double precision with "
+                f"the {data['family']} distribution's mean or variance overflows double precision with "
                 f"{', '.join(f'{n}={show(data[n])}' for n in names)}; use smaller parameters "
                 "(or other units)"
             )
             raise ValidationError({n: [message] for n in names})
 
 
-def _arm_schema(family: str) -> type[Schema]:
+def _family_schema(family: str) -> type[Schema]:
     spec: dict[str, fields.Field] = {
         "family": Choice((family,), required=True, description="distribution family")
     }
     for name, (interval, desc) in FAMILY_PARAMS[family].items():
         spec[name] = Number(interval, required=True, description=desc)
-    return ArmBase.from_dict(spec, name=f"{family.title().replace('_', '')}ArmSchema")
+    return DistributionBase.from_dict(
+        spec, name=f"{family.title().replace('_', '')}DistributionSchema"
+    )
 
 
-ARM_SCHEMAS: dict[str, type[Schema]] = {f: _arm_schema(f) for f in FAMILIES}
+FAMILY_SCHEMAS: dict[str, type[Schema]] = {f: _family_schema(f) for f in FAMILIES}
 
 
-class Arm(fields.Dict):
-    """One arm of a data model, dispatched on its ``family`` to the family's schema."""
+class Distribution(fields.Dict):
+    """One distribution of a data model, dispatched on its ``family`` to the family's schema."""
 
     def __init__(self, families: tuple[str, ...] = FAMILIES, **kwargs: Any):
         self.families = families
         super().__init__(
             metadata={
-                "description": "an arm: {'family': name, ...parameters}; families: "
+                "description": "a distribution: {'family': name, ...parameters}; families: "
                 + ", ".join(families)
             },
             **kwargs,
         )
         self.error_messages["required"] = (
-            "is required: an arm, an object with family and its parameters"
+            "is required: a distribution, an object with family and its parameters"
         )
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
@@ -154,50 +167,50 @@ class Arm(fields.Dict):
             raise ValidationError(
                 {"family": [f"must be one of {', '.join(self.families)}; {got(family)}"]}
             )
-        return shared(ARM_SCHEMAS[family]).load(value)
+        return shared(FAMILY_SCHEMAS[family]).load(value)
 
 
-class ArmList(fields.List):
-    """The ``groups`` list of an ANOVA data model."""
+class DistributionList(fields.List):
+    """The ``groups`` list of a k-group data model, one distribution per group."""
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
         if not isinstance(value, list) or len(value) < 2:
-            raise ValidationError(f"must be a list of at least 2 arms; {got(value)}")
+            raise ValidationError(f"must be a list of at least 2 distributions; {got(value)}")
         return super()._deserialize(value, attr, data, **kwargs)
 
 
-def _data_schema(design: str) -> type[Schema] | None:
-    shape, fams = DATA_SHAPES[design], families_for(design)
-    if shape == "two_arm":
-        spec = {"control": Arm(fams, required=True), "treatment": Arm(fams, required=True)}
-    elif shape == "groups":
-        spec = {"groups": ArmList(Arm(fams), required=True)}
-    elif shape == "sample":
-        spec = {"sample": Arm(fams, required=True)}
-    else:
+@per_design
+def data_schema(design: Any) -> Schema | None:
+    """The shared schema of a cell's data model, or None when the cell takes none."""
+    if not takes_data(design):
         return None
-    return Strict.from_dict(spec, name=f"{design.title().replace('_', '')}DataSchema")
-
-
-DATA_SCHEMAS = {d: _data_schema(d) for d in DESIGN_NAMES}
+    fams, keys = families_for(design), data_keys(design)
+    if keys == ("groups",):
+        spec: dict[str, fields.Field] = {
+            "groups": DistributionList(Distribution(fams), required=True)
+        }
+    else:
+        spec = {k: Distribution(fams, required=True) for k in keys}
+    name = f"{design.outcome.title()}{design.layout.title()}Data".replace("_", "")
+    return Strict.from_dict(spec, name=name)()
 
 
 class DataModel(fields.Dict):
-    """A simulation data model, shaped by the design of the question it sits in."""
+    """A simulation data model, shaped by the cell of the question it sits in."""
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
-        design = getattr(self.parent, "design", None)
+        design = getattr(self.parent, "cell", None)
         if design is None:
             if not isinstance(value, Mapping):
                 raise ValidationError(f"must be an object; {got(value)}")
-            return dict(value)  # the design is invalid and already reported
-        schema = DATA_SCHEMAS[design]
+            return dict(value)  # the cell is invalid and already reported
+        schema = data_schema(design)
         if schema is None:
             raise ValidationError(
-                f"not offered for {design} (pairs are drawn bivariate normal with effect.r); "
-                f"remove it; {got(value)}"
+                f"is not offered for {design.outcome} × {design.layout} (the simulation draws "
+                f"its data from the effect and assumptions); remove it; {got(value)}"
             )
         if not isinstance(value, Mapping):
-            keys = ", ".join(schema._declared_fields)
+            keys = ", ".join(schema.fields)
             raise ValidationError(f"must be an object with keys {keys}; {got(value)}")
-        return schema().load(value)
+        return schema.load(value)

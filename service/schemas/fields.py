@@ -213,9 +213,12 @@ class Text(fields.String):
 class Flag(fields.Boolean):
     """A strict JSON boolean (no 0/1, no 'true' strings)."""
 
-    def __init__(self, *, description: str, default: bool, **kwargs: Any):
+    def __init__(self, *, description: str, default: bool | None, **kwargs: Any):
+        meta: dict = {"description": description}
+        if default is not None:
+            meta["default"] = default
         super().__init__(
-            metadata={"description": description, "default": default},
+            metadata=meta,
             load_default=default,
             allow_none=True,
             **kwargs,

@@ -1,7 +1,9 @@
 """API schemas for study requests: the submission body, the stored record and list filters.
 
 The ``question`` member is validated by ``service.schemas.question.load_question``; its errors
-come back keyed under ``question.`` (``question.effect.sd``), like every other field path.
+come back keyed under ``question.`` (``question.assumptions.sd``), like every other field path.
+An exploration (sensitivity grid, robustness panel) has one body shape, ``ExplorationCreateSchema``,
+whether it comes in a request's ``explorations`` list or later on its own.
 """
 
 from __future__ import annotations
@@ -10,12 +12,12 @@ from typing import Any
 
 from marshmallow import Schema, ValidationError, fields, post_load, validate, validates_schema
 
-from service.engine import DESIGN_NAMES
 from service.schemas.errors import QuestionInvalid
+from service.schemas.explorations import price_errors
 from service.schemas.question import load_question
 from service.store.models import (
-    ANALYSIS_KINDS,
-    ANALYSIS_STATUSES,
+    EXPLORATION_STATUSES,
+    EXPLORATION_TYPES,
     REQUEST_STATUSES,
     RERUN_STATUSES,
 )
@@ -79,7 +81,12 @@ INT_ERRORS = {"invalid": Echo("must be a whole number; got {input!r}")}
 
 
 class QuestionField(fields.Dict):
-    """A raw question object, validated and normalized by ``load_question``."""
+    """A raw question object, validated and normalized by ``load_question``; the OpenAPI
+    document points it at the generated Question component (``x-question``)."""
+
+    def __init__(self, **kwargs):
+        kwargs["metadata"] = {**kwargs.get("metadata", {}), "x-question": True}
+        super().__init__(**kwargs)
 
     def _deserialize(self, value, attr, data, **kwargs) -> dict:
         raw = super()._deserialize(value, attr, data, **kwargs)
@@ -117,9 +124,9 @@ class RequesterSchema(StrictSchema):
 
 
 GRID_DESCRIPTION = (
-    "Dotted field path of the question -> list of values, e.g. "
-    '{"effect.difference": [4, 5, 6], "adjustments.dropout": [0.1, 0.2]}; at most 3 axes and '
-    '400 cells; for two_means "effect.sd" moves both SDs.'
+    "Dotted path of the question -> list of values, e.g. "
+    '{"effect.difference": [4, 5, 6], "assumptions.sd": [10, 12], "adjustments.dropout": '
+    "[0.1, 0.2]}; at most 3 axes and 400 cells."
 )
 
 
@@ -135,22 +142,38 @@ class GridField(fields.Dict):
         )
 
 
-class SensitivityRequestSchema(StrictSchema):
-    """A sensitivity grid asked for with the request."""
+class ExplorationCreateSchema(StrictSchema):
+    """One exploration of a request: a sensitivity grid or a robustness panel. The same item is
+    posted in a request's ``explorations`` list and to POST /v1/requests/{id}/explorations."""
 
-    grid = GridField(required=True)
-
-
-class AnalysesRequestSchema(StrictSchema):
-    """What-if analyses to run once the request is computed."""
-
-    sensitivity = fields.Nested(SensitivityRequestSchema)
-    robustness = fields.Boolean(
-        error_messages={"invalid": Echo("must be true or false; got {input!r}")},
+    type = fields.String(
+        required=True,
+        validate=one_of(tuple(EXPLORATION_TYPES)),
+        metadata={"description": "sensitivity_grid or robustness_panel"},
+    )
+    grid = GridField()
+    replicates = fields.Integer(
+        validate=in_range(200, 2_000_000),
+        error_messages=INT_ERRORS,
         metadata={
-            "description": "Simulate the test under departures from the planned data (two_means, rank_sum)."
+            "description": "robustness_panel only: replicates per data model (default: the "
+            "request's, or 5,000 for an analytic request)"
         },
     )
+
+    @validates_schema
+    def fields_fit_the_type(self, data: dict, **_kwargs) -> None:
+        """A sensitivity grid needs a grid; a robustness panel takes none."""
+        kind = data.get("type")
+        if kind == "sensitivity_grid" and "grid" not in data:
+            raise ValidationError("is required for type 'sensitivity_grid'", "grid")
+        if kind == "sensitivity_grid" and "replicates" in data:
+            raise ValidationError(
+                "only for type 'robustness_panel'; a grid uses the request's replicates",
+                "replicates",
+            )
+        if kind == "robustness_panel" and "grid" in data:
+            raise ValidationError("only for type 'sensitivity_grid'", "grid")
 
 
 def _budget() -> int | None:
@@ -162,45 +185,9 @@ def _budget() -> int | None:
     return int(current_app.extensions["sizewise"]["config"]["SIMULATION_BUDGET"])
 
 
-def analysis_errors(
-    question: dict, sensitivity: dict | None, robustness: bool | None
-) -> dict[str, list[str]]:
-    """Return field-keyed errors of a sensitivity grid and a robustness panel for ``question``."""
-    from service.engine import QuestionError
-    from service.engine.explore import ROBUSTNESS_REPLICATES, analysis_cost, robustness_refusal
-
-    errors: dict[str, list[str]] = {}
-    q = question
-    if q.get("method") == "simulation" and (q.get("simulation") or {}).get("seed") is None:
-        # The seed is drawn after validation; it changes no path, value or cost.
-        q = {**q, "simulation": {**q["simulation"], "seed": 0}}
-    asked = []
-    if sensitivity is not None:
-        asked.append(("sensitivity", {"grid": sensitivity["grid"]}, "sensitivity.grid"))
-    if robustness:
-        refusal = robustness_refusal(question.get("design"))
-        if refusal is not None:
-            errors["robustness"] = [refusal]
-        else:
-            replicates = (q.get("simulation") or {}).get("replicates") or ROBUSTNESS_REPLICATES
-            asked.append(("robustness", {"replicates": replicates, "seed": 0}, "robustness"))
-    budget = _budget()
-    for kind, params, field in asked:
-        try:
-            estimate = analysis_cost(kind, params, q, None)
-        except QuestionError as exc:
-            if kind == "robustness":
-                errors["robustness"] = [str(exc)]
-            else:
-                key = exc.field if exc.field.startswith("grid") else "grid"
-                errors[f"sensitivity.{key}"] = [exc.message]
-            continue
-        if budget is not None and estimate > budget:
-            errors[field] = [
-                f"estimated cost {estimate:,} draws exceeds the per-simulation budget of "
-                f"{budget:,}; use fewer cells or fewer replicates"
-            ]
-    return errors
+def exploration_errors(question: dict, items: list[dict]) -> dict[str, list[str]]:
+    """Field-keyed errors of the explorations asked for with ``question`` (``3.grid.alpha``)."""
+    return price_errors(question, items, _budget())
 
 
 class RequestCreateSchema(StrictSchema):
@@ -216,7 +203,7 @@ class RequestCreateSchema(StrictSchema):
     notes = fields.String(allow_none=True, validate=validate.Length(max=5000))
     question = QuestionField(
         required=True,
-        metadata={"description": "The sample-size question; see GET /v1/designs."},
+        metadata={"description": "The sample-size question; see GET /v1/catalogue."},
     )
     effect_source = fields.String(
         allow_none=True,
@@ -226,22 +213,21 @@ class RequestCreateSchema(StrictSchema):
             "justification (e.g. 'SD from the 2024 audit of clinic visits')."
         },
     )
-    analyses = fields.Nested(
-        AnalysesRequestSchema,
+    explorations = fields.List(
+        fields.Nested(ExplorationCreateSchema),
+        validate=validate.Length(max=10, error="must list at most {max} explorations"),
         metadata={
-            "description": "Analyses computed after the request (sensitivity grid, robustness)."
+            "description": "Explorations computed once the request is answered (sensitivity "
+            "grids, robustness panels), each shaped as for POST /v1/requests/{id}/explorations."
         },
     )
 
     @validates_schema(skip_on_field_errors=True)
-    def analyses_fit_the_question(self, data: dict, **_kwargs) -> None:
-        """Check the asked-for analyses against the normalized question (paths, values, design)."""
-        asked = data.get("analyses") or {}
-        errors = analysis_errors(
-            data["question"], asked.get("sensitivity"), asked.get("robustness")
-        )
+    def explorations_fit_the_question(self, data: dict, **_kwargs) -> None:
+        """Check the asked-for explorations against the normalized question (paths, cost)."""
+        errors = exploration_errors(data["question"], data.get("explorations") or [])
         if errors:
-            raise ValidationError({f"analyses.{k}": v for k, v in errors.items()})
+            raise ValidationError({f"explorations.{k}": v for k, v in errors.items()})
 
     @post_load(pass_original=True)
     def keep_raw_question(self, data: dict, original: Any, **_kwargs) -> dict:
@@ -251,46 +237,22 @@ class RequestCreateSchema(StrictSchema):
 
 
 class CalculationCreateSchema(StrictSchema):
-    """Body of POST /v1/calculations: one analytic question."""
+    """Body of POST /v1/calculations: one analytic question, the same document as a request's
+    ``question`` and ``sizewise compute FILE``."""
 
-    question = QuestionField(required=True)
-
-
-class AnalysisCreateSchema(StrictSchema):
-    """Body of POST /v1/requests/{id}/analyses."""
-
-    kind = fields.String(required=True, validate=one_of(ANALYSIS_KINDS))
-    grid = GridField()
-    replicates = fields.Integer(
-        validate=in_range(200, 2_000_000),
-        error_messages=INT_ERRORS,
-        metadata={
-            "description": "Robustness only: trials per data model (default: the request's)."
-        },
+    question = QuestionField(
+        required=True, metadata={"description": "The question; see GET /v1/catalogue."}
     )
 
-    @validates_schema
-    def fields_fit_the_kind(self, data: dict, **_kwargs) -> None:
-        """A sensitivity analysis needs a grid; a robustness panel takes none."""
-        kind = data.get("kind")
-        if kind == "sensitivity" and "grid" not in data:
-            raise ValidationError("required for kind 'sensitivity'", "grid")
-        if kind == "sensitivity" and "replicates" in data:
-            raise ValidationError(
-                "only for kind 'robustness'; a grid uses the request's", "replicates"
-            )
-        if kind == "robustness" and "grid" in data:
-            raise ValidationError("only for kind 'sensitivity'", "grid")
 
-
-class AnalysisSchema(StrictSchema):
+class ExplorationSchema(StrictSchema):
     """A sensitivity grid or robustness panel of a request, and its result when done."""
 
     id = fields.String()
     request_id = fields.String()
-    kind = fields.String(validate=one_of(ANALYSIS_KINDS))
+    type = fields.String(validate=one_of(tuple(EXPLORATION_TYPES)))
     params = fields.Dict()
-    status = fields.String(validate=one_of(ANALYSIS_STATUSES))
+    status = fields.String(validate=one_of(EXPLORATION_STATUSES))
     requested_by = fields.String()
     created_at = fields.AwareDateTime()
     published_at = fields.AwareDateTime(allow_none=True)
@@ -300,10 +262,10 @@ class AnalysisSchema(StrictSchema):
     finished_at = fields.AwareDateTime(allow_none=True)
 
 
-class AnalysisListSchema(StrictSchema):
-    """GET /v1/requests/{id}/analyses."""
+class ExplorationListSchema(StrictSchema):
+    """GET /v1/requests/{id}/explorations."""
 
-    items = fields.List(fields.Nested(AnalysisSchema))
+    items = fields.List(fields.Nested(ExplorationSchema))
 
 
 class ReportLinkSchema(StrictSchema):
@@ -365,7 +327,8 @@ class RequestSchema(StrictSchema):
     requester = fields.Dict()
     deadline = fields.Date(allow_none=True)
     notes = fields.String(allow_none=True)
-    design = fields.String()
+    outcome = fields.String()
+    layout = fields.String()
     method = fields.String()
     seed = fields.Integer(allow_none=True)
     question = fields.Dict(metadata={"description": "Normalized question, seed filled in."})
@@ -382,7 +345,7 @@ class RequestSchema(StrictSchema):
     history = fields.List(fields.Nested(AuditEventSchema))
     reruns = fields.Nested(RerunSummarySchema)
     effect_source = fields.String(allow_none=True)
-    analyses = fields.List(fields.Nested(AnalysisSchema(exclude=("result",))))
+    explorations = fields.List(fields.Nested(ExplorationSchema(exclude=("result",))))
 
 
 class RequestPageSchema(StrictSchema):
@@ -390,7 +353,9 @@ class RequestPageSchema(StrictSchema):
 
     items = fields.List(
         fields.Nested(
-            RequestSchema(exclude=("result", "history", "question_submitted", "reruns", "analyses"))
+            RequestSchema(
+                exclude=("result", "history", "question_submitted", "reruns", "explorations")
+            )
         )
     )
     page = fields.Integer()
@@ -404,6 +369,15 @@ class RerunListSchema(StrictSchema):
     items = fields.List(fields.Nested(RerunSchema(exclude=("record",))))
 
 
+def _cell_word(which: str, value: str) -> None:
+    """Refuse an outcome or layout no registered cell has, listing those that exist."""
+    from service.schemas.vocabulary import layouts, outcomes
+
+    words = outcomes() if which == "outcome" else layouts()
+    if value not in words:
+        raise ValidationError(f"must be one of: {', '.join(words)}; got {value!r}")
+
+
 class RequestQueryArgsSchema(StrictSchema):
     """Query parameters of GET /v1/requests."""
 
@@ -412,7 +386,14 @@ class RequestQueryArgsSchema(StrictSchema):
     requester = fields.Email(
         error_messages=EMAIL_ERRORS, metadata={"description": "The requester's e-mail address."}
     )
-    design = fields.String(validate=one_of(DESIGN_NAMES))
+    outcome = fields.String(
+        validate=lambda v: _cell_word("outcome", v),
+        metadata={"description": "Only requests on this outcome, e.g. continuous."},
+    )
+    layout = fields.String(
+        validate=lambda v: _cell_word("layout", v),
+        metadata={"description": "Only requests with this layout, e.g. two_groups."},
+    )
     submitted_from = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "First UTC day, inclusive."}
     )

@@ -7,7 +7,8 @@ one instance serves every thread.
 
 from __future__ import annotations
 
-from functools import lru_cache
+from collections.abc import Callable
+from functools import lru_cache, wraps
 from typing import Any, TypeVar
 
 from marshmallow import Schema
@@ -23,3 +24,23 @@ def _instance(cls: type[Schema], options: tuple[tuple[str, Any], ...]) -> Schema
 def shared(cls: type[S], **options: Any) -> S:
     """The process's instance of ``cls(**options)`` (options must be hashable)."""
     return _instance(cls, tuple(sorted(options.items())))  # type: ignore[return-value]
+
+
+def per_design(build: Callable[..., S]) -> Callable[..., S]:
+    """Cache ``build(design, *args)`` per design object (designs hold dicts: not hashable).
+
+    The entry keeps its design alive and is checked by identity, so a replaced registration
+    (a test's toy design registered again) builds afresh.
+    """
+    cache: dict[tuple, tuple[Any, Any]] = {}
+
+    @wraps(build)
+    def cached(design: Any, *args: Any) -> S:
+        key = (id(design), *args)
+        hit = cache.get(key)
+        if hit is None or hit[0] is not design:
+            hit = (design, build(design, *args))
+            cache[key] = hit
+        return hit[1]
+
+    return cached

@@ -1,7 +1,7 @@
-"""The fixed words of a question and the design facts the schema modules share.
+"""The fixed words of a question, and the cells (outcome × layout) read from the design registry.
 
-Allowed values of ``find``, ``method``, the hypothesis kinds and decision rules; which designs
-have two arms or take a margin; how many arms a design has and their relative sizes.
+The cells are never listed here: ``cells()`` asks the engine's registry each time, so a design
+registered later (a new module, or a test's toy design) is known to every schema at once.
 """
 
 from __future__ import annotations
@@ -9,22 +9,51 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from service.engine.designs import DESIGN_NAMES
+from service.engine import designs
+from service.engine.designs.base import AIMS, BLOCKS, METHODS
+
+__all__ = ["AIMS", "BLOCKS", "METHODS"]  # the engine's words, re-exported for the schema modules
 
 FINDS = ("sample_size", "power", "effect")
-METHODS = ("analytic", "simulation")
-KINDS = ("superiority", "noninferiority", "equivalence")
+ALTERNATIVES = ("two-sided", "one-sided")
+ROUNDINGS = ("each_group", "exact_ratio")
 DECISION_RULES = ("point", "lower_bound")
-TWO_ARM = ("two_means", "two_proportions", "rank_sum", "survival_logrank")
-MARGIN_DESIGNS = ("two_means", "two_proportions")
+# Layouts whose groups are sized by the treatment:control allocation ratio (a word of the
+# vocabulary, not a design: every two-group cell takes it).
+RATIO_LAYOUTS = ("two_groups",)
 SEED_LIMIT = 2**53
 MAX_N = 10**9
 
 
-def valid_design(data: Any) -> str | None:
-    """The posted design when it is a known one, else None."""
-    design = data.get("design") if isinstance(data, Mapping) else None
-    return design if isinstance(design, str) and design in DESIGN_NAMES else None
+def cells() -> tuple:
+    """Every registered design, in registry order."""
+    return tuple(designs.all())
+
+
+def outcomes() -> tuple[str, ...]:
+    """The outcomes of the registered cells, in first-seen order."""
+    return tuple(dict.fromkeys(d.outcome for d in cells()))
+
+
+def layouts(outcome: str | None = None) -> tuple[str, ...]:
+    """The layouts of the registered cells (of one outcome when given), in first-seen order."""
+    return tuple(dict.fromkeys(d.layout for d in cells() if outcome in (None, d.outcome)))
+
+
+def cells_text() -> str:
+    """Every cell, quoted, for messages that list what is allowed."""
+    return ", ".join(f'"{d.cell}"' for d in cells())
+
+
+def cell_of(data: Any) -> Any | None:
+    """The design of the posted outcome and layout, or None when they name no cell."""
+    if not isinstance(data, Mapping):
+        return None
+    outcome, layout = data.get("outcome"), data.get("layout")
+    if not isinstance(outcome, str) or not isinstance(layout, str):
+        return None
+    found = [d for d in cells() if d.outcome == outcome and d.layout == layout]
+    return found[0] if found else None
 
 
 def valid_find(data: Any) -> str:
@@ -33,18 +62,6 @@ def valid_find(data: Any) -> str:
     return find if isinstance(find, str) and find in FINDS else "sample_size"
 
 
-def arm_count(design: str, effect: Mapping | None) -> int | None:
-    """Number of arms of a design (None when the ANOVA group count is not known)."""
-    if design in TWO_ARM:
-        return 2
-    if design == "anova_oneway":
-        groups = (effect or {}).get("groups")
-        if groups is None and (effect or {}).get("group_means") is not None:
-            groups = len(effect["group_means"])
-        return groups
-    return 1
-
-
-def allocation_weights(design: str, ratio: float, arms: int) -> list[float]:
-    """Relative arm sizes, control first: [1, ratio] for two-arm designs, equal otherwise."""
-    return [1.0, ratio] if design in TWO_ARM else [1.0] * arms
+def takes_ratio(design: Any) -> bool:
+    """True when the cell's groups are sized by an allocation ratio."""
+    return design.layout in RATIO_LAYOUTS

@@ -1,14 +1,15 @@
-"""Job bookkeeping shared by the API, the workers and the sweeper (requests, reruns, analyses).
+"""Job bookkeeping shared by the API, the workers and the sweeper (requests, reruns, explorations).
 
-A job is a row in ``requests`` (kind 'request'), ``reruns`` (kind 'rerun') or ``analyses``
-(kind 'analysis'). Workers hold a
-lease (lease_owner, lease_expires_at) while they run one; every change here is a conditional
-UPDATE so two workers can never both own a job. Functions take a session and never commit.
+A job is a row in ``requests`` (job 'request'), ``reruns`` (job 'rerun') or ``analyses`` (job
+'exploration'), each with the lease columns of ``models.Leased``. Workers hold a lease
+(lease_owner, lease_expires_at) while they run one; every change here is a conditional UPDATE
+so two workers can never both own a job. Functions take a session and never commit.
 """
 
 from __future__ import annotations
 
 import logging
+from dataclasses import dataclass
 from datetime import datetime, timedelta
 
 from sqlalchemy import and_, false, or_, select, true, update
@@ -17,27 +18,85 @@ from sqlalchemy.orm import Session
 from service.engine.records import canonical_json, differences, record_hash
 
 from .audit import append_event, content_hash
-from .models import Analysis, Request, Rerun, Result
+from .models import Exploration, Leased, Request, Rerun, Result
 from .types import utcnow
 
-KINDS = ("request", "rerun", "analysis")
 log = logging.getLogger(__name__)
 
 
-def _model(kind: str) -> type[Request] | type[Rerun] | type[Analysis]:
-    if kind == "request":
-        return Request
-    if kind == "rerun":
-        return Rerun
-    if kind == "analysis":
-        return Analysis
-    raise ValueError(f"job kind must be one of {KINDS}; got {kind!r}")
+@dataclass(frozen=True)
+class JobKind:
+    """What differs between the jobs: their row, waiting statuses and bookkeeping columns."""
+
+    name: str  # the word of logs, metrics, audit events and task messages
+    model: type[Leased]
+    queued: tuple[str, ...]  # statuses a worker may claim from
+    stamp: str  # the column holding when the job was asked for
+    unit_key: str  # chunk_results.job_kind of its work units (stored name, see models)
+    has_status_events: bool = False  # only a request's status is followed by audit verify
+    has_updated_at: bool = False
+    has_finished_at: bool = False
+    has_progress: bool = False
+    cancellable: bool = False
+    needs_result: bool = False  # runs only once its request has a result
+
+    def touch(self, now: datetime) -> dict:
+        """Bookkeeping columns written with every change of the job's row."""
+        return {"updated_at": now} if self.has_updated_at else {}
+
+    def status_detail(self, status: str) -> dict:
+        """The audit detail naming the status, for jobs whose status the verification follows."""
+        return {"status": status} if self.has_status_events else {}
+
+
+JOB_KINDS: dict[str, JobKind] = {
+    kind.name: kind
+    for kind in (
+        JobKind(
+            "request",
+            Request,
+            queued=("received", "queued"),
+            stamp="submitted_at",
+            unit_key="request",
+            has_status_events=True,
+            has_updated_at=True,
+            has_progress=True,
+            cancellable=True,
+        ),
+        JobKind(
+            "rerun",
+            Rerun,
+            queued=("queued",),
+            stamp="requested_at",
+            unit_key="rerun",
+            has_finished_at=True,
+        ),
+        JobKind(
+            "exploration",
+            Exploration,
+            queued=("queued",),
+            stamp="created_at",
+            unit_key="analysis",
+            has_finished_at=True,
+            needs_result=True,
+        ),
+    )
+}
+JOB_NAMES = tuple(JOB_KINDS)
+
+
+def job_kind(name: str) -> JobKind:
+    """The JobKind called ``name``; ValueError naming the jobs there are otherwise."""
+    try:
+        return JOB_KINDS[name]
+    except KeyError:
+        raise ValueError(f"job must be one of {', '.join(JOB_NAMES)}; got {name!r}") from None
 
 
 def _request_id(session: Session, kind: str, job_id: str) -> str | None:
     if kind == "request":
         return job_id
-    model = _model(kind)
+    model = job_kind(kind).model
     return session.scalar(select(model.request_id).where(model.id == job_id))
 
 
@@ -48,27 +107,13 @@ def _event(session: Session, kind: str, job_id: str, actor: str, action: str, **
         request_id=_request_id(session, kind, job_id),
         actor=actor,
         action=action,
-        detail={"kind": kind, "job_id": job_id, **detail},
+        detail={"job": kind, "job_id": job_id, **detail},
     )
-
-
-def _status(kind: str, status: str) -> dict:
-    # Only requests have a status the audit verification follows; reruns and analyses are
-    # checked through the hashes of what they stored.
-    return {"status": status} if kind == "request" else {}
-
-
-def _queued_statuses(kind: str) -> tuple[str, ...]:
-    return ("received", "queued") if kind == "request" else ("queued",)
-
-
-def _touch(kind: str, now: datetime) -> dict:
-    return {"updated_at": now} if kind == "request" else {}
 
 
 def _update_ours(session: Session, kind: str, job_id: str, owner: str, **values) -> int:
     # The one guard of every lease-holder's write: still running, still our lease.
-    model = _model(kind)
+    model = job_kind(kind).model
     return session.execute(
         update(model)
         .where(model.id == job_id, model.status == "running", model.lease_owner == owner)
@@ -81,19 +126,20 @@ def mark_published(session: Session, kind: str, job_id: str) -> bool:
 
     Only the first publish writes a 'published' event (and moves a request to 'queued').
     """
-    model = _model(kind)
+    job = job_kind(kind)
+    model = job.model
     now = utcnow()
     row = session.execute(select(model.published_at).where(model.id == job_id)).first()
     if row is None:
         return False
-    values: dict = {"published_at": now, **_touch(kind, now)}
+    values: dict = {"published_at": now, **job.touch(now)}
     session.execute(update(model).where(model.id == job_id).values(**values))
     if row.published_at is not None:
         # A republish (lost message, dead worker) changes nothing a reader of the trail needs:
         # the next claim writes its own event. One 'published' event per job, not per sweep.
         return True
     status = {}
-    if kind == "request":
+    if model is Request:
         # Only a job nobody has picked up yet moves from received to queued.
         queued = session.execute(
             update(Request)
@@ -114,17 +160,18 @@ def claim(
     A job whose attempts are used up is marked failed with the reason instead; a request whose
     cancellation was asked for while its previous owner died is marked cancelled.
     """
-    model = _model(kind)
+    job = job_kind(kind)
+    model = job.model
     now = utcnow()
     row = session.get(model, job_id, populate_existing=True)
     if row is None:
         return False
     claimable = or_(
-        model.status.in_(_queued_statuses(kind)),
+        model.status.in_(job.queued),
         and_(model.status == "running", model.lease_expires_at < now),
     )
     guard = and_(model.id == job_id, claimable, model.attempts == row.attempts)
-    if kind == "request" and row.cancel_requested:
+    if job.cancellable and row.cancel_requested:
         done = session.execute(
             update(model)
             .where(guard)
@@ -151,11 +198,13 @@ def claim(
                 error=reason,
                 lease_owner=None,
                 lease_expires_at=None,
-                **_touch(kind, now),
+                **job.touch(now),
             )
         ).rowcount
         if done:
-            _event(session, kind, job_id, owner, "failed", error=reason, **_status(kind, "failed"))
+            _event(
+                session, kind, job_id, owner, "failed", error=reason, **job.status_detail("failed")
+            )
         return False
     done = session.execute(
         update(model)
@@ -165,7 +214,7 @@ def claim(
             lease_owner=owner,
             lease_expires_at=now + timedelta(seconds=lease_seconds),
             attempts=row.attempts + 1,
-            **_touch(kind, now),
+            **job.touch(now),
         )
     ).rowcount
     # No event here: the worker appends its own "running" event with the attempt number.
@@ -181,16 +230,17 @@ def renew(
     lease_seconds: float,
 ) -> bool:
     """Extend our lease and store progress (0..1, requests only); False when the lease was lost."""
+    job = job_kind(kind)
     now = utcnow()
-    values: dict = {"lease_expires_at": now + timedelta(seconds=lease_seconds), **_touch(kind, now)}
-    if kind == "request" and progress is not None:
+    values: dict = {"lease_expires_at": now + timedelta(seconds=lease_seconds), **job.touch(now)}
+    if job.has_progress and progress is not None:
         values["progress"] = min(max(float(progress), 0.0), 1.0)
     return bool(_update_ours(session, kind, job_id, owner, **values))
 
 
 def cancel_requested(session: Session, kind: str, job_id: str) -> bool:
     """True when someone asked the running request to stop (reruns cannot be cancelled)."""
-    if kind != "request":
+    if not job_kind(kind).cancellable:
         return False
     return bool(session.scalar(select(Request.cancel_requested).where(Request.id == job_id)))
 
@@ -327,26 +377,27 @@ def finish_rerun(
 
 def fail(session: Session, kind: str, job_id: str, owner: str, error: str) -> bool:
     """Mark the job failed with ``error``; False when the lease was lost."""
+    job = job_kind(kind)
     now = utcnow()
     values: dict = {
         "status": "failed",
         "error": error,
         "lease_owner": None,
         "lease_expires_at": None,
-        **_touch(kind, now),
+        **job.touch(now),
     }
-    if kind in ("rerun", "analysis"):
+    if job.has_finished_at:
         values["finished_at"] = now
     done = _update_ours(session, kind, job_id, owner, **values)
     if done:
-        _event(session, kind, job_id, owner, "failed", error=error, **_status(kind, "failed"))
+        _event(session, kind, job_id, owner, "failed", error=error, **job.status_detail("failed"))
     return bool(done)
 
 
 def cancel(session: Session, kind: str, job_id: str, owner: str) -> bool:
     """Mark our running request cancelled (the worker saw cancel_requested); False otherwise."""
-    if kind != "request":
-        raise ValueError("only requests can be cancelled; reruns run to the end")
+    if not job_kind(kind).cancellable:
+        raise ValueError("only requests can be cancelled; reruns and explorations run to the end")
     now = utcnow()
     done = _update_ours(
         session,
@@ -372,102 +423,74 @@ def stale_jobs(
     grace_seconds: float = 0.0,
     republish_seconds: float | None = None,
 ) -> list[tuple[str, str]]:
-    """Return (kind, id) of jobs the sweeper must publish (again).
+    """Return (job, id) of jobs the sweeper must publish (again).
 
     Those are jobs never published, jobs running on an expired lease and, with
     ``republish_seconds``, jobs published that long ago and still not claimed: a broker that
     restarted without persistence has lost their message. A duplicate message is harmless, since
     only one worker can claim a job. ``grace_seconds`` skips unpublished jobs younger than that
-    (the API may be publishing them).
+    (the API may be publishing them). An exploration waits, unpublished, until its request has
+    a result to explore (or has ended without one, so the worker can fail it with the reason).
     """
     cutoff = now - timedelta(seconds=grace_seconds)
     resend = None if republish_seconds is None else now - timedelta(seconds=republish_seconds)
-    jobs: list[tuple[str, str]] = []
-    for kind, model, stamp in (
-        ("request", Request, Request.submitted_at),
-        ("rerun", Rerun, Rerun.requested_at),
-    ):
-        lost = (
-            and_(model.status.in_(_queued_statuses(kind)), model.published_at < resend)
-            if resend is not None
-            else false()
-        )
-        rows = session.scalars(
-            select(model.id)
-            .where(
-                or_(
-                    and_(
-                        model.published_at.is_(None),
-                        model.status.in_(_queued_statuses(kind)),
-                        stamp <= cutoff,
-                    ),
-                    # A dead worker's job once per republish interval, not every sweep.
-                    and_(
-                        model.status == "running",
-                        model.lease_expires_at < now,
-                        or_(model.published_at.is_(None), model.published_at < resend)
-                        if resend is not None
-                        else true(),
-                    ),
-                    lost,
-                )
+    found: list[tuple[str, str]] = []
+    for job in JOB_KINDS.values():
+        model = job.model
+        stamp = getattr(model, job.stamp)
+        waiting = model.status.in_(job.queued)
+        unpublished = and_(model.published_at.is_(None), waiting, stamp <= cutoff)
+        query = select(model.id)
+        if job.needs_result:
+            query = query.join(Request, Request.id == model.request_id).join(
+                Result, Result.request_id == model.request_id, isouter=True
             )
-            .order_by(stamp)
-        )
-        jobs.extend((kind, job_id) for job_id in rows)
-    # An analysis waits, unpublished, until its request has a result to analyse (or has ended
-    # without one, so the worker can fail it with the reason).
-    rows = session.scalars(
-        select(Analysis.id)
-        .join(Request, Request.id == Analysis.request_id)
-        .join(Result, Result.request_id == Analysis.request_id, isouter=True)
-        .where(
-            or_(
-                and_(
-                    Analysis.published_at.is_(None),
-                    Analysis.status == "queued",
-                    or_(Result.id.is_not(None), Request.status.in_(("failed", "cancelled"))),
-                    Analysis.created_at <= cutoff,
-                ),
-                and_(Analysis.status == "running", Analysis.lease_expires_at < now),
-                and_(Analysis.status == "queued", Analysis.published_at < resend)
+            ready = or_(Result.id.is_not(None), Request.status.in_(("failed", "cancelled")))
+            unpublished = and_(unpublished, ready)
+            # Its waiting is expected, not a sign of a dead worker: every sweep takes it back.
+            abandoned = and_(model.status == "running", model.lease_expires_at < now)
+        else:
+            # A dead worker's job once per republish interval, not every sweep.
+            abandoned = and_(
+                model.status == "running",
+                model.lease_expires_at < now,
+                or_(model.published_at.is_(None), model.published_at < resend)
                 if resend is not None
-                else false(),
+                else true(),
             )
-        )
-        .order_by(Analysis.created_at)
-    )
-    jobs.extend(("analysis", job_id) for job_id in rows)
-    return jobs
+        lost = and_(waiting, model.published_at < resend) if resend is not None else false()
+        rows = session.scalars(query.where(or_(unpublished, abandoned, lost)).order_by(stamp))
+        found.extend((job.name, job_id) for job_id in rows)
+    return found
 
 
-def release_analysis(session: Session, analysis_id: str, owner: str) -> bool:
-    """Give back a claimed analysis whose request has no result yet, without using an attempt.
+def release_exploration(session: Session, exploration_id: str, owner: str) -> bool:
+    """Give back a claimed exploration whose request has no result yet, without using an attempt.
 
     It returns to 'queued' and unpublished, so the sweeper publishes it once the result exists.
     """
     return bool(
         _update_ours(
             session,
-            "analysis",
-            analysis_id,
+            "exploration",
+            exploration_id,
             owner,
             status="queued",
             lease_owner=None,
             lease_expires_at=None,
             published_at=None,
-            attempts=Analysis.attempts - 1,
+            attempts=Exploration.attempts - 1,
         )
     )
 
 
-def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict) -> bool:
-    """Store our analysis's result and mark it done; False when the lease was lost."""
+def finish_exploration(session: Session, exploration_id: str, owner: str, result: dict) -> bool:
+    """Store our exploration's result and mark it done; False when the lease was lost."""
     now = utcnow()
     done = _update_ours(
         session,
-        "analysis",
-        analysis_id,
+        "exploration",
+        exploration_id,
         owner,
         status="done",
         result=result,
@@ -477,14 +500,14 @@ def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict
         lease_expires_at=None,
     )
     if done:
-        kind = session.scalar(select(Analysis.kind).where(Analysis.id == analysis_id))
+        row = session.get(Exploration, exploration_id)
         _event(
             session,
-            "analysis",
-            analysis_id,
+            "exploration",
+            exploration_id,
             owner,
-            "analysis_done",
-            analysis=kind,
+            "exploration_done",
+            type=row.type,
             result_sha256=content_hash(result),
         )
     return bool(done)
@@ -492,11 +515,13 @@ def finish_analysis(session: Session, analysis_id: str, owner: str, result: dict
 
 def work_waiting(session: Session) -> bool:
     """True when a published request or rerun waits unclaimed (helpers then make way for it)."""
-    for model in (Request, Rerun):
+    for job in JOB_KINDS.values():
+        if job.needs_result:
+            continue  # explorations are follow-ups: helpers need not make way for them
+        model = job.model
         waiting = session.scalar(
             select(model.id)
-            .where(model.status.in_(_queued_statuses("request" if model is Request else "rerun")))
-            .where(model.published_at.is_not(None))
+            .where(model.status.in_(job.queued), model.published_at.is_not(None))
             .limit(1)
         )
         if waiting is not None:
@@ -506,5 +531,5 @@ def work_waiting(session: Session) -> bool:
 
 def job_status(session: Session, kind: str, job_id: str) -> str | None:
     """Return the job's status (None when there is no such job)."""
-    model = _model(kind)
+    model = job_kind(kind).model
     return session.scalar(select(model.status).where(model.id == job_id))

@@ -1,6 +1,10 @@
-"""SQLAlchemy 2 typed models: requests, results, reruns, analyses, chunk_results, audit_events, api_tokens.
+"""SQLAlchemy 2 typed models: requests, results, reruns, explorations, chunk_results, audit_events, api_tokens.
 
-Table and column names are a contract with the workers (see the shared service contract).
+Table and column names are a contract with the workers (see the shared service contract). Some
+keep the words of the first version (table ``analyses``, its column ``kind`` holding
+'sensitivity' / 'robustness', ``chunk_results.job_kind`` 'analysis', ``requests.design``):
+renaming stored names would need a migration that changes nothing else, so the code maps them
+here, in one place, and every API, record and report word is the new one.
 """
 
 from __future__ import annotations
@@ -43,9 +47,11 @@ REQUEST_STATUSES = (
     "cancelled",
 )
 RERUN_STATUSES = ("queued", "running", "done", "failed")
-ANALYSIS_KINDS = ("sensitivity", "robustness")
-ANALYSIS_STATUSES = ("queued", "running", "done", "failed")
-# Jobs whose simulation chunks are shared through chunk_results.
+# Exploration type (the API's word) -> the value stored in ``analyses.kind`` (and token_spend.kind).
+EXPLORATION_TYPES = {"sensitivity_grid": "sensitivity", "robustness_panel": "robustness"}
+STORED_EXPLORATION_KINDS = tuple(EXPLORATION_TYPES.values())
+EXPLORATION_STATUSES = ("queued", "running", "done", "failed")
+# Jobs whose simulation chunks are shared through chunk_results, as stored in its job_kind column.
 CHUNK_JOB_KINDS = ("request", "rerun", "analysis")
 # Who may do what is decided in service/api/auth.py; the store only keeps the names.
 TOKEN_ROLES = ("intake", "statistician", "auditor", "admin")
@@ -67,7 +73,16 @@ class Base(DeclarativeBase):
     type_annotation_map = {datetime: UTCDateTime(), dict[str, Any]: JSON, Any: JSON}
 
 
-class Request(Base):
+class Leased:
+    """The columns of a job row a worker claims: the outbox marker and the lease (jobs.py)."""
+
+    published_at: Mapped[datetime | None]
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    lease_expires_at: Mapped[datetime | None]
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+
+
+class Request(Leased, Base):
     """A sample-size question submitted for a study protocol, and its progress."""
 
     __tablename__ = "requests"
@@ -96,10 +111,6 @@ class Request(Base):
     submitted_by: Mapped[str] = mapped_column(String(200))
     submitted_at: Mapped[Stamp] = mapped_column(default=utcnow, index=True)
     updated_at: Mapped[Stamp] = mapped_column(default=utcnow)
-    published_at: Mapped[datetime | None]
-    lease_owner: Mapped[str | None] = mapped_column(String(200))
-    lease_expires_at: Mapped[datetime | None]
-    attempts: Mapped[int] = mapped_column(Integer, default=0)
     error: Mapped[str | None] = mapped_column(Text)
     effect_source: Mapped[str | None] = mapped_column(Text)
 
@@ -121,7 +132,7 @@ class Result(Base):
     conflict: Mapped[Any | None] = mapped_column(JSON)
 
 
-class Rerun(Base):
+class Rerun(Leased, Base):
     """A recomputation of a stored question, compared with the original record."""
 
     __tablename__ = "reruns"
@@ -132,10 +143,6 @@ class Rerun(Base):
     status: Mapped[str] = mapped_column(String(16))
     requested_by: Mapped[str] = mapped_column(String(200))
     requested_at: Mapped[Stamp] = mapped_column(default=utcnow)
-    published_at: Mapped[datetime | None]
-    lease_owner: Mapped[str | None] = mapped_column(String(200))
-    lease_expires_at: Mapped[datetime | None]
-    attempts: Mapped[int] = mapped_column(Integer, default=0)
     record: Mapped[Any | None] = mapped_column(JSON)
     record_sha256: Mapped[str | None] = mapped_column(String(64))
     identical: Mapped[bool | None]
@@ -146,32 +153,41 @@ class Rerun(Base):
     error: Mapped[str | None] = mapped_column(Text)
 
 
-class Analysis(Base):
-    """A what-if view of a computed request (sensitivity grid or robustness panel), run as a job."""
+class Exploration(Leased, Base):
+    """A follow-up of a computed request (sensitivity grid or robustness panel), run as a job."""
 
-    __tablename__ = "analyses"
+    __tablename__ = "analyses"  # the first version's name, kept (see the module docstring)
     __table_args__ = (
-        CheckConstraint(_in("kind", ANALYSIS_KINDS), name="kind"),
-        CheckConstraint(_in("status", ANALYSIS_STATUSES), name="status"),
+        CheckConstraint(_in("kind", STORED_EXPLORATION_KINDS), name="kind"),
+        CheckConstraint(_in("status", EXPLORATION_STATUSES), name="status"),
     )
 
     id: Mapped[str] = mapped_column(String(32), primary_key=True)
-    # An analysis means nothing without its request, so it goes when the request goes.
+    # An exploration means nothing without its request, so it goes when the request goes.
     request_id: Mapped[str] = mapped_column(
         ForeignKey("requests.id", ondelete="CASCADE"), index=True
     )
-    kind: Mapped[str] = mapped_column(String(16))
+    stored_kind: Mapped[str] = mapped_column("kind", String(16))
     params: Mapped[Json]
     status: Mapped[str] = mapped_column(String(16))
     requested_by: Mapped[str] = mapped_column(String(200))
     created_at: Mapped[Stamp] = mapped_column(default=utcnow)
-    published_at: Mapped[datetime | None]
-    lease_owner: Mapped[str | None] = mapped_column(String(200))
-    lease_expires_at: Mapped[datetime | None]
-    attempts: Mapped[int] = mapped_column(Integer, default=0)
     result: Mapped[Any | None] = mapped_column(JSON)
     error: Mapped[str | None] = mapped_column(Text)
     finished_at: Mapped[datetime | None]
+
+    @property
+    def type(self) -> str:
+        """The exploration type the API names: 'sensitivity_grid' or 'robustness_panel'."""
+        return exploration_type(self.stored_kind)
+
+
+def exploration_type(stored_kind: str) -> str:
+    """The API's exploration type for a value of ``analyses.kind``."""
+    for name, stored in EXPLORATION_TYPES.items():
+        if stored == stored_kind:
+            return name
+    raise ValueError(f"unknown stored exploration kind {stored_kind!r}")
 
 
 class ChunkResult(Base):
@@ -237,7 +253,7 @@ SPEND_KINDS = ("request", "rerun", "sensitivity", "robustness")
 class TokenSpend(Base):
     """The estimated random draws one token caused: one row per simulation it set going.
 
-    A row is written in the same transaction as the request, rerun or analysis it pays for, after
+    A row is written in the same transaction as the request, rerun or exploration it pays for, after
     the token's row is locked, so the hourly budget is checked and reserved in one step.
     """
 

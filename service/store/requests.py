@@ -95,7 +95,7 @@ def create_request(
         notes=notes,
         question_raw=question_raw,
         question=question,
-        design=question["design"],
+        design=design_key(question),
         method=question["method"],
         seed=simulation.get("seed"),
         progress=0.0,
@@ -112,7 +112,8 @@ def create_request(
         actor=actor,
         action="submitted",
         detail={
-            "design": row.design,
+            "outcome": question["outcome"],
+            "layout": question["layout"],
             "method": row.method,
             "seed": row.seed,
             "status": row.status,
@@ -121,6 +122,11 @@ def create_request(
             "submission_sha256": submission_hash(row),
         },
     )
+
+
+def design_key(question: dict) -> str:
+    """The value of the ``requests.design`` column: ``<outcome>/<layout>`` (filters and lists)."""
+    return f"{question['outcome']}/{question['layout']}"
 
 
 def question_hash(row: Request) -> str:
@@ -163,7 +169,8 @@ def list_requests(
     status: str | None = None,
     protocol_id: str | None = None,
     requester: str | None = None,
-    design: str | None = None,
+    outcome: str | None = None,
+    layout: str | None = None,
     submitted_from: date | None = None,
     submitted_to: date | None = None,
     submitted_by: str | None = None,
@@ -178,8 +185,11 @@ def list_requests(
         conditions.append(Request.protocol_id == protocol_id)
     if requester is not None:
         conditions.append(func.lower(Request.requester_email) == requester.lower())
-    if design is not None:
-        conditions.append(Request.design == design)
+    # The design column holds "<outcome>/<layout>" (design_key).
+    if outcome is not None:
+        conditions.append(Request.design.startswith(f"{outcome}/", autoescape=True))
+    if layout is not None:
+        conditions.append(Request.design.endswith(f"/{layout}", autoescape=True))
     if submitted_by is not None:
         conditions.append(Request.submitted_by == submitted_by)
     if submitted_from is not None:

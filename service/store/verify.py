@@ -3,7 +3,7 @@ row against the event that recorded it.
 
 The chain alone proves that no event was edited or removed from its middle. What it recorded is
 checked here: each event that stores something holds its hash (the 'submitted' event the question
-and submission, 'computed' the result record, 'rerun_done' and 'analysis_done' what they stored,
+and submission, 'computed' the result record, 'rerun_done' and 'exploration_done' what they stored,
 'token_created' a token's role and secret hash) and each event that sets a request's status
 names it. Verification recomputes those hashes from the stored rows (never from a stored hash
 column) and compares. Deleting the newest events leaves a shorter, consistent chain; only an
@@ -28,7 +28,7 @@ from service.engine.records import record_hash
 from service.engine.records import verify as record_self_consistent
 
 from .audit import content_hash, event_hash
-from .models import Analysis, ApiToken, AuditEvent, Request, Rerun, Result
+from .models import ApiToken, AuditEvent, Exploration, Request, Rerun, Result
 from .requests import question_hash, submission_hash
 from .types import utcnow
 
@@ -133,8 +133,8 @@ class _Seen:
     computed: dict[str, AuditEvent] = field(default_factory=dict)
     reruns_requested: dict[str, AuditEvent] = field(default_factory=dict)
     reruns_done: dict[str, AuditEvent] = field(default_factory=dict)
-    analyses_requested: dict[str, AuditEvent] = field(default_factory=dict)
-    analyses_done: dict[str, AuditEvent] = field(default_factory=dict)
+    explorations_requested: dict[str, AuditEvent] = field(default_factory=dict)
+    explorations_done: dict[str, AuditEvent] = field(default_factory=dict)
     tokens_created: dict[str, AuditEvent] = field(default_factory=dict)
     tokens_revoked: dict[str, AuditEvent] = field(default_factory=dict)
 
@@ -148,7 +148,7 @@ def _collect(event: AuditEvent, seen: _Seen) -> None:
     action, request_id = event.action, event.request_id
     if action == "submitted" and request_id:
         seen.submitted.setdefault(request_id, event)
-    if request_id and "status" in detail and detail.get("kind", "request") == "request":
+    if request_id and "status" in detail and detail.get("job", "request") == "request":
         seen.status[request_id] = event  # the newest one wins
     if action == "computed" and request_id and detail.get("result", "stored") == "stored":
         seen.computed.setdefault(request_id, event)
@@ -156,10 +156,10 @@ def _collect(event: AuditEvent, seen: _Seen) -> None:
         seen.reruns_requested[str(detail["rerun_id"])] = event
     if action == "rerun_done" and detail.get("job_id"):
         seen.reruns_done[str(detail["job_id"])] = event
-    if action == "analysis_requested" and detail.get("analysis_id"):
-        seen.analyses_requested[str(detail["analysis_id"])] = event
-    if action == "analysis_done" and detail.get("job_id"):
-        seen.analyses_done[str(detail["job_id"])] = event
+    if action == "exploration_requested" and detail.get("exploration_id"):
+        seen.explorations_requested[str(detail["exploration_id"])] = event
+    if action == "exploration_done" and detail.get("job_id"):
+        seen.explorations_done[str(detail["job_id"])] = event
     if action == "token_created" and detail.get("token_id"):
         seen.tokens_created[str(detail["token_id"])] = event
     if action == "token_revoked" and detail.get("token_id"):
@@ -294,7 +294,7 @@ def _check_jobs(
     session: Session,
     report: Report,
     *,
-    model: type[Rerun] | type[Analysis],
+    model: type[Rerun] | type[Exploration],
     label: str,
     plural: str,
     requested: dict[str, AuditEvent],
@@ -404,11 +404,11 @@ def verify_store(session: Session, anchors: list[Anchor] | None = None) -> Repor
     _check_jobs(
         session,
         report,
-        model=Analysis,
-        label="analysis",
-        plural="analyses",
-        requested=seen.analyses_requested,
-        done=seen.analyses_done,
+        model=Exploration,
+        label="exploration",
+        plural="explorations",
+        requested=seen.explorations_requested,
+        done=seen.explorations_done,
         hash_key="result_sha256",
         digest=lambda row: content_hash(row.result),
     )

@@ -17,7 +17,7 @@ from statsmodels.stats.power import TTestIndPower
 from service import create_app
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
-from service.store.models import Analysis
+from service.store.models import Exploration
 from workers.tasks import run_request_job
 
 
@@ -112,19 +112,16 @@ def test_simulation_question_is_still_queued(live_api, settings):
     assert _task_names(settings) == ["sizewise.run_request"]
 
 
-def test_analyses_posted_with_an_analytic_request_are_handed_to_the_queue(live_api, settings):
-    body = live_api.submit(
-        live_api.request_body(
-            question_body(), analyses={"sensitivity": {"grid": {"effect.difference": [0.4, 0.6]}}}
-        )
-    ).get_json()
+def test_explorations_posted_with_an_analytic_request_are_handed_to_the_queue(live_api, settings):
+    item = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.6]}}
+    body = live_api.submit(live_api.request_body(question_body(), explorations=[item])).get_json()
     assert body["status"] == "computed"
-    (analysis,) = body["analyses"]
-    # The request is computed, so its analysis is published for a worker at once.
-    assert _task_names(settings) == ["sizewise.run_analysis"]
-    assert _messages(settings)[0]["headers"]["argsrepr"] == repr([analysis["id"]])
+    (exploration,) = body["explorations"]
+    # The request is computed, so its exploration is published for a worker at once.
+    assert _task_names(settings) == ["sizewise.run_exploration"]
+    assert _messages(settings)[0]["headers"]["argsrepr"] == repr([exploration["id"]])
     with session_scope(live_api.sessions()) as session:
-        row = session.get(Analysis, analysis["id"])
+        row = session.get(Exploration, exploration["id"])
         assert row.status == "queued" and row.published_at is not None
 
 

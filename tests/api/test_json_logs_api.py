@@ -25,16 +25,16 @@ def log_lines():
 
 
 def test_the_request_line_carries_the_returned_request_id(client, log_lines):
-    reply = client.get("/v1/designs", headers={"X-Request-Id": "ngh-cro.trace-0007"})
+    reply = client.get("/v1/catalogue", headers={"X-Request-Id": "ngh-cro.trace-0007"})
     assert reply.headers["X-Request-Id"] == "ngh-cro.trace-0007"
     lines = [line for line in log_lines() if line["logger"] == "service.api.requests"]
     assert len(lines) == 1, lines
     line = lines[0]
     assert line["request_id"] == "ngh-cro.trace-0007"
-    assert line["message"].startswith("GET /v1/designs 200 ")
+    assert line["message"].startswith("GET /v1/catalogue 200 ")
     assert line["level"] == "INFO" and line["time"].endswith("+00:00")
     # A generated id is the one returned and the one logged.
-    reply = client.get("/v1/designs")
+    reply = client.get("/v1/catalogue")
     assert log_lines()[-1]["request_id"] == reply.headers["X-Request-Id"]
 
 

@@ -42,11 +42,11 @@ def test_metrics_need_an_admin_token(client, auth, anon_client):
 
 
 def test_every_response_carries_a_request_id(client, anon_client):
-    mine = client.get("/v1/designs", headers={"X-Request-Id": "ngh-cro.trace:42"})
+    mine = client.get("/v1/catalogue", headers={"X-Request-Id": "ngh-cro.trace:42"})
     assert mine.headers["X-Request-Id"] == "ngh-cro.trace:42"  # a well-formed id is kept
-    new = client.get("/v1/designs")
+    new = client.get("/v1/catalogue")
     assert len(new.headers["X-Request-Id"]) == 32
-    bad = client.get("/v1/designs", headers={"X-Request-Id": "no spaces allowed"})
+    bad = client.get("/v1/catalogue", headers={"X-Request-Id": "no spaces allowed"})
     assert bad.headers["X-Request-Id"] not in ("no spaces allowed", new.headers["X-Request-Id"])
     # Refusals carry one too.
-    assert len(anon_client.get("/v1/designs").headers["X-Request-Id"]) == 32
+    assert len(anon_client.get("/v1/catalogue").headers["X-Request-Id"]) == 32

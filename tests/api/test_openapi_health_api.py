@@ -64,56 +64,116 @@ def test_readyz_503_when_redis_is_unreachable(settings):
     assert r.get_json()["checks"]["broker"].startswith("unreachable")
 
 
-def test_designs_catalogue(client):
-    from service.engine import DESIGN_NAMES, TESTS
+def test_catalogue_lists_every_cell_with_its_analyses(client):
+    from service.engine import designs
 
-    r = client.get("/v1/designs")
+    r = client.get("/v1/catalogue")
     assert r.status_code == 200
-    body = r.get_json()
-    text = r.get_data(as_text=True)
-    for name in DESIGN_NAMES:
-        assert name in text
-        for test in TESTS[name]:
-            assert test in text
-    assert body
+    cells = r.get_json()["cells"]
+    assert [(c["outcome"], c["layout"]) for c in cells] == [
+        (d.outcome, d.layout) for d in designs.all()
+    ]
+    for cell, design in zip(cells, designs.all(), strict=True):
+        assert [a["name"] for a in cell["analyses"]] == [a.name for a in design.analyses]
+        assert cell["label"] == design.label and cell["fields"]
+
+
+def test_question_json_schema_is_served_and_validates_the_catalogue_examples(client):
+    import jsonschema
+
+    r = client.get("/v1/catalogue/question.schema.json")
+    assert r.status_code == 200 and r.mimetype == "application/schema+json"
+    schema = r.get_json()
+    jsonschema.Draft202012Validator.check_schema(schema)
+    check = jsonschema.Draft202012Validator(schema)
+    for cell in client.get("/v1/catalogue").get_json()["cells"]:
+        assert list(check.iter_errors(cell["example"])) == [], cell["name"]
+
+
+def test_openapi_question_component_is_the_generated_schema(client):
+    spec = client.get("/openapi.json").get_json()
+    question = spec["components"]["schemas"]["Question"]
+    assert "continuous" in question["properties"]["outcome"]["enum"]
+    assert "welch_t" in question["properties"]["analysis"]["enum"]
+    for body in ("RequestCreate", "CalculationCreate"):
+        member = spec["components"]["schemas"][body]["properties"]["question"]
+        assert member["$ref"] == "#/components/schemas/Question"
+
+
+TWO = {"outcome": "continuous", "layout": "two_groups"}
 
 
 def _calc(client, question: dict):
     return client.post("/v1/calculations", json={"question": question})
 
 
-def test_calculation_two_means_sample_size(client):
+def test_calculation_two_groups_sample_size(client):
     r = _calc(
         client,
-        {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1}},
+        {**TWO, "find": "sample_size", "effect": {"difference": 0.5}, "assumptions": {"sd": 1}},
     )
     assert r.status_code == 200
     # Cohen (1988), Table 2.4.1: d = 0.5, two-sided alpha .05, power .80 -> 64 per group.
-    assert r.get_json()["sample_size"]["per_arm"] == [64, 64]
+    assert r.get_json()["sample_size"]["per_group"] == [64, 64]
     # statsmodels solves the same noncentral t: 63.77 per group (Cohen 1988, Table 2.4.1: 64; recomputed).
     raw = TTestIndPower().solve_power(effect_size=0.5, alpha=0.05, power=0.8)
-    assert r.get_json()["sample_size"]["steps"][0]["per_arm_raw"][0] == pytest.approx(raw, abs=0.01)
+    step = r.get_json()["sample_size"]["steps"][0]
+    assert step["per_group_raw"][0] == pytest.approx(raw, abs=0.01)
 
 
 def test_calculation_correlation_sample_size(client):
-    r = _calc(client, {"design": "correlation", "find": "sample_size", "effect": {"r": 0.3}})
+    r = _calc(
+        client,
+        {"outcome": "association", "layout": "single_group", "effect": {"r": 0.3}},
+    )
     # Cohen (1988), Table 3.4.1: r = 0.3, two-sided alpha .05, power .80 -> 85 (Fisher z).
     sample_size = r.get_json()["sample_size"]
     assert sample_size["total"] == 85
     # formula: n = ((z.975 + z.80) / atanh r)^2 + 3 = 84.93, with scipy's normal quantiles.
     z = stats.norm.ppf
     fisher = ((z(0.975) + z(0.8)) / math.atanh(0.3)) ** 2 + 3
-    assert sample_size["steps"][0]["per_arm_raw"][0] == pytest.approx(fisher, abs=0.01)
+    assert sample_size["steps"][0]["per_group_raw"][0] == pytest.approx(fisher, abs=0.01)
+
+
+def test_calculation_takes_the_same_document_as_compute_and_a_request(client, api):
+    import json
+    from pathlib import Path
+
+    path = (
+        Path(__file__).resolve().parents[2] / "service" / "examples" / "northbridge_bp_trial.json"
+    )
+    question = json.loads(path.read_text())
+    calculated = _calc(client, question).get_json()
+    submitted = api.post("/v1/requests", api.request_body(question)).get_json()
+    assert submitted["question"] == calculated["question"]
+
+
+@pytest.mark.parametrize(
+    "changes, field",
+    [
+        # power 0.8 is out of reach below 1e9 per group: the engine refuses the effect
+        ({"effect": {"difference": 1e-7}}, "question.effect.difference"),
+        # the noncentral t overflows: the engine fails on the field of extreme magnitude
+        ({"assumptions": {"sd": 1e-150}}, "question.assumptions.sd"),
+    ],
+)
+def test_a_question_the_engine_refuses_is_a_422_naming_the_field(client, changes, field):
+    question = {**TWO, "effect": {"difference": 1.0}, "assumptions": {"sd": 1.0}, **changes}
+    r = _calc(client, question)
+    body = r.get_json()
+    assert r.status_code == 422, body
+    assert body["title"] != "Cannot answer" and list(body["errors"]) == [field]
 
 
 def test_simulation_is_refused_and_pointed_to_requests(client):
     r = _calc(
         client,
         {
-            "design": "two_means",
+            **TWO,
             "find": "power",
-            "sample_size": {"per_arm": [30, 30]},
-            "effect": {"difference": 0.5, "sd": 1},
+            "sample_size": {"per_group": [30, 30]},
+            "effect": {"difference": 0.5},
+            "assumptions": {"sd": 1},
             "method": "simulation",
         },
     )

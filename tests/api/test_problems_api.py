@@ -29,9 +29,11 @@ BODY_ENDPOINTS = [
         "/v1/calculations",
         {
             "question": {
-                "design": "two_means",
+                "outcome": "continuous",
+                "layout": "two_groups",
                 "find": "sample_size",
-                "effect": {"difference": 0.5, "sd": 1},
+                "effect": {"difference": 0.5},
+                "assumptions": {"sd": 1},
             }
         },
     ),
@@ -107,7 +109,9 @@ def test_unknown_id_on_reads(client, path):
     "query,field",
     [
         ("status=done", "query.status"),
-        ("design=two_medians", "query.design"),
+        ("outcome=two_medians", "query.outcome"),
+        ("layout=crossover", "query.layout"),
+        ("cell=continuous", "query.cell"),
         ("requester=not-an-email", "query.requester"),
         ("submitted_from=yesterday", "query.submitted_from"),
         ("submitted_from=2025-03-02&submitted_to=2025-03-01", "query.submitted_to"),
@@ -123,7 +127,15 @@ def test_bad_list_query(client, query, field):
     assert list(errors) == [field]
 
 
-@pytest.mark.parametrize("path", ["/v1/designs", "/v1/requests/{id}", "/v1/requests/{id}/reruns"])
+@pytest.mark.parametrize(
+    "path",
+    [
+        "/v1/catalogue",
+        "/v1/catalogue/question.schema.json",
+        "/v1/requests/{id}",
+        "/v1/requests/{id}/reruns",
+    ],
+)
 def test_query_on_endpoints_without_parameters(client, request_id, path):
     r = client.get(path.format(id=request_id) + "?verbose=1")
     assert _is_problem(r, 422)["errors"] == {"query.verbose": ["unknown parameter"]}
@@ -137,8 +149,9 @@ def test_question_errors_are_keyed_under_question(api):
 
 def test_one_sided_direction_against_the_effect_is_refused_on_its_field(api):
     question = api.question_body(
-        sides=1,
-        effect={"difference": -5.0, "sd": 12.0},
+        alternative="one-sided",
+        effect={"difference": -5.0},
+        assumptions={"sd": 12.0},
         hypothesis={"higher_is_better": True},
     )
     errors = _is_problem(api.client.post("/v1/requests", json=api.request_body(question)), 422)[

@@ -12,12 +12,10 @@ from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Request
 
-QUESTION = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1.0}}
-
 
 def _computed(api) -> str:
     """Submit a request and store its engine record as a worker would."""
-    request_id = api.submit(api.request_body(QUESTION)).get_json()["id"]
+    request_id = api.submit(api.request_body()).get_json()["id"]
     with session_scope(api.sessions()) as s:
         question = s.get(Request, request_id).question
         assert jobs.claim(s, "request", request_id, "worker-test", 60, 3)
@@ -35,7 +33,7 @@ def test_report_page_tells_the_whole_story(client, api):
     # published 64 per group: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided .05, power .80)
     assert "64" in page and "128" in page
     assert "<svg" in page and "statistician" in page.lower()
-    record = compute(load_question(QUESTION))
+    record = compute(load_question(api.question_body()))
     assert record["reproducibility"]["record_sha256"] in page
 
 
@@ -46,12 +44,15 @@ def test_curve_svg_and_png(client, api):
     root = ET.fromstring(svg.get_data(as_text=True))
     gids = {el.get("id") for el in root.iter()}
     assert {"target-line", "chosen-n"} <= gids
+    # the standalone drawing says what it shows and under which assumptions
+    drawn = " ".join(" ".join(root.itertext()).split())
+    assert "with the chosen size marked" in drawn and "Continuous outcome, two groups" in drawn
     png = client.get(f"/v1/requests/{request_id}/curve.png")
     assert png.status_code == 200 and png.data[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_report_before_a_result_is_a_conflict(client, api):
-    request_id = api.submit(api.request_body(QUESTION)).get_json()["id"]
+    request_id = api.submit(api.request_body()).get_json()["id"]
     r = client.get(f"/v1/requests/{request_id}/report")
     assert r.status_code == 409 and r.mimetype == "application/problem+json"
     assert "no result yet" in r.get_json()["detail"]
@@ -64,6 +65,7 @@ def test_staff_list_shows_status(client, api):
     assert r.status_code == 200 and r.mimetype == "text/html"
     page = r.get_data(as_text=True)
     assert request_id in page and "computed" in page
+    assert "Continuous outcome, two groups" in page and "two_groups" not in page
     assert client.get("/v1/staff/requests?status=bogus").status_code == 422
 
 
@@ -97,7 +99,7 @@ def test_a_report_link_opens_nothing_else(anon_client, api):
     token = _link(api, request_id).split("link=", 1)[1]
     for path in (
         f"/v1/requests/{request_id}",
-        f"/v1/requests/{request_id}/analyses",
+        f"/v1/requests/{request_id}/explorations",
         "/v1/requests",
     ):
         r = anon_client.get(f"{path}?link={token}")

@@ -17,8 +17,12 @@ def test_submit_stores_then_queues(api, settings):
     body = response.get_json()
     assert response.headers["Location"] == f"/v1/requests/{body['id']}"
     assert body["status"] == "queued" and body["published_at"] is not None
-    assert body["question"]["effect"] == {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}
-    assert body["question_submitted"]["effect"] == {"difference": 0.5, "sd": 1.0}
+    # The normalized question keeps what was entered and fills the defaults (VOCAB §3).
+    assert body["question"]["effect"] == {"difference": 0.5}
+    assert body["question"]["assumptions"] == {"sd": 1.0}
+    assert body["question"]["analysis"] == "pooled_t"
+    assert body["question_submitted"] == api.question_body()
+    assert (body["outcome"], body["layout"]) == ("continuous", "two_groups")
     assert body["result"] is None and body["seed"] is None
     assert [e["action"] for e in body["history"]] == ["submitted", "published"]
     assert body["history"][0]["actor"] == "a.okafor (intake)"
@@ -31,7 +35,7 @@ def test_submit_stores_then_queues(api, settings):
 def test_simulation_request_gets_a_stored_seed(api):
     question = api.question_body(
         find="power",
-        sample_size={"per_arm": [30, 30]},
+        sample_size={"per_group": [30, 30]},
         method="simulation",
         simulation={"replicates": 1000},
     )
@@ -45,7 +49,7 @@ def test_simulation_request_gets_a_stored_seed(api):
 def test_posted_seed_is_kept(api):
     question = api.question_body(
         find="power",
-        sample_size={"per_arm": [30, 30]},
+        sample_size={"per_group": [30, 30]},
         method="simulation",
         simulation={"replicates": 1000, "seed": 20250611},
     )
@@ -74,7 +78,7 @@ def _submit_variants(api) -> dict[str, str]:
     ids = {}
     ids["a"] = api.submit().get_json()["id"]
     other = api.request_body(
-        api.question_body(design="correlation", effect={"r": 0.3}),
+        {"outcome": "association", "layout": "single_group", "effect": {"r": 0.3}},
         protocol={"id": "NGH-2025-044", "title": "Grip strength and frailty"},
         requester={
             "name": "Dr. Lin Park",
@@ -96,7 +100,10 @@ def test_list_filters(api):
         return {item["id"] for item in response.get_json()["items"]}
 
     assert listed("protocol_id=NGH-2025-044") == {ids["b"]}
-    assert listed("design=correlation") == {ids["b"]}
+    assert listed("outcome=association") == {ids["b"]}
+    assert listed("layout=two_groups") == {ids["a"], ids["c"]}
+    assert listed("outcome=continuous&layout=two_groups") == {ids["a"], ids["c"]}
+    assert listed("outcome=association&layout=two_groups") == set()
     assert listed("requester=A.Okafor@northbridge-general.example") == {ids["a"], ids["c"]}
     assert listed("status=queued") == set(ids.values())
     assert listed("status=computed") == set()

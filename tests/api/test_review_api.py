@@ -31,7 +31,7 @@ def test_computed_request_shows_the_engine_record_unchanged(api):
     body = api.client.get(f"/v1/requests/{request_id}").get_json()
     assert body["status"] == "computed" and body["progress"] == 1.0
     # Cohen (1988), Table 2.4.1: d = 0.5, two-sided alpha .05, power .80 -> 64 per group.
-    assert body["result"]["sample_size"]["per_arm"] == [64, 64]
+    assert body["result"]["sample_size"]["per_group"] == [64, 64]
     assert body["result"] == compute(body["question"])
 
 

@@ -1,7 +1,7 @@
 """Engine benchmarks: run with ``python -m tests.bench.bench_engine``; prints ratios from one run.
 
 Goals (not asserted: the machine is shared): (1) vectorized Welch ≥ 200× a per-replicate
-scipy loop; (2) full Welch path ≤ 1.5× just drawing the data; (3) sufficient statistics ≥ 10×
+scipy loop; (2) full Welch path ≤ 1.5× just drawing the data; (3) summary statistics ≥ 10×
 the raw-data path; (4) a simulated solve (d = 0.5, 80%, ≥ 10,000 replicates) ≤ 0.3 s;
 (5) peak memory of a large raw-data simulation ≤ 256 MB and flat in the replicate count;
 (6) analytic ``compute`` ≤ 1 ms and ≥ 2× faster than statsmodels' ``solve_power`` (same question);
@@ -13,6 +13,7 @@ log-rank ≤ 5× their draw floors, Welch ≤ 1.5× (as in (2)).
 
 from __future__ import annotations
 
+import dataclasses
 import time
 import tracemalloc
 
@@ -20,9 +21,14 @@ import numpy as np
 from scipy import stats
 
 from service.engine import simulate
+from service.engine.chunks import run_chunk
+from service.engine.plan import make_plan
+from service.engine.runner import make_task
 from tests.engine.questions import make_q
 
-N = 64  # per arm
+N = 64  # per group
+TWO_GROUPS = ("continuous", "two_groups")
+ORDINAL = ("ordinal", "two_groups")
 LOGNORMAL = {
     "control": {"family": "lognormal", "mu": 0.0, "sigma": 0.5},
     "treatment": {"family": "lognormal", "mu": 0.2, "sigma": 0.5},
@@ -39,28 +45,29 @@ def best(fn, repeat: int = 5) -> float:
     return min(times)
 
 
-def question(find: str, test: str, data: dict | None, replicates: int) -> dict:
-    """A normalized two-means simulation question (Northbridge demo numbers: d = 0.5)."""
-    simulation = {
-        "replicates": replicates,
-        "seed": 1,
-        "test": test,
-        "data": data,
-        "chunk_size": 10000,
-    }
-    per_arm = [N, N] if find == "power" else None
-    return make_q("two_means", find=find, simulation=simulation, per_arm=per_arm)
-
-
-def chunk_time(test: str, data: dict | None, reps: int, *, sufficient: bool | None = None) -> float:
-    """Best seconds for run_chunk over ``reps`` replicates of the given test and data."""
-    plan = simulate.plan(question("power", test, data, reps), 0.05)
-    if sufficient is not None:
-        plan["sufficient"] = sufficient
-    task = simulate.make_task(
-        plan, [N, N], stream=0, chunk=0, chunk_size=reps, replicates=reps, seed=1
+def question(find: str, analysis: str, data: dict | None, replicates: int) -> dict:
+    """A normalized two-group simulation question (Northbridge demo numbers: d = 0.5)."""
+    simulation = {"replicates": replicates, "seed": 1, "data": data, "chunk_size": 10000}
+    per_group = [N, N] if find == "power" else None
+    return make_q(
+        "continuous",
+        "two_groups",
+        analysis=analysis,
+        find=find,
+        simulation=simulation,
+        per_group=per_group,
     )
-    return best(lambda: simulate.run_chunk(dict(task)))
+
+
+def chunk_time(
+    analysis: str, data: dict | None, reps: int, *, summaries: bool | None = None
+) -> float:
+    """Best seconds for run_chunk over ``reps`` replicates of the given analysis and data."""
+    plan = make_plan(question("power", analysis, data, reps), 0.05)
+    if summaries is not None:
+        plan = dataclasses.replace(plan, summaries=summaries)
+    task = make_task(plan, [N, N], stream=0, chunk=0, chunk_size=reps, replicates=reps, seed=1)
+    return best(lambda: run_chunk(dict(task)))
 
 
 def main() -> None:
@@ -89,31 +96,31 @@ def main() -> None:
         f"{t_welch * 1e6:6.3f} µs/rep; ratio {t_welch / t_draw:5.2f} (goal ≤ 1.5)"
     )
 
-    for test in ("student_t", "welch_t"):
-        t_raw = chunk_time(test, None, reps, sufficient=False) / reps
-        t_suff = chunk_time(test, None, reps, sufficient=True) / reps
+    for analysis in ("pooled_t", "welch_t"):
+        t_raw = chunk_time(analysis, None, reps, summaries=False) / reps
+        t_suff = chunk_time(analysis, None, reps, summaries=True) / reps
         print(
-            f"(3) normal {test}: raw data {t_raw * 1e6:6.3f} µs/rep; sufficient statistics "
+            f"(3) normal {analysis}: raw data {t_raw * 1e6:6.3f} µs/rep; summary statistics "
             f"{t_suff * 1e6:6.3f} µs/rep; speed-up {t_raw / t_suff:5.1f}× (goal ≥ 10×)"
         )
 
-    q = question("sample_size", "student_t", None, 10000)
+    q = question("sample_size", "pooled_t", None, 10000)
     q["simulation"]["chunk_size"] = 1000
     out = {}
 
     def solve():
-        out.update(simulate.answer(q, 0.05, per_arm=None, start=None))
+        out.update(simulate.answer(q, 0.05, per_group=None, start=None))
 
     t_solve = best(solve)
     print(
         f"(4) simulated solve d = 0.5, power .80, 10,000 replicates at the answer: {t_solve:.3f} s "
-        f"(goal ≤ 0.3 s) → {out['per_arm']} per arm, power {out['power']['estimate']:.4f}, "
+        f"(goal ≤ 0.3 s) → {out['per_group']} per group, power {out['power']['estimate']:.4f}, "
         f"{len(out['search']['candidates'])} search candidates"
     )
 
 
 MEMORY_GOAL_MB = 256
-BIG_N = 2000  # per arm
+BIG_N = 2000  # per group
 
 
 def peak_mb(q: dict) -> tuple[float, float]:
@@ -122,7 +129,7 @@ def peak_mb(q: dict) -> tuple[float, float]:
     tracemalloc.reset_peak()
     t0 = time.perf_counter()
     try:
-        simulate.answer(q, 0.05, per_arm=q["sample_size"]["per_arm"])
+        simulate.answer(q, 0.05, per_group=q["sample_size"]["per_group"])
         _, peak = tracemalloc.get_traced_memory()
     finally:
         tracemalloc.stop()
@@ -132,18 +139,17 @@ def peak_mb(q: dict) -> tuple[float, float]:
 def memory() -> None:
     """Print the peak memory of large raw-data simulations at two replicate counts."""
     cases = [
-        ("two_means welch_t, lognormal raw data", "two_means", "welch_t", (20_000, 200_000)),
+        ("two groups welch_t, lognormal raw data", TWO_GROUPS, "welch_t", (20_000, 200_000)),
         # The rank-sum path assembles (rows, n) arrays and sorts them: the sub-batch cap matters.
-        ("rank_sum, lognormal raw data", "rank_sum", "rank_sum", (2_000, 10_000)),
+        ("rank_sum, lognormal raw data", ORDINAL, "rank_sum", (2_000, 10_000)),
     ]
-    for label, design, test, counts in cases:
+    for label, cell, analysis, counts in cases:
         for reps in counts:
-            simulation = {"replicates": reps, "seed": 1, "test": test, "data": LOGNORMAL}
-            simulation["chunk_size"] = 10000
-            q = make_q(design, per_arm=[BIG_N, BIG_N], simulation=simulation)
+            simulation = {"replicates": reps, "seed": 1, "data": LOGNORMAL, "chunk_size": 10000}
+            q = make_q(*cell, analysis=analysis, per_group=[BIG_N, BIG_N], simulation=simulation)
             mb, seconds = peak_mb(q)
             print(
-                f"(5) {label}, n = {BIG_N:,} per arm, {reps:,} replicates: peak {mb:6.1f} MB, "
+                f"(5) {label}, n = {BIG_N:,} per group, {reps:,} replicates: peak {mb:6.1f} MB, "
                 f"{mb / MEMORY_GOAL_MB:5.3f} of the {MEMORY_GOAL_MB} MB goal ({seconds:.1f} s)"
             )
 
@@ -185,17 +191,20 @@ def search_replicates() -> None:
     from service.engine import compute
 
     for n in (20, 200, 2000):
-        d = (1.959964 + 0.841621) * math.sqrt(2 / n)  # z approximation: n per arm
+        d = (1.959964 + 0.841621) * math.sqrt(2 / n)  # z approximation: n per group
         ratios, answers = [], []
         for seed in SEARCH_SEEDS:
             q = make_q(
-                "two_means",
-                effect={"difference": d, "sd_control": 1.0, "sd_treatment": 1.0},
-                simulation={"seed": seed, "test": "student_t"},
+                "continuous",
+                "two_groups",
+                effect={"difference": d},
+                assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+                analysis="pooled_t",
+                simulation={"seed": seed},
             )
             block = compute(q)["search"]["replicates_run"]
             ratios.append(block["total"] / block["minimum"])
-            answers.append(compute(q)["sample_size"]["per_arm"][0])
+            answers.append(compute(q)["sample_size"]["per_group"][0])
         print(
             f"(7) n search at n ≈ {n:,} (10,000 replicates, seeds {SEARCH_SEEDS[0]}–"
             f"{SEARCH_SEEDS[-1]}): replicates run / minimum "
@@ -208,24 +217,24 @@ def kernel_floors() -> None:
     """(8) Print each kernel's time per replicate over the time of drawing its data with numpy."""
     reps = 20000
 
-    def chunk(design, test, per_arm, data=None):
-        simulation = {"seed": 1, "test": test, "data": data, "replicates": reps}
-        q = make_q(design, per_arm=per_arm, simulation={**simulation, "chunk_size": reps})
-        plan = simulate.plan(q, 0.05)
-        task = simulate.make_task(
-            plan, list(per_arm), stream=0, chunk=0, chunk_size=reps, replicates=reps, seed=1
+    def chunk(cell, analysis, per_group, data=None):
+        simulation = {"seed": 1, "data": data, "replicates": reps, "chunk_size": reps}
+        q = make_q(*cell, analysis=analysis, per_group=per_group, simulation=simulation)
+        plan = make_plan(q, 0.05)
+        task = make_task(
+            plan, list(per_group), stream=0, chunk=0, chunk_size=reps, replicates=reps, seed=1
         )
-        return best(lambda: simulate.run_chunk(dict(task))), task
+        return best(lambda: run_chunk(dict(task))), task
 
     cases = []
-    t, task = chunk("two_proportions", "z_test", (300, 300))
-    ps = [a["p"] for a in task["arms"]]
+    t, task = chunk(("binary", "two_groups"), "pooled_z", (300, 300))
+    ps = [m["p"] for m in task["models"]]
     floor = best(lambda: [np.random.default_rng(2).binomial(300, p, reps) for p in ps])
-    cases.append(("two proportions (z, 300/arm; floor: numpy binomial counts)", t, floor, 2.0))
-    t, task = chunk("rank_sum", "rank_sum", (N, N), LOGNORMAL)
+    cases.append(("two proportions (z, 300/group; floor: numpy binomial counts)", t, floor, 2.0))
+    t, task = chunk(ORDINAL, "rank_sum", (N, N), LOGNORMAL)
     floor = best(lambda: np.random.default_rng(2).lognormal(0.0, 0.5, (reps, 2 * N)))
-    cases.append(("rank-sum (lognormal, 64/arm; floor: the 128 lognormals)", t, floor, 2.0))
-    t, task = chunk("survival_logrank", "logrank", (150, 150))
+    cases.append(("rank-sum (lognormal, 64/group; floor: the 128 lognormals)", t, floor, 2.0))
+    t, task = chunk(("time_to_event", "two_groups"), "logrank", (150, 150))
 
     def survival_draws():
         g = np.random.default_rng(2)
@@ -233,10 +242,10 @@ def kernel_floors() -> None:
         g.random((reps, 300))
 
     floor = best(survival_draws)
-    cases.append(("log-rank (150/arm; floor: event and entry times)", t, floor, 5.0))
-    t, _ = chunk("two_means", "welch_t", (N, N), LOGNORMAL)
+    cases.append(("log-rank (150/group; floor: event and entry times)", t, floor, 5.0))
+    t, _ = chunk(TWO_GROUPS, "welch_t", (N, N), LOGNORMAL)
     floor = best(lambda: np.random.default_rng(2).lognormal(0.0, 0.5, (reps, 2 * N)))
-    cases.append(("Welch (lognormal, 64/arm; floor: the 128 lognormals)", t, floor, 1.5))
+    cases.append(("Welch (lognormal, 64/group; floor: the 128 lognormals)", t, floor, 1.5))
     for label, t, floor, goal in cases:
         print(
             f"(8) {label}: {t / reps * 1e6:7.3f} µs/rep, floor {floor / reps * 1e6:7.3f} µs/rep; "

@@ -38,15 +38,23 @@ CONCURRENCY = 8
 WRK_THREADS, WRK_SECONDS = 2, 5
 QUICK = "--quick" in sys.argv[1:]
 
-ANALYTIC = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1.0}}
+ANALYTIC = {
+    "outcome": "continuous",
+    "layout": "two_groups",
+    "find": "sample_size",
+    "effect": {"difference": 0.5},
+    "assumptions": {"sd": 1.0},
+}
 
 
 def simulation(replicates: int, seed: int) -> dict:
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [64, 64]},
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "sample_size": {"per_group": [64, 64]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
         "method": "simulation",
         "simulation": {"replicates": replicates, "seed": seed, "chunk_size": 1000},
     }

@@ -114,17 +114,20 @@ def test_ask_for_a_sensitivity_grid_and_a_robustness_panel(desk, desk_api):
     request_id = desk_api.submit().get_json()["id"]
     d = desk("statistician")
     r = _post(
-        d, request_id, "explore", {"kind": "sensitivity", "path": "alpha", "values": "0.05, 0.01"}
+        d,
+        request_id,
+        "explore",
+        {"type": "sensitivity_grid", "path": "alpha", "values": "0.05, 0.01"},
     )
     assert r.status_code == 302
-    assert _post(d, request_id, "explore", {"kind": "robustness"}).status_code == 302
+    assert _post(d, request_id, "explore", {"type": "robustness_panel"}).status_code == 302
     items = desk_api.client.get(
-        f"/v1/requests/{request_id}/analyses", headers=desk_api.tokens.headers("statistician")
+        f"/v1/requests/{request_id}/explorations", headers=desk_api.tokens.headers("statistician")
     ).get_json()["items"]
-    assert [a["kind"] for a in items] == ["sensitivity", "robustness"]
+    assert [e["type"] for e in items] == ["sensitivity_grid", "robustness_panel"]
     assert items[0]["params"]["grid"] == {"alpha": [0.05, 0.01]}
     bad = _post(
-        d, request_id, "explore", {"kind": "sensitivity", "path": "alpha", "values": "a, b"}
+        d, request_id, "explore", {"type": "sensitivity_grid", "path": "alpha", "values": "a, b"}
     )
     assert bad.status_code == 422 and "numbers separated by commas" in bad.get_data(as_text=True)
 

@@ -32,21 +32,29 @@ def test_analytic_and_simulated_requests_flow_through_sqlite_and_the_folder_brok
     # Table 2.4.1; recomputed with statsmodels TTestIndPower.solve_power -> 63.77, ceiling 64).
     raw_n = TTestIndPower().solve_power(effect_size=0.5, power=0.8, alpha=0.05, ratio=1.0)
     analytic = stack.submit(
-        {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1.0}}
+        {
+            "outcome": "continuous",
+            "layout": "two_groups",
+            "find": "sample_size",
+            "effect": {"difference": 0.5},
+            "assumptions": {"sd": 1.0},
+        }
     )
     simulated = stack.submit(
         {
-            "design": "two_means",
+            "outcome": "continuous",
+            "layout": "two_groups",
             "find": "power",
-            "sample_size": {"per_arm": [30, 30]},
-            "effect": {"difference": 0.5, "sd": 1.0},
+            "sample_size": {"per_group": [30, 30]},
+            "effect": {"difference": 0.5},
+            "assumptions": {"sd": 1.0},
             "method": "simulation",
             "simulation": {"replicates": 3000, "seed": 424242, "chunk_size": 500},
         }
     )
     body = stack.wait(analytic, worker=worker)
     assert body["status"] == "computed", body["error"]
-    assert body["result"]["sample_size"]["per_arm"] == [64, 64]
+    assert body["result"]["sample_size"]["per_group"] == [64, 64]
     assert round(raw_n, 2) == 63.77
     body = stack.wait(simulated, worker=worker)
     assert body["status"] == "computed", body["error"]

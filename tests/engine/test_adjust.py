@@ -18,28 +18,34 @@ from tests.engine.questions import make_q
     ],
 )
 def test_dropout_divides_by_retention(n, rate, expected):
-    final, steps, _ = adjust.inflate([float(n)], make_q("two_means", adjustments={"dropout": rate}))
+    final, steps = adjust.inflate(
+        [float(n)], make_q("continuous", "two_groups", adjustments={"dropout": rate})
+    )
     assert final == [expected]
-    assert steps[-1] == {"step": "dropout", "rate": rate, "per_arm": [expected]}
+    assert steps[-1] == {"step": "dropout", "rate": rate, "per_group": [expected]}
     assert final[0] * (1 - rate) >= n
 
 
 def test_steps_are_ordered_base_dropout():
     # common practice, no source: rounding to whole subjects first, dropout last
-    final, steps, _ = adjust.inflate([124.3], make_q("two_means", adjustments={"dropout": 0.2}))
+    final, steps = adjust.inflate(
+        [124.3], make_q("continuous", "two_groups", adjustments={"dropout": 0.2})
+    )
     assert [s["step"] for s in steps] == ["base", "dropout"]
     assert final == [157]  # 125 / 0.8 = 156.25 → 157
 
 
 def test_ceiling_ignores_floating_noise():
     # common practice, no source: 64.0000000001 from floating error is 64, 64.01 is 65
-    assert adjust.inflate([64.0000000001, 64.01], make_q("two_means"))[0] == [64, 65]
+    assert adjust.inflate([64.0000000001, 64.01], make_q("continuous", "two_groups"))[0] == [64, 65]
 
 
 def test_bonferroni():
     # formula: Bonferroni, alpha / k
-    assert adjust.alpha_for(make_q("two_means")) == (0.05, None)
-    alpha, step = adjust.alpha_for(make_q("two_means", adjustments={"comparisons": 4}))
+    assert adjust.alpha_for(make_q("continuous", "two_groups")) == (0.05, None)
+    alpha, step = adjust.alpha_for(
+        make_q("continuous", "two_groups", adjustments={"comparisons": 4})
+    )
     assert alpha == pytest.approx(0.0125)
     assert step == {
         "step": "bonferroni",
@@ -51,15 +57,17 @@ def test_bonferroni():
 
 def test_deflate_reverses_inflate():
     # common practice, no source: 80 enrolled with 20% dropout leave 64 analysable
-    effective, steps = adjust.deflate([80, 80], make_q("two_means", adjustments={"dropout": 0.2}))
+    effective, steps = adjust.deflate(
+        [80, 80], make_q("continuous", "two_groups", adjustments={"dropout": 0.2})
+    )
     assert effective == pytest.approx([64.0, 64.0])
     assert [s["step"] for s in steps] == ["enrolled", "dropout"]
 
 
 def test_deflate_without_adjustments_is_identity():
     # common practice, no source
-    effective, steps = adjust.deflate([30, 45], make_q("two_means"))
-    assert effective == [30.0, 45.0] and steps == [{"step": "enrolled", "per_arm": [30, 45]}]
+    effective, steps = adjust.deflate([30, 45], make_q("continuous", "two_groups"))
+    assert effective == [30.0, 45.0] and steps == [{"step": "enrolled", "per_group": [30, 45]}]
 
 
 @pytest.mark.parametrize(

@@ -26,11 +26,11 @@ from tests.engine.questions import answer, make_q
     ],
 )
 def test_anova_cohen_table(k, f, raw, ceil):
-    q = make_q("anova_oneway", effect={"cohens_f": f, "groups": k})
+    q = make_q("continuous", "k_groups", effect={"cohens_f": f}, assumptions={"group_count": k})
     got_raw, got = answer(q)
     assert got_raw[0] == pytest.approx(raw, abs=0.01)
     assert got == [ceil] * k
-    assert get("anova_oneway").allocation(q) == [1.0] * k
+    assert get("continuous", "k_groups").allocation(q) == [1.0] * k
 
 
 @pytest.mark.parametrize("k", [2, 3, 5])
@@ -38,10 +38,16 @@ def test_anova_cohen_table(k, f, raw, ceil):
 @pytest.mark.parametrize("alpha", [0.05, 0.01])
 def test_anova_matches_statsmodels(k, f, alpha):
     # statsmodels FTestAnovaPower (general-purpose library); it works with the total N
-    design = get("anova_oneway")
-    q = make_q("anova_oneway", effect={"cohens_f": f, "groups": k}, alpha=alpha)
+    design = get("continuous", "k_groups")
+    q = make_q(
+        "continuous",
+        "k_groups",
+        effect={"cohens_f": f},
+        assumptions={"group_count": k},
+        alpha=alpha,
+    )
     total = FTestAnovaPower().solve_power(f, nobs=None, alpha=alpha, power=0.8, k_groups=k)
-    assert design.solve_n(q, alpha).per_arm[0] * k == pytest.approx(total, rel=1e-4)
+    assert design.solve_n(q, alpha).per_group[0] * k == pytest.approx(total, rel=1e-4)
     assert design.power(q, [30] * k, alpha) == pytest.approx(
         FTestAnovaPower().power(f, 30 * k, alpha, k_groups=k), abs=1e-6
     )
@@ -53,8 +59,10 @@ def test_anova_matches_statsmodels(k, f, alpha):
 def test_anova_bad_groups_names_the_field():
     # common practice, no source: errors name the field and echo the value
     with pytest.raises(QuestionError) as err:
-        get("anova_oneway").solve_n(make_q("anova_oneway", effect={"groups": 1}), 0.05)
-    assert err.value.field == "effect.groups"
+        get("continuous", "k_groups").solve_n(
+            make_q("continuous", "k_groups", assumptions={"group_count": 1}), 0.05
+        )
+    assert err.value.field == "assumptions.group_count"
 
 
 # --- correlation -----------------------------------------------------------------------------
@@ -71,7 +79,7 @@ def test_anova_bad_groups_names_the_field():
     ],
 )
 def test_correlation_fisher_z(r, raw, ceil):
-    q = make_q("correlation", effect={"r": r})
+    q = make_q("association", "single_group", effect={"r": r})
     got_raw, got = answer(q)
     assert got_raw[0] == pytest.approx(raw, abs=0.01)
     assert got == [ceil]
@@ -79,34 +87,56 @@ def test_correlation_fisher_z(r, raw, ceil):
 
 def test_correlation_note_on_cohen_r_half():
     # Cohen (1988) Table 3.4.1 prints 28 for r = 0.5; the record says so
-    notes = " ".join(get("correlation").describe(make_q("correlation"))["notes"])
+    notes = " ".join(
+        get("association", "single_group").describe(make_q("association", "single_group"))["notes"]
+    )
     assert "28" in notes and "0.5" in notes
 
 
-@pytest.mark.parametrize(("r", "r0"), [(0.3, 0.0), (0.5, 0.2), (-0.4, 0.0), (0.1, 0.3)])
-@pytest.mark.parametrize("sides", [1, 2])
-def test_correlation_power_and_effect_round_trip(r, r0, sides):
+@pytest.mark.parametrize(("r", "r_null"), [(0.3, 0.0), (0.5, 0.2), (-0.4, 0.0), (0.1, 0.3)])
+@pytest.mark.parametrize("alternative", ["one-sided", "two-sided"])
+def test_correlation_power_and_effect_round_trip(r, r_null, alternative):
     # formula: Fisher z, atanh(r̂) ~ N(atanh r, 1/(n − 3)); statsmodels NormalIndPower with
     # ratio 0 is the one-sample normal test with effect √1·Δz
-    design = get("correlation")
-    q = make_q("correlation", effect={"r": r, "r0": r0}, sides=sides)
-    alt = "two-sided" if sides == 2 else "larger"
-    shift = abs(math.atanh(r) - math.atanh(r0))
+    design = get("association", "single_group")
+    q = make_q(
+        "association",
+        "single_group",
+        effect={"r": r},
+        assumptions={"r_null": r_null},
+        alternative=alternative,
+    )
+    alt = "two-sided" if alternative == "two-sided" else "larger"
+    shift = abs(math.atanh(r) - math.atanh(r_null))
     assert design.power(q, [60], 0.05) == pytest.approx(
         NormalIndPower().power(shift, 57, 0.05, ratio=0, alternative=alt), abs=1e-9
     )
-    n = design.solve_n(q, 0.05).per_arm[0]
+    n = design.solve_n(q, 0.05).per_group[0]
     assert design.power(q, [n], 0.05) == pytest.approx(0.8, abs=1e-5)  # far tail only
-    eff = design.solve_effect(make_q("correlation", effect={"r0": r0}, sides=sides), [60], 0.05)
-    q2 = make_q("correlation", effect={"r": eff["value"], "r0": r0}, sides=sides)
-    assert eff["value"] > r0
+    eff = design.solve_effect(
+        make_q(
+            "association", "single_group", assumptions={"r_null": r_null}, alternative=alternative
+        ),
+        [60],
+        0.05,
+    )
+    q2 = make_q(
+        "association",
+        "single_group",
+        effect={"r": eff["value"]},
+        assumptions={"r_null": r_null},
+        alternative=alternative,
+    )
+    assert eff["value"] > r_null
     assert design.power(q2, [60], 0.05) == pytest.approx(0.8, abs=1e-9)
 
 
 def test_correlation_bad_r_names_the_field():
     # common practice, no source: errors name the field and echo the value
     with pytest.raises(QuestionError, match="1.2") as err:
-        get("correlation").solve_n(make_q("correlation", effect={"r": 1.2}), 0.05)
+        get("association", "single_group").solve_n(
+            make_q("association", "single_group", effect={"r": 1.2}), 0.05
+        )
     assert err.value.field == "effect.r"
 
 
@@ -115,7 +145,7 @@ def test_correlation_bad_r_names_the_field():
 
 def test_noether_normal_shift():
     # formula: Noether (1987), JASA 82:645; d = 0.5 → P(X<Y) = 0.6382, N = 137.06 → 138 total
-    q = make_q("rank_sum")
+    q = make_q("ordinal", "two_groups")
     assert q["effect"]["prob_superiority"] == pytest.approx(0.6382, abs=1e-4)
     raw, final = answer(q)
     assert sum(raw) == pytest.approx(137.06, abs=0.01)
@@ -126,8 +156,12 @@ def test_noether_efficiency_tends_to_three_over_pi():
     # Hodges & Lehmann (1956), Ann Math Stat 27:324: ARE of the rank-sum test against t on
     # normal data is 3/π; Noether's N over the normal-theory N tends to π/3 for small shifts
     d = 0.01
-    q = make_q("rank_sum", effect={"prob_superiority": float(stats.norm.cdf(d / math.sqrt(2)))})
-    noether_total = sum(get("rank_sum").solve_n(q, 0.05).per_arm)
+    q = make_q(
+        "ordinal",
+        "two_groups",
+        effect={"prob_superiority": float(stats.norm.cdf(d / math.sqrt(2)))},
+    )
+    noether_total = sum(get("ordinal", "two_groups").solve_n(q, 0.05).per_group)
     normal_total = 2 * 2 * (stats.norm.ppf(0.975) + stats.norm.ppf(0.8)) ** 2 / d**2
     assert normal_total / noether_total == pytest.approx(3 / math.pi, abs=1e-4)
 
@@ -135,21 +169,23 @@ def test_noether_efficiency_tends_to_three_over_pi():
 @pytest.mark.parametrize("ratio", [1.0, 2.0, 0.5])
 def test_noether_allocation_and_round_trip(ratio):
     # formula: Noether (1987) with c = n1/N; power at the raw n is the target up to the far tail
-    design = get("rank_sum")
-    q = make_q("rank_sum", allocation_ratio=ratio)
-    raw = design.solve_n(q, 0.05).per_arm
+    design = get("ordinal", "two_groups")
+    q = make_q("ordinal", "two_groups", allocation_ratio=ratio)
+    raw = design.solve_n(q, 0.05).per_group
     c = 1 / (1 + ratio)
     z_sum = stats.norm.ppf(0.975) + stats.norm.ppf(0.8)
     total = z_sum**2 / (12 * c * (1 - c) * (q["effect"]["prob_superiority"] - 0.5) ** 2)
     assert raw == pytest.approx([c * total, (1 - c) * total], rel=1e-12)
     assert design.power(q, raw, 0.05) == pytest.approx(0.8, abs=1e-5)
-    eff = design.solve_effect(make_q("rank_sum"), [50, 50 * ratio], 0.05)
-    q2 = make_q("rank_sum", effect={"prob_superiority": eff["value"]})
+    eff = design.solve_effect(make_q("ordinal", "two_groups"), [50, 50 * ratio], 0.05)
+    q2 = make_q("ordinal", "two_groups", effect={"prob_superiority": eff["value"]})
     assert design.power(q2, [50, 50 * ratio], 0.05) == pytest.approx(0.8, abs=1e-9)
 
 
 def test_noether_bad_probability_names_the_field():
     # common practice, no source: P(Y > X) = ½ is no effect
     with pytest.raises(QuestionError) as err:
-        get("rank_sum").solve_n(make_q("rank_sum", effect={"prob_superiority": 0.5}), 0.05)
+        get("ordinal", "two_groups").solve_n(
+            make_q("ordinal", "two_groups", effect={"prob_superiority": 0.5}), 0.05
+        )
     assert err.value.field == "effect.prob_superiority"

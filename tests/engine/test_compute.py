@@ -21,29 +21,36 @@ from tests.engine.questions import make_q
 # --- analytic answers through the whole pipeline ------------------------------------------
 
 
-def test_two_means_reference_answer():
+def test_two_groups_reference_answer():
     # published 64: Cohen 1988, Table 2.4.1 (d = 0.5, two-sided .05, power .80); recomputed
     record = compute(
-        make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+        make_q(
+            "continuous",
+            "two_groups",
+            effect={"difference": 0.5},
+            assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+        )
     )
-    assert record["sample_size"]["per_arm"] == [64, 64]
+    assert record["sample_size"]["per_group"] == [64, 64]
     assert record["sample_size"]["total"] == 128
     base = [s for s in record["sample_size"]["steps"] if s["step"] == "base"][0]
-    assert base["per_arm_raw"][0] == pytest.approx(63.77, abs=0.01)
+    assert base["per_group_raw"][0] == pytest.approx(63.77, abs=0.01)
     assert record["power"]["estimate"] >= 0.8
     assert record["power"]["mcse"] is None
-    assert record["method"]["kind"] == "analytic"
+    assert record["method"]["method"] == "analytic"
 
 
 def test_adjustments_in_order_cluster_then_dropout():
-    # formula: dropout 0.2 leaves clusters of 16 analysed, Donner & Klar (2000) design effect
+    # formula: dropout 0.2 leaves clusters of 16 analyzed, Donner & Klar (2000) design effect
     # 1 + (16 − 1)·0.05 = 1.75; whole clusters of 20 enrolled; the count is the smallest k whose
     # cluster-level noncentral t (df 2k − 2, direct scipy) reaches .80
     from scipy import stats
 
     q = make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
         adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05}, "comparisons": 1},
     )
     record = compute(q)
@@ -58,8 +65,8 @@ def test_adjustments_in_order_cluster_then_dropout():
         return stats.nct.sf(crit, 2 * k - 2, ncp) + stats.nct.cdf(-crit, 2 * k - 2, ncp)
 
     k = next(k for k in range(2, 100) if power(k) >= 0.8)
-    assert record["sample_size"]["clusters_per_arm"] == [k, k]
-    assert record["sample_size"]["per_arm"] == [20 * k, 20 * k]
+    assert record["sample_size"]["clusters_per_group"] == [k, k]
+    assert record["sample_size"]["per_group"] == [20 * k, 20 * k]
 
 
 def test_bonferroni_split_comes_first():
@@ -68,8 +75,10 @@ def test_bonferroni_split_comes_first():
     from statsmodels.stats.power import TTestIndPower
 
     q = make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
         adjustments={"comparisons": 2},
     )
     record = compute(q)
@@ -77,37 +86,40 @@ def test_bonferroni_split_comes_first():
     assert first["step"] == "bonferroni"
     assert first["alpha_per_comparison"] == pytest.approx(0.025)
     expected = TTestIndPower().solve_power(effect_size=0.5, alpha=0.025, power=0.8)
-    assert record["sample_size"]["per_arm"][0] == int(-(-expected // 1))
+    assert record["sample_size"]["per_group"][0] == int(-(-expected // 1))
 
 
 def test_find_power_removes_dropout_before_computing():
-    # formula: 75 enrolled with 15% dropout leave 63.75 analysed; power from the noncentral t
+    # formula: 75 enrolled with 15% dropout leave 63.75 analyzed; power from the noncentral t
     # (statsmodels TTestIndPower as the reference library)
     from statsmodels.stats.power import TTestIndPower
 
     q = make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-        per_arm=[75, 75],
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+        per_group=[75, 75],
         adjustments={"dropout": 0.15},
     )
     record = compute(q)
-    analysed = record["sample_size"]["analysed_per_arm"][0]
-    assert analysed == pytest.approx(63.75)
-    expected = TTestIndPower().power(effect_size=0.5, nobs1=analysed, alpha=0.05)
+    analyzed = record["sample_size"]["analyzed_per_group"][0]
+    assert analyzed == pytest.approx(63.75)
+    expected = TTestIndPower().power(effect_size=0.5, nobs1=analyzed, alpha=0.05)
     assert record["power"]["estimate"] == pytest.approx(expected, abs=1e-6)
 
 
 def test_find_effect_reaches_target_power():
-    # formula: at n = 64 per arm the detectable d at 80% power is just under 0.5 (Cohen 1988,
+    # formula: at n = 64 per group the detectable d at 80% power is just under 0.5 (Cohen 1988,
     # Table 2.4.1 gives n = 64 for d = 0.5); statsmodels TTestIndPower solves the same
     from statsmodels.stats.power import TTestIndPower
 
     q = make_q(
-        "two_means",
-        effect={"sd_control": 1.0, "sd_treatment": 1.0},
+        "continuous",
+        "two_groups",
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
         find="effect",
-        per_arm=[64, 64],
+        per_group=[64, 64],
     )
     record = compute(q)
     expected = TTestIndPower().solve_power(nobs1=64, alpha=0.05, power=0.8)
@@ -120,10 +132,12 @@ def test_find_effect_reaches_target_power():
 
 
 def test_record_is_sealed_and_canonical():
-    record = compute(make_q("correlation", effect={"r": 0.3, "r0": 0.0}))
+    record = compute(
+        make_q("association", "single_group", effect={"r": 0.3}, assumptions={"r_null": 0.0})
+    )
     assert verify(record)
     tampered = copy.deepcopy(record)
-    tampered["sample_size"]["per_arm"] = [80]
+    tampered["sample_size"]["per_group"] = [80]
     assert not verify(tampered)
     assert json.loads(canonical_json(record)) == record
     assert record["cautions"] and "statistician" in " ".join(record["cautions"])
@@ -131,13 +145,26 @@ def test_record_is_sealed_and_canonical():
 
 
 def test_record_has_no_clock_time():
-    a = canonical_json(compute(make_q("correlation", effect={"r": 0.3, "r0": 0.0})))
-    b = canonical_json(compute(make_q("correlation", effect={"r": 0.3, "r0": 0.0})))
+    a = canonical_json(
+        compute(
+            make_q("association", "single_group", effect={"r": 0.3}, assumptions={"r_null": 0.0})
+        )
+    )
+    b = canonical_json(
+        compute(
+            make_q("association", "single_group", effect={"r": 0.3}, assumptions={"r_null": 0.0})
+        )
+    )
     assert a == b
 
 
 def test_question_is_not_mutated():
-    q = make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q = make_q(
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+    )
     before = copy.deepcopy(q)
     compute(q)
     assert q == before
@@ -148,9 +175,11 @@ def test_question_is_not_mutated():
 
 def _sim_question(**sim):
     return make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-        per_arm=[30, 30],
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+        per_group=[30, 30],
         simulation={"replicates": 4000, **sim},
     )
 
@@ -203,16 +232,33 @@ def test_simulation_without_seed_is_a_question_error():
     assert info.value.field == "simulation.seed"
 
 
-def test_unknown_design_is_a_question_error():
-    q = make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
-    q["design"] = "three_means"
+def test_unknown_cell_is_a_question_error_listing_the_cells():
+    q = make_q("continuous", "two_groups")
+    q["layout"] = "three_groups"
     with pytest.raises(QuestionError) as info:
         compute(q)
-    assert info.value.field == "design" and "two_means" in info.value.message
+    assert info.value.field == "layout" and '"continuous × two_groups"' in info.value.message
+    q["outcome"] = "count"
+    with pytest.raises(QuestionError) as info:
+        compute(q)
+    assert info.value.field == "outcome" and '"binary × two_groups"' in info.value.message
+
+
+def test_an_analysis_the_method_cannot_honor_is_refused_naming_the_offered_ones():
+    q = make_q("continuous", "single_group", analysis="signed_rank")
+    with pytest.raises(QuestionError) as info:
+        compute(q)
+    assert info.value.field == "analysis"
+    assert "analytic" in info.value.message and "t_test" in info.value.message
 
 
 def test_numeric_failure_is_typed():
-    q = make_q("two_means", effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0})
+    q = make_q(
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
+    )
     q["effect"]["sd_control"] = "not a number"  # bypasses the schema on purpose
     with pytest.raises(EngineError):
         compute(q)

@@ -9,9 +9,10 @@ from statsmodels.stats.power import TTestIndPower
 
 from service.engine import QuestionError, compute
 from service.engine.explore import DEPARTURES, MAX_CELLS, robustness, sensitivity
-from tests.engine.questions import EFFECTS, make_q
+from tests.engine.questions import make_q
 
-D_HALF = EFFECTS["two_means"]  # d = 0.5
+D_HALF = {"difference": 0.5}  # d = 0.5 with both SDs 1
+SDS = {"sd_control": 1.0, "sd_treatment": 1.0}
 
 
 def _cell(result: dict, **values) -> dict:
@@ -22,58 +23,60 @@ def _cell(result: dict, **values) -> dict:
 
 
 def test_cells_equal_single_compute_calls():
-    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
-    grid = {"effect.difference": [0.4, 0.5, 0.8], "effect.sd_control": [1.0, 1.2]}
+    q = make_q(
+        "continuous", "two_groups", effect=D_HALF, assumptions=SDS, adjustments={"dropout": 0.1}
+    )
+    grid = {"effect.difference": [0.4, 0.5, 0.8], "assumptions.sd_control": [1.0, 1.2]}
     result = sensitivity(q, grid)
     assert result["shape"] == [3, 2] and len(result["cells"]) == 6
     for cell in result["cells"]:
         single = copy.deepcopy(q)
         single["effect"]["difference"] = cell["values"]["effect.difference"]
-        single["effect"]["sd_control"] = cell["values"]["effect.sd_control"]
+        single["assumptions"]["sd_control"] = cell["values"]["assumptions.sd_control"]
         record = compute(single)
-        assert cell["per_arm"] == record["sample_size"]["per_arm"]
+        assert cell["per_group"] == record["sample_size"]["per_group"]
         assert cell["total"] == record["sample_size"]["total"]
         assert cell["power"] == record["power"]["estimate"]
     # the grid's last axis varies fastest
-    assert [c["values"]["effect.sd_control"] for c in result["cells"][:2]] == [1.0, 1.2]
+    assert [c["values"]["assumptions.sd_control"] for c in result["cells"][:2]] == [1.0, 1.2]
 
 
 def test_reference_cells():
-    q = make_q("two_means", effect=D_HALF)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS)
     result = sensitivity(
         q, {"effect.difference": [0.2, 0.5, 0.8], "adjustments.dropout": [0.0, 0.2]}
     )
     # published 394 (ceil; Cohen prints 393 nearest), 64, 26: Cohen 1988, Table 2.4.1, recomputed
-    assert _cell(result, **{"effect.difference": 0.2, "adjustments.dropout": 0.0})["per_arm"] == [
+    assert _cell(result, **{"effect.difference": 0.2, "adjustments.dropout": 0.0})["per_group"] == [
         394,
         394,
     ]
-    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.0})["per_arm"] == [
+    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.0})["per_group"] == [
         64,
         64,
     ]
-    assert _cell(result, **{"effect.difference": 0.8, "adjustments.dropout": 0.0})["per_arm"] == [
+    assert _cell(result, **{"effect.difference": 0.8, "adjustments.dropout": 0.0})["per_group"] == [
         26,
         26,
     ]
     # common practice, no source: 20% dropout on 64 -> 64 / 0.8 = 80
-    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.2})["per_arm"] == [
+    assert _cell(result, **{"effect.difference": 0.5, "adjustments.dropout": 0.2})["per_group"] == [
         80,
         80,
     ]
-    assert result["base"]["per_arm"] == [64, 64]
+    assert result["base"]["per_group"] == [64, 64]
 
 
 def test_monotone_in_effect_sd_and_dropout():
-    q = make_q("two_means", effect=D_HALF)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS)
     diffs = [0.3, 0.4, 0.5, 0.6, 0.8]
     sds = [0.8, 1.0, 1.2, 1.5]
     drops = [0.0, 0.1, 0.2, 0.3]
     result = sensitivity(
-        q, {"effect.difference": diffs, "effect.sd": sds, "adjustments.dropout": drops}
+        q, {"effect.difference": diffs, "assumptions.sd": sds, "adjustments.dropout": drops}
     )
     assert len(result["cells"]) == len(diffs) * len(sds) * len(drops)
-    n = {tuple(c["values"].values()): c["per_arm"][0] for c in result["cells"]}
+    n = {tuple(c["values"].values()): c["per_group"][0] for c in result["cells"]}
     for s in sds:
         for q_ in drops:
             col = [n[(d, s, q_)] for d in diffs]
@@ -85,14 +88,14 @@ def test_monotone_in_effect_sd_and_dropout():
         for s in sds:
             col = [n[(d, s, q_)] for q_ in drops]
             assert col == sorted(col)  # more dropout, more enrolled
-    # "effect.sd" moves both SDs: d = 0.5 with SD 1.2 equals d = 0.5/1.2 with SD 1
+    # "assumptions.sd" moves both SDs: d = 0.5 with SD 1.2 equals d = 0.5/1.2 with SD 1
     # (formula: the noncentral t depends on d = Δ/σ only; statsmodels agrees)
     raw = TTestIndPower().solve_power(effect_size=0.5 / 1.2, alpha=0.05, power=0.8)
     assert n[(0.5, 1.2, 0.0)] == math.ceil(raw)
 
 
 def test_power_questions_give_monotone_power():
-    q = make_q("two_means", effect=D_HALF, per_arm=[30, 30])
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS, per_group=[30, 30])
     result = sensitivity(q, {"effect.difference": [0.3, 0.5, 0.7]})
     powers = [c["power"] for c in result["cells"]]
     assert powers == sorted(powers)
@@ -100,12 +103,12 @@ def test_power_questions_give_monotone_power():
     assert powers[1] == pytest.approx(
         TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05), abs=1e-9
     )
-    assert {tuple(c["per_arm"]) for c in result["cells"]} == {(30, 30)}
+    assert {tuple(c["per_group"]) for c in result["cells"]} == {(30, 30)}
 
 
 def test_survival_grid_over_hazard_ratio():
     # HR 0.75, control median 12 (hazard ln 2 / 12), accrual 24, follow-up 12
-    q = make_q("survival_logrank")
+    q = make_q("time_to_event", "two_groups")
     result = sensitivity(q, {"effect.hazard_ratio": [0.5, 0.75, 0.8]})
     totals = [c["total"] for c in result["cells"]]
     assert totals == sorted(totals)  # a hazard ratio nearer 1 needs more subjects
@@ -113,11 +116,11 @@ def test_survival_grid_over_hazard_ratio():
 
 
 def test_cells_the_engine_refuses_are_reported():
-    q = make_q("two_means", effect=D_HALF)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS)
     result = sensitivity(q, {"effect.difference": [0.0, 0.5]})
     bad, good = result["cells"]
-    assert bad["per_arm"] is None and "difference" in bad["error"]
-    assert good["per_arm"] == [64, 64]
+    assert bad["per_group"] is None and "difference" in bad["error"]
+    assert good["per_group"] == [64, 64]
 
 
 @pytest.mark.parametrize(
@@ -145,22 +148,27 @@ def test_cells_the_engine_refuses_are_reported():
             {},
             {
                 "effect.difference": [i / 100 + 0.1 for i in range(30)],
-                "effect.sd": [1.0 + i / 10 for i in range(20)],
+                "assumptions.sd": [1.0 + i / 10 for i in range(20)],
             },
             "grid",
             f"at most {MAX_CELLS}",
         ),
-        ({}, {"effect.sd": [1.0], "effect.sd_control": [1.0]}, "grid.effect.sd", "do not combine"),
         (
-            {"find": "effect", "sample_size": {"per_arm": [30, 30]}},
-            {"effect.sd": [1.0]},
+            {},
+            {"assumptions.sd": [1.0], "assumptions.sd_control": [1.0]},
+            "grid.assumptions.sd",
+            "do not combine",
+        ),
+        (
+            {"find": "effect", "sample_size": {"per_group": [30, 30]}},
+            {"assumptions.sd": [1.0]},
             "find",
             "'effect'",
         ),
     ],
 )
 def test_bad_grids_name_the_field(question_overrides, grid, field, words):
-    q = make_q("two_means", effect=D_HALF, **question_overrides)
+    q = make_q("continuous", "two_groups", effect=D_HALF, assumptions=SDS, **question_overrides)
     with pytest.raises(QuestionError) as info:
         sensitivity(q, grid)
     assert info.value.field == field
@@ -175,7 +183,11 @@ REPS = 600  # modest: the panel's shape and bookkeeping are tested, not its thir
 @pytest.fixture(scope="module")
 def simulated_q():
     return make_q(
-        "two_means", effect=D_HALF, simulation={"replicates": REPS, "search_replicates": 600}
+        "continuous",
+        "two_groups",
+        effect=D_HALF,
+        assumptions=SDS,
+        simulation={"replicates": REPS, "search_replicates": 600},
     )
 
 
@@ -194,12 +206,12 @@ def test_each_departure_is_declared(panel):
         )
         assert 0 <= d["power"]["ci95"][0] <= d["power"]["estimate"] <= d["power"]["ci95"][1] <= 1
         assert d["type_i_error"]["replicates"] == REPS and d["null_model"]
-    assert panel["per_arm"] == [64, 64] and panel["replicates"] == REPS
+    assert panel["per_group"] == [64, 64] and panel["replicates"] == REPS
 
 
 def test_normal_case_reproduces_the_record(simulated_q, panel):
     q = copy.deepcopy(simulated_q)
-    q.update(find="power", target_power=None, sample_size={"per_arm": [64, 64]})
+    q.update(find="power", target_power=None, sample_size={"per_group": [64, 64]})
     record = compute(q)
     normal = panel["departures"][0]
     assert normal["name"] == "normal"
@@ -258,41 +270,46 @@ def test_departures_move_power_the_known_way(panel):
     assert lo <= 0.05 <= hi
 
 
-def test_analytic_question_uses_the_formulas_test():
+def test_analytic_question_uses_the_planned_analysis():
     q = make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.5},
-        formula="welch",
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.5},
+        analysis="welch_t",
     )
     result = robustness(q, [40, 40], replicates=200, seed=5)
-    assert result["test"] == "welch_t"
+    assert result["analysis"] == "welch_t"
 
 
 @pytest.mark.parametrize(
     ("kwargs", "field", "words"),
     [
-        ({"per_arm": [64]}, "per_arm", "two whole numbers"),
-        ({"per_arm": [64, 1]}, "per_arm", "≥ 2"),
+        ({"per_group": [64]}, "per_group", "two whole numbers"),
+        ({"per_group": [64, 1]}, "per_group", "≥ 2"),
         ({"replicates": 10}, "simulation.replicates", "got 10"),
         ({"seed": -1}, "simulation.seed", "got -1"),
     ],
 )
 def test_bad_robustness_inputs(simulated_q, kwargs, field, words):
-    args = {"per_arm": [64, 64], "replicates": 200, "seed": 1, **kwargs}
+    args = {"per_group": [64, 64], "replicates": 200, "seed": 1, **kwargs}
     with pytest.raises(QuestionError) as info:
-        robustness(simulated_q, args.pop("per_arm"), **args)
+        robustness(simulated_q, args.pop("per_group"), **args)
     assert info.value.field == field and words in info.value.message
 
 
-def test_robustness_is_for_continuous_two_group_designs_only():
+def test_robustness_is_for_continuous_and_ordinal_two_group_cells_only():
     q = make_q(
-        "two_proportions",
-        effect={"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False},
+        "binary",
+        "two_groups",
+        effect={"p_treatment": 0.6},
+        assumptions={"p_control": 0.4},
+        analysis_options={"continuity_correction": False},
     )
     with pytest.raises(QuestionError) as info:
         robustness(q, [97, 97], replicates=200, seed=1)
-    assert info.value.field == "design" and "two_proportions" in info.value.message
-    assert "two_means and rank_sum" in info.value.message
+    assert info.value.field == "layout" and "binary × two_groups" in info.value.message
+    assert "continuous × two_groups and ordinal × two_groups" in info.value.message
 
 
 # An invented length-of-stay model (lognormal, as a ward's records might fit); demo data only.
@@ -304,12 +321,14 @@ STAY = {
 
 def _rank_sum_power_q(**simulation):
     q = make_q(
-        "rank_sum",
+        "ordinal",
+        "two_groups",
         find="power",
         target_power=None,
         method="simulation",
-        per_arm=[60, 60],
-        simulation={"test": "rank_sum", "data": STAY, "replicates": 400, "seed": 11, **simulation},
+        per_group=[60, 60],
+        analysis="rank_sum",
+        simulation={"data": STAY, "replicates": 400, "seed": 11, **simulation},
     )
     q["effect"] = {}  # the data model implies P(Y > X); a different posted value is refused
     return q
@@ -318,7 +337,7 @@ def _rank_sum_power_q(**simulation):
 def test_rank_sum_panel_starts_with_the_planned_data_and_reproduces_the_record():
     q = _rank_sum_power_q()
     panel = robustness(q, [60, 60], replicates=400, seed=11)
-    assert panel["design"] == "rank_sum" and panel["test"] == "rank_sum"
+    assert panel["outcome"] == "ordinal" and panel["analysis"] == "rank_sum"
     names = [d["name"] for d in panel["departures"]]
     assert names == ["as_planned", *DEPARTURES]
     record = compute(q)
@@ -341,7 +360,7 @@ def test_rank_sum_panel_matches_the_planned_mean_and_sd():
 
 def test_rank_sum_panel_from_prob_superiority_uses_a_normal_shift():
     # formula: for normal data with SD 1, P(Y > X) = Φ(Δ/√2), so Δ = √2·Φ⁻¹(p) (Noether 1987)
-    q = make_q("rank_sum", effect={"prob_superiority": 0.64})
+    q = make_q("ordinal", "two_groups", effect={"prob_superiority": 0.64})
     panel = robustness(q, [70, 70], replicates=200, seed=4)
     normal = next(d for d in panel["departures"] if d["name"] == "normal")
     shift = normal["data"]["treatment"]["mean"] - normal["data"]["control"]["mean"]

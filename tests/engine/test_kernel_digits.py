@@ -10,7 +10,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from service.engine import quantiles, simulate, vectests
+from service.engine import quantiles, vectests
+from service.engine.chunks import Streams, run_chunk
+from service.engine.plan import make_plan
+from service.engine.runner import make_task
 from tests.engine.questions import make_q
 
 
@@ -29,17 +32,17 @@ def test_binomial_quantile_is_scipy_binom_ppf(n, p):
 
 def test_two_proportion_chunk_matches_scipy_quantiles():
     # exact: the chunk's rejections recomputed from the same uniforms with scipy.stats.binom.ppf
-    q = make_q("two_proportions", per_arm=(120, 120), simulation={"seed": 5, "replicates": 3000})
-    p = simulate.plan(q, 0.05)
-    task = simulate.make_task(
-        p, [120, 120], stream=0, chunk=0, chunk_size=3000, replicates=3000, seed=5
+    q = make_q(
+        "binary", "two_groups", per_group=(120, 120), simulation={"seed": 5, "replicates": 3000}
     )
-    got = simulate.run_chunk(dict(task))["rejections"]
-    streams = simulate._Streams(5, 0, 0)
+    p = make_plan(q, 0.05)
+    task = make_task(p, [120, 120], stream=0, chunk=0, chunk_size=3000, replicates=3000, seed=5)
+    got = run_chunk(dict(task))["rejections"]
+    streams = Streams(5, 0, 0)
     counts = []
-    for i, arm in enumerate(task["arms"]):
+    for i, model in enumerate(task["models"]):
         u = 1.0 - streams.gen(i, 0).random(3000)
-        counts.append(stats.binom.ppf(u, 120, arm["p"]))
+        counts.append(stats.binom.ppf(u, 120, model["p"]))
     est, se = vectests.two_proportion_z(counts[0], 120, counts[1], 120, pooled=True)
     assert got == int(np.count_nonzero(vectests.decide(est, se, None, 0.05, task["rule"])))
 

@@ -1,11 +1,11 @@
 """Labels that say what was computed: the non-inferiority score test, default levels, pooled t
-with unequal SDs, zero effects, ANOVA sides, exact-ratio rounding.
+with unequal SDs, zero effects, a one-sided k-group alternative, exact-ratio rounding.
 
 Sources beside each check: Farrington & Manning (1990), Stat Med 9:1447 (score test, sample-size
 formula; its restricted MLE checked against scipy's numerical maximization, its power against an
 exact binomial enumeration computed here — no printed value of the paper is used); ICH E9 (1998)
 for one-sided 0.025; the pooled t test's size with unequal SDs by a seeded simulation of its
-sufficient statistics computed here; Cohen (1988) eq. 2.3.1 for the 3:1 two-means size.
+summary statistics computed here; Cohen (1988) eq. 2.3.1 for the 3:1 two-group size.
 """
 
 import math
@@ -14,9 +14,10 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from service.engine import compute
-from service.engine.designs.proportions import restricted_mle
+from service.engine import QuestionError, compute
+from service.engine.designs.binary_two_groups import restricted_mle
 from service.schemas.question import QuestionInvalid, load_question
+from tests.engine.questions import make_q
 
 
 def _numeric_mle(p1, p2, r, margin):
@@ -45,29 +46,40 @@ def test_restricted_mle_is_the_constrained_maximum(p1, p2, r, margin):
     assert got[1] - got[0] == pytest.approx(margin, abs=1e-12)
 
 
+TWO_GROUPS_ZERO = {
+    "outcome": "continuous",
+    "layout": "two_groups",
+    "effect": {"difference": 0},
+    "assumptions": {"sd": 1},
+}
+
+
 def _ni(**extra):
     raw = {
-        "design": "two_proportions",
-        "effect": {"p_control": 0.7, "p_treatment": 0.7},
-        "hypothesis": {"kind": "noninferiority", "margin": -0.1},
+        "outcome": "binary",
+        "layout": "two_groups",
+        "effect": {"p_treatment": 0.7},
+        "assumptions": {"p_control": 0.7},
+        "hypothesis": {"aim": "noninferiority", "margin": -0.1},
     }
     raw.update(extra)
     return load_question(raw)
 
 
-def test_noninferiority_of_proportions_defaults_to_the_farrington_manning_score_test():
+def test_noninferiority_of_proportions_defaults_to_the_score_test():
     q = _ni()
-    assert q["formula"] == "farrington_manning" and q["alpha"] == 0.025 and q["sides"] == 1
+    assert q["analysis"] == "score" and q["alpha"] == 0.025 and q["alternative"] == "one-sided"
     record = compute(q)
-    assert "Farrington-Manning" in record["method"]["formula"]
+    assert record["method"]["analysis_label"] == "Farrington-Manning score test"
+    assert "restricted-MLE" in record["method"]["approximation"]
     # Farrington & Manning (1990): n1 = [z_a·√V0 + z_b·√V1]² / (Δ − margin)², V0 at the
     # restricted MLE (here by numerical maximization), V1 at the assumed proportions.
     q1, q2 = _numeric_mle(0.7, 0.7, 1.0, -0.1)
     v0, v1 = q1 * (1 - q1) + q2 * (1 - q2), 2 * 0.7 * 0.3
     za, zb = stats.norm.isf(0.025), stats.norm.ppf(0.8)
     n = (za * math.sqrt(v0) + zb * math.sqrt(v1)) ** 2 / 0.1**2
-    assert record["sample_size"]["steps"][0]["per_arm_raw"][0] == pytest.approx(n, rel=1e-8)
-    assert record["sample_size"]["per_arm"] == [math.ceil(n)] * 2
+    assert record["sample_size"]["steps"][0]["per_group_raw"][0] == pytest.approx(n, rel=1e-8)
+    assert record["sample_size"]["per_group"] == [math.ceil(n)] * 2
 
 
 def _exact_score_power(n1, n2, p1, p2, margin, alpha, *, upper=True, reject_map=False):
@@ -100,59 +112,66 @@ def _exact_score_power(n1, n2, p1, p2, margin, alpha, *, upper=True, reject_map=
 
 def test_farrington_manning_power_holds_under_exact_enumeration():
     record = compute(_ni())
-    n = record["sample_size"]["per_arm"][0]
+    n = record["sample_size"]["per_group"][0]
     exact = _exact_score_power(n, n, 0.7, 0.7, -0.1, 0.025)
     assert abs(exact - record["power"]["estimate"]) < 0.02  # normal approximation vs exact
     size = _exact_score_power(n, n, 0.75, 0.65, -0.1, 0.025)  # at the margin: the level
     assert abs(size - 0.025) < 0.006
 
 
-@pytest.mark.parametrize("formula", ["pooled_z", "arcsine"])
-def test_a_formula_that_does_not_apply_to_noninferiority_is_refused(formula):
+@pytest.mark.parametrize("analysis", ["pooled_z", "arcsine"])
+def test_an_analysis_that_does_not_apply_to_noninferiority_is_refused(analysis):
     with pytest.raises(QuestionInvalid) as err:
-        _ni(formula=formula)
-    message = " ".join(err.value.errors["formula"])
-    assert "farrington_manning" in message and "unpooled_z" in message
+        _ni(analysis=analysis)
+    message = " ".join(err.value.errors["analysis"])
+    assert "score" in message and "unpooled_z" in message
 
 
 def test_unpooled_wald_stays_an_option_and_is_labelled_so():
-    q = _ni(formula="unpooled_z")
+    q = _ni(analysis="unpooled_z")
     record = compute(q)
-    assert record["question"]["formula"] == "unpooled_z"
-    assert "Wald" in record["method"]["formula"]
+    assert record["question"]["analysis"] == "unpooled_z"
+    assert "Wald" in record["method"]["analysis_label"]
     za, zb = stats.norm.isf(0.025), stats.norm.ppf(0.8)
     n = (za + zb) ** 2 * 2 * 0.21 / 0.1**2  # Chow, Shao & Wang (2008), ch. 4, formula
-    assert record["sample_size"]["steps"][0]["per_arm_raw"][0] == pytest.approx(n, rel=1e-10)
+    assert record["sample_size"]["steps"][0]["per_group_raw"][0] == pytest.approx(n, rel=1e-10)
 
 
-def test_farrington_manning_against_superiority_is_refused():
+def test_the_score_test_against_superiority_is_refused():
     with pytest.raises(QuestionInvalid) as err:
         load_question(
             {
-                "design": "two_proportions",
-                "effect": {"p_control": 0.3, "p_treatment": 0.5},
-                "formula": "farrington_manning",
+                "outcome": "binary",
+                "layout": "two_groups",
+                "effect": {"p_treatment": 0.5},
+                "assumptions": {"p_control": 0.3},
+                "analysis": "score",
             }
         )
-    assert "pooled_z" in " ".join(err.value.errors["formula"])
+    assert "pooled_z" in " ".join(err.value.errors["analysis"])
 
 
 @pytest.mark.parametrize(
-    "design, effect, hyp",
+    "blocks, hyp",
     [
-        ("two_means", {"difference": 0, "sd": 1}, {"kind": "noninferiority", "margin": -0.3}),
-        ("two_means", {"difference": 0, "sd": 1}, {"kind": "equivalence", "margin": 0.3}),
+        (TWO_GROUPS_ZERO, {"aim": "noninferiority", "margin": -0.3}),
+        (TWO_GROUPS_ZERO, {"aim": "equivalence", "margin": 0.3}),
         (
-            "two_proportions",
-            {"p_control": 0.5, "p_treatment": 0.5},
-            {"kind": "equivalence", "margin": 0.1},
+            {
+                "outcome": "binary",
+                "layout": "two_groups",
+                "effect": {"p_treatment": 0.5},
+                "assumptions": {"p_control": 0.5},
+            },
+            {"aim": "equivalence", "margin": 0.1},
         ),
     ],
 )
-def test_margin_hypotheses_default_to_one_sided_0025_and_say_so(design, effect, hyp):
+def test_margin_hypotheses_default_to_one_sided_0025_and_say_so(blocks, hyp):
     # ICH E9 (1998): one-sided 0.025 for non-inferiority and equivalence trials.
-    record = compute(load_question({"design": design, "effect": effect, "hypothesis": hyp}))
-    assert record["question"]["alpha"] == 0.025 and record["question"]["sides"] == 1
+    record = compute(load_question({**blocks, "hypothesis": hyp}))
+    assert record["question"]["alpha"] == 0.025
+    assert record["question"]["alternative"] == "one-sided"
     assert "ICH E9" in record["method"]["alpha_note"]
     from service.reports.justification import justification
 
@@ -160,15 +179,24 @@ def test_margin_hypotheses_default_to_one_sided_0025_and_say_so(design, effect, 
 
 
 def test_superiority_keeps_alpha_005_and_a_posted_005_under_a_margin_is_flagged():
-    q = load_question({"design": "two_means", "effect": {"difference": 0.5, "sd": 1}})
+    q = load_question(
+        {
+            "outcome": "continuous",
+            "layout": "two_groups",
+            "effect": {"difference": 0.5},
+            "assumptions": {"sd": 1},
+        }
+    )
     assert q["alpha"] == 0.05
     record = compute(
         load_question(
             {
-                "design": "two_means",
+                "outcome": "continuous",
+                "layout": "two_groups",
                 "alpha": 0.05,
-                "effect": {"difference": 0, "sd": 1},
-                "hypothesis": {"kind": "noninferiority", "margin": -0.3},
+                "effect": {"difference": 0},
+                "assumptions": {"sd": 1},
+                "hypothesis": {"aim": "noninferiority", "margin": -0.3},
             }
         )
     )
@@ -187,39 +215,51 @@ def test_pooled_t_with_unequal_sds_is_warned_and_points_to_welch():
     assert 0.14 < size < 0.165
     q = load_question(
         {
-            "design": "two_means",
+            "outcome": "continuous",
+            "layout": "two_groups",
             "find": "power",
-            "formula": "student",
-            "effect": {"difference": 0.5, "sd_control": 1, "sd_treatment": 2},
-            "sample_size": {"per_arm": [60, 20]},
+            "analysis": "pooled_t",
+            "effect": {"difference": 0.5},
+            "assumptions": {"sd_control": 1, "sd_treatment": 2},
+            "sample_size": {"per_group": [60, 20]},
         }
     )
     record = compute(q)
     assert any("Welch" in w and "does not hold its level" in w for w in record["warnings"])
-    assert "pooled variance" not in record["method"]["formula"]
-    equal = compute(dict(q, effect={"difference": 0.5, "sd_control": 1, "sd_treatment": 1}))
+    assert "pooled variance" not in record["method"]["approximation"]
+    equal = compute(
+        dict(q, effect={"difference": 0.5}, assumptions={"sd_control": 1, "sd_treatment": 1})
+    )
     assert not any("Welch" in w for w in equal["warnings"])
 
 
+TIMELINE = {"time_unit": "months", "control_median": 12, "accrual": 12, "follow_up": 12}
 ZERO = {
-    "two_means": ({"difference": 0, "sd": 1}, [40, 40]),
-    "one_mean": ({"difference": 0, "sd": 1}, [40]),
-    "paired_mean": ({"difference": 0, "sd_difference": 1}, [40]),
-    "two_proportions": ({"p_control": 0.3, "p_treatment": 0.3}, [40, 40]),
-    "correlation": ({"r": 0}, [40]),
-    "rank_sum": ({"prob_superiority": 0.5}, [40, 40]),
-    "survival_logrank": (
-        {"hazard_ratio": 1, "median_control": 12, "accrual_period": 12, "follow_up": 12},
-        [40, 40],
-    ),
+    ("continuous", "two_groups"): ({"difference": 0}, {"sd": 1}, [40, 40]),
+    ("continuous", "single_group"): ({"difference": 0}, {"sd": 1}, [40]),
+    ("continuous", "paired"): ({"difference": 0}, {"sd_difference": 1}, [40]),
+    ("binary", "two_groups"): ({"p_treatment": 0.3}, {"p_control": 0.3}, [40, 40]),
+    ("association", "single_group"): ({"r": 0}, {}, [40]),
+    ("ordinal", "two_groups"): ({"prob_superiority": 0.5}, {}, [40, 40]),
+    ("time_to_event", "two_groups"): ({"hazard_ratio": 1}, TIMELINE, [40, 40]),
 }
 
 
-@pytest.mark.parametrize("design", sorted(ZERO))
-def test_zero_effect_find_power_is_the_size_of_the_test_everywhere(design):
-    effect, per_arm = ZERO[design]
-    raw = {"design": design, "find": "power", "effect": effect}
-    raw["sample_size"] = {"per_arm": per_arm}
+def _zero(cell: tuple) -> dict:
+    effect, assumptions, per_group = ZERO[cell]
+    return {
+        "outcome": cell[0],
+        "layout": cell[1],
+        "find": "power",
+        "effect": effect,
+        "assumptions": assumptions,
+        "sample_size": {"per_group": per_group},
+    }
+
+
+@pytest.mark.parametrize("cell", sorted(ZERO))
+def test_zero_effect_find_power_is_the_size_of_the_test_everywhere(cell):
+    raw = _zero(cell)
     record = compute(load_question(raw))
     # Normal and t approximations at a zero shift reject with probability alpha exactly.
     assert record["power"]["estimate"] == pytest.approx(0.05, abs=1e-12)
@@ -227,14 +267,10 @@ def test_zero_effect_find_power_is_the_size_of_the_test_everywhere(design):
     assert len(notes) == 1 and "size of the test" in notes[0]
 
 
-@pytest.mark.parametrize("design", ["two_means", "survival_logrank"])
-def test_zero_effect_simulated_power_is_the_simulated_size(design):
-    effect, per_arm = ZERO[design]
+@pytest.mark.parametrize("cell", [("continuous", "two_groups"), ("time_to_event", "two_groups")])
+def test_zero_effect_simulated_power_is_the_simulated_size(cell):
     raw = {
-        "design": design,
-        "find": "power",
-        "effect": effect,
-        "sample_size": {"per_arm": per_arm},
+        **_zero(cell),
         "method": "simulation",
         "simulation": {"seed": 77, "replicates": 2000},
     }
@@ -244,27 +280,32 @@ def test_zero_effect_simulated_power_is_the_simulated_size(design):
     assert any(w.startswith("the assumed effect is the null value") for w in record["warnings"])
 
 
-def test_sides_on_anova_is_refused():
-    with pytest.raises(QuestionInvalid) as err:
-        load_question(
-            {"design": "anova_oneway", "sides": 1, "effect": {"cohens_f": 0.25, "groups": 3}}
-        )
-    assert "does not apply to anova_oneway" in " ".join(err.value.errors["sides"])
+def test_a_one_sided_alternative_on_k_groups_is_refused():
+    q = make_q("continuous", "k_groups", alternative="one-sided")
+    with pytest.raises(QuestionError) as err:
+        compute(q)
+    assert err.value.field == "alternative" and "no direction" in err.value.message
 
 
 def test_exact_ratio_rounding_keeps_three_to_one():
-    base = {"design": "two_means", "effect": {"difference": 0.5, "sd": 1}, "allocation_ratio": 3}
+    base = {
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1},
+        "allocation_ratio": 3,
+    }
     each = compute(load_question(base))
     exact = compute(load_question(dict(base, allocation_rounding="exact_ratio")))
     # Cohen (1988) eq. 2.3.1 with n2 = 3·n1 (noncentral t): raw 42.35 / 127.04.
-    assert each["sample_size"]["per_arm"] == [43, 128]
-    assert exact["sample_size"]["per_arm"] == [43, 129]
-    assert each["sample_size"]["steps"][0]["rounding"] == "each_arm"
+    assert each["sample_size"]["per_group"] == [43, 128]
+    assert exact["sample_size"]["per_group"] == [43, 129]
+    assert each["sample_size"]["steps"][0]["rounding"] == "each_group"
     assert exact["sample_size"]["steps"][0]["rounding"] == "exact_ratio"
     with_dropout = compute(
         load_question(dict(base, allocation_rounding="exact_ratio", adjustments={"dropout": 0.15}))
     )
-    n1, n2 = with_dropout["sample_size"]["per_arm"]
+    n1, n2 = with_dropout["sample_size"]["per_group"]
     assert n2 == 3 * n1 and n1 >= 43 / 0.85
 
 
@@ -272,15 +313,17 @@ def test_exact_ratio_rounding_keeps_three_to_one():
     "extra, why",
     [
         ({"allocation_ratio": math.e}, "denominator at most 100"),
-        ({"find": "power", "sample_size": {"per_arm": [20, 60]}}, "find = sample_size"),
+        ({"find": "power", "sample_size": {"per_group": [20, 60]}}, "find = sample_size"),
         ({"method": "simulation"}, "analytic answers"),
         ({"adjustments": {"cluster": {"mean_size": 20, "icc": 0.05}}}, "whole clusters"),
     ],
 )
 def test_exact_ratio_rounding_refuses_where_it_cannot_apply(extra, why):
     raw = {
-        "design": "two_means",
-        "effect": {"difference": 0.5, "sd": 1},
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1},
         "allocation_ratio": 3,
         "allocation_rounding": "exact_ratio",
         **extra,
@@ -293,14 +336,16 @@ def test_exact_ratio_rounding_refuses_where_it_cannot_apply(extra, why):
 def test_farrington_manning_equivalence_power_holds_under_exact_enumeration():
     # Two one-sided score tests at ±0.15, both must reject; exact enumeration computed here.
     raw = {
-        "design": "two_proportions",
+        "outcome": "binary",
+        "layout": "two_groups",
         "find": "power",
-        "effect": {"p_control": 0.6, "p_treatment": 0.62},
-        "hypothesis": {"kind": "equivalence", "margin": 0.15},
-        "sample_size": {"per_arm": [200, 200]},
+        "effect": {"p_treatment": 0.62},
+        "assumptions": {"p_control": 0.6},
+        "hypothesis": {"aim": "equivalence", "margin": 0.15},
+        "sample_size": {"per_group": [200, 200]},
     }
     record = compute(load_question(raw))
-    assert record["question"]["formula"] == "farrington_manning"
+    assert record["question"]["analysis"] == "score"
     low = _exact_score_power(200, 200, 0.6, 0.62, -0.15, 0.025, reject_map=True)
     high = _exact_score_power(200, 200, 0.6, 0.62, 0.15, 0.025, upper=False, reject_map=True)
     weight = np.outer(

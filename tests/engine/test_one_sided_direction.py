@@ -1,9 +1,9 @@
 """One-sided tests look where the assumed effect points, analytically and by simulation.
 
-Every design with a one-sided option is run with an effect of each sign. The simulated power is
+Every cell with a one-sided option is run with an effect of each sign. The simulated power is
 checked against an exact computation made here with scipy (noncentral t; full enumeration of
 the binomial outcomes for the z and Fisher tests) or, where no exact value is at hand, against
-the design's published formula (Noether 1987, Fisher z, Schoenfeld 1983), within 4 MCSE.
+the cell's published formula (Noether 1987, Fisher z, Schoenfeld 1983), within 4 MCSE.
 """
 
 from __future__ import annotations
@@ -14,16 +14,24 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from service.engine import compute, direction, simulate
+from service.engine import compute, direction
+from service.engine.designs import get
+from service.engine.plan import make_plan
 from tests.engine.questions import make_q
+
+TWO_GROUPS = get("continuous", "two_groups")
 
 REPS = 4000
 SEED = 5
 
 
-def power_q(design: str, effect: dict, per_arm, test: str | None = None, **top) -> dict:
-    sim = {"replicates": REPS, "seed": SEED, **({"test": test} if test else {})}
-    return make_q(design, effect=effect, per_arm=per_arm, sides=1, simulation=sim, **top)
+def power_q(cell: tuple, values: dict, per_group, analysis: str | None = None, **top) -> dict:
+    sim = {"replicates": REPS, "seed": SEED}
+    if analysis:
+        top["analysis"] = analysis
+    return make_q(
+        *cell, values=values, per_group=per_group, alternative="one-sided", simulation=sim, **top
+    )
 
 
 def within(estimate: float, reference: float, reps: int = REPS, k: float = 4.0) -> bool:
@@ -74,36 +82,41 @@ def fisher_one_sided_exact(p1, n1, p2, n2, sign: int, alpha: float = 0.05) -> fl
 
 
 @pytest.mark.parametrize(
-    "design,effect,sign",
+    "cell,values,sign",
     [
-        ("two_means", {"difference": -5.0}, -1),
-        ("two_means", {"difference": 5.0}, 1),
-        ("one_mean", {"difference": -1.0}, -1),
-        ("paired_mean", {"difference": 2.0}, 1),
-        ("two_proportions", {"p_control": 0.10, "p_treatment": 0.05}, -1),
-        ("correlation", {"r": 0.1, "r0": 0.3}, -1),
-        ("rank_sum", {"prob_superiority": 0.38}, -1),
-        ("survival_logrank", {"hazard_ratio": 0.7}, 1),  # longer times: "higher"
-        ("survival_logrank", {"hazard_ratio": 1.4}, -1),
+        (("continuous", "two_groups"), {"difference": -5.0}, -1),
+        (("continuous", "two_groups"), {"difference": 5.0}, 1),
+        (("continuous", "single_group"), {"difference": -1.0}, -1),
+        (("continuous", "paired"), {"difference": 2.0}, 1),
+        (("binary", "two_groups"), {"p_control": 0.10, "p_treatment": 0.05}, -1),
+        (("association", "single_group"), {"r": 0.1, "r_null": 0.3}, -1),
+        (("ordinal", "two_groups"), {"prob_superiority": 0.38}, -1),
+        (("time_to_event", "two_groups"), {"hazard_ratio": 0.7}, 1),  # longer times: "higher"
+        (("time_to_event", "two_groups"), {"hazard_ratio": 1.4}, -1),
     ],
 )
-def test_direction_follows_the_assumed_effect_whatever_higher_is_better_says(design, effect, sign):
+def test_direction_follows_the_assumed_effect_whatever_higher_is_better_says(cell, values, sign):
     for better in (True, False):
-        q = make_q(design, effect=effect, sides=1, hypothesis={"higher_is_better": better})
-        assert direction.one_sided(q, design) == sign
+        q = make_q(
+            *cell, values=values, alternative="one-sided", hypothesis={"higher_is_better": better}
+        )
+        assert direction.one_sided(q, get(*cell)) == sign
 
 
 def test_direction_without_an_effect_or_under_a_margin_comes_from_higher_is_better():
-    q = make_q("two_means", find="effect", per_arm=(50, 50), sides=1)
-    assert direction.one_sided(q, "two_means") == 1
-    q["hypothesis"]["higher_is_better"] = False
-    assert direction.one_sided(q, "two_means") == -1
-    ni = make_q(
-        "two_means",
-        effect={"difference": 0.3},
-        hypothesis={"kind": "noninferiority", "margin": 0.5, "higher_is_better": False},
+    q = make_q(
+        "continuous", "two_groups", find="effect", per_group=(50, 50), alternative="one-sided"
     )
-    assert direction.one_sided(ni, "two_means") == -1
+    assert direction.one_sided(q, TWO_GROUPS) == 1
+    q["hypothesis"]["higher_is_better"] = False
+    assert direction.one_sided(q, TWO_GROUPS) == -1
+    ni = make_q(
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.3},
+        hypothesis={"aim": "noninferiority", "margin": 0.5, "higher_is_better": False},
+    )
+    assert direction.one_sided(ni, TWO_GROUPS) == -1
 
 
 # --- simulated against exact or formula power, both signs -----------------------------------
@@ -111,11 +124,13 @@ def test_direction_without_an_effect_or_under_a_margin_comes_from_higher_is_bett
 SD = {"sd_control": 12.0, "sd_treatment": 12.0}
 
 
-@pytest.mark.parametrize("test", ["student_t", "welch_t"])
+@pytest.mark.parametrize("analysis", ["pooled_t", "welch_t"])
 @pytest.mark.parametrize("difference", [5.0, -5.0])
-def test_two_means_one_sided_power_matches_noncentral_t_both_signs(test, difference):
-    # The blood-pressure example: difference −5, SD 12, 100 per arm; exact one-sided t ≈ 0.90.
-    q = power_q("two_means", {"difference": difference, **SD}, (100, 100), test)
+def test_two_groups_one_sided_power_matches_noncentral_t_both_signs(analysis, difference):
+    # The blood-pressure example: difference −5, SD 12, 100 per group; exact one-sided t ≈ 0.90.
+    q = power_q(
+        ("continuous", "two_groups"), {"difference": difference, **SD}, (100, 100), analysis
+    )
     power = compute(q)["power"]
     exact = t_one_sided(difference / (12.0 * math.sqrt(2 / 100)), 198)
     assert exact == pytest.approx(0.9017, abs=1e-4)
@@ -124,26 +139,28 @@ def test_two_means_one_sided_power_matches_noncentral_t_both_signs(test, differe
 
 
 @pytest.mark.parametrize(
-    "design,effect,n",
+    "cell,values,n",
     [
-        ("one_mean", {"difference": 5.0, "sd": 15.0}, 60),
-        ("one_mean", {"difference": -5.0, "sd": 15.0}, 60),
-        ("paired_mean", {"difference": 1.0, "sd_difference": 2.5}, 40),
-        ("paired_mean", {"difference": -1.0, "sd_difference": 2.5}, 40),
+        (("continuous", "single_group"), {"difference": 5.0, "sd": 15.0}, 60),
+        (("continuous", "single_group"), {"difference": -5.0, "sd": 15.0}, 60),
+        (("continuous", "paired"), {"difference": 1.0, "sd_difference": 2.5}, 40),
+        (("continuous", "paired"), {"difference": -1.0, "sd_difference": 2.5}, 40),
     ],
 )
-def test_one_sample_one_sided_power_matches_noncentral_t_both_signs(design, effect, n):
-    q = power_q(design, effect, (n,))
+def test_one_sample_one_sided_power_matches_noncentral_t_both_signs(cell, values, n):
+    q = power_q(cell, values, (n,))
     power = compute(q)["power"]
-    sd = effect.get("sd", effect.get("sd_difference"))
-    exact = t_one_sided(effect["difference"] * math.sqrt(n) / sd, n - 1)
+    sd = values.get("sd", values.get("sd_difference"))
+    exact = t_one_sided(values["difference"] * math.sqrt(n) / sd, n - 1)
     assert power["analytic"] == pytest.approx(exact, abs=1e-6)
     assert within(power["estimate"], exact)
 
 
 @pytest.mark.parametrize("p1,p2", [(0.05, 0.10), (0.10, 0.05)])
-def test_two_proportions_z_one_sided_matches_exact_enumeration_both_signs(p1, p2):
-    q = power_q("two_proportions", {"p_control": p1, "p_treatment": p2}, (400, 400), "z_test")
+def test_binary_two_groups_z_one_sided_matches_exact_enumeration_both_signs(p1, p2):
+    q = power_q(
+        ("binary", "two_groups"), {"p_control": p1, "p_treatment": p2}, (400, 400), "pooled_z"
+    )
     power = compute(q)["power"]
     exact = z_one_sided_exact(p1, 400, p2, 400, 1 if p2 > p1 else -1)
     assert within(power["estimate"], exact)
@@ -153,7 +170,9 @@ def test_two_proportions_z_one_sided_matches_exact_enumeration_both_signs(p1, p2
 
 @pytest.mark.parametrize("p1,p2", [(0.05, 0.15), (0.15, 0.05)])
 def test_fisher_one_sided_matches_exact_enumeration_both_signs(p1, p2):
-    q = power_q("two_proportions", {"p_control": p1, "p_treatment": p2}, (150, 150), "fisher_exact")
+    q = power_q(
+        ("binary", "two_groups"), {"p_control": p1, "p_treatment": p2}, (150, 150), "fisher_exact"
+    )
     power = compute(q)["power"]
     exact = fisher_one_sided_exact(p1, 150, p2, 150, 1 if p2 > p1 else -1)
     assert exact > 0.7
@@ -161,23 +180,23 @@ def test_fisher_one_sided_matches_exact_enumeration_both_signs(p1, p2):
 
 
 @pytest.mark.parametrize(
-    "design,effect,per_arm",
+    "cell,values,per_group",
     [
         # Noether (1987), JASA 82:645
-        ("rank_sum", {"prob_superiority": 0.62}, (100, 100)),
-        ("rank_sum", {"prob_superiority": 0.38}, (100, 100)),
+        (("ordinal", "two_groups"), {"prob_superiority": 0.62}, (100, 100)),
+        (("ordinal", "two_groups"), {"prob_superiority": 0.38}, (100, 100)),
         # Fisher z (Cohen 1988, ch. 3); the simulation applies the exact t test of ρ = 0
-        ("correlation", {"r": 0.3}, (70,)),
-        ("correlation", {"r": -0.3}, (70,)),
-        ("correlation", {"r": 0.5, "r0": 0.3}, (120,)),
-        ("correlation", {"r": 0.1, "r0": 0.3}, (120,)),
-        # Schoenfeld (1983), Biometrics 39:499, with the exponential P(event) of the design
-        ("survival_logrank", {"hazard_ratio": 0.7}, (150, 150)),
-        ("survival_logrank", {"hazard_ratio": 1 / 0.7}, (150, 150)),
+        (("association", "single_group"), {"r": 0.3}, (70,)),
+        (("association", "single_group"), {"r": -0.3}, (70,)),
+        (("association", "single_group"), {"r": 0.5, "r_null": 0.3}, (120,)),
+        (("association", "single_group"), {"r": 0.1, "r_null": 0.3}, (120,)),
+        # Schoenfeld (1983), Biometrics 39:499, with the exponential P(event) of the cell
+        (("time_to_event", "two_groups"), {"hazard_ratio": 0.7}, (150, 150)),
+        (("time_to_event", "two_groups"), {"hazard_ratio": 1 / 0.7}, (150, 150)),
     ],
 )
-def test_one_sided_power_matches_the_formula_both_signs(design, effect, per_arm):
-    power = compute(power_q(design, effect, per_arm))["power"]
+def test_one_sided_power_matches_the_formula_both_signs(cell, values, per_group):
+    power = compute(power_q(cell, values, per_group))["power"]
     assert power["analytic"] > 0.7
     assert within(power["estimate"], power["analytic"])
 
@@ -185,37 +204,39 @@ def test_one_sided_power_matches_the_formula_both_signs(design, effect, per_arm)
 def test_one_sided_search_for_a_reduction_finds_the_analytic_size():
     # Two proportions 0.10 → 0.05, one-sided: the search used to stop at "power stays below".
     q = make_q(
-        "two_proportions",
-        effect={"p_control": 0.10, "p_treatment": 0.05},
-        sides=1,
+        "binary",
+        "two_groups",
+        effect={"p_treatment": 0.05},
+        assumptions={"p_control": 0.10},
+        alternative="one-sided",
         simulation={"replicates": 2000, "search_replicates": 1000, "seed": SEED},
     )
-    analytic = compute(dict(q, method="analytic", simulation=None))["sample_size"]["per_arm"][0]
+    analytic = compute(dict(q, method="analytic", simulation=None))["sample_size"]["per_group"][0]
     record = compute(q)
-    assert abs(record["sample_size"]["per_arm"][0] - analytic) <= 0.15 * analytic
+    assert abs(record["sample_size"]["per_group"][0] - analytic) <= 0.15 * analytic
     assert record["power"]["estimate"] > 0.75
 
 
 def test_a_data_model_sets_the_direction_of_the_simulated_test():
-    # Normal arms 120 vs 115, SD 12: a reduction of 5 given only by the data model.
-    arms = {
+    # Normal groups 120 vs 115, SD 12: a reduction of 5 given only by the data model.
+    groups = {
         "control": {"family": "normal", "mean": 120.0, "sd": 12.0},
         "treatment": {"family": "normal", "mean": 115.0, "sd": 12.0},
     }
-    q = power_q("two_means", {"difference": -5.0, **SD}, (100, 100), "welch_t")
-    q["simulation"]["data"] = arms
-    p = simulate.plan(q, 0.05)
-    assert p["rule"]["direction"] == -1
+    q = power_q(("continuous", "two_groups"), {"difference": -5.0, **SD}, (100, 100), "welch_t")
+    q["simulation"]["data"] = groups
+    assert make_plan(q, 0.05).rule.direction == -1
     exact = t_one_sided(-5.0 / (12.0 * math.sqrt(2 / 100)), 198)
     assert within(compute(q)["power"]["estimate"], exact)
 
 
 def test_survival_effect_search_looks_above_one_when_shorter_times_are_better():
     q = make_q(
-        "survival_logrank",
+        "time_to_event",
+        "two_groups",
         find="effect",
-        per_arm=(150, 150),
-        sides=1,
+        per_group=(150, 150),
+        alternative="one-sided",
         hypothesis={"higher_is_better": False},
         target_power=0.8,
     )
@@ -223,12 +244,13 @@ def test_survival_effect_search_looks_above_one_when_shorter_times_are_better():
     assert analytic > 1
     # The simulated log-rank test at that hazard ratio, looking the same way, has the power.
     sim = make_q(
-        "survival_logrank",
+        "time_to_event",
+        "two_groups",
         effect={"hazard_ratio": analytic},
-        per_arm=(150, 150),
-        sides=1,
+        per_group=(150, 150),
+        alternative="one-sided",
         hypothesis={"higher_is_better": False},
         simulation={"replicates": REPS, "seed": SEED},
     )
-    assert simulate.plan(sim, 0.05)["rule"]["direction"] == 1  # z > 0: more treatment events
+    assert make_plan(sim, 0.05).rule.direction == 1  # z > 0: more treatment events
     assert within(compute(sim)["power"]["estimate"], 0.8)

@@ -12,7 +12,7 @@ from tests.engine.questions import make_q
 
 
 def curve(shift: float = 0.0):
-    """A deterministic evaluator: two-sided z-test power for d = 0.5 at m per arm (formula)."""
+    """A deterministic evaluator: two-sided z-test power for d = 0.5 at m per group (formula)."""
     calls = []
 
     def evaluate(ms, reps, null_at):
@@ -152,40 +152,40 @@ def test_mcse_reference():
     assert search.Estimate(5000, 10000).mcse == pytest.approx(0.005)
 
 
-def _two_means(**sim):
+def _two_groups(**sim):
     """The two-means simulation question these tests search on (seed 11, Student t)."""
-    return make_q("two_means", simulation={"seed": 11, "test": "student_t", **sim})
+    return make_q("continuous", "two_groups", simulation={"seed": 11, **sim})
 
 
 def test_simulated_search_starts_from_the_analytic_start():
     # published 64 per group: Cohen 1988, Table 2.4.1 (raw 63.77), used as the start; answer ±2
-    out = simulate.answer(_two_means(), 0.05, per_arm=None, start=[63.77, 63.77])
+    out = simulate.answer(_two_groups(), 0.05, per_group=None, start=[63.77, 63.77])
     s = out["search"]
     assert s["start"] == [63.77, 63.77] and s["start_source"] == "analytic"
-    assert s["candidates"][0]["per_arm"] == [64, 64]
+    assert s["candidates"][0]["per_group"] == [64, 64]
     assert len(s["candidates"]) <= search.MAX_CANDIDATES
-    assert abs(out["per_arm"][0] - 64) <= 2
+    assert abs(out["per_group"][0] - 64) <= 2
 
 
 def test_simulated_search_from_its_own_normal_approximation():
     # formula: z approximation 2(z.975 + z.80)²/d² + 1 = 63.8 when no analytic start is given
-    q = _two_means(
+    q = _two_groups(
         data={
             "control": {"family": "normal", "mean": 0.0, "sd": 1.0},
             "treatment": {"family": "normal", "mean": 0.5, "sd": 1.0},
         }
     )
-    out = simulate.answer(q, 0.05, per_arm=None, start=None)
+    out = simulate.answer(q, 0.05, per_group=None, start=None)
     assert out["search"]["start_source"] == "normal approximation"
-    assert out["search"]["candidates"][0]["per_arm"] == [64, 64]
-    assert abs(out["per_arm"][0] - 64) <= 2
+    assert out["search"]["candidates"][0]["per_group"] == [64, 64]
+    assert abs(out["per_group"][0] - 64) <= 2
 
 
 def test_simulated_search_from_a_poor_start_stays_bounded():
     # published 64 per group: Cohen 1988, Table 2.4.1; a start at a third of it still converges
-    out = simulate.answer(_two_means(), 0.05, per_arm=None, start=[21.0, 21.0])
+    out = simulate.answer(_two_groups(), 0.05, per_group=None, start=[21.0, 21.0])
     assert len(out["search"]["candidates"]) <= search.MAX_CANDIDATES
-    assert abs(out["per_arm"][0] - 64) <= 2
+    assert abs(out["per_group"][0] - 64) <= 2
 
 
 # --- what the search spends --------------------------------------------------------------------
@@ -193,19 +193,24 @@ def test_simulated_search_from_a_poor_start_stays_bounded():
 
 def _counting_executor(seen: list, chunks: list | None = None):
     def executor(tasks):
-        seen.extend((t["stream"], tuple(t["per_arm"]), t["replicates"]) for t in tasks)
+        seen.extend((t["stream"], tuple(t["per_group"]), t["replicates"]) for t in tasks)
         if chunks is not None:
-            chunks.extend((t["stream"], tuple(t["per_arm"]), t["chunk"]) for t in tasks)
+            chunks.extend((t["stream"], tuple(t["per_group"]), t["chunk"]) for t in tasks)
         return [simulate.run_chunk(t) for t in tasks]
 
     return executor
 
 
 def _for_n(n: float, **sim) -> dict:
-    """Two means whose z-approximation answer is n per arm: d = (z.975 + z.80)·√(2/n)."""
+    """Two means whose z-approximation answer is n per group: d = (z.975 + z.80)·√(2/n)."""
     d = (1.959964 + 0.841621) * math.sqrt(2 / n)
     effect = {"difference": d, "sd_control": 1.0, "sd_treatment": 1.0}
-    return make_q("two_means", effect=effect, simulation={"seed": 11, "test": "student_t", **sim})
+    return make_q(
+        "continuous",
+        "two_groups",
+        effect=effect,
+        simulation={"seed": 11, **sim},
+    )
 
 
 @pytest.mark.parametrize("n", [20, 200])
@@ -228,7 +233,7 @@ def test_search_spends_little_beyond_the_minimum(n):
     assert block["search"] == 2000 * len(out["search"]["candidates"])
     first, second = out["search"]["confirmation"]
     assert first["power"] >= 0.8 > second["power"]  # the decision rule still holds at n, n − 1
-    assert second["per_arm"][0] == first["per_arm"][0] - 1 == out["per_arm"][0] - 1
+    assert second["per_group"][0] == first["per_group"][0] - 1 == out["per_group"][0] - 1
 
 
 def test_search_counts_every_replicate_once_and_bounds_the_moves():
@@ -241,15 +246,15 @@ def test_search_counts_every_replicate_once_and_bounds_the_moves():
     assert block["total"] == sum(r for *_, r in seen)
     assert out["search"]["moves"] <= search.MAX_N_MOVES
     assert block["full"] <= (2 + search.MAX_N_MOVES) * 10000
-    (m1, e1), (m0, e0) = [(c["per_arm"][0], c) for c in out["search"]["confirmation"]]
+    (m1, e1), (m0, e0) = [(c["per_group"][0], c) for c in out["search"]["confirmation"]]
     assert m0 == m1 - 1 and e1["power"] >= 0.8 > e0["power"]
-    # formula: z approximation 2000 per arm (t test: 2001); Monte Carlo error at 10,000
+    # formula: z approximation 2000 per group (t test: 2001); Monte Carlo error at 10,000
     # replicates is about 0.004 in power, 20 sizes here: 4 MCSE is ±80
     assert abs(m1 - 2001) <= 80
 
 
 def test_budget_is_enforced_on_the_draws_made():
-    # exact count: sufficient statistics draw a mean and a variance per arm, 4 per replicate
+    # exact count: sufficient statistics draw a mean and a variance per group, 4 per replicate
     seen: list = []
     q = _for_n(200)
     out = simulate.answer(q, 0.05, executor=_counting_executor(seen))
@@ -257,7 +262,7 @@ def test_budget_is_enforced_on_the_draws_made():
     assert out["search"]["replicates_run"]["draws"] == drawn
     again: list = []
     same = simulate.answer(q, 0.05, executor=_counting_executor(again), budget=drawn)
-    assert same["per_arm"] == out["per_arm"] and again == seen  # the exact budget is enough
+    assert same["per_group"] == out["per_group"] and again == seen  # the exact budget is enough
     stopped: list = []
     with pytest.raises(BudgetExceeded) as info:
         simulate.answer(q, 0.05, executor=_counting_executor(stopped), budget=drawn - 1)

@@ -1,7 +1,7 @@
 """Simulated find = effect: the smallest effect whose simulated power at n reaches the target.
 
 Each check compares the simulated effect with an outside reference (statsmodels, a published
-table) or with the design's formula, within a tolerance derived from the Monte Carlo error:
+table) or with the cell's formula, within a tolerance derived from the Monte Carlo error:
 the power's standard error √(p(1 − p)/R) carried to the effect scale through the slope of the
 power curve (delta method), plus the search's 1% bisection width.
 """
@@ -14,7 +14,7 @@ import math
 import pytest
 from statsmodels.stats.power import TTestIndPower
 
-from service.engine import QuestionError, compute, estimate_cost, search, simulate
+from service.engine import QuestionError, compute, estimate_cost, search
 from service.engine.designs import get
 from tests.engine.questions import make_q
 
@@ -23,10 +23,10 @@ TARGET = 0.80
 NORMAL = {"family": "normal", "mean": 0.0, "sd": 1.0}
 
 
-def effect_question(design: str, per_arm: list[int], replicates: int = 10000, **kw) -> dict:
+def effect_question(cell: tuple, per_group: list[int], replicates: int = 10000, **kw) -> dict:
     """A find = effect simulation question at this file's seed."""
     sim = {"replicates": replicates, "seed": SEED, **kw.pop("simulation", {})}
-    return make_q(design, find="effect", per_arm=per_arm, simulation=sim, **kw)
+    return make_q(*cell, find="effect", per_group=per_group, simulation=sim, **kw)
 
 
 def tolerance(power_at, value: float, origin: float, replicates: int, approx: float = 0.0):
@@ -41,21 +41,21 @@ def tolerance(power_at, value: float, origin: float, replicates: int, approx: fl
     return (4 * se_power + approx) / slope + width
 
 
-def formula_power(q: dict, per_arm: list[int]):
-    """The design's formula power as a function of the solved-for effect value."""
-    design = get(q["design"])
-    name = simulate.EFFECT_FIELDS[q["design"]]
+def formula_power(q: dict, per_group: list[int]):
+    """The cell's formula power as a function of the solved-for effect value."""
+    design = get(q["outcome"], q["layout"])
+    name = design.solved
 
     def power_at(value: float) -> float:
         solved = copy.deepcopy(q)
         solved["effect"][name] = value
-        return design.power(solved, [float(n) for n in per_arm], q["alpha"])
+        return design.power(solved, [float(n) for n in per_group], q["alpha"])
 
     return power_at
 
 
-def test_two_means_d_at_64_per_arm_is_half() -> None:
-    q = effect_question("two_means", [64, 64])
+def test_two_groups_d_at_64_per_group_is_half() -> None:
+    q = effect_question(("continuous", "two_groups"), [64, 64])
     record = compute(q)
     # Cohen 1988, Table 2.4.1: n = 64 per group for d = 0.5 at power .80, two-sided .05;
     # the reference effect is statsmodels' noncentral t solve at n = 64 (0.4991, recomputed).
@@ -78,7 +78,7 @@ def test_two_means_d_at_64_per_arm_is_half() -> None:
 
 
 def test_effect_search_reports_candidates_on_common_random_numbers() -> None:
-    record = compute(effect_question("two_means", [64, 64]))
+    record = compute(effect_question(("continuous", "two_groups"), [64, 64]))
     block = record["search"]
     assert block["field"] == "difference" and block["start_source"] == "analytic"
     assert block["search_replicates"] == 2000 and block["target"] == TARGET
@@ -97,66 +97,66 @@ def test_effect_search_reports_candidates_on_common_random_numbers() -> None:
 
 
 def test_type_i_error_is_checked_at_the_given_n() -> None:
-    record = compute(effect_question("two_means", [64, 64]))
+    record = compute(effect_question(("continuous", "two_groups"), [64, 64]))
     t1 = record["type_i_error"]
-    # A calibrated test rejects a true null at alpha: within 4 Monte Carlo SEs of 0.05 (formula).
+    # A test that holds its level rejects a true null at alpha: within 4 Monte Carlo SEs of 0.05 (formula).
     assert t1["replicates"] == 10000 and t1["alpha"] == 0.05
     assert abs(t1["estimate"] - 0.05) <= 4 * math.sqrt(0.05 * 0.95 / 10000)
     assert "difference 0" in t1["null_model"]
-    assert record["sample_size"]["per_arm"] == [64, 64]
+    assert record["sample_size"]["per_group"] == [64, 64]
 
 
 @pytest.mark.parametrize(
-    "design, per_arm, effect, approx",
+    "cell, per_group, assumptions, approx",
     [
         # p = .40 vs .60 needs 96.92 → 97 per group (formula, pooled normal approximation;
         # Fleiss, Levin & Paik 2003); the simulated z test is exact, so allow 0.01 in power (from memory:
         # the approximation is within a point of power here).
-        ("two_proportions", [97, 97], {"p_control": 0.4}, 0.01),
+        (("binary", "two_groups"), [97, 97], {"p_control": 0.4}, 0.01),
         # r = 0.3 needs 85 pairs (Cohen 1988, Table 3.4.1; Fisher z, recomputed); the simulated
         # Pearson test is exact, the formula approximate: same allowance.
-        ("correlation", [85], None, 0.01),
+        (("association", "single_group"), [85], None, 0.01),
     ],
 )
-def test_simulated_effect_agrees_with_the_formula(design, per_arm, effect, approx) -> None:
-    q = effect_question(design, per_arm, effect=effect)
+def test_simulated_effect_agrees_with_the_formula(cell, per_group, assumptions, approx) -> None:
+    q = effect_question(cell, per_group, assumptions=assumptions)
     record = compute(q)
-    analytic = get(design).solve_effect(q, [float(n) for n in per_arm], 0.05)
+    analytic = get(*cell).solve_effect(q, [float(n) for n in per_group], 0.05)
     got = record["effect"]
     assert got["field"] == analytic["field"] and got["analytic"] == pytest.approx(analytic["value"])
-    origin = q["effect"].get("p_control", q["effect"].get("r0", 0.0))
-    tol = tolerance(formula_power(q, per_arm), analytic["value"], origin, 10000, approx)
+    origin = q["assumptions"].get("p_control", q["assumptions"].get("r_null", 0.0))
+    tol = tolerance(formula_power(q, per_group), analytic["value"], origin, 10000, approx)
     assert abs(got["value"] - analytic["value"]) <= tol
     assert record["power"]["estimate"] >= TARGET
 
 
 @pytest.mark.parametrize(
-    "design, per_arm, origin, approx",
+    "cell, per_group, origin, approx",
     [
         # d = 0.5 needs 33.37 → 34 (formula: noncentral t): exact in simulation.
-        ("one_mean", [34], 0.0, 0.0),
-        ("paired_mean", [34], 0.0, 0.0),
+        (("continuous", "single_group"), [34], 0.0, 0.0),
+        (("continuous", "paired"), [34], 0.0, 0.0),
         # f = 0.25, k = 3 needs 52.40 → 53 per group (Cohen 1988, Table 8.4.4; recomputed).
-        ("anova_oneway", [53, 53, 53], 0.0, 0.0),
+        (("continuous", "k_groups"), [53, 53, 53], 0.0, 0.0),
         # P(Y > X) = 0.6382 needs N = 137.06 (Noether 1987, formula): an approximation.
-        ("rank_sum", [69, 69], 0.5, 0.01),
+        (("ordinal", "two_groups"), [69, 69], 0.5, 0.01),
         # HR 0.75 with 24 accrual + 12 follow-up needs 559 in all (Schoenfeld 1983, formula).
-        ("survival_logrank", [280, 280], 1.0, 0.01),
+        (("time_to_event", "two_groups"), [280, 280], 1.0, 0.01),
     ],
 )
-def test_other_designs_agree_with_their_formulas(design, per_arm, origin, approx) -> None:
-    q = effect_question(design, per_arm, replicates=4000)
+def test_other_cells_agree_with_their_formulas(cell, per_group, origin, approx) -> None:
+    q = effect_question(cell, per_group, replicates=4000)
     record = compute(q)
-    analytic = get(design).solve_effect(q, [float(n) for n in per_arm], 0.05)
+    analytic = get(*cell).solve_effect(q, [float(n) for n in per_group], 0.05)
     assert record["effect"]["field"] == analytic["field"]
-    tol = tolerance(formula_power(q, per_arm), analytic["value"], origin, 4000, approx)
+    tol = tolerance(formula_power(q, per_group), analytic["value"], origin, 4000, approx)
     assert abs(record["effect"]["value"] - analytic["value"]) <= tol
-    if design == "survival_logrank":
+    if cell == ("time_to_event", "two_groups"):
         assert record["effect"]["value"] < 1 and record["events"]["simulated"]["replicates"] == 4000
 
 
 def test_lower_is_better_searches_below_the_null() -> None:
-    q = effect_question("two_means", [64, 64], replicates=4000)
+    q = effect_question(("continuous", "two_groups"), [64, 64], replicates=4000)
     q["hypothesis"]["higher_is_better"] = False
     value = compute(q)["effect"]["value"]
     # Two-sided t power is symmetric in d (formula), so the answer mirrors d = 0.4991.
@@ -170,20 +170,22 @@ def test_lower_is_better_searches_below_the_null() -> None:
 
 def test_noninferiority_effect_is_measured_from_the_margin() -> None:
     q = effect_question(
-        "two_means",
+        ("continuous", "two_groups"),
         [50, 50],
         replicates=4000,
-        hypothesis={"kind": "noninferiority", "margin": -0.3},
+        hypothesis={"aim": "noninferiority", "margin": -0.3},
     )
     record = compute(q)
-    analytic = get("two_means").solve_effect(q, [50.0, 50.0], 0.05)["value"]
+    analytic = get("continuous", "two_groups").solve_effect(q, [50.0, 50.0], 0.05)["value"]
     tol = tolerance(formula_power(q, [50, 50]), analytic, -0.3, 4000)
     assert abs(record["effect"]["value"] - analytic) <= tol
     assert "margin" in record["type_i_error"]["null_model"]
 
 
 def test_same_seed_gives_the_identical_record() -> None:
-    q = effect_question("two_proportions", [97, 97], replicates=2000, effect={"p_control": 0.4})
+    q = effect_question(
+        ("binary", "two_groups"), [97, 97], replicates=2000, assumptions={"p_control": 0.4}
+    )
     first, second = compute(q), compute(copy.deepcopy(q))
     assert first == second
     assert first["reproducibility"]["record_sha256"] == second["reproducibility"]["record_sha256"]
@@ -193,9 +195,11 @@ def test_same_seed_gives_the_identical_record() -> None:
 
 
 def test_dropout_is_removed_before_the_search() -> None:
-    q = effect_question("two_means", [80, 80], replicates=2000, adjustments={"dropout": 0.2})
+    q = effect_question(
+        ("continuous", "two_groups"), [80, 80], replicates=2000, adjustments={"dropout": 0.2}
+    )
     record = compute(q)
-    assert record["sample_size"]["analysed_per_arm"] == pytest.approx([64.0, 64.0])
+    assert record["sample_size"]["analyzed_per_group"] == pytest.approx([64.0, 64.0])
     assert record["power"]["replicates"] == 2000
     assert record["effect"]["analytic"] == pytest.approx(
         TTestIndPower().solve_power(nobs1=64, power=TARGET, alpha=0.05, ratio=1.0), abs=1e-6
@@ -204,7 +208,7 @@ def test_dropout_is_removed_before_the_search() -> None:
 
 def test_a_posted_data_model_is_refused_on_simulation_data() -> None:
     q = effect_question(
-        "two_means",
+        ("continuous", "two_groups"),
         [64, 64],
         replicates=2000,
         simulation={"data": {"control": NORMAL, "treatment": dict(NORMAL, mean=0.5)}},
@@ -217,31 +221,31 @@ def test_a_posted_data_model_is_refused_on_simulation_data() -> None:
 
 
 def test_an_unreachable_target_names_the_sample_size() -> None:
-    # Two per arm: the rank-sum z cannot pass 1.96 (|U − 2| ≤ 2 over SD √(20/12); formula).
-    q = effect_question("rank_sum", [2, 2], replicates=2000)
+    # Two per group: the rank-sum z cannot pass 1.96 (|U − 2| ≤ 2 over SD √(20/12); formula).
+    q = effect_question(("ordinal", "two_groups"), [2, 2], replicates=2000)
     with pytest.raises(QuestionError) as info:
         compute(q)
-    assert info.value.field == "sample_size.per_arm"
+    assert info.value.field == "sample_size.per_group"
     assert "[2, 2]" in info.value.message and "0.8" in info.value.message
 
 
 def test_cost_estimate_covers_the_runs_made() -> None:
-    q = effect_question("two_means", [64, 64], replicates=2000)
+    q = effect_question(("continuous", "two_groups"), [64, 64], replicates=2000)
     record = compute(q)
     block = record["search"]
     # search runs, then the confirmation pair, its moves and the type I check at full replicates
     runs = sum(r["replicates"] for r in block["candidates"]) + (3 + block["moves"]) * 2000
-    # Sufficient statistics: two draws (mean, variance) per arm per replicate (formula).
+    # Sufficient statistics: two draws (mean, variance) per group per replicate (formula).
     assert estimate_cost(q) >= runs * 4
 
 
 def test_one_sided_logrank_searches_a_hazard_ratio_below_one() -> None:
     # Longer times to the event are better by default, so a one-sided search looks below 1 and
     # lands near the Schoenfeld (1983) one-sided answer (formula).
-    q = effect_question("survival_logrank", [280, 280], replicates=4000)
-    q["sides"] = 1
+    q = effect_question(("time_to_event", "two_groups"), [280, 280], replicates=4000)
+    q["alternative"] = "one-sided"
     record = compute(q)
-    analytic = get("survival_logrank").solve_effect(q, [280.0, 280.0], 0.05)
+    analytic = get("time_to_event", "two_groups").solve_effect(q, [280.0, 280.0], 0.05)
     assert 0 < record["effect"]["value"] < 1 and 0 < analytic["value"] < 1
     tol = tolerance(formula_power(q, [280, 280]), analytic["value"], 1.0, 4000, 0.01)
     assert abs(record["effect"]["value"] - analytic["value"]) <= tol

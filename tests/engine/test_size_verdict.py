@@ -13,7 +13,7 @@ from tests.engine.questions import make_q
 
 
 def fisher_size_exact(p: float, n: int, alpha: float = 0.05) -> float:
-    """Exact size of the two-sided Fisher test at common p, n per arm: exact enumeration.
+    """Exact size of the two-sided Fisher test at common p, n per group: exact enumeration.
 
     Every table (c1, c2) is weighted by its binomial probability; its p-value sums the
     hypergeometric probabilities (scipy.stats.hypergeom) of the tables with the same margin
@@ -45,17 +45,20 @@ def test_fisher_below_alpha_is_conservative_not_a_failure():
     exact = fisher_size_exact(0.3, 40)
     assert exact == pytest.approx(0.0282, abs=5e-4)  # below 0.05: the test is conservative
     q = make_q(
-        "two_proportions",
-        effect={"p_control": 0.3, "p_treatment": 0.6},
-        per_arm=(40, 40),
-        simulation={"test": "fisher_exact", "replicates": 4000, "seed": 11},
+        "binary",
+        "two_groups",
+        effect={"p_treatment": 0.6},
+        assumptions={"p_control": 0.3},
+        per_group=(40, 40),
+        analysis="fisher_exact",
+        simulation={"replicates": 4000, "seed": 11},
     )
     record = compute(q)
     t1 = record["type_i_error"]
     lo, hi = t1["ci95"]
     assert lo <= exact <= hi  # the simulated size agrees with the exact enumeration
     assert t1["verdict"] == "conservative"
-    assert "calibrated" not in t1
+    assert set(t1) == {"estimate", "mcse", "ci95", "replicates", "alpha", "verdict", "null_model"}
     assert not any("type I error" in w for w in record["warnings"])
 
 
@@ -75,12 +78,15 @@ def test_verdict_uses_the_wilson_interval_against_alpha(rejections, alpha, verdi
 
 def test_a_liberal_test_exceeds_and_warns():
     # common practice, no source: the pooled t test with the larger SD in the smaller arm is
-    # liberal; SD 1 vs 2 with 60/20 per arm rejects a true null far above 0.05.
+    # liberal; SD 1 vs 2 with 60/20 per group rejects a true null far above 0.05.
     q = make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 2.0},
-        per_arm=(60, 20),
-        simulation={"test": "student_t", "replicates": 4000, "seed": 3},
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 2.0},
+        per_group=(60, 20),
+        analysis="pooled_t",
+        simulation={"replicates": 4000, "seed": 3},
     )
     record = compute(q)
     assert record["type_i_error"]["verdict"] == "exceeds"
@@ -90,8 +96,10 @@ def test_a_liberal_test_exceeds_and_warns():
 
 def test_robustness_panel_judges_sizes_against_the_per_comparison_alpha():
     q = make_q(
-        "two_means",
-        effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
+        "continuous",
+        "two_groups",
+        effect={"difference": 0.5},
+        assumptions={"sd_control": 1.0, "sd_treatment": 1.0},
         adjustments={"comparisons": 2},
     )
     panel = explore.robustness(q, [86, 86], replicates=2000, seed=7)

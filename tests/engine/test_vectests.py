@@ -13,11 +13,11 @@ from statsmodels.stats.weightstats import ttost_ind
 from service.engine import vectests as vt
 
 RNG = np.random.default_rng(20240611)
-TWO = {"kind": "superiority", "sides": 2, "direction": 1, "margin": None}
+TWO = {"aim": "superiority", "alternative": "two-sided", "direction": 1, "margin": None}
 ALTERNATIVES = [
     ("two-sided", TWO),
-    ("greater", {"kind": "superiority", "sides": 1, "direction": 1, "margin": None}),
-    ("less", {"kind": "superiority", "sides": 1, "direction": -1, "margin": None}),
+    ("greater", {"aim": "superiority", "alternative": "one-sided", "direction": 1, "margin": None}),
+    ("less", {"aim": "superiority", "alternative": "one-sided", "direction": -1, "margin": None}),
 ]
 
 
@@ -63,7 +63,7 @@ def test_tost_matches_statsmodels():
     mx, vx = vt.row_moments(x)
     my, vy = vt.row_moments(y)
     est, se, df = vt.two_sample_t(mx, vx, 20, my, vy, 20, equal_var=True)
-    rule = {"kind": "equivalence", "sides": 1, "direction": 1, "margin": 0.8}
+    rule = {"aim": "equivalence", "alternative": "one-sided", "direction": 1, "margin": 0.8}
     ours = vt.pvalue(est, se, df, rule)
     ref = [ttost_ind(y[i], x[i], -0.8, 0.8, usevar="pooled")[0] for i in range(6)]
     np.testing.assert_allclose(ours, ref, rtol=1e-8)
@@ -75,7 +75,7 @@ def test_noninferiority_shift_matches_scipy():
     mx, vx = vt.row_moments(x)
     my, vy = vt.row_moments(y)
     est, se, df = vt.two_sample_t(mx, vx, 15, my, vy, 15, equal_var=True)
-    rule = {"kind": "noninferiority", "sides": 1, "direction": 1, "margin": -0.5}
+    rule = {"aim": "noninferiority", "alternative": "one-sided", "direction": 1, "margin": -0.5}
     ref = stats.ttest_ind(y + 0.5, x, axis=1, alternative="greater")
     np.testing.assert_allclose(vt.pvalue(est, se, df, rule), ref.pvalue, rtol=1e-8)
 
@@ -138,7 +138,7 @@ def test_pearson_matches_scipy():
 
 
 def test_fisher_z_for_nonzero_null():
-    # formula: Fisher z test, z = (atanh r − atanh r0)·√(n − 3), two-sided normal reference
+    # formula: Fisher z test, z = (atanh r − atanh r_null)·√(n − 3), two-sided normal reference
     r = np.array([0.1, 0.3, 0.5, 0.7])
     z = (np.arctanh(r) - np.arctanh(0.3)) * np.sqrt(47)
     want = 2 * stats.norm.sf(np.abs(z)) < 0.05
@@ -159,7 +159,7 @@ def test_shifted_wald_z_matches_statsmodels():
     # recomputed: statsmodels test_proportions_2indep(method="wald", value=margin, "larger")
     c1, c2 = np.array([30, 34, 28]), np.array([29, 27, 35])
     est, se = vt.two_proportion_z(c1, 40, c2, 42, pooled=False)
-    rule = {"kind": "noninferiority", "sides": 1, "direction": 1, "margin": -0.1}
+    rule = {"aim": "noninferiority", "alternative": "one-sided", "direction": 1, "margin": -0.1}
     ours = vt.pvalue(est, se, None, rule)
     for i in range(3):
         ref = sm_proportion.test_proportions_2indep(
@@ -170,7 +170,7 @@ def test_shifted_wald_z_matches_statsmodels():
 
 @pytest.mark.parametrize("alternative,rule", ALTERNATIVES)
 def test_fisher_matches_scipy(alternative, rule):
-    # recomputed: scipy.stats.fisher_exact on every table with 12 and 15 per arm
+    # recomputed: scipy.stats.fisher_exact on every table with 12 and 15 per group
     c1, c2 = np.meshgrid(np.arange(13), np.arange(16), indexing="ij")
     c1, c2 = c1.ravel(), c2.ravel()
     ours = vt.fisher_pvalues(c1, 12, c2, 15, rule)

@@ -224,7 +224,10 @@ def test_readme_example_request_is_a_valid_submission():
     from service.schemas.requests import RequestCreateSchema
 
     loaded = RequestCreateSchema().load(readme_example_request())
-    assert loaded["question"]["design"] == "two_means"
+    assert (loaded["question"]["outcome"], loaded["question"]["layout"]) == (
+        "continuous",
+        "two_groups",
+    )
     assert loaded["protocol"]["id"].startswith("NGH-")
 
 

@@ -60,13 +60,13 @@ def test_demo_loads_three_protocols_and_is_idempotent(config):
 
 def test_demo_covers_an_analytic_trial_a_simulation_and_a_survival_study(config):
     demo.load(config)
-    by_design = {(r.design, r.method): r for r in _rows(config)}
-    assert set(by_design) == {
-        ("two_means", "analytic"),
-        ("rank_sum", "simulation"),
-        ("survival_logrank", "analytic"),
+    by_cell = {(r.question["outcome"], r.question["layout"], r.method): r for r in _rows(config)}
+    assert set(by_cell) == {
+        ("continuous", "two_groups", "analytic"),
+        ("ordinal", "two_groups", "simulation"),
+        ("time_to_event", "two_groups", "analytic"),
     }
-    sim = by_design[("rank_sum", "simulation")]
+    sim = by_cell[("ordinal", "two_groups", "simulation")]
     # The skewed length-of-stay model is what makes the simulation worth running.
     assert sim.question["simulation"]["data"]["control"]["family"] == "lognormal"
     assert sim.seed == sim.question["simulation"]["seed"]
@@ -90,9 +90,9 @@ def test_demo_requests_are_queued_with_an_audit_trail(config):
             assert count >= 1, row.protocol_id
     queued = list((Path(config["BROKER_TRANSPORT_OPTIONS"]["data_folder_in"])).glob("*.msg"))
     tasks = [json.loads(p.read_text())["headers"]["task"] for p in queued]
-    # The simulation's task; the analyses of the answered requests are handed over at once.
+    # The simulation's task; the explorations of the answered requests are handed over at once.
     assert tasks.count("sizewise.run_request") == 1
-    assert set(tasks) <= {"sizewise.run_request", "sizewise.run_analysis"}
+    assert set(tasks) <= {"sizewise.run_request", "sizewise.run_exploration"}
 
 
 def test_demo_set_in_the_invented_hospital():

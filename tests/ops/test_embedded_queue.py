@@ -73,10 +73,12 @@ def _ready(proc, log: Path) -> bool:
 def _question(i: int) -> dict:
     # Thirty distinct analytic questions, so a mixed-up result would show.
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
         "target_power": 0.8,
-        "effect": {"difference": round(3.0 + 0.25 * i, 2), "sd": 10.0},
+        "effect": {"difference": round(3.0 + 0.25 * i, 2)},
+        "assumptions": {"sd": 10.0},
     }
 
 
@@ -154,7 +156,7 @@ def test_results_match_the_noncentral_t_from_statsmodels(embedded):
         }  # fmt: skip
         resp = client.post("/v1/requests", json=body)
         assert resp.status_code == 202, resp.get_json()
-        d = q["effect"]["difference"] / q["effect"]["sd"]
+        d = q["effect"]["difference"] / q["assumptions"]["sd"]
         wanted[resp.get_json()["id"]] = TTestIndPower().solve_power(
             effect_size=d, power=0.8, alpha=0.05, ratio=1.0
         )
@@ -167,5 +169,5 @@ def test_results_match_the_noncentral_t_from_statsmodels(embedded):
     for rid, raw in wanted.items():
         assert got[rid]["status"] == "computed", got[rid].get("error")
         size = got[rid]["result"]["sample_size"]
-        assert size["steps"][0]["per_arm_raw"][0] == pytest.approx(raw, abs=0.01)
-        assert size["per_arm"] == [math.ceil(raw)] * 2
+        assert size["steps"][0]["per_group_raw"][0] == pytest.approx(raw, abs=0.01)
+        assert size["per_group"] == [math.ceil(raw)] * 2

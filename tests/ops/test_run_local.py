@@ -111,12 +111,12 @@ def test_local_launcher_end_to_end(tmp_path: Path):
         from statsmodels.stats.power import TTestIndPower
 
         q = readme_example_request()["question"]
-        d = abs(q["effect"]["difference"]) / q["effect"]["sd"]
+        d = abs(q["effect"]["difference"]) / q["assumptions"]["sd"]
         raw = TTestIndPower().solve_power(effect_size=d, power=q["target_power"], alpha=q["alpha"])
         size = body["result"]["sample_size"]
-        assert size["steps"][0]["per_arm_raw"][0] == pytest.approx(raw, abs=0.01)
+        assert size["steps"][0]["per_group_raw"][0] == pytest.approx(raw, abs=0.01)
         keep = 1 - q["adjustments"]["dropout"]
-        assert size["per_arm"][0] in {math.ceil(raw / keep), math.ceil(math.ceil(raw) / keep)}
+        assert size["per_group"][0] in {math.ceil(raw / keep), math.ceil(math.ceil(raw) / keep)}
 
         # An audit re-run: the auditor's role, the stored question and seed.
         status, rerun = auditor.call("POST", f"/v1/requests/{rid}/reruns", {})
@@ -209,7 +209,8 @@ def test_the_embedded_worker_survives_kill_9_of_its_pool_and_of_its_process(tmp_
         wait_for(lambda: _banner_token(log), 120, f"the launcher's banner\n{tail(log)}", step=0.5)
         api = Api(port, _banner_token(log))
         question = {
-            "design": "rank_sum",
+            "outcome": "ordinal",
+            "layout": "two_groups",
             "find": "power",
             "sample_size": {"total": 1000},
             "simulation": {

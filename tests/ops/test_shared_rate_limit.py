@@ -58,8 +58,8 @@ def _burst(url: str, headers: dict) -> list[int]:
 
 
 def _pids(log: Path) -> set[str]:
-    """The worker processes that answered /v1/designs, from the access log's pid column."""
-    return set(re.findall(r"^<?(\d+)>? (?:200|401|429) /v1/designs$", log.read_text(), re.M))
+    """The worker processes that answered /v1/catalogue, from the access log's pid column."""
+    return set(re.findall(r"^<?(\d+)>? (?:200|401|429) /v1/catalogue$", log.read_text(), re.M))
 
 
 def test_rate_limit_is_shared_by_the_embedded_api_processes(tmp_path: Path):
@@ -91,16 +91,16 @@ def test_rate_limit_is_shared_by_the_embedded_api_processes(tmp_path: Path):
             return _get(health, {}) == 200
 
         wait_for(up, 90, "the API's /healthz", step=0.5)
-        designs = f"http://127.0.0.1:{port}/v1/designs"
-        with_token = _burst(designs, {"Authorization": f"Bearer {secret}"})
-        without = _burst(designs, {})
+        catalogue = f"http://127.0.0.1:{port}/v1/catalogue"
+        with_token = _burst(catalogue, {"Authorization": f"Bearer {secret}"})
+        without = _burst(catalogue, {})
         # The kernel may hand every connection of a burst to one process; more bursts (all past
         # the limit) go on until the other process has answered too, and it must refuse as well.
         extra: list[int] = []
         for _ in range(10):
             if len(_pids(log)) == 2:
                 break
-            extra += _burst(designs, {})
+            extra += _burst(catalogue, {})
     finally:
         stop_group(proc)
     assert sorted(with_token) == [200] * RATE + [429] * (CALLS - RATE), json.dumps(with_token)

@@ -1,6 +1,6 @@
 """Property tests: any valid question either yields a sealed record or a field-naming error.
 
-Questions are generated from strategies over each design's fields and the ranges the schema
+Questions are generated from strategies over each cell's fields and the ranges the schema
 allows (analytic for every find, small simulations for power). Each goes through
 ``load_question`` and ``service.engine.compute``. The outcome must be a record whose hash
 verifies, with sample sizes of at least 2 and a power in [0, 1]; or a ``QuestionInvalid`` /
@@ -15,77 +15,75 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from service.engine import EngineError, QuestionError, compute
+from service.engine import EngineError, QuestionError, compute, designs
 from service.engine.records import verify
 from service.schemas import QuestionInvalid
 from service.schemas.question import load_question
-
-DESIGNS = (
-    "two_means",
-    "one_mean",
-    "paired_mean",
-    "two_proportions",
-    "anova_oneway",
-    "correlation",
-    "rank_sum",
-    "survival_logrank",
-)
-ONE_ARM = ("one_mean", "paired_mean", "correlation")
 
 
 def _floats(low: float, high: float):
     return st.floats(low, high, allow_nan=False, allow_infinity=False)
 
 
-def _effect(design: str):
-    if design in ("two_means", "one_mean"):
-        return st.fixed_dictionaries({"difference": _floats(0.1, 2.0), "sd": _floats(0.5, 3.0)})
-    if design == "paired_mean":
-        return st.one_of(
-            st.fixed_dictionaries(
-                {"difference": _floats(0.1, 2.0), "sd_difference": _floats(0.5, 3.0)}
-            ),
-            st.fixed_dictionaries(
-                {
-                    "difference": _floats(0.1, 2.0),
-                    "sd": _floats(0.5, 3.0),
-                    "correlation": _floats(0.0, 0.9),
-                }
-            ),
-        )
-    if design == "two_proportions":
-        return st.tuples(_floats(0.05, 0.6), _floats(0.05, 0.3), st.booleans()).map(
-            lambda t: {"p_control": t[0], "p_treatment": t[0] + t[1], "continuity_correction": t[2]}
-        )
-    if design == "anova_oneway":
-        return st.fixed_dictionaries({"cohens_f": _floats(0.1, 0.6), "groups": st.integers(2, 5)})
-    if design == "correlation":
-        return st.fixed_dictionaries({"r": _floats(0.1, 0.6)})
-    if design == "rank_sum":
-        return st.fixed_dictionaries({"prob_superiority": _floats(0.55, 0.8)})
-    return st.fixed_dictionaries(
+def _mean_difference(sd_name: str):
+    return st.fixed_dictionaries({"difference": _floats(0.1, 2.0), sd_name: _floats(0.5, 3.0)})
+
+
+# Field values per cell, within the ranges the schema allows (the blocks come from the cells).
+VALUES = {
+    ("continuous", "two_groups"): _mean_difference("sd"),
+    ("continuous", "single_group"): _mean_difference("sd"),
+    ("continuous", "paired"): st.one_of(
+        _mean_difference("sd_difference"),
+        st.fixed_dictionaries(
+            {
+                "difference": _floats(0.1, 2.0),
+                "sd": _floats(0.5, 3.0),
+                "correlation": _floats(0.0, 0.9),
+            }
+        ),
+    ),
+    ("binary", "two_groups"): st.tuples(_floats(0.05, 0.6), _floats(0.05, 0.3), st.booleans()).map(
+        lambda t: {"p_control": t[0], "p_treatment": t[0] + t[1], "continuity_correction": t[2]}
+    ),
+    ("continuous", "k_groups"): st.fixed_dictionaries(
+        {"cohens_f": _floats(0.1, 0.6), "group_count": st.integers(2, 5)}
+    ),
+    ("association", "single_group"): st.fixed_dictionaries({"r": _floats(0.1, 0.6)}),
+    ("ordinal", "two_groups"): st.fixed_dictionaries({"prob_superiority": _floats(0.55, 0.8)}),
+    ("time_to_event", "two_groups"): st.fixed_dictionaries(
         {
             "hazard_ratio": _floats(0.4, 0.85),
-            "median_control": _floats(6.0, 36.0),
-            "accrual_period": _floats(6.0, 24.0),
+            "time_unit": st.sampled_from(["weeks", "months"]),
+            "control_median": _floats(6.0, 36.0),
+            "accrual": _floats(6.0, 24.0),
             "follow_up": _floats(0.0, 24.0),
         }
-    )
+    ),
+}
+CELLS = sorted(VALUES)
 
 
-def _arms(design: str, effect: dict) -> int:
-    if design == "anova_oneway":
-        return int(effect["groups"])
-    return 1 if design in ONE_ARM else 2
+def _blocks(cell: tuple, values: dict) -> dict:
+    """The values placed in the blocks their cell declares."""
+    design = designs.get(*cell)
+    out: dict = {}
+    for name, value in values.items():
+        out.setdefault(design.field(name).block, {})[name] = value
+    return out
 
 
-def _simulation(design: str, draw) -> dict:
+def _groups(cell: tuple, values: dict) -> int:
+    return int(values.get("group_count") or designs.get(*cell).groups({}))
+
+
+def _simulation(cell: tuple, draw) -> dict:
     simulation = {
         "replicates": draw(st.integers(200, 400)),
         "chunk_size": draw(st.integers(100, 200)),
         "seed": draw(st.integers(0, 2**53 - 1)),
     }
-    if design == "rank_sum":  # rank_sum simulates from a data model only
+    if cell == ("ordinal", "two_groups"):  # simulated here from a skewed data model
         shift = draw(_floats(0.1, 0.8))
         simulation["data"] = {
             "control": {"family": "lognormal", "mu": 1.0, "sigma": 0.8},
@@ -96,27 +94,29 @@ def _simulation(design: str, draw) -> dict:
 
 @st.composite
 def questions(draw) -> dict:
-    """A posted question within the documented ranges of its design."""
-    design = draw(st.sampled_from(DESIGNS))
-    effect = draw(_effect(design))
+    """A posted question within the documented ranges of its cell."""
+    cell = draw(st.sampled_from(CELLS))
+    values = draw(VALUES[cell])
     find = draw(st.sampled_from(["sample_size", "power"]))
     question: dict = {
-        "design": design,
+        "outcome": cell[0],
+        "layout": cell[1],
         "find": find,
         "alpha": draw(st.sampled_from([0.01, 0.025, 0.05, 0.1])),
-        "effect": effect,
+        **_blocks(cell, values),
         "adjustments": {"dropout": draw(_floats(0.0, 0.3))},
     }
-    if _arms(design, effect) == 2 and draw(st.booleans()):
+    groups = _groups(cell, values)
+    if groups == 2 and cell != ("continuous", "k_groups") and draw(st.booleans()):
         question["allocation_ratio"] = draw(st.sampled_from([0.5, 1.0, 1.5, 2.0]))
     if find == "sample_size":
         question["target_power"] = draw(_floats(0.6, 0.95))
     else:
         size = draw(st.integers(4, 200))
-        question["sample_size"] = {"per_arm": [size] * _arms(design, effect)}
+        question["sample_size"] = {"per_group": [size] * groups}
         if draw(st.integers(0, 3)) == 0:
             question["method"] = "simulation"
-            question["simulation"] = _simulation(design, draw)
+            question["simulation"] = _simulation(cell, draw)
     return question
 
 
@@ -143,21 +143,27 @@ def test_valid_questions_give_a_sealed_record_or_a_field_error(raw):
         assert str(exc), type(exc).__name__
         return
     assert verify(record)
-    per_arm = record["sample_size"]["per_arm"]
-    assert len(per_arm) >= 1 and all(isinstance(n, int) and n >= 2 for n in per_arm), per_arm
-    assert record["sample_size"]["total"] == sum(per_arm)
+    per_group = record["sample_size"]["per_group"]
+    assert len(per_group) >= 1 and all(isinstance(n, int) and n >= 2 for n in per_group), per_group
+    assert record["sample_size"]["total"] == sum(per_group)
     power = record["power"]["estimate"]
     assert 0.0 <= power <= 1.0, power
     if question["method"] == "simulation":
         assert record["power"]["replicates"] == question["simulation"]["replicates"]
 
 
-@pytest.mark.parametrize("design", DESIGNS)
-def test_each_design_has_a_strategy_that_loads(design):
+def test_every_registered_cell_has_a_strategy():
+    assert {(d.outcome, d.layout) for d in designs.all()} == set(VALUES)
+
+
+@pytest.mark.parametrize("cell", CELLS)
+def test_each_cell_has_a_strategy_that_loads(cell):
     # Guards the generator: a strategy that never passes the schema would test nothing.
     @settings(max_examples=5, deadline=None, derandomize=True, database=None)
-    @given(effect=_effect(design))
-    def check(effect):
-        load_question({"design": design, "find": "sample_size", "effect": effect})
+    @given(values=VALUES[cell])
+    def check(values):
+        load_question(
+            {"outcome": cell[0], "layout": cell[1], "find": "sample_size", **_blocks(cell, values)}
+        )
 
     check()

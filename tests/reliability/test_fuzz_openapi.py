@@ -67,9 +67,11 @@ def secrets(fuzz_app) -> dict[str, str]:
 
 # Invented Northbridge General Hospital study: a valid body, so success answers are checked too.
 VALID_QUESTION = {
-    "design": "two_means",
+    "outcome": "continuous",
+    "layout": "two_groups",
     "find": "sample_size",
-    "effect": {"difference": 0.5, "sd": 1.0},
+    "effect": {"difference": 0.5},
+    "assumptions": {"sd": 1.0},
 }
 VALID_REQUEST = {
     "protocol": {"id": "NGH-2025-077", "title": "Falls clinic follow-up calls"},

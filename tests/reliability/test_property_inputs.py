@@ -25,11 +25,11 @@ from service.engine import compute
 from service.store import jobs
 from service.store import tokens as token_store
 from service.store.db import session_scope
-from service.store.models import Analysis, ApiToken, AuditEvent, Request, Rerun, TokenSpend
+from service.store.models import ApiToken, AuditEvent, Exploration, Request, Rerun, TokenSpend
 
 pytestmark = pytest.mark.slow
 
-TABLES = (Request, Analysis, AuditEvent, Rerun, TokenSpend, ApiToken)
+TABLES = (Request, Exploration, AuditEvent, Rerun, TokenSpend, ApiToken)
 
 NASTY = [
     "\ud800",
@@ -131,16 +131,19 @@ REQUEST = {
     "notes": "Primary outcome: 6-minute walk distance at 12 weeks.",
     "effect_source": "SD from the 2024 audit of clinic visits",
     "question": {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
         "adjustments": {"dropout": 0.1, "cluster": {"mean_size": 5, "icc": 0.05}},
     },
-    "analyses": {"sensitivity": {"grid": {"effect.difference": [0.4, 0.5]}}},
+    "explorations": [{"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.5]}}],
 }
-PLAIN = {k: v for k, v in REQUEST.items() if k != "analyses"}
+PLAIN = {k: v for k, v in REQUEST.items() if k != "explorations"}
 SIMULATED = {
-    "design": "rank_sum",
+    "outcome": "ordinal",
+    "layout": "two_groups",
     "find": "power",
     "sample_size": {"total": 80},
     "method": "simulation",
@@ -160,8 +163,8 @@ BODIES = [
     ("statistician", "/v1/calculations", {"question": REQUEST["question"]}),
     (
         "statistician",
-        "/v1/requests/{id}/analyses",
-        {"kind": "sensitivity", "grid": {"alpha": [0.05, 0.01]}},
+        "/v1/requests/{id}/explorations",
+        {"type": "sensitivity_grid", "grid": {"alpha": [0.05, 0.01]}},
     ),
     ("statistician", "/v1/requests/{id}/comments", {"text": "Which SD source?"}),
     ("statistician", "/v1/requests/{id}/assign", {"to": "j.moreau"}),
@@ -171,7 +174,16 @@ BODIES = [
     ("auditor", "/v1/requests/{id}/reruns", {"note": "yearly check"}),
     ("admin", "/v1/tokens", {"role": "intake", "name": "front desk"}),
 ]
-QUERY_KEYS = ["status", "protocol_id", "requester", "design", "page", "per_page", "submitted_from"]
+QUERY_KEYS = [
+    "status",
+    "protocol_id",
+    "requester",
+    "outcome",
+    "layout",
+    "page",
+    "per_page",
+    "submitted_from",
+]
 
 
 @pytest.fixture
@@ -269,7 +281,7 @@ def test_no_query_path_or_link_reaches_a_5xx(target):
         _check(app, lambda: client.get(f"/v1/staff/requests?{qs}", headers=statistician))
         for path in (
             f"/v1/requests/{ident}",
-            f"/v1/requests/{request_id}/analyses/{ident}",
+            f"/v1/requests/{request_id}/explorations/{ident}",
             f"/v1/requests/{request_id}/reruns/{ident}",
         ):
             _check(app, lambda p=path: client.get(p, headers=headers["intake"]))

@@ -133,12 +133,14 @@ def client(config: dict):
 
 
 def _question(n: int) -> dict:
-    """Analytic two-means power at n per arm (quick, so the test is about the queue)."""
+    """Analytic power, continuous outcome, two groups of n (quick: the test is about the queue)."""
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [n, n]},
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "sample_size": {"per_group": [n, n]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
     }
 
 

@@ -37,7 +37,8 @@ CHUNKS = REPLICATES // CHUNK_SIZE
 def _posted(seed: int) -> dict:
     """Power of a rank-sum comparison on skewed (lognormal) data, big enough to be caught mid-run."""
     return {
-        "design": "rank_sum",
+        "outcome": "ordinal",
+        "layout": "two_groups",
         "find": "power",
         "sample_size": {"total": 1000},
         "simulation": {

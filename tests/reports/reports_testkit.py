@@ -1,10 +1,17 @@
-"""Invented demo inputs for the report tests; questions come from tests/engine/questions.py."""
+"""Invented demo inputs for the report tests: questions as an investigator posts them.
 
-from tests.engine.questions import EFFECTS
+Every question goes through the public normalizer (``load_question``), so the tests read the
+same vocabulary as the API, the CLI and the examples (VOCAB §1).
+"""
 
-D_HALF = EFFECTS["two_means"]  # d = 0.5
-# Control median 12 months -> hazard ln 2 / 12; accrual 24, extra follow-up 12.
-SURVIVAL = EFFECTS["survival_logrank"]
+from service.engine import compute
+from service.schemas import load_question
+from tests.schemas.posted import SURV as SURVIVAL  # HR 0.75, control median 12 months
+
+__all__ = ["D_HALF", "REQUEST", "SURVIVAL", "answer", "posted", "question"]
+
+# d = 0.5: difference 0.5 with SD 1 (Cohen 1988, Table 2.4.1: 64 per group at power .80).
+D_HALF = {"effect": {"difference": 0.5}, "assumptions": {"sd": 1.0}}
 
 # Invented demo request (Northbridge General Hospital research office); not real data.
 REQUEST = {
@@ -24,3 +31,20 @@ REQUEST = {
     "deadline": "2025-03-31",
     "context": {"effect_source": "the Northbridge pilot study of 2023"},
 }
+
+
+def posted(**fields) -> dict:
+    """A question as posted; continuous × two groups, d = 0.5, unless ``fields`` say otherwise."""
+    body = {"outcome": "continuous", "layout": "two_groups", "find": "sample_size", **D_HALF}
+    body.update(fields)
+    return body
+
+
+def question(**fields) -> dict:
+    """The normalized question of a posted one (see ``posted``)."""
+    return load_question(posted(**fields))
+
+
+def answer(**posted) -> dict:
+    """The engine's record for a posted question (see ``question``)."""
+    return compute(question(**posted))

@@ -13,12 +13,11 @@ import zlib
 from pathlib import Path
 
 import pytest
-from reports_testkit import D_HALF, REQUEST
+from reports_testkit import REQUEST, question
 
 from service.engine.explore import robustness, sensitivity
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report, render_staff_list
-from tests.engine.questions import make_q
 
 CHROMIUM = "/usr/bin/chromium"
 
@@ -49,7 +48,7 @@ _PROBE = """<script>
 def site(tmp_path_factory, simulated_record):
     """Serve the report (and a probed copy and the staff list) from a local ephemeral-port server."""
     root = tmp_path_factory.mktemp("site")
-    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
+    q = question(adjustments={"dropout": 0.1})
     page = render_report(
         REQUEST,
         simulated_record,
@@ -59,7 +58,7 @@ def site(tmp_path_factory, simulated_record):
         ),
         robustness=robustness(
             simulated_record["question"],
-            simulated_record["sample_size"]["per_arm"],
+            simulated_record["sample_size"]["per_group"],
             replicates=300,
             seed=11,
         ),
@@ -140,7 +139,7 @@ def test_screenshot_is_not_blank(site, tmp_path):
     assert shot.exists(), result.stderr[-2000:]
     width, height, distinct = _png_pixels(shot.read_bytes())
     assert (width, height) == (1280, 2000)
-    assert distinct > 100  # text, chart and tables: far more than a blank or single-colour page
+    assert distinct > 100  # text, chart and tables: far more than a blank or single-color page
     from matplotlib import image
 
     pixels = image.imread(str(shot))

@@ -1,7 +1,7 @@
-"""The real app in a real browser: a report link opens the full report, analyses included.
+"""The real app in a real browser: a report link opens the full report, explorations included.
 
 The Flask app (create_app on a temporary SQLite file, a filesystem broker in tmp) serves on an
-ephemeral 127.0.0.1 port through werkzeug; the request and its analyses are computed by the
+ephemeral 127.0.0.1 port through werkzeug; the request and its explorations are computed by the
 worker's own task functions. Headless Chromium opens the signed link: no bearer header.
 Skipped only when /usr/bin/chromium is absent and SIZEWISE_REQUIRE_BROWSER is unset.
 """
@@ -15,7 +15,7 @@ from werkzeug.serving import make_server
 from service import create_app
 from service.api.auth import local_client
 from service.store.migrate import upgrade
-from workers.analysis_tasks import run_analysis_job
+from workers.exploration_tasks import run_exploration_job
 
 pytestmark = pytest.mark.skipif(
     not __import__("os").path.exists(CHROMIUM)
@@ -37,21 +37,26 @@ BODY = {
     },
     "effect_source": "SD from the 2024 Northbridge audit of rehabilitation visits",
     "question": {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
-        "effect": {"difference": 40, "sd": 90},
+        "effect": {"difference": 40},
+        "assumptions": {"sd": 90},
         "adjustments": {"dropout": 0.15},
     },
-    "analyses": {
-        "sensitivity": {"grid": {"effect.difference": [30, 40, 50], "effect.sd": [80, 90, 100]}},
-        "robustness": True,
-    },
+    "explorations": [
+        {
+            "type": "sensitivity_grid",
+            "grid": {"effect.difference": [30, 40, 50], "assumptions.sd": [80, 90, 100]},
+        },
+        {"type": "robustness_panel"},
+    ],
 }
 
 
 @pytest.fixture(scope="module")
 def served(tmp_path_factory):
-    """The app on an ephemeral port with one computed request and its analyses; yields (url, id)."""
+    """The app on an ephemeral port with one computed request and its explorations; yields (url, id)."""
     root = tmp_path_factory.mktemp("app")
     url = f"sqlite:///{root / 'sizewise.db'}"
     upgrade(url)
@@ -67,10 +72,10 @@ def served(tmp_path_factory):
     reply = client.post("/v1/requests", json=BODY)
     assert reply.status_code == 202, reply.get_json()
     detail = reply.get_json()
-    # A closed-form question is answered at submission; its analyses go to the workers.
+    # A closed-form question is answered at submission; its explorations go to the workers.
     assert detail["status"] == "computed"
-    for analysis in detail["analyses"]:
-        assert run_analysis_job(analysis["id"], config) == "done"
+    for exploration in detail["explorations"]:
+        assert run_exploration_job(exploration["id"], config) == "done"
     link = client.post(f"/v1/requests/{detail['id']}/report-links").get_json()["url"]
     server = make_server("127.0.0.1", 0, app, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
@@ -83,7 +88,7 @@ def served(tmp_path_factory):
         app.extensions["sizewise"]["engine"].dispose()
 
 
-def test_the_link_opens_the_report_with_analyses(served, tmp_path):
+def test_the_link_opens_the_report_with_explorations(served, tmp_path):
     base, link, request_id = served
     result = _chromium(tmp_path, "--dump-dom", "--virtual-time-budget=3000", base + link)
     dom = result.stdout

@@ -8,6 +8,8 @@ import subprocess
 import sys
 import xml.etree.ElementTree as ET
 
+from reports_testkit import posted
+
 from service.engine import compute
 from service.schemas.question import load_question
 from service.store import jobs
@@ -15,7 +17,7 @@ from service.store import requests as store
 from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.migrate import upgrade
 
-QUESTION = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1.0}}
+QUESTION = posted()
 
 
 def _sizewise(*args: str, env: dict | None = None) -> subprocess.CompletedProcess:

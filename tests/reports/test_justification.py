@@ -4,11 +4,18 @@ import math
 import re
 
 import pytest
+from reports_testkit import answer
 from scipy import stats
 from statsmodels.stats.power import TTestIndPower
 
-from service.reports.justification import fmt_count, fmt_num, fmt_pct, fmt_prob, justification
-from tests.engine.questions import make_q
+from service.reports.justification import (
+    fmt_count,
+    fmt_num,
+    fmt_pct,
+    fmt_power,
+    fmt_prob,
+    justification,
+)
 
 # A count with thousands separators (1,016) or a plain decimal (0.025); "−" is wording.
 _NUMBER = re.compile(r"(?<![\w.])-?(?:\d{1,3}(?:,\d{3})+|\d+)(?:\.\d+)?")
@@ -43,6 +50,8 @@ def _record_numbers(record: dict) -> set[str]:
                     fmt_prob(value, 4),
                     fmt_pct(value).rstrip("%"),
                     fmt_pct(round(value, 3)).rstrip("%"),
+                    fmt_power(value).rstrip("%"),
+                    f"{100 * value:.1f}",  # a Monte Carlo error in percentage points
                 }
             )
         elif isinstance(value, str):
@@ -52,7 +61,7 @@ def _record_numbers(record: dict) -> set[str]:
     # Sums the paragraph states: the base size over the arms.
     for step in record["sample_size"]["steps"]:
         if step["step"] == "base":
-            out.add(fmt_count(sum(step["per_arm"])))
+            out.add(fmt_count(sum(step["per_group"])))
     out.update({"1", "95"})  # "1 − dropout" and "95% interval" are wording, not record values
     return out
 
@@ -68,34 +77,35 @@ def test_analytic_contains_each_step(analytic_record):
     steps = {s["step"]: s for s in size["steps"]}
     # formula: noncentral t at alpha 0.05 / 2 (Bonferroni), d = 0.5, power .80; statsmodels agrees
     raw = TTestIndPower().solve_power(effect_size=0.5, alpha=0.025, power=0.8, ratio=1.0)
-    assert steps["base"]["per_arm"] == [math.ceil(raw)] * 2
-    # formula: Donner & Klar (2000) design effect with the analysed cluster size after 20%
+    assert steps["base"]["per_group"] == [math.ceil(raw)] * 2
+    # formula: Donner & Klar (2000) design effect with the analyzed cluster size after 20%
     # dropout: 1 + (16 − 1)·0.05 = 1.75; whole clusters of 20 enrolled (clusters × 20 people)
     assert steps["design_effect"]["factor"] == pytest.approx(1.75)
-    k = size["clusters_per_arm"][0]
-    assert size["per_arm"] == [20 * k, 20 * k]
+    k = size["clusters_per_group"][0]
+    assert size["per_group"] == [20 * k, 20 * k]
     for piece in (
         "two-sided significance level of 0.05",
         "Bonferroni over 2 comparisons",
         "0.025 per comparison",
         "target power of 80%",
         "difference in means of 0.5",
-        "standard deviation of 1",
+        fmt_num(analytic_record["question"]["assumptions"]["sd"]),
         f"{math.ceil(raw)} per group",
         f"unrounded {raw:.2f}",
         "design effect 1.75",
         "mean cluster size 20",
-        "16 analysed after 20% dropout",
+        "16 analyzed after 20% dropout",
         "intracluster correlation 0.05",
-        f"{steps['design_effect']['per_arm_raw'][0]:.2f} individuals per group",
-        f"{steps['design_effect']['clusters_per_arm'][0]} clusters per group",
+        f"{steps['design_effect']['per_group_raw'][0]:.2f} individuals per group",
+        f"{steps['design_effect']['clusters_per_group'][0]} clusters per group",
         f"{steps['cluster_df']['df']} degrees of freedom",
         f"{k} clusters per group",
-        f"{size['per_arm'][0]} people per group",
+        f"{size['per_group'][0]} people per group",
         f"{fmt_count(size['total'])} are to be enrolled in total in {2 * k} clusters",
-        fmt_pct(round(analytic_record["power"]["estimate"], 3)),
+        f"The power at the analyzed size is {fmt_power(analytic_record['power']['estimate'])}.",
         "Northbridge pilot study of 2023",
-        analytic_record["method"]["formula"],
+        analytic_record["method"]["approximation"],
+        analytic_record["method"]["analysis_label"],
     ):
         assert piece in text, piece
     for word in ("simulat", "seed", "replicate", "Monte Carlo", "events"):
@@ -113,25 +123,26 @@ def test_simulated_sample_size_reports_monte_carlo_error(simulated_record):
     )
     # published 64 ± 1 per group: Cohen 1988, Table 2.4.1 (simulated solve for d = 0.5, power .80)
     base = next(s for s in simulated_record["sample_size"]["steps"] if s["step"] == "base")
-    assert 62 <= base["per_arm"][0] <= 66
+    assert 62 <= base["per_group"][0] <= 66
     for piece in (
         f"seed {repro['seed']}",
-        f"{fmt_count(power['replicates'])} simulated trials",
-        f"estimated power {fmt_prob(power['estimate'])}",
-        f"standard error {fmt_prob(power['mcse'], 4)}",
-        f"95% interval {fmt_prob(power['ci95'][0])} to {fmt_prob(power['ci95'][1])}",
+        f"{fmt_count(power['replicates'])} replicates",
+        f"estimated power {fmt_power(power['estimate'])}",
+        f"standard error {100 * power['mcse']:.1f} percentage points",
+        f"95% interval {fmt_power(power['ci95'][0])} to {fmt_power(power['ci95'][1])}",
         f"type I error was {fmt_prob(t1['estimate'], 4)}",
         f"nominal {fmt_num(t1['alpha'])}",
-        f"{fmt_count(simulated_record['question']['simulation']['search_replicates'])} simulated trials each",
-        f"{base['per_arm'][0]} per group",
+        f"{fmt_count(simulated_record['question']['simulation']['search_replicates'])} replicates each",
+        f"{base['per_group'][0]} per group",
         "10% dropout",
         f"{fmt_count(simulated_record['sample_size']['total'])} are to be enrolled in total",
         repro["bit_generator"],
     ):
         assert piece in text, piece
-    # the paragraph calls the size check consistent only when the interval covers alpha
+    # the paragraph says the record's own verdict word, and it matches the interval
     lo, hi = t1["ci95"]
-    assert ("consistent with it" in text) == (lo <= t1["alpha"] <= hi)
+    assert ("the type I error check holds" in text) == (lo <= t1["alpha"] <= hi)
+    assert "simulated trials" not in text and "trials per" not in text
     assert "unrounded" not in text  # a simulated search has no unrounded answer to quote
     _assert_no_foreign_numbers(text, simulated_record)
 
@@ -146,8 +157,8 @@ def test_simulated_power_against_the_noncentral_t(simulated_power_record):
     assert abs(power["estimate"] - exact) < 4 * power["mcse"]
     for piece in (
         "30 enrolled per group (60 in total)",
-        f"is {fmt_prob(power['estimate'])}",
-        f"analytic formula gives a power of {fmt_prob(power['analytic'])}",
+        f"is {fmt_power(power['estimate'])}",
+        f"analytic formula gives a power of {fmt_power(power['analytic'])}",
         f"seed {simulated_power_record['reproducibility']['seed']}",
     ):
         assert piece in text, piece
@@ -169,18 +180,18 @@ def test_survival_states_events_and_p_event(survival_record):
     lam = math.log(2) / 12
     pc, pt = p_event(lam), p_event(lam * 0.75)
     assert pc == pytest.approx(0.729495, abs=1e-6)
-    per_arm = math.ceil(math.ceil(events) / ((pc + pt) / 2) / 2)
-    assert survival_record["sample_size"]["per_arm"] == [per_arm, per_arm]
+    per_group = math.ceil(math.ceil(events) / ((pc + pt) / 2) / 2)
+    assert survival_record["sample_size"]["per_group"] == [per_group, per_group]
     for piece in (
         f"{math.ceil(events)} events are required",
         f"unrounded {events:.2f}",
         f"{fmt_prob(pc)} in the control group",
         f"{fmt_prob(pt)} in the treatment group",
-        f"{per_arm} per group",
-        f"{fmt_count(2 * per_arm)} in total",
-        "hazard ratio (treatment to control) of 0.75",
-        "accrual over 24",
-        "follow-up of 12",
+        f"{per_group} per group",
+        f"{fmt_count(2 * per_group)} in total",
+        "0.75",
+        "12 months",  # the control median, as entered, with its time unit
+        "24 months",
     ):
         assert piece in text, piece
     assert "simulat" not in text.lower()
@@ -198,60 +209,57 @@ def test_missing_source_is_flagged_not_invented(survival_record):
 
 
 @pytest.mark.parametrize(
-    ("design", "effect", "overrides", "pieces"),
+    ("posted", "pieces"),
     [
         # published 63 per group (h = 0.5): Cohen 1988, Table 6.4.1, recomputed; here p .40 vs .60,
         # formula 97 per group without correction (Fleiss, Levin & Paik 2003)
         (
-            "two_proportions",
-            {"p_control": 0.4, "p_treatment": 0.6, "continuity_correction": False},
-            {},
-            ["97 per group", "control proportion of 0.4", "treatment proportion of 0.6"],
+            {
+                "outcome": "binary",
+                "effect": {"p_treatment": 0.6},
+                "assumptions": {"p_control": 0.4},
+            },
+            ["97 per group", "0.4", "0.6"],
         ),
         # published 53 per group (k = 3, f = 0.25, ceiling): Cohen 1988, Table 8.4.4, recomputed
         (
-            "anova_oneway",
-            {"cohens_f": 0.25, "groups": 3},
-            {},
-            ["53 per group", "effect size f of 0.25"],
+            {
+                "layout": "k_groups",
+                "effect": {"cohens_f": 0.25},
+                "assumptions": {"group_count": 3},
+            },
+            ["53 per group", "0.25"],
         ),
         # formula: one-sample noncentral t, d = 0.5 -> 34 (Guenther 1981 gives 33.32 raw)
-        ("one_mean", {"difference": 0.5, "sd": 1.0}, {}, ["34 participants", "reference value"]),
+        ({"layout": "single_group"}, ["34 participants"]),
         # formula: noncentral t with n2 = 2·n1, d = 0.5 -> 48 / 96 (Cohen 1988 eq. 2.3.1)
         (
-            "two_means",
-            {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
             {"allocation_ratio": 2.0},
             ["48 in the control group and 96 in the treatment group", "144 in total"],
         ),
     ],
 )
-def test_other_designs(design, effect, overrides, pieces):
-    from service.engine import compute
-
-    record = compute(make_q(design, effect=effect, **overrides))
+def test_other_cells(posted, pieces):
+    record = answer(**posted)
     text = justification(record)
     for piece in pieces:
         assert piece in text, piece
     _assert_no_foreign_numbers(text, record)
-    if design == "anova_oneway":
-        assert "two-sided" not in text  # the F test has no sides
+    if posted.get("layout") == "k_groups":
+        assert "two-sided" not in text  # the F test has no direction
 
 
 def test_noninferiority_names_the_margin():
-    from service.engine import compute
-
     # published 13 with z quantiles (Chow, Shao & Wang 2008, ch. 3); 14 with the noncentral t
-    record = compute(
-        make_q(
-            "two_means",
-            effect={"difference": 0.05, "sd_control": 0.1, "sd_treatment": 0.1},
-            sides=1,
-            hypothesis={"kind": "noninferiority", "margin": -0.05},
-        )
+    record = answer(
+        effect={"difference": 0.05},
+        assumptions={"sd": 0.1},
+        alternative="one-sided",
+        alpha=0.05,
+        hypothesis={"aim": "noninferiority", "margin": -0.05},
     )
     text = justification(record)
-    assert record["sample_size"]["per_arm"] == [14, 14]
+    assert record["sample_size"]["per_group"] == [14, 14]
     assert "non-inferiority with a margin of -0.05" in text
     assert "one-sided significance level of 0.05" in text
     assert "14 per group" in text
@@ -269,18 +277,13 @@ def test_the_number_check_catches_a_contradiction(analytic_record):
 def test_simulated_effect_names_effects_not_sizes():
     # formula: at 64 per group the detectable d at 80% power is just under 0.5 (Cohen 1988,
     # Table 2.4.1 gives n = 64 for d = 0.5; statsmodels TTestIndPower solves the same)
-    from service.engine import compute
-
-    q = make_q(
-        "two_means",
-        effect={"sd_control": 1.0, "sd_treatment": 1.0},
+    record = answer(
+        effect={},
         find="effect",
         method="simulation",
-        per_arm=[64, 64],
+        sample_size={"per_group": [64, 64]},
         simulation={"replicates": 2000, "search_replicates": 1000, "seed": 99},
     )
-    q["effect"].pop("difference", None)
-    record = compute(q)
     text = justification(record)
     assert "Candidate effects were screened" in text and "chosen effect was confirmed" in text
     assert "at the simulated effect" in text and "Candidate sizes" not in text
@@ -291,29 +294,18 @@ def test_simulated_effect_names_effects_not_sizes():
 
 def test_cluster_power_and_fixed_clusters_are_told_in_whole_clusters():
     # Donner & Klar (2000): 8 clusters of 20 per arm; Eldridge, Ashby & Kerry (2006) design
-    # effect 1 + ((0.4² + 1)·16 − 1)·0.05 = 1.878 with 16 analysed per cluster after 20% dropout
-    from service.engine import compute
-
-    record = compute(
-        make_q(
-            "two_means",
-            effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-            per_arm=[160, 160],
-            adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05, "cv": 0.4}},
-        )
+    # effect 1 + ((0.4² + 1)·16 − 1)·0.05 = 1.878 with 16 analyzed per cluster after 20% dropout
+    record = answer(
+        find="power",
+        sample_size={"per_group": [160, 160]},
+        adjustments={"dropout": 0.2, "cluster": {"mean_size": 20, "icc": 0.05, "cv": 0.4}},
     )
     text = justification(record)
     assert "in 8 clusters per group of mean size 20" in text
     assert "a design effect of 1.878" in text
-    assert "only 8 clusters per arm" in text
+    assert "only 8 clusters per group" in text
     _assert_no_foreign_numbers(text, record)
-    record = compute(
-        make_q(
-            "two_means",
-            effect={"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0},
-            adjustments={"cluster": {"clusters_per_arm": 12, "icc": 0.05}},
-        )
-    )
+    record = answer(adjustments={"cluster": {"clusters_per_group": 12, "icc": 0.05}})
     text = justification(record)
     size = record["sample_size"]
     m = size["mean_cluster_size"]

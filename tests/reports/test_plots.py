@@ -4,12 +4,11 @@ import math
 import xml.etree.ElementTree as ET
 
 import pytest
-from reports_testkit import D_HALF
+from reports_testkit import answer
 from statsmodels.stats.power import TTestIndPower
 
-from service.engine import QuestionError, compute
+from service.engine import QuestionError
 from service.reports.plots import curve_points, power_curve_png, power_curve_svg
-from tests.engine.questions import make_q
 
 _SVG = "{http://www.w3.org/2000/svg}"
 
@@ -22,12 +21,12 @@ def _ids(svg: str) -> dict[str, ET.Element]:
 
 @pytest.fixture(scope="module")
 def plain_record():
-    return compute(make_q("two_means", effect=D_HALF))
+    return answer()
 
 
 def test_analytic_curve_matches_statsmodels(plain_record):
     points = curve_points(plain_record)
-    chosen = plain_record["sample_size"]["per_arm"][0]
+    chosen = plain_record["sample_size"]["per_group"][0]
     assert chosen == 64  # published 64: Cohen 1988, Table 2.4.1
     assert chosen in points["n"] and 11 <= len(points["n"]) <= 14
     assert min(points["n"]) == math.floor(0.5 * chosen) and max(points["n"]) == math.ceil(
@@ -45,7 +44,7 @@ def test_analytic_curve_matches_statsmodels(plain_record):
 
 def test_curve_with_dropout_is_on_the_enrolled_scale(analytic_record):
     points = curve_points(analytic_record)
-    chosen = analytic_record["sample_size"]["per_arm"][0]
+    chosen = analytic_record["sample_size"]["per_group"][0]
     i = points["n"].index(chosen)
     # the enrolled answer, less dropout and design effect, powers at least the target
     assert points["analytic"][i] >= 0.8
@@ -64,9 +63,9 @@ def test_simulated_points_bracket_the_exact_power(simulated_record):
     for p in sim:
         lo, hi = p["ci95"]
         assert lo <= p["power"] <= hi
-        # formula: noncentral t at the analysed n (10% dropout removed, floored as the engine does)
-        analysed = math.floor(p["n"] * 0.9 + 1e-9)
-        exact = TTestIndPower().power(effect_size=0.5, nobs1=analysed, alpha=0.05)
+        # formula: noncentral t at the analyzed n (10% dropout removed, floored as the engine does)
+        analyzed = math.floor(p["n"] * 0.9 + 1e-9)
+        exact = TTestIndPower().power(effect_size=0.5, nobs1=analyzed, alpha=0.05)
         covered += lo <= exact <= hi
     # 95% intervals: nearly all of ~13 points cover the exact power (a loose, non-flaky bound)
     assert covered >= len(sim) - 3

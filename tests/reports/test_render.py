@@ -5,14 +5,13 @@ from html.parser import HTMLParser
 
 import pytest
 from markupsafe import escape
-from reports_testkit import D_HALF, REQUEST
+from reports_testkit import REQUEST, question
 
 from service.engine import CAUTIONS
 from service.engine.explore import robustness, sensitivity
 from service.reports.justification import justification
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report, render_staff_list
-from tests.engine.questions import make_q
 
 BLOCKS = (
     "protocol",
@@ -49,11 +48,11 @@ def _parse(page: str) -> _Ids:
 
 @pytest.fixture(scope="module")
 def full_page(simulated_record):
-    q = make_q("two_means", effect=D_HALF, adjustments={"dropout": 0.1})
+    q = question(adjustments={"dropout": 0.1})
     sens = sensitivity(q, {"effect.difference": [0.4, 0.5, 0.6]})
     rob = robustness(
         simulated_record["question"],
-        simulated_record["sample_size"]["per_arm"],
+        simulated_record["sample_size"]["per_group"],
         replicates=300,
         seed=11,
     )
@@ -125,7 +124,7 @@ def test_input_is_escaped(analytic_record):
 
 def test_staff_list():
     rows = [
-        REQUEST,
+        dict(REQUEST, question=question(), method="analytic"),
         dict(REQUEST, id="a" * 32, status="running", progress=0.4, assigned_to=None),
         dict(
             REQUEST,
@@ -141,4 +140,6 @@ def test_staff_list():
     assert f'href="/v1/requests/{"a" * 32}/report"' in page
     assert "&lt;b&gt;Falls&lt;/b&gt;" in page
     assert "3 requests: 1 computing, 1 computed, awaiting review, 1 failed" in page
+    # the first row's cell and analysis in words (test_prose checks them against the design)
+    assert "Continuous outcome, two groups" in page
     assert "No requests yet." in render_staff_list([])

@@ -6,32 +6,35 @@ from __future__ import annotations
 import copy
 
 import pytest
-from reports_testkit import REQUEST
+from reports_testkit import REQUEST, answer
 
-from service.engine import compute
 from service.engine.explore import robustness
 from service.engine.search import wilson
-from service.reports.justification import SIZE_WORDS, justification
+from service.reports.justification import justification
 from service.reports.render import render_report
-from tests.engine.questions import make_q
 
 
 @pytest.fixture(scope="module")
 def fisher_record() -> dict:
-    # Fisher's exact test at p = 0.3, 40 per arm: exact size 0.0282 (exact enumeration in
+    # Fisher's exact test at p = 0.3, 40 per group: exact size 0.0282 (exact enumeration in
     # tests/engine/test_size_verdict.py), well below 0.05.
-    q = make_q(
-        "two_proportions",
-        effect={"p_control": 0.3, "p_treatment": 0.6},
-        per_arm=(40, 40),
-        simulation={"test": "fisher_exact", "replicates": 4000, "seed": 11},
+    return answer(
+        outcome="binary",
+        effect={"p_treatment": 0.6},
+        assumptions={"p_control": 0.3},
+        find="power",
+        sample_size={"per_group": [40, 40]},
+        analysis="fisher_exact",
+        method="simulation",
+        simulation={"replicates": 4000, "seed": 11},
     )
-    return compute(q)
 
 
 def test_a_conservative_test_is_called_valid(fisher_record):
     text = justification(fisher_record)
-    assert "conservative" in text and "valid but costs some power" in text
+    assert fisher_record["type_i_error"]["verdict"] == "conservative"
+    assert "the type I error check is conservative" in text
+    assert "valid but costs some power" in text
     assert "does not hold its level" not in text
 
 
@@ -43,15 +46,20 @@ def test_each_verdict_has_its_words(fisher_record, rejections, verdict):
     t1 = record["type_i_error"]
     t1.update(estimate=rejections / 4000, ci95=wilson(rejections, 4000), verdict=verdict)
     text = justification(record)
-    assert SIZE_WORDS[verdict].strip(",; ").split(":")[0] in text
+    words = {"holds": "holds", "conservative": "is conservative", "exceeds": "exceeds alpha"}
+    # the record's verdict word, exactly, and no other verdict's
+    for other, phrase in words.items():
+        assert (f"the type I error check {phrase}" in text) == (other == verdict), other
     assert ("does not hold its level" in text) == (verdict == "exceeds")
+    for retired in ("calibrated", "size not held", "consistent with it"):
+        assert retired not in text
 
 
 def test_robustness_panel_flags_only_sizes_above_the_per_comparison_alpha(simulated_record):
     q = copy.deepcopy(simulated_record["question"])
     q["adjustments"]["comparisons"] = 2
-    per_arm = simulated_record["sample_size"]["per_arm"]
-    panel = robustness(q, per_arm, replicates=1000, seed=5)
+    per_group = simulated_record["sample_size"]["per_group"]
+    panel = robustness(q, per_group, replicates=1000, seed=5)
     record = dict(simulated_record, question=q)
     page = render_report(REQUEST, record, curve_svg="<svg></svg>", robustness=panel)
     assert "level its test used, 0.025 (0.05 split over the comparisons)" in page

@@ -8,22 +8,48 @@ import pytest
 from service.schemas import QuestionInvalid, load_question
 from tests.schemas.posted import SURV
 
-# One question per design with a one-sided option, its assumed effect pointing *lower*.
+# One question per cell with a one-sided option, its assumed effect pointing *lower*.
 LOWER = [
-    {"design": "two_means", "effect": {"difference": -5.0, "sd": 12.0}},
-    {"design": "one_mean", "effect": {"difference": -1.0, "sd": 2.0}},
-    {"design": "paired_mean", "effect": {"difference": -1.0, "sd_difference": 2.0}},
-    {"design": "two_proportions", "effect": {"p_control": 0.10, "p_treatment": 0.05}},
-    {"design": "correlation", "effect": {"r": 0.1, "r0": 0.3}},
-    {"design": "rank_sum", "effect": {"prob_superiority": 0.38}},
-    {**SURV, "effect": {**SURV["effect"], "hazard_ratio": 1.4}},  # shorter times to the event
+    {
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "effect": {"difference": -5.0},
+        "assumptions": {"sd": 12.0},
+    },
+    {
+        "outcome": "continuous",
+        "layout": "single_group",
+        "effect": {"difference": -1.0},
+        "assumptions": {"sd": 2.0},
+    },
+    {
+        "outcome": "continuous",
+        "layout": "paired",
+        "effect": {"difference": -1.0},
+        "assumptions": {"sd_difference": 2.0},
+    },
+    {
+        "outcome": "binary",
+        "layout": "two_groups",
+        "effect": {"p_treatment": 0.05},
+        "assumptions": {"p_control": 0.10},
+    },
+    {
+        "outcome": "association",
+        "layout": "single_group",
+        "effect": {"r": 0.1},
+        "assumptions": {"r_null": 0.3},
+    },
+    {"outcome": "ordinal", "layout": "two_groups", "effect": {"prob_superiority": 0.38}},
+    {**SURV, "effect": {"hazard_ratio": 1.4}},  # shorter times to the event
 ]
-IDS = [q["design"] for q in LOWER]
+IDS = [f"{q['outcome']} x {q['layout']}" for q in LOWER]
+ONE = {"alternative": "one-sided"}
 
 
 @pytest.mark.parametrize("raw", LOWER, ids=IDS)
 def test_unstated_direction_is_taken_from_the_effect(raw):
-    q = load_question({**raw, "sides": 1})
+    q = load_question({**raw, **ONE})
     assert q["hypothesis"]["higher_is_better"] is False
     assert load_question(q) == q  # the normalized question loads again unchanged
 
@@ -31,11 +57,11 @@ def test_unstated_direction_is_taken_from_the_effect(raw):
 @pytest.mark.parametrize("raw", LOWER, ids=IDS)
 def test_a_stated_direction_against_the_effect_is_refused(raw):
     with pytest.raises(QuestionInvalid) as err:
-        load_question({**raw, "sides": 1, "hypothesis": {"higher_is_better": True}})
+        load_question({**raw, **ONE, "hypothesis": {"higher_is_better": True}})
     (message,) = err.value.errors["hypothesis.higher_is_better"]
-    assert "is true" in message and "points to" in message and "sides 2" in message
+    assert "is true" in message and "points to" in message and "two-sided" in message
     # Stated the same way as the effect, it is accepted.
-    q = load_question({**raw, "sides": 1, "hypothesis": {"higher_is_better": False}})
+    q = load_question({**raw, **ONE, "hypothesis": {"higher_is_better": False}})
     assert q["hypothesis"]["higher_is_better"] is False
 
 
@@ -47,7 +73,7 @@ def test_two_sided_questions_keep_their_stated_or_default_direction(raw):
 
 
 def test_positive_effects_are_unchanged():
-    raw = {"design": "two_means", "sides": 1, "effect": {"difference": 5.0, "sd": 12.0}}
+    raw = {**LOWER[0], **ONE, "effect": {"difference": 5.0}}
     assert load_question(raw)["hypothesis"]["higher_is_better"] is True
     with pytest.raises(QuestionInvalid) as err:
         load_question({**raw, "hypothesis": {"higher_is_better": False}})
@@ -56,8 +82,9 @@ def test_positive_effects_are_unchanged():
 
 def test_a_data_model_gives_the_direction_of_a_simulation():
     raw = {
-        "design": "rank_sum",
-        "sides": 1,
+        "outcome": "ordinal",
+        "layout": "two_groups",
+        **ONE,
         "method": "simulation",
         "simulation": {
             "seed": 1,
@@ -75,17 +102,17 @@ def test_a_data_model_gives_the_direction_of_a_simulation():
 
 def test_noninferiority_keeps_higher_is_better_and_find_effect_is_not_touched():
     ni = {
-        "design": "two_means",
-        "effect": {"difference": -1.0, "sd": 12.0},
-        "hypothesis": {"kind": "noninferiority", "margin": -4.0},
+        **LOWER[0],
+        "effect": {"difference": -1.0},
+        "hypothesis": {"aim": "noninferiority", "margin": -4.0},
     }
     assert load_question(ni)["hypothesis"]["higher_is_better"] is True
     effect = {
-        "design": "two_means",
+        **LOWER[0],
         "find": "effect",
-        "sides": 1,
-        "sample_size": {"per_arm": [50, 50]},
-        "effect": {"sd": 12.0},
+        **ONE,
+        "sample_size": {"per_group": [50, 50]},
+        "effect": {},
         "hypothesis": {"higher_is_better": False},
     }
     assert load_question(effect)["hypothesis"]["higher_is_better"] is False

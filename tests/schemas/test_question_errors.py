@@ -11,10 +11,28 @@ import pytest
 from service.schemas import QuestionInvalid, load_question
 from tests.schemas.posted import SURV
 
-BASE = {"design": "two_means", "effect": {"difference": 0.5, "sd": 1.0}}
+BASE = {
+    "outcome": "continuous",
+    "layout": "two_groups",
+    "effect": {"difference": 0.5},
+    "assumptions": {"sd": 1.0},
+}
 SIM = {"method": "simulation", "simulation": {"replicates": 1000, "seed": 1}}
-PROP = {"design": "two_proportions", "effect": {"p_control": 0.3, "p_treatment": 0.5}}
-ANOVA = {"design": "anova_oneway", "effect": {"cohens_f": 0.25, "groups": 3}}
+PROP = {
+    "outcome": "binary",
+    "layout": "two_groups",
+    "effect": {"p_treatment": 0.5},
+    "assumptions": {"p_control": 0.3},
+}
+ANOVA = {
+    "outcome": "continuous",
+    "layout": "k_groups",
+    "effect": {"cohens_f": 0.25},
+    "assumptions": {"group_count": 3},
+}
+SINGLE = {"outcome": "continuous", "layout": "single_group"}
+CORR = {"outcome": "association", "layout": "single_group"}
+RANKS = {"outcome": "ordinal", "layout": "two_groups"}
 NORMAL = {"family": "normal", "mean": 0.0, "sd": 1.0}
 
 
@@ -41,7 +59,7 @@ CASES = [
     ("alpha-string", merge(BASE, alpha="0.05"), "alpha", ["(0, 0.5]", '"0.05"', "string"]),
     ("alpha-bool", merge(BASE, alpha=True), "alpha", ["(0, 0.5]", "true", "boolean"]),
     ("alpha-nan", merge(BASE, alpha=math.nan), "alpha", ["finite", "NaN"]),
-    ("sd-inf", merge(BASE, effect__sd=math.inf), "effect.sd", ["finite", "Infinity"]),
+    ("sd-inf", merge(BASE, assumptions__sd=math.inf), "assumptions.sd", ["finite", "Infinity"]),
     ("power-one", merge(BASE, target_power=1.0), "target_power", ["(0, 1)", "got 1.0"]),
     (
         "power-below-alpha",
@@ -51,18 +69,23 @@ CASES = [
     ),
     (
         "power-with-find-power",
-        merge(BASE, find="power", target_power=0.8, sample_size={"per_arm": [20, 20]}),
+        merge(BASE, find="power", target_power=0.8, sample_size={"per_group": [20, 20]}),
         "target_power",
         ["not used when find = power", "0.8"],
     ),
-    ("p-above-one", merge(PROP, effect__p_control=1.2), "effect.p_control", ["(0, 1)", "got 1.2"]),
+    (
+        "p-above-one",
+        merge(PROP, assumptions__p_control=1.2),
+        "assumptions.p_control",
+        ["(0, 1)", "got 1.2"],
+    ),
     ("p-zero", merge(PROP, effect__p_treatment=0), "effect.p_treatment", ["(0, 1)", "got 0"]),
-    ("sd-zero", merge(BASE, effect__sd=0), "effect.sd", ["> 0", "got 0"]),
-    ("sd-negative", merge(BASE, effect__sd=-2.0), "effect.sd", ["> 0", "got -2.0"]),
+    ("sd-zero", merge(BASE, assumptions__sd=0), "assumptions.sd", ["> 0", "got 0"]),
+    ("sd-negative", merge(BASE, assumptions__sd=-2.0), "assumptions.sd", ["> 0", "got -2.0"]),
     (
         "sd-control-zero",
-        merge(BASE, effect={"difference": 1.0, "sd_control": 0, "sd_treatment": 1}),
-        "effect.sd_control",
+        merge(BASE, assumptions={"sd_control": 0, "sd_treatment": 1}),
+        "assumptions.sd_control",
         ["> 0", "got 0"],
     ),
     (
@@ -85,27 +108,27 @@ CASES = [
     ),
     (
         "ni-margin-sign",
-        merge(BASE, hypothesis={"kind": "noninferiority", "margin": 0.1}),
+        merge(BASE, hypothesis={"aim": "noninferiority", "margin": 0.1}),
         "hypothesis.margin",
         ["< 0", "higher_is_better is true", "got 0.1"],
     ),
     (
         "ni-margin-sign-lower",
         merge(
-            BASE, hypothesis={"kind": "noninferiority", "margin": -0.1, "higher_is_better": False}
+            BASE, hypothesis={"aim": "noninferiority", "margin": -0.1, "higher_is_better": False}
         ),
         "hypothesis.margin",
         ["> 0", "higher_is_better is false", "got -0.1"],
     ),
     (
         "ni-margin-missing",
-        merge(BASE, hypothesis={"kind": "noninferiority"}),
+        merge(BASE, hypothesis={"aim": "noninferiority"}),
         "hypothesis.margin",
         ["required", "< 0"],
     ),
     (
         "equivalence-margin",
-        merge(BASE, hypothesis={"kind": "equivalence", "margin": -0.1}),
+        merge(BASE, hypothesis={"aim": "equivalence", "margin": -0.1}),
         "hypothesis.margin",
         ["> 0", "got -0.1"],
     ),
@@ -116,107 +139,135 @@ CASES = [
         ["noninferiority or equivalence", "got 0.1"],
     ),
     (
-        "kind-unknown",
-        merge(BASE, hypothesis={"kind": "superior"}),
-        "hypothesis.kind",
+        "aim-unknown",
+        merge(BASE, hypothesis={"aim": "superior"}),
+        "hypothesis.aim",
         ["superiority, noninferiority, equivalence", '"superior"'],
     ),
     (
-        "design-unknown",
-        merge(BASE, design="t_test"),
-        "design",
-        ["two_means", "survival_logrank", '"t_test"'],
+        "outcome-unknown",
+        merge(BASE, outcome="t_test"),
+        "outcome",
+        ["continuous, binary", '"continuous × two_groups"', '"t_test"'],
     ),
     (
-        "design-missing",
-        {"effect": {"difference": 1.0, "sd": 1.0}},
-        "design",
-        ["required", "two_means"],
+        "layout-unknown",
+        merge(BASE, layout="crossover"),
+        "layout",
+        ["two_groups, paired", '"time_to_event × two_groups"', '"crossover"'],
+    ),
+    (
+        "cell-unknown",
+        merge(BASE, outcome="association"),
+        "layout",
+        ["association × two_groups is not a cell", '"association × single_group"'],
+    ),
+    (
+        "outcome-missing",
+        {"layout": "two_groups", "effect": {"difference": 1.0}},
+        "outcome",
+        ["required"],
     ),
     ("find-unknown", merge(BASE, find="n"), "find", ["sample_size, power, effect", '"n"']),
     (
-        "test-not-for-design",
-        merge(BASE, **SIM, simulation__test="logrank"),
-        "simulation.test",
-        ["student_t, welch_t, rank_sum", '"logrank"'],
+        "analysis-not-for-cell",
+        merge(BASE, **SIM, analysis="logrank"),
+        "analysis",
+        ["pooled_t, welch_t, rank_sum", '"logrank"'],
     ),
     (
-        "test-unknown",
-        merge(PROP, **SIM, simulation__test="chi2"),
-        "simulation.test",
-        ["z_test, fisher_exact", '"chi2"'],
+        "analysis-unknown",
+        merge(PROP, **SIM, analysis="chi2"),
+        "analysis",
+        ["pooled_z, unpooled_z, arcsine, score, fisher_exact", '"chi2"'],
     ),
     (
-        "formula-not-offered",
-        merge(BASE, formula="arcsine"),
-        "formula",
-        ["student, welch", '"arcsine"'],
+        "analysis-not-by-the-method",
+        merge(PROP, analysis="fisher_exact", method="analytic"),
+        "analysis",
+        ["analytic", "pooled_z, unpooled_z, arcsine, score", '"fisher_exact"'],
     ),
     (
-        "formula-survival",
-        merge(SURV, formula="welch"),
-        "formula",
+        "analysis-not-for-the-aim",
+        merge(
+            PROP,
+            analysis="pooled_z",
+            effect__p_treatment=0.3,
+            hypothesis={"aim": "noninferiority", "margin": -0.1},
+        ),
+        "analysis",
+        ["superiority only", "unpooled_z, score", '"pooled_z"'],
+    ),
+    (
+        "events-formula-survival",
+        merge(SURV, analysis_options={"events_formula": "welch"}),
+        "analysis_options.events_formula",
         ["schoenfeld, freedman", '"welch"'],
     ),
     (
         "missing-difference",
-        merge(BASE, effect={"sd": 1.0}),
+        merge(BASE, effect={}),
         "effect.difference",
         ["required", "number"],
     ),
-    ("missing-sd", merge(BASE, effect={"difference": 1.0}), "effect.sd", ["required", "> 0"]),
+    (
+        "missing-sd",
+        merge(BASE, assumptions={}),
+        "assumptions.sd",
+        ["required", "> 0", "sd_control + sd_treatment"],
+    ),
     (
         "missing-sd-treatment",
-        merge(BASE, effect={"difference": 1.0, "sd_control": 1.0}),
-        "effect.sd_treatment",
+        merge(BASE, assumptions={"sd_control": 1.0}),
+        "assumptions.sd_treatment",
         ["required", "> 0"],
     ),
     (
         "sd-and-sd-control",
-        merge(BASE, effect__sd_control=2.0),
-        "effect.sd_control",
-        ["not both", "got 2.0"],
+        merge(BASE, assumptions__sd_control=2.0),
+        "assumptions.sd_control",
+        ["sd or sd_control + sd_treatment", "not a mix"],
     ),
     (
         "power-without-n",
         merge(BASE, find="power"),
         "sample_size",
-        ["required when find = power", "per_arm", "total"],
+        ["required when find = power", "per_group", "total"],
     ),
     (
         "effect-without-n",
-        merge(BASE, find="effect", effect={"sd": 1.0}),
+        merge(BASE, find="effect", effect={}),
         "sample_size",
         ["required when find = effect"],
     ),
     (
         "n-with-find-n",
-        merge(BASE, sample_size={"per_arm": [30, 30]}),
+        merge(BASE, sample_size={"per_group": [30, 30]}),
         "sample_size",
         ["absent when find = sample_size", "[30, 30]"],
     ),
     (
         "n-both-forms",
-        merge(BASE, find="power", sample_size={"per_arm": [30, 30], "total": 60}),
+        merge(BASE, find="power", sample_size={"per_group": [30, 30], "total": 60}),
         "sample_size.total",
-        ["per_arm or total, not both"],
+        ["per_group or total, not both"],
     ),
     (
-        "per-arm-length",
-        merge(BASE, find="power", sample_size={"per_arm": [30, 30, 30]}),
-        "sample_size.per_arm",
-        ["2 number(s), one per arm", "got 3"],
+        "per-group-length",
+        merge(BASE, find="power", sample_size={"per_group": [30, 30, 30]}),
+        "sample_size.per_group",
+        ["2 number(s), one per group", "got 3"],
     ),
     (
-        "per-arm-small",
-        merge(BASE, find="power", sample_size={"per_arm": [1, 30]}),
-        "sample_size.per_arm.0",
+        "per-group-small",
+        merge(BASE, find="power", sample_size={"per_group": [1, 30]}),
+        "sample_size.per_group.0",
         ["[2, 1,000,000,000]", "got 1"],
     ),
     (
-        "per-arm-fraction",
-        merge(BASE, find="power", sample_size={"per_arm": [10.5, 30]}),
-        "sample_size.per_arm.0",
+        "per-group-fraction",
+        merge(BASE, find="power", sample_size={"per_group": [10.5, 30]}),
+        "sample_size.per_group.0",
         ["whole number", "got 10.5"],
     ),
     (
@@ -229,50 +280,65 @@ CASES = [
         "p-equal-solve-n",
         merge(PROP, effect__p_treatment=0.3),
         "effect.p_treatment",
-        ["differ from p_control", "got 0.3"],
+        ["differ from 0.3 (the null value)", "got 0.3"],
     ),
     (
         "difference-zero",
         merge(BASE, effect__difference=0),
         "effect.difference",
-        ["differ from 0", "got 0"],
+        ["differ from 0 (the null value)", "got 0"],
     ),
     (
-        "r-equals-r0",
-        {"design": "correlation", "effect": {"r": 0.2, "r0": 0.2}},
+        "r-equals-r-null",
+        {**CORR, "effect": {"r": 0.2}, "assumptions": {"r_null": 0.2}},
         "effect.r",
-        ["differ from r0", "got 0.2"],
+        ["differ from 0.2 (the null value)", "got 0.2"],
     ),
     (
         "prob-half",
-        {"design": "rank_sum", "effect": {"prob_superiority": 0.5}},
+        {**RANKS, "effect": {"prob_superiority": 0.5}},
         "effect.prob_superiority",
-        ["differ from 0.5", "got 0.5"],
+        ["differ from 0.5 (the null value)", "got 0.5"],
     ),
-    ("anova-one-group", merge(ANOVA, effect__groups=1), "effect.groups", ["[2, 1,000]", "got 1"]),
     (
-        "anova-one-mean",
-        {"design": "anova_oneway", "effect": {"group_means": [1.0], "sd": 1.0}},
+        "k-groups-one-group",
+        merge(ANOVA, assumptions__group_count=1),
+        "assumptions.group_count",
+        ["[2, 1,000]", "got 1"],
+    ),
+    (
+        "k-groups-one-mean",
+        {
+            "outcome": "continuous",
+            "layout": "k_groups",
+            "effect": {"group_means": [1.0]},
+            "assumptions": {"sd": 1.0},
+        },
         "effect.group_means",
         ["at least 2", "[1.0]"],
     ),
     (
-        "anova-groups-mismatch",
-        {"design": "anova_oneway", "effect": {"group_means": [1.0, 2.0], "sd": 1.0, "groups": 3}},
-        "effect.groups",
-        ["number of group_means (2)", "got 3"],
+        "k-groups-means-and-count",
+        {
+            "outcome": "continuous",
+            "layout": "k_groups",
+            "effect": {"group_means": [1.0, 2.0]},
+            "assumptions": {"sd": 1.0, "group_count": 3},
+        },
+        "assumptions.group_count",
+        ["group_means + sd or group_count"],
     ),
-    ("r-one", {"design": "correlation", "effect": {"r": 1.0}}, "effect.r", ["(-1, 1)", "got 1.0"]),
+    ("r-one", {**CORR, "effect": {"r": 1.0}}, "effect.r", ["(-1, 1)", "got 1.0"]),
+    ("r-below", {**CORR, "effect": {"r": -1.5}}, "effect.r", ["(-1, 1)", "got -1.5"]),
     (
-        "r-below",
-        {"design": "correlation", "effect": {"r": -1.5}},
-        "effect.r",
-        ["(-1, 1)", "got -1.5"],
-    ),
-    (
-        "paired-rho-one",
-        {"design": "paired_mean", "effect": {"difference": 1.0, "sd": 2.0, "correlation": 1.0}},
-        "effect.correlation",
+        "paired-correlation-one",
+        {
+            "outcome": "continuous",
+            "layout": "paired",
+            "effect": {"difference": 1.0},
+            "assumptions": {"sd": 2.0, "correlation": 1.0},
+        },
+        "assumptions.correlation",
         ["(-1, 1)", "got 1.0"],
     ),
     (
@@ -354,8 +420,8 @@ CASES = [
             BASE,
             **SIM,
             find="effect",
-            effect={"sd": 1.0},
-            sample_size={"per_arm": [30, 30]},
+            effect={},
+            sample_size={"per_group": [30, 30]},
             simulation__data=two_arm_data(NORMAL, NORMAL),
         ),
         "simulation.data",
@@ -368,35 +434,40 @@ CASES = [
         ["method is analytic"],
     ),
     (
-        "ni-on-anova",
-        merge(ANOVA, hypothesis={"kind": "noninferiority", "margin": -0.1}),
-        "hypothesis.kind",
-        ["two_means, two_proportions", '"anova_oneway"'],
+        "ni-on-k-groups",
+        merge(ANOVA, hypothesis={"aim": "noninferiority", "margin": -0.1}),
+        "hypothesis.aim",
+        ['"continuous × two_groups"', '"binary × two_groups"', '"continuous × k_groups"'],
     ),
     (
         "equivalence-on-survival",
-        merge(SURV, hypothesis={"kind": "equivalence", "margin": 0.1}),
-        "hypothesis.kind",
-        ["two_means, two_proportions", '"survival_logrank"'],
+        merge(SURV, hypothesis={"aim": "equivalence", "margin": 0.1}),
+        "hypothesis.aim",
+        ['"continuous × two_groups"', '"time_to_event × two_groups"'],
     ),
     (
         "ni-two-sided",
-        merge(BASE, sides=2, hypothesis={"kind": "noninferiority", "margin": -0.6}),
-        "sides",
-        ["must be 1", "got 2"],
+        merge(BASE, alternative="two-sided", hypothesis={"aim": "noninferiority", "margin": -0.6}),
+        "alternative",
+        ['must be "one-sided"', "two-sided"],
     ),
-    ("sides-three", merge(BASE, sides=3), "sides", ["[1, 2]", "got 3"]),
+    (
+        "alternative-unknown",
+        merge(BASE, alternative="greater"),
+        "alternative",
+        ["two-sided, one-sided", '"greater"'],
+    ),
     (
         "ni-effect-below-margin",
-        merge(BASE, effect__difference=-0.2, hypothesis={"kind": "noninferiority", "margin": -0.1}),
+        merge(BASE, effect__difference=-0.2, hypothesis={"aim": "noninferiority", "margin": -0.1}),
         "effect.difference",
         ["above the noninferiority margin -0.1", "got -0.2"],
     ),
     (
         "equivalence-effect-outside",
-        merge(PROP, hypothesis={"kind": "equivalence", "margin": 0.1}),
+        merge(PROP, hypothesis={"aim": "equivalence", "margin": 0.1}),
         "effect.p_treatment",
-        ["inside (-0.1, 0.1)", "got 0.2"],
+        ["the assumed effect (0.2) must be inside (-0.1, 0.1)", "got 0.5"],
     ),
     (
         "allocation-zero",
@@ -411,70 +482,84 @@ CASES = [
         ["(0, 1,000]", "got -1.0"],
     ),
     (
-        "allocation-one-arm",
-        {"design": "one_mean", "allocation_ratio": 2.0, "effect": {"difference": 1.0, "sd": 1.0}},
-        "allocation_ratio",
-        ["two-arm designs", "got 2.0"],
-    ),
-    (
-        "rank-sum-neither",
-        {"design": "rank_sum", "effect": {}},
-        "effect.prob_superiority",
-        ["required", "simulation.data", "neither"],
-    ),
-    (
-        "rank-sum-analytic-with-model",
+        "allocation-one-group",
         {
-            "design": "rank_sum",
+            **SINGLE,
+            "allocation_ratio": 2.0,
+            "effect": {"difference": 1.0},
+            "assumptions": {"sd": 1.0},
+        },
+        "allocation_ratio",
+        ["two-group layouts", "got 2.0"],
+    ),
+    (
+        "ranks-neither",
+        {**RANKS, "effect": {}},
+        "effect.prob_superiority",
+        ["required", "(0, 1)"],
+    ),
+    (
+        "ranks-analytic-with-model",
+        {
+            **RANKS,
             "method": "analytic",
             "simulation": {"data": two_arm_data(NORMAL, NORMAL)},
         },
         "effect.prob_superiority",
-        ["required for method = analytic"],
+        ["is required", "(0, 1)"],
     ),
     (
         "cc-not-bool",
-        merge(PROP, effect__continuity_correction=1),
-        "effect.continuity_correction",
+        merge(PROP, analysis_options={"continuity_correction": 1}),
+        "analysis_options.continuity_correction",
         ["true or false", "got 1"],
     ),
     ("hypothesis-string", merge(BASE, hypothesis="ni"), "hypothesis", ["object", '"ni"', "string"]),
     ("effect-list", merge(BASE, effect=[0.5, 1.0]), "effect", ["object", "difference", "a list"]),
     (
+        "field-in-the-wrong-block",
+        merge(BASE, effect={"difference": 0.5, "sd": 1.0}, assumptions=None),
+        "effect.sd",
+        ["unknown field", "belongs in assumptions"],
+    ),
+    (
         "survival-no-time",
-        merge(SURV, effect__accrual_period=0, effect__follow_up=0),
-        "effect.follow_up",
-        ["> 0", "0 + 0"],
+        merge(SURV, assumptions__accrual=0, assumptions__follow_up=0),
+        "assumptions.follow_up",
+        ["accrual + follow_up"],
     ),
     (
         "survival-no-median",
-        {
-            "design": "survival_logrank",
-            "effect": {"hazard_ratio": 0.7, "accrual_period": 12, "follow_up": 6},
-        },
-        "effect.median_control",
-        ["required", "event_rate_control"],
+        merge(SURV, assumptions={"time_unit": "months", "accrual": 12, "follow_up": 6}),
+        "assumptions.control_median",
+        ["required", "control_hazard"],
+    ),
+    (
+        "survival-no-time-unit",
+        merge(SURV, assumptions={"control_median": 12.0, "accrual": 12, "follow_up": 6}),
+        "assumptions.time_unit",
+        ["required", "days, weeks, months, years"],
     ),
     (
         "survival-loss-negative",
-        merge(SURV, effect__loss_rate=-0.01),
-        "effect.loss_rate",
+        merge(SURV, assumptions__loss_hazard=-0.01),
+        "assumptions.loss_hazard",
         [">= 0", "got -0.01"],
     ),
-    ("unknown-top", merge(BASE, colour="blue"), "colour", ["unknown field", "alpha", "design"]),
+    ("unknown-top", merge(BASE, colour="blue"), "colour", ["unknown field", "alpha", "outcome"]),
     (
         "unknown-effect",
-        merge(BASE, effect__sigma=1.0),
-        "effect.sigma",
+        merge(BASE, assumptions__sigma=1.0),
+        "assumptions.sigma",
         ["unknown field", "sd_control"],
     ),
     (
         "find-effect-with-solved",
-        merge(BASE, find="effect", sample_size={"per_arm": [30, 30]}),
+        merge(BASE, find="effect", sample_size={"per_group": [30, 30]}),
         "effect.difference",
         ["solved for when find = effect", "got 0.5"],
     ),
-    # data models: shape per design, family per design, parameter ranges per family
+    # data models: shape per cell, family per outcome, parameter ranges per family
     (
         "data-bernoulli-for-means",
         merge(
@@ -603,43 +688,53 @@ CASES = [
         ["> 0", "got 0"],
     ),
     (
-        "data-shape-one-sample",
+        "data-shape-one-group",
         {
-            "design": "one_mean",
+            **SINGLE,
             **SIM,
-            "effect": {"difference": 1, "sd": 1},
+            "effect": {"difference": 1},
+            "assumptions": {"sd": 1},
             "simulation": {"data": two_arm_data(NORMAL, NORMAL)},
         },
-        "simulation.data.sample",
+        "simulation.data.group",
         ["required"],
     ),
     (
         "data-shape-extra-key",
         {
-            "design": "one_mean",
+            **SINGLE,
             **SIM,
-            "effect": {"difference": 1, "sd": 1},
+            "effect": {"difference": 1},
+            "assumptions": {"sd": 1},
             "simulation": {"data": two_arm_data(NORMAL, NORMAL)},
         },
         "simulation.data.control",
-        ["unknown field", "sample"],
+        ["unknown field", "group"],
+    ),
+    (
+        "data-shape-paired",
+        {
+            "outcome": "continuous",
+            "layout": "paired",
+            **SIM,
+            "effect": {"difference": 1},
+            "assumptions": {"sd_difference": 1},
+            "simulation": {"data": {"group": NORMAL}},
+        },
+        "simulation.data.differences",
+        ["required"],
     ),
     (
         "data-groups-count",
         merge(ANOVA, **SIM, simulation__data={"groups": [NORMAL, NORMAL]}),
         "simulation.data.groups",
-        ["3 arms", "got 2"],
+        ["3 distributions", "got 2"],
     ),
     (
-        "data-correlation",
-        {
-            "design": "correlation",
-            "effect": {"r": 0.3},
-            **SIM,
-            "simulation": {"data": {"sample": NORMAL}},
-        },
+        "data-association",
+        {**CORR, "effect": {"r": 0.3}, **SIM, "simulation": {"data": {"group": NORMAL}}},
         "simulation.data",
-        ["not offered for correlation"],
+        ["not offered for association × single_group"],
     ),
     (
         "family-unknown",
@@ -669,13 +764,13 @@ def test_alpha_message_is_exactly_the_documented_one() -> None:
 
 
 def test_several_errors_are_reported_together() -> None:
-    raw = merge(BASE, alpha=2.0, effect__sd=-1.0, adjustments={"dropout": 1.5})
+    raw = merge(BASE, alpha=2.0, assumptions__sd=-1.0, adjustments={"dropout": 1.5})
     with pytest.raises(QuestionInvalid) as info:
         load_question(raw)
-    assert {"alpha", "effect.sd", "adjustments.dropout"} <= set(info.value.errors)
+    assert {"alpha", "assumptions.sd", "adjustments.dropout"} <= set(info.value.errors)
 
 
-@pytest.mark.parametrize("raw", [None, [], "two_means", 3, True])
+@pytest.mark.parametrize("raw", [None, [], "two_groups", 3, True])
 def test_non_object_question(raw) -> None:
     with pytest.raises(QuestionInvalid) as info:
         load_question(raw)
@@ -683,40 +778,54 @@ def test_non_object_question(raw) -> None:
     assert "JSON object" in info.value.errors["question"][0]
 
 
-# Required effect fields per design when the block is posted empty (contract: effect fields).
+# Required fields per cell when its blocks are posted empty (VOCAB §3).
 REQUIRED = [
-    ("two_means", {"difference", "sd"}),
-    ("one_mean", {"difference", "sd"}),
-    ("paired_mean", {"difference", "sd_difference"}),
-    ("two_proportions", {"p_control", "p_treatment"}),
-    ("anova_oneway", {"cohens_f", "groups"}),
-    ("correlation", {"r"}),
-    ("survival_logrank", {"hazard_ratio", "median_control", "accrual_period", "follow_up"}),
+    (("continuous", "two_groups"), {"effect.difference", "assumptions.sd"}),
+    (("continuous", "single_group"), {"effect.difference", "assumptions.sd"}),
+    (("continuous", "paired"), {"effect.difference", "assumptions.sd_difference"}),
+    (("binary", "two_groups"), {"assumptions.p_control", "effect.p_treatment"}),
+    (("continuous", "k_groups"), {"effect.group_means", "assumptions.sd"}),
+    (("association", "single_group"), {"effect.r"}),
+    (("ordinal", "two_groups"), {"effect.prob_superiority"}),
+    (
+        ("time_to_event", "two_groups"),
+        {
+            "effect.hazard_ratio",
+            "assumptions.time_unit",
+            "assumptions.control_median",
+            "assumptions.accrual",
+            "assumptions.follow_up",
+        },
+    ),
 ]
 
 
-@pytest.mark.parametrize("design, names", REQUIRED)
-@pytest.mark.parametrize("effect", [{}, None])
-def test_required_effect_fields(design: str, names: set[str], effect) -> None:
-    raw = {"design": design} if effect is None else {"design": design, "effect": effect}
+@pytest.mark.parametrize("cell, paths", REQUIRED, ids=[" x ".join(c) for c, _ in REQUIRED])
+@pytest.mark.parametrize("blocks", [{}, None])
+def test_required_fields(cell: tuple[str, str], paths: set[str], blocks) -> None:
+    raw: dict = {"outcome": cell[0], "layout": cell[1]}
+    if blocks is not None:
+        raw.update(effect=blocks, assumptions=blocks)
     with pytest.raises(QuestionInvalid) as info:
         load_question(raw)
-    assert {f"effect.{n}" for n in names} == set(info.value.errors)
-    assert all("required" in m for msgs in info.value.errors.values() for m in msgs)
+    assert paths == set(info.value.errors)
+    # every message says what is allowed after "is required"
+    assert all(m.startswith("is required: ") for msgs in info.value.errors.values() for m in msgs)
 
 
-@pytest.mark.parametrize("missing", ["p_control", "p_treatment"])
+@pytest.mark.parametrize("missing", ["assumptions.p_control", "effect.p_treatment"])
 def test_margin_rule_with_a_missing_proportion_names_the_proportion(missing):
     # A non-inferiority margin check needs both proportions; a missing one is reported on its
     # own field rather than crashing the margin rule (found by comparing 3,334 bad questions).
-    effect = {"p_control": 0.2, "p_treatment": 0.25}
-    del effect[missing]
+    raw = {
+        "outcome": "binary",
+        "layout": "two_groups",
+        "effect": {"p_treatment": 0.25},
+        "assumptions": {"p_control": 0.2},
+        "hypothesis": {"aim": "noninferiority", "margin": -0.1},
+    }
+    block, name = missing.split(".")
+    del raw[block][name]
     with pytest.raises(QuestionInvalid) as info:
-        load_question(
-            {
-                "design": "two_proportions",
-                "effect": effect,
-                "hypothesis": {"kind": "noninferiority", "margin": -0.1},
-            }
-        )
-    assert f"effect.{missing}" in info.value.errors
+        load_question(raw)
+    assert missing in info.value.errors

@@ -7,9 +7,12 @@ import re
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from service.engine.designs import DESIGN_NAMES
+from service.engine import designs
 from service.schemas import QuestionInvalid, load_question
 
+OUTCOMES = sorted({d.outcome for d in designs.all()})
+LAYOUTS = sorted({d.layout for d in designs.all()})
+ANALYSES = sorted({a.name for d in designs.all() for a in d.analyses})
 PATH = re.compile(r"^[A-Za-z0-9_]+(\.[A-Za-z0-9_]+)*$")
 
 leaves = (
@@ -27,30 +30,9 @@ json_values = st.recursive(
     ),
     max_leaves=12,
 )
-EFFECT_KEYS = [
-    "difference",
-    "sd",
-    "sd_control",
-    "sd_treatment",
-    "sd_difference",
-    "correlation",
-    "p_control",
-    "p_treatment",
-    "continuity_correction",
-    "cohens_f",
-    "groups",
-    "group_means",
-    "r",
-    "r0",
-    "prob_superiority",
-    "hazard_ratio",
-    "median_control",
-    "event_rate_control",
-    "accrual_period",
-    "follow_up",
-    "loss_rate",
-]
-ARM_KEYS = [
+# Every declared field name of every cell, posted into any block.
+FIELD_KEYS = sorted({f.name for d in designs.all() for f in d.fields})
+DIST_KEYS = [
     "family",
     "mean",
     "sd",
@@ -65,32 +47,41 @@ ARM_KEYS = [
     "sigma",
 ]
 families = st.sampled_from(["normal", "bernoulli", "weibull", "uniform", "exponential", "x"])
-arm = st.dictionaries(st.sampled_from(ARM_KEYS), json_values | families, max_size=4)
+dist = st.dictionaries(st.sampled_from(DIST_KEYS), json_values | families, max_size=4)
 data_model = st.dictionaries(
-    st.sampled_from(["control", "treatment", "sample", "groups"]),
-    arm | st.lists(arm, max_size=3) | json_values,
+    st.sampled_from(["control", "treatment", "group", "differences", "groups"]),
+    dist | st.lists(dist, max_size=3) | json_values,
     max_size=3,
+)
+blocks = (
+    st.dictionaries(
+        st.sampled_from(FIELD_KEYS),
+        st.floats(-2, 30) | st.sampled_from(["months", "schoenfeld", True]) | json_values,
+        max_size=5,
+    )
+    | json_values
 )
 questions = st.fixed_dictionaries(
     {},
     optional={
-        "design": st.sampled_from([*DESIGN_NAMES, "other"]) | json_values,
+        "outcome": st.sampled_from([*OUTCOMES, "other"]) | json_values,
+        "layout": st.sampled_from([*LAYOUTS, "other"]) | json_values,
+        "analysis": st.sampled_from(ANALYSES) | json_values,
         "find": st.sampled_from(["sample_size", "power", "effect"]) | json_values,
         "alpha": json_values,
-        "sides": st.sampled_from([1, 2]) | json_values,
+        "alternative": st.sampled_from(["two-sided", "one-sided"]) | json_values,
         "target_power": json_values,
         "sample_size": st.dictionaries(
-            st.sampled_from(["per_arm", "total"]),
+            st.sampled_from(["per_group", "total"]),
             st.lists(st.integers(-2, 200), max_size=4) | st.integers(-5, 500) | json_values,
             max_size=2,
         ),
         "allocation_ratio": json_values,
-        "effect": st.dictionaries(
-            st.sampled_from(EFFECT_KEYS), st.floats(-2, 30) | json_values, max_size=5
-        )
-        | json_values,
+        "effect": blocks,
+        "assumptions": blocks,
+        "analysis_options": blocks,
         "hypothesis": st.dictionaries(
-            st.sampled_from(["kind", "margin", "higher_is_better"]),
+            st.sampled_from(["aim", "margin", "higher_is_better"]),
             st.sampled_from(["superiority", "noninferiority", "equivalence"]) | json_values,
             max_size=3,
         ),
@@ -98,9 +89,8 @@ questions = st.fixed_dictionaries(
             st.sampled_from(["dropout", "cluster", "comparisons"]), json_values, max_size=3
         ),
         "method": st.sampled_from(["analytic", "simulation"]) | json_values,
-        "formula": json_values,
         "simulation": st.dictionaries(
-            st.sampled_from(["replicates", "seed", "test", "data", "decision_rule"]),
+            st.sampled_from(["replicates", "seed", "data", "decision_rule"]),
             json_values | data_model,
             max_size=4,
         ),
@@ -120,7 +110,7 @@ def test_loads_or_raises_question_invalid(raw: dict) -> None:
             assert PATH.match(path), path
             assert messages and all(isinstance(m, str) and m for m in messages)
         return
-    assert q["design"] in DESIGN_NAMES
+    assert (q["outcome"], q["layout"]) in {(d.outcome, d.layout) for d in designs.all()}
     assert load_question(q) == q  # the normalized form is a fixed point
 
 
@@ -136,12 +126,14 @@ def test_any_json_value_is_handled(raw) -> None:
 finite = st.floats(-50, 50, allow_nan=False)
 positive = st.floats(0.01, 50)
 unit = st.floats(0.01, 0.99)
+TWO = {"outcome": "continuous", "layout": "two_groups"}
 near_valid = st.one_of(
     st.builds(
         lambda d, sc, st_, a: {
-            "design": "two_means",
+            **TWO,
             "alpha": a,
-            "effect": {"difference": d, "sd_control": sc, "sd_treatment": st_},
+            "effect": {"difference": d},
+            "assumptions": {"sd_control": sc, "sd_treatment": st_},
         },
         finite,
         positive,
@@ -150,8 +142,11 @@ near_valid = st.one_of(
     ),
     st.builds(
         lambda pc, pt, cc: {
-            "design": "two_proportions",
-            "effect": {"p_control": pc, "p_treatment": pt, "continuity_correction": cc},
+            "outcome": "binary",
+            "layout": "two_groups",
+            "effect": {"p_treatment": pt},
+            "assumptions": {"p_control": pc},
+            "analysis_options": {"continuity_correction": cc},
         },
         unit,
         unit,
@@ -159,25 +154,29 @@ near_valid = st.one_of(
     ),
     st.builds(
         lambda means, sd, n: {
-            "design": "anova_oneway",
+            "outcome": "continuous",
+            "layout": "k_groups",
             "find": "power",
             "sample_size": {"total": n},
-            "effect": {"group_means": means, "sd": sd},
+            "effect": {"group_means": means},
+            "assumptions": {"sd": sd},
         },
         st.lists(finite, min_size=2, max_size=6),
         positive,
         st.integers(12, 5000),
     ),
     st.builds(
-        lambda hr, m, a, f, r: {
-            "design": "survival_logrank",
+        lambda hr, m, a, f, r, unit_: {
+            "outcome": "time_to_event",
+            "layout": "two_groups",
             "allocation_ratio": r,
             "find": "power",
             "sample_size": {"total": 400},
-            "effect": {
-                "hazard_ratio": hr,
-                "median_control": m,
-                "accrual_period": a,
+            "effect": {"hazard_ratio": hr},
+            "assumptions": {
+                "time_unit": unit_,
+                "control_median": m,
+                "accrual": a,
                 "follow_up": f,
             },
         },
@@ -186,6 +185,7 @@ near_valid = st.one_of(
         positive,
         st.floats(0, 50),
         st.floats(0.2, 5),
+        st.sampled_from(["days", "weeks", "months", "years"]),
     ),
 )
 
@@ -201,4 +201,4 @@ def test_in_range_questions_load_and_are_fixed_points(raw: dict) -> None:
         return
     assert load_question(q) == q
     if q["sample_size"] is not None and "total" in raw.get("sample_size", {}):
-        assert sum(q["sample_size"]["per_arm"]) == raw["sample_size"]["total"]
+        assert sum(q["sample_size"]["per_group"]) == raw["sample_size"]["total"]

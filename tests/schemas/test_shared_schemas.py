@@ -15,7 +15,8 @@ from pathlib import Path
 
 from marshmallow import ValidationError
 
-from service.schemas.blocks import SimulationSchema
+from service.engine import designs
+from service.schemas.blocks import simulation_schema
 from service.schemas.errors import QuestionInvalid
 from service.schemas.question import QuestionSchema, flatten_errors, load_question
 from service.schemas.shared import shared
@@ -32,7 +33,7 @@ def _questions() -> list[dict]:
         broken["alpha"] = 1.5  # outside (0, 1): an error naming the field
         found.append(broken)
         other = copy.deepcopy(question)
-        other["design"] = "no_such_design"
+        other["layout"] = "no_such_layout"
         found.append(other)
     return found
 
@@ -53,12 +54,10 @@ def _through_shared(question: dict):
 
 def test_one_instance_per_class_and_options():
     assert shared(QuestionSchema) is shared(QuestionSchema)
-    assert shared(SimulationSchema, design="two_means") is shared(
-        SimulationSchema, design="two_means"
-    )
-    assert shared(SimulationSchema, design="two_means") is not shared(
-        SimulationSchema, design="rank_sum"
-    )
+    means = designs.get("continuous", "two_groups")
+    ranks = designs.get("ordinal", "two_groups")
+    assert simulation_schema(means) is simulation_schema(means)
+    assert simulation_schema(means) is not simulation_schema(ranks)
 
 
 def test_concurrent_loads_through_shared_instances_match_fresh_sequential_loads():

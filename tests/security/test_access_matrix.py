@@ -24,7 +24,8 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/healthz"): None,
     ("GET", "/readyz"): None,
     ("GET", "/openapi.json"): EVERYONE,
-    ("GET", "/v1/designs"): EVERYONE,
+    ("GET", "/v1/catalogue"): EVERYONE,
+    ("GET", "/v1/catalogue/question.schema.json"): EVERYONE,
     ("POST", "/v1/calculations"): {INT, S},
     ("POST", "/v1/requests"): {INT, S},
     ("GET", "/v1/requests"): {INT, S, A},
@@ -43,9 +44,9 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/v1/staff/requests"): {S, A},
     ("POST", "/v1/requests/<request_id>/report-links"): {INT, S, A},
     ("POST", "/v1/requests/<request_id>/report-links/revoke"): {INT, S, A},
-    ("POST", "/v1/requests/<request_id>/analyses"): {S},
-    ("GET", "/v1/requests/<request_id>/analyses"): {INT, S, A},
-    ("GET", "/v1/requests/<request_id>/analyses/<analysis_id>"): {INT, S, A},
+    ("POST", "/v1/requests/<request_id>/explorations"): {S},
+    ("GET", "/v1/requests/<request_id>/explorations"): {INT, S, A},
+    ("GET", "/v1/requests/<request_id>/explorations/<exploration_id>"): {INT, S, A},
     ("POST", "/v1/tokens"): {ADM},
     ("GET", "/v1/tokens"): {ADM},
     ("POST", "/v1/tokens/<token_id>/revoke"): {ADM},
@@ -55,9 +56,11 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
 BODIES = {
     "/v1/calculations": {
         "question": {
-            "design": "two_means",
+            "outcome": "continuous",
+            "layout": "two_groups",
             "find": "sample_size",
-            "effect": {"difference": 0.5, "sd": 1},
+            "effect": {"difference": 0.5},
+            "assumptions": {"sd": 1},
         }
     },
     "/v1/tokens": {"role": "intake", "name": "matrix check"},
@@ -65,7 +68,10 @@ BODIES = {
     "/v1/requests/<request_id>/comments": {"text": "Which SD source?"},
     "/v1/requests/<request_id>/approve": {"note": "ok"},
     "/v1/requests/<request_id>/return": {"note": "ok"},
-    "/v1/requests/<request_id>/analyses": {"kind": "sensitivity", "grid": {"alpha": [0.05, 0.01]}},
+    "/v1/requests/<request_id>/explorations": {
+        "type": "sensitivity_grid",
+        "grid": {"alpha": [0.05, 0.01]},
+    },
 }
 
 
@@ -107,7 +113,7 @@ def test_role_matrix(app, anon_client, api, tokens, method, rule):
     ids = {
         "request_id": request_id,
         "rerun_id": MISSING,
-        "analysis_id": MISSING,
+        "exploration_id": MISSING,
         "token_id": victim,
     }
 

@@ -1,7 +1,7 @@
 """`sizewise audit verify` names every tampering with what the audit trail recorded.
 
 Each test builds a real history through the API and the worker's own task functions (submitted,
-computed, commented, approved, a rerun, an analysis, tokens issued and revoked), checks that
+computed, commented, approved, a rerun, an exploration, tokens issued and revoked), checks that
 verify calls it intact, then edits the database behind the service's back, the way someone with
 write access to it could, and checks that verify exits 1 naming what changed. Runs on SQLite
 and on PostgreSQL. Demo data: Northbridge General Hospital research office, invented.
@@ -17,7 +17,7 @@ from sqlalchemy import text
 
 import service.cli as cli
 from service.engine.records import seal
-from workers.analysis_tasks import run_analysis_job
+from workers.exploration_tasks import run_exploration_job
 from workers.tasks import run_request_job, run_rerun_job
 
 
@@ -35,7 +35,7 @@ def _load(value):
 
 @pytest.fixture
 def history(api, tokens) -> dict:
-    """Two computed requests (one approved, one with a rerun and an analysis), tokens, a revoke."""
+    """Two computed requests (one approved, one with a rerun and an exploration), tokens, a revoke."""
     config = _config(api)
     first = api.submit().get_json()["id"]
     second = api.submit().get_json()["id"]
@@ -47,12 +47,12 @@ def history(api, tokens) -> dict:
     rerun = api.post(f"/v1/requests/{second}/reruns", {"note": "Annual check."}, role="auditor")
     assert rerun.status_code == 202, rerun.get_json()
     assert run_rerun_job(rerun.get_json()["id"], config) == "done"
-    analysis = api.post(
-        f"/v1/requests/{second}/analyses",
-        {"kind": "sensitivity", "grid": {"adjustments.dropout": [0.0, 0.2]}},
+    exploration = api.post(
+        f"/v1/requests/{second}/explorations",
+        {"type": "sensitivity_grid", "grid": {"adjustments.dropout": [0.0, 0.2]}},
     )
-    assert analysis.status_code == 202, analysis.get_json()
-    assert run_analysis_job(analysis.get_json()["id"], config) == "done"
+    assert exploration.status_code == 202, exploration.get_json()
+    assert run_exploration_job(exploration.get_json()["id"], config) == "done"
     revoked = tokens.token_id("intake", "temp clerk")
     r = api.client.post(f"/v1/tokens/{revoked}/revoke", headers=tokens.headers("admin", "it desk"))
     assert r.status_code == 200
@@ -75,14 +75,14 @@ def _engine(api):
     return api.app.extensions["sizewise"]["engine"]
 
 
-def test_an_untouched_history_with_reruns_and_analyses_is_intact(
+def test_an_untouched_history_with_reruns_and_explorations_is_intact(
     api, history, database_url, monkeypatch, capsys
 ):
     code, out, err = _verify(monkeypatch, capsys, database_url)
     assert code == 0, err
     assert err == "" and "not covered" not in out
     assert "audit trail intact:" in out
-    assert "2 requests, 2 results, 1 reruns, 1 analyses" in out
+    assert "2 requests, 2 results, 1 reruns, 1 explorations" in out
     with _engine(api).connect() as conn:
         head_id, head_sha = conn.execute(
             text("SELECT id, sha256 FROM audit_events ORDER BY id DESC LIMIT 1")
@@ -97,7 +97,7 @@ def test_a_rewritten_and_resealed_result_is_caught(api, history, database_url, m
             text("SELECT record FROM results WHERE request_id = :r"), {"r": request_id}
         ).scalar()
         record = _load(stored)
-        record["sample_size"]["per_arm"] = [50, 50]  # a smaller, cheaper study than computed
+        record["sample_size"]["per_group"] = [50, 50]  # a smaller, cheaper study than computed
         record = seal(record)  # a fresh, self-consistent hash, as a careful forger would
         conn.execute(
             text(
@@ -231,15 +231,18 @@ def test_a_token_inserted_behind_the_service_is_caught(
     assert code == 1 and f"token {'b' * 32} (admin, 'backdoor') is active but no" in err
 
 
-def test_an_altered_rerun_and_analysis_are_caught(api, history, database_url, monkeypatch, capsys):
+def test_an_altered_rerun_and_exploration_are_caught(
+    api, history, database_url, monkeypatch, capsys
+):
     with _engine(api).begin() as conn:
         rerun_id, record = conn.execute(text("SELECT id, record FROM reruns")).one()
         record = _load(record)
-        record["sample_size"]["per_arm"] = [10, 10]
+        record["sample_size"]["per_group"] = [10, 10]
         conn.execute(
             text(f"UPDATE reruns SET record = {_json_param(conn)}"), {"v": json.dumps(record)}
         )
-        analysis_id, result = conn.execute(text("SELECT id, result FROM analyses")).one()
+        # The table keeps the first version's name (no migration just for naming).
+        exploration_id, result = conn.execute(text("SELECT id, result FROM analyses")).one()
         result = _load(result)
         result["shape"] = [1, 1]
         conn.execute(
@@ -248,7 +251,7 @@ def test_an_altered_rerun_and_analysis_are_caught(api, history, database_url, mo
     code, _out, err = _verify(monkeypatch, capsys, database_url)
     assert code == 1
     assert f"rerun {rerun_id} of request {history['computed']}: its stored result differs" in err
-    assert f"analysis {analysis_id} of request {history['computed']}: its stored result" in err
+    assert f"exploration {exploration_id} of request {history['computed']}: its stored" in err
 
 
 def test_events_written_before_the_hashes_are_reported_not_covered(
@@ -270,7 +273,12 @@ def test_events_written_before_the_hashes_are_reported_not_covered(
             request_id=request_id,
             actor="a.okafor (intake)",
             action="submitted",
-            detail={"design": "two_means", "method": "analytic", "seed": None},
+            detail={
+                "outcome": "continuous",
+                "layout": "two_groups",
+                "method": "analytic",
+                "seed": None,
+            },
         )
         append_event(session, request_id=request_id, actor="system", action="published", detail={})
     code, out, err = _verify(monkeypatch, capsys, database_url)

@@ -1,6 +1,6 @@
-"""Budgets and limits that could be walked around: analyses, parallel submissions, calls without
+"""Budgets and limits that could be walked around: explorations, parallel submissions, calls without
 a valid token, and self-approval. Both backends (PostgreSQL locks the token row; SQLite has one
-writer). The estimates are the engine's own (``estimate_cost``, ``analysis_cost``), so each
+writer). The estimates are the engine's own (``estimate_cost``, and ``price`` of the explorations), so each
 budget below is set to fit an exact number of simulations.
 """
 
@@ -16,14 +16,14 @@ import pytest
 from sqlalchemy import func, select, update
 from werkzeug.serving import make_server
 
-from service.api.analyses import formula_record
+from service.api.explorations import counterpart_record
 from service.engine import compute, estimate_cost
-from service.engine.explore import analysis_cost
 from service.schemas import load_question
+from service.schemas.explorations import price
 from service.store import jobs
 from service.store import tokens as token_store
 from service.store.db import session_scope
-from service.store.models import Analysis, Request, TokenSpend
+from service.store.models import Exploration, Request, TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
@@ -45,26 +45,25 @@ def _count(app, model, **where) -> int:
 
 def _simulation(replicates: int = 400) -> dict:
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [30, 30]},
-        "effect": {"difference": 0.5, "sd": 1},
+        "sample_size": {"per_group": [30, 30]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1},
         "method": "simulation",
         "simulation": {"replicates": replicates, "seed": 20250611},
     }
 
 
 def _robustness_cost(question: dict) -> int:
-    q = load_question(question)
-    return analysis_cost(
-        "robustness", {"replicates": q["simulation"]["replicates"], "seed": 0}, q, None
-    )
+    return price(load_question(question), None, {"type": "robustness_panel"}, budget=None)[1]
 
 
-# --- analyses count against the hourly budget -------------------------------------------------
+# --- explorations count against the hourly budget -------------------------------------------------
 
 
-def test_analyses_attached_to_a_submission_are_charged(make_app, api):
+def test_explorations_attached_to_a_submission_are_charged(make_app, api):
     question = _simulation()
     request_cost = estimate_cost(load_question(question))
     panel_cost = _robustness_cost(question)
@@ -73,14 +72,14 @@ def test_analyses_attached_to_a_submission_are_charged(make_app, api):
     app = make_app(TOKEN_HOURLY_BUDGET=request_cost + panel_cost - 1)
     client = app.test_client()
     token_id, headers = _token(app, "intake", "a.okafor")
-    body = api.request_body(question, analyses={"robustness": True})
+    body = api.request_body(question, explorations=[{"type": "robustness_panel"}])
     r = client.post("/v1/requests", json=body, headers=headers)
     assert r.status_code == 429 and r.mimetype == PROBLEM
     problem = r.get_json()
     assert problem["estimate"] == request_cost + panel_cost
     assert problem["remaining"] == request_cost + panel_cost - 1
-    # Nothing of it was stored: no request, no analysis, no reservation.
-    assert (_count(app, Request), _count(app, Analysis), _count(app, TokenSpend)) == (0, 0, 0)
+    # Nothing of it was stored: no request, no exploration, no reservation.
+    assert (_count(app, Request), _count(app, Exploration), _count(app, TokenSpend)) == (0, 0, 0)
     # Without the panel it fits; the ledger holds exactly its estimate.
     r = client.post("/v1/requests", json=api.request_body(question), headers=headers)
     assert r.status_code == 202
@@ -89,7 +88,7 @@ def test_analyses_attached_to_a_submission_are_charged(make_app, api):
     assert rows == [("request", request_cost, token_id)]
 
 
-def test_analyses_posted_later_are_charged(make_app, api):
+def test_explorations_posted_later_are_charged(make_app, api):
     question = _simulation()
     request_cost = estimate_cost(load_question(question))
     panel_cost = _robustness_cost(question)
@@ -99,37 +98,37 @@ def test_analyses_posted_later_are_charged(make_app, api):
     statistician_id, headers = _token(app, "statistician", "j.moreau")
     r = client.post("/v1/requests", json=api.request_body(question), headers=headers)
     assert r.status_code == 202
-    path = f"/v1/requests/{r.get_json()['id']}/analyses"
-    assert client.post(path, json={"kind": "robustness"}, headers=headers).status_code == 202
-    before = _count(app, Analysis)
-    r = client.post(path, json={"kind": "robustness"}, headers=headers)
+    path = f"/v1/requests/{r.get_json()['id']}/explorations"
+    assert client.post(path, json={"type": "robustness_panel"}, headers=headers).status_code == 202
+    before = _count(app, Exploration)
+    r = client.post(path, json={"type": "robustness_panel"}, headers=headers)
     assert r.status_code == 429 and r.get_json()["remaining"] == 0
-    assert _count(app, Analysis) == before
+    assert _count(app, Exploration) == before
     assert _count(app, TokenSpend, token_id=statistician_id) == 2
     # Another statistician has a budget of their own.
     _id, other = _token(app, "statistician", "l.park")
-    assert client.post(path, json={"kind": "robustness"}, headers=other).status_code == 202
+    assert client.post(path, json={"type": "robustness_panel"}, headers=other).status_code == 202
     # A sensitivity grid over the simulated request simulates every cell: charged too.
-    grid = {"kind": "sensitivity", "grid": {"effect.difference": [0.4, 0.5, 0.6]}}
+    grid = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.5, 0.6]}}
     r = client.post(path, json=grid, headers=headers)
     assert r.status_code == 429
     # Spending older than the hour no longer counts.
     with session_scope(app.extensions["sizewise"]["sessions"]) as session:
         session.execute(update(TokenSpend).values(spent_at=utcnow() - timedelta(hours=2)))
-    assert client.post(path, json={"kind": "robustness"}, headers=headers).status_code == 202
+    assert client.post(path, json={"type": "robustness_panel"}, headers=headers).status_code == 202
 
 
 def test_panel_of_a_sample_size_question_is_priced_at_the_formula_n(make_app, api):
     question = dict(_simulation(), find="sample_size")
     question.pop("sample_size")
     q = load_question(question)
-    record = formula_record(q)
+    record = counterpart_record(q)
     assert record is not None
-    panel = analysis_cost("robustness", {"replicates": 400, "seed": 0}, q, record)
+    panel = price(q, record, {"type": "robustness_panel", "replicates": 400}, budget=None)[1]
     request_cost = estimate_cost(q)
     app = make_app(TOKEN_HOURLY_BUDGET=request_cost + panel - 1)
     _id, headers = _token(app, "intake", "a.okafor")
-    body = api.request_body(question, analyses={"robustness": True})
+    body = api.request_body(question, explorations=[{"type": "robustness_panel"}])
     r = app.test_client().post("/v1/requests", json=body, headers=headers)
     assert r.status_code == 429 and r.get_json()["estimate"] == request_cost + panel
 
@@ -214,8 +213,8 @@ def test_calls_without_a_valid_token_are_rate_limited(make_app, api):
     client = app.test_client()
     # No token, a malformed header, an unknown token: all 401, all counted against the address.
     attempts = [{}, {"Authorization": "Basic eDp5"}, {"Authorization": "Bearer sw_" + "x" * 43}]
-    assert [client.get("/v1/designs", headers=h).status_code for h in attempts] == [401] * 3
-    r = client.get("/v1/designs", headers={"Authorization": "Bearer sw_guess"})
+    assert [client.get("/v1/catalogue", headers=h).status_code for h in attempts] == [401] * 3
+    r = client.get("/v1/catalogue", headers={"Authorization": "Bearer sw_guess"})
     assert r.status_code == 429 and r.mimetype == PROBLEM
     assert "per address" in r.get_json()["detail"] and int(r.headers["Retry-After"]) > 0
     # Guessing report-link signatures is counted the same way.
@@ -225,9 +224,9 @@ def test_calls_without_a_valid_token_are_rate_limited(make_app, api):
     # Another address has its own count, and a valid token its own bucket.
     other = app.test_client()
     other.environ_base["REMOTE_ADDR"] = "10.0.0.7"
-    assert other.get("/v1/designs").status_code == 401
+    assert other.get("/v1/catalogue").status_code == 401
     _id, headers = _token(app, "auditor", "k.ito")
-    assert client.get("/v1/designs", headers=headers).status_code == 200
+    assert client.get("/v1/catalogue", headers=headers).status_code == 200
 
 
 # --- four eyes --------------------------------------------------------------------------------
@@ -288,4 +287,4 @@ def test_unauthenticated_calls_are_counted_while_the_shared_store_is_down(make_a
     # Nothing listens on this port: the counters fall back to this process, never to a 500.
     app = make_app(RATE_LIMIT="2 per hour", RATELIMIT_STORAGE_URL="redis://127.0.0.1:6399/0")
     client = app.test_client()
-    assert [client.get("/v1/designs").status_code for _ in range(3)] == [401, 401, 429]
+    assert [client.get("/v1/catalogue").status_code for _ in range(3)] == [401, 401, 429]

@@ -127,7 +127,7 @@ def test_audit_verify_intact_then_catches_an_edited_result(api, database_url, mo
             text("SELECT id, sha256 FROM audit_events ORDER BY id DESC LIMIT 1")
         ).one()
     assert out.stdout.strip().splitlines() == [
-        f"audit trail intact: {events} events, 1 requests, 1 results, 0 reruns, 0 analyses, "
+        f"audit trail intact: {events} events, 1 requests, 1 results, 0 reruns, 0 explorations, "
         "2 tokens",
         f"anchor: event {head_id} sha256 {head_sha}",
     ]
@@ -135,7 +135,7 @@ def test_audit_verify_intact_then_catches_an_edited_result(api, database_url, mo
     with engine.begin() as conn:
         stored = conn.execute(text("SELECT record FROM results")).scalar()
         record = stored if isinstance(stored, dict) else json.loads(stored)
-        record["sample_size"]["per_arm"] = [50, 50]  # a smaller, cheaper study than computed
+        record["sample_size"]["per_group"] = [50, 50]  # a smaller, cheaper study than computed
         conn.execute(
             text(f"UPDATE results SET record = {_json_param(conn)}"), {"v": json.dumps(record)}
         )

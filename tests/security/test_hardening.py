@@ -271,7 +271,8 @@ def test_a_question_that_fails_in_the_worker_is_shown_in_words(api, client):
         # must still say what went wrong in words.
         row = session.get(Request, request_id)
         question = dict(row.question)
-        question["effect"] = {**question["effect"], "difference": 1e308, "sd": 1e-300}
+        question["effect"] = {**question["effect"], "difference": 1e308}
+        question["assumptions"] = {**question["assumptions"], "sd": 1e-300}
         row.question = question
     outcome = run_request_job(request_id, api.app.extensions["sizewise"]["config"])
     assert outcome == "failed"

@@ -33,13 +33,13 @@ def test_rate_limit_is_per_token_and_answers_problem_json(make_app):
     app = make_app(RATE_LIMIT="3 per hour")
     client = app.test_client()
     first, second = _headers(app, "auditor", "one"), _headers(app, "auditor", "two")
-    assert [client.get("/v1/designs", headers=first).status_code for _ in range(3)] == [200] * 3
+    assert [client.get("/v1/catalogue", headers=first).status_code for _ in range(3)] == [200] * 3
     r = client.get("/v1/requests", headers=first)  # one budget across all endpoints
     assert r.status_code == 429 and r.mimetype == PROBLEM
     body = r.get_json()
     assert body["status"] == 429 and "3 per 1 hour" in body["detail"]
     assert int(r.headers["Retry-After"]) > 0
-    assert client.get("/v1/designs", headers=second).status_code == 200
+    assert client.get("/v1/catalogue", headers=second).status_code == 200
     # The probes are never limited.
     assert all(client.get("/healthz").status_code == 200 for _ in range(5))
 
@@ -60,10 +60,12 @@ def test_rate_limit_storage_is_shared_by_default(tmp_path, monkeypatch):
 
 def _simulation(replicates: int = 1000) -> dict:
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [30, 30]},
-        "effect": {"difference": 0.5, "sd": 1},
+        "sample_size": {"per_group": [30, 30]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1},
         "method": "simulation",
         "simulation": {"replicates": replicates, "seed": 20250611},
     }
@@ -95,7 +97,14 @@ def test_hourly_budget_per_token(make_app, _body):
     assert f"{estimate:,}" in body["detail"] and f"{remaining:,}" in body["detail"]
     assert 0 < int(r.headers["Retry-After"]) <= 3600
     # Analytic questions cost no draws; another token has its own budget.
-    analytic = _body({"design": "correlation", "find": "sample_size", "effect": {"r": 0.3}})
+    analytic = _body(
+        {
+            "outcome": "association",
+            "layout": "single_group",
+            "find": "sample_size",
+            "effect": {"r": 0.3},
+        }
+    )
     assert client.post("/v1/requests", json=analytic, headers=okafor).status_code == 202
     assert client.post("/v1/requests", json=_body(_simulation()), headers=park).status_code == 202
     # Spending older than an hour no longer counts.
@@ -136,7 +145,7 @@ def test_rate_limit_counts_are_shared_through_a_redis_broker(make_app):
     first = make_app(BROKER_URL=redis, RATE_LIMIT="2 per minute", RATELIMIT_STORAGE_URL="")
     second = make_app(BROKER_URL=redis, RATE_LIMIT="2 per minute", RATELIMIT_STORAGE_URL="")
     headers = _headers(first, "auditor", "shared")
-    assert first.test_client().get("/v1/designs", headers=headers).status_code == 200
-    assert second.test_client().get("/v1/designs", headers=headers).status_code == 200
-    r = first.test_client().get("/v1/designs", headers=headers)
+    assert first.test_client().get("/v1/catalogue", headers=headers).status_code == 200
+    assert second.test_client().get("/v1/catalogue", headers=headers).status_code == 200
+    r = first.test_client().get("/v1/catalogue", headers=headers)
     assert r.status_code == 429 and r.mimetype == PROBLEM

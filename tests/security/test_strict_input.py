@@ -16,11 +16,11 @@ from sqlalchemy import func, select
 
 from service.api.auth import sign_link
 from service.store.db import session_scope
-from service.store.models import Analysis, ApiToken, AuditEvent, Request, Rerun, TokenSpend
+from service.store.models import ApiToken, AuditEvent, Exploration, Request, Rerun, TokenSpend
 from service.store.types import utcnow
 
 PROBLEM = "application/problem+json"
-STORED = (Request, Analysis, AuditEvent, Rerun, TokenSpend)
+STORED = (Request, Exploration, AuditEvent, Rerun, TokenSpend)
 
 
 def stored_rows(app) -> dict[str, int]:
@@ -49,7 +49,7 @@ def _problem(r, status: int) -> dict:
         (("protocol", "title"), "protocol.title"),
         (("requester", "name"), "requester.name"),
         (("notes",), "notes"),
-        (("question", "design"), "question.design"),
+        (("question", "layout"), "question.layout"),
     ],
 )
 @pytest.mark.parametrize(
@@ -97,7 +97,8 @@ def test_deep_nesting_under_the_size_cap_is_400(app, client, api):
         assert "at most 64" in problem["detail"]
     # Nesting just inside the limit is parsed (and then refused as a body of the wrong shape).
     body = api.request_body(notes=None)
-    body["question"]["effect"] = {"difference": 0.5, "sd": 1.0}
+    body["question"]["effect"] = {"difference": 0.5}
+    body["question"]["assumptions"] = {"sd": 1.0}
     deep = json.dumps(body)[:-1] + ', "x": ' + "[" * 60 + "]" * 60 + "}"
     r = _post_text(client, "/v1/requests", deep)
     assert r.status_code == 422 and "x" in r.get_json()["errors"]
@@ -120,7 +121,7 @@ def test_nul_in_query_and_path_is_refused(app, client, api, auth):
     # A path id holding NUL names nothing: 404 before any lookup (PostgreSQL would refuse it).
     for path in (
         f"/v1/requests/{request_id[:31]}%00",
-        f"/v1/requests/{request_id}/analyses/{'a' * 31}%00",
+        f"/v1/requests/{request_id}/explorations/{'a' * 31}%00",
         f"/v1/requests/{request_id}/reruns/%00",
     ):
         assert client.get(path).status_code == 404
@@ -142,7 +143,8 @@ def test_page_with_thirty_digits_is_422(client):
 
 def test_lognormal_sigma_of_1000_is_refused_with_the_range(app, client, api):
     question = {
-        "design": "rank_sum",
+        "outcome": "ordinal",
+        "layout": "two_groups",
         "find": "power",
         "sample_size": {"total": 80},
         "method": "simulation",
@@ -201,8 +203,11 @@ def test_signed_link_with_an_absurd_expiry_is_401(app, anon_client, api):
 
 # Questions the worker could not compute: /v1/calculations refused them, submission did not.
 UNCOMPUTABLE = [
-    ({"effect": {"difference": 1e308, "sd": 1.0}}, ["question.effect.difference"]),
-    ({"effect": {"difference": 0.5, "sd": 1e-320}}, ["question.effect.sd"]),
+    ({"effect": {"difference": 1e308}, "assumptions": {"sd": 1.0}}, ["question.effect.difference"]),
+    (
+        {"effect": {"difference": 0.5}, "assumptions": {"sd": 1e-320}},
+        ["question.assumptions.sd"],
+    ),
     (
         {"adjustments": {"cluster": {"mean_size": 1e308, "icc": 0.05}}},
         ["question.adjustments.cluster.mean_size"],
@@ -210,10 +215,11 @@ UNCOMPUTABLE = [
     (
         {
             "find": "power",
-            "sample_size": {"per_arm": [10**9, 10**9]},
-            "effect": {"difference": 1e300, "sd": 1e-300},
+            "sample_size": {"per_group": [10**9, 10**9]},
+            "effect": {"difference": 1e300},
+            "assumptions": {"sd": 1e-300},
         },
-        ["question.effect.difference", "question.effect.sd"],
+        ["question.effect.difference", "question.assumptions.sd"],
     ),
 ]
 
@@ -234,30 +240,34 @@ def test_uncomputable_questions_are_refused_at_submission(app, client, api, chan
 
 def test_simulated_question_with_an_overflowing_effect_is_refused(app, client, api):
     question = {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [64, 64]},
-        "effect": {"difference": 0.5, "sd": 1e-320},
+        "sample_size": {"per_group": [64, 64]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1e-320},
         "method": "simulation",
         "simulation": {"replicates": 200, "seed": 1},
     }
     before = stored_rows(app)
     problem = _problem(client.post("/v1/requests", json=api.request_body(question)), 422)
-    assert list(problem["errors"]) == ["question.effect.sd"]
+    assert list(problem["errors"]) == ["question.assumptions.sd"]
     assert stored_rows(app) == before
 
 
 def test_ordinary_questions_in_any_unit_still_pass(client, api):
     # Grams instead of kilograms: large numbers, ordinary standardized effect.
-    big = api.question_body(effect={"difference": 5000.0, "sd": 12000.0})
-    small = api.question_body(effect={"difference": 5e-9, "sd": 1.2e-8})
+    big = api.question_body(effect={"difference": 5000.0}, assumptions={"sd": 12000.0})
+    small = api.question_body(effect={"difference": 5e-9}, assumptions={"sd": 1.2e-8})
     for question in (big, small):
         assert client.post("/v1/requests", json=api.request_body(question)).status_code == 202
     simulated = {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [64, 64]},
-        "effect": {"difference": -5.0, "sd": 12.0},
+        "sample_size": {"per_group": [64, 64]},
+        "effect": {"difference": -5.0},
+        "assumptions": {"sd": 12.0},
         "method": "simulation",
         "simulation": {"replicates": 200, "seed": 1},
     }
@@ -265,14 +275,15 @@ def test_ordinary_questions_in_any_unit_still_pass(client, api):
 
 
 def test_grid_values_no_cell_could_compute_with_are_refused(app, client, api):
-    body = api.request_body(analyses={"sensitivity": {"grid": {"effect.difference": [0.5, 1e308]}}})
+    item = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.5, 1e308]}}
+    body = api.request_body(explorations=[item])
     before = stored_rows(app)
     problem = _problem(client.post("/v1/requests", json=body), 422)
-    assert "1e+308" in problem["errors"]["analyses.sensitivity.grid.effect.difference"][0]
+    assert "1e+308" in problem["errors"]["explorations.0.grid.effect.difference"][0]
     assert stored_rows(app) == before
     request_id = client.post("/v1/requests", json=api.request_body()).get_json()["id"]
     before = stored_rows(app)
-    grid = {"kind": "sensitivity", "grid": {"effect.sd": [1e-320, 1.0]}}
-    problem = _problem(client.post(f"/v1/requests/{request_id}/analyses", json=grid), 422)
-    assert list(problem["errors"]) == ["grid.effect.sd"]
+    grid = {"type": "sensitivity_grid", "grid": {"assumptions.sd": [1e-320, 1.0]}}
+    problem = _problem(client.post(f"/v1/requests/{request_id}/explorations", json=grid), 422)
+    assert list(problem["errors"]) == ["grid.assumptions.sd"]
     assert stored_rows(app) == before

@@ -33,14 +33,14 @@ def test_a_revoked_token_is_refused_at_once_here_and_within_the_bound_elsewhere(
         here, there = app.test_client(), other.test_client()
         token_id, headers = _issue(app, "auditor", "cache check")
         _admin_id, admin = _issue(app, "admin", "cache admin")
-        assert here.get("/v1/designs", headers=headers).status_code == 200
-        assert there.get("/v1/designs", headers=headers).status_code == 200  # now remembered
+        assert here.get("/v1/catalogue", headers=headers).status_code == 200
+        assert there.get("/v1/catalogue", headers=headers).status_code == 200  # now remembered
         assert here.post(f"/v1/tokens/{token_id}/revoke", headers=admin).status_code == 200
-        refused = here.get("/v1/designs", headers=headers)
+        refused = here.get("/v1/catalogue", headers=headers)
         assert refused.status_code == 401
         assert "revoked" in refused.get_json()["detail"]
         time.sleep(TOKEN_CACHE_SECONDS + 0.05)  # the documented bound, then the other process
-        assert there.get("/v1/designs", headers=headers).status_code == 401
+        assert there.get("/v1/catalogue", headers=headers).status_code == 401
     finally:
         other.extensions["sizewise"]["engine"].dispose()
 
@@ -48,18 +48,18 @@ def test_a_revoked_token_is_refused_at_once_here_and_within_the_bound_elsewhere(
 def test_a_token_revoked_outside_the_api_stops_working_within_the_bound(app):
     client = app.test_client()
     token_id, headers = _issue(app, "auditor", "cli revoked")
-    assert client.get("/v1/designs", headers=headers).status_code == 200
+    assert client.get("/v1/catalogue", headers=headers).status_code == 200
     with session_scope(app.extensions["sizewise"]["sessions"]) as session:
         token_store.revoke_token(session, token_id, actor="cli")  # as `sizewise tokens revoke`
     time.sleep(TOKEN_CACHE_SECONDS + 0.05)
-    assert client.get("/v1/designs", headers=headers).status_code == 401
+    assert client.get("/v1/catalogue", headers=headers).status_code == 401
 
 
 def test_unknown_secrets_are_never_remembered(app):
     client = app.test_client()
     bad = {"Authorization": "Bearer sw_" + "x" * 43}
     for _ in range(3):
-        assert client.get("/v1/designs", headers=bad).status_code == 401
+        assert client.get("/v1/catalogue", headers=bad).status_code == 401
     assert app.extensions["sizewise"]["token_cache"]._entries == {}
 
 
@@ -67,7 +67,7 @@ def test_last_used_is_still_written_while_the_token_is_remembered(app):
     client = app.test_client()
     token_id, headers = _issue(app, "auditor", "last use")
     sessions = app.extensions["sizewise"]["sessions"]
-    assert client.get("/v1/designs", headers=headers).status_code == 200
+    assert client.get("/v1/catalogue", headers=headers).status_code == 200
     with session_scope(sessions) as session:
         first = session.get(ApiToken, token_id).last_used_at
         assert first is not None
@@ -75,7 +75,7 @@ def test_last_used_is_still_written_while_the_token_is_remembered(app):
         old = utcnow() - token_store.LAST_USED_RESOLUTION - timedelta(minutes=5)
         session.execute(update(ApiToken).where(ApiToken.id == token_id).values(last_used_at=old))
     time.sleep(TOKEN_CACHE_SECONDS + 0.05)
-    assert client.get("/v1/designs", headers=headers).status_code == 200
+    assert client.get("/v1/catalogue", headers=headers).status_code == 200
     with session_scope(sessions) as session:
         assert session.get(ApiToken, token_id).last_used_at > old + timedelta(minutes=5)
 

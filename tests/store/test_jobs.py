@@ -15,8 +15,9 @@ from service.store.audit import verify_chain
 from service.store.db import make_engine, make_sessionmaker, session_scope
 from service.store.models import Request, Result
 from service.store.types import utcnow
+from tests.conftest import question_body
 
-QUESTION = {"design": "two_means", "find": "sample_size", "effect": {"difference": 0.5, "sd": 1}}
+QUESTION = question_body()
 
 
 @pytest.fixture
@@ -143,6 +144,18 @@ def test_cancel_and_fail_need_our_lease(factory):
         assert jobs.fail(s, "request", rid, "w2", "boom") is False
         assert jobs.cancel(s, "request", rid, "w1") is True
         assert s.get(Request, rid).status == "cancelled"
-    with pytest.raises(ValueError, match="job kind"):
+    with pytest.raises(ValueError, match="job must be one of request, rerun, exploration"):
         with session_scope(factory) as s:
             jobs.claim(s, "report", rid, "w1", 60, 3)
+
+
+def test_every_job_row_has_the_lease_columns_of_one_mixin():
+    from service.store.models import CHUNK_JOB_KINDS, Leased
+
+    lease = {"published_at", "lease_owner", "lease_expires_at", "attempts"}
+    for job in jobs.JOB_KINDS.values():
+        assert issubclass(job.model, Leased), job.name
+        assert lease <= set(job.model.__table__.columns.keys()), job.name
+        # Its work units are stored under a name the chunk_results check constraint allows.
+        assert job.unit_key in CHUNK_JOB_KINDS, job.name
+    assert list(jobs.JOB_KINDS) == ["request", "rerun", "exploration"]

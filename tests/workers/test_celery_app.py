@@ -48,7 +48,7 @@ def test_filesystem_broker_folders_live_under_the_configured_root(tmp_path):
 
 
 def test_tasks_are_registered_under_namespaced_names(tmp_path):
-    import workers.analysis_tasks  # noqa: F401  (the worker imports them through ``include``)
+    import workers.exploration_tasks  # noqa: F401  (the worker imports them through ``include``)
     from workers.celery_app import app
 
     for name in TASK_NAMES.values():

@@ -10,9 +10,19 @@ from pathlib import Path
 import pytest
 
 REPO = Path(__file__).resolve().parents[2]
-MODULES = ("celery_app", "queue", "sweeper", "tasks", "analysis_tasks", "fanout", "sessions")
-# celery_app ← queue ← sweeper ← tasks ← analysis_tasks: a module imports only those before it.
-ORDER = ("sessions", "fanout", "celery_app", "queue", "sweeper", "tasks", "analysis_tasks")
+# sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ← exploration_tasks:
+# a module imports only those before it.
+ORDER = (
+    "sessions",
+    "fanout",
+    "celery_app",
+    "queue",
+    "running",
+    "sweeper",
+    "tasks",
+    "exploration_tasks",
+)
+MODULES = ORDER
 
 
 @pytest.mark.parametrize("name", MODULES)
@@ -40,3 +50,17 @@ def test_worker_imports_point_one_way(name):
             )
     allowed = set(ORDER[: ORDER.index(name)])
     assert imported <= allowed, f"workers.{name} imports {sorted(imported - allowed)}"
+
+
+@pytest.mark.parametrize("name", ORDER)
+def test_no_worker_module_imports_a_private_name(name):
+    tree = ast.parse((REPO / "workers" / f"{name}.py").read_text())
+    private = [
+        f"{node.module}.{alias.name}"
+        for node in ast.walk(tree)
+        if isinstance(node, ast.ImportFrom)
+        and (node.module or "").startswith(("workers", "service"))
+        for alias in node.names
+        if alias.name.startswith("_")
+    ]
+    assert private == [], f"workers.{name} imports private names: {private}"

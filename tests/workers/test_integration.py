@@ -22,15 +22,19 @@ pytestmark = [pytest.mark.services, pytest.mark.slow]
 POWER_D05_N30 = TTestIndPower().power(effect_size=0.5, nobs1=30, alpha=0.05, ratio=1.0)
 
 
-def _posted(method: str = "analytic", **simulation) -> dict:
+def _posted(method: str = "analytic", analysis: str | None = None, **simulation) -> dict:
     """A question as a requester posts it (the schema fills in the defaults)."""
     question = {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "power",
-        "sample_size": {"per_arm": [30, 30]},
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "sample_size": {"per_group": [30, 30]},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
         "method": method,
     }
+    if analysis is not None:
+        question["analysis"] = analysis
     if method == "simulation":
         question["simulation"] = {"replicates": 4000, "seed": 20240611, "chunk_size": 500}
         question["simulation"].update(simulation)
@@ -70,8 +74,8 @@ def test_analytic_and_simulated_requests_are_computed_and_a_rerun_is_identical(
 def test_a_running_simulation_is_cancelled_between_chunks(stack, pg_redis_config, start_worker):
     worker = start_worker(pg_redis_config, concurrency=1)
     # Long enough to be caught running: 160 rank-sum chunks drawing every observation.
-    question = _posted("simulation", replicates=40_000, chunk_size=500, test="rank_sum")
-    question["sample_size"] = {"per_arm": [500, 500]}
+    question = _posted("simulation", replicates=40_000, chunk_size=500, analysis="rank_sum")
+    question["sample_size"] = {"per_group": [500, 500]}
     request_id = stack.submit(question)
     stack.wait(request_id, until=("running",) + ("computed", "failed"), worker=worker)
     stack.cancel(request_id)
@@ -85,11 +89,11 @@ def test_one_worker_and_two_workers_store_byte_identical_records(
 ):
     import redis
 
-    # The rank-sum test draws every observation, so 10,000 trials at 500 per arm take seconds:
+    # The rank-sum test draws every observation, so 10,000 replicates at 500 per group take seconds:
     # long enough to split (lowered thresholds make sure of it on a fast machine too).
     config = dict(pg_redis_config, FANOUT_SPLIT_SECONDS=0.2)
-    question = _posted("simulation", replicates=10_000, seed=777, test="rank_sum")
-    question["sample_size"] = {"per_arm": [500, 500]}
+    question = _posted("simulation", replicates=10_000, seed=777, analysis="rank_sum")
+    question["sample_size"] = {"per_group": [500, 500]}
     one = start_worker(dict(config, FANOUT_HELPERS=0), concurrency=1)
     first = stack.wait(stack.submit(question), worker=one)
     one.stop()
@@ -128,8 +132,8 @@ def test_a_job_of_a_killed_worker_is_republished_and_finished_with_the_same_digi
     stack, pg_redis_config, start_worker
 ):
     config = dict(pg_redis_config, LEASE_SECONDS=4, SWEEP_SECONDS=1)
-    question = _posted("simulation", replicates=10_000, seed=99, test="rank_sum")
-    question["sample_size"] = {"per_arm": [500, 500]}
+    question = _posted("simulation", replicates=10_000, seed=99, analysis="rank_sum")
+    question["sample_size"] = {"per_group": [500, 500]}
     doomed = start_worker(config, concurrency=1)
     request_id = stack.submit(question)
     seen = stack.wait(request_id, until=("running", "computed"), worker=doomed)

@@ -24,7 +24,8 @@ TRACE = "ngh-cro.trace-2041"
 def _question() -> dict:
     """A small simulation (so a worker runs it; closed forms are answered at submission)."""
     return {
-        "design": "rank_sum",
+        "outcome": "ordinal",
+        "layout": "two_groups",
         "find": "power",
         "sample_size": {"total": 60},
         "simulation": {

@@ -8,7 +8,7 @@ from datetime import timedelta
 from pathlib import Path
 
 import pytest
-from workers_testkit import insert_request, two_means_question
+from workers_testkit import insert_request, two_groups_question
 
 from service.config import load_config
 from service.store.db import session_scope
@@ -34,9 +34,9 @@ def test_publish_writes_one_json_message_naming_the_task(sqlite_config):
     assert _messages(sqlite_config) == [("sizewise.run_request", ["abc123"])]
 
 
-def test_publish_rejects_an_unknown_kind_naming_the_value(sqlite_config):
+def test_publish_rejects_an_unknown_job_naming_the_value(sqlite_config):
     with pytest.raises(
-        ValueError, match="kind must be one of request, rerun, analysis; got 'report'"
+        ValueError, match="job must be one of request, rerun, exploration; got 'report'"
     ):
         queue.publish("report", "abc123", sqlite_config)
 
@@ -48,7 +48,7 @@ def test_publish_to_a_dead_broker_returns_false_instead_of_raising():
 
 
 def test_sweeper_publishes_an_unpublished_request_once_it_is_old_enough(sqlite_config, factory):
-    request_id = insert_request(factory, two_means_question(), status="received")
+    request_id = insert_request(factory, two_groups_question(), status="received")
     # Just committed: the API may be publishing it this very moment, so it is left alone.
     assert sweeper.sweep_once(sqlite_config) == 0
     with session_scope(factory) as session:
@@ -64,7 +64,7 @@ def test_sweeper_publishes_an_unpublished_request_once_it_is_old_enough(sqlite_c
 
 
 def test_sweeper_republishes_a_running_job_whose_lease_expired(sqlite_config, factory):
-    request_id = insert_request(factory, two_means_question())
+    request_id = insert_request(factory, two_groups_question())
     with session_scope(factory) as session:
         row = session.get(Request, request_id)
         row.published_at = utcnow() - timedelta(minutes=5)

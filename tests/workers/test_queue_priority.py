@@ -13,15 +13,18 @@ from workers_testkit import Stack
 pytestmark = [pytest.mark.services, pytest.mark.slow]
 
 
-def _simulated(replicates: int, seed: int, per_arm: int, test: str) -> dict:
-    """A simulated two-means power question as the intake form posts it."""
+def _simulated(replicates: int, seed: int, per_group: int, analysis: str) -> dict:
+    """A simulated power question (continuous outcome, two groups) as the intake form posts it."""
     return {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "analysis": analysis,
         "find": "power",
-        "sample_size": {"per_arm": [per_arm, per_arm]},
-        "effect": {"difference": 0.3, "sd": 1.0},
+        "sample_size": {"per_group": [per_group, per_group]},
+        "effect": {"difference": 0.3},
+        "assumptions": {"sd": 1.0},
         "method": "simulation",
-        "simulation": {"replicates": replicates, "seed": seed, "chunk_size": 500, "test": test},
+        "simulation": {"replicates": replicates, "seed": seed, "chunk_size": 500},
     }
 
 
@@ -38,7 +41,7 @@ def test_a_small_request_behind_a_split_job_ends_first(stack, pg_redis_config, s
     # Lowered split threshold: the big job is cut into work units on any machine.
     config = dict(pg_redis_config, FANOUT_SPLIT_SECONDS=0.2, FANOUT_HELPERS=1)
     worker = start_worker(config, concurrency=2)
-    # The rank-sum test draws every observation: 60,000 trials at 500 per arm take many seconds.
+    # The rank-sum test draws every observation: 60,000 replicates at 500 per group take seconds.
     big = stack.submit(_simulated(60_000, 11, 500, "rank_sum"))
     stack.wait(big, until=("running", "computed", "failed"), worker=worker)
     small = stack.submit(_simulated(2_000, 12, 30, "welch_t"))

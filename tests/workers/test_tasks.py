@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 from sqlalchemy import func, select, update
 from statsmodels.stats.power import TTestIndPower
-from workers_testkit import insert_request, two_means_question
+from workers_testkit import insert_request, two_groups_question
 
 from service.engine import canonical_json, compute
 from service.engine import run_chunk as engine_run_chunk
@@ -60,7 +60,7 @@ def shuffled(seed: int):
 def test_an_analytic_request_is_computed_once_and_a_second_delivery_is_quiet(
     sqlite_config, factory
 ):
-    request_id = insert_request(factory, two_means_question())
+    request_id = insert_request(factory, two_groups_question())
     assert tasks.run_request_job(request_id, sqlite_config) == "computed"
     row = _request(factory, request_id)
     assert row.status == "computed" and row.progress == 1.0 and row.lease_owner is None
@@ -76,7 +76,7 @@ def test_an_analytic_request_is_computed_once_and_a_second_delivery_is_quiet(
 
 
 def test_a_request_held_by_a_live_lease_is_left_alone(sqlite_config, factory):
-    request_id = insert_request(factory, two_means_question())
+    request_id = insert_request(factory, two_groups_question())
     with session_scope(factory) as session:
         session.execute(
             update(Request)
@@ -97,7 +97,7 @@ def test_a_request_held_by_a_live_lease_is_left_alone(sqlite_config, factory):
 def test_an_identical_second_result_is_a_no_op_and_a_different_one_a_logged_conflict(
     sqlite_config, factory, caplog
 ):
-    question = two_means_question()
+    question = two_groups_question()
     request_id = insert_request(factory, question)
     assert tasks.run_request_job(request_id, sqlite_config) == "computed"
     [first] = _results(factory, request_id)
@@ -135,23 +135,23 @@ def test_an_identical_second_result_is_a_no_op_and_a_different_one_a_logged_conf
 
 
 def test_a_question_the_engine_refuses_fails_with_its_message(sqlite_config, factory):
-    request_id = insert_request(factory, dict(two_means_question(), design="three_means"))
+    request_id = insert_request(factory, dict(two_groups_question(), layout="three_groups"))
     assert tasks.run_request_job(request_id, sqlite_config) == "failed"
     row = _request(factory, request_id)
     assert row.status == "failed"
-    assert "design" in row.error and "three_means" in row.error
+    assert "layout" in row.error and "three_groups" in row.error
     assert _actions(factory, request_id)[-1][1] == "failed"
 
 
 def test_a_simulation_over_budget_fails_naming_the_field(sqlite_config, factory):
-    request_id = insert_request(factory, two_means_question(method="simulation"))
+    request_id = insert_request(factory, two_groups_question(method="simulation"))
     config = dict(sqlite_config, SIMULATION_BUDGET=1000)
     assert tasks.run_request_job(request_id, config) == "failed"
     assert "simulation.replicates" in _request(factory, request_id).error
 
 
 def test_cancel_between_chunks_stops_the_simulation(sqlite_config, factory):
-    question = two_means_question(method="simulation", replicates=5000, chunk_size=500)
+    question = two_groups_question(method="simulation", replicates=5000, chunk_size=500)
     request_id = insert_request(factory, question)
     calls = []
 
@@ -173,7 +173,7 @@ def test_cancel_between_chunks_stops_the_simulation(sqlite_config, factory):
 
 
 def test_shuffled_chunk_order_gives_the_record_of_the_in_process_executor(sqlite_config, factory):
-    question = two_means_question(method="simulation", replicates=4000, chunk_size=500)
+    question = two_groups_question(method="simulation", replicates=4000, chunk_size=500)
     expected = compute(question)  # the engine's default executor: in process, in order
     request_id = insert_request(factory, question)
     assert tasks.run_request_job(request_id, sqlite_config, order=shuffled(11)) == "computed"
@@ -189,7 +189,7 @@ def test_shuffled_chunk_order_gives_the_record_of_the_in_process_executor(sqlite
 
 
 def test_a_shared_job_gives_the_in_process_record_and_leaves_no_unit(sqlite_config, factory):
-    question = two_means_question(method="simulation", replicates=4000, chunk_size=250)
+    question = two_groups_question(method="simulation", replicates=4000, chunk_size=250)
     expected = compute(question)
     request_id = insert_request(factory, question)
     helped: list[str] = []
@@ -224,7 +224,7 @@ def test_a_shared_job_gives_the_in_process_record_and_leaves_no_unit(sqlite_conf
 
 
 def test_a_lost_lease_stops_the_job_without_writing(sqlite_config, factory):
-    question = two_means_question(method="simulation", replicates=4000, chunk_size=500)
+    question = two_groups_question(method="simulation", replicates=4000, chunk_size=500)
     request_id = insert_request(factory, question)
     calls = []
 
@@ -247,9 +247,9 @@ def test_a_lost_lease_stops_the_job_without_writing(sqlite_config, factory):
 
 
 def test_a_helper_message_for_a_finished_job_exits_quietly(sqlite_config, factory):
-    request_id = insert_request(factory, two_means_question())
+    request_id = insert_request(factory, two_groups_question())
     assert tasks.run_helper_job("request", request_id, sqlite_config) == "skipped"
-    with pytest.raises(ValueError, match="job_kind must be one of request, rerun, analysis"):
+    with pytest.raises(ValueError, match="job must be one of request, rerun, exploration"):
         tasks.run_helper_job("report", request_id, sqlite_config)
 
 
@@ -269,7 +269,7 @@ def _rerun(factory, request_id: str, record: dict) -> str:
 
 
 def test_a_rerun_of_a_simulation_reproduces_the_record_exactly(sqlite_config, factory):
-    question = two_means_question(method="simulation", replicates=2000, chunk_size=500)
+    question = two_groups_question(method="simulation", replicates=2000, chunk_size=500)
     request_id = insert_request(factory, question)
     assert tasks.run_request_job(request_id, sqlite_config) == "computed"
     [result] = _results(factory, request_id)
@@ -284,7 +284,7 @@ def test_a_rerun_of_a_simulation_reproduces_the_record_exactly(sqlite_config, fa
 
 
 def test_a_rerun_reports_the_dotted_paths_that_differ(sqlite_config, factory):
-    question = two_means_question()
+    question = two_groups_question()
     request_id = insert_request(factory, question)
     assert tasks.run_request_job(request_id, sqlite_config) == "computed"
     [result] = _results(factory, request_id)

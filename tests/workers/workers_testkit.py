@@ -25,39 +25,52 @@ import pytest
 from service.api.auth import local_client
 from service.config import load_config
 from service.engine import canonical_json
+from service.schemas.question import load_question
 from service.store.db import session_scope
 from service.store.migrate import upgrade
 from service.store.models import Request
-from tests.engine.questions import make_q
+from service.store.requests import design_key
 
 REPO = Path(__file__).resolve().parents[2]
 CELERY = Path(sys.executable).with_name("celery")
 PG_ADMIN_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"
 
 
-def two_means_question(
+def two_groups_question(
     *,
     method: str = "analytic",
     replicates: int = 4000,
     chunk_size: int = 500,
     seed: int = 20240611,
-    per_arm: int = 30,
+    per_group: int = 30,
     find: str = "power",
 ) -> dict:
-    """A normalized two-means question (d = 0.5, SD 1), analytic or simulated, find power or n."""
-    simulation = None
+    """A normalized question: continuous outcome, two groups, d = 0.5 (SD 1), pooled t test.
+
+    Posted in the question vocabulary and normalized by the schema, as the API does.
+    """
+    raw: dict = {
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "analysis": "pooled_t",
+        "find": find,
+        "alpha": 0.05,
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
+        "method": method,
+    }
+    if find == "power":
+        raw["sample_size"] = {"per_group": [per_group, per_group]}
+    else:
+        raw["target_power"] = 0.80
     if method == "simulation":
-        simulation = {
+        raw["simulation"] = {
             "replicates": replicates,
             "seed": seed,
-            "test": "student_t",
             "chunk_size": chunk_size,
             "search_replicates": min(2000, replicates),
         }
-    per_arm_list = [per_arm, per_arm] if find == "power" else None
-    return make_q(
-        "two_means", find=find, method=method, simulation=simulation, per_arm=per_arm_list
-    )
+    return load_question(raw)
 
 
 def insert_request(factory, question: dict, *, status: str = "queued") -> str:
@@ -76,7 +89,7 @@ def insert_request(factory, question: dict, *, status: str = "queued") -> str:
                 department="Orthopaedics",
                 question_raw=question,
                 question=question,
-                design=question["design"],
+                design=design_key(question),
                 method=question["method"],
                 seed=(question.get("simulation") or {}).get("seed"),
                 progress=0.0,

@@ -1,111 +1,84 @@
-"""The design registry: one module per design family, each exposing the same small surface.
+"""The design registry: one module per cell of outcome × layout, each declaring a ``DESIGN``.
 
-Every design module defines a module-level ``DESIGN = Design(...)`` (or several) and the
-registry below maps the public design name to it. A design's analytic functions receive the
-*normalized* question ``q`` (see DEVELOPERS.md, "The question") and the alpha already split
-for multiple comparisons; they never round, the adjustment steps do.
+``get(outcome, layout)`` returns a cell's Design, ``all()`` every registered one (catalogue
+order), ``register(design)`` adds one (a new cell is one module plus one line below, or a call
+to ``register`` from outside, as the toy-design test does).
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
-from dataclasses import dataclass, field
+from ..errors import QuestionError
+from .base import Analysis, Design, Field, Phrases, SimulationModel, Solution
+
+__all__ = ["Analysis", "Design", "Field", "Phrases", "SimulationModel", "Solution"]
+
+_REGISTRY: dict[tuple[str, str], Design] = {}
+_LOADED = False
 
 
-@dataclass(frozen=True)
-class Solution:
-    """An analytic solve: raw (unrounded) n per arm and design-specific extras (e.g. events)."""
+def _load() -> None:
+    global _LOADED
+    if _LOADED:
+        return
+    from . import (
+        association_single_group,
+        binary_two_groups,
+        continuous_k_groups,
+        continuous_paired,
+        continuous_single_group,
+        continuous_two_groups,
+        ordinal_two_groups,
+        time_to_event_two_groups,
+    )
 
-    per_arm: list[float]
-    extra: dict = field(default_factory=dict)
-
-
-@dataclass(frozen=True)
-class Design:
-    """What the engine knows about one design family.
-
-    Attributes
-    ----------
-    name : public design name used in questions.
-    formulas : analytic formulas offered, the first is the default; empty when none.
-    tests : simulation tests offered, the first is the default.
-    arms : q -> number of arms (1 for one-sample, paired and correlation designs).
-    allocation : q -> relative arm sizes, control (or first group) first, e.g. [1, r].
-    solve_n : (q, alpha) -> Solution at q["target_power"].
-    power : (q, per_arm, alpha) -> analytic power at the given (possibly fractional) n per arm.
-    solve_effect : (q, per_arm, alpha) -> {"field": name, "value": x} reaching target power.
-    describe : q -> the ``method`` block of an analytic record (formula name and reference).
-    warnings_for : optional (q, per_arm) -> list of plain-language warnings (approximation limits).
-    """
-
-    name: str
-    formulas: tuple[str, ...]
-    tests: tuple[str, ...]
-    arms: Callable[[dict], int]
-    allocation: Callable[[dict], list[float]]
-    solve_n: Callable[[dict, float], Solution]
-    power: Callable[[dict, list[float], float], float]
-    solve_effect: Callable[[dict, list[float], float], dict]
-    describe: Callable[[dict], dict]
-    warnings_for: Callable[[dict, list[float]], list[str]] | None = None
+    for module in (
+        continuous_two_groups,
+        continuous_paired,
+        continuous_single_group,
+        binary_two_groups,
+        continuous_k_groups,
+        association_single_group,
+        ordinal_two_groups,
+        time_to_event_two_groups,
+    ):
+        _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
+    _LOADED = True
 
 
-def _registry() -> dict[str, Design]:
-    from . import anova, correlation, one_mean, proportions, rank_sum, survival, two_means
-
-    designs = [
-        two_means.DESIGN,
-        one_mean.PAIRED,
-        one_mean.DESIGN,
-        proportions.DESIGN,
-        anova.DESIGN,
-        correlation.DESIGN,
-        rank_sum.DESIGN,
-        survival.DESIGN,
-    ]
-    return {d.name: d for d in designs}
+def register(design: Design) -> Design:
+    """Add (or replace) the cell ``design`` describes; return it."""
+    _load()
+    _REGISTRY[(design.outcome, design.layout)] = design
+    return design
 
 
-DESIGN_NAMES = (
-    "two_means",
-    "paired_mean",
-    "one_mean",
-    "two_proportions",
-    "anova_oneway",
-    "correlation",
-    "rank_sum",
-    "survival_logrank",
-)
-
-# Simulation tests per design, the first is the default. Kept here (not only in the modules)
-# so the catalogue and the schemas can list them without importing the numerics.
-TESTS = {
-    "two_means": ("student_t", "welch_t", "rank_sum"),
-    "paired_mean": ("student_t", "signed_rank"),
-    "one_mean": ("student_t", "signed_rank"),
-    "two_proportions": ("z_test", "fisher_exact"),
-    "anova_oneway": ("f_test", "kruskal_wallis"),
-    "correlation": ("pearson",),
-    "rank_sum": ("rank_sum",),
-    "survival_logrank": ("logrank",),
-}
-
-FORMULAS = {
-    "two_means": ("student", "welch"),
-    "paired_mean": ("noncentral_t",),
-    "one_mean": ("noncentral_t",),
-    "two_proportions": ("pooled_z", "unpooled_z", "arcsine", "farrington_manning"),
-    "anova_oneway": ("noncentral_f",),
-    "correlation": ("fisher_z",),
-    "rank_sum": ("noether",),
-    "survival_logrank": ("schoenfeld", "freedman"),
-}
-
-_CACHE: dict[str, Design] = {}
+def unregister(outcome: str, layout: str) -> None:
+    """Remove a registered cell (tests that register a toy design clean up with this)."""
+    _load()
+    _REGISTRY.pop((outcome, layout), None)
 
 
-def get(name: str) -> Design:
-    """Return the design called ``name``; KeyError when there is none."""
-    if not _CACHE:
-        _CACHE.update(_registry())
-    return _CACHE[name]
+def all() -> tuple[Design, ...]:  # noqa: A001 - the contract's name (VOCAB §8)
+    """Return every registered design, in catalogue order."""
+    _load()
+    return tuple(_REGISTRY.values())
+
+
+def cells() -> list[str]:
+    """Every registered cell as people read it: 'continuous × two_groups'."""
+    return [d.cell for d in all()]
+
+
+def get(outcome: object, layout: object) -> Design:
+    """Return the design of a cell; QuestionError on ``outcome`` or ``layout`` when unknown."""
+    _load()
+    design = _REGISTRY.get((outcome, layout))  # type: ignore[arg-type]
+    if design is not None:
+        return design
+    listed = ", ".join(f'"{c}"' for c in cells())
+    field = "layout" if any(d.outcome == outcome for d in all()) else "outcome"
+    return _refuse(field, f"no cell {outcome!r} × {layout!r}; the cells are {listed}")
+
+
+def _refuse(field: str, message: str) -> Design:
+    raise QuestionError(field, message)

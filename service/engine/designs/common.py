@@ -1,99 +1,227 @@
-"""What the design modules share: the offered-formula and hypothesis checks, effect field checks,
-arm layouts, the analytic method block, and the ``Design`` assembled from a module's functions.
+"""What the cell modules share: reading the question's blocks, the analysis and hypothesis checks,
+group layouts, the analytic method block and the presence/consistency validator built from forms.
+
+Stdlib only (the schema layer calls ``validate`` without importing numpy).
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from ..errors import QuestionError
-from ..quantiles import effect_value
-from . import FORMULAS, TESTS, Design
+from .base import BLOCKS, Design, Field
 
-# The functions every design module defines (``warnings_for`` is optional).
-_SURFACE = ("arms", "allocation", "solve_n", "power", "solve_effect", "describe")
+# --- reading the normalized question ----------------------------------------------------------
 
 
-def check_formula(q: dict, design: str, formulas: tuple[str, ...] | None = None) -> str:
-    """Return the question's formula (the first offered when unset), refusing one not offered."""
-    offered = FORMULAS[design] if formulas is None else formulas
-    formula = q.get("formula") or offered[0]
-    if formula not in offered:
-        raise QuestionError(
-            "formula", f"'{formula}' is not offered for {design}; use one of {list(offered)}"
-        )
-    return formula
+def values(q: dict, fields: tuple[Field, ...]) -> dict:
+    """Return the cell's field values: effect, assumptions and analysis_options merged, with the
+    declared defaults filled in for anything not posted."""
+    out = {f.name: f.default for f in fields if f.default is not None}
+    for block in BLOCKS:
+        for k, v in (q.get(block) or {}).items():
+            if v is not None:
+                out[k] = v
+    return out
+
+
+def number(q: dict, fields: tuple[Field, ...], name: str, *, required: bool = True):
+    """Return a declared numeric field as a float, checked against its range; None if optional."""
+    decl = next(f for f in fields if f.name == name)
+    value = values(q, fields).get(name)
+    if value is None:
+        if not required:
+            return None
+        raise QuestionError(decl.path, "is required for this question")
+    why = decl.range_error(value)
+    if why:
+        raise QuestionError(decl.path, why)
+    return float(value)
+
+
+def tails(q: dict) -> int:
+    """Return the number of tails of the test: 1 for "one-sided", else 2."""
+    return 1 if q.get("alternative") == "one-sided" else 2
 
 
 def hypothesis(q: dict) -> tuple[str, float | None, bool]:
-    """Return (kind, margin, higher_is_better) with the defaults of a superiority question."""
+    """Return (aim, margin, higher_is_better) of the normalized question."""
     h = q.get("hypothesis") or {}
-    return h.get("kind", "superiority"), h.get("margin"), bool(h.get("higher_is_better", True))
+    return h.get("aim", "superiority"), h.get("margin"), bool(h.get("higher_is_better", True))
 
 
-def check_superiority(q: dict, design: str) -> None:
-    """Refuse a non-inferiority or equivalence question for a design that offers neither."""
-    kind = hypothesis(q)[0]
-    if kind != "superiority":
+def analysis_of(q: dict, design: Design, method: str | None = None) -> str:
+    """Return the question's analysis (the cell's default when unset), refusing one the method
+    or the hypothesis aim cannot honor, on field ``analysis``."""
+    method = method or q.get("method") or "analytic"
+    name = q.get("analysis") or design.default_analysis(q)
+    offered = [a.name for a in design.analyses]
+    if name not in offered:
         raise QuestionError(
-            "hypothesis.kind", f"'{kind}' is not offered for {design}; only superiority"
+            "analysis",
+            f"'{name}' is not offered for {design.cell}; use one of {', '.join(offered)}",
         )
-
-
-def sides(q: dict) -> int:
-    """Return the number of tails of the test (2 unless the question says otherwise)."""
-    return int(q.get("sides", 2))
-
-
-def positive_effect(q: dict, name: str) -> float:
-    """Return ``q["effect"][name]``, checked to be greater than 0."""
-    value = effect_value(q, name)
-    if not value > 0:
-        raise QuestionError(f"effect.{name}", f"must be greater than 0; got {value:g}")
-    return value
-
-
-def effect_between(
-    q: dict, name: str, lo: float, hi: float, *, default: float | None = None
-) -> float:
-    """Return ``q["effect"][name]`` (or ``default`` when unset), checked to lie in (lo, hi)."""
-    value = effect_value(q, name, default)
-    if not lo < value < hi:
+    honored = design.analyses_for(method)
+    if name not in honored:
         raise QuestionError(
-            f"effect.{name}", f"must be strictly between {lo:g} and {hi:g}; got {value:g}"
+            "analysis",
+            f"'{name}' is not offered with the {method} method for {design.cell}; that method "
+            f"offers {', '.join(honored) or 'no analysis'}",
         )
-    return value
+    aim = hypothesis(q)[0]
+    if aim not in design.analysis(name).aims:
+        fit = design.analyses_for(method, aim)
+        raise QuestionError(
+            "analysis",
+            f"'{name}' does not answer a {aim} question for {design.cell}"
+            + (f"; use one of {', '.join(fit)}" if fit else f"; the {method} method offers none"),
+        )
+    return name
 
 
-def one_arm(q: dict) -> int:
-    """Return the number of arms of a one-sample design (one)."""
+def check_aim(q: dict, design: Design) -> str:
+    """Return the hypothesis aim, refusing one no analysis of the cell answers."""
+    aim = hypothesis(q)[0]
+    if aim not in design.aims():
+        raise QuestionError(
+            "hypothesis.aim",
+            f"'{aim}' is not offered for {design.cell}; only {', '.join(design.aims())}",
+        )
+    return aim
+
+
+# --- group layouts ------------------------------------------------------------------------------
+
+
+def one_group(q: dict) -> int:
+    """Return the number of groups of a single-group or paired layout (one)."""
     return 1
 
 
-def one_arm_allocation(q: dict) -> list[float]:
-    """Return the relative arm sizes of a one-sample design ([1])."""
+def one_group_allocation(q: dict) -> list[float]:
+    """Return the relative group sizes of a one-group layout ([1])."""
     return [1.0]
 
 
-def two_arms(q: dict) -> int:
-    """Return the number of arms of a two-arm design (two)."""
+def two_groups(q: dict) -> int:
+    """Return the number of groups of a two-group layout (two)."""
     return 2
 
 
-def two_arm_allocation(q: dict) -> list[float]:
-    """Return the relative arm sizes [control, treatment] from the allocation ratio."""
+def two_group_allocation(q: dict) -> list[float]:
+    """Return the relative group sizes [control, treatment] from the allocation ratio."""
     return [1.0, float(q.get("allocation_ratio") or 1.0)]
 
 
-def analytic_method(formula: str, reference: str, notes: list[str]) -> dict:
+def analytic_method(
+    analysis: str, label: str, approximation: str, reference: str, notes: list[str], derived: dict
+) -> dict:
     """Return the ``method`` block of an analytic record."""
-    return {"kind": "analytic", "formula": formula, "reference": reference, "notes": notes}
+    return {
+        "method": "analytic",
+        "analysis": analysis,
+        "analysis_label": label,
+        "approximation": approximation,
+        "reference": reference,
+        "derived": derived,
+        "notes": notes,
+    }
 
 
-def design_from(name: str, functions: dict, *, formulas: tuple[str, ...] | None = None) -> Design:
-    """Return the Design called ``name`` built from the surface functions in ``functions``."""
-    return Design(
-        name=name,
-        formulas=FORMULAS[name] if formulas is None else formulas,
-        tests=TESTS[name],
-        **{key: functions[key] for key in _SURFACE},
-        warnings_for=functions.get("warnings_for"),
-    )
+def no_warnings(q: dict, per_group: list[float]) -> list[str]:
+    """A cell without approximation warnings."""
+    return []
+
+
+def fmt(x: float) -> str:
+    """A number as the investigator would write it (up to 6 significant digits)."""
+    return f"{x:g}"
+
+
+# --- presence and consistency, from the declared forms ----------------------------------------
+
+
+Rules = Callable[[dict, dict, str, bool], None]
+
+
+def make_validate(
+    fields: tuple[Field, ...],
+    forms: tuple[tuple[str, ...], ...],
+    solved: str,
+    model_fields: tuple[str, ...] = (),
+    rules: Rules | None = None,
+) -> Callable[[dict, str, bool], dict[str, list[str]]]:
+    """Return the cell's ``validate(blocks, find, from_data)``.
+
+    ``blocks`` holds the posted effect, assumptions and analysis_options (already type-checked
+    by the schema, or as posted to the engine). The returned errors are keyed by field path.
+    Rules: a field sits in its declared block; the solved field is required unless find = effect
+    (then forbidden: find = effect takes no effect block entries at all); exactly one form's
+    fields are given (a form holding an effect field, e.g. group means, replaces the solved
+    field); fields a posted data model implies (``model_fields``) may be left out.
+    """
+    by_name = {f.name: f for f in fields}
+
+    def validate(blocks: dict, find: str, from_data: bool) -> dict[str, list[str]]:
+        errors: dict[str, list[str]] = {}
+
+        def add(name: str, message: str) -> None:
+            errors.setdefault(by_name[name].path, []).append(message)
+
+        posted: set[str] = set()
+        for block in BLOCKS:
+            for key, value in (blocks.get(block) or {}).items():
+                decl = by_name.get(key)
+                if decl is not None and decl.block != block:
+                    errors.setdefault(f"{block}.{key}", []).append(
+                        f"belongs in {decl.block}, not {block}"
+                    )
+                elif decl is not None and value is not None:
+                    posted.add(key)
+        effect_names = {f.name for f in fields if f.block == "effect"}
+        usable = list(forms)
+        if find == "effect":
+            for name in sorted(posted & effect_names):
+                why = (
+                    "is solved for when find = effect; remove it"
+                    if name == solved
+                    else f"cannot be given when find = effect ({solved} is solved for); remove it"
+                )
+                add(name, why)
+            usable = [f for f in forms if not set(f) & effect_names] or [()]
+        form_names = {n for f in usable for n in f}
+        given = [n for n in sorted(form_names) if n in posted]
+        fits = [f for f in usable if set(given) <= set(f)]
+        if not fits:
+            shown = " or ".join(" + ".join(f) for f in usable)
+            for name in given:
+                add(name, f"give {shown}, not a mix; got {', '.join(given)}")
+            chosen: tuple[str, ...] = ()
+        else:
+            chosen = max(fits, key=lambda f: len(set(f) & set(given)))
+        alternatives = [f for f in usable if f != chosen and f]
+        for name in chosen:
+            if name in posted or (from_data and name in model_fields):
+                continue
+            hint = ""
+            if not given and alternatives:
+                hint = " (or give " + " or ".join(" + ".join(f) for f in alternatives) + ")"
+            add(name, "is required" + hint)
+        if find != "effect":
+            replaced = bool(set(chosen) & effect_names)
+            if solved in posted and replaced:
+                add(solved, f"give {' + '.join(chosen)} or {solved}, not both")
+            elif solved not in posted and not replaced:
+                if not (from_data and solved in model_fields):
+                    add(solved, "is required")
+        if rules is not None:
+            rules(errors, values(blocks, fields), find, from_data)
+        return errors
+
+    return validate
+
+
+def raise_first(errors: dict[str, list[str]]) -> None:
+    """Raise the first of ``validate``'s errors as a QuestionError (the engine's own check)."""
+    for path, messages in errors.items():
+        raise QuestionError(path, messages[0])

@@ -1,0 +1,286 @@
+"""What a design is: frozen declarations plus pure functions, read by every layer of sizewise.
+
+A design is one cell of outcome × layout ("continuous outcome, two groups"). Its module declares
+its fields (the single source of the schema, the catalogue, OpenAPI and the JSON Schema), the
+analyses it offers, its analytic methods, its simulation model and its phrases. The machinery
+(compute, the simulator, the search, the schemas, the report) reads these objects and never a
+cell's name. Stdlib only: the schema layer imports this without numpy.
+
+The functions receive the *normalized* question ``q`` (DEVELOPERS.md, "The question") and, for the
+analytic methods, the alpha already split for multiple comparisons; they never round.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+
+BLOCKS = ("effect", "assumptions", "analysis_options")
+AIMS = ("superiority", "noninferiority", "equivalence")
+METHODS = ("analytic", "simulation")
+
+
+@dataclass(frozen=True)
+class Field:
+    """One declared input field of a cell (see VOCAB §8)."""
+
+    name: str
+    block: str  # "effect" | "assumptions" | "analysis_options"
+    type: str  # "number" | "integer" | "boolean" | "choice" | "number_list"
+    help: str  # one sentence, US English
+    label: str  # the human phrase used in prose
+    unit: str | None = None  # "outcome units" | "proportion" | "per time unit" | "time units"
+    minimum: float | None = None
+    maximum: float | None = None
+    exclusive_minimum: bool = False
+    exclusive_maximum: bool = False
+    choices: tuple[str, ...] = ()
+    default: object = None  # None: no default
+    min_items: int | None = None  # number_list only
+
+    @property
+    def path(self) -> str:
+        """The dotted question path of the field, e.g. ``assumptions.sd``."""
+        return f"{self.block}.{self.name}"
+
+    def range_error(self, value: object) -> str | None:
+        """Return why ``value`` is outside the declared range, or None (numbers only)."""
+        if not isinstance(value, (int, float)) or isinstance(value, bool):
+            return None
+        lo, hi = self.minimum, self.maximum
+        low_bad = lo is not None and (value <= lo if self.exclusive_minimum else value < lo)
+        high_bad = hi is not None and (value >= hi if self.exclusive_maximum else value > hi)
+        if not (low_bad or high_bad) and math.isfinite(value):
+            return None
+        return f"must be {self.range_text()}; got {value:g}"
+
+    def range_text(self) -> str:
+        """The allowed range in words: 'greater than 0', 'between 0 and 1 (exclusive)'."""
+        lo, hi = self.minimum, self.maximum
+        if lo is not None and hi is not None:
+            ends = "exclusive" if self.exclusive_minimum and self.exclusive_maximum else "inclusive"
+            if self.exclusive_minimum != self.exclusive_maximum:
+                ends = "lower end exclusive" if self.exclusive_minimum else "upper end exclusive"
+            return f"between {lo:g} and {hi:g} ({ends})"
+        if lo is not None:
+            return f"{'greater than' if self.exclusive_minimum else 'at least'} {lo:g}"
+        if hi is not None:
+            return f"{'less than' if self.exclusive_maximum else 'at most'} {hi:g}"
+        return "a finite number"
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """A test the study will use, as offered by a cell."""
+
+    name: str  # "welch_t"
+    label: str  # "Welch's t test"
+    methods: tuple[str, ...]  # which of "analytic", "simulation" honor it
+    aims: tuple[str, ...]  # the hypothesis aims it answers
+    reference: str  # "Welch 1947; power by the noncentral t"
+
+
+@dataclass(frozen=True)
+class Solution:
+    """An analytic solve: raw (unrounded) n per group and cell-specific details (e.g. events)."""
+
+    per_group: list[float]
+    details: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class DecisionRule:
+    """How a simulated test decides: aim, alternative, the outcome direction and the margin.
+
+    ``direction`` is +1 when the alternative is "higher on the outcome scale", −1 when lower
+    (for a log-rank z the statistic's sign; see plan). Stored in chunk tasks as a dict.
+    """
+
+    aim: str
+    alternative: str  # "two-sided" | "one-sided"
+    direction: int
+    margin: float | None
+
+    @property
+    def tails(self) -> int:
+        return 2 if self.alternative == "two-sided" else 1
+
+    def to_dict(self) -> dict:
+        return {
+            "aim": self.aim,
+            "alternative": self.alternative,
+            "direction": self.direction,
+            "margin": self.margin,
+        }
+
+    def facing(self, direction: int) -> DecisionRule:
+        """The same rule looking towards ``direction``."""
+        return DecisionRule(self.aim, self.alternative, direction, self.margin)
+
+
+@dataclass(frozen=True)
+class EffectAxis:
+    """How a find = effect search moves the solved field: value = origin + sign·x, 0 < x ≤ x_max.
+
+    ``inclusive`` when x_max itself is a valid effect (a difference of 0 under equivalence).
+    """
+
+    origin: float
+    sign: int
+    x_max: float
+    inclusive: bool = False
+
+    def value(self, x: float) -> float:
+        return self.origin + self.sign * x
+
+
+@dataclass(frozen=True)
+class Arms:
+    """The simulated groups of a plan: data models, their labels and the record's data block."""
+
+    models: list[dict]
+    labels: list[str]
+
+
+@dataclass(frozen=True)
+class SimulationModel:
+    """How a cell is simulated.
+
+    data_keys : the keys of a posted ``simulation.data`` (e.g. ("control", "treatment")), or
+        ("groups",) for a list of groups; () when the cell takes no posted data model.
+    default_data : q -> the group data models built from effect and assumptions.
+    null_data : (q, models, rule) -> (the models with the effect removed, a sentence saying how).
+    kernels : analysis name -> kernel name in ``service.engine.kernels``.
+    check_models : optional (q, models, labels) -> None, refusing families the cell cannot use.
+    settings : optional q -> the cell's extra settings a chunk needs (e.g. the survival timeline).
+    data_block : optional (models, labels, settings) -> the record's ``method.data``.
+    effect_axis : (q, rule) -> EffectAxis for find = effect.
+    implied_contrast : optional models -> the effect the models imply on the outcome scale
+        (for one-sided direction), None when undefined.
+    implied_fields : optional models -> {"fields", "missing", "note"} a posted data model implies.
+    approximate_n : optional (plan, target) -> a normal-approximation first-group size or None.
+    planned_moments : optional q -> (control mean, difference, sd_control, sd_treatment) of the
+        planned data, for the robustness panel's departures; None: the panel is not offered.
+    direction_sign : +1, or −1 when the test statistic falls as the outcome improves (log-rank).
+    min_size : the smallest group size the analyses accept.
+    """
+
+    data_keys: tuple[str, ...]
+    default_data: Callable[[dict], list[dict]]
+    null_data: Callable[[dict, list[dict], DecisionRule], tuple[list[dict], str]]
+    kernels: Mapping[str, str]
+    effect_axis: Callable[[dict, DecisionRule], EffectAxis]
+    check_models: Callable[[dict, list[dict], list[str]], None] | None = None
+    settings: Callable[[dict], dict] | None = None
+    data_block: Callable[[list[dict], list[str], dict], dict] | None = None
+    implied_contrast: Callable[[list[dict]], float | None] | None = None
+    implied_fields: Callable[[dict, list[dict]], dict] | None = None
+    approximate_n: Callable[[object, float], float | None] | None = None
+    planned_moments: Callable[[dict], tuple[float, float, float, float]] | None = None
+    direction_sign: int = 1
+    min_size: int = 2
+
+
+@dataclass(frozen=True)
+class ClusterSupport:
+    """How a two-group cell is answered when whole clusters are randomized.
+
+    scale : q -> (difference on the outcome scale, variance per person in control, in treatment).
+    effect_top : (q, sign) -> the farthest distance from the null value a find = effect search
+        looks (the solved field moves from ``null_effect(q)`` by sign·x, 0 < x ≤ top).
+    family : the data-model family of the simulated cluster outcomes ("normal", "bernoulli").
+    analyses : the analyses a cluster simulation accepts (all become the cluster-level t test).
+    note : an extra method note, or None.
+    """
+
+    scale: Callable[[dict], tuple[float, float, float]]
+    effect_top: Callable[[dict, float], float]
+    family: str
+    analyses: tuple[str, ...]
+    note: str | None = None
+
+
+@dataclass(frozen=True)
+class Phrases:
+    """Plain functions returning US-English sentences for the justification.
+
+    effect : (q, record) -> the effect sentence, from what the investigator entered (for find =
+        effect, the solved value from the record).
+    assumptions : q -> the assumptions sentence ("SD 8 and correlation 0.6"), '' when none.
+    """
+
+    effect: Callable[[dict, dict | None], str]
+    assumptions: Callable[[dict], str]
+
+
+@dataclass(frozen=True)
+class Design:
+    """Everything sizewise knows about one cell of outcome × layout.
+
+    contrast : q -> the assumed effect minus its null value on the outcome scale (for time to
+        event, −ln HR: positive when times are longer), None when not given.
+    null_effect : q -> the solved field's null value (0 for a difference, p_control …).
+    groups / allocation : q -> number of groups and their relative sizes (control first).
+    solve_n : (q, alpha) -> Solution at q["target_power"].
+    power : (q, per_group, alpha) -> analytic power at the given (possibly fractional) sizes.
+    solve_effect : (q, per_group, alpha) -> {"field": name, "value": x} reaching target power.
+    describe : q -> the analytic ``method`` block (analysis, label, approximation, reference).
+    warnings_for : (q, per_group) -> plain-language warnings (approximation limits).
+    """
+
+    outcome: str
+    layout: str
+    label: str
+    fields: tuple[Field, ...]
+    forms: tuple[tuple[str, ...], ...]
+    solved: str
+    analyses: tuple[Analysis, ...]
+    validate: Callable[[dict, str, bool], dict[str, list[str]]]
+    default_analysis: Callable[[dict], str]
+    groups: Callable[[dict], int]
+    allocation: Callable[[dict], list[float]]
+    derive: Callable[[dict], dict]
+    solve_n: Callable[[dict, float], Solution]
+    power: Callable[[dict, list[float], float], float]
+    solve_effect: Callable[[dict, list[float], float], dict]
+    describe: Callable[[dict], dict]
+    warnings_for: Callable[[dict, list[float]], list[str]]
+    simulation: SimulationModel | None
+    phrases: Phrases
+    example: str
+    contrast: Callable[[dict], float | None]
+    null_effect: Callable[[dict], float | None]
+    cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
+    directional: bool = True  # False: the tests have no direction (F), one-sided is refused
+    notes: tuple[str, ...] = ()  # cell-level notes for the catalogue
+
+    @property
+    def cell(self) -> str:
+        """The cell as people read it in messages: 'continuous × two_groups'."""
+        return f"{self.outcome} × {self.layout}"
+
+    def field(self, name: str) -> Field:
+        """Return the declared field called ``name``; KeyError when there is none."""
+        for f in self.fields:
+            if f.name == name:
+                return f
+        raise KeyError(name)
+
+    def analysis(self, name: str) -> Analysis:
+        """Return the offered analysis called ``name``; KeyError when there is none."""
+        for a in self.analyses:
+            if a.name == name:
+                return a
+        raise KeyError(name)
+
+    def analyses_for(self, method: str, aim: str | None = None) -> tuple[str, ...]:
+        """Names of the analyses a method honors (and, given an aim, that answer it)."""
+        return tuple(
+            a.name for a in self.analyses if method in a.methods and (aim is None or aim in a.aims)
+        )
+
+    def aims(self) -> tuple[str, ...]:
+        """Every hypothesis aim some analysis of the cell answers, in AIMS order."""
+        offered = {aim for a in self.analyses for aim in a.aims}
+        return tuple(a for a in AIMS if a in offered)

@@ -1,0 +1,478 @@
+"""Time to event, two groups: the log-rank test, events by Schoenfeld or Freedman, subjects from
+the exponential P(event) with uniform accrual, further follow-up and exponential loss."""
+
+from __future__ import annotations
+
+import math
+
+from .. import direction, models
+from ..errors import QuestionError
+from ..quantiles import normal_power, power_unreachable, root, z_alpha, z_sum
+from .base import (
+    Analysis,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+    Solution,
+)
+from .common import (
+    analysis_of,
+    analytic_method,
+    check_aim,
+    fmt,
+    make_validate,
+    number,
+    tails,
+    two_group_allocation,
+    two_groups,
+    values,
+)
+
+_EPS = 1e-9
+TIME_UNITS = ("days", "weeks", "months", "years")
+FIELDS = (
+    Field(
+        "hazard_ratio",
+        "effect",
+        "number",
+        "Hazard ratio of the event, treatment over control.",
+        "hazard ratio",
+        minimum=0,
+        exclusive_minimum=True,
+    ),
+    Field(
+        "time_unit",
+        "assumptions",
+        "choice",
+        "Unit of every time and rate in the question.",
+        "time unit",
+        choices=TIME_UNITS,
+    ),
+    Field(
+        "control_median",
+        "assumptions",
+        "number",
+        "Median time to the event in the control group.",
+        "median time to the event in the control group",
+        unit="time units",
+        minimum=0,
+        exclusive_minimum=True,
+    ),
+    Field(
+        "control_hazard",
+        "assumptions",
+        "number",
+        "Constant hazard of the event in the control group, events per person per time unit.",
+        "hazard of the event in the control group",
+        unit="per time unit",
+        minimum=0,
+        exclusive_minimum=True,
+    ),
+    Field(
+        "accrual",
+        "assumptions",
+        "number",
+        "Length of the uniform accrual period.",
+        "accrual period",
+        unit="time units",
+        minimum=0,
+    ),
+    Field(
+        "follow_up",
+        "assumptions",
+        "number",
+        "Further follow-up after accrual ends.",
+        "follow-up after accrual",
+        unit="time units",
+        minimum=0,
+    ),
+    Field(
+        "loss_hazard",
+        "assumptions",
+        "number",
+        "Constant hazard of loss to follow-up, per person per time unit.",
+        "hazard of loss to follow-up",
+        unit="per time unit",
+        minimum=0,
+        default=0.0,
+    ),
+    Field(
+        "events_formula",
+        "analysis_options",
+        "choice",
+        "Approximation for the number of events the log-rank test needs.",
+        "events formula",
+        choices=("schoenfeld", "freedman"),
+        default="schoenfeld",
+    ),
+)
+FORMS = (
+    ("time_unit", "control_median", "accrual", "follow_up"),
+    ("time_unit", "control_hazard", "accrual", "follow_up"),
+)
+ANALYSES = (
+    Analysis(
+        "logrank",
+        "log-rank test",
+        ("analytic", "simulation"),
+        ("superiority",),
+        "Schoenfeld 1983 or Freedman 1982; Lachin & Foulkes 1986",
+    ),
+)
+
+
+def _rules(errors: dict, v: dict, find: str, from_data: bool) -> None:
+    a, f = v.get("accrual"), v.get("follow_up")
+    if isinstance(a, (int, float)) and isinstance(f, (int, float)) and not a + f > 0:
+        errors.setdefault("assumptions.follow_up", []).append(
+            f"accrual + follow_up must be greater than 0; got {a:g} + {f:g}"
+        )
+
+
+validate = make_validate(FIELDS, FORMS, "hazard_ratio", ("hazard_ratio",), _rules)
+groups = two_groups
+allocation = two_group_allocation
+
+
+def control_hazard(q: dict) -> float:
+    """The control hazard: posted, or ln 2 / the posted median."""
+    v = values(q, FIELDS)
+    if v.get("control_hazard") is not None or v.get("control_median") is None:
+        return number(q, FIELDS, "control_hazard")
+    return math.log(2.0) / number(q, FIELDS, "control_median")
+
+
+def timeline(q: dict) -> dict:
+    """Return the checked accrual, follow-up and loss hazard."""
+    out = {
+        "accrual": number(q, FIELDS, "accrual"),
+        "follow_up": number(q, FIELDS, "follow_up"),
+        "loss_hazard": number(q, FIELDS, "loss_hazard"),
+    }
+    if out["accrual"] + out["follow_up"] <= 0:
+        raise QuestionError(
+            "assumptions.follow_up", "accrual + follow_up must be greater than 0; got 0"
+        )
+    return out
+
+
+def _setup(q: dict) -> dict:
+    """Return the checked inputs: events formula, control hazard and the timeline."""
+    check_aim(q, DESIGN)
+    analysis_of(q, DESIGN, "analytic")
+    return {
+        "events_formula": values(q, FIELDS)["events_formula"],
+        "hazard": control_hazard(q),
+        **timeline(q),
+    }
+
+
+def _hr(q: dict) -> float:
+    """Return the hazard ratio, checked positive and different from 1."""
+    hr = number(q, FIELDS, "hazard_ratio")
+    if hr == 1:
+        raise QuestionError("effect.hazard_ratio", f"must be greater than 0 and not 1; got {hr:g}")
+    return hr
+
+
+def p_event(hazard: float, accrual: float, follow_up: float, loss: float = 0.0) -> float:
+    """Return P(event observed) under exponential event and loss hazards, uniform accrual."""
+    theta = hazard + loss
+    if accrual == 0:
+        return hazard / theta * -math.expm1(-theta * follow_up)
+    # e^(−θf) − e^(−θ(a+f)) written with expm1 to stay accurate when θ·a is small.
+    not_seen = -math.exp(-theta * follow_up) * math.expm1(-theta * accrual) / (theta * accrual)
+    return hazard / theta * (1.0 - not_seen)
+
+
+def _events(formula: str, hr: float, r: float, z_total: float) -> float:
+    """Return the events needed; r is the treatment:control allocation."""
+    if formula == "freedman":
+        return z_total**2 * (1.0 + r * hr) ** 2 / (r * (1.0 - hr) ** 2)
+    p = 1.0 / (1.0 + r)
+    return z_total**2 / (p * (1.0 - p) * math.log(hr) ** 2)
+
+
+def _shift(formula: str, hr: float, r: float, events: float) -> float:
+    """Return the standardized log-rank mean for the expected number of events."""
+    if formula == "freedman":
+        return math.sqrt(events * r) * abs(1.0 - hr) / (1.0 + r * hr)
+    p = 1.0 / (1.0 + r)
+    return math.sqrt(events * p * (1.0 - p)) * abs(math.log(hr))
+
+
+def _p_events(s: dict, hr: float) -> tuple[float, float]:
+    """Return P(event) in the control and treatment groups."""
+    a, f, loss = s["accrual"], s["follow_up"], s["loss_hazard"]
+    lam = s["hazard"]
+    return p_event(lam, a, f, loss), p_event(lam * hr, a, f, loss)
+
+
+def solve_n(q: dict, alpha: float) -> Solution:
+    """Return the unrounded subjects per group from the required events and P(event) per group."""
+    s = _setup(q)
+    hr = _hr(q)
+    r = allocation(q)[1]
+    raw = _events(s["events_formula"], hr, r, z_sum(alpha, tails(q), float(q["target_power"])))
+    required = int(math.ceil(raw - _EPS))
+    pc, pt = _p_events(s, hr)
+    mean = (pc + r * pt) / (1.0 + r)
+    total = required / mean
+    return Solution(
+        per_group=[total / (1.0 + r), total * r / (1.0 + r)],
+        details={
+            "events": {
+                "required": required,
+                "raw": raw,
+                "probability": {"control": pc, "treatment": pt, "mean": mean},
+                "subjects_total_raw": total,
+            }
+        },
+    )
+
+
+def _power_at(q: dict, hr: float, per_group: list[float], alpha: float) -> float:
+    """Return the power from the expected events at the given n per group."""
+    s = _setup(q)
+    n1, n2 = float(per_group[0]), float(per_group[1])
+    pc, pt = _p_events(s, hr)
+    events = n1 * pc + n2 * pt
+    shift = _shift(s["events_formula"], hr, n2 / n1, events)
+    return normal_power(shift, z_alpha(alpha, tails(q)), tails(q))
+
+
+def power(q: dict, per_group: list[float], alpha: float) -> float:
+    """Return the power from the expected number of events at the given n per group.
+
+    A hazard ratio of 1 is answered: the power is then the size of the test.
+    """
+    hr = number(q, FIELDS, "hazard_ratio")
+    return _power_at(q, 1.0 if hr == 1 else _hr(q), per_group, alpha)
+
+
+def solve_effect(q: dict, per_group: list[float], alpha: float) -> dict:
+    """Return the hazard ratio nearest 1 reaching the target power at n.
+
+    Below 1 (longer times), unless a one-sided test looks for shorter times (direction.py).
+    """
+    _setup(q)
+    target = float(q["target_power"])
+    lo, hi = 1e-6, 1.0 - 1e-12
+    if tails(q) == 1 and direction.one_sided(q, DESIGN) < 0:
+        lo, hi = 1e6, 1.0 + 1e-12
+    if _power_at(q, lo, per_group, alpha) < target:
+        raise power_unreachable("sample_size.per_group", target, per_group)
+    hr = root(lambda h: _power_at(q, h, per_group, alpha) - target, lo, hi)
+    return {"field": "hazard_ratio", "value": hr}
+
+
+def derive(q: dict) -> dict:
+    """The control hazard when the investigator gave the median."""
+    v = values(q, FIELDS)
+    if v.get("control_hazard") is None and v.get("control_median") is not None:
+        return {"control_hazard": control_hazard(q)}
+    return {}
+
+
+def warnings_for(q: dict, per_group: list[float]) -> list[str]:
+    """Return plain-language warnings about few expected events or a hazard ratio far from 1."""
+    out = []
+    hr = values(q, FIELDS).get("hazard_ratio")
+    if hr is None:
+        return out
+    s = _setup(q)
+    pc, pt = _p_events(s, float(hr))
+    events = float(per_group[0]) * pc + float(per_group[1]) * pt
+    if events < 30:
+        out.append(
+            f"Only {events:.1f} events are expected: the log-rank normal approximation "
+            "is rough with so few; a simulation is safer."
+        )
+    if not 0.5 <= float(hr) <= 2.0:
+        out.append(
+            f"A hazard ratio of {float(hr):g} is far from 1, where the events formula is "
+            "least accurate; a simulation is safer."
+        )
+    return out
+
+
+def describe(q: dict) -> dict:
+    """Return the analytic method block for the record."""
+    s = _setup(q)
+    if s["events_formula"] == "freedman":
+        name = "log-rank events by Freedman, (z_a + z_b)²(1 + r·HR)² / (r(1 − HR)²)"
+        ref = "Freedman (1982), Stat Med 1:121; Lachin & Foulkes (1986), Biometrics 42:507"
+    else:
+        name = "log-rank events by Schoenfeld, (z_a + z_b)² / (p(1 − p)·ln²HR)"
+        ref = "Schoenfeld (1983), Biometrics 39:499; Lachin & Foulkes (1986), Biometrics 42:507"
+    return analytic_method(
+        "logrank",
+        DESIGN.analysis("logrank").label,
+        name,
+        ref,
+        [
+            "Subjects = required events ÷ the allocation-weighted mean P(event); P(event) assumes "
+            "exponential survival, uniform accrual over the accrual period, further follow-up "
+            "after it, and exponential loss to follow-up as a competing risk.",
+            "r is the treatment:control allocation and p = 1/(1 + r) the control share.",
+        ],
+        derive(q),
+    )
+
+
+# --- simulation -------------------------------------------------------------------------------
+
+
+def default_data(q: dict) -> list[dict]:
+    """Exponential event times at the control hazard and hazard × hazard ratio."""
+    lam, hr = control_hazard(q), number(q, FIELDS, "hazard_ratio")
+    return [
+        {"family": "exponential", "scale": 1.0 / lam},
+        {"family": "exponential", "scale": 1.0 / (lam * hr)},
+    ]
+
+
+def check_models(q: dict, arms: list[dict], labels: list[str]) -> None:
+    """Event times need a family whose draws are positive."""
+    for a, lab in zip(arms, labels, strict=True):
+        if a["family"] not in models.POSITIVE:
+            raise QuestionError(
+                f"simulation.data.{lab}.family",
+                "event times need a positive family "
+                f"({', '.join(sorted(models.POSITIVE))}); got {a['family']!r}",
+            )
+
+
+def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
+    return [arms[0], dict(arms[0])], (
+        "treatment event times drawn from the control distribution (hazard ratio 1); "
+        "accrual, follow-up and loss unchanged"
+    )
+
+
+def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:
+    """Longer times count as better, so a one-sided search looks below 1; only when shorter
+    times are better does it look above 1 (each candidate's test faces its own direction)."""
+    if rule.tails == 1 and rule.direction < 0:
+        return EffectAxis(1.0, 1, math.inf)
+    return EffectAxis(1.0, -1, 1.0)
+
+
+def approximate_n(plan, target: float) -> float | None:
+    from ..approximate import logrank_first
+
+    return logrank_first(plan, target)
+
+
+def implied_fields(q: dict, arms: list[dict]) -> dict:
+    """The hazard ratio (and control hazard) of proportional-hazards groups."""
+    a, b = arms
+    hr = lam = None
+    if not (a.get("shift") or b.get("shift")):
+        if a["family"] == b["family"] == "exponential":
+            hr, lam = a["scale"] / b["scale"], 1.0 / a["scale"]
+        elif a["family"] == b["family"] == "weibull" and a["shape"] == b["shape"]:
+            k = a["shape"]
+            hr, lam = (a["scale"] / b["scale"]) ** k, (None if k != 1 else 1.0 / a["scale"])
+    if hr is None:
+        return {
+            "fields": {},
+            "missing": ["hazard_ratio", "control_hazard"],
+            "note": "the event-time groups do not have proportional hazards, so no single "
+            "hazard ratio describes them",
+        }
+    fields = {"hazard_ratio": hr}
+    if lam is not None:  # in the form the investigator used: a median or a hazard
+        if (q.get("assumptions") or {}).get("control_median") is not None:
+            fields["control_median"] = math.log(2.0) / lam
+        else:
+            fields["control_hazard"] = lam
+    return {"fields": fields}
+
+
+SIMULATION = SimulationModel(
+    data_keys=("control", "treatment"),
+    default_data=default_data,
+    null_data=null_data,
+    kernels={"logrank": "logrank"},
+    effect_axis=effect_axis,
+    check_models=check_models,
+    settings=timeline,
+    data_block=lambda arms, labels, settings: {
+        **{lab: models.public(a) for lab, a in zip(labels, arms, strict=True)},
+        **settings,
+    },
+    implied_contrast=lambda arms: models.center(arms[1]) - models.center(arms[0]),
+    implied_fields=implied_fields,
+    approximate_n=approximate_n,
+    direction_sign=-1,  # the log-rank z falls when treatment has fewer events: longer times
+)
+
+
+# --- phrases ------------------------------------------------------------------------------------
+
+
+def effect_sentence(q: dict, record: dict | None) -> str:
+    hr = values(q, FIELDS).get("hazard_ratio")
+    if hr is None and record and record.get("effect"):
+        hr = record["effect"]["value"]
+    if hr is None:
+        return "the hazard ratio, treatment over control"
+    return f"a hazard ratio of {fmt(hr)} (treatment over control)"
+
+
+def assumptions_sentence(q: dict) -> str:
+    v = values(q, FIELDS)
+    unit = v.get("time_unit") or "time units"
+    if v.get("control_median") is not None:
+        base = (
+            f"a median time to the event of {fmt(v['control_median'])} {unit} in the control group"
+        )
+    elif v.get("control_hazard") is not None:
+        base = f"a control hazard of {fmt(v['control_hazard'])} events per person per {unit[:-1]}"
+    else:
+        return ""
+    parts = [base]
+    if v.get("accrual") is not None:
+        parts.append(f"{fmt(v['accrual'])} {unit} of accrual")
+    if v.get("follow_up") is not None:
+        parts.append(f"{fmt(v['follow_up'])} {unit} of further follow-up")
+    if v.get("loss_hazard"):
+        parts.append(f"a loss-to-follow-up hazard of {fmt(v['loss_hazard'])} per {unit[:-1]}")
+    return ", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else base
+
+
+def _contrast(q: dict) -> float | None:
+    hr = values(q, FIELDS).get("hazard_ratio")
+    if not isinstance(hr, (int, float)) or not hr > 0:
+        return None
+    return -math.log(hr)
+
+
+DESIGN = Design(
+    outcome="time_to_event",
+    layout="two_groups",
+    label="Time to event, two groups",
+    fields=FIELDS,
+    forms=FORMS,
+    solved="hazard_ratio",
+    analyses=ANALYSES,
+    validate=validate,
+    default_analysis=lambda q: "logrank",
+    groups=groups,
+    allocation=allocation,
+    derive=derive,
+    solve_n=solve_n,
+    power=power,
+    solve_effect=solve_effect,
+    describe=describe,
+    warnings_for=warnings_for,
+    simulation=SIMULATION,
+    phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
+    example="northbridge_heart_failure_survival.json",
+    contrast=_contrast,
+    null_effect=lambda q: 1.0,
+)

@@ -1,0 +1,217 @@
+"""The vectorized kernels, one per simulated analysis, in a table keyed by kernel name.
+
+A cell's simulation model maps each analysis it simulates to a kernel name here. A kernel turns
+``rows`` replicates of a chunk task into reject decisions (and small extras, e.g. event counts),
+says how many random draws one replicate makes (the budget's unit) and how much memory a row
+needs. ``summaries`` kernels draw summary statistics (normal means and variances, binomial
+counts, sample correlations) instead of raw observations when the models allow it.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import cluster_sim, models, vectests
+from .chunks import BLOCK, ChunkTask, Streams
+from .errors import QuestionError
+
+Run = Callable[[Streams, ChunkTask, int], tuple[np.ndarray, dict]]
+
+
+def _raw_draws(task: ChunkTask, per_obs: list[int] | None = None) -> int:
+    per_obs = per_obs or [models.variates(m) for m in task.models]
+    return sum(-(-n // BLOCK) * BLOCK * k for n, k in zip(task.per_group, per_obs, strict=True))
+
+
+def _raw_bytes(factor: int) -> Callable[[ChunkTask], int]:
+    def row_bytes(task: ChunkTask) -> int:
+        if task.summaries:
+            return 8 * 12
+        return 8 * factor * sum(-(-n // BLOCK) * BLOCK for n in task.per_group)
+
+    return row_bytes
+
+
+def _moment_draws(task: ChunkTask) -> int:
+    return 2 * len(task.per_group) if task.summaries else _raw_draws(task)
+
+
+@dataclass(frozen=True)
+class Kernel:
+    """One vectorized analysis: its run, its draws per replicate and its bytes per row."""
+
+    run: Run
+    draws: Callable[[ChunkTask], int]
+    row_bytes: Callable[[ChunkTask], int]
+    summaries: bool  # draws summary statistics when every model is normal (t and F tests)
+    always_summaries: bool = False  # draws summaries whatever the models (counts, correlations)
+
+
+def _center(model: dict) -> float:
+    """A centring constant for one-pass moments when the mean dwarfs the spread, else 0."""
+    m, v = models.moments(model)
+    if m is None or v is None or v <= 0 or abs(m) < 100 * math.sqrt(v):
+        return 0.0
+    return m
+
+
+def _moments(streams: Streams, task: ChunkTask, i: int, rows: int):
+    model, n = task.models[i], task.per_group[i]
+    if task.summaries:
+        return streams.normal_summary(i, model, n, rows)
+    return streams.raw_moments(i, model, n, rows, _center(model))
+
+
+def _two_sample_t(equal_var: bool) -> Run:
+    def run(streams: Streams, task: ChunkTask, rows: int):
+        m1, v1 = _moments(streams, task, 0, rows)
+        m2, v2 = _moments(streams, task, 1, rows)
+        n1, n2 = task.per_group
+        est, se, df = vectests.two_sample_t(m1, v1, n1, m2, v2, n2, equal_var=equal_var)
+        return vectests.decide(est, se, df, task.alpha, task.rule), {}
+
+    return run
+
+
+def _one_sample_t(streams: Streams, task: ChunkTask, rows: int):
+    m, v = _moments(streams, task, 0, rows)
+    est, se, df = vectests.one_sample_t(m, v, task.per_group[0])
+    return vectests.decide(est, se, df, task.alpha, task.rule), {}
+
+
+def _rank_sum(streams: Streams, task: ChunkTask, rows: int):
+    x = streams.raw(0, task.models[0], task.per_group[0], rows)
+    y = streams.raw(1, task.models[1], task.per_group[1], rows)
+    return vectests.decide(vectests.rank_sum_z(x, y), 1.0, None, task.alpha, task.rule), {}
+
+
+def _signed_rank(streams: Streams, task: ChunkTask, rows: int):
+    d = streams.raw(0, task.models[0], task.per_group[0], rows)
+    return vectests.decide(vectests.signed_rank_z(d), 1.0, None, task.alpha, task.rule), {}
+
+
+def _f_test(streams: Streams, task: ChunkTask, rows: int):
+    k = len(task.models)
+    summaries = [_moments(streams, task, i, rows) for i in range(k)]
+    f = vectests.f_oneway(task.per_group, [s[0] for s in summaries], [s[1] for s in summaries])
+    crit = vectests.f_critical(task.alpha, k - 1, sum(task.per_group) - k)
+    return f > crit, {}
+
+
+def _kruskal_wallis(streams: Streams, task: ChunkTask, rows: int):
+    groups = [
+        streams.raw(i, m, n, rows)
+        for i, (m, n) in enumerate(zip(task.models, task.per_group, strict=True))
+    ]
+    crit = vectests.chi2_critical(task.alpha, len(task.models) - 1)
+    return vectests.kruskal_h(groups) > crit, {}
+
+
+def _counts(streams: Streams, task: ChunkTask, rows: int):
+    (n1, n2), (a1, a2) = task.per_group, task.models
+    return streams.binomial(0, a1["p"], n1, rows), streams.binomial(1, a2["p"], n2, rows)
+
+
+def _z(pooled: bool) -> Run:
+    def run(streams: Streams, task: ChunkTask, rows: int):
+        c1, c2 = _counts(streams, task, rows)
+        n1, n2 = task.per_group
+        est, se = vectests.two_proportion_z(
+            c1,
+            n1,
+            c2,
+            n2,
+            pooled=pooled,
+            continuity=bool(task.settings.get("continuity_correction", False)),
+        )
+        return vectests.decide(est, se, None, task.alpha, task.rule), {}
+
+    return run
+
+
+def _fisher(streams: Streams, task: ChunkTask, rows: int):
+    c1, c2 = _counts(streams, task, rows)
+    n1, n2 = task.per_group
+    return vectests.fisher_reject(c1, n1, c2, n2, task.alpha, task.rule), {}
+
+
+def _pearson(streams: Streams, task: ChunkTask, rows: int):
+    n = task.per_group[0]
+    r = streams.correlation(task.models[0]["r"], n, rows)
+    r_null = task.settings["r_null"]
+    return vectests.correlation_reject(r, n, r_null, task.alpha, task.rule), {}
+
+
+def _event_rows(streams: Streams, task: ChunkTask, rows: int):
+    s = task.settings
+    a, f, loss = s["accrual"], s["follow_up"], s["loss_hazard"]
+    times, events = [], []
+    for i, (model, n) in enumerate(zip(task.models, task.per_group, strict=True)):
+        t = streams.raw(i, model, n, rows, variate0=0)
+        if a > 0:
+            uniform = {"family": "uniform", "low": 0.0, "high": a}
+            stop = (a + f) - streams.raw(i, uniform, n, rows, variate0=1)
+        else:
+            stop = np.full((rows, n), f)
+        if loss > 0:
+            lost = {"family": "exponential", "scale": 1.0 / loss}
+            np.minimum(stop, streams.raw(i, lost, n, rows, variate0=2), out=stop)
+        events.append(t <= stop)
+        times.append(np.minimum(t, stop))
+    return np.concatenate(times, axis=1), np.concatenate(events, axis=1)
+
+
+def _logrank(streams: Streams, task: ChunkTask, rows: int):
+    time, event = _event_rows(streams, task, rows)
+    z = vectests.logrank_z(time, event, task.per_group[0])
+    return vectests.decide(z, 1.0, None, task.alpha, task.rule), {"events": int(event.sum())}
+
+
+def _logrank_draws(task: ChunkTask) -> int:
+    s = task.settings
+    per_obs = 1 + (s["accrual"] > 0) + (s["loss_hazard"] > 0)
+    return _raw_draws(task, [per_obs] * len(task.per_group))
+
+
+def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
+    return cluster_sim.reject(streams, task, rows)
+
+
+KERNELS: dict[str, Kernel] = {
+    "t_pooled": Kernel(_two_sample_t(True), _moment_draws, _raw_bytes(4), summaries=True),
+    "t_welch": Kernel(_two_sample_t(False), _moment_draws, _raw_bytes(4), summaries=True),
+    "t_one_sample": Kernel(_one_sample_t, _moment_draws, _raw_bytes(4), summaries=True),
+    "f_test": Kernel(_f_test, _moment_draws, _raw_bytes(4), summaries=True),
+    "rank_sum": Kernel(_rank_sum, _raw_draws, _raw_bytes(10), summaries=False),
+    "signed_rank": Kernel(_signed_rank, _raw_draws, _raw_bytes(10), summaries=False),
+    "kruskal_wallis": Kernel(_kruskal_wallis, _raw_draws, _raw_bytes(10), summaries=False),
+    "z_pooled": Kernel(
+        _z(True), lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
+    ),
+    "z_unpooled": Kernel(
+        _z(False), lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
+    ),
+    "fisher_exact": Kernel(
+        _fisher, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
+    ),
+    "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
+    "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
+    # per_group counts clusters: a size, a cluster effect and a mean per cluster
+    "cluster_t": Kernel(
+        _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True
+    ),
+}
+
+
+def kernel(name: str) -> Kernel:
+    """Return the kernel called ``name``; QuestionError naming the task field when unknown."""
+    try:
+        return KERNELS[name]
+    except KeyError:
+        raise QuestionError(
+            "task.kernel", f"unknown kernel {name!r}; allowed: {', '.join(KERNELS)}"
+        ) from None

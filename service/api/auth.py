@@ -120,6 +120,10 @@ PAGE_MIRRORS: dict[str, str] = {
     "desk.tokens": "tokens.list_tokens",
     "desk.issue": "tokens.create_token",
     "desk.revoke_token": "tokens.revoke_token",
+    # The intake page submits a request as POST /v1/requests does.
+    "desk.intake_index": "requests.submit_request",
+    "desk.intake_form_page": "requests.submit_request",
+    "desk.intake_submit": "requests.submit_request",
 }
 ACCESS.update({page: ACCESS[api] for page, api in PAGE_MIRRORS.items()})
 # The desk's front door sends each role where it may go.

@@ -18,7 +18,7 @@ CSRF_EXTENSION = "desk_csrf"
 
 def init_desk(app: Flask) -> None:
     """Register the desk's blueprint, its session cookie and CSRF protection on ``app``."""
-    from . import actions, pages  # noqa: F401  (their routes join the blueprint)
+    from . import actions, intake, pages  # noqa: F401  (their routes join the blueprint)
     from .blueprint import bp
 
     session.configure(app)

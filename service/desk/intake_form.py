@@ -13,6 +13,7 @@ refuses it with its own message.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -92,7 +93,7 @@ def _described(schema, prefix: str, names: dict[str, str]) -> list[Input]:
                 name=prefix + name,
                 label=label,
                 kind=kind or "text",
-                help=e.get("description", ""),
+                help=_sentence(e.get("description", "")),
                 allowed=e.get("allowed", ""),
                 minimum=e.get("minimum", e.get("exclusiveMinimum")),
                 maximum=e.get("maximum", e.get("exclusiveMaximum")),
@@ -105,16 +106,32 @@ def _described(schema, prefix: str, names: dict[str, str]) -> list[Input]:
     return out
 
 
+def _sentence(text: str) -> str:
+    """The schema's help as a sentence: capital first letter, final period."""
+    text = text.strip()
+    if not text:
+        return ""
+    return text[0].upper() + text[1:] + ("" if text.endswith((".", ")")) else ".")
+
+
+def _in_words(text: str, labels: dict[str, str]) -> str:
+    # The catalogue's "needed" text names fields; the page names them by their labels.
+    names = "|".join(re.escape(n) for n in sorted(labels, key=len, reverse=True))
+    text = re.sub(rf"\b({names})\b", lambda m: labels[m.group(1)], text) if names else text
+    return text[:1].upper() + text[1:]
+
+
 def _cell_inputs(entry: dict) -> list[Input]:
+    labels = {f["name"]: f["label"] for f in entry["fields"]}
     return [
         Input(
             name=Q + f["path"],
-            label=f["label"],
+            label=f["label"][:1].upper() + f["label"][1:],
             kind="choice" if f["type"] == "choice" else f["type"],
             help=f["help"],
             unit=f["unit"],
             allowed=f["allowed"],
-            needed=f["needed"],
+            needed=_in_words(f["needed"], labels),
             minimum=f.get("minimum"),
             maximum=f.get("maximum"),
             exclusive_minimum=f.get("exclusive_minimum", False),

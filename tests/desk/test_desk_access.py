@@ -30,6 +30,9 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("POST", "/desk/requests/<request_id>/cancel"): {S},
     ("POST", "/desk/requests/<request_id>/explore"): {S},
     ("POST", "/desk/requests/<request_id>/rerun"): {A},
+    ("GET", "/desk/intake"): {INT, S},
+    ("GET", "/desk/intake/<outcome>/<layout>"): {INT, S},
+    ("POST", "/desk/intake/<outcome>/<layout>"): {INT, S},
     ("GET", "/desk/tokens"): {ADM},
     ("POST", "/desk/tokens"): {ADM},
     ("POST", "/desk/tokens/<token_id>/revoke"): {ADM},
@@ -64,7 +67,12 @@ def test_each_page_takes_exactly_its_api_endpoints_roles():
 def test_desk_role_matrix(desk, desk_api, desk_tokens, method, rule):
     allowed = MATRIX[(method, rule)]
     request_id = desk_api.submit(role="intake", name="a.okafor").get_json()["id"]
-    ids = {"request_id": request_id, "token_id": desk_tokens.token_id("intake", "victim")}
+    ids = {
+        "request_id": request_id,
+        "token_id": desk_tokens.token_id("intake", "victim"),
+        "outcome": "continuous",
+        "layout": "two_groups",
+    }
     path = re.sub(r"<([^<>]+)>", lambda m: ids[m.group(1)], rule)
     for role in ROLES:
         # The intake caller is the request's submitter, so ownership does not hide it here.

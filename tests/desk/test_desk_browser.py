@@ -259,3 +259,54 @@ def test_an_auditor_sees_no_approve_button_and_cannot_approve_by_posting(browser
     )
     status = _call(f"{service['url']}/v1/requests/{request_id}", service["secrets"]["auditor"])
     assert status["status"] == "computed"
+
+
+def test_the_intake_page_fill_it_submit_and_land_on_the_request_page(browser, service):
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+
+    _sign_in(browser, service, "intake")
+    _navigates(browser, browser.find_element(By.LINK_TEXT, "Intake").click)
+    cell = browser.find_element(By.CSS_SELECTOR, 'a[data-cell="continuous.two_groups"]')
+    assert cell.text == "Continuous outcome, two groups"
+    _navigates(browser, cell.click)
+    assert browser.find_element(By.ID, "intake-title").text == "Continuous outcome, two groups"
+
+    def fill(name: str, text: str) -> None:
+        element = browser.find_element(By.NAME, name)
+        element.clear()
+        element.send_keys(text)
+
+    fill("protocol.id", "NGH-2026-207")
+    fill("protocol.title", "Night-time mobility after knee replacement")
+    fill("requester.name", "Dr. Lena Brandt")
+    fill("requester.email", "l.brandt@northbridge-general.example")
+    fill("requester.department", "Orthopaedics")
+    # A date input's typed format follows the browser's locale; set the ISO value it posts.
+    browser.execute_script("document.querySelector('input[name=deadline]').value = '2099-06-30';")
+    Select(browser.find_element(By.NAME, "question.analysis")).select_by_value("welch_t")
+    fill("question.effect.difference", "-5")
+    fill("question.assumptions.sd_control", "12")
+    fill("question.target_power", "0.9")
+    # First without sd_treatment: the form comes back with the message beside that input.
+    _navigates(browser, browser.find_element(By.ID, "intake-submit").click)
+    assert "/desk/intake/continuous/two_groups" in browser.current_url
+    beside = browser.find_element(
+        By.CSS_SELECTOR, '[data-field="question.assumptions.sd_treatment"] .field-error'
+    )
+    assert beside.text
+    assert browser.find_element(By.NAME, "protocol.id").get_attribute("value") == "NGH-2026-207"
+    fill("question.assumptions.sd_treatment", "14")
+    _navigates(browser, browser.find_element(By.ID, "intake-submit").click)
+
+    assert "/desk/requests/" in browser.current_url
+    request_id = browser.current_url.rstrip("/").rsplit("/", 1)[-1]
+    status = browser.find_element(By.ID, "request-status")
+    assert status.get_attribute("data-status") == "computed"
+    page = browser.find_element(By.TAG_NAME, "body").text
+    assert "Night-time mobility after knee replacement" in page
+    assert "Continuous outcome, two groups" in page and "Welch's t test" in page
+    stored = _call(f"{service['url']}/v1/requests/{request_id}", service["secrets"]["intake"])
+    assert stored["question"]["analysis"] == "welch_t"
+    assert stored["requester"]["department"] == "Orthopaedics"
+    assert stored["deadline"] == "2099-06-30"

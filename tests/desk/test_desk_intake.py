@@ -93,7 +93,8 @@ def test_each_cell_form_has_every_declared_field_with_its_constraints(desk, cell
     for f in design.fields:
         name = f"question.{f.path}"
         tag, block = _input(html, name), _field_block(html, name)
-        assert _esc(f.label) in block and _esc(f.help) in block
+        label = f.label[:1].upper() + f.label[1:]
+        assert _esc(label) in block and _esc(f.help) in block
         if f.unit:
             assert f"({f.unit})" in block
         if f.type in ("number", "integer"):

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 from flask import flash, redirect, request, url_for
 
-from service.api.analyses import start_analysis
 from service.api.context import sessions
 from service.api.errors import ValidationFailed
 from service.api.identity import current_actor, current_caller
@@ -13,11 +12,11 @@ from service.api.requests import review_decision, start_rerun, transition_refuse
 from service.api.tokens import all_tokens, issue_token, revoke
 from service.api.views import load_request
 from service.schemas.api import AssignSchema, CancelSchema, CommentSchema, ReviewNoteSchema
-from service.schemas.requests import AnalysisCreateSchema
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES
 
+from . import explorations
 from .blueprint import bp, page
 
 
@@ -109,16 +108,13 @@ def _grid_values(text: str) -> list[float]:
 def explore(request_id: str):
     """Ask for a sensitivity grid (one path, its values) or a robustness panel."""
     kind = request.form.get("kind", "")
-    body: dict = {"kind": kind}
-    if kind == "sensitivity":
+    grid = None
+    if kind == explorations.GRID:
         path = request.form.get("path", "").strip()
-        body["grid"] = {path: _grid_values(request.form.get("values", ""))}
-    data = AnalysisCreateSchema().load(body)
-    start_analysis(request_id, data)
-    flash(
-        "Sensitivity grid asked for." if kind == "sensitivity" else "Robustness panel asked for.",
-        "ok",
-    )
+        grid = {path: _grid_values(request.form.get("values", ""))}
+    explorations.ask(request_id, kind, grid)
+    asked = "Sensitivity grid" if kind == explorations.GRID else "Robustness panel"
+    flash(f"{asked} asked for; it appears in the report when a worker has computed it.", "ok")
     return redirect(url_for("desk.request_page", request_id=request_id))
 
 

@@ -44,14 +44,14 @@ def _cell(question: dict) -> tuple[str, str] | None:
 
 
 def cell_value(question: dict) -> str:
-    """The filter value of the question's cell, ``outcome.layout`` (empty when unknown)."""
+    """The filter value of the question's cell, ``outcome/layout`` (empty when unknown)."""
     cell = _cell(question or {})
-    return f"{cell[0]}.{cell[1]}" if cell else ""
+    return f"{cell[0]}/{cell[1]}" if cell else ""
 
 
 def cell_label(value: str) -> str:
     """The human label of a cell's filter value: 'Continuous outcome, two groups'."""
-    outcome, _, layout = value.partition(".")
+    outcome, _, layout = value.partition("/")
     try:
         from service.engine import designs
 
@@ -69,13 +69,18 @@ def question_label(question: dict) -> str:
 
 
 def cells() -> list[str]:
-    """Every cell's filter value, in the vocabulary's order."""
-    return [f"{o}.{lay}" for o, lay in _OLD_DESIGNS.values()]
+    """Every cell's filter value: the engine's registry when it has one, else the vocabulary's."""
+    from service.engine import designs
+
+    registry = getattr(designs, "all", None)
+    if callable(registry):
+        return [f"{d.outcome}/{d.layout}" for d in registry()]
+    return [f"{o}/{lay}" for o, lay in _OLD_DESIGNS.values()]
 
 
 def where_cell(value: str) -> ColumnElement[bool]:
     """The SQL condition selecting requests of the cell ``value`` (the stored design column)."""
-    names = [name for name, cell in _OLD_DESIGNS.items() if f"{cell[0]}.{cell[1]}" == value]
+    names = [name for name, cell in _OLD_DESIGNS.items() if f"{cell[0]}/{cell[1]}" == value]
     # Matches both the old design names and a design column holding the cell itself.
     return or_(Request.design == value, Request.design.in_(names))
 

@@ -131,6 +131,7 @@ def request_page(request_id: str):
         reruns=reruns,
         colleagues=colleagues,
         grid_paths=labels.grid_paths(detail["question"]),
+        kinds={"grid": explorations.GRID, "panel": explorations.PANEL},
         may={
             "assign": status != "cancelled",
             "review": status in store.REVIEWABLE,

@@ -7,17 +7,16 @@ from flask import flash, redirect, request, url_for
 
 from service.api.context import sessions
 from service.api.errors import ValidationFailed
-from service.api.explorations import start_exploration
 from service.api.identity import current_actor, current_caller
 from service.api.requests import review_decision, start_rerun, transition_refused
 from service.api.tokens import all_tokens, issue_token, revoke
 from service.api.views import load_request
 from service.schemas.api import AssignSchema, CancelSchema, CommentSchema, ReviewNoteSchema
-from service.schemas.requests import ExplorationCreateSchema
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import TOKEN_ROLES
 
+from . import explorations
 from .blueprint import bp, page
 
 
@@ -109,17 +108,13 @@ def _grid_values(text: str) -> list[float]:
 def explore(request_id: str):
     """Ask for a sensitivity grid (one path, its values) or a robustness panel."""
     kind = request.form.get("type", "")
-    body: dict = {"type": kind}
-    if kind == "sensitivity_grid":
+    grid = None
+    if kind == explorations.GRID:
         path = request.form.get("path", "").strip()
-        body["grid"] = {path: _grid_values(request.form.get("values", ""))}
-    start_exploration(request_id, ExplorationCreateSchema().load(body))
-    flash(
-        "Sensitivity grid asked for."
-        if kind == "sensitivity_grid"
-        else "Robustness panel asked for.",
-        "ok",
-    )
+        grid = {path: _grid_values(request.form.get("values", ""))}
+    explorations.ask(request_id, kind, grid)
+    asked = "Sensitivity grid" if kind == explorations.GRID else "Robustness panel"
+    flash(f"{asked} asked for; it appears in the report when a worker has computed it.", "ok")
     return redirect(url_for("desk.request_page", request_id=request_id))
 
 

@@ -15,14 +15,14 @@ from service.store.requests import design_key
 
 
 def cell_value(question: dict) -> str:
-    """The filter value of the question's cell, ``outcome.layout`` (empty when unknown)."""
+    """The filter value of the question's cell, ``outcome/layout`` (empty when unknown)."""
     outcome, layout = (question or {}).get("outcome"), (question or {}).get("layout")
-    return f"{outcome}.{layout}" if outcome and layout else ""
+    return design_key(question) if outcome and layout else ""
 
 
 def cell_label(value: str) -> str:
     """The human label of a cell's filter value: 'Continuous outcome, two groups'."""
-    outcome, _, layout = value.partition(".")
+    outcome, _, layout = value.partition("/")
     try:
         return designs.get(outcome, layout).label
     except QuestionError:  # a cell no longer registered: say so rather than fail the page
@@ -36,13 +36,13 @@ def question_label(question: dict) -> str:
 
 def cells() -> list[str]:
     """Every registered cell's filter value, in catalogue order."""
-    return [f"{d.outcome}.{d.layout}" for d in designs.all()]
+    return [design_key({"outcome": d.outcome, "layout": d.layout}) for d in designs.all()]
 
 
 def where_cell(value: str) -> ColumnElement[bool]:
     """The SQL condition selecting requests of the cell ``value`` (the stored design column)."""
-    outcome, _, layout = value.partition(".")
-    return Request.design == design_key({"outcome": outcome, "layout": layout})
+    # The filter value is the column's own value (store.requests.design_key).
+    return Request.design == value
 
 
 # Blocks of a question whose numbers a sensitivity grid may vary, and the top-level numbers.

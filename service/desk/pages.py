@@ -11,13 +11,12 @@ from service.api.identity import current_caller, visible_submitter
 from service.api.tokens import all_tokens
 from service.api.views import load_request
 from service.reports.render import STATUS_LABELS, question_rows
-from service.store import explorations as exploration_store
 from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import REQUEST_STATUSES, TOKEN_ROLES, ApiToken
 from service.store.types import utcnow
 
-from . import labels, queue
+from . import explorations, labels, queue
 from . import session as desk_session
 from .blueprint import bp, page, safe_next
 from .report import report_parts
@@ -116,7 +115,7 @@ def request_page(request_id: str):
         row = load_request(db, request_id)
         detail = render.request_detail(db, row)
         overdue = queue.is_overdue(row.deadline, row.status, utcnow().date())
-        done = {k: e.result for k, e in exploration_store.latest_done(db, request_id).items()}
+        done = explorations.finished(db, request_id)
         reruns = [render.rerun(r) for r in store.reruns_for(db, request_id)]
         colleagues = _colleagues(db)
     report = report_parts(detail, done) if detail["result"] is not None else None
@@ -132,6 +131,7 @@ def request_page(request_id: str):
         reruns=reruns,
         colleagues=colleagues,
         grid_paths=labels.grid_paths(detail["question"]),
+        kinds={"grid": explorations.GRID, "panel": explorations.PANEL},
         may={
             "assign": status != "cancelled",
             "review": status in store.REVIEWABLE,

@@ -267,7 +267,7 @@ def test_the_intake_page_fill_it_submit_and_land_on_the_request_page(browser, se
 
     _sign_in(browser, service, "intake")
     _navigates(browser, browser.find_element(By.LINK_TEXT, "Intake").click)
-    cell = browser.find_element(By.CSS_SELECTOR, 'a[data-cell="continuous.two_groups"]')
+    cell = browser.find_element(By.CSS_SELECTOR, 'a[data-cell="continuous/two_groups"]')
     assert cell.text == "Continuous outcome, two groups"
     _navigates(browser, cell.click)
     assert browser.find_element(By.ID, "intake-title").text == "Continuous outcome, two groups"

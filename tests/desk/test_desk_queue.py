@@ -70,8 +70,8 @@ def test_filters_by_status_assignee_me_overdue_and_design(desk, desk_api):
     assert shown("assignee=-") == {late}
     assert shown("mine=1") == {mine}
     assert shown("overdue=1") == {late}
-    assert shown("cell=continuous.two_groups") == {late, future, mine}
-    assert shown("cell=binary.two_groups") == set()
+    assert shown("cell=continuous/two_groups") == {late, future, mine}
+    assert shown("cell=binary/two_groups") == set()
     # Counts per status follow the other filters, so each count is what its link shows.
     counts = _counts(d.get("/desk/requests?assignee=r.patel").get_data(as_text=True))
     assert "Approved: <strong>1</strong>" in counts and "Computed" not in counts

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import re
 
+from service.desk import explorations
 from workers import tasks
 
 
@@ -110,25 +111,24 @@ def test_cancel_a_waiting_request(make_desk_app):
     assert _status(html) == "cancelled" and "Protocol withdrawn." in html
 
 
-def test_ask_for_a_sensitivity_grid_and_a_robustness_panel(desk, desk_api):
-    request_id = desk_api.submit().get_json()["id"]
-    d = desk("statistician")
-    r = _post(
-        d,
-        request_id,
-        "explore",
-        {"type": "sensitivity_grid", "path": "alpha", "values": "0.05, 0.01"},
-    )
-    assert r.status_code == 302
-    assert _post(d, request_id, "explore", {"type": "robustness_panel"}).status_code == 302
+def _explorations_listed(desk_api, request_id: str) -> list[tuple[str, dict]]:
+    """(type, params) of the request's grids and panels, as GET .../explorations lists them."""
     items = desk_api.client.get(
         f"/v1/requests/{request_id}/explorations", headers=desk_api.tokens.headers("statistician")
     ).get_json()["items"]
-    assert [e["type"] for e in items] == ["sensitivity_grid", "robustness_panel"]
-    assert items[0]["params"]["grid"] == {"alpha": [0.05, 0.01]}
-    bad = _post(
-        d, request_id, "explore", {"type": "sensitivity_grid", "path": "alpha", "values": "a, b"}
-    )
+    return [(item["type"], item["params"]) for item in items]
+
+
+def test_ask_for_a_sensitivity_grid_and_a_robustness_panel(desk, desk_api):
+    request_id = desk_api.submit().get_json()["id"]
+    d = desk("statistician")
+    grid = {"type": explorations.GRID, "path": "alpha", "values": "0.05, 0.01"}
+    assert _post(d, request_id, "explore", grid).status_code == 302
+    assert _post(d, request_id, "explore", {"type": explorations.PANEL}).status_code == 302
+    listed = _explorations_listed(desk_api, request_id)
+    assert [kind for kind, _params in listed] == [explorations.GRID, explorations.PANEL]
+    assert listed[0][1]["grid"] == {"alpha": [0.05, 0.01]}
+    bad = _post(d, request_id, "explore", dict(grid, values="a, b"))
     assert bad.status_code == 422 and "numbers separated by commas" in bad.get_data(as_text=True)
 
 

@@ -17,6 +17,7 @@ from __future__ import annotations
 import argparse
 import inspect
 import json
+import os
 import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -475,6 +476,10 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         return args.run(args)
+    except BrokenPipeError:
+        # The reader stopped early (e.g. `| head`): not an error of the question or the engine.
+        sys.stdout = open(os.devnull, "w")  # noqa: SIM115 - silence the flush at exit
+        return EXIT_OK
     except InputError as exc:
         print(f"sizewise: {exc}", file=sys.stderr)
         return EXIT_INPUT

@@ -23,7 +23,7 @@ from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Exploration, Request, Result
 from workers.celery_app import TASK_NAMES, app
-from workers.running import JobHooks, executor_for, new_owner, run_claimed, waited
+from workers.running import JobHooks, claim, executor_for, new_owner, run_claimed, waited
 from workers.sessions import sessions
 
 log = logging.getLogger(__name__)
@@ -55,11 +55,8 @@ def run_exploration_job(
     """Claim and compute one exploration; return 'done', 'waiting', 'skipped', 'failed' or 'lost'."""
     factory = sessions(config)
     owner = owner or new_owner()
-    lease = float(config["LEASE_SECONDS"])
     with session_scope(factory) as session:
-        if not jobs.claim(
-            session, "exploration", exploration_id, owner, lease, int(config["MAX_ATTEMPTS"])
-        ):
+        if not claim(session, "exploration", exploration_id, owner, config):
             return "skipped"
         row = session.get(Exploration, exploration_id)
         exploration_type, params, request_id = row.type, dict(row.params), row.request_id

@@ -85,6 +85,12 @@ class JobHooks:
         return self._cancelled
 
 
+def claim(session, kind: str, job_id: str, owner: str, config: dict) -> bool:
+    """Take the job's lease for LEASE_SECONDS; False when it is not ours (or not claimable)."""
+    lease = float(config["LEASE_SECONDS"])
+    return jobs.claim(session, kind, job_id, owner, lease, int(config["MAX_ATTEMPTS"]))
+
+
 def executor_for(
     factory, hooks: JobHooks, config: dict, *, fan_out: bool, runner, order
 ) -> ChunkExecutor:

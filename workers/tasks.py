@@ -28,7 +28,15 @@ from service.store.types import utcnow
 from workers.celery_app import TASK_NAMES, app
 from workers.fanout import work_units
 from workers.queue import REQUEST_ID_HEADER, publish_and_mark
-from workers.running import JobHooks, actor, executor_for, new_owner, run_claimed, waited
+from workers.running import (
+    JobHooks,
+    actor,
+    claim,
+    executor_for,
+    new_owner,
+    run_claimed,
+    waited,
+)
 from workers.sessions import sessions
 from workers.sweeper import start_thread, stop_thread, sweep_once
 
@@ -42,12 +50,6 @@ def _event(session, request_id: str | None, action: str, detail: dict, *, owner:
     # API answered a closed-form question itself.
     who = ":".join(owner.split(":")[:2]) if owner.count(":") >= 2 else actor()
     audit.append_event(session, request_id=request_id, actor=who, action=action, detail=detail)
-
-
-def _claim(session, kind: str, job_id: str, owner: str, config: dict) -> bool:
-    """Take a request's or rerun's lease for whole LEASE_SECONDS; False when it is not ours."""
-    lease = int(config["LEASE_SECONDS"])
-    return jobs.claim(session, kind, job_id, owner, lease, int(config["MAX_ATTEMPTS"]))
 
 
 def run_request_job(
@@ -72,7 +74,7 @@ def run_request_job(
     factory = factory or sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
-        if not _claim(session, "request", request_id, owner, config):
+        if not claim(session, "request", request_id, owner, config):
             return "skipped"
         row = session.get(Request, request_id)
         question = row.question
@@ -145,7 +147,7 @@ def run_rerun_job(
     factory = sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
-        if not _claim(session, "rerun", rerun_id, owner, config):
+        if not claim(session, "rerun", rerun_id, owner, config):
             return "skipped"
         rerun = session.get(Rerun, rerun_id)
         request_id = rerun.request_id

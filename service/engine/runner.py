@@ -124,9 +124,13 @@ class Runner:
             out.append(search.Estimate(rej, reps))
         return out
 
-    def extra_sum(self, name: str, request: Request) -> int:
-        """Return the sum of a chunk extra (e.g. events) over the chunks of one request."""
-        return sum(int(self.cache[k].get(name, 0)) for k, _ in self._tasks(request))
+    def extra_sum(self, name: str, request: Request) -> int | None:
+        """Return the sum of a chunk extra (e.g. events) over the chunks of one request, or None
+        when the kernel reports no such extra."""
+        results = [self.cache[k] for k, _ in self._tasks(request)]
+        if not any(name in r for r in results):
+            return None
+        return sum(int(r.get(name, 0)) for r in results)
 
     def _tick(self, reps: int) -> None:
         self.done += reps

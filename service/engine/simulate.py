@@ -197,14 +197,10 @@ def _search_block(source_start, source, target, settings, found, describe_point)
 
 def _events(runner: Runner, request: Request, reps: int) -> dict | None:
     """Mean events per replicate when the kernel counts them (time to event)."""
-    if "events" not in runner.cache.get(_first_key(runner, request), {}):
-        return None
     events = runner.extra_sum("events", request)
+    if events is None:
+        return None
     return {"mean_per_replicate": events / reps, "replicates": reps}
-
-
-def _first_key(runner: Runner, request: Request) -> tuple:
-    return runner._tasks(request)[0][0]
 
 
 def answer(

@@ -13,6 +13,7 @@ from service.engine import QuestionError, designs
 
 __all__ = [
     "analysis_label",
+    "assumed_text",
     "assumptions_text",
     "cell",
     "cell_label",
@@ -24,6 +25,7 @@ __all__ = [
     "fmt_power",
     "fmt_prob",
     "field_label",
+    "group_count",
     "group_names",
     "is_omnibus",
     "label_of_analysis",
@@ -124,13 +126,13 @@ def _value_text(q: dict, f, value) -> str:
     return text
 
 
-def _generic(q: dict, block: str, skip: tuple[str, ...] = ()) -> str:
+def _generic(q: dict, block: str) -> str:
     """A sentence from the field declarations: 'a standard deviation of 12 and …'."""
     values = q.get(block) or {}
     parts = []
     for f in cell(q).fields:
         value = values.get(f.name)
-        if f.block != block or f.name in skip or f.name == TIME_UNIT or value is None:
+        if f.block != block or f.name == TIME_UNIT or value is None:
             continue
         if f.type == "boolean":
             if value:
@@ -198,8 +200,8 @@ def group_names(q: dict, k: int) -> list[str]:
 
 
 def is_omnibus(q: dict) -> bool:
-    """A test across more than two groups has no direction: 'two-sided' would misdescribe it."""
-    return group_count(q) > 2
+    """A cell whose tests have no direction (the F test): 'two-sided' would misdescribe it."""
+    return not cell(q).directional
 
 
 def label_of_analysis(q: dict, name: str | None) -> str:

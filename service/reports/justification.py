@@ -260,9 +260,7 @@ def _source(context: dict | None) -> str:
     source = (context or {}).get("effect_source")
     if source and str(source).strip():
         return f" The assumed values are based on {str(source).strip().rstrip('.')}."
-    return (
-        " [State the source of the assumed values: pilot data, literature or clinical judgement.]"
-    )
+    return " [State the source of the assumed values: pilot data, literature or clinical judgment.]"
 
 
 def _dist_words(dist: dict) -> str:

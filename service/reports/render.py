@@ -30,7 +30,7 @@ STATUS_LABELS = {
     "approved": "Approved",
     "returned": "Returned to requester",
     "failed": "Failed",
-    "cancelled": "Cancelled",
+    "cancelled": "Canceled",
 }
 
 _DEPARTURE_LABELS = {

@@ -6,9 +6,9 @@ The question's cell-specific parts are generated from the designs' declared fiel
 """
 
 from .catalogue import catalogue
-from .errors import QuestionInvalid, format_errors
+from .errors import QuestionInvalid, flatten_errors, format_errors
 from .json_schema import question_json_schema
-from .question import QuestionSchema, flatten_errors, load_question, register_openapi_types
+from .question import QuestionSchema, load_question, register_openapi_types
 
 __all__ = [
     "QuestionInvalid",

@@ -20,18 +20,9 @@ from typing import Any
 from marshmallow import ValidationError
 
 from . import declared
+from .errors import flatten_errors
 from .fields import got, show
 from .vocabulary import BLOCKS
-
-
-def field_map(design: Any) -> dict[str, Any]:
-    """name -> declaration, for every declared field of the design."""
-    return {f.name: f for f in design.fields}
-
-
-def path(design: Any, name: str) -> str:
-    """The dotted question path of a declared field: 'assumptions.sd'."""
-    return f"{field_map(design)[name].block}.{name}"
 
 
 class Cell:
@@ -39,13 +30,13 @@ class Cell:
 
     def __init__(self, design: Any, raw: Mapping, find: str, from_data: bool):
         self.design, self.raw, self.find, self.from_data = design, raw, find, from_data
-        self.fields = field_map(design)
+        self.fields = {f.name: f for f in design.fields}
         self.errors: dict[str, list[str]] = {}
         self.loaded: dict[str, dict] = {}
 
     def add(self, name: str, message: str) -> None:
         """Record an error on a declared field (or on a dotted path)."""
-        where = path(self.design, name) if name in self.fields else name
+        where = f"{self.fields[name].block}.{name}" if name in self.fields else name
         messages = self.errors.setdefault(where, [])
         if message not in messages:
             messages.append(message)
@@ -74,7 +65,7 @@ class Cell:
                     for k, v in (exc.valid_data or {}).items()
                     if v is not None and k not in exc.messages
                 }
-                for key, messages in _flat(exc.messages).items():
+                for key, messages in flatten_errors(exc.messages).items():
                     for message in messages:
                         self.add(f"{block}.{key}", self._misplaced(block, key, message))
 
@@ -115,8 +106,14 @@ class Cell:
 
     def _alternative(self, name: str) -> str:
         """' (or give x)': the fields of the other forms that stand in for ``name``."""
-        mine = {n for form in self.design.forms if name in form for n in form}
-        others = [n for form in self.design.forms if name not in form for n in form]
+        forms = [
+            form
+            for form in self.design.forms
+            # find = effect takes no effect field: forms holding one are no alternative then
+            if self.find != "effect" or all(self.fields[n].block != "effect" for n in form)
+        ]
+        mine = {n for form in forms if name in form for n in form}
+        others = [n for form in forms if name not in form for n in form]
         instead = [n for n in dict.fromkeys(others) if n not in mine]
         return f" (or give {' + '.join(instead)})" if mine and instead else ""
 
@@ -131,9 +128,3 @@ class Cell:
             if f.default is not None and name not in out[f.block]:
                 out[f.block][name] = f.default
         return out
-
-
-def _flat(messages: Any, prefix: str = "") -> dict[str, list[str]]:
-    from .question import flatten_errors
-
-    return flatten_errors(messages, prefix)

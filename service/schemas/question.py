@@ -28,7 +28,7 @@ from .blocks import (
     SimulationSchema,
 )
 from .cell import Cell
-from .errors import QuestionInvalid
+from .errors import QuestionInvalid, flatten_errors
 from .fields import (
     Choice,
     Flag,
@@ -164,31 +164,6 @@ class QuestionSchema(Strict):
 
 # ---------------------------------------------------------------------------------------------
 # Entry points
-
-
-def flatten_errors(messages: Any, prefix: str = "") -> dict[str, list[str]]:
-    """Turn marshmallow's nested error messages into ``{"dotted.path": [messages]}``."""
-    out: dict[str, list[str]] = {}
-
-    def walk(node: Any, path: str) -> None:
-        if isinstance(node, Mapping):
-            for key, sub in node.items():
-                key = str(key)
-                if key == "_schema":
-                    walk(sub, path)
-                else:
-                    walk(sub, f"{path}.{key}" if path else key)
-        elif isinstance(node, (list, tuple)):
-            for item in node:
-                if isinstance(item, (Mapping, list, tuple)):
-                    walk(item, path)
-                else:
-                    out.setdefault(path or "question", []).append(str(item))
-        else:
-            out.setdefault(path or "question", []).append(str(node))
-
-    walk(messages, prefix)
-    return out
 
 
 def load_question(raw: Any) -> dict:

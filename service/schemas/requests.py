@@ -166,14 +166,14 @@ class ExplorationCreateSchema(StrictSchema):
         """A sensitivity grid needs a grid; a robustness panel takes none."""
         kind = data.get("type")
         if kind == "sensitivity_grid" and "grid" not in data:
-            raise ValidationError("is required for type 'sensitivity_grid'", "grid")
+            raise ValidationError("is required for type sensitivity_grid", "grid")
         if kind == "sensitivity_grid" and "replicates" in data:
             raise ValidationError(
-                "only for type 'robustness_panel'; a grid uses the request's replicates",
+                "applies to type robustness_panel only; a grid uses the request's replicates",
                 "replicates",
             )
         if kind == "robustness_panel" and "grid" in data:
-            raise ValidationError("only for type 'sensitivity_grid'", "grid")
+            raise ValidationError("applies to type sensitivity_grid only", "grid")
 
 
 def _budget() -> int | None:

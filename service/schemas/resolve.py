@@ -41,7 +41,7 @@ def _solved_posted(design: Any, raw: Mapping) -> bool:
     return posted(raw.get(block), design.solved)
 
 
-def method(design: Any, data: dict, raw: Mapping, blocks: dict | None = None) -> str:
+def method(design: Any, data: dict, raw: Mapping) -> str:
     """The posted method; else the one the posted analysis offers (analytic first); else
     simulation for a data model posted without the effect it implies; else analytic."""
     if data.get("method") is not None:
@@ -86,7 +86,7 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
     find = data.get("find") or "sample_size"
     hyp = {**_hypothesis_default(), **(data.get("hypothesis") or {})}
     aim = hyp["aim"]
-    how = method(design, data, raw, blocks)
+    how = method(design, data, raw)
     alternative = data.get("alternative") or ("two-sided" if aim == "superiority" else "one-sided")
     sim = data.get("simulation") if how == "simulation" else None
     if how == "simulation" and sim is None:

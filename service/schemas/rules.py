@@ -53,6 +53,7 @@ def check(ctx: Context) -> None:
     margin_aims(ctx)
     if ctx.design is None:
         return
+    directionless(ctx)
     allocation(ctx)
     cell_fields(ctx)
     analysis_and_method(ctx)
@@ -131,6 +132,16 @@ def margin_aims(ctx: Context) -> None:
         )
 
 
+def directionless(ctx: Context) -> None:
+    """A cell whose tests have no direction (an F test) takes no one-sided alternative."""
+    if ctx.data.get("alternative") == "one-sided" and not getattr(ctx.design, "directional", True):
+        ctx.add(
+            "alternative",
+            f'must be "two-sided" for {ctx.design.cell}: its tests have no direction (they '
+            'reject for large statistics only); got "one-sided"',
+        )
+
+
 # -- allocation ---------------------------------------------------------------------------------
 
 
@@ -193,7 +204,7 @@ def analysis_and_method(ctx: Context) -> None:
         return
     if "method" not in ctx.data and posted(ctx.raw, "method"):
         return  # the method failed its own check
-    method = resolve.method(design, ctx.data, ctx.raw, _blocks(ctx))
+    method = resolve.method(design, ctx.data, ctx.raw)
     if asked is not None:
         _asked_analysis_fits(ctx, design.analysis(asked), method)
     elif ctx.aim is not None and ctx.cell is not None and not ctx.cell.errors:
@@ -241,7 +252,7 @@ def simulation(ctx: Context) -> None:
     raw = ctx.raw
     sim_data = (ctx.data.get("simulation") or {}).get("data")
     method_valid = "method" in ctx.data or not posted(raw, "method")
-    method = resolve.method(ctx.design, ctx.data, raw, _blocks(ctx)) if method_valid else None
+    method = resolve.method(ctx.design, ctx.data, raw) if method_valid else None
     if method == "analytic" and posted(raw, "simulation"):
         ctx.add(
             "simulation", 'is given but method is analytic; set method to "simulation" or remove it'

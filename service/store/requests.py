@@ -185,10 +185,11 @@ def list_requests(
         conditions.append(Request.protocol_id == protocol_id)
     if requester is not None:
         conditions.append(func.lower(Request.requester_email) == requester.lower())
-    # The design column holds "<outcome>/<layout>" (design_key).
-    if outcome is not None:
+    if outcome is not None and layout is not None:
+        conditions.append(Request.design == design_key({"outcome": outcome, "layout": layout}))
+    elif outcome is not None:
         conditions.append(Request.design.startswith(f"{outcome}/", autoescape=True))
-    if layout is not None:
+    elif layout is not None:
         conditions.append(Request.design.endswith(f"/{layout}", autoescape=True))
     if submitted_by is not None:
         conditions.append(Request.submitted_by == submitted_by)

@@ -37,9 +37,11 @@ def live_api(live_app, api, tokens):
 
 def question_body(**overrides) -> dict:
     question = {
-        "design": "two_means",
+        "outcome": "continuous",
+        "layout": "two_groups",
         "find": "sample_size",
-        "effect": {"difference": 0.5, "sd": 1.0},
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
     }
     question.update(overrides)
     return question
@@ -63,7 +65,7 @@ def test_analytic_question_comes_back_computed_with_the_engine_record(live_api, 
     assert body["status"] == "computed" and body["progress"] == 1.0
     # Reference: d = 0.5, two-sided 5%, 80% power; the noncentral t solved by statsmodels.
     n = TTestIndPower().solve_power(effect_size=0.5, alpha=0.05, power=0.8)
-    assert body["result"]["sample_size"]["per_arm"] == [64, 64] == [round(n + 0.5)] * 2
+    assert body["result"]["sample_size"]["per_group"] == [64, 64] == [round(n + 0.5)] * 2
     # The stored record is exactly the engine's record for the stored question.
     direct = compute(body["question"])
     assert canonical_json(body["result"]) == canonical_json(direct)
@@ -113,8 +115,8 @@ def test_simulation_question_is_still_queued(live_api, settings):
 
 
 def test_explorations_posted_with_an_analytic_request_are_handed_to_the_queue(live_api, settings):
-    item = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.6]}}
-    body = live_api.submit(live_api.request_body(question_body(), explorations=[item])).get_json()
+    grid = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.6]}}
+    body = live_api.submit(live_api.request_body(question_body(), explorations=[grid])).get_json()
     assert body["status"] == "computed"
     (exploration,) = body["explorations"]
     # The request is computed, so its exploration is published for a worker at once.
@@ -136,7 +138,7 @@ def test_an_answer_given_to_the_job_is_stored_only_for_the_question_it_answers(a
     assert run_request_job(queued["id"], config, answer=other) == "computed"
     stored = api.client.get(f"/v1/requests/{queued['id']}").get_json()["result"]
     assert canonical_json(stored) == canonical_json(compute(queued["question"]))
-    assert stored["sample_size"]["per_arm"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
+    assert stored["sample_size"]["per_group"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
     # The matching record is stored as is: the same digits the engine gives for the question.
     again = api.submit(api.request_body(question_body())).get_json()
     answer = compute(again["question"])

@@ -32,6 +32,7 @@ def test_public_surface_is_explicit():
         "runner",
         "approximate",
         "starting",
+        "examples",
         "search",
         "models",
         "vectests",

@@ -10,6 +10,7 @@ import pytest
 from scipy import stats
 
 from service.engine import QuestionError, compute, designs
+from service.engine.examples import example_question
 from service.engine.records import verify
 from tests.engine import toy_design
 
@@ -22,27 +23,15 @@ def toy():
 
 
 def _question(**overrides) -> dict:
-    q = {
+    """The engine's worked example question, moved to the toy cell."""
+    toy_cell = {
         "outcome": "count",
         "layout": "single_group",
         "analysis": "log_rate_z",
-        "find": "sample_size",
-        "alpha": 0.05,
-        "alternative": "two-sided",
-        "target_power": 0.8,
-        "sample_size": None,
-        "allocation_ratio": 1.0,
-        "allocation_rounding": "each_group",
         "effect": {"rate_ratio": 1.5},
         "assumptions": {"reference_rate": 2.0},
-        "analysis_options": {},
-        "hypothesis": {"aim": "superiority", "margin": None, "higher_is_better": True},
-        "adjustments": {"dropout": 0.0, "cluster": None, "comparisons": 1},
-        "method": "analytic",
-        "simulation": None,
     }
-    q.update(overrides)
-    return q
+    return example_question(**{**toy_cell, **overrides})
 
 
 def test_the_registry_lists_the_toy_cell_only_while_registered(toy) -> None:

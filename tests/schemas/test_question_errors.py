@@ -452,6 +452,12 @@ CASES = [
         ['must be "one-sided"', "two-sided"],
     ),
     (
+        "one-sided-k-groups",
+        merge(ANOVA, alternative="one-sided"),
+        "alternative",
+        ['must be "two-sided" for continuous × k_groups', "no direction", "one-sided"],
+    ),
+    (
         "alternative-unknown",
         merge(BASE, alternative="greater"),
         "alternative",

@@ -145,7 +145,9 @@ def default_data(q: dict) -> list[dict]:
 
 def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
     r_null = _r(q, "r_null")
-    return [{"family": "bivariate_normal", "r": r_null}], f"correlation set to r_null = {r_null:g}"
+    return [
+        {"family": "bivariate_normal", "r": r_null}
+    ], f"correlation set to the null value {r_null:g}"
 
 
 def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:

@@ -136,14 +136,6 @@ class EffectAxis:
 
 
 @dataclass(frozen=True)
-class Arms:
-    """The simulated groups of a plan: data models, their labels and the record's data block."""
-
-    models: list[dict]
-    labels: list[str]
-
-
-@dataclass(frozen=True)
 class SimulationModel:
     """How a cell is simulated.
 

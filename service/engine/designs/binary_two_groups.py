@@ -373,8 +373,8 @@ def describe(q: dict) -> dict:
     if aim != "superiority":
         what = "non-inferiority" if aim == "noninferiority" else "equivalence (two one-sided tests)"
         notes = [
-            f"One-sided tests at alpha against the margin {margin:g} on the difference "
-            "p_treatment − p_control."
+            f"One-sided tests at alpha against the margin {margin:g} on the difference of the "
+            "treatment and control proportions."
         ]
         if analysis == "score":
             notes.append(
@@ -397,7 +397,7 @@ def describe(q: dict) -> dict:
         return block(
             "normal approximation on the arcsine scale",
             "Cohen (1988), ch. 6",
-            ["h = 2·asin√p_treatment − 2·asin√p_control; Var(2·asin√p̂) ≈ 1/n."],
+            ["h = 2·asin√p₂ − 2·asin√p₁ (treatment, control); Var(2·asin√p̂) ≈ 1/n."],
         )
     if analysis == "unpooled_z":
         return block(

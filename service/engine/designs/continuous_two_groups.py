@@ -327,7 +327,7 @@ def describe(q: dict) -> dict:
         block = noether.method_block(q, analysis, label)
         block["derived"] = derive(q)
         block["notes"].append(
-            "P(Y > X) = Φ(difference / √(sd_control² + sd_treatment²)) for normal outcomes."
+            "P(Y > X) = Φ(difference / √(σ₁² + σ₂²)) for normal outcomes (σ₁, σ₂ the group SDs)."
         )
         return block
     notes = []

@@ -303,10 +303,10 @@ def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
     s = _setup(q)
     if s["events_formula"] == "freedman":
-        name = "log-rank events by Freedman, (z_a + z_b)²(1 + r·HR)² / (r(1 − HR)²)"
+        name = "log-rank events by Freedman, (zα + zβ)²(1 + r·HR)² / (r(1 − HR)²)"
         ref = "Freedman (1982), Stat Med 1:121; Lachin & Foulkes (1986), Biometrics 42:507"
     else:
-        name = "log-rank events by Schoenfeld, (z_a + z_b)² / (p(1 − p)·ln²HR)"
+        name = "log-rank events by Schoenfeld, (zα + zβ)² / (p(1 − p)·ln²HR)"
         ref = "Schoenfeld (1983), Biometrics 39:499; Lachin & Foulkes (1986), Biometrics 42:507"
     return analytic_method(
         "logrank",

@@ -187,26 +187,30 @@ def test_an_invalid_submission_shows_the_message_beside_the_field_and_stores_not
     assert 'value="NGH-2026-114"' in _input(html, "protocol.id")
 
 
-def test_a_missing_department_is_named_beside_its_input(desk, desk_app):
-    design = designs.get("continuous", "two_groups")
-    form = {k: v for k, v in _form_for(design).items() if k != "requester.department"}
-    r = desk("statistician").post(
-        _path("continuous", "two_groups"), form, form_page=_path("continuous", "two_groups")
-    )
-    assert r.status_code == 422
-    block = _field_block(r.get_data(as_text=True), "requester.department")
-    assert 'class="field-error"' in block and "required" in block
+def _without_department(form: dict) -> dict:
+    return {k: v for k, v in form.items() if k != "requester.department"}
 
 
-def test_a_message_on_a_whole_block_sits_beside_its_first_input(desk):
-    # find = power without enrolled numbers: the schema names "question.sample_size".
-    form = {**_form_for(designs.get("continuous", "two_groups")), "question.find": "power"}
-    r = desk("intake").post(
-        _path("continuous", "two_groups"), form, form_page=_path("continuous", "two_groups")
-    )
+def _power_without_sizes(form: dict) -> dict:
+    # find = power without enrolled numbers: the schema names the whole "question.sample_size".
+    return {**form, "question.find": "power"}
+
+
+@pytest.mark.parametrize(
+    "change,beside,message",
+    [
+        (_without_department, "requester.department", "required"),
+        (_power_without_sizes, "question.sample_size.per_group", "is required when find = power"),
+    ],
+    ids=["field", "block"],
+)
+def test_a_refusal_sits_beside_its_input_or_its_blocks_first(desk, change, beside, message):
+    cell = _path("continuous", "two_groups")
+    form = change(_form_for(designs.get("continuous", "two_groups")))
+    r = desk("statistician").post(cell, form, form_page=cell)
     assert r.status_code == 422
-    block = _field_block(r.get_data(as_text=True), "question.sample_size.per_group")
-    assert 'class="field-error"' in block and "is required when find = power" in block
+    block = _field_block(r.get_data(as_text=True), beside)
+    assert 'class="field-error"' in block and message in block
 
 
 def test_a_toy_design_registered_in_a_test_gets_an_intake_page(desk):

@@ -283,13 +283,16 @@ def inputs(design: Any) -> list[Input]:
 
 
 def _number(text: str, integer: bool) -> Any:
-    try:
-        value = float(text)
-    except ValueError:
-        return text  # the schema refuses it, naming the field
-    if integer and value.is_integer():
-        return int(value)
-    return value
+    # As a JSON client would post it: "12" an integer, "12.5" a float (messages echo it so).
+    for parse in (int, float):
+        try:
+            value = parse(text)
+        except ValueError:
+            continue
+        if integer and isinstance(value, float) and value.is_integer():
+            return int(value)
+        return value
+    return text  # not a number: the schema refuses it, naming the field
 
 
 def _value(spec: Input, text: str) -> Any:

@@ -9,6 +9,7 @@ import pytest
 from markupsafe import escape
 from sqlalchemy import func, select
 
+from service.desk import intake_form
 from service.engine import designs
 from service.schemas.catalogue import example
 from service.store.db import session_scope
@@ -249,3 +250,31 @@ def test_intake_refuses_a_form_without_its_csrf_token(desk, desk_app):
 @pytest.mark.parametrize("role", ["auditor", "admin"])
 def test_roles_that_cannot_submit_cannot_use_the_intake_page(desk, role):
     assert desk(role).get("/desk/intake").status_code == 403
+
+
+def test_the_body_leaves_empty_inputs_out_and_reads_numbers_as_a_client_posts_them():
+    design = designs.get("binary", "two_groups")
+    form = {
+        "protocol.id": "NGH-2026-114",
+        "question.alpha": " 0.025 ",
+        "question.target_power": "",
+        "question.sample_size.per_group": "120, 240",
+        "question.analysis_options.continuity_correction": "true",
+        "question.effect.p_treatment": "about a third",
+        "question.adjustments.comparisons": "2",
+        "not.an.input": "ignored",
+    }
+    body = intake_form.body_from_form(design, form)
+    assert body == {
+        "protocol": {"id": "NGH-2026-114"},
+        "question": {
+            "outcome": "binary",
+            "layout": "two_groups",
+            "alpha": 0.025,
+            "sample_size": {"per_group": [120, 240]},
+            "analysis_options": {"continuity_correction": True},
+            # Not a number: passed on as typed, so the schema's own message names it.
+            "effect": {"p_treatment": "about a third"},
+            "adjustments": {"comparisons": 2},
+        },
+    }

@@ -2,7 +2,7 @@
 
 Counters and histograms are prometheus_client objects; when ``PROMETHEUS_MULTIPROC_DIR`` is set
 (every gunicorn and worker process on a host pointing at one empty folder) they are written to
-files there and ``/metrics`` merges them (the library's multiprocess mode). Job counts by kind and
+files there and ``/metrics`` merges them (the library's multiprocess mode). Job counts by job and
 status are read from the database at scrape time, so they are right whatever process asks.
 """
 
@@ -31,13 +31,13 @@ API_LATENCY = Histogram(
 QUEUE_WAIT = Histogram(
     "sizewise_job_queue_wait_seconds",
     "Time from submission (or rerun/exploration request) to the claim that ran the job.",
-    ["kind"],
+    ["job"],
     buckets=_SLOW,
 )
 COMPUTE_TIME = Histogram(
     "sizewise_job_compute_seconds",
-    "Time from claim to stored outcome, by job kind and where it ran (api or worker).",
-    ["kind", "where"],
+    "Time from claim to stored outcome, by job and where it ran (api or worker).",
+    ["job", "where"],
     buckets=_SLOW,
 )
 BUDGET_REFUSALS = Counter(
@@ -53,7 +53,7 @@ WORK_UNITS = Counter(
 
 
 class JobCounts:
-    """A collector reading job counts by kind and status from the database at scrape time."""
+    """A collector reading job counts by job (request, rerun, exploration) and status at scrape time."""
 
     def __init__(self, sessionmaker):
         self.sessionmaker = sessionmaker
@@ -65,7 +65,7 @@ class JobCounts:
         from service.store.jobs import JOB_KINDS
 
         family = GaugeMetricFamily(
-            "sizewise_jobs", "Jobs in the database by kind and status.", labels=["kind", "status"]
+            "sizewise_jobs", "Jobs in the database by job and status.", labels=["job", "status"]
         )
         with session_scope(self.sessionmaker) as session:
             for job in JOB_KINDS.values():

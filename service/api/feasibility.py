@@ -12,30 +12,12 @@ non-finite effect shows.
 from __future__ import annotations
 
 import copy
-import math
-from collections.abc import Mapping
 from typing import Any
 
 from service.engine import EngineError, QuestionError, compute
+from service.schemas.fields import extreme_fields
 
 from .errors import ValidationFailed
-
-# Magnitudes outside this band are named as the likely cause when the numerics fail.
-_LARGE, _SMALL = 1e100, 1e-100
-
-
-def extreme_fields(value: Any, path: str = "question") -> list[str]:
-    """Dotted paths of the numbers in ``value`` far outside double precision's working range."""
-    if isinstance(value, bool):
-        return []
-    if isinstance(value, (int, float)):
-        x = abs(float(value)) if math.isfinite(float(value)) else math.inf
-        return [path] if x > _LARGE or 0 < x < _SMALL else []
-    if isinstance(value, Mapping):
-        return [p for k, v in value.items() for p in extreme_fields(v, f"{path}.{k}")]
-    if isinstance(value, list):
-        return [p for i, v in enumerate(value) for p in extreme_fields(v, f"{path}.{i}")]
-    return []
 
 
 def question_refused(exc: QuestionError) -> ValidationFailed:

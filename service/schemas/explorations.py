@@ -12,6 +12,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from .fields import extreme_fields
+
 
 class ExplorationRefused(Exception):
     """An exploration that does not fit its question or budget; ``errors`` keyed inside the item."""
@@ -41,8 +43,6 @@ def budget_refusal(estimate: int, budget: int, advice: str = EXPLORATION_ADVICE)
 
 def _refuse_extreme_cells(grid: dict) -> None:
     """Refuse grid values whose magnitude no cell could compute with (as at submission)."""
-    from service.api.feasibility import extreme_fields
-
     errors = {}
     for path, values in grid.items():
         extreme = [v for v in values if extreme_fields(v)] if isinstance(values, list) else []

@@ -111,6 +111,24 @@ CORR = Interval(-1, 1, low_open=True, high_open=True)
 REAL = Interval()
 
 
+# Magnitudes outside this band are named as the likely cause when the numerics fail.
+_LARGE, _SMALL = 1e100, 1e-100
+
+
+def extreme_fields(value: Any, path: str = "question") -> list[str]:
+    """Dotted paths of the numbers in ``value`` far outside double precision's working range."""
+    if isinstance(value, bool):
+        return []
+    if isinstance(value, (int, float)):
+        x = abs(float(value)) if math.isfinite(float(value)) else math.inf
+        return [path] if x > _LARGE or 0 < x < _SMALL else []
+    if isinstance(value, Mapping):
+        return [p for k, v in value.items() for p in extreme_fields(v, f"{path}.{k}")]
+    if isinstance(value, list):
+        return [p for i, v in enumerate(value) for p in extreme_fields(v, f"{path}.{i}")]
+    return []
+
+
 # ---------------------------------------------------------------------------------------------
 # Strict fields
 

@@ -24,14 +24,14 @@ def test_job_counts_latency_and_budget_refusals(api, app, client, auth):
     assert run_request_job(first["id"], app.extensions["sizewise"]["config"]) == "computed"
     before = _samples(client, auth)
     # Job counts come from the database: one computed, one still queued.
-    assert before[("sizewise_jobs", (("kind", "request"), ("status", "computed")))] == 1
-    assert before[("sizewise_jobs", (("kind", "request"), ("status", "queued")))] == 1
+    assert before[("sizewise_jobs", (("job", "request"), ("status", "computed")))] == 1
+    assert before[("sizewise_jobs", (("job", "request"), ("status", "queued")))] == 1
     route = (("method", "POST"), ("route", "/v1/requests"), ("status", "202"))
     assert before[("sizewise_api_request_seconds_count", route)] >= 2
     after = _samples(client, auth)
-    # The compute time of the job run above was observed (kind request, on a worker).
+    # The compute time of the job run above was observed (job request, on a worker).
     assert (
-        after[("sizewise_job_compute_seconds_count", (("kind", "request"), ("where", "worker")))]
+        after[("sizewise_job_compute_seconds_count", (("job", "request"), ("where", "worker")))]
         >= 1
     )
 

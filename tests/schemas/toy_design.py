@@ -9,6 +9,7 @@ no source).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from statistics import NormalDist
 
@@ -17,11 +18,11 @@ from service.engine.designs.base import Analysis, Design, Field, Phrases, Soluti
 from service.engine.designs.common import (
     analytic_method,
     make_validate,
-    no_warnings,
     two_group_allocation,
     two_groups,
     values,
 )
+from tests.engine import toy_design as engine_toy
 
 FIELDS = (
     Field(
@@ -88,34 +89,29 @@ def _contrast(q: dict) -> float | None:
     return -math.log(ratio) if ratio else None
 
 
-TOY = Design(
-    outcome="count",
+# The engine tests' single-group toy, changed where two groups differ: one toy skeleton.
+TOY = dataclasses.replace(
+    engine_toy.TOY,
     layout="two_groups",
     label="Count outcome, two groups",
     fields=FIELDS,
     forms=FORMS,
-    solved="rate_ratio",
     analyses=ANALYSES,
     validate=make_validate(FIELDS, FORMS, "rate_ratio"),
     default_analysis=lambda q: "wald_rate",
     groups=two_groups,
     allocation=two_group_allocation,
-    derive=lambda q: {},
     solve_n=solve_n,
     power=power,
     solve_effect=lambda q, per_group, alpha: {"field": "rate_ratio", "value": None},
     describe=lambda q: analytic_method(
         "wald_rate", "Wald test of the rate ratio", "normal, Wald", "toy", [], {}
     ),
-    warnings_for=no_warnings,
-    simulation=None,
     phrases=Phrases(
         effect=lambda q, record: f"a rate ratio of {q['effect'].get('rate_ratio')}",
         assumptions=lambda q: f"a control rate of {q['assumptions'].get('control_rate')}",
     ),
-    example="",
     contrast=_contrast,
-    null_effect=lambda q: 1.0,
 )
 
 

@@ -20,6 +20,7 @@ from service.store import explorations, jobs
 from service.store.db import session_scope
 from service.store.models import ChunkResult, Exploration, Request
 from service.store.types import utcnow
+from tests.conftest import question_body
 from workers import sweeper
 from workers.exploration_tasks import run_exploration_job
 from workers.tasks import run_helper_job, run_request_job
@@ -202,16 +203,12 @@ def test_a_real_worker_runs_the_explorations_posted_with_a_simulated_request(
                     "email": "m.castell@northbridge.example",
                     "department": "Cardiology",
                 },
-                "question": {
-                    "outcome": "continuous",
-                    "layout": "two_groups",
-                    "find": "power",
-                    "sample_size": {"per_group": [30, 30]},
-                    "effect": {"difference": 0.5},
-                    "assumptions": {"sd": 1.0},
-                    "method": "simulation",
-                    "simulation": {"replicates": 2000, "seed": 20240611, "chunk_size": 500},
-                },
+                "question": question_body(
+                    find="power",
+                    sample_size={"per_group": [30, 30]},
+                    method="simulation",
+                    simulation={"replicates": 2000, "seed": 20240611, "chunk_size": 500},
+                ),
                 "explorations": [
                     {"type": "sensitivity_grid", "grid": GRID},
                     {"type": "robustness_panel"},

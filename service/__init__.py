@@ -37,6 +37,9 @@ def create_app(config: dict | None = None) -> Flask:
         "sessions": make_sessionmaker(engine),
     }
     register_api(app)
+    from service.desk import init_desk
+
+    init_desk(app)
     # The development server logs request lines; report-link secrets must not reach them.
     from service.access_log import redact_werkzeug_log
 

@@ -159,6 +159,19 @@ SETTINGS: tuple[Setting, ...] = (
         "Key that signs report links (HMAC-SHA256); every API process must share it. Empty: a "
         "random key is made once and kept in secret_key under SIZEWISE_VAR_DIR (or var/).",
     ),
+    Setting(
+        "SIZEWISE_DESK_SECURE_COOKIE",
+        True,
+        flag,
+        "The desk's session cookie is sent over HTTPS only; make run turns it off for its "
+        "plain-HTTP address on 127.0.0.1.",
+    ),
+    Setting(
+        "SIZEWISE_DESK_IDLE_MINUTES",
+        30,
+        int,
+        "A desk session unused for this many minutes ends; the next page asks to sign in again.",
+    ),
 )
 
 

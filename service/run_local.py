@@ -88,6 +88,8 @@ def local_environment(base: Mapping[str, str] | None = None) -> dict[str, str]:
     # filesystem:///abs/path puts the broker's folders under that path (service.config).
     env.setdefault("SIZEWISE_BROKER_URL", f"filesystem://{folder / 'broker'}")
     env.setdefault("SIZEWISE_PORT", "8000")
+    # The launcher serves plain HTTP on 127.0.0.1, where a Secure cookie would never be sent.
+    env.setdefault("SIZEWISE_DESK_SECURE_COOKIE", "0")
     env["SIZEWISE_VAR_DIR"] = str(folder)
     args = f"--bind 127.0.0.1:{env['SIZEWISE_PORT']}"
     if _gunicorn_has_control_socket():
@@ -302,7 +304,8 @@ def print_banner(port: int, folder: Path, token: str) -> None:
     url = f"http://127.0.0.1:{port}"
     print(
         f"\nsizewise is running at {url}  (Ctrl-C stops it)\n"
-        f"demo statistician token (new at every start): {token}\n\n"
+        f"demo statistician token (new at every start): {token}\n"
+        f"the desk: open {url}/desk/ and sign in with that token\n\n"
         f"  export SIZEWISE_TOKEN={token}\n"
         f'  curl -s -X POST {url}/v1/requests -H "Authorization: Bearer $SIZEWISE_TOKEN" \\\n'
         f"       -H 'Content-Type: application/json' --data @{body_file}\n"

@@ -35,6 +35,7 @@ from service.store.models import (  # noqa: E402
     ApiToken,
     AuditEvent,
     ChunkResult,
+    DeskSession,
     Request,
     Rerun,
     Result,
@@ -90,7 +91,16 @@ def empty_tables(url: str) -> None:
     """Delete every row (children first) so each test starts from an empty database."""
     engine = make_engine(url)
     with engine.begin() as conn:
-        for model in (ChunkResult, Result, Rerun, AuditEvent, Request, ApiToken, TokenSpend):
+        for model in (
+            ChunkResult,
+            Result,
+            Rerun,
+            AuditEvent,
+            Request,
+            DeskSession,
+            ApiToken,
+            TokenSpend,
+        ):
             conn.execute(delete(model))
     engine.dispose()
 

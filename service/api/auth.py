@@ -103,6 +103,34 @@ ACCESS: dict[str, frozenset[str]] = {
     "metrics.metrics_page": frozenset({ADMIN}),
 }
 
+# The desk (service/desk): pages signed into with a session cookie instead of a bearer header.
+# Each page or form does what an API endpoint does, so it takes that endpoint's roles: one table.
+PAGES_PREFIX = "desk."
+PAGES_PUBLIC = frozenset({"desk.sign_in_form", "desk.sign_in", "desk.sign_out"})
+PAGE_MIRRORS: dict[str, str] = {
+    "desk.queue": "requests.list_requests",
+    "desk.request_page": "requests.get_request",
+    "desk.assign": "requests.assign_request",
+    "desk.comment": "requests.comment_request",
+    "desk.approve": "requests.approve_request",
+    "desk.return_request": "requests.return_request",
+    "desk.cancel": "requests.cancel_request",
+    "desk.explore": "reports.explorations.create_exploration",
+    "desk.rerun": "requests.create_rerun",
+    "desk.tokens": "tokens.list_tokens",
+    "desk.issue": "tokens.create_token",
+    "desk.revoke_token": "tokens.revoke_token",
+    # The intake page submits a request as POST /v1/requests does.
+    "desk.intake_index": "requests.submit_request",
+    "desk.intake_form_page": "requests.submit_request",
+    "desk.intake_submit": "requests.submit_request",
+}
+ACCESS.update({page: ACCESS[api] for page, api in PAGE_MIRRORS.items()})
+# The desk's front door sends each role where it may go.
+ACCESS["desk.home"] = ANY_ROLE
+# The desk installs the function that reads its session cookie (service.desk.session).
+SESSION_CALLER = "session_caller"
+
 REALM = 'Bearer realm="sizewise"'
 # The pages a signed report link opens (GET only), and nothing else.
 LINK_ENDPOINTS = frozenset({"reports.request_report", "reports.curve_svg", "reports.curve_png"})
@@ -348,24 +376,37 @@ def _link_caller(token: str) -> Caller:
     return Caller(f"link:{request_id}", LINK_ROLE, LINK_ROLE)
 
 
+def _looks_like(secret: str) -> bool:
+    return secret.startswith(token_store.TOKEN_PREFIX) and len(secret) <= 200
+
+
+def caller_for_digest(digest: str) -> Caller | None:
+    """The caller of the active token whose secret hashes to ``digest``, else None (revoked).
+
+    The one token lookup: bearer calls and the desk's signed-in pages both go through it, so a
+    revocation reaches both the same way (at once here, within TOKEN_CACHE_SECONDS elsewhere).
+    """
+    cache = token_cache()
+    caller = cache.get(digest)
+    if caller is not None:
+        return caller
+    # The lookup also writes last_used_at (at most once a minute), so a cached token's last
+    # use is recorded within TOKEN_CACHE_SECONDS of that resolution.
+    with session_scope(sessions()) as session:
+        row = token_store.verify_digest(session, digest)
+        caller = Caller(row.id, row.name, row.role) if row is not None else None
+    if caller is not None:
+        cache.put(digest, caller)
+    return caller
+
+
 def _verified_caller(endpoint: str) -> Caller:
     """The caller of a valid report link or bearer token; Unauthorized otherwise."""
     link = request.args.get(LINK_PARAM)
     if link is not None and endpoint in LINK_ENDPOINTS and request.method in ("GET", "HEAD"):
         return _link_caller(link)
     secret = _bearer_secret()
-    cache = token_cache()
-    key = token_store.hash_secret(secret)
-    caller = cache.get(key)
-    if caller is not None:
-        return caller
-    # The lookup also writes last_used_at (at most once a minute), so a cached token's last
-    # use is recorded within TOKEN_CACHE_SECONDS of that resolution.
-    with session_scope(sessions()) as session:
-        row = token_store.verify_token(session, secret)
-        caller = Caller(row.id, row.name, row.role) if row is not None else None
-    if caller is not None:
-        cache.put(key, caller)
+    caller = caller_for_digest(token_store.hash_secret(secret)) if _looks_like(secret) else None
     if caller is None:
         raise Unauthorized(
             "the bearer token is not valid: unknown or revoked",
@@ -379,19 +420,35 @@ def authenticate() -> None:
     """Before every request: verify the bearer token (or report link) and the endpoint's role."""
     endpoint = request.endpoint
     # No endpoint means a 404 or 405 from routing; nothing is served, so nothing to protect.
-    if endpoint is None or endpoint in PUBLIC:
+    if endpoint is None or endpoint in PUBLIC or endpoint in PAGES_PUBLIC:
         return
-    try:
-        caller = _verified_caller(endpoint)
-    except Unauthorized:
-        # Calls that fail authentication never reach the per-token limit: count their address.
-        _limit_unauthenticated()
-        raise
+    if endpoint.startswith(PAGES_PREFIX):
+        from flask import current_app
+
+        # A page of the desk: the session cookie names the token (a KeyError fails closed).
+        caller = current_app.extensions["sizewise"][SESSION_CALLER]()
+    else:
+        try:
+            caller = _verified_caller(endpoint)
+        except Unauthorized:
+            # Calls that fail authentication never reach the per-token limit: count their address.
+            _limit_unauthenticated()
+            raise
     g.caller = caller
     if caller.role == LINK_ROLE:
         # The link names its one request, so neither the role table nor ownership applies.
         return
-    allowed = ACCESS.get(endpoint, frozenset())
+    authorize(caller, endpoint)
+
+
+def allowed_roles(endpoint: str) -> frozenset[str]:
+    """The roles the access table allows on ``endpoint`` (none when it is missing)."""
+    return ACCESS.get(endpoint, frozenset())
+
+
+def authorize(caller: Caller, endpoint: str) -> None:
+    """Refuse (403) a role the access table does not allow; hide others' requests from intake."""
+    allowed = allowed_roles(endpoint)
     if caller.role not in allowed:
         names = ", ".join(r for r in TOKEN_ROLES if r in allowed) or "none"
         raise Forbidden(

@@ -106,8 +106,28 @@ def counterpart_record(question: dict) -> dict | None:
 def create_exploration(request_id: str):
     """Store an exploration of the request and publish it when the request has a result."""
     reject_query()
-    actor = current_actor()
     _raw, item = load_body(shared(ExplorationCreateSchema))
+    exploration_id = start_exploration(request_id, item)
+    with session_scope(sessions()) as session:
+        body = render(session.get(Exploration, exploration_id))
+    return located(
+        body,
+        202,
+        url_for(
+            "reports.explorations.get_exploration",
+            request_id=request_id,
+            exploration_id=exploration_id,
+        ),
+    )
+
+
+def start_exploration(request_id: str, item: dict) -> str:
+    """Store a validated exploration item (type, grid or replicates), charge and publish it.
+
+    The API's and the desk's one way in: 409 for a failed or cancelled request, 422 for an
+    exploration the request cannot take or over the budget. Returns the exploration id.
+    """
+    actor = current_actor()
     with session_scope(sessions()) as session:
         row = load_request(session, request_id)
         if row.status in _NO_NEW_EXPLORATION:
@@ -123,17 +143,7 @@ def create_exploration(request_id: str):
         charge(session, [(created.stored_kind, exploration_id, estimate)])
     if record is not None:
         publish_job("exploration", exploration_id)
-    with session_scope(sessions()) as session:
-        body = render(session.get(Exploration, exploration_id))
-    return located(
-        body,
-        202,
-        url_for(
-            "reports.explorations.get_exploration",
-            request_id=request_id,
-            exploration_id=exploration_id,
-        ),
-    )
+    return exploration_id
 
 
 @bp.get("/requests/<request_id>/explorations")

@@ -15,7 +15,7 @@ from marshmallow import Schema
 from service.schemas import question_json_schema, register_openapi_types
 from service.schemas.api import ProblemSchema
 
-from .auth import PUBLIC
+from .auth import PAGES_PREFIX, PUBLIC
 from .docs import Operation, operation
 from .errors import PROBLEM_MEDIA_TYPE
 
@@ -122,8 +122,8 @@ def build_spec(app: Flask) -> dict:
         },
     )
     for rule in sorted(app.url_map.iter_rules(), key=lambda r: r.rule):
-        if rule.endpoint == "static":
-            continue
+        if rule.endpoint == "static" or rule.endpoint.startswith(PAGES_PREFIX):
+            continue  # the desk's pages are for browsers, not part of the API
         view = app.view_functions[rule.endpoint]
         op: Operation | None = getattr(view, "openapi", None)
         if op is None:

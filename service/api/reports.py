@@ -70,10 +70,18 @@ def request_report(request_id: str):
     """Render the protocol-ready report: answer, steps, justification, curve, explorations, cautions."""
     _page_query()
     detail, done = _detail_with_result(request_id)
+    return Response(report_html(detail, done), mimetype="text/html")
+
+
+def report_html(detail: dict, done: dict) -> str:
+    """The report page of a request with a result and its latest finished explorations.
+
+    The API's report and the desk's request page both show it.
+    """
     record = detail["result"]
     grid = done.get("sensitivity_grid")
     pending = [e for e in detail["explorations"] if e["status"] in ("queued", "running")]
-    html = render_report(
+    return render_report(
         detail,
         record,
         curve_svg=power_curve_svg(curve_points(record)),
@@ -82,7 +90,6 @@ def request_report(request_id: str):
         robustness=done.get("robustness_panel"),
         pending=pending,
     )
-    return Response(html, mimetype="text/html")
 
 
 @bp.get("/requests/<request_id>/curve.svg")

@@ -49,7 +49,7 @@ _KEY_PATTERN = re.compile(r"^[\x21-\x7e]{1,200}$")
 BODY_ERRORS = (400, 404, 409, 413, 415, 422, 500, 503)
 
 
-def _refused(exc: store.TransitionRefused) -> Conflict:
+def transition_refused(exc: store.TransitionRefused) -> Conflict:
     return Conflict(str(exc), current_status=exc.status, allowed_from=list(exc.allowed_from))
 
 
@@ -63,7 +63,7 @@ def _transition(request_id: str, schema, change, *, optional: bool = False):
         try:
             change(session, row, actor, data)
         except store.TransitionRefused as exc:
-            raise _refused(exc) from None
+            raise transition_refused(exc) from None
         return jsonify(render.request_detail(session, row))
 
 
@@ -137,15 +137,25 @@ def _created(body: dict, status: int):
 def submit_request():
     """Store a new request and publish it to the workers."""
     reject_query()
-    actor = current_actor()
     key = _idempotency_key()
-    raw = raw_json_body()
+    body, status = submit(raw_json_body(), key)
+    return _created(body, status)
+
+
+def submit(raw: object, key: str | None = None) -> tuple[dict, int]:
+    """Validate, store and answer (or queue) one submission; return (request detail, status).
+
+    The one way in for POST /v1/requests and the intake page: the same schema (marshmallow's
+    ValidationError, or ValidationFailed naming the field), the same budget and the same store.
+    Status 200 is an idempotent replay of ``key``'s earlier request, 202 a new one.
+    """
+    actor = current_actor()
     digest = store.body_digest(raw)
     if key is not None:
         with session_scope(sessions()) as session:
             earlier = _replay(session, key, digest)
         if earlier is not None:
-            return _created(earlier, 200)
+            return earlier, 200
     data = shared(RequestCreateSchema).load(raw)
     answer = check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
@@ -178,14 +188,13 @@ def submit_request():
             earlier = _replay(session, key, digest)
         if earlier is None:
             raise
-        return _created(earlier, 200)
+        return earlier, 200
     # A closed-form answer costs milliseconds: compute it here rather than queue it.
     here = question.get("method") != "simulation" and settings().get("ANSWER_AT_SUBMISSION", True)
     if not here or answer_now(request_id, answer) in (None, "skipped"):
         publish_job("request", request_id)
     with session_scope(sessions()) as session:
-        body = render.request_detail(session, store.get_request(session, request_id))
-    return _created(body, 202)
+        return render.request_detail(session, store.get_request(session, request_id)), 202
 
 
 @bp.get("/requests")
@@ -298,11 +307,16 @@ def _four_eyes(session, row) -> None:
         )
 
 
+def review_decision(session, row, actor: str, decision: str, note: str):
+    """Approve (four-eyes checked) or return a computed request: the API's and the desk's way."""
+    if decision == "approve":
+        _four_eyes(session, row)
+    return store.review(session, row, actor, decision, note)
+
+
 def _review(request_id: str, decision: str):
     def change(session, row, actor, data):
-        if decision == "approve":
-            _four_eyes(session, row)
-        return store.review(session, row, actor, decision, data["note"])
+        return review_decision(session, row, actor, decision, data["note"])
 
     return _transition(request_id, ReviewNoteSchema(), change)
 
@@ -347,22 +361,28 @@ def return_request(request_id: str):
 def create_rerun(request_id: str):
     """Queue a rerun of a request that has a result."""
     reject_query()
-    actor = current_actor()
     _raw, data = load_body(RerunCreateSchema(), optional=True)
-    with session_scope(sessions()) as session:
-        row = load_request(session, request_id)
-        try:
-            rerun_id = store.create_rerun(session, row, actor, data.get("note")).id
-        except store.ResultMissing as exc:
-            raise Conflict(str(exc), current_status=exc.status) from None
-        # A rerun simulates again: the auditor's token pays like any other.
-        charge(session, [("rerun", rerun_id, estimate_cost(row.question))])
-    publish_job("rerun", rerun_id)
+    rerun_id = start_rerun(request_id, data.get("note"))
     with session_scope(sessions()) as session:
         body = render.rerun(store.get_rerun(session, request_id, rerun_id))
     return located(
         body, 202, url_for("requests.get_rerun", request_id=request_id, rerun_id=rerun_id)
     )
+
+
+def start_rerun(request_id: str, note: str | None) -> str:
+    """Store a rerun of a request with a result, charge it, publish it; return its id (or 409)."""
+    actor = current_actor()
+    with session_scope(sessions()) as session:
+        row = load_request(session, request_id)
+        try:
+            rerun_id = store.create_rerun(session, row, actor, note).id
+        except store.ResultMissing as exc:
+            raise Conflict(str(exc), current_status=exc.status) from None
+        # A rerun simulates again: the auditor's token pays like any other.
+        charge(session, [("rerun", rerun_id, estimate_cost(row.question))])
+    publish_job("rerun", rerun_id)
+    return rerun_id
 
 
 @bp.get("/requests/<request_id>/reruns")

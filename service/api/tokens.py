@@ -84,15 +84,7 @@ def create_token():
     """Create a token of the posted role and return it with its secret."""
     reject_query()
     _raw, data = load_body(TokenCreateSchema())
-    try:
-        with session_scope(sessions()) as session:
-            token_id, secret = store.create_token(
-                session, data["role"], data["name"], actor=_actor()
-            )
-            body = _render(store.get_token(session, token_id))
-    except store.TokenInputError as exc:
-        raise ValidationFailed(str(exc), errors={exc.field: [str(exc)]}) from None
-    body["token"] = secret
+    body = issue_token(data["role"], data["name"])
     response = jsonify(body)
     response.status_code = 201
     # The secret must not linger in caches or proxies.
@@ -110,8 +102,7 @@ def create_token():
 def list_tokens():
     """Return every token, oldest first, revoked ones included."""
     reject_query()
-    with session_scope(sessions()) as session:
-        return jsonify({"items": [_render(row) for row in store.list_tokens(session)]})
+    return jsonify({"items": all_tokens()})
 
 
 @bp.post("/tokens/<token_id>/revoke")
@@ -125,6 +116,29 @@ def list_tokens():
 def revoke_token(token_id: str):
     """Revoke the token and return it."""
     reject_query()
+    return jsonify(revoke(token_id))
+
+
+def issue_token(role: str, name: str) -> dict:
+    """Issue a token (the API's and the desk's way) and return it with its secret, shown once."""
+    try:
+        with session_scope(sessions()) as session:
+            token_id, secret = store.create_token(session, role, name, actor=_actor())
+            body = _render(store.get_token(session, token_id))
+    except store.TokenInputError as exc:
+        raise ValidationFailed(str(exc), errors={exc.field: [str(exc)]}) from None
+    body["token"] = secret
+    return body
+
+
+def all_tokens() -> list[dict]:
+    """Every token, oldest first, without secrets."""
+    with session_scope(sessions()) as session:
+        return [_render(row) for row in store.list_tokens(session)]
+
+
+def revoke(token_id: str) -> dict:
+    """Revoke the token (404 when unknown) and return it; its desk sessions end with it."""
     with session_scope(sessions()) as session:
         row = (
             store.revoke_token(session, token_id, actor=_actor())
@@ -136,4 +150,4 @@ def revoke_token(token_id: str):
         rendered = _render(row)
     # Committed: this process stops accepting it now, the others within TOKEN_CACHE_SECONDS.
     token_cache().forget(token_id)
-    return jsonify(rendered)
+    return rendered

@@ -266,3 +266,20 @@ class TokenSpend(Base):
     subject_id: Mapped[str] = mapped_column(String(32))
     cost: Mapped[int] = mapped_column(BigInteger)
     spent_at: Mapped[Stamp] = mapped_column(default=utcnow, index=True)
+
+
+class DeskSession(Base):
+    """A browser session of the desk: the cookie holds a random secret, the row its SHA-256.
+
+    The row names the token that signed in (never its secret); every page checks that token
+    again, the idle time since ``last_seen_at``, and ``ended_at`` (sign-out, expiry, revocation).
+    """
+
+    __tablename__ = "desk_sessions"
+
+    id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    token_id: Mapped[str] = mapped_column(ForeignKey("api_tokens.id"), index=True)
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    last_seen_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    ended_at: Mapped[datetime | None]
+    end_reason: Mapped[str | None] = mapped_column(String(16))

@@ -16,6 +16,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from .audit import append_event
+from .desk_sessions import end_sessions_of
 from .models import TOKEN_ROLES, ApiToken, TokenSpend
 from .types import utcnow
 
@@ -102,7 +103,15 @@ def verify_token(session: Session, secret: str) -> ApiToken | None:
     if not isinstance(secret, str) or not secret.startswith(TOKEN_PREFIX) or len(secret) > 200:
         return None
     # Looking up the hash (not the secret) keeps the comparison off the secret itself.
-    row = session.scalar(select(ApiToken).where(ApiToken.secret_sha256 == hash_secret(secret)))
+    return verify_digest(session, hash_secret(secret))
+
+
+def verify_digest(session: Session, digest: str) -> ApiToken | None:
+    """Return the active token whose secret hashes to ``digest`` (and note its use), else None.
+
+    The desk's sessions hold no secret, only their token; they are checked through this lookup.
+    """
+    row = session.scalar(select(ApiToken).where(ApiToken.secret_sha256 == digest))
     if row is None or row.revoked_at is not None:
         return None
     now = utcnow()
@@ -126,6 +135,7 @@ def revoke_token(session: Session, token_id: str, *, actor: str = "system") -> A
         row.revoked_at = utcnow()
         session.flush()
         _token_event(session, row, "token_revoked", actor)
+        end_sessions_of(session, token_id)  # its desk sessions end with it
     return row
 
 

@@ -278,6 +278,25 @@ class DatabaseError(Exception):
     """The configured database cannot be used (exit 1)."""
 
 
+def _require_sqlite_file(url: str) -> None:
+    """Refuse a SQLite database file that does not exist (opening it would create an empty one)."""
+    from pathlib import Path
+
+    from sqlalchemy.engine import make_url
+
+    parsed = make_url(url)
+    if parsed.get_backend_name() != "sqlite" or parsed.database in (None, "", ":memory:"):
+        return
+    path = Path(parsed.database)
+    if not path.exists():
+        raise DatabaseError(
+            f"the database file {path} does not exist. sizewise reads SIZEWISE_DATABASE_URL, "
+            "else sizewise.db under SIZEWISE_VAR_DIR (or the repository's var/): check them, or "
+            "create the database with `make run` (it migrates it and loads the demo) or "
+            "`.venv/bin/alembic upgrade head` in the repository with the same settings"
+        )
+
+
 @contextmanager
 def _database_session() -> Iterator[Any]:
     """A committed-on-success session on the configured database; its errors become one line."""
@@ -287,6 +306,7 @@ def _database_session() -> Iterator[Any]:
     from service.store.db import make_engine, make_sessionmaker, session_scope
 
     url = load_config()["DATABASE_URL"]
+    _require_sqlite_file(url)
     engine = make_engine(url)
     try:
         with session_scope(make_sessionmaker(engine)) as session:
@@ -294,7 +314,8 @@ def _database_session() -> Iterator[Any]:
     except SQLAlchemyError as exc:
         shown = engine.url.render_as_string(hide_password=True)
         raise DatabaseError(
-            f"cannot use the database {shown} (is it migrated?): {type(exc).__name__}: "
+            f"cannot use the database {shown} (is it migrated? `alembic upgrade head`, run in "
+            f"the repository with the same settings, migrates it): {type(exc).__name__}: "
             f"{str(getattr(exc, 'orig', exc)).splitlines()[0]}"
         ) from None
     finally:
@@ -436,6 +457,12 @@ def _report_source(source: str) -> tuple[dict, dict]:
                 "id": Path(source).stem if source != "-" else "local",
                 "status": "computed",
             }, data
+        if isinstance(data, dict) and "find" in data:
+            # A question names its unknown; a record holds it under "question".
+            raise InputError(
+                f"{source} is a question, not a result record: compute it first, e.g. "
+                f"`sizewise compute {source} > record.json`, then `sizewise report record.json`"
+            )
         raise InputError(f"{source}: neither a result record nor a request with a result")
     from service.api.render import request_detail
     from service.store.models import Request

@@ -20,6 +20,8 @@ from collections.abc import Mapping, Sequence
 from datetime import timedelta
 from pathlib import Path
 
+from service.config import database_url_in
+
 REPO_ROOT = Path(__file__).resolve().parents[1]
 
 # argv[0] "python" is the image's interpreter in docker-compose; here it becomes sys.executable.
@@ -84,7 +86,7 @@ def local_environment(base: Mapping[str, str] | None = None) -> dict[str, str]:
     """Return the child environment: embedded database and broker under var/ unless already set."""
     env = dict(os.environ if base is None else base)
     folder = Path(env.get("SIZEWISE_VAR_DIR") or REPO_ROOT / "var").resolve()
-    env.setdefault("SIZEWISE_DATABASE_URL", f"sqlite:///{folder / 'sizewise.db'}")
+    env.setdefault("SIZEWISE_DATABASE_URL", database_url_in(folder))
     # filesystem:///abs/path puts the broker's folders under that path (service.config).
     env.setdefault("SIZEWISE_BROKER_URL", f"filesystem://{folder / 'broker'}")
     env.setdefault("SIZEWISE_PORT", "8000")

@@ -14,7 +14,7 @@ from collections.abc import Callable
 
 from . import adjust, cluster, designs, implied
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
-from .records import CAUTIONS, RECORD_VERSION, seal, versions
+from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
 
 Executor = Callable[[list[dict]], list[dict]]
 SMALL_ARM = 10  # below this per arm, large-sample approximations and simulated tests are fragile
@@ -240,6 +240,7 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     repro["versions"] = versions()
     record["reproducibility"] = repro
     record["warnings"].extend(_warnings(design, q, analysed))
+    record["warnings"].extend(size_warnings(record))
     return record
 
 

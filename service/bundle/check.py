@@ -206,6 +206,19 @@ def _result_event(bundle: dict, actual: str, verdict: Verdict) -> None:
         )
 
 
+def exported_event_hash(event: dict) -> str:
+    """The chain hash of an event as the bundle holds it (the store's own formula)."""
+    return chain_hash(
+        event.get("prev_sha256"),
+        event["id"],
+        event["request_id"],
+        event["actor"],
+        event["action"],
+        event.get("detail"),
+        event["created_at"],
+    )
+
+
 def _events(bundle: dict, verdict: Verdict) -> None:
     request_id = bundle["request"]["id"]
     bad = []
@@ -214,15 +227,7 @@ def _events(bundle: dict, verdict: Verdict) -> None:
         if event.get("request_id") != request_id:
             bad.append(f"{label} belongs to request {event.get('request_id')!r}")
             continue
-        actual = chain_hash(
-            event.get("prev_sha256"),
-            event["id"],
-            event["request_id"],
-            event["actor"],
-            event["action"],
-            event.get("detail"),
-            event["created_at"],
-        )
+        actual = exported_event_hash(event)
         if actual != event["sha256"]:
             bad.append(
                 f"{label}: its content hashes to {_short(actual)}, not its sha256 "

@@ -18,9 +18,9 @@ import pytest
 
 import service.cli as cli
 from service.bundle import FORMAT, LOCK_FILE
-from service.bundle.check import FAILED, OK, verify_bundle
+from service.bundle.check import FAILED, OK, exported_event_hash, verify_bundle
 from service.engine.records import record_hash
-from service.store.chain import chain_hash, content_hash
+from service.store.chain import content_hash
 from workers.tasks import run_request_job
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "service" / "examples"
@@ -96,15 +96,7 @@ def test_the_bundle_holds_what_an_auditor_needs(bundle):
     assert [e["action"] for e in events][:1] == ["submitted"]
     assert "computed" in [e["action"] for e in events]
     for event in events:
-        assert event["sha256"] == chain_hash(
-            event["prev_sha256"],
-            event["id"],
-            event["request_id"],
-            event["actor"],
-            event["action"],
-            event["detail"],
-            event["created_at"],
-        )
+        assert event["sha256"] == exported_event_hash(event)
     chain = bundle["audit"]["chain"]
     # The other request's events sit between this one's: present as links only.
     assert len(chain) > len(events)
@@ -201,15 +193,7 @@ def test_a_broken_chain_link_is_named(bundle, tmp_path, capsys):
     # to the event before it does not.
     event = events[-1]
     event["prev_sha256"] = "0" * 64
-    event["sha256"] = chain_hash(
-        event["prev_sha256"],
-        event["id"],
-        event["request_id"],
-        event["actor"],
-        event["action"],
-        event["detail"],
-        event["created_at"],
-    )
+    event["sha256"] = exported_event_hash(event)
     link = next(x for x in tampered["audit"]["chain"] if x["id"] == event["id"])
     link.update(prev_sha256=event["prev_sha256"], sha256=event["sha256"])
     code, out, _err = _cli(tmp_path, tampered, capsys)

@@ -21,7 +21,7 @@ from service.bundle import FORMAT, LOCK_FILE
 from service.bundle.check import FAILED, OK, exported_event_hash, verify_bundle
 from service.engine.records import record_hash
 from service.store.chain import content_hash
-from workers.tasks import run_request_job
+from workers.tasks import run_request_job, run_rerun_job
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "service" / "examples"
 SIZEWISE = Path(sys.executable).with_name("sizewise")
@@ -50,11 +50,21 @@ def _bundle(client, auth, request_id: str) -> dict:
 
 @pytest.fixture
 def bundle(app, api, client, auth) -> dict:
-    """The bundle of an analytic request whose events interleave with another request's."""
+    """The bundle of a reviewed analytic request whose events interleave with another request's."""
     first = api.submit(api.request_body(_example("northbridge_bp_trial.json"))).get_json()["id"]
     other = _computed(app, api, "northbridge_wound_infection.json")
     assert run_request_job(first, app.extensions["sizewise"]["config"]) == "computed"
     assert other != first
+    for path, body in (
+        ("comments", {"text": "SD from the 2024 clinic audit?"}),
+        ("assign", {"to": "j.moreau"}),
+        ("approve", {"note": "Assumptions match the protocol."}),
+    ):
+        r = api.post(f"/v1/requests/{first}/{path}", body)
+        assert r.status_code in (200, 201), r.get_json()
+    r = api.post(f"/v1/requests/{first}/reruns", role="auditor", name="k.ito")
+    assert r.status_code == 202, r.get_json()
+    assert run_rerun_job(r.get_json()["id"], app.extensions["sizewise"]["config"]) == "done"
     return _bundle(client, auth, first)
 
 
@@ -93,8 +103,9 @@ def test_the_bundle_holds_what_an_auditor_needs(bundle):
     assert {"numpy", "scipy", "sizewise", "python"} <= set(env["exported_with"])
     assert env["lock_file"] == LOCK_FILE
     events = bundle["audit"]["events"]
-    assert [e["action"] for e in events][:1] == ["submitted"]
-    assert "computed" in [e["action"] for e in events]
+    actions = [e["action"] for e in events]
+    assert actions[0] == "submitted"
+    assert {"computed", "comment", "assigned", "approved", "rerun_done"} <= set(actions), actions
     for event in events:
         assert event["sha256"] == exported_event_hash(event)
     chain = bundle["audit"]["chain"]

@@ -67,6 +67,8 @@ class Verdict:
 
 _EVENT_FIELDS = {
     "id": int,
+    "request_id": str,
+    "detail": dict,
     "actor": str,
     "action": str,
     "created_at": str,
@@ -86,6 +88,10 @@ def _need(data: Any, path: str, kind: type | tuple[type, ...]) -> Any:
 def _article(name: str) -> str:
     words = {"dict": "JSON object", "list": "JSON array", "str": "string", "int": "integer"}
     return " or ".join(f"a {words.get(n, n)}" for n in name.split(" or "))
+
+
+def _mapping(value: Any) -> dict:
+    return dict(value) if isinstance(value, dict) else {}
 
 
 def check_shape(bundle: Any) -> dict:
@@ -157,7 +163,7 @@ def _stored_hash(verdict, name, event, key, value, what) -> None:
     if event is None:
         verdict.add(name, False, "the bundle has no 'submitted' event to compare with")
         return
-    recorded = (event.get("detail") or {}).get(key)
+    recorded = event["detail"].get(key)
     if recorded is None:
         verdict.add(name, None, f"event {event['id']} predates hashes of the {what}")
         return
@@ -176,7 +182,7 @@ def _stored_hash(verdict, name, event, key, value, what) -> None:
 def _seed(bundle: dict, submitted: dict | None, verdict: Verdict) -> None:
     seed = bundle.get("seed")
     found = []
-    if submitted is not None and "seed" in (submitted.get("detail") or {}):
+    if submitted is not None and "seed" in submitted["detail"]:
         found.append((f"event {submitted['id']} (submitted)", submitted["detail"]["seed"]))
     record_seed = (bundle["record"].get("reproducibility") or {}).get("seed")
     found.append(("the record", record_seed))
@@ -192,7 +198,7 @@ def _result_event(bundle: dict, actual: str, verdict: Verdict) -> None:
     if computed is None:
         verdict.add("result event", False, "the bundle has no 'computed' event")
         return
-    recorded = (computed.get("detail") or {}).get("record_sha256")
+    recorded = computed["detail"].get("record_sha256")
     if recorded == actual:
         verdict.add(
             "result event", True, f"event {computed['id']} (computed) holds the record hash"
@@ -214,7 +220,7 @@ def exported_event_hash(event: dict) -> str:
         event["request_id"],
         event["actor"],
         event["action"],
-        event.get("detail"),
+        event["detail"],
         event["created_at"],
     )
 
@@ -224,8 +230,8 @@ def _events(bundle: dict, verdict: Verdict) -> None:
     bad = []
     for event in bundle["audit"]["events"]:
         label = f"event {event['id']} ({event['action']})"
-        if event.get("request_id") != request_id:
-            bad.append(f"{label} belongs to request {event.get('request_id')!r}")
+        if event["request_id"] != request_id:
+            bad.append(f"{label} belongs to request {event['request_id']!r}")
             continue
         actual = exported_event_hash(event)
         if actual != event["sha256"]:
@@ -300,7 +306,7 @@ def verify_bundle(bundle: Any, progress: Callable[[float], None] | None = None) 
     """Check every hash of ``bundle`` and recompute its record; BundleError if it is no bundle."""
     check_shape(bundle)
     verdict = Verdict(
-        computed_with=dict(bundle["environment"].get("computed_with") or {}),
+        computed_with=_mapping(bundle["environment"].get("computed_with")),
         verified_with=environment(),
     )
     actual = _record_hash(bundle, verdict)

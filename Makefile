@@ -5,14 +5,17 @@ PY := $(VENV)/bin/python
 # The stamp is newer than pyproject.toml once the project is installed; a changed pyproject reinstalls.
 STAMP := $(VENV)/.sizewise-installed
 PYTEST_ARGS ?=
+# The exact versions the service runs with; installs take them when the file is there.
+LOCK := service/deploy/requirements.lock
+LOCK_PIN = $(if $(wildcard $(LOCK)),-c $(LOCK))
 
-.PHONY: install run test bench bench-service lint
+.PHONY: install run test bench bench-service lint lock
 
 $(PY):
 	$(PYTHON) -m venv $(VENV)
 
-$(STAMP): pyproject.toml | $(PY)
-	$(PY) -m pip install -e '.[test]'
+$(STAMP): pyproject.toml $(wildcard $(LOCK)) | $(PY)
+	$(PY) -m pip install -e '.[test]' $(LOCK_PIN)
 	touch $(STAMP)
 
 install: $(STAMP)
@@ -36,3 +39,14 @@ bench-service: $(STAMP)
 lint: $(STAMP)
 	$(VENV)/bin/ruff check .
 	$(VENV)/bin/ruff format --check .
+
+# Refresh the lock from what .venv runs: pyproject's dependencies installed (new ones at the newest
+# version allowed, installed ones kept), then frozen. Take a newer version of a package with
+# `.venv/bin/pip install -U NAME` first.
+lock: | $(PY)
+	$(PY) -m pip install -e '.[test]'
+	{ echo "# The exact versions sizewise runs with: 'make lock' writes this file (pip freeze"; \
+	  echo "# --exclude-editable of .venv) on Python $$($(PY) -c 'import platform; print(platform.python_version())')."; \
+	  echo "# Installs use it as constraints (Makefile, service/deploy/Dockerfile); do not edit."; \
+	  $(PY) -m pip freeze --exclude-editable; } > $(LOCK)
+	touch $(STAMP)

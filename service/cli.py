@@ -61,11 +61,15 @@ class Command:
 COMMANDS: dict[str, Command] = {}
 
 
-def subcommand(name: str, help: str, *args: Arg) -> Callable:
-    """Register the decorated ``run(args) -> exit code`` function as ``sizewise NAME``."""
+def subcommand(name: str, help: str, *args: Arg, description: str | None = None) -> Callable:
+    """Register the decorated ``run(args) -> exit code`` function as ``sizewise NAME``.
+
+    ``description`` (kept as written) is the longer text of ``sizewise NAME --help``.
+    """
 
     def register(run: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
-        COMMANDS[name] = Command(name, help, args, run, inspect.cleandoc(run.__doc__ or help))
+        text = description or inspect.cleandoc(run.__doc__ or help)
+        COMMANDS[name] = Command(name, help, args, run, text)
         return run
 
     return register
@@ -228,12 +232,91 @@ def examples_command(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _versions(values: dict) -> str:
+    return ", ".join(f"{k} {v}" for k, v in sorted(values.items())) or "not stated"
+
+
+VERIFY_HELP = """\
+Check an audit bundle (GET /v1/requests/{id}/bundle) with no server and no database.
+
+It recomputes the record from the bundle's question and seed, and checks every hash against
+the bundle's own content: the record's hash, the question and the submission against the
+'submitted' event, the record against the 'computed' event, each audit event's chain hash and
+the chain segment link by link. It prints one line per check, then "identical" or the fields
+that differ, and the versions that computed the record and that checked it.
+
+Exit status: 0 identical and every hash holds; 1 something differs or a hash fails;
+2 the file is not a bundle (the field at fault is named).
+
+To check with the versions that computed the record, rebuild that environment from the
+repository's lock file first (README, "Audit bundles").
+"""
+
+
+@subcommand(
+    "verify",
+    "recompute an audit bundle and check its hashes, with no server and no database",
+    arg("bundle", metavar="BUNDLE", help="the bundle file; '-' reads stdin"),
+    arg("--progress", action="store_true", help="show a progress bar on stderr while simulating"),
+    description=VERIFY_HELP,
+)
+def verify_command(args: argparse.Namespace) -> int:
+    """Print each check, then identical or the differing fields, and both environments."""
+    from service.bundle.check import FAILED, BundleError, verify_bundle
+
+    data = read_json(args.bundle)
+    simulated = isinstance(data, dict) and (data.get("seed_scheme") or {}).get("scheme")
+    show = args.progress or (bool(simulated) and sys.stderr.isatty())
+    try:
+        verdict = verify_bundle(data, progress=ProgressBar() if show else None)
+    except BundleError as exc:
+        raise InputError(
+            f"{args.bundle} is not an audit bundle this sizewise reads: {exc}"
+        ) from None
+    print(f"bundle of request {data['request']['id']} (exported {data.get('exported_at', '?')})")
+    for check in verdict.checks:
+        print(f"  {check.outcome:<11} {check.name}: {check.detail}")
+    if verdict.identical:
+        print("identical: the recomputed record matches the bundle's, digit for digit")
+    else:
+        print(f"DIFFERS: the recomputed record differs in {len(verdict.differences)} field(s):")
+        for path in verdict.differences[:50]:
+            print(f"  {path}")
+        if len(verdict.differences) > 50:
+            print(f"  … and {len(verdict.differences) - 50} more")
+    print(f"computed with: {_versions(verdict.computed_with)}")
+    print(f"verified with: {_versions(verdict.verified_with)}")
+    failed = [c.name for c in verdict.checks if c.outcome == FAILED]
+    if failed:
+        print(f"sizewise: verification failed: {', '.join(failed)}", file=sys.stderr)
+    return EXIT_OK if verdict.passed else EXIT_ENGINE
+
+
 # ---------------------------------------------------------------------------------------------
 # Tokens and the audit trail (run against the configured database)
 
 
 class DatabaseError(Exception):
     """The configured database cannot be used (exit 1)."""
+
+
+def _require_sqlite_file(url: str) -> None:
+    """Refuse a SQLite database file that does not exist (opening it would create an empty one)."""
+    from pathlib import Path
+
+    from sqlalchemy.engine import make_url
+
+    parsed = make_url(url)
+    if parsed.get_backend_name() != "sqlite" or parsed.database in (None, "", ":memory:"):
+        return
+    path = Path(parsed.database)
+    if not path.exists():
+        raise DatabaseError(
+            f"the database file {path} does not exist. sizewise reads SIZEWISE_DATABASE_URL, "
+            "else sizewise.db under SIZEWISE_VAR_DIR (or the repository's var/): check them, or "
+            "create the database with `make run` (it migrates it and loads the demo) or "
+            "`.venv/bin/alembic upgrade head` in the repository with the same settings"
+        )
 
 
 @contextmanager
@@ -245,6 +328,7 @@ def _database_session() -> Iterator[Any]:
     from service.store.db import make_engine, make_sessionmaker, session_scope
 
     url = load_config()["DATABASE_URL"]
+    _require_sqlite_file(url)
     engine = make_engine(url)
     try:
         with session_scope(make_sessionmaker(engine)) as session:
@@ -252,7 +336,8 @@ def _database_session() -> Iterator[Any]:
     except SQLAlchemyError as exc:
         shown = engine.url.render_as_string(hide_password=True)
         raise DatabaseError(
-            f"cannot use the database {shown} (is it migrated?): {type(exc).__name__}: "
+            f"cannot use the database {shown} (is it migrated? `alembic upgrade head`, run in "
+            f"the repository with the same settings, migrates it): {type(exc).__name__}: "
             f"{str(getattr(exc, 'orig', exc)).splitlines()[0]}"
         ) from None
     finally:
@@ -400,6 +485,12 @@ def _report_source(source: str) -> tuple[dict, dict]:
                 "id": Path(source).stem if source != "-" else "local",
                 "status": "computed",
             }, data
+        if isinstance(data, dict) and "find" in data:
+            # A question names its unknown; a record holds it under "question".
+            raise InputError(
+                f"{source} is a question, not a result record: compute it first, e.g. "
+                f"`sizewise compute {source} > record.json`, then `sizewise report record.json`"
+            )
         raise InputError(f"{source}: neither a result record nor a request with a result")
     from service.api.render import request_detail
     from service.store.models import Request

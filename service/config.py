@@ -53,7 +53,8 @@ SETTINGS: tuple[Setting, ...] = (
         "SIZEWISE_DATABASE_URL",
         f"sqlite:///{VAR_DIR / 'sizewise.db'}",
         str,
-        "SQLAlchemy URL of the database (SQLite gets WAL and busy_timeout 5000 ms).",
+        "SQLAlchemy URL of the database (SQLite gets WAL and busy_timeout 5000 ms); unset: "
+        "sizewise.db under SIZEWISE_VAR_DIR when that is set.",
     ),
     Setting(
         "SIZEWISE_BROKER_URL",
@@ -175,6 +176,16 @@ SETTINGS: tuple[Setting, ...] = (
 )
 
 
+def var_dir() -> Path:
+    """The embedded default's folder: ``SIZEWISE_VAR_DIR``, else the repository's var/."""
+    return Path(os.environ.get("SIZEWISE_VAR_DIR") or VAR_DIR).resolve()
+
+
+def database_url_in(folder: Path) -> str:
+    """The SQLite database of the embedded default in ``folder`` (the launcher's and the CLI's)."""
+    return f"sqlite:///{folder / 'sizewise.db'}"
+
+
 def _key(name: str) -> str:
     return name[len(PREFIX) :]
 
@@ -184,8 +195,8 @@ def broker_transport_options(broker_url: str) -> dict[str, str]:
     parts = urlsplit(broker_url)
     if parts.scheme != "filesystem":
         return {}
-    # filesystem:// alone means the repository's var/broker; a path names another root.
-    root = Path(parts.path) if parts.path not in ("", "/") else VAR_DIR / "broker"
+    # filesystem:// alone means var/broker (under SIZEWISE_VAR_DIR); a path names another root.
+    root = Path(parts.path) if parts.path not in ("", "/") else var_dir() / "broker"
     # Producer and consumer share one folder: what the API writes is what the worker reads.
     queue = str(root / "queue")
     return {
@@ -219,6 +230,9 @@ def load_config(overrides: dict | None = None) -> dict:
                 f"environment variable {setting.name}={raw!r} is not a valid "
                 f"{setting.parse.__name__}"
             ) from None
+    if not os.environ.get("SIZEWISE_DATABASE_URL"):
+        # The same default file as the local launcher's, so `sizewise tokens` finds its database.
+        config["DATABASE_URL"] = database_url_in(var_dir())
     for key, value in (overrides or {}).items():
         # Accept both DATABASE_URL and SIZEWISE_DATABASE_URL spellings in overrides.
         config[key[len(PREFIX) :] if key.startswith(PREFIX) else key] = value

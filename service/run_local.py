@@ -20,6 +20,8 @@ from collections.abc import Mapping, Sequence
 from datetime import timedelta
 from pathlib import Path
 
+from service.config import database_url_in
+
 REPO_ROOT = Path(__file__).resolve().parents[1]
 
 # argv[0] "python" is the image's interpreter in docker-compose; here it becomes sys.executable.
@@ -64,7 +66,10 @@ WORKER_COMMAND: tuple[str, ...] = (
     "--without-heartbeat",
 )
 HEALTH_PATH = "/healthz"
-EXAMPLE_FILE = "northbridge_bp_trial.json"  # continuous outcome, two groups (the README's trial)
+# The question the banner's curl line posts (service/examples/; a test posts it and expects 202).
+EXAMPLE_FILE = "northbridge_bp_trial.json"
+# The demo token's secret, kept (0600) so a restart prints the same token instead of a new one.
+DEMO_TOKEN_FILE = "demo-token"
 # How long each child gets to finish its work after the stop signal before it is killed.
 STOP_GRACE_SECONDS = 25.0
 # A worker process that dies (kill -9, the OOM killer) is started again, and the sweeper hands
@@ -84,7 +89,7 @@ def local_environment(base: Mapping[str, str] | None = None) -> dict[str, str]:
     """Return the child environment: embedded database and broker under var/ unless already set."""
     env = dict(os.environ if base is None else base)
     folder = Path(env.get("SIZEWISE_VAR_DIR") or REPO_ROOT / "var").resolve()
-    env.setdefault("SIZEWISE_DATABASE_URL", f"sqlite:///{folder / 'sizewise.db'}")
+    env.setdefault("SIZEWISE_DATABASE_URL", database_url_in(folder))
     # filesystem:///abs/path puts the broker's folders under that path (service.config).
     env.setdefault("SIZEWISE_BROKER_URL", f"filesystem://{folder / 'broker'}")
     env.setdefault("SIZEWISE_PORT", "8000")
@@ -120,13 +125,7 @@ def local_argv(command: Sequence[str]) -> list[str]:
 
 def example_body() -> dict:
     """Return a ready-to-post request body: one of service/examples/*.json in protocol + requester."""
-    examples = REPO_ROOT / "service" / "examples"
-    path = examples / EXAMPLE_FILE
-    if not path.exists():
-        found = sorted(examples.glob("*.json"))
-        if not found:
-            raise FileNotFoundError(f"no example question in {examples}")
-        path = found[0]
+    path = REPO_ROOT / "service" / "examples" / EXAMPLE_FILE
     return {
         "protocol": {
             "id": "NGH-CRO-DEMO-01",
@@ -141,8 +140,22 @@ def example_body() -> dict:
     }
 
 
-def prepare(env: Mapping[str, str]) -> str:
-    """Create var/, migrate the database, load the demo and return a fresh demo token's secret."""
+def _read_kept_secret(path: Path) -> str | None:
+    try:
+        return path.read_text().strip() or None
+    except FileNotFoundError:
+        return None
+
+
+def _keep_secret(path: Path, secret: str) -> None:
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+    os.fchmod(fd, 0o600)
+    with os.fdopen(fd, "w") as out:
+        out.write(secret + "\n")
+
+
+def prepare(env: Mapping[str, str]):
+    """Create var/, migrate the database, load the demo and return the demo token (DemoToken)."""
     from service import demo
     from service.config import ensure_broker_folders, load_config
     from service.store.migrate import upgrade
@@ -158,12 +171,16 @@ def prepare(env: Mapping[str, str]) -> str:
     from service.store.db import make_engine, make_sessionmaker, session_scope
     from service.store.tokens import ensure_demo_token
 
+    kept_file = Path(env["SIZEWISE_VAR_DIR"]) / DEMO_TOKEN_FILE
     engine = make_engine(config["DATABASE_URL"])
     try:
         with session_scope(make_sessionmaker(engine)) as session:
-            return ensure_demo_token(session)
+            token = ensure_demo_token(session, _read_kept_secret(kept_file))
     finally:
         engine.dispose()
+    if not token.kept:
+        _keep_secret(kept_file, token.secret)
+    return token
 
 
 def open_private_log(path: Path):
@@ -294,17 +311,36 @@ def wait_until_healthy(port: int, sup: Supervisor, timeout: float = 60.0) -> boo
     return False
 
 
-def print_banner(port: int, folder: Path, token: str) -> None:
+def demo_token_lines(folder: Path, demo) -> str:
+    """What the banner says about the demo token: kept from the last start, or new and why."""
+    kept_file = folder / DEMO_TOKEN_FILE
+    if demo.kept:
+        return (
+            f"demo statistician token (kept from the last start, in {kept_file}): {demo.secret}\n"
+        )
+    lines = (
+        f"demo statistician token (new, kept in {kept_file} for the next starts): {demo.secret}\n"
+    )
+    if demo.revoked:
+        lines += (
+            f"  the earlier demo token ({', '.join(demo.revoked)}) was revoked: its secret was not "
+            f"in {kept_file}, so it could not be shown again\n"
+        )
+    return lines
+
+
+def print_banner(port: int, folder: Path, demo) -> None:
     """Print the URL, the demo token and a curl example that posts a request and reads it back."""
     body_file = folder / "example-request.json"
     try:
         body_file.write_text(json.dumps(example_body(), indent=2) + "\n")
-    except FileNotFoundError as exc:
-        print(f"sizewise: {exc}; no example body written", flush=True)
+    except FileNotFoundError as exc:  # a broken checkout; the service itself runs without it
+        print(f"sizewise: no example body written: {exc}", flush=True)
+    token = demo.secret
     url = f"http://127.0.0.1:{port}"
     print(
         f"\nsizewise is running at {url}  (Ctrl-C stops it)\n"
-        f"demo statistician token (new at every start): {token}\n"
+        f"{demo_token_lines(folder, demo)}\n"
         f"the desk: open {url}/desk/ and sign in with that token\n\n"
         f"  export SIZEWISE_TOKEN={token}\n"
         f'  curl -s -X POST {url}/v1/requests -H "Authorization: Bearer $SIZEWISE_TOKEN" \\\n'

@@ -86,6 +86,8 @@ ACCESS: dict[str, frozenset[str]] = {
     "requests.create_rerun": frozenset({AUDITOR}),
     "requests.list_reruns": READERS,
     "requests.get_rerun": READERS,
+    # The whole file an auditor takes away: for the people who review and audit requests.
+    "bundles.request_bundle": frozenset({STATISTICIAN, AUDITOR}),
     "reports.request_report": READERS,
     "reports.curve_svg": READERS,
     "reports.curve_png": READERS,

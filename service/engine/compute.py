@@ -15,7 +15,7 @@ from collections.abc import Callable
 from . import adjust, cluster, designs, implied, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
-from .records import CAUTIONS, RECORD_VERSION, seal, versions
+from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
 
 Executor = Callable[[list[dict]], list[dict]]
 SMALL_GROUP = (
@@ -273,6 +273,7 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     repro["versions"] = versions()
     record["reproducibility"] = repro
     record["warnings"].extend(_warnings(design, q, analyzed))
+    record["warnings"].extend(size_warnings(record))
     return record
 
 

@@ -37,6 +37,25 @@ def versions() -> dict[str, str]:
     return {"numpy": np.__version__, "scipy": scipy.__version__, "sizewise": sizewise_version()}
 
 
+# A total beyond what almost any study enrolls more likely reflects an input slip (an effect in
+# the wrong units, a tiny difference) than a plan. Common practice, no source.
+IMPLAUSIBLE_TOTAL = 100_000
+
+
+def size_warnings(record: dict) -> list[str]:
+    """A warning when a sample-size answer is beyond what studies enroll (else none)."""
+    total = (record.get("sample_size") or {}).get("total")
+    if record["question"].get("find") != "sample_size" or total is None:
+        return []
+    if total <= IMPLAUSIBLE_TOTAL:
+        return []
+    return [
+        f"the answer, {total:,} participants in total, is more than {IMPLAUSIBLE_TOTAL:,}, "
+        "beyond what almost any study enrolls: check the effect (and its units), the "
+        "variability and the other assumptions before relying on it"
+    ]
+
+
 def _plain(value: Any) -> Any:
     """Convert numpy scalars/arrays and tuples to JSON types; reject NaN and infinity."""
     if isinstance(value, dict):

@@ -6,13 +6,13 @@ created_at ISO); changing or removing any stored event breaks every hash after i
 
 from __future__ import annotations
 
-import hashlib
-import json
-from typing import Any, TypeVar
+from typing import TypeVar
 
 from sqlalchemy import select, text
 from sqlalchemy.orm import Session
 
+from .chain import chain_hash
+from .chain import content_hash as content_hash  # re-exported: the store's callers use it
 from .models import AuditEvent
 from .types import utcnow
 
@@ -22,35 +22,17 @@ _Row = TypeVar("_Row")
 _PG_LOCK_KEY = 7_341_020_001
 
 
-def _canonical(value: Any) -> str:
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
-
-
-def content_hash(value: Any) -> str:
-    """SHA-256 of the canonical JSON of a stored value, as the event that recorded it holds it.
-
-    ``default=str`` turns dates into their ISO form, the same before and after a database trip.
-    """
-    # One JSON round trip first, as the database makes: integer keys become strings, tuples lists.
-    plain = json.loads(json.dumps(value, default=str))
-    return hashlib.sha256(_canonical(plain).encode("utf-8")).hexdigest()
-
-
 def event_hash(event: AuditEvent) -> str:
     """Return the chain hash of ``event`` from its stored fields and its predecessor's hash."""
-    created = event.created_at.isoformat()
-    payload = _canonical(
-        [
-            event.prev_sha256,
-            event.id,
-            event.request_id,
-            event.actor,
-            event.action,
-            _canonical(event.detail),
-            created,
-        ]
+    return chain_hash(
+        event.prev_sha256,
+        event.id,
+        event.request_id,
+        event.actor,
+        event.action,
+        event.detail,
+        event.created_at.isoformat(),
     )
-    return hashlib.sha256(payload.encode("utf-8")).hexdigest()
 
 
 def append_event(

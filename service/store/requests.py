@@ -134,18 +134,21 @@ def question_hash(row: Request) -> str:
     return content_hash(row.question)
 
 
+def submission_fields(row: Request) -> dict:
+    """The rest of the submission as stored: protocol, requester, deadline, notes, raw question."""
+    return {
+        "protocol": row.protocol,
+        "requester": row.requester,
+        "deadline": row.deadline,
+        "notes": row.notes,
+        "question_raw": row.question_raw,
+        "submitted_by": row.submitted_by,
+    }
+
+
 def submission_hash(row: Request) -> str:
-    """Hash of the rest of the submission as stored: protocol, requester, deadline, notes, raw."""
-    return content_hash(
-        {
-            "protocol": row.protocol,
-            "requester": row.requester,
-            "deadline": row.deadline,
-            "notes": row.notes,
-            "question_raw": row.question_raw,
-            "submitted_by": row.submitted_by,
-        }
-    )
+    """Hash of the submission's fields (what the 'submitted' event holds)."""
+    return content_hash(submission_fields(row))
 
 
 def get_request(session: Session, request_id: str) -> Request | None:

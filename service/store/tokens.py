@@ -10,6 +10,7 @@ import hashlib
 import math
 import secrets
 import uuid
+from dataclasses import dataclass
 from datetime import datetime, timedelta
 
 from sqlalchemy import select
@@ -144,20 +145,39 @@ def list_tokens(session: Session) -> list[ApiToken]:
     return list(session.scalars(select(ApiToken).order_by(ApiToken.created_at, ApiToken.id)))
 
 
-def ensure_demo_token(session: Session) -> str:
-    """Issue a fresh statistician token for the local demo and return its secret.
+@dataclass(frozen=True)
+class DemoToken:
+    """The local demo's statistician token: its secret, whether it was kept, what was revoked."""
 
-    A secret cannot be shown twice, so an earlier demo token is revoked and replaced: every start
-    of the demo prints a token that works.
+    secret: str
+    kept: bool
+    revoked: tuple[str, ...] = ()
+
+
+def ensure_demo_token(session: Session, kept_secret: str | None = None) -> DemoToken:
+    """Keep the demo token whose secret the launcher saved, or issue a new one.
+
+    A restart keeps the token a user may have exported. A secret cannot be shown twice, so when
+    the saved one is gone (or no longer active) a new token is issued, and earlier active demo
+    tokens, whose secrets nobody can print any more, are revoked: ``revoked`` lists them so the
+    launcher can say so.
     """
+    if kept_secret:
+        row = session.scalar(
+            select(ApiToken).where(ApiToken.secret_sha256 == hash_secret(kept_secret))
+        )
+        if row is not None and row.revoked_at is None and row.name == DEMO_TOKEN_NAME:
+            return DemoToken(kept_secret, kept=True)
+    revoked = []
     for row in session.scalars(
         select(ApiToken).where(ApiToken.name == DEMO_TOKEN_NAME, ApiToken.revoked_at.is_(None))
     ):
         revoke_token(session, row.id, actor="demo launcher")
+        revoked.append(row.id)
     _token_id, secret = create_token(
         session, "statistician", DEMO_TOKEN_NAME, actor="demo launcher"
     )
-    return secret
+    return DemoToken(secret, kept=False, revoked=tuple(revoked))
 
 
 class BudgetRefused(Exception):

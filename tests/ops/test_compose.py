@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pytest
@@ -47,11 +48,38 @@ def test_data_services_use_pinned_images_named_volumes_and_health_checks(compose
         assert mounted and all(v in volumes for v in mounted), (name, mounted)
 
 
-def test_application_services_build_the_deploy_dockerfile(services):
-    for name in ("migrate", "api", "worker"):
-        build = services[name]["build"]
-        assert build["dockerfile"] == "service/deploy/Dockerfile", name
-        assert (REPO / build["context"] / build["dockerfile"]).is_file(), name
+def test_the_image_is_built_once_and_every_app_service_runs_it(services):
+    builders = [name for name, service in services.items() if "build" in service]
+    assert builders == ["migrate"], builders
+    build = services["migrate"]["build"]
+    assert build["dockerfile"] == "service/deploy/Dockerfile"
+    assert (REPO / build["context"] / build["dockerfile"]).is_file()
+    images = {services[name]["image"] for name in ("migrate", "api", "worker")}
+    assert images == {services["migrate"]["image"]}, images
+    # The others must take the local build, never look for the image in a registry.
+    for name in ("api", "worker"):
+        assert services[name]["pull_policy"] == "never", name
+
+
+def test_postgres_password_has_no_silent_default(services):
+    text = (REPO / "docker-compose.yml").read_text()
+    uses = re.findall(r"\$\{POSTGRES_PASSWORD([^}]*)\}", text)
+    assert len(uses) == 2 and all(u.startswith(":?") for u in uses), uses
+    assert services["postgres"]["environment"]["POSTGRES_PASSWORD"].startswith(
+        "${POSTGRES_PASSWORD:?"
+    )
+    assert ":${POSTGRES_PASSWORD:?" in services["api"]["environment"]["SIZEWISE_DATABASE_URL"]
+
+
+def test_workers_are_health_checked_by_a_celery_ping(services):
+    check = _healthcheck(services["worker"])
+    assert check[0] == "CMD-SHELL"
+    command = check[1]
+    app = WORKER_COMMAND[WORKER_COMMAND.index("-A") : WORKER_COMMAND.index("-A") + 2]
+    assert command.startswith(f"celery {' '.join(app)} inspect ping")
+    # Only this container's worker answers for it ($$ is compose's escape for a literal $).
+    assert "-d celery@$$HOSTNAME" in command
+    # tests/workers/test_worker_healthcheck.py runs this command against a real worker.
 
 
 def test_migrate_runs_alembic_once_after_postgres_is_healthy(services):
@@ -75,11 +103,15 @@ def test_api_and_worker_run_the_launchers_commands(services):
     assert services["worker"]["command"] == list(WORKER_COMMAND)
 
 
-def test_api_is_health_checked_on_readyz_and_listens_on_all_interfaces(services):
+def test_api_is_health_checked_on_readyz_and_published_on_loopback_only(services):
     api = services["api"]
     assert any("/readyz" in part for part in _healthcheck(api))
+    # Inside its container gunicorn listens on every interface; the host publishes loopback only.
     assert "--bind 0.0.0.0:8000" in api["environment"]["GUNICORN_CMD_ARGS"]
-    assert any(str(p).endswith(":8000") for p in api["ports"])
+    assert [str(p) for p in api["ports"]] == ["127.0.0.1:8000:8000"]
+    for name, service in services.items():
+        for port in service.get("ports", []):
+            assert str(port).startswith("127.0.0.1:"), (name, port)
 
 
 def test_there_are_at_least_two_workers(services):

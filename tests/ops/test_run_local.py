@@ -54,7 +54,7 @@ class Api:
 
 def _banner_token(log: Path) -> str | None:
     """The statistician token the launcher printed at start, once its banner is out."""
-    match = re.search(r"demo statistician token \(new at every start\): (\S+)", log.read_text())
+    match = re.search(r"demo statistician token \([^)]*\): (\S+)", log.read_text())
     return match.group(1) if match else None
 
 

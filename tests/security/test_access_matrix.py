@@ -38,6 +38,7 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("POST", "/v1/requests/<request_id>/reruns"): {A},
     ("GET", "/v1/requests/<request_id>/reruns"): {INT, S, A},
     ("GET", "/v1/requests/<request_id>/reruns/<rerun_id>"): {INT, S, A},
+    ("GET", "/v1/requests/<request_id>/bundle"): {S, A},
     ("GET", "/v1/requests/<request_id>/report"): {INT, S, A},
     ("GET", "/v1/requests/<request_id>/curve.svg"): {INT, S, A},
     ("GET", "/v1/requests/<request_id>/curve.png"): {INT, S, A},

@@ -85,6 +85,7 @@ def test_tokens_cli_bad_input_exits_2(sqlite_url, args, needle, capsys, monkeypa
 
 
 def test_a_database_that_is_not_migrated_is_one_line_exit_1(tmp_path, capsys, monkeypatch):
+    (tmp_path / "empty.db").touch()  # a file that exists (a missing one is named as missing)
     monkeypatch.setenv("SIZEWISE_DATABASE_URL", f"sqlite:///{tmp_path / 'empty.db'}")
     assert cli.main(["tokens", "list"]) == 1
     err = capsys.readouterr().err

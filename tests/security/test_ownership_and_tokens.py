@@ -133,15 +133,21 @@ def test_store_functions(api):
                 token_store.create_token(session, role, name)
 
 
-def test_demo_token_is_a_fresh_statistician_each_time(api, anon_client):
+def test_demo_token_is_kept_across_starts_and_replaced_only_when_its_secret_is_lost(
+    api, anon_client
+):
     with session_scope(api.sessions()) as session:
         first = token_store.ensure_demo_token(session)
     with session_scope(api.sessions()) as session:
-        second = token_store.ensure_demo_token(session)
+        again = token_store.ensure_demo_token(session, first.secret)
+    assert (first.kept, again.kept, again.secret, again.revoked) == (False, True, first.secret, ())
+    with session_scope(api.sessions()) as session:
+        second = token_store.ensure_demo_token(session, None)  # the saved secret is gone
         demo = [
             t for t in token_store.list_tokens(session) if t.name == token_store.DEMO_TOKEN_NAME
         ]
-    assert first != second
+    assert second.secret != first.secret and not second.kept
+    assert second.revoked == (demo[0].id,)
     assert [(t.role, t.revoked_at is None) for t in demo] == [
         ("statistician", False),
         ("statistician", True),
@@ -152,4 +158,8 @@ def test_demo_token_is_a_fresh_statistician_each_time(api, anon_client):
             "/v1/requests", headers={"Authorization": f"Bearer {secret}"}
         ).status_code
 
-    assert (status(first), status(second)) == (401, 200)
+    assert (status(first.secret), status(second.secret)) == (401, 200)
+    # A revoked secret on file is not kept: a new token replaces it.
+    with session_scope(api.sessions()) as session:
+        third = token_store.ensure_demo_token(session, first.secret)
+    assert not third.kept and third.revoked == (demo[1].id,)

@@ -39,7 +39,7 @@ def test_every_setting_is_documented_once():
 
 
 def test_defaults(monkeypatch):
-    for name in DOCUMENTED:
+    for name in (*DOCUMENTED, "SIZEWISE_VAR_DIR"):
         monkeypatch.delenv(name, raising=False)
     config = load_config()
     assert config["DATABASE_URL"] == f"sqlite:///{VAR_DIR / 'sizewise.db'}"
@@ -71,3 +71,17 @@ def test_filesystem_broker_folders(tmp_path):
     # Producer and consumer must read and write the same folder.
     assert opts["data_folder_in"] == opts["data_folder_out"] == str(tmp_path / "queue")
     assert broker_transport_options("redis://127.0.0.1:6379/0") == {}
+
+
+def test_the_var_folder_moves_the_default_database_and_broker(monkeypatch, tmp_path):
+    # The CLI, the API and the workers find the launcher's files when SIZEWISE_VAR_DIR is set.
+    for name in ("SIZEWISE_DATABASE_URL", "SIZEWISE_BROKER_URL"):
+        monkeypatch.delenv(name, raising=False)
+    monkeypatch.setenv("SIZEWISE_VAR_DIR", str(tmp_path / "var"))
+    config = load_config()
+    assert config["DATABASE_URL"] == f"sqlite:///{tmp_path / 'var' / 'sizewise.db'}"
+    assert config["BROKER_TRANSPORT_OPTIONS"]["data_folder_in"] == str(
+        tmp_path / "var" / "broker" / "queue"
+    )
+    monkeypatch.setenv("SIZEWISE_DATABASE_URL", "sqlite:////elsewhere/x.db")
+    assert load_config()["DATABASE_URL"] == "sqlite:////elsewhere/x.db"

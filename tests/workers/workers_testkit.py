@@ -202,30 +202,34 @@ class WorkerProcess:
         env["PYTHONPATH"] = str(REPO)
         return env
 
+    def argv(self) -> list[str]:
+        """The worker's command line: a node name of its own, both queues, a prefork pool."""
+        node = f"w{uuid.uuid4().hex[:6]}@%h"
+        return [
+            str(CELERY),
+            "-A",
+            "workers.celery_app",
+            "worker",
+            "--pool",
+            "prefork",
+            "--concurrency",
+            str(self.concurrency),
+            "-Q",
+            "sizewise,sizewise.helpers",
+            "--without-mingle",
+            "--without-gossip",
+            "--without-heartbeat",
+            "--loglevel",
+            "INFO",
+            "-n",
+            node,
+        ]
+
     def start(self, timeout: float = 60.0) -> WorkerProcess:
         """Start the worker and wait until it logs that it is ready."""
-        node = f"w{uuid.uuid4().hex[:6]}@%h"
         self.log = open(self.log_path, "ab")  # noqa: SIM115 - closed in stop()
         self.proc = subprocess.Popen(
-            [
-                str(CELERY),
-                "-A",
-                "workers.celery_app",
-                "worker",
-                "--pool",
-                "prefork",
-                "--concurrency",
-                str(self.concurrency),
-                "-Q",
-                "sizewise,sizewise.helpers",
-                "--without-mingle",
-                "--without-gossip",
-                "--without-heartbeat",
-                "--loglevel",
-                "INFO",
-                "-n",
-                node,
-            ],
+            self.argv(),
             cwd=REPO,
             env=self.env(),
             stdout=self.log,

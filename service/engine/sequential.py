@@ -235,11 +235,19 @@ def solve(plan: Plan, alpha: float, sides: int, power: float) -> dict:
     }
 
 
-def evaluate(plan: Plan, alpha: float, sides: int, drift: float, beta: float | None) -> dict:
+def evaluate(
+    plan: Plan,
+    alpha: float,
+    sides: int,
+    drift: float,
+    beta: float | None,
+    design_drift: float | None = None,
+) -> dict:
     """Boundaries and operating characteristics at ``drift`` (full-information expected Z).
 
-    ``beta``: the type II error the futility boundaries spend; None solves it so that the
-    spending is self-consistent at this drift (a power question).
+    ``beta``: the type II error the futility boundaries spend under ``design_drift`` (default:
+    ``drift``); None solves it so that the spending is self-consistent at ``drift`` (a power
+    question: the futility boundaries then spend exactly the type II error they produce).
     """
     t = plan.t
     upper = efficacy_bounds(t, alpha, sides, plan.efficacy, plan.efficacy_gamma)
@@ -251,7 +259,8 @@ def evaluate(plan: Plan, alpha: float, sides: int, drift: float, beta: float | N
                 return futility_bounds(t, upper, drift, b, plan.futility, plan.futility_gamma)[1] - b
 
             beta = float(optimize.brentq(gap, 1e-9, 1.0 - 1e-9, xtol=1e-10))
-        lower, _ = futility_bounds(t, upper, drift, beta, plan.futility, plan.futility_gamma)
+        at = drift if design_drift is None else design_drift
+        lower, _ = futility_bounds(t, upper, at, beta, plan.futility, plan.futility_gamma)
     null = crossings(t, lower, upper, 0.0, sides)
     alt = crossings(t, lower, upper, drift, sides)
     return {

@@ -115,7 +115,7 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         "method": how,
         "simulation": sim,
     }
-    if data.get("interim"):
+    if isinstance(data.get("interim"), Mapping) and "looks" in data["interim"]:
         # Only when posted: a question without interim analyses keeps its record digits.
         q["interim"] = interim_block.normalize(data["interim"])
     size = data.get("sample_size")

@@ -103,12 +103,11 @@ def check(block: dict) -> dict[str, list[str]]:
         elif abs(fractions[-1] - 1.0) > 1e-12:
             errors[where] = [f"must end at 1 (the final analysis); got {fractions[-1]:g}"]
     for which in ("efficacy", "futility"):
-        if block.get(f"{which}_gamma") is not None and (
-            block.get(f"{which}_spending") != "hwang_shih_decani"
-        ):
+        family = block.get(f"{which}_spending") or defaults()[f"{which}_spending"]
+        if block.get(f"{which}_gamma") is not None and family != "hwang_shih_decani":
             errors[f"{BLOCK}.{which}_gamma"] = [
                 f"applies only with {which}_spending 'hwang_shih_decani'; got "
-                f"{which}_spending {block.get(f'{which}_spending')!r}"
+                f"{which}_spending {family!r}"
             ]
     return errors
 

@@ -116,11 +116,11 @@ def efficacy_bounds(t: np.ndarray, alpha: float, sides: int, family: str, gamma:
     for k in range(len(t)):
         target = cumulative[k] - used
         if sides == 2:
-            c = _root(lambda z: walk.above(z) + walk.below(-z) - target, 0.0)
+            c = _root(lambda z, g=target: walk.above(z) + walk.below(-z) - g, 0.0)
             used += walk.above(c) + walk.below(-c)
             walk.advance(-c, c)
         else:
-            c = _root(lambda z: walk.above(z) - target)
+            c = _root(lambda z, g=target: walk.above(z) - g)
             used += walk.above(c)
             walk.advance(-math.inf, c)
         bounds.append(c)
@@ -139,7 +139,7 @@ def futility_bounds(
             a = upper[k]
         else:
             target = cumulative[k] - used
-            a = -_root(lambda z: walk.below(-z) - target)  # below(a) increases with a
+            a = -_root(lambda z, g=target: walk.below(-z) - g)  # below(a) rises with a
             a = min(a, upper[k])
         used += walk.below(a)
         walk.advance(a, upper[k])
@@ -256,7 +256,9 @@ def evaluate(
         if beta is None:
 
             def gap(b: float) -> float:
-                return futility_bounds(t, upper, drift, b, plan.futility, plan.futility_gamma)[1] - b
+                return (
+                    futility_bounds(t, upper, drift, b, plan.futility, plan.futility_gamma)[1] - b
+                )
 
             beta = float(optimize.brentq(gap, 1e-9, 1.0 - 1e-9, xtol=1e-10))
         at = drift if design_drift is None else design_drift

@@ -11,9 +11,9 @@ from typing import Any
 
 from service.engine import direction as engine_direction
 from service.engine.adjust import split_total
+from service.engine.designs import interim as interim_block
 from service.engine.errors import QuestionError
 from service.engine.models import check_arm
-from service.engine.designs import interim as interim_block
 
 from .fields import posted
 from .shared import shared

@@ -58,3 +58,18 @@ def test_catalogue_lists_the_interim_block(client):
     takes = {c["name"]: c["interim"] for c in body["cells"]}
     assert takes["continuous × two_groups"] and takes["time_to_event × two_groups"]
     assert not takes["continuous × k_groups"]
+
+
+def test_interim_request_computed_by_the_worker_path(api, app):
+    from service.engine import canonical_json, compute
+    from workers.tasks import run_request_job
+
+    queued = api.submit(api.request_body(_example()))
+    assert queued.status_code == 202, queued.get_json()
+    request_id = queued.get_json()["id"]
+    config = app.extensions["sizewise"]["config"]
+    assert run_request_job(request_id, config) == "computed"
+    stored = api.client.get(f"/v1/requests/{request_id}").get_json()
+    assert stored["question"]["interim"]["looks"] == 3
+    assert canonical_json(stored["result"]) == canonical_json(compute(stored["question"]))
+    assert len(stored["result"]["sequential"]["looks"]) == 3

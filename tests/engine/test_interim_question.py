@@ -100,6 +100,28 @@ def test_time_to_event_looks_count_events():
     assert record["power"]["estimate"] >= 0.9 - 1e-6
 
 
+def test_one_sample_t_cells_take_interim_analyses():
+    # a paired question (SD of the differences 8, difference 2): the maximum size is the fixed
+    # size times the inflation factor, Pocock-type spending costing more than O'Brien-Fleming's
+    body = {
+        "outcome": "continuous",
+        "layout": "paired",
+        "effect": {"difference": 2.0},
+        "assumptions": {"sd_difference": 8.0},
+    }
+    fixed = compute(load_question(body))["sample_size"]["steps"][0]["per_group_raw"][0]
+    answers = {}
+    for family in ("pocock", "obrien_fleming"):
+        record = compute(
+            load_question({**body, "interim": {"looks": 4, "efficacy_spending": family}})
+        )
+        step = record["sample_size"]["steps"][0]
+        assert step["fixed_per_group_raw"][0] == pytest.approx(fixed)
+        answers[family] = record["sequential"]["inflation"]
+        assert record["power"]["estimate"] >= 0.8
+    assert answers["pocock"] > answers["obrien_fleming"] > 1.0
+
+
 @pytest.mark.parametrize(
     ("changes", "field"),
     [

@@ -73,3 +73,10 @@ def test_interim_request_computed_by_the_worker_path(api, app):
     assert stored["question"]["interim"]["looks"] == 3
     assert canonical_json(stored["result"]) == canonical_json(compute(stored["question"]))
     assert len(stored["result"]["sequential"]["looks"]) == 3
+
+
+def test_robustness_panel_is_refused_for_interim_analyses(api):
+    body = api.request_body(_example(), explorations=[{"type": "robustness_panel"}])
+    r = api.submit(body)
+    assert r.status_code == 422, r.get_json()
+    assert "not offered for a question with interim analyses" in json.dumps(r.get_json())

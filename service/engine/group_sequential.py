@@ -86,6 +86,8 @@ def answer(
     looks = []
     total = sum(enrolled)
     required = (events or {}).get("required")
+    if required is None:
+        required = expected_events(design, q, alpha, analyzed)
     for k, t in enumerate(plan.fractions):
         upper = out["upper"][k]
         row = {
@@ -152,6 +154,17 @@ def inflate(raw: list[float], events: dict | None, factor: float) -> tuple[list,
     if "subjects_total_raw" in out:
         out["subjects_total_raw"] = out["subjects_total_raw"] * scale
     return [x * scale for x in raw], out
+
+
+def expected_events(design, q: dict, alpha: float, per_group: list[float]) -> float | None:
+    """The events expected at these sizes, for a cell whose solution counts events (the
+    information of a time-to-event test); None for other cells."""
+    basis = dict(q, target_power=q.get("target_power") or 0.8)  # P(event) ignores the power
+    details = design.solve_n(basis, alpha).details.get("events")
+    if not details or "probability" not in details:
+        return None
+    p = details["probability"]
+    return per_group[0] * p["control"] + per_group[1] * p["treatment"]
 
 
 def fixed_equivalent(per_group: list[float], factor: float) -> list[float]:

@@ -98,6 +98,19 @@ def test_time_to_event_looks_count_events():
     assert futility[-1] is None and all(f is not None for f in futility[:-1])
     assert record["sequential"]["expected_events_alternative"] < events["required"]
     assert record["power"]["estimate"] >= 0.9 - 1e-6
+    # a power question at the same sizes counts its looks in expected events, too
+    power = compute(
+        load_question(
+            {
+                **body,
+                "find": "power",
+                "target_power": None,
+                "sample_size": {"per_group": record["sample_size"]["per_group"]},
+            }
+        )
+    )
+    final = power["sequential"]["looks"][-1]["events"]
+    assert abs(final - events["required"]) <= 2  # expected events at the rounded-up sizes
 
 
 def test_one_sample_t_cells_take_interim_analyses():

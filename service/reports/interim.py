@@ -52,10 +52,17 @@ def sentence(record: dict) -> str:
     interim_step = next((s for s in record["sample_size"]["steps"] if s["step"] == "interim"), None)
     if inflation is not None and interim_step is not None:
         fixed = ", ".join(fmt_num(x) for x in dict.fromkeys(interim_step["fixed_per_group_raw"]))
+        single = f"{fixed} per group (unrounded)"
+        fixed_events = (record.get("events") or {}).get("fixed_required")
+        if fixed_events is not None:
+            single = f"{fmt_count(fixed_events)} events ({fixed} per group, unrounded)"
+        what = (
+            "events and size above include" if fixed_events is not None else "size above includes"
+        )
         text += (
-            f" The size above includes the interim analyses: a single final analysis would need "
-            f"{fixed} per group (unrounded), and the interim analyses multiply it by the "
-            f"inflation factor {inflation:.4f}."
+            f" The {what} the interim analyses: a single final analysis would "
+            f"need {single}, and the interim analyses multiply it by the inflation factor "
+            f"{inflation:.4f}."
         )
     early = sum(row["stop_alternative"]["efficacy"] for row in looks[:-1])
     unit = "events" if "expected_events_alternative" in block else "subjects"

@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, cluster, designs, implied, starting
+from . import adjust, cluster, designs, group_sequential, implied, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
@@ -145,6 +145,8 @@ def _check_question(q: dict, design, simulated: bool) -> None:
     )
     blocks = {b: q.get(b) or {} for b in ("effect", "assumptions", "analysis_options")}
     raise_first(design.validate(blocks, q["find"], from_data))
+    if group_sequential.active(q):
+        group_sequential.check(q, design)
 
 
 def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> dict:
@@ -165,6 +167,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     find = q["find"]
     sim = None
     clustered = cluster.settings(q) is not None
+    staged = group_sequential.active(q)  # interim analyses (analytic only, checked above)
+    plan = group_sequential.design_drift(q, alpha) if staged and find != "power" else None
     if clustered:
         part = cluster.answer(
             q,
@@ -193,7 +197,21 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             raw = solution.per_group
         if solution is not None:
             record["events"] = solution.details.get("events")
+        interim_step = None
+        if plan is not None:
+            fixed = list(raw)
+            raw, record["events"] = group_sequential.inflate(
+                raw, record["events"], plan["inflation"]
+            )
+            interim_step = {
+                "step": "interim",
+                "inflation": plan["inflation"],
+                "fixed_per_group_raw": fixed,
+                "per_group_raw": list(raw),
+            }
         final, steps = adjust.inflate(raw, q)
+        if interim_step is not None:
+            steps.insert(0, interim_step)
         base = _base_per_group(steps, raw)
         power = sim["power"] if sim else _analytic_power(design, q, base, alpha)
         record["sample_size"] = {
@@ -220,7 +238,11 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             power = sim["power"]
             analyzed = whole
         elif find == "effect":
-            effect = design.solve_effect(q, effective, alpha)
+            basis = effective
+            if plan is not None:
+                # the fixed design as powerful as this sequential one is IF times smaller
+                basis = group_sequential.fixed_equivalent(effective, plan["inflation"])
+            effect = design.solve_effect(q, basis, alpha)
             record["effect"] = effect
             solved = copy.deepcopy(q)
             solved["effect"][effect["field"]] = effect["value"]
@@ -266,6 +288,26 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
                 approximation="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
                 reference="Donner & Klar (2000); Eldridge, Ashby & Kerry (2006)",
             )
+    if staged:
+        basis = q
+        if record["effect"] is not None:
+            basis = copy.deepcopy(q)
+            basis["effect"][record["effect"]["field"]] = record["effect"]["value"]
+        part = group_sequential.answer(
+            design,
+            basis,
+            alpha,
+            analyzed,
+            record["sample_size"]["per_group"],
+            plan,
+            record["events"],
+        )
+        record["sequential"] = part["block"]
+        power = dict(power, estimate=part["power"])
+        record["method"] = dict(
+            record["method"],
+            notes=[*record["method"].get("notes", []), group_sequential.note(q)],
+        )
     note = _alpha_note(q)
     if note:
         record["method"] = dict(record["method"], alpha_note=note)

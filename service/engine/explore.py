@@ -311,6 +311,13 @@ def robustness_refusal(question: dict) -> str | None:
         design = _design(question)
     except EngineError as exc:
         return str(exc)
+    if question.get("interim"):
+        # the panel simulates the test of a single final analysis; the sequential test's
+        # simulation is not offered yet
+        return (
+            "the robustness panel simulates a single final analysis; it is not offered for a "
+            "question with interim analyses"
+        )
     if design.simulation is not None and design.simulation.planned_moments is not None:
         return None
     return (

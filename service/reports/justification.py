@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from service.engine import simulate
 
+from . import interim
 from .describe import (
     analysis_label,
     assumed_text,
@@ -471,6 +472,7 @@ def justification(record: dict, context: dict | None = None) -> str:
         body = _sample_size_body(record, context, test_level)
     else:
         body = _given_size_body(record, context, test_level)
+    body += interim.sentence(record)
     simulated = record["method"].get("method") == "simulation"
     sim = _simulation(record) if simulated else ""
     warnings = "".join(f" Note: {w.rstrip('.')}." for w in record.get("warnings") or [])

@@ -15,7 +15,7 @@ from markupsafe import Markup
 
 from service.engine import CAUTIONS
 
-from . import describe
+from . import describe, interim
 from . import justification as words
 
 __all__ = ["STATUS_LABELS", "question_rows", "render_report", "render_staff_list"]
@@ -275,6 +275,17 @@ def _step_rows(record: dict) -> list[dict]:
                     "result": "—",
                 }
             )
+        elif which == "interim":
+            fixed = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["fixed_per_group_raw"]))
+            rows.append(
+                {
+                    "name": "Interim analyses",
+                    "base": False,
+                    "detail": f"a single final analysis needs {fixed}; × inflation factor "
+                    f"{s['inflation']:.4f} for the planned interim analyses",
+                    "result": ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_group_raw"])),
+                }
+            )
         elif which == "base":
             raw = ", ".join(f"{x:.2f}" for x in dict.fromkeys(s["per_group_raw"]))
             rounded = (
@@ -505,6 +516,7 @@ def render_report(
             answer_figures=_answer_figures(record),
             per_group_heading="Per group" if several else "Number",
             step_rows=_step_rows(record),
+            interim=interim.table(record),
             steps_caption=_steps_caption(record),
             justification=words.justification(record, context),
             curve_svg=Markup(curve_svg),

@@ -218,3 +218,32 @@ class SimulationField(Obj):
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
         self.check_object(value)
         return simulation_schema(cell_of(data)).load(value)
+
+
+def _interim_schema() -> type[Strict]:
+    """The ``interim`` block, its fields generated from the engine's declarations."""
+    from service.engine.designs import interim
+
+    from .declared import marshmallow_field
+
+    spec = {f.name: marshmallow_field(f) for f in interim.FIELDS}
+    spec["looks"].required = True
+    spec["looks"].error_messages["required"] = (
+        f"is required: a whole number of analyses between 1 and {interim.MAX_LOOKS}"
+    )
+
+    class InterimSchema(Strict.from_dict(spec, name="InterimBase")):  # type: ignore[misc]
+        """Planned interim analyses: boundaries by alpha spending, optional futility."""
+
+        @validates_schema(pass_original=True, skip_on_field_errors=True)
+        def _across(self, data: dict, original: Any, **kwargs: Any) -> None:
+            errors = interim.check(dict(original) if isinstance(original, dict) else data)
+            if errors:
+                raise ValidationError(
+                    {path.split(".", 1)[1]: messages for path, messages in errors.items()}
+                )
+
+    return InterimSchema
+
+
+InterimSchema = _interim_schema()

@@ -19,6 +19,7 @@ from .blocks import (
     AdjustmentsSchema,
     ClusterSchema,
     HypothesisSchema,
+    InterimSchema,
     SampleSizeSchema,
     SimulationSchema,
 )
@@ -148,6 +149,7 @@ def describe_cell(design: Any) -> dict[str, Any]:
         "fields": [describe_declared(design, f) for f in design.fields],
         "forms": [list(f) for f in design.forms],
         "solved": design.solved,
+        "interim": bool(getattr(design, "sequential", False)),
         "data_model": {"keys": list(data_keys(design)), "families": list(families_for(design))}
         if takes_data(design)
         else None,
@@ -170,6 +172,7 @@ def catalogue() -> dict[str, Any]:
         "hypothesis": HypothesisSchema,
         "adjustments": AdjustmentsSchema,
         "adjustments.cluster": ClusterSchema,
+        "interim": InterimSchema,
         "simulation": SimulationSchema,
     }
     return {

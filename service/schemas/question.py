@@ -23,6 +23,7 @@ from . import resolve, rules
 from .blocks import (
     AdjustmentsSchema,
     HypothesisSchema,
+    InterimSchema,
     SampleSizeSchema,
     SimulationField,
     SimulationSchema,
@@ -131,6 +132,11 @@ class QuestionSchema(Strict):
         description="enrolled numbers for find = power or effect; absent for find = sample_size",
     )
     adjustments = Obj(AdjustmentsSchema, description="dropout, clustering and multiple comparisons")
+    interim = Obj(
+        InterimSchema,
+        description="planned interim analyses (group-sequential design), or null for a single "
+        "final analysis; offered by the cells whose catalogue entry says interim: true",
+    )
     method = Choice(
         METHODS,
         description="analytic (default when the analysis has a formula) or simulation",

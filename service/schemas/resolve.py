@@ -11,6 +11,7 @@ from typing import Any
 
 from service.engine import direction as engine_direction
 from service.engine.adjust import split_total
+from service.engine.designs import interim as interim_block
 from service.engine.errors import QuestionError
 from service.engine.models import check_arm
 
@@ -114,6 +115,9 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         "method": how,
         "simulation": sim,
     }
+    if isinstance(data.get("interim"), Mapping) and "looks" in data["interim"]:
+        # Only when posted: a question without interim analyses keeps its record digits.
+        q["interim"] = interim_block.normalize(data["interim"])
     size = data.get("sample_size")
     if size is not None and find != "sample_size":
         if size.get("per_group") is not None:

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from service.engine.adjust import ratio_fraction, split_total
+from service.engine.designs import interim as interim_rules
 
 from . import resolve
 from .cell import Cell
@@ -58,6 +59,7 @@ def check(ctx: Context) -> None:
     cell_fields(ctx)
     analysis_and_method(ctx)
     simulation(ctx)
+    interim(ctx)
     if ctx.cell is not None and not ctx.cell.errors:
         effect_against_hypothesis(ctx)
         group_counts(ctx)
@@ -348,6 +350,26 @@ def group_counts(ctx: Context) -> None:
                 "simulation.data.groups",
                 f"must list {groups} distributions, one per group; got {len(sim_data['groups'])}",
             )
+
+
+def interim(ctx: Context) -> None:
+    """An interim block needs a cell with a sequential test, the analytic method, one-sided
+    futility; the engine's own rule (designs/interim.refusal) decides, named by field."""
+    block = ctx.data.get("interim")
+    if not block or ctx.aim is None:
+        return
+    aim = ctx.aim
+    q = {
+        "interim": block,
+        "method": resolve.method(ctx.design, ctx.data, ctx.raw),
+        "adjustments": ctx.data.get("adjustments"),
+        "hypothesis": {"aim": aim},
+        "alternative": ctx.data.get("alternative")
+        or ("two-sided" if aim == "superiority" else "one-sided"),
+    }
+    why = interim_rules.refusal(ctx.design, q)
+    if why:
+        ctx.add(*why)
 
 
 def direction(ctx: Context) -> None:

@@ -8,7 +8,8 @@ the raw-data path; (4) a simulated solve (d = 0.5, 80%, ≥ 10,000 replicates) �
 (7) the simulated n search runs ≤ 1.5× the minimum replicates (n and n − 1 at the full count
 plus the type I check) at n ≈ 20, 200 and 2,000 — a count, not a time, so not noisy;
 (8) kernels near the cost of drawing their data: two proportions ≤ 2×, rank-sum ≤ 2×,
-log-rank ≤ 5× their draw floors, Welch ≤ 1.5× (as in (2)).
+log-rank ≤ 5× their draw floors, Welch ≤ 1.5× (as in (2)); (9) group-sequential boundaries for
+K = 5 in under 50 ms, and the sequential test's per-replicate cost beside the fixed design's.
 """
 
 from __future__ import annotations
@@ -253,9 +254,42 @@ def kernel_floors() -> None:
         )
 
 
+def interim_boundaries() -> None:
+    """(9) K = 5 boundaries under 50 ms; the sequential test's per-replicate cost on simulated
+    trials (z at every look from cumulative sums) against the fixed design's (z at the end)."""
+    from service.engine import sequential as gs
+
+    t = np.asarray(gs.equal(5))
+    took = best(lambda: gs.efficacy_bounds(t, 0.05, 2, "obrien_fleming", -4.0), repeat=7)
+    print(
+        f"(9) K = 5 boundaries {took * 1e3:6.2f} ms; ratio {took / 0.05:5.2f} of 50 ms (goal ≤ 1)"
+    )
+    upper = np.asarray(gs.efficacy_bounds(t, 0.05, 2, "obrien_fleming", -4.0))
+    n, reps = 124, 4000
+    sizes = (np.asarray(gs.equal(5)) * n).astype(int)
+    rng = np.random.default_rng(1)
+
+    def fixed():
+        a = rng.normal(0, 1, (reps, n)).sum(1)
+        b = rng.normal(0.4, 1, (reps, n)).sum(1)
+        return np.abs((b - a) / np.sqrt(2 * n)) >= 1.96
+
+    def staged():
+        a = np.cumsum(rng.normal(0, 1, (reps, n)), axis=1)[:, sizes - 1]
+        b = np.cumsum(rng.normal(0.4, 1, (reps, n)), axis=1)[:, sizes - 1]
+        return (np.abs((b - a) / np.sqrt(2 * sizes)) >= upper).any(axis=1)
+
+    t_fixed, t_staged = best(fixed), best(staged)
+    print(
+        f"(9) sequential test {t_staged / reps * 1e6:7.3f} µs/rep against the fixed design's "
+        f"{t_fixed / reps * 1e6:7.3f} µs/rep; ratio {t_staged / t_fixed:5.2f}"
+    )
+
+
 if __name__ == "__main__":
     main()
     memory()
     analytic()
     search_replicates()
     kernel_floors()
+    interim_boundaries()

@@ -245,6 +245,9 @@ class Design:
     null_effect: Callable[[dict], float | None]
     cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
     directional: bool = True  # False: the tests have no direction (F), one-sided is refused
+    # True: the test statistic is asymptotically normal with independent increments, so the
+    # question may plan interim analyses (the ``interim`` block, engine/sequential.py)
+    sequential: bool = False
     notes: tuple[str, ...] = ()  # cell-level notes for the catalogue
 
     @property

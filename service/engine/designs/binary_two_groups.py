@@ -564,6 +564,7 @@ DESIGN = Design(
     simulation=SIMULATION,
     phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
     example="northbridge_wound_infection.json",
+    sequential=True,
     contrast=_contrast,
     null_effect=lambda q: values(q, FIELDS).get("p_control"),
     cluster=CLUSTER,

@@ -183,6 +183,7 @@ def t_cell(
         simulation=simulation,
         phrases=phrases,
         example=example,
+        sequential=True,
         contrast=lambda q: values(q, fields).get("difference"),
         null_effect=lambda q: 0.0,
     )

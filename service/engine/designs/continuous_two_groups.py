@@ -518,6 +518,7 @@ DESIGN = Design(
     simulation=SIMULATION,
     phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
     example="northbridge_bp_trial.json",
+    sequential=True,
     contrast=lambda q: values(q, FIELDS).get("difference"),
     null_effect=lambda q: 0.0,
     cluster=CLUSTER,

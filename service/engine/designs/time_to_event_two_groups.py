@@ -473,6 +473,7 @@ DESIGN = Design(
     simulation=SIMULATION,
     phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
     example="northbridge_heart_failure_survival.json",
+    sequential=True,
     contrast=_contrast,
     null_effect=lambda q: 1.0,
 )

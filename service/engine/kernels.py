@@ -12,11 +12,13 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
+from scipy import stats
 
-from . import cluster_sim, models, vectests
-from .chunks import BLOCK, ChunkTask, Streams
+from . import cluster_sim, manytoone, models, vectests
+from .chunks import BLOCK, STREAM_NULL, ChunkTask, Streams
 from .errors import QuestionError
 
 Run = Callable[[Streams, ChunkTask, int], tuple[np.ndarray, dict]]
@@ -177,6 +179,45 @@ def _logrank_draws(task: ChunkTask) -> int:
     return _raw_draws(task, [per_obs] * len(task.per_group))
 
 
+@lru_cache(maxsize=64)
+def _many_critical(analysis: str, alpha: float, per_group: tuple[int, ...], tails: int) -> float:
+    df = float(sum(per_group) - len(per_group))
+    if analysis == "dunnett":
+        return manytoone.dunnett_critical(alpha, list(per_group), df, tails)
+    return manytoone.bonferroni_critical(alpha, len(per_group) - 1, df, tails)
+
+
+def _many_to_one(streams: Streams, task: ChunkTask, rows: int):
+    """k treatment groups against the control: t statistics with the pooled SD, then Dunnett,
+    Bonferroni, Holm or Hochberg; success is any or all treatment groups significant (the
+    effect-removed stream always asks "any": the familywise error)."""
+    g = len(task.models)
+    summaries = [_moments(streams, task, i, rows) for i in range(g)]
+    n = np.array(task.per_group, dtype=float)
+    df = float(n.sum() - g)
+    pooled = sum((n[i] - 1.0) * summaries[i][1] for i in range(g)) / df
+    means = np.stack([s[0] for s in summaries[1:]], axis=1)  # (rows, k)
+    se = np.sqrt(pooled[:, None] * (1.0 / n[1:] + 1.0 / n[0]))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (means - summaries[0][0][:, None]) / se
+    two = task.rule["alternative"] == "two-sided"
+    stat = np.abs(t) if two else task.rule["direction"] * t
+    tails = 2 if two else 1
+    goal = "any_treatment" if task.stream == STREAM_NULL else task.settings["power_goal"]
+    if task.analysis in ("dunnett", "bonferroni"):
+        c = _many_critical(task.analysis, task.alpha, tuple(task.per_group), tails)
+        hit = stat > c
+        return (hit.any(axis=1) if goal == "any_treatment" else hit.all(axis=1)), {}
+    p = np.sort(tails * stats.t.sf(stat, df), axis=1)  # ordered p-values, smallest first
+    k = p.shape[1]
+    steps = task.alpha / (k - np.arange(k))  # α/k, α/(k − 1), …, α
+    below = p <= steps
+    if task.analysis == "holm":  # step-down: reject while p₍ⱼ₎ ≤ α/(k − j + 1)
+        return (below[:, 0] if goal == "any_treatment" else below.all(axis=1)), {}
+    # Hochberg step-up: reject H₍₁₎…H₍ⱼ₎ for the largest j with p₍ⱼ₎ ≤ α/(k − j + 1)
+    return (below.any(axis=1) if goal == "any_treatment" else below[:, -1]), {}
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -200,6 +241,7 @@ KERNELS: dict[str, Kernel] = {
     ),
     "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
+    "many_to_one": Kernel(_many_to_one, _moment_draws, _raw_bytes(4), summaries=True),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True

@@ -26,6 +26,7 @@ def _load() -> None:
         continuous_k_groups,
         continuous_paired,
         continuous_single_group,
+        continuous_treatments_vs_control,
         continuous_two_groups,
         ordinal_two_groups,
         time_to_event_two_groups,
@@ -40,6 +41,7 @@ def _load() -> None:
         association_single_group,
         ordinal_two_groups,
         time_to_event_two_groups,
+        continuous_treatments_vs_control,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

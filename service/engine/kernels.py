@@ -208,14 +208,8 @@ def _many_to_one(streams: Streams, task: ChunkTask, rows: int):
         c = _many_critical(task.analysis, task.alpha, tuple(task.per_group), tails)
         hit = stat > c
         return (hit.any(axis=1) if goal == "any_treatment" else hit.all(axis=1)), {}
-    p = np.sort(tails * stats.t.sf(stat, df), axis=1)  # ordered p-values, smallest first
-    k = p.shape[1]
-    steps = task.alpha / (k - np.arange(k))  # α/k, α/(k − 1), …, α
-    below = p <= steps
-    if task.analysis == "holm":  # step-down: reject while p₍ⱼ₎ ≤ α/(k − j + 1)
-        return (below[:, 0] if goal == "any_treatment" else below.all(axis=1)), {}
-    # Hochberg step-up: reject H₍₁₎…H₍ⱼ₎ for the largest j with p₍ⱼ₎ ≤ α/(k − j + 1)
-    return (below.any(axis=1) if goal == "any_treatment" else below[:, -1]), {}
+    p = tails * stats.t.sf(stat, df)
+    return manytoone.stepwise_success(p, task.alpha, task.analysis, goal), {}
 
 
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):

@@ -121,3 +121,16 @@ def power(
     if goal == "all_treatments":
         return min(max(prob_all(c, lam, theta, df, tails), 0.0), 1.0)
     return min(max(1.0 - prob_none(c, lam, theta, df, tails), 0.0), 1.0)
+
+
+def stepwise_success(p: np.ndarray, alpha: float, procedure: str, goal: str) -> np.ndarray:
+    """Per row of p-values (rows, k): does Holm's step-down or Hochberg's step-up procedure
+    reject at least one (goal any_treatment) or every (all_treatments) hypothesis?"""
+    p = np.sort(p, axis=1)  # smallest first
+    k = p.shape[1]
+    below = p <= alpha / (k - np.arange(k))  # p₍ⱼ₎ ≤ α/(k − j + 1)
+    if procedure == "holm":  # step-down: reject while each ordered p passes its level
+        return below[:, 0] if goal == "any_treatment" else below.all(axis=1)
+    if procedure == "hochberg":  # step-up: reject up to the largest j that passes
+        return below.any(axis=1) if goal == "any_treatment" else below[:, -1]
+    raise ValueError(f"unknown procedure {procedure!r}")

@@ -363,7 +363,11 @@ DESIGN = Design(
     describe=describe,
     warnings_for=warnings_for,
     simulation=SIMULATION,
-    phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
+    phrases=Phrases(
+        effect=effect_sentence,
+        assumptions=assumptions_sentence,
+        group_names=lambda q: ["control"] + [f"treatment {i + 1}" for i in range(groups(q) - 1)],
+    ),
     example="northbridge_analgesia_three_doses.json",
     contrast=lambda q: (q.get("effect") or {}).get("difference"),
     null_effect=lambda q: 0.0,

@@ -243,7 +243,16 @@ def _repeated_group(streams: Streams, task: ChunkTask, i: int, rows: int):
         mask = seen == k
         total += np.einsum("rn,rnv,vp->rp", mask, y, weights[k - 1])
         info += mask.sum(axis=1)[:, None, None] * infos[k - 1]
-    return np.linalg.solve(info, total[:, :, None])[:, -1, 0], np.linalg.inv(info)[:, -1, -1]
+    # A replicate where no subject reached a second visit cannot estimate a slope: it counts
+    # as not rejecting (infinite variance) instead of failing the whole simulation.
+    lost = np.linalg.det(info) <= 1e-12
+    if lost.any():
+        info[lost] = np.eye(p)
+        total[lost] = 0.0
+    est = np.linalg.solve(info, total[:, :, None])[:, -1, 0]
+    var = np.linalg.inv(info)[:, -1, -1]
+    var[lost] = np.inf
+    return est, var
 
 
 def _repeated_gls(streams: Streams, task: ChunkTask, rows: int):

@@ -132,3 +132,18 @@ def test_example_through_the_engine():
     record = compute(load_question(raw))
     assert record["power"]["estimate"] >= 0.9
     assert record["method"]["derived"]["completers"] == pytest.approx(0.9**3)
+
+
+def test_a_slope_with_almost_everyone_lost_after_the_first_visit_is_answered():
+    # Replicates where no subject reaches a second visit cannot estimate a slope; they count as
+    # not rejecting, so the answer is a low power, not a failure.
+    q = _question(
+        "slope",
+        {"retention": 0.02, "visit_count": 3},
+        find="power",
+        sample_size={"per_group": [4, 4]},
+        method="simulation",
+        simulation={"replicates": 400, "seed": 2},
+    )
+    record = compute(q)
+    assert 0.0 <= record["power"]["estimate"] < 0.2

@@ -44,6 +44,7 @@ def test_public_surface_is_explicit():
         "implied",
         "ledger",
         "manytoone",
+        "repeated",
     }
     assert public - modules - set(engine.__all__) == set()
     for name in engine.__all__:

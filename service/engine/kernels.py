@@ -12,11 +12,13 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
+from scipy import stats
 
-from . import cluster_sim, models, vectests
-from .chunks import BLOCK, ChunkTask, Streams
+from . import cluster_sim, manytoone, models, repeated, vectests
+from .chunks import BLOCK, STREAM_NULL, ChunkTask, Streams
 from .errors import QuestionError
 
 Run = Callable[[Streams, ChunkTask, int], tuple[np.ndarray, dict]]
@@ -177,6 +179,93 @@ def _logrank_draws(task: ChunkTask) -> int:
     return _raw_draws(task, [per_obs] * len(task.per_group))
 
 
+@lru_cache(maxsize=64)
+def _many_critical(analysis: str, alpha: float, per_group: tuple[int, ...], tails: int) -> float:
+    df = float(sum(per_group) - len(per_group))
+    if analysis == "dunnett":
+        return manytoone.dunnett_critical(alpha, list(per_group), df, tails)
+    return manytoone.bonferroni_critical(alpha, len(per_group) - 1, df, tails)
+
+
+def _many_to_one(streams: Streams, task: ChunkTask, rows: int):
+    """k treatment groups against the control: t statistics with the pooled SD, then Dunnett,
+    Bonferroni, Holm or Hochberg; success is any or all treatment groups significant (the
+    effect-removed stream always asks "any": the familywise error)."""
+    g = len(task.models)
+    summaries = [_moments(streams, task, i, rows) for i in range(g)]
+    n = np.array(task.per_group, dtype=float)
+    df = float(n.sum() - g)
+    pooled = sum((n[i] - 1.0) * summaries[i][1] for i in range(g)) / df
+    means = np.stack([s[0] for s in summaries[1:]], axis=1)  # (rows, k)
+    se = np.sqrt(pooled[:, None] * (1.0 / n[1:] + 1.0 / n[0]))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (means - summaries[0][0][:, None]) / se
+    two = task.rule["alternative"] == "two-sided"
+    stat = np.abs(t) if two else task.rule["direction"] * t
+    tails = 2 if two else 1
+    goal = "any_treatment" if task.stream == STREAM_NULL else task.settings["power_goal"]
+    if task.analysis in ("dunnett", "bonferroni"):
+        c = _many_critical(task.analysis, task.alpha, tuple(task.per_group), tails)
+        hit = stat > c
+        return (hit.any(axis=1) if goal == "any_treatment" else hit.all(axis=1)), {}
+    p = tails * stats.t.sf(stat, df)
+    return manytoone.stepwise_success(p, task.alpha, task.analysis, goal), {}
+
+
+_STANDARD = {"family": "normal", "mean": 0.0, "sd": 1.0}
+_UNIFORM = {"family": "uniform", "low": 0.0, "high": 1.0}
+
+
+def _repeated_group(streams: Streams, task: ChunkTask, i: int, rows: int):
+    """One group's GLS estimate (rows, p) and information (rows, p, p), the covariance known.
+
+    Visit j of every subject is variate j (nested subject blocks, as raw draws are); variate v
+    draws the dropout: a subject is seen at the first K visits, K geometric in the retention.
+    """
+    s, n, model = task.settings, task.per_group[i], task.models[i]
+    v, analysis = s["visits"], task.analysis
+    z = np.stack([streams.raw(i, _STANDARD, n, rows, variate0=j) for j in range(v)], axis=2)
+    chol = np.linalg.cholesky(repeated.correlation(s["structure"], s["rho"], v))
+    y = s["sd"] * (z @ chol.T)  # (rows, n, v) with the visits' correlation
+    x = repeated.design_matrix(analysis, v)
+    y += (model["mean"] + model.get("shift", 0.0)) * x[:, -1]  # level, or slope × time
+    if s["retention"] < 1.0:
+        u = streams.raw(i, _UNIFORM, n, rows, variate0=v)
+        seen = 1 + np.floor(np.log(np.maximum(u, 1e-300)) / np.log(s["retention"]))
+        seen = np.minimum(seen, v).astype(int)
+    else:
+        seen = np.full((rows, n), v)
+    weights, infos = repeated.pattern_weights(s["structure"], s["rho"], v, analysis)
+    p = x.shape[1]
+    total = np.zeros((rows, p))
+    info = np.zeros((rows, p, p))
+    for k in range(1, v + 1):  # one pass per dropout pattern, not per replicate
+        mask = seen == k
+        total += np.einsum("rn,rnv,vp->rp", mask, y, weights[k - 1])
+        info += mask.sum(axis=1)[:, None, None] * infos[k - 1]
+    # A replicate where no subject reached a second visit cannot estimate a slope: it counts
+    # as not rejecting (infinite variance) instead of failing the whole simulation.
+    lost = np.linalg.det(info) <= 1e-12
+    if lost.any():
+        info[lost] = np.eye(p)
+        total[lost] = 0.0
+    est = np.linalg.solve(info, total[:, :, None])[:, -1, 0]
+    var = np.linalg.inv(info)[:, -1, -1]
+    var[lost] = np.inf
+    return est, var
+
+
+def _repeated_gls(streams: Streams, task: ChunkTask, rows: int):
+    est0, var0 = _repeated_group(streams, task, 0, rows)
+    est1, var1 = _repeated_group(streams, task, 1, rows)
+    se = task.settings["sd"] * np.sqrt(var0 + var1)
+    return vectests.decide(est1 - est0, se, None, task.alpha, task.rule), {}
+
+
+def _repeated_draws(task: ChunkTask) -> int:
+    return _raw_draws(task, [task.settings["visits"] + 1] * len(task.per_group))
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -200,6 +289,8 @@ KERNELS: dict[str, Kernel] = {
     ),
     "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
+    "many_to_one": Kernel(_many_to_one, _moment_draws, _raw_bytes(4), summaries=True),
+    "repeated_gls": Kernel(_repeated_gls, _repeated_draws, _raw_bytes(60), summaries=False),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True

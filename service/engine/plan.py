@@ -137,7 +137,7 @@ def _cluster(q: dict, design: Design, arms: list[dict], labels: list[str]) -> di
 
 def _default_labels(design: Design, count: int) -> list[str]:
     keys = design.simulation.data_keys
-    if keys == ("groups",):
+    if keys == ("groups",) or (not keys and count > 1):
         return [f"groups.{i}" for i in range(count)]
     return list(keys) if keys else ["pairs"]
 
@@ -182,9 +182,10 @@ def make_plan(q: dict, alpha: float) -> Plan:
         normal = all(a["family"] == "normal" for a in arms)
         summaries = base.always_summaries or (base.summaries and normal)
     null, null_text = model.null_data(q, arms, rule)
-    # Two named groups follow the allocation ratio; a list of groups is planned equal.
+    # Named groups (two groups; a control and its treatment groups) follow the design's
+    # allocation; a list of groups is planned equal.
     weights = [1.0] * len(arms)
-    if len(arms) == 2 and model.data_keys != ("groups",):
+    if len(arms) >= 2 and model.data_keys != ("groups",):
         ratio = float(q.get("allocation_ratio") or 1.0)
         if ratio <= 0:
             raise QuestionError("allocation_ratio", f"must be > 0; got {ratio:g}")

@@ -193,7 +193,11 @@ def group_count(q: dict) -> int:
 
 
 def group_names(q: dict, k: int) -> list[str]:
-    """Control and treatment for two groups, numbered groups beyond."""
+    """The cell's own names when it has them; control and treatment for two groups, numbered
+    groups beyond."""
+    named = cell(q).phrases.group_names
+    if named is not None:
+        return named(q)
     if k == 2:
         return ["control", "treatment"]
     return [f"group {i + 1}" for i in range(k)]

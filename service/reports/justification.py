@@ -281,7 +281,8 @@ def _data_model(data: dict | None) -> str:
         if isinstance(dist, dict) and "family" in dist:
             described.append(f"{label} {_dist_words(dist)}")
         elif isinstance(dist, list):
-            described.extend(f"group {i + 1} {_dist_words(d)}" for i, d in enumerate(dist))
+            one = "treatment" if label == "treatments" else "group"
+            described.extend(f"{one} {i + 1} {_dist_words(d)}" for i, d in enumerate(dist))
     return f" The simulated data were {'; '.join(described)}." if described else ""
 
 

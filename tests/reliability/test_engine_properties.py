@@ -60,6 +60,25 @@ VALUES = {
             "follow_up": _floats(0.0, 24.0),
         }
     ),
+    ("continuous", "treatments_vs_control"): st.fixed_dictionaries(
+        {
+            "difference": _floats(0.1, 2.0),
+            "sd": _floats(0.5, 3.0),
+            "treatment_count": st.integers(1, 4),
+            "power_goal": st.sampled_from(["any_treatment", "all_treatments"]),
+            "control_allocation": st.sampled_from(["equal", "square_root"]),
+        }
+    ),
+    ("continuous", "repeated_measures"): st.fixed_dictionaries(
+        {
+            "difference": _floats(0.1, 2.0),
+            "sd": _floats(0.5, 3.0),
+            "correlation": _floats(0.0, 0.9),
+            "visit_count": st.integers(2, 6),
+            "correlation_structure": st.sampled_from(["compound_symmetry", "ar1"]),
+            "retention": _floats(0.5, 1.0),
+        }
+    ),
 }
 CELLS = sorted(VALUES)
 
@@ -74,7 +93,7 @@ def _blocks(cell: tuple, values: dict) -> dict:
 
 
 def _groups(cell: tuple, values: dict) -> int:
-    return int(values.get("group_count") or designs.get(*cell).groups({}))
+    return int(values.get("group_count") or designs.get(*cell).groups(_blocks(cell, values)))
 
 
 def _simulation(cell: tuple, draw) -> dict:

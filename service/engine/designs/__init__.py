@@ -25,7 +25,9 @@ def _load() -> None:
         binary_two_groups,
         continuous_k_groups,
         continuous_paired,
+        continuous_repeated_measures,
         continuous_single_group,
+        continuous_treatments_vs_control,
         continuous_two_groups,
         ordinal_two_groups,
         time_to_event_two_groups,
@@ -40,6 +42,8 @@ def _load() -> None:
         association_single_group,
         ordinal_two_groups,
         time_to_event_two_groups,
+        continuous_treatments_vs_control,
+        continuous_repeated_measures,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

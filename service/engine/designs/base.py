@@ -204,6 +204,8 @@ class Phrases:
 
     effect: Callable[[dict, dict | None], str]
     assumptions: Callable[[dict], str]
+    # optional q -> the groups' names in prose, in group order ("control", "treatment 1", …)
+    group_names: Callable[[dict], list[str]] | None = None
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,208 @@
+"""Continuous outcome, treatments against a shared control: Dunnett's critical value and power,
+Bonferroni, Holm and Hochberg, against published values, scipy, statsmodels and simulation."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import stats
+from statsmodels.stats.multitest import multipletests
+
+from service.engine import compute, manytoone
+from service.schemas import load_question
+
+EXAMPLES = Path(__file__).resolve().parents[2] / "service" / "examples"
+CELL = {"outcome": "continuous", "layout": "treatments_vs_control"}
+
+
+def _question(**over) -> dict:
+    raw = {
+        **CELL,
+        "effect": {"difference": 1.0},
+        "assumptions": {"sd": 2.0, "treatment_count": 3},
+        **over,
+    }
+    return load_question(raw)
+
+
+# --- reference values ----------------------------------------------------------------------
+
+# From memory: Dunnett (1955), tables of two-sided (Table 2a) and one-sided (Table 1a) critical
+# values at alpha 0.05, equal group sizes, printed to two decimals. (k, df, tails, value)
+DUNNETT_1955 = [
+    (2, 10, 2, 2.57),
+    (3, 20, 2, 2.54),
+    (9, math.inf, 2, 2.69),
+    (2, 10, 1, 2.15),
+    (4, 60, 1, 2.21),
+    (9, math.inf, 1, 2.42),
+]
+
+
+@pytest.mark.parametrize(("k", "df", "tails", "printed"), DUNNETT_1955)
+def test_dunnett_critical_values_from_memory(k, df, tails, printed):
+    # Group sizes only set the correlation (½ for equal groups); df is passed on its own.
+    df = manytoone.NORMAL_DF if math.isinf(df) else df
+    c = manytoone.dunnett_critical(0.05, [10.0] * (k + 1), df, tails)
+    assert round(c, 2) == printed
+
+
+@pytest.mark.parametrize("per_group", [[20, 20, 20, 20], [35, 20, 20, 20], [30, 12, 18]])
+def test_critical_value_against_scipy_multivariate_t(per_group):
+    # scipy.stats.multivariate_t.cdf (Genz's quasi-Monte Carlo) at Dunnett's critical value:
+    # P(every |Tᵢ| ≤ c) = 0.95 with correlations 1/√((1 + n₀/nᵢ)(1 + n₀/nⱼ)).
+    n0, rest = per_group[0], per_group[1:]
+    lam = np.array([1 / math.sqrt(1 + n0 / n) for n in rest])
+    corr = np.outer(lam, lam)
+    np.fill_diagonal(corr, 1.0)
+    df = sum(per_group) - len(per_group)
+    c = manytoone.dunnett_critical(0.05, per_group, df, 2)
+    k = len(rest)
+    mvt = stats.multivariate_t(shape=corr, df=df)
+    inside = mvt.cdf(np.full(k, c), lower_limit=np.full(k, -c), random_state=11)
+    assert inside == pytest.approx(0.95, abs=5e-4)
+
+
+def test_p_values_against_scipy_dunnett():
+    # scipy.stats.dunnett (scipy ≥ 1.11) on one simulated data set of 3 treatment groups and a
+    # larger control: its p-values are P(max |Tⱼ| ≥ |tᵢ|), the same joint law as ours.
+    rng = np.random.default_rng(2026)
+    control = rng.normal(0.0, 2.0, 30)
+    treated = [rng.normal(d, 2.0, 18) for d in (0.4, 1.0, 1.6)]
+    res = stats.dunnett(*treated, control=control, random_state=5)
+    sizes = [30, 18, 18, 18]
+    lam = manytoone.lambdas(sizes)
+    df = sum(sizes) - 4
+    for t, p in zip(res.statistic, res.pvalue, strict=True):
+        ours = 1.0 - manytoone.prob_none(abs(t), lam, np.zeros(3), df, 2)
+        assert ours == pytest.approx(p, abs=2e-3)
+
+
+def test_holm_and_hochberg_match_statsmodels():
+    # statsmodels.stats.multitest.multipletests on random p-values: any/all rejected.
+    rng = np.random.default_rng(7)
+    p = rng.beta(0.3, 1.0, size=(40, 4))
+    for procedure, method in (("holm", "holm"), ("hochberg", "simes-hochberg")):
+        reject = np.array([multipletests(row, alpha=0.05, method=method)[0] for row in p])
+        any_ = manytoone.stepwise_success(p, 0.05, procedure, "any_treatment")
+        all_ = manytoone.stepwise_success(p, 0.05, procedure, "all_treatments")
+        assert np.array_equal(any_, reject.any(axis=1))
+        assert np.array_equal(all_, reject.all(axis=1))
+        assert any_.any() and not any_.all() and all_.any()
+
+
+def test_one_treatment_group_is_the_t_test():
+    # formula: with k = 1 Dunnett's test is the two-sample t test (noncentral t power).
+    q = _question(
+        assumptions={"sd": 2.0, "treatment_count": 1},
+        find="power",
+        sample_size={"per_group": [40, 40]},
+    )
+    power = compute(q)["power"]["estimate"]
+    df, nc = 78, 1.0 / (2.0 * math.sqrt(2 / 40))
+    crit = stats.t.isf(0.025, df)
+    assert power == pytest.approx(
+        stats.nct.sf(crit, df, nc) + stats.nct.cdf(-crit, df, nc), abs=1e-6
+    )
+
+
+def test_square_root_allocation_needs_fewer_in_total():
+    # Dunnett (1955): a control √k times each treatment group minimizes the comparisons' variance.
+    equal = compute(_question())["sample_size"]["total"]
+    root = compute(_question(analysis_options={"control_allocation": "square_root"}))
+    assert root["sample_size"]["total"] < equal
+    per = root["sample_size"]["per_group"]
+    assert per[0] / per[1] == pytest.approx(math.sqrt(3), rel=0.06)
+
+
+def test_conjunctive_needs_more_than_disjunctive_and_bonferroni_more_than_dunnett():
+    any_ = compute(_question())["sample_size"]["per_group"]
+    all_ = compute(_question(analysis_options={"power_goal": "all_treatments"}))
+    bonf = compute(_question(analysis="bonferroni"))["sample_size"]["per_group"]
+    assert all_["sample_size"]["per_group"][1] > any_[1]
+    assert bonf[1] >= any_[1]
+
+
+def test_find_effect_reaches_the_target():
+    q = _question(find="effect", effect={}, sample_size={"per_group": [50, 50, 50, 50]})
+    record = compute(q)
+    assert record["effect"]["field"] == "difference"
+    assert record["power"]["estimate"] == pytest.approx(0.8, abs=1e-6)
+
+
+def test_comparisons_adjustment_is_refused():
+    from service.engine import QuestionError
+
+    q = _question(adjustments={"comparisons": 3})
+    with pytest.raises(QuestionError) as err:
+        compute(q)
+    assert err.value.field == "adjustments.comparisons"
+
+
+# --- simulation against the formula --------------------------------------------------------
+
+
+def _simulated(analysis: str, goal: str, seed: int = 3) -> dict:
+    q = _question(
+        find="power",
+        analysis=analysis,
+        analysis_options={"power_goal": goal, "control_allocation": "square_root"},
+        sample_size={"per_group": [40, 23, 23, 23]},
+        method="simulation",
+        simulation={"replicates": 4000, "seed": seed},
+    )
+    return compute(q)
+
+
+@pytest.mark.parametrize(
+    ("analysis", "goal"),
+    [
+        ("dunnett", "any_treatment"),
+        ("dunnett", "all_treatments"),
+        ("bonferroni", "any_treatment"),
+        ("bonferroni", "all_treatments"),
+    ],
+)
+def test_simulation_agrees_with_the_multivariate_t(analysis, goal):
+    record = _simulated(analysis, goal)
+    power = record["power"]
+    analytic = compute(
+        _question(
+            find="power",
+            analysis=analysis,
+            analysis_options={"power_goal": goal, "control_allocation": "square_root"},
+            sample_size={"per_group": [40, 23, 23, 23]},
+        )
+    )["power"]["estimate"]
+    assert abs(power["estimate"] - analytic) <= 4 * power["mcse"]
+    # the type I error is the familywise rate, alpha for both procedures (Bonferroni ≤ alpha)
+    t1 = record["type_i_error"]
+    assert t1["verdict"] in ("holds", "conservative")
+    if analysis == "dunnett":
+        assert abs(t1["estimate"] - 0.05) <= 4 * t1["mcse"]
+
+
+def test_holm_any_is_bonferroni_any_and_step_procedures_gain_on_all():
+    # Holm rejects something exactly when the smallest p is below α/k, as Bonferroni does
+    # (Holm 1979); for every treatment group both step procedures beat Bonferroni.
+    holm = _simulated("holm", "any_treatment")["power"]
+    bonf = _simulated("bonferroni", "any_treatment")["power"]
+    assert holm["estimate"] == bonf["estimate"]
+    # the analytic figure printed beside a Holm answer is Bonferroni's (equal here)
+    assert holm["analytic"] == bonf["analytic"]
+    bonf_all = _simulated("bonferroni", "all_treatments")["power"]["estimate"]
+    holm_all = _simulated("holm", "all_treatments")["power"]["estimate"]
+    hoch_all = _simulated("hochberg", "all_treatments")["power"]["estimate"]
+    assert bonf_all < holm_all <= hoch_all
+
+
+def test_example_through_the_engine():
+    raw = json.loads((EXAMPLES / "northbridge_analgesia_three_doses.json").read_text())
+    record = compute(load_question(raw))
+    per = record["sample_size"]["per_group"]
+    assert len(per) == 4 and per[0] > per[1] == per[2] == per[3]
+    assert record["power"]["estimate"] >= 0.8

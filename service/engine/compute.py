@@ -195,6 +195,11 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             record["events"] = solution.details.get("events")
         final, steps = adjust.inflate(raw, q)
         base = _base_per_group(steps, raw)
+        if record["events"] and design.events_timing is not None:
+            record["events"] = {
+                **record["events"],
+                **design.events_timing(q, base, record["events"]),
+            }
         power = sim["power"] if sim else _analytic_power(design, q, base, alpha)
         record["sample_size"] = {
             "per_group": final,

@@ -348,7 +348,18 @@ def fisher_reject(c1, n1: int, c2, n2: int, alpha: float, rule: dict) -> np.ndar
 
 
 def logrank_z(time: np.ndarray, event: np.ndarray, n_control: int) -> np.ndarray:
-    """Return the log-rank z per row: (observed − expected) treatment events over √variance.
+    """Return the log-rank z per row: (observed − expected) treatment events over √variance."""
+    excess, variance = logrank_parts(time, event, n_control)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return excess / np.sqrt(variance)
+
+
+def logrank_parts(
+    time: np.ndarray, event: np.ndarray, n_control: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return per row the observed − expected treatment events and the log-rank variance.
+
+    (O − E)/V is the Peto estimate of ln HR with standard error 1/√V (a margin test uses it).
 
     Columns ``[:n_control]`` are the control arm. Times are continuous, so ties have
     probability zero and each event time has one event; negative z means fewer treatment
@@ -370,8 +381,7 @@ def logrank_z(time: np.ndarray, event: np.ndarray, n_control: int) -> np.ndarray
     spread = np.subtract(1.0, share)
     spread *= share  # share · (1 − share), in place
     variance = np.where(died, spread, 0.0).sum(axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return (observed - expected) / np.sqrt(variance)
+    return observed - expected, variance
 
 
 def chi2_critical(alpha: float, df: int) -> float:

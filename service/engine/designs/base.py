@@ -246,6 +246,9 @@ class Design:
     cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
     directional: bool = True  # False: the tests have no direction (F), one-sided is refused
     notes: tuple[str, ...] = ()  # cell-level notes for the catalogue
+    # (q, enrolled per_group, events block) -> keys added to the record's events block (the
+    # calendar time the required events are expected); None: the cell counts no events.
+    events_timing: Callable[[dict, list[float], dict], dict] | None = None
 
     @property
     def cell(self) -> str:

@@ -215,13 +215,16 @@ def _logrank(streams: Streams, task: ChunkTask, rows: int):
     time, event = _event_rows(streams, task, rows)
     counted = {"events": int(event.sum())}
     if task.rule.get("aim") == "noninferiority":
-        # Against a hazard-ratio margin: the Peto estimate of ln HR, (O − E)/V, with SE 1/√V;
-        # lower hazards are better, so the test rejects ln HR ≥ ln margin.
-        excess, variance = vectests.logrank_parts(time, event, task.per_group[0])
+        # Against a hazard-ratio margin: the score test of HR = margin (treatment at-risk
+        # counts weighted by the margin); fewer treatment events than expected under the margin
+        # show noninferiority, as lower hazards are better.
+        excess, variance = vectests.logrank_parts(
+            time, event, task.per_group[0], float(task.rule["margin"])
+        )
         with np.errstate(divide="ignore", invalid="ignore"):
-            est, se = excess / variance, 1.0 / np.sqrt(variance)
-        rule = {**task.rule, "direction": -1, "margin": math.log(task.rule["margin"])}
-        return vectests.decide(est, se, None, task.alpha, rule), counted
+            z = excess / np.sqrt(variance)
+        rule = {**task.rule, "aim": "superiority", "alternative": "one-sided", "direction": -1}
+        return vectests.decide(z, 1.0, None, task.alpha, rule), counted
     z = vectests.logrank_z(time, event, task.per_group[0])
     return vectests.decide(z, 1.0, None, task.alpha, task.rule), counted
 

@@ -355,11 +355,12 @@ def logrank_z(time: np.ndarray, event: np.ndarray, n_control: int) -> np.ndarray
 
 
 def logrank_parts(
-    time: np.ndarray, event: np.ndarray, n_control: int
+    time: np.ndarray, event: np.ndarray, n_control: int, hr0: float = 1.0
 ) -> tuple[np.ndarray, np.ndarray]:
     """Return per row the observed − expected treatment events and the log-rank variance.
 
-    (O − E)/V is the Peto estimate of ln HR with standard error 1/√V (a margin test uses it).
+    With ``hr0`` ≠ 1 the expectation is under hazard ratio hr0 (the Cox score test of
+    β = ln hr0: each treatment subject at risk weighs hr0), the test against a margin.
 
     Columns ``[:n_control]`` are the control arm. Times are continuous, so ties have
     probability zero and each event time has one event; negative z means fewer treatment
@@ -375,7 +376,11 @@ def logrank_parts(
     t_risk = np.cumsum(treated, axis=1, dtype=np.int32)
     np.subtract(treated.sum(axis=1, keepdims=True, dtype=np.int32), t_risk, out=t_risk)
     t_risk += treated
-    share = t_risk / at_risk
+    if hr0 == 1.0:
+        share = t_risk / at_risk
+    else:
+        weighted = hr0 * t_risk
+        share = weighted / (at_risk - t_risk + weighted)
     observed = (died & treated).sum(axis=1)
     expected = np.where(died, share, 0.0).sum(axis=1)
     spread = np.subtract(1.0, share)

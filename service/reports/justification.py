@@ -95,6 +95,11 @@ def _analyzed(sizes: list, q: dict) -> str:
 def hypothesis_words(q: dict) -> str:
     hyp = q.get("hypothesis") or {}
     aim, margin = hyp.get("aim", "superiority"), hyp.get("margin")
+    if aim == "noninferiority" and q.get("outcome") == "time_to_event":
+        return (
+            f"to show non-inferiority with a hazard-ratio margin of {fmt_num(margin)} "
+            "(treatment over control)"
+        )
     if aim == "noninferiority":
         return f"to show non-inferiority with a margin of {fmt_num(margin)}"
     if aim == "equivalence":
@@ -385,7 +390,9 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
     if ev:
         p = ev["probability"]
         body += (
-            f" {fmt_count(ev['required'])} events are required (unrounded {_raw(ev['raw'])}). "
+            f" {fmt_count(ev['required'])} events are "
+            f"{'expected' if ev.get('basis') == 'expected' else 'required'} "
+            f"(unrounded {_raw(ev['raw'])}). "
             f"With a probability of an event during the study of {fmt_prob(p['control'])} in "
             f"the control group and {fmt_prob(p['treatment'])} in the treatment group "
             f"(allocation-weighted mean {fmt_prob(p['mean'])}), this needs "
@@ -413,6 +420,12 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         )
     if analytic:
         body += f" The power at the analyzed size is {fmt_power(record['power']['estimate'])}."
+    if ev and ev.get("calendar_time") is not None:
+        body += (
+            f" At the analyzed size these events are expected about "
+            f"{fmt_num(round(ev['calendar_time'], 1))} {ev.get('time_unit', 'time units')} after "
+            "the first participant enters, under the stated accrual and follow-up."
+        )
     return body
 
 

@@ -453,6 +453,9 @@ def solve_n(q: dict, alpha: float) -> Solution:
                 "raw": raw,
                 "probability": {"control": pc, "treatment": pt, "mean": mean},
                 "subjects_total_raw": total,
+                # with a delayed effect the drift sets N; the events are what N is expected
+                # to give, not a requirement of their own
+                **({"basis": "expected"} if s["lag"] > 0 else {}),
             }
         },
     )
@@ -514,7 +517,10 @@ def events_timing(q: dict, per_group: list[float], events: dict) -> dict:
     if hr is None:
         return {}
     prof = profile(q, hr)
-    when = survival_profile.calendar_time(prof, per_group, float(events["required"]))
+    # With a delayed effect the events are what the drift's N is expected to give (unrounded),
+    # not a requirement of their own: time the unrounded number.
+    target = float(events["raw"] if events.get("basis") == "expected" else events["required"])
+    when = survival_profile.calendar_time(prof, per_group, target)
     return {"calendar_time": when, "time_unit": values(q, FIELDS)["time_unit"]}
 
 
@@ -726,22 +732,52 @@ def effect_sentence(q: dict, record: dict | None) -> str:
 def assumptions_sentence(q: dict) -> str:
     v = values(q, FIELDS)
     unit = v.get("time_unit") or "time units"
+    per = unit[:-1]
     if v.get("control_median") is not None:
         base = (
             f"a median time to the event of {fmt(v['control_median'])} {unit} in the control group"
         )
     elif v.get("control_hazard") is not None:
-        base = f"a control hazard of {fmt(v['control_hazard'])} events per person per {unit[:-1]}"
+        base = f"a control hazard of {fmt(v['control_hazard'])} events per person per {per}"
+    elif v.get("control_hazards") is not None:
+        base = _pieces_text(v, unit, per)
     else:
         return ""
     parts = [base]
+    if v.get("treatment_lag"):
+        parts.append(
+            f"no treatment effect (hazard ratio 1) during the first {fmt(v['treatment_lag'])} "
+            f"{unit}"
+        )
     if v.get("accrual") is not None:
-        parts.append(f"{fmt(v['accrual'])} {unit} of accrual")
+        accrual = f"{fmt(v['accrual'])} {unit} of accrual"
+        if v.get("accrual_rates") is not None:
+            rates = ":".join(fmt(r) for r in v["accrual_rates"])
+            accrual += f" at relative rates {rates} over equal parts of it"
+        parts.append(accrual)
     if v.get("follow_up") is not None:
         parts.append(f"{fmt(v['follow_up'])} {unit} of further follow-up")
-    if v.get("loss_hazard"):
-        parts.append(f"a loss-to-follow-up hazard of {fmt(v['loss_hazard'])} per {unit[:-1]}")
+    loss_t = v.get("loss_hazard_treatment")
+    if loss_t is not None and loss_t != v.get("loss_hazard"):
+        parts.append(
+            f"loss-to-follow-up hazards of {fmt(v.get('loss_hazard') or 0)} per {per} in the "
+            f"control group and {fmt(loss_t)} in the treatment group"
+        )
+    elif v.get("loss_hazard"):
+        parts.append(f"a loss-to-follow-up hazard of {fmt(v['loss_hazard'])} per {per}")
     return ", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else base
+
+
+def _pieces_text(v: dict, unit: str, per: str) -> str:
+    """'control hazards of 0.08 per month until month 12 and 0.05 after'."""
+    hazards, cuts = v["control_hazards"], v.get("cut_points") or []
+    if not cuts:
+        return f"a control hazard of {fmt(hazards[0])} events per person per {per}"
+    spans = [f"{fmt(h)} until {per} {fmt(c)}" for h, c in zip(hazards, cuts, strict=False)]
+    return (
+        f"control hazards (events per person per {per}) of {', '.join(spans)} and "
+        f"{fmt(hazards[-1])} after"
+    )
 
 
 def _contrast(q: dict) -> float | None:

@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, cluster, designs, implied, starting
+from . import adjust, assurance, cluster, designs, implied, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, versions
@@ -163,6 +163,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         "cautions": list(CAUTIONS),
     }
     find = q["find"]
+    if q.get("assurance"):
+        assurance.check(q, design)  # refuse before any work
     sim = None
     clustered = cluster.settings(q) is not None
     if clustered:
@@ -275,6 +277,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     if note:
         record["method"] = dict(record["method"], alpha_note=note)
     record["power"] = power
+    if q.get("assurance"):
+        record["assurance"] = assurance.block(q, design, analyzed, alpha, power["estimate"])
     repro["versions"] = versions()
     record["reproducibility"] = repro
     record["warnings"].extend(_warnings(design, q, analyzed))

@@ -17,6 +17,7 @@ from marshmallow import Schema, fields
 from . import declared
 from .blocks import (
     AdjustmentsSchema,
+    AssuranceSchema,
     ClusterSchema,
     HypothesisSchema,
     SampleSizeSchema,
@@ -171,6 +172,7 @@ def catalogue() -> dict[str, Any]:
         "adjustments": AdjustmentsSchema,
         "adjustments.cluster": ClusterSchema,
         "simulation": SimulationSchema,
+        "assurance": AssuranceSchema,
     }
     return {
         "cells": [describe_cell(d) for d in cells()],

@@ -22,6 +22,7 @@ from marshmallow import ValidationError, fields, post_load, validates_schema
 from . import resolve, rules
 from .blocks import (
     AdjustmentsSchema,
+    AssuranceSchema,
     HypothesisSchema,
     SampleSizeSchema,
     SimulationField,
@@ -131,6 +132,11 @@ class QuestionSchema(Strict):
         description="enrolled numbers for find = power or effect; absent for find = sample_size",
     )
     adjustments = Obj(AdjustmentsSchema, description="dropout, clustering and multiple comparisons")
+    assurance = Obj(
+        AssuranceSchema,
+        description="optional prior on the effect (mean, sd, lower, upper) and a target: the "
+        "assurance, power averaged over the prior, is reported beside the power",
+    )
     method = Choice(
         METHODS,
         description="analytic (default when the analysis has a formula) or simulation",

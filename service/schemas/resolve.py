@@ -114,6 +114,8 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         "method": how,
         "simulation": sim,
     }
+    if data.get("assurance") is not None:  # only when asked: other questions keep their form
+        q["assurance"] = {k: v for k, v in data["assurance"].items() if v is not None}
     size = data.get("sample_size")
     if size is not None and find != "sample_size":
         if size.get("per_group") is not None:

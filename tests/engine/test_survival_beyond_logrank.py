@@ -238,3 +238,9 @@ def test_analytic_and_simulation_agree(assumptions, top):
     assert abs(sim["power"]["estimate"] - analytic) < 4 * sim["power"]["mcse"]
     size = sim["type_i_error"]
     assert abs(size["estimate"] - size["alpha"]) < 4 * size["mcse"]
+
+
+def test_noninferiority_strongly_beneficial_hazard_ratio_is_answered():
+    # formula: Schoenfeld (1983) with ln margin − ln HR = ln(1.3/0.2)
+    expected = 4 * (stats.norm.ppf(0.975) + stats.norm.ppf(0.8)) ** 2 / math.log(1.3 / 0.2) ** 2
+    assert ni(0.2, 1.3)["events"]["raw"] == pytest.approx(expected, rel=1e-12)

@@ -811,4 +811,5 @@ DESIGN = Design(
     contrast=_contrast,
     null_effect=lambda q: 1.0,
     events_timing=events_timing,
+    margin_on_effect=True,
 )

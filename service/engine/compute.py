@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, cluster, designs, group_sequential, implied, starting
+from . import adjust, assurance, cluster, designs, group_sequential, implied, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
@@ -165,6 +165,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         "cautions": list(CAUTIONS),
     }
     find = q["find"]
+    if q.get("assurance"):
+        assurance.check(q, design)  # refuse before any work
     sim = None
     clustered = cluster.settings(q) is not None
     staged = group_sequential.active(q)  # interim analyses (analytic only, checked above)
@@ -213,6 +215,11 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         if interim_step is not None:
             steps.insert(0, interim_step)
         base = _base_per_group(steps, raw)
+        if record["events"] and design.events_timing is not None:
+            record["events"] = {
+                **record["events"],
+                **design.events_timing(q, base, record["events"]),
+            }
         power = sim["power"] if sim else _analytic_power(design, q, base, alpha)
         record["sample_size"] = {
             "per_group": final,
@@ -312,6 +319,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     if note:
         record["method"] = dict(record["method"], alpha_note=note)
     record["power"] = power
+    if q.get("assurance"):
+        record["assurance"] = assurance.block(q, design, analyzed, alpha, power["estimate"])
     repro["versions"] = versions()
     record["reproducibility"] = repro
     record["warnings"].extend(_warnings(design, q, analyzed))

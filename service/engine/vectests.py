@@ -348,7 +348,19 @@ def fisher_reject(c1, n1: int, c2, n2: int, alpha: float, rule: dict) -> np.ndar
 
 
 def logrank_z(time: np.ndarray, event: np.ndarray, n_control: int) -> np.ndarray:
-    """Return the log-rank z per row: (observed − expected) treatment events over √variance.
+    """Return the log-rank z per row: (observed − expected) treatment events over √variance."""
+    excess, variance = logrank_parts(time, event, n_control)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return excess / np.sqrt(variance)
+
+
+def logrank_parts(
+    time: np.ndarray, event: np.ndarray, n_control: int, hr0: float = 1.0
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return per row the observed − expected treatment events and the log-rank variance.
+
+    With ``hr0`` ≠ 1 the expectation is under hazard ratio hr0 (the Cox score test of
+    β = ln hr0: each treatment subject at risk weighs hr0), the test against a margin.
 
     Columns ``[:n_control]`` are the control arm. Times are continuous, so ties have
     probability zero and each event time has one event; negative z means fewer treatment
@@ -364,14 +376,17 @@ def logrank_z(time: np.ndarray, event: np.ndarray, n_control: int) -> np.ndarray
     t_risk = np.cumsum(treated, axis=1, dtype=np.int32)
     np.subtract(treated.sum(axis=1, keepdims=True, dtype=np.int32), t_risk, out=t_risk)
     t_risk += treated
-    share = t_risk / at_risk
+    if hr0 == 1.0:
+        share = t_risk / at_risk
+    else:
+        weighted = hr0 * t_risk
+        share = weighted / (at_risk - t_risk + weighted)
     observed = (died & treated).sum(axis=1)
     expected = np.where(died, share, 0.0).sum(axis=1)
     spread = np.subtract(1.0, share)
     spread *= share  # share · (1 − share), in place
     variance = np.where(died, spread, 0.0).sum(axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return (observed - expected) / np.sqrt(variance)
+    return observed - expected, variance
 
 
 def chi2_critical(alpha: float, df: int) -> float:

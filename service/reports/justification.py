@@ -96,6 +96,11 @@ def _analyzed(sizes: list, q: dict) -> str:
 def hypothesis_words(q: dict) -> str:
     hyp = q.get("hypothesis") or {}
     aim, margin = hyp.get("aim", "superiority"), hyp.get("margin")
+    if aim == "noninferiority" and q.get("outcome") == "time_to_event":
+        return (
+            f"to show non-inferiority with a hazard-ratio margin of {fmt_num(margin)} "
+            "(treatment over control)"
+        )
     if aim == "noninferiority":
         return f"to show non-inferiority with a margin of {fmt_num(margin)}"
     if aim == "equivalence":
@@ -387,7 +392,9 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
     if ev:
         p = ev["probability"]
         body += (
-            f" {fmt_count(ev['required'])} events are required (unrounded {_raw(ev['raw'])}). "
+            f" {fmt_count(ev['required'])} events are "
+            f"{'expected' if ev.get('basis') == 'expected' else 'required'} "
+            f"(unrounded {_raw(ev['raw'])}). "
             f"With a probability of an event during the study of {fmt_prob(p['control'])} in "
             f"the control group and {fmt_prob(p['treatment'])} in the treatment group "
             f"(allocation-weighted mean {fmt_prob(p['mean'])}), this needs "
@@ -415,6 +422,12 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         )
     if analytic:
         body += f" The power at the analyzed size is {fmt_power(record['power']['estimate'])}."
+    if ev and ev.get("calendar_time") is not None:
+        body += (
+            f" At the analyzed size these events are expected about "
+            f"{fmt_num(round(ev['calendar_time'], 1))} {ev.get('time_unit', 'time units')} after "
+            "the first participant enters, under the stated accrual and follow-up."
+        )
     return body
 
 
@@ -474,11 +487,48 @@ def justification(record: dict, context: dict | None = None) -> str:
     else:
         body = _given_size_body(record, context, test_level)
     body += interim.sentence(record)
+    body += assurance_sentence(record)
     simulated = record["method"].get("method") == "simulation"
     sim = _simulation(record) if simulated else ""
     warnings = "".join(f" Note: {w.rstrip('.')}." for w in record.get("warnings") or [])
     note = method_note(record)
     return _tidy(opening + body + sim + (f" {note}" if note else "") + warnings)
+
+
+def assurance_sentence(record: dict) -> str:
+    """Assurance beside power, and one plain sentence on how they differ ('' when not asked)."""
+    a = record.get("assurance")
+    if not a:
+        return ""
+    prior = a["prior"]
+    span = ""
+    if prior.get("lower") is not None or prior.get("upper") is not None:
+        lo = "−∞" if prior.get("lower") is None else fmt_num(prior["lower"])
+        hi = "∞" if prior.get("upper") is None else fmt_num(prior["upper"])
+        span = f", truncated to [{lo}, {hi}]"
+    text = (
+        f" Taking the uncertainty about the effect into account, with a normal prior of mean "
+        f"{fmt_num(prior['mean'])} and SD {fmt_num(prior['sd'])}{span} on the "
+        f"{a['field'].replace('_', ' ')}, the assurance (probability of a significant result in "
+        f"the beneficial direction) is {fmt_pct(a['estimate'])}, against a power of "
+        f"{fmt_pct(a['power'])} (O'Hagan, Stevens & Campbell 2005). Power assumes the effect is "
+        "exactly the one stated; assurance averages the power over the plausible effects, so it "
+        "is lower when some of them are small or unfavorable, and it can never exceed the prior "
+        f"probability that the effect is beneficial ({fmt_pct(a['ceiling'])})."
+    )
+    if "target" in a:
+        if a.get("target_per_group") is None:
+            text += (
+                f" An assurance of {fmt_pct(a['target'])} cannot be reached at any size: it is "
+                "at or above that prior probability."
+            )
+        else:
+            text += (
+                f" An assurance of {fmt_pct(a['target'])} needs "
+                f"{_per_group(a['target_per_group'], record['question'])} analyzed (before "
+                "any dropout adjustment)."
+            )
+    return text
 
 
 def _tidy(text: str) -> str:

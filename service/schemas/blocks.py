@@ -247,3 +247,20 @@ def _interim_schema() -> type[Strict]:
 
 
 InterimSchema = _interim_schema()
+
+
+def _assurance_schema() -> type[Strict]:
+    """The question's ``assurance`` block, from the engine's declarations (declared once)."""
+    from service.engine.assurance import FIELDS
+
+    from .declared import marshmallow_field
+
+    attrs = {f.name: marshmallow_field(f) for f in FIELDS}
+    attrs["__doc__"] = (
+        "A normal (or truncated normal) prior on the cell's effect field: the record gives "
+        "the assurance, the power averaged over it, beside the power (O'Hagan et al. 2005)."
+    )
+    return type("AssuranceSchema", (Strict,), attrs)
+
+
+AssuranceSchema = _assurance_schema()

@@ -17,6 +17,7 @@ from marshmallow import Schema, fields
 from . import declared
 from .blocks import (
     AdjustmentsSchema,
+    AssuranceSchema,
     ClusterSchema,
     HypothesisSchema,
     InterimSchema,
@@ -174,6 +175,7 @@ def catalogue() -> dict[str, Any]:
         "adjustments.cluster": ClusterSchema,
         "interim": InterimSchema,
         "simulation": SimulationSchema,
+        "assurance": AssuranceSchema,
     }
     return {
         "cells": [describe_cell(d) for d in cells()],

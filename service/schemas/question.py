@@ -22,6 +22,7 @@ from marshmallow import ValidationError, fields, post_load, validates_schema
 from . import resolve, rules
 from .blocks import (
     AdjustmentsSchema,
+    AssuranceSchema,
     HypothesisSchema,
     InterimSchema,
     SampleSizeSchema,
@@ -136,6 +137,11 @@ class QuestionSchema(Strict):
         InterimSchema,
         description="planned interim analyses (group-sequential design), or null for a single "
         "final analysis; offered by the cells whose catalogue entry says interim: true",
+    )
+    assurance = Obj(
+        AssuranceSchema,
+        description="optional prior on the effect (mean, sd, lower, upper) and a target: the "
+        "assurance, power averaged over the prior, is reported beside the power",
     )
     method = Choice(
         METHODS,

@@ -118,6 +118,8 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
     if isinstance(data.get("interim"), Mapping) and "looks" in data["interim"]:
         # Only when posted: a question without interim analyses keeps its record digits.
         q["interim"] = interim_block.normalize(data["interim"])
+    if data.get("assurance") is not None:  # only when asked: other questions keep their form
+        q["assurance"] = {k: v for k, v in data["assurance"].items() if v is not None}
     size = data.get("sample_size")
     if size is not None and find != "sample_size":
         if size.get("per_group") is not None:

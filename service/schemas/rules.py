@@ -298,7 +298,7 @@ def effect_against_hypothesis(ctx: Context) -> None:
                 f"(no effect to detect); got {show(value)}",
             )
         return
-    if margin is None:
+    if margin is None or ctx.design.margin_on_effect:  # the design checks its own scale
         return
     if ctx.aim == "noninferiority":
         better = q["hypothesis"].get("higher_is_better", True)

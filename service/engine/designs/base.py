@@ -251,6 +251,12 @@ class Design:
     # question may plan interim analyses (the ``interim`` block, engine/sequential.py)
     sequential: bool = False
     notes: tuple[str, ...] = ()  # cell-level notes for the catalogue
+    # (q, enrolled per_group, events block) -> keys added to the record's events block (the
+    # calendar time the required events are expected); None: the cell counts no events.
+    events_timing: Callable[[dict, list[float], dict], dict] | None = None
+    # True when a noninferiority margin is posted on the effect field's own scale (a hazard
+    # ratio above 1) rather than as a contrast; the design's own solve_n checks it then.
+    margin_on_effect: bool = False
 
     @property
     def cell(self) -> str:

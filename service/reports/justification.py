@@ -24,6 +24,7 @@ from .describe import (
     fmt_prob,
     group_names,
     is_omnibus,
+    margin_text,
     unit_words,
 )
 
@@ -95,6 +96,9 @@ def _analyzed(sizes: list, q: dict) -> str:
 def hypothesis_words(q: dict) -> str:
     hyp = q.get("hypothesis") or {}
     aim, margin = hyp.get("aim", "superiority"), hyp.get("margin")
+    own = margin_text(q) if aim != "superiority" else None
+    if own:
+        return own
     if aim == "noninferiority":
         return f"to show non-inferiority with a margin of {fmt_num(margin)}"
     if aim == "equivalence":

@@ -23,10 +23,13 @@ def _load() -> None:
     from . import (
         association_single_group,
         binary_two_groups,
+        continuous_crossover,
         continuous_k_groups,
         continuous_paired,
         continuous_single_group,
         continuous_two_groups,
+        lognormal_crossover,
+        lognormal_two_groups,
         ordinal_two_groups,
         time_to_event_two_groups,
     )
@@ -40,6 +43,9 @@ def _load() -> None:
         association_single_group,
         ordinal_two_groups,
         time_to_event_two_groups,
+        continuous_crossover,
+        lognormal_crossover,
+        lognormal_two_groups,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -207,6 +207,37 @@ def _crossover_t(streams: Streams, task: ChunkTask, rows: int):
     return vectests.decide(est, se, df, task.alpha, task.rule), {}
 
 
+_STANDARD = {"family": "normal", "mean": 0.0, "sd": 1.0}
+
+
+def ancova_data(streams: Streams, task: ChunkTask, rows: int) -> list[tuple]:
+    """Per group, (baseline, outcome) arrays of shape (rows, n).
+
+    Each subject's baseline and outcome are standard bivariate normal with correlation ρ, scaled
+    by the group's SD; the outcome is moved to the group's mean.
+    """
+    rho = task.settings["baseline_correlation"]
+    keep = math.sqrt(1.0 - rho * rho)
+    out = []
+    for i, (model, n) in enumerate(zip(task.models, task.per_group, strict=True)):
+        x = streams.raw(i, _STANDARD, n, rows, variate0=1)
+        y = streams.raw(i, _STANDARD, n, rows, variate0=0)
+        y *= keep
+        y += rho * x
+        y *= model["sd"]
+        y += models.center(model)
+        x *= model["sd"]
+        out.append((x, y))
+    return out
+
+
+def _ancova(streams: Streams, task: ChunkTask, rows: int):
+    """Baseline-adjusted comparison: the least-squares fit of every replicate at once."""
+    (x1, y1), (x2, y2) = ancova_data(streams, task, rows)
+    est, se, df = vectests.ancova_t(x1, y1, x2, y2)
+    return vectests.decide(est, se, df, task.alpha, task.rule), {}
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -230,6 +261,9 @@ KERNELS: dict[str, Kernel] = {
     ),
     "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
+    "ancova": Kernel(
+        _ancova, lambda t: _raw_draws(t, [2] * len(t.per_group)), _raw_bytes(8), False
+    ),
     "crossover_t": Kernel(
         _crossover_t, lambda t: _raw_draws(t, [3] * len(t.per_group)), _raw_bytes(8), False
     ),

@@ -1,4 +1,4 @@
-"""The crossover and bioequivalence examples through the API, the CLI and the report."""
+"""The crossover, bioequivalence and ANCOVA examples through the API, the CLI and the report."""
 
 from __future__ import annotations
 
@@ -23,10 +23,16 @@ CELLS = [("continuous", "crossover"), ("lognormal", "crossover"), ("lognormal", 
 
 
 def _example(outcome: str, layout: str) -> dict:
-    return json.loads((EXAMPLES / designs.get(outcome, layout).example).read_text())
+    return json.loads((EXAMPLES / _file(outcome, layout)).read_text())
 
 
-@pytest.mark.parametrize(("outcome", "layout"), CELLS)
+def _file(outcome: str, layout: str) -> str:
+    if (outcome, layout) == ("continuous", "two_groups"):
+        return "northbridge_knee_pain_ancova.json"  # the baseline-adjusted analysis
+    return designs.get(outcome, layout).example
+
+
+@pytest.mark.parametrize(("outcome", "layout"), [*CELLS, ("continuous", "two_groups")])
 def test_example_through_api_cli_and_report(client, outcome, layout):
     question = _example(outcome, layout)
     r = client.post("/v1/calculations", json={"question": question})
@@ -38,7 +44,7 @@ def test_example_through_api_cli_and_report(client, outcome, layout):
     sizewise = ROOT / ".venv" / "bin" / "sizewise"
     cmd = [str(sizewise)] if sizewise.exists() else [sys.executable, "-m", "service.cli"]
     out = subprocess.run(
-        [*cmd, "compute", str(EXAMPLES / designs.get(outcome, layout).example)],
+        [*cmd, "compute", str(EXAMPLES / _file(outcome, layout))],
         capture_output=True,
         text=True,
         cwd=ROOT,
@@ -51,8 +57,10 @@ def test_example_through_api_cli_and_report(client, outcome, layout):
     text = justification(record)
     assert design.label in text
     assert design.phrases.effect(record["question"], record) in text
+    assert record["method"]["analysis_label"] in text
     page = render_report(REQUEST, record, curve_svg=power_curve_svg(curve_points(record, points=5)))
-    assert html.escape(design.analyses[0].label, quote=False).replace("'", "&#39;") in page
+    label = record["method"]["analysis_label"]
+    assert html.escape(label, quote=False).replace("'", "&#39;") in page
 
 
 def test_catalogue_lists_the_new_cells(client):

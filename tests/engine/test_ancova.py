@@ -154,3 +154,13 @@ def test_ancova_needs_fewer_than_the_t_test():
     n_t = math.ceil(TTestIndPower().solve_power(effect_size=0.5, alpha=0.05, power=0.8))
     record = compute(load_question(ancova(0.5)))
     assert record["sample_size"]["per_group"][0] < n_t
+
+
+def test_the_robustness_panel_is_refused_for_ancova_on_its_analysis():
+    from service.engine import explore
+
+    q = load_question(ancova(find="power", sample_size={"per_group": [30, 30]}))
+    with pytest.raises(QuestionError) as info:
+        explore.robustness(q, [30, 30], replicates=400, seed=1)
+    assert info.value.field == "analysis"
+    assert "ancova" in info.value.message

@@ -319,6 +319,13 @@ def robustness_refusal(question: dict) -> str | None:
             "question with interim analyses"
         )
     if design.simulation is not None and design.simulation.planned_moments is not None:
+        if question.get("analysis") == "ancova":
+            # The departures are non-normal outcomes; the baseline-adjusted simulation draws a
+            # bivariate normal baseline and outcome only.
+            return (
+                "the robustness panel simulates non-normal outcomes, which the ancova analysis "
+                "is not simulated with; ask it of the pooled_t or welch_t analysis"
+            )
         return None
     return (
         "the robustness panel simulates departures from the planned data for "
@@ -408,7 +415,9 @@ def _robustness_iv(question: dict, per_group) -> tuple[float, float, float, floa
     """Validate the robustness inputs; return (control mean, difference, sd_c, sd_t, sizes)."""
     refusal = robustness_refusal(question)
     if refusal is not None:
-        raise QuestionError("layout", refusal)
+        raise QuestionError(
+            "analysis" if question.get("analysis") == "ancova" else "layout", refusal
+        )
     sizes = _two_sizes(per_group)
     return (*_design(question).simulation.planned_moments(question), sizes)
 

@@ -325,6 +325,64 @@ def _repeated_draws(task: ChunkTask) -> int:
     return _raw_draws(task, [task.settings["visits"] + 1] * len(task.per_group))
 
 
+def _crossover_t(streams: Streams, task: ChunkTask, rows: int):
+    """2×2 crossover: subjects' own levels, a period effect and within-subject errors are drawn;
+    the half period differences are compared between the sequences by the pooled t (N − 2 df).
+
+    Group 0 takes the reference first, group 1 the treatment first; a group's model holds that
+    treatment's mean and the within-subject SD.
+    """
+    s = task.settings
+    reference, treatment = task.models
+    mean = [models.center(reference), models.center(treatment)]  # with a null model's shift
+    halves = []
+    for i, (first, second) in enumerate(((0, 1), (1, 0))):
+        n = task.per_group[i]
+        noise = {"family": "normal", "mean": 0.0, "sd": task.models[first]["sd"]}
+        y1 = streams.raw(i, noise, n, rows, variate0=0) + mean[first]
+        y2 = streams.raw(i, noise, n, rows, variate0=1) + mean[second] + s["period_effect"]
+        if s["sd_between"] > 0:
+            subject = streams.raw(
+                i, {"family": "normal", "mean": 0.0, "sd": s["sd_between"]}, n, rows, variate0=2
+            )
+            y1 += subject
+            y2 += subject
+        halves.append(vectests.row_moments(0.5 * (y1 - y2)))
+    (m_rt, v_rt), (m_tr, v_tr) = halves
+    n_rt, n_tr = task.per_group
+    # treatment − reference = mean half difference of TR − that of RT
+    est, se, df = vectests.two_sample_t(m_rt, v_rt, n_rt, m_tr, v_tr, n_tr, equal_var=True)
+    return vectests.decide(est, se, df, task.alpha, task.rule), {}
+
+
+def ancova_data(streams: Streams, task: ChunkTask, rows: int) -> list[tuple]:
+    """Per group, (baseline, outcome) arrays of shape (rows, n).
+
+    Each subject's baseline and outcome are standard bivariate normal with correlation ρ, scaled
+    by the group's SD; the outcome is moved to the group's mean.
+    """
+    rho = task.settings["baseline_correlation"]
+    keep = math.sqrt(1.0 - rho * rho)
+    out = []
+    for i, (model, n) in enumerate(zip(task.models, task.per_group, strict=True)):
+        x = streams.raw(i, _STANDARD, n, rows, variate0=1)
+        y = streams.raw(i, _STANDARD, n, rows, variate0=0)
+        y *= keep
+        y += rho * x
+        y *= model["sd"]
+        y += models.center(model)
+        x *= model["sd"]
+        out.append((x, y))
+    return out
+
+
+def _ancova(streams: Streams, task: ChunkTask, rows: int):
+    """Baseline-adjusted comparison: the least-squares fit of every replicate at once."""
+    (x1, y1), (x2, y2) = ancova_data(streams, task, rows)
+    est, se, df = vectests.ancova_t(x1, y1, x2, y2)
+    return vectests.decide(est, se, df, task.alpha, task.rule), {}
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -350,6 +408,12 @@ KERNELS: dict[str, Kernel] = {
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
     "many_to_one": Kernel(_many_to_one, _moment_draws, _raw_bytes(4), summaries=True),
     "repeated_gls": Kernel(_repeated_gls, _repeated_draws, _raw_bytes(60), summaries=False),
+    "ancova": Kernel(
+        _ancova, lambda t: _raw_draws(t, [2] * len(t.per_group)), _raw_bytes(8), False
+    ),
+    "crossover_t": Kernel(
+        _crossover_t, lambda t: _raw_draws(t, [3] * len(t.per_group)), _raw_bytes(8), False
+    ),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True

@@ -121,6 +121,39 @@ def two_sample_t(m1, v1, n1: int, m2, v2, n2: int, *, equal_var: bool):
     return est, np.sqrt(var), df
 
 
+def ancova_t(x1, y1, x2, y2):
+    """Return (adjusted difference, its standard error, df) of the least-squares fit
+    y = a + b·group + c·x per row (group 1 = second sample; common slope), in closed form.
+
+    Rows are replicates; within-group sums of squares and products give the slope, the
+    adjusted difference is (ȳ₂ − ȳ₁) − c·(x̄₂ − x̄₁) and its variance
+    s²·(1/n₁ + 1/n₂ + (x̄₂ − x̄₁)²/Sxx), s² on n₁ + n₂ − 3 df.
+    """
+    sums = []
+    for x, y in ((x1, y1), (x2, y2)):
+        mx, my = x.mean(axis=1), y.mean(axis=1)
+        xc, yc = x - mx[:, None], y - my[:, None]
+        sums.append(
+            (
+                mx,
+                my,
+                np.einsum("ij,ij->i", xc, xc),
+                np.einsum("ij,ij->i", xc, yc),
+                np.einsum("ij,ij->i", yc, yc),
+            )
+        )
+    (mx1, my1, sxx1, sxy1, syy1), (mx2, my2, sxx2, sxy2, syy2) = sums
+    n1, n2 = x1.shape[1], x2.shape[1]
+    sxx, sxy, syy = sxx1 + sxx2, sxy1 + sxy2, syy1 + syy2
+    slope = sxy / sxx
+    gap = mx2 - mx1
+    est = (my2 - my1) - slope * gap
+    df = n1 + n2 - 3
+    s2 = np.maximum(syy - slope * sxy, 0.0) / df
+    se = np.sqrt(s2 * (1.0 / n1 + 1.0 / n2 + gap * gap / sxx))
+    return est, se, df
+
+
 def one_sample_t(m, v, n: int):
     """Return (mean, its standard error, df) for the one-sample t test of mean 0."""
     return m, np.sqrt(v / n), n - 1

@@ -159,6 +159,13 @@ def assumptions_text(q: dict) -> str:
     return phrases.assumptions(q) if phrases is not None else _generic(q, "assumptions")
 
 
+def margin_text(q: dict) -> str | None:
+    """The hypothesis margin in the cell's own words, or None (then the number is printed)."""
+    phrases = cell(q).phrases
+    margin = getattr(phrases, "margin", None)
+    return margin(q) if margin is not None else None
+
+
 def assumed_text(q: dict, record: dict | None = None, *, effect: bool = True) -> str:
     """The effect and the assumptions in one phrase, as the investigator entered them."""
     parts = [t for t in (effect_text(q, record) if effect else "", assumptions_text(q)) if t]

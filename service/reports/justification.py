@@ -25,6 +25,7 @@ from .describe import (
     fmt_prob,
     group_names,
     is_omnibus,
+    margin_text,
     unit_words,
 )
 
@@ -96,6 +97,9 @@ def _analyzed(sizes: list, q: dict) -> str:
 def hypothesis_words(q: dict) -> str:
     hyp = q.get("hypothesis") or {}
     aim, margin = hyp.get("aim", "superiority"), hyp.get("margin")
+    own = margin_text(q) if aim != "superiority" else None
+    if own:
+        return own
     if aim == "noninferiority" and q.get("outcome") == "time_to_event":
         return (
             f"to show non-inferiority with a hazard-ratio margin of {fmt_num(margin)} "

@@ -110,7 +110,7 @@ def test_unknown_id_on_reads(client, path):
     [
         ("status=done", "query.status"),
         ("outcome=two_medians", "query.outcome"),
-        ("layout=crossover", "query.layout"),
+        ("layout=stepped_wedge", "query.layout"),
         ("cell=continuous", "query.cell"),
         ("requester=not-an-email", "query.requester"),
         ("submitted_from=yesterday", "query.submitted_from"),

@@ -79,6 +79,20 @@ VALUES = {
             "retention": _floats(0.5, 1.0),
         }
     ),
+    ("continuous", "crossover"): st.fixed_dictionaries(
+        {
+            "difference": _floats(0.1, 2.0),
+            "sd_within": _floats(0.5, 3.0),
+            "sd_between": _floats(0.0, 3.0),
+            "period_effect": _floats(-1.0, 1.0),
+        }
+    ),
+    ("lognormal", "crossover"): st.fixed_dictionaries(
+        {"ratio": _floats(1.05, 2.0), "cv": _floats(0.05, 0.8)}
+    ),
+    ("lognormal", "two_groups"): st.fixed_dictionaries(
+        {"ratio": _floats(0.5, 0.95), "cv": _floats(0.05, 1.0)}
+    ),
 }
 CELLS = sorted(VALUES)
 

@@ -152,9 +152,9 @@ CASES = [
     ),
     (
         "layout-unknown",
-        merge(BASE, layout="crossover"),
+        merge(BASE, layout="stepped_wedge"),
         "layout",
-        ["two_groups, paired", '"time_to_event × two_groups"', '"crossover"'],
+        ["two_groups, paired", '"time_to_event × two_groups"', '"stepped_wedge"'],
     ),
     (
         "cell-unknown",

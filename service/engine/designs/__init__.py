@@ -23,12 +23,15 @@ def _load() -> None:
     from . import (
         association_single_group,
         binary_two_groups,
+        continuous_crossover,
         continuous_k_groups,
         continuous_paired,
         continuous_repeated_measures,
         continuous_single_group,
         continuous_treatments_vs_control,
         continuous_two_groups,
+        lognormal_crossover,
+        lognormal_two_groups,
         ordinal_two_groups,
         time_to_event_two_groups,
     )
@@ -44,6 +47,9 @@ def _load() -> None:
         time_to_event_two_groups,
         continuous_treatments_vs_control,
         continuous_repeated_measures,
+        continuous_crossover,
+        lognormal_crossover,
+        lognormal_two_groups,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -200,12 +200,15 @@ class Phrases:
     effect : (q, record) -> the effect sentence, from what the investigator entered (for find =
         effect, the solved value from the record).
     assumptions : q -> the assumptions sentence ("SD 8 and correlation 0.6"), '' when none.
+    margin : optional q -> the hypothesis margin in words, for a cell whose margin is not on the
+        effect's own scale (a ratio's limits given on the log scale); None: the number itself.
     """
 
     effect: Callable[[dict, dict | None], str]
     assumptions: Callable[[dict], str]
     # optional q -> the groups' names in prose, in group order ("control", "treatment 1", …)
     group_names: Callable[[dict], list[str]] | None = None
+    margin: Callable[[dict], str] | None = None
 
 
 @dataclass(frozen=True)

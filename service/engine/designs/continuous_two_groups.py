@@ -75,6 +75,18 @@ FIELDS = (
         minimum=0,
         exclusive_minimum=True,
     ),
+    Field(
+        "baseline_correlation",
+        "assumptions",
+        "number",
+        "Correlation between the baseline measurement and the outcome within a group (used by "
+        "the ancova analysis).",
+        "baseline–outcome correlation",
+        minimum=-1,
+        maximum=1,
+        exclusive_minimum=True,
+        exclusive_maximum=True,
+    ),
 )
 FORMS = (("sd",), ("sd_control", "sd_treatment"))
 MODEL_FIELDS = ("difference", "sd", "sd_control", "sd_treatment")
@@ -99,6 +111,13 @@ ANALYSES = (
         ("analytic", "simulation"),
         ("superiority",),
         "Noether 1987, with P(Y > X) from the normal model",
+    ),
+    Analysis(
+        "ancova",
+        "Analysis of covariance on the baseline measurement",
+        ("analytic", "simulation"),
+        AIMS,
+        "Borm, Fransen & Lemmens 2007 (design factor 1 − ρ²); power by the noncentral t",
     ),
 )
 
@@ -149,6 +168,8 @@ def derive(q: dict) -> dict:
     v = values(q, FIELDS)
     if v.get("sd") is not None:
         out["sd_control"] = out["sd_treatment"] = float(v["sd"])
+    if q.get("analysis") == "ancova" and v.get("baseline_correlation") is not None:
+        out["design_factor"] = 1.0 - float(v["baseline_correlation"]) ** 2
     if q.get("analysis") == "rank_sum" and v.get("difference") is not None:
         sc, st = sds(q)
         out["prob_superiority"] = _p_sup(float(v["difference"]), sc, st)
@@ -193,13 +214,39 @@ def tost_power(delta: float, se: float, margin: float, df: float, alpha: float) 
     return float(min(max(value, 0.0), 1.0))
 
 
+def baseline_rho(q: dict) -> float:
+    """The baseline–outcome correlation the ancova analysis needs."""
+    return number(q, FIELDS, "baseline_correlation")
+
+
+def ancova_se_df(q: dict, n1: float, n2: float) -> tuple[float, float]:
+    """SE and df of the baseline-adjusted difference (Borm, Fransen & Lemmens 2007).
+
+    The residual variance is σ²(1 − ρ²) (the design factor); the small-sample terms are the
+    degree of freedom the slope uses (N − 3) and the slope's own sampling error with a random
+    baseline, which inflates the variance by E[1 + (x̄₂ − x̄₁)²/Sxx·/(1/n₁ + 1/n₂)] = 1 + 1/(N − 4).
+    The SDs are the outcome's, at baseline and after alike.
+    """
+    s1, s2 = sds(q)
+    rho = baseline_rho(q)
+    total = n1 + n2
+    inflation = 1.0 + 1.0 / (total - 4.0) if total > 4.0 else math.inf
+    var = (1.0 - rho * rho) * (s1 * s1 / n1 + s2 * s2 / n2) * inflation
+    return math.sqrt(var), total - 3.0
+
+
 def _power_at(q: dict, delta: float, n1: float, n2: float, alpha: float) -> float:
     """Return the power for true difference ``delta`` at n1 (control) and n2 (treatment)."""
     analysis = _analysis(q)
     s1, s2 = sds(q)
     if analysis == "rank_sum":
         return noether.power_at(_p_sup(delta, s1, s2), n1, n2, alpha, tails(q))
-    se, df = _se_df(analysis == "welch_t", s1, s2, n1, n2)
+    if analysis == "ancova":
+        se, df = ancova_se_df(q, n1, n2)
+        if not math.isfinite(se):
+            return 0.0
+    else:
+        se, df = _se_df(analysis == "welch_t", s1, s2, n1, n2)
     aim, margin, higher = hypothesis(q)
     if aim == "superiority":
         return t_power(abs(delta) / se, df, alpha, tails(q))
@@ -251,7 +298,7 @@ def solve_n(q: dict, alpha: float) -> Solution:
     n1 = solve_n_or_raise(
         lambda n: _power_at(q, delta, n, r * n, alpha),
         target,
-        max(1.5, 1.5 / r),
+        max(2.5, 2.5 / r) if _analysis(q) == "ancova" else max(1.5, 1.5 / r),
         field="effect.difference",
         value=delta,
     )
@@ -331,7 +378,16 @@ def describe(q: dict) -> dict:
         )
         return block
     notes = []
-    if analysis == "welch_t":
+    if analysis == "ancova":
+        notes.append(
+            f"Adjusted for the baseline measurement (correlation ρ = {baseline_rho(q):g}): the "
+            "residual variance is σ²(1 − ρ²), with N − 3 degrees of freedom and the variance "
+            "inflation 1 + 1/(N − 4) of a slope estimated from a random baseline."
+        )
+    if analysis == "ancova":
+        name = "noncentral t, baseline-adjusted (design factor 1 − ρ², N − 3 df)"
+        ref = "Borm, Fransen & Lemmens (2007), J Clin Epidemiol 60:1234"
+    elif analysis == "welch_t":
         name = "noncentral t with Satterthwaite degrees of freedom"
         ref = "Welch (1947), Biometrika 34:28; Satterthwaite (1946)"
     else:
@@ -447,11 +503,32 @@ def planned_moments(q: dict) -> tuple[float, float, float, float]:
     return mean0, difference, sc, st
 
 
+def check_models(q: dict, arms: list[dict], labels: list[str]) -> None:
+    """The ancova simulation draws a normal baseline and outcome; other families are refused."""
+    if q.get("analysis") != "ancova":
+        return
+    for arm, label in zip(arms, labels, strict=True):
+        if arm["family"] != "normal":
+            raise QuestionError(
+                f"simulation.data.{label}.family",
+                f"the ancova analysis is simulated with normal outcomes; got {arm['family']!r}",
+            )
+
+
 SIMULATION = SimulationModel(
     data_keys=("control", "treatment"),
     default_data=default_data,
     null_data=null_data,
-    kernels={"pooled_t": "t_pooled", "welch_t": "t_welch", "rank_sum": "rank_sum"},
+    kernels={
+        "pooled_t": "t_pooled",
+        "welch_t": "t_welch",
+        "rank_sum": "rank_sum",
+        "ancova": "ancova",
+    },
+    settings=lambda q: (
+        {"baseline_correlation": baseline_rho(q)} if (q.get("analysis") or "") == "ancova" else {}
+    ),
+    check_models=check_models,
     effect_axis=effect_axis,
     implied_contrast=implied_contrast,
     implied_fields=implied_fields,
@@ -474,13 +551,15 @@ def effect_sentence(q: dict, record: dict | None) -> str:
 
 def assumptions_sentence(q: dict) -> str:
     v = values(q, FIELDS)
+    rho = v.get("baseline_correlation")
+    tail = f" and a baseline–outcome correlation of {fmt(rho)}" if rho is not None else ""
     if v.get("sd") is not None:
-        return f"a standard deviation of {fmt(v['sd'])} in both groups"
+        return f"a standard deviation of {fmt(v['sd'])} in both groups{tail}"
     if v.get("sd_control") is None:
         return ""
     return (
         f"a standard deviation of {fmt(v['sd_control'])} in the control group and "
-        f"{fmt(v['sd_treatment'])} in the treatment group"
+        f"{fmt(v['sd_treatment'])} in the treatment group{tail}"
     )
 
 

@@ -315,7 +315,7 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             record["method"],
             notes=[*record["method"].get("notes", []), group_sequential.note(q)],
         )
-    note = _alpha_note(q)
+    note = _alpha_note(q, design)
     if note:
         record["method"] = dict(record["method"], alpha_note=note)
     record["power"] = power
@@ -328,18 +328,20 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     return record
 
 
-def _alpha_note(q: dict) -> str | None:
+def _alpha_note(q: dict, design) -> str | None:
     """Say which level a non-inferiority or equivalence answer used and what guidance expects."""
     aim = (q.get("hypothesis") or {}).get("aim", "superiority")
     if aim == "superiority":
         return None
     what = "non-inferiority" if aim == "noninferiority" else "equivalence"
+    level, source = 0.025, "the level regulatory guidance expects of such trials (ICH E9, 1998)"
+    if aim == "equivalence":
+        level, source = design.equivalence_alpha, design.equivalence_alpha_source
     text = (
-        f"one-sided alpha {q['alpha']:g} for each {what} test; one-sided 0.025 is the level "
-        "regulatory guidance expects of such trials (ICH E9, 1998) and the default when no "
-        "alpha is posted"
+        f"one-sided alpha {q['alpha']:g} for each {what} test; one-sided {level:g} is {source} "
+        "and the default when no alpha is posted"
     )
-    if q["alpha"] > 0.025:
+    if q["alpha"] > level:
         text += f"; the {q['alpha']:g} used here is above it"
     return text
 

@@ -19,9 +19,12 @@ from .fields import posted
 from .shared import shared
 
 
-def default_alpha(aim: str) -> float:
+def default_alpha(aim: str, design: Any = None) -> float:
     """The alpha used when none is posted: 0.05, or one-sided 0.025 for noninferiority and
-    equivalence, the level regulatory guidance expects of such trials (ICH E9, 1998, 5.5)."""
+    equivalence, the level regulatory guidance expects of such trials (ICH E9, 1998, 5.5);
+    a cell may set its own equivalence level (average bioequivalence: 0.05 per test)."""
+    if aim == "equivalence" and design is not None:
+        return design.equivalence_alpha
     return 0.05 if aim == "superiority" else 0.025
 
 
@@ -97,7 +100,7 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         "layout": design.layout,
         "analysis": data.get("analysis") or analysis(design, how, aim, blocks, data),
         "find": find,
-        "alpha": default_alpha(aim) if data.get("alpha") is None else data["alpha"],
+        "alpha": default_alpha(aim, design) if data.get("alpha") is None else data["alpha"],
         "alternative": alternative,
         "target_power": None
         if find == "power"

@@ -95,7 +95,7 @@ def target_power(ctx: Context) -> None:
         )
     alpha, target = ctx.data.get("alpha"), ctx.data.get("target_power")
     if alpha is None and ctx.aim is not None:
-        alpha = resolve.default_alpha(ctx.aim)
+        alpha = resolve.default_alpha(ctx.aim, ctx.design)
     if alpha is not None and target is not None and not target > alpha:
         ctx.add(
             "target_power", f"must be in (alpha, 1) = ({number_text(alpha)}, 1); got {show(target)}"

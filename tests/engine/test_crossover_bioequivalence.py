@@ -253,3 +253,18 @@ def test_simulated_bioequivalence_sample_size_search():
     record = _simulated(bioequivalence(), replicates=2000)
     # published 28 in total (Diletti et al. 1991); the simulated search lands within a size or so
     assert abs(record["sample_size"]["total"] - 28) <= 4
+
+
+def test_bioequivalence_without_alpha_tests_each_side_at_five_percent():
+    # Schuirmann (1987): average bioequivalence by two one-sided tests at 0.05 each (the 90%
+    # interval inside 0.80–1.25), so the Diletti et al. (1991) answer (N = 28) comes out when no
+    # alpha is posted; other equivalence margins keep one-sided 0.025 (ICH E9, 1998).
+    body = bioequivalence()
+    body.pop("alpha")
+    q = load_question(body)
+    assert q["alpha"] == 0.05
+    record = compute(q)
+    assert record["sample_size"]["total"] == 28
+    assert "Schuirmann 1987" in record["method"]["alpha_note"]
+    other = crossover(hypothesis={"aim": "equivalence", "margin": 1.0}, alternative="one-sided")
+    assert load_question(other)["alpha"] == 0.025

@@ -260,6 +260,11 @@ class Design:
     # True when a noninferiority margin is posted on the effect field's own scale (a hazard
     # ratio above 1) rather than as a contrast; the design's own solve_n checks it then.
     margin_on_effect: bool = False
+    # The one-sided level of each test against equivalence limits when none is posted, and why.
+    equivalence_alpha: float = 0.025
+    equivalence_alpha_source: str = (
+        "the level regulatory guidance expects of such trials (ICH E9, 1998)"
+    )
 
     @property
     def cell(self) -> str:

@@ -246,6 +246,14 @@ SIMULATION = SimulationModel(
 )
 
 
+# Average bioequivalence is shown by two one-sided tests at 0.05 each, i.e. the 90% confidence
+# interval of the ratio inside the limits (Schuirmann 1987), not at the 0.025 of other margins.
+BIOEQUIVALENCE_ALPHA = 0.05
+BIOEQUIVALENCE_ALPHA_SOURCE = (
+    "the convention for average bioequivalence (two one-sided tests, a 90% confidence interval "
+    "inside the limits; Schuirmann 1987)"
+)
+
 DESIGN = Design(
     outcome="lognormal",
     layout="crossover",
@@ -279,6 +287,8 @@ DESIGN = Design(
         math.log(values(q, FIELDS)["ratio"]) if values(q, FIELDS).get("ratio") else None
     ),
     null_effect=lambda q: 1.0,
+    equivalence_alpha=BIOEQUIVALENCE_ALPHA,
+    equivalence_alpha_source=BIOEQUIVALENCE_ALPHA_SOURCE,
     notes=(
         "Average bioequivalence is the equivalence aim: hypothesis.margin is on the log scale "
         "(ln 1.25 = 0.2231 gives the limits 0.80–1.25).",

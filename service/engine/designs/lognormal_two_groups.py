@@ -160,5 +160,7 @@ DESIGN = Design(
     example="northbridge_bioequivalence_parallel.json",
     contrast=ratio_cell.DESIGN.contrast,
     null_effect=lambda q: 1.0,
+    equivalence_alpha=ratio_cell.BIOEQUIVALENCE_ALPHA,
+    equivalence_alpha_source=ratio_cell.BIOEQUIVALENCE_ALPHA_SOURCE,
     notes=ratio_cell.DESIGN.notes,
 )

@@ -88,6 +88,8 @@ def local_environment(base: Mapping[str, str] | None = None) -> dict[str, str]:
     # filesystem:///abs/path puts the broker's folders under that path (service.config).
     env.setdefault("SIZEWISE_BROKER_URL", f"filesystem://{folder / 'broker'}")
     env.setdefault("SIZEWISE_PORT", "8000")
+    # A local run's callback receiver is on this machine, without a certificate.
+    env.setdefault("SIZEWISE_WEBHOOK_ALLOW_HTTP", "1")
     env["SIZEWISE_VAR_DIR"] = str(folder)
     args = f"--bind 127.0.0.1:{env['SIZEWISE_PORT']}"
     if _gunicorn_has_control_socket():

@@ -39,6 +39,9 @@ from service.store.models import (  # noqa: E402
     Rerun,
     Result,
     TokenSpend,
+    Webhook,
+    WebhookAttempt,
+    WebhookMessage,
 )
 
 PG_HOST = "127.0.0.1"
@@ -90,7 +93,18 @@ def empty_tables(url: str) -> None:
     """Delete every row (children first) so each test starts from an empty database."""
     engine = make_engine(url)
     with engine.begin() as conn:
-        for model in (ChunkResult, Result, Rerun, AuditEvent, Request, ApiToken, TokenSpend):
+        for model in (
+            WebhookAttempt,
+            WebhookMessage,
+            Webhook,
+            ChunkResult,
+            Result,
+            Rerun,
+            AuditEvent,
+            Request,
+            ApiToken,
+            TokenSpend,
+        ):
             conn.execute(delete(model))
     engine.dispose()
 

@@ -99,6 +99,11 @@ ACCESS: dict[str, frozenset[str]] = {
     "tokens.revoke_token": frozenset({ADMIN}),
     # Operators' view of the pipeline; Prometheus sends an admin bearer token.
     "metrics.metrics_page": frozenset({ADMIN}),
+    # A submitting token's own callback URL; the delivery log goes with the request it is about.
+    "webhooks.put_webhook": SUBMITTERS,
+    "webhooks.get_webhook": SUBMITTERS,
+    "webhooks.delete_webhook": SUBMITTERS,
+    "webhooks.list_deliveries": READERS,
 }
 
 REALM = 'Bearer realm="sizewise"'

@@ -115,7 +115,9 @@ def celery_settings(config: dict) -> dict:
 
 def make_celery(config: dict) -> Celery:
     """Build the Celery app for ``config`` (the dict from service.config.load_config())."""
-    app = Celery("sizewise", include=["workers.tasks", "workers.analysis_tasks"])
+    app = Celery(
+        "sizewise", include=["workers.tasks", "workers.analysis_tasks", "workers.webhook_tasks"]
+    )
     app.conf.update(celery_settings(config))
     # The tasks read the service config from here (database URL, lease, budget).
     app.conf.sizewise = dict(config)

@@ -176,16 +176,18 @@ def claim(session: Session, message_id: str, owner: str, now: datetime) -> Deliv
     message = session.get(WebhookMessage, message_id, populate_existing=True)
     if message is None or message.status != "pending" or message.next_attempt_at > now:
         return None
+    # Read before the update: synchronize_session refreshes ``message`` with the new count.
+    attempt = message.attempts + 1
     taken = session.execute(
         update(WebhookMessage)
         .where(
             WebhookMessage.id == message_id,
             WebhookMessage.status == "pending",
-            WebhookMessage.attempts == message.attempts,
+            WebhookMessage.attempts == attempt - 1,
             WebhookMessage.next_attempt_at <= now,
         )
         .values(
-            attempts=message.attempts + 1,
+            attempts=attempt,
             lease_owner=owner,
             next_attempt_at=now + timedelta(seconds=CLAIM_SECONDS),
         )
@@ -200,7 +202,7 @@ def claim(session: Session, message_id: str, owner: str, now: datetime) -> Deliv
             .values(status="dropped", finished_at=now, lease_owner=None)
         )
         return None
-    return Delivery(message_id, message.attempts + 1, hook.url, hook.secret, message.payload)
+    return Delivery(message_id, attempt, hook.url, hook.secret, message.payload)
 
 
 def backoff(attempt: int, base_seconds: float) -> timedelta:

@@ -10,9 +10,27 @@ from pathlib import Path
 import pytest
 
 REPO = Path(__file__).resolve().parents[2]
-MODULES = ("celery_app", "queue", "sweeper", "tasks", "analysis_tasks", "fanout", "sessions")
+MODULES = (
+    "celery_app",
+    "queue",
+    "sweeper",
+    "tasks",
+    "analysis_tasks",
+    "fanout",
+    "sessions",
+    "webhook_tasks",
+)
 # celery_app ← queue ← sweeper ← tasks ← analysis_tasks: a module imports only those before it.
-ORDER = ("sessions", "fanout", "celery_app", "queue", "sweeper", "tasks", "analysis_tasks")
+ORDER = (
+    "sessions",
+    "fanout",
+    "celery_app",
+    "queue",
+    "sweeper",
+    "tasks",
+    "analysis_tasks",
+    "webhook_tasks",
+)
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -58,6 +58,7 @@ from .context import sessions, settings
 from .errors import ApiError, NotFound, ValidationFailed, problem
 from .identity import Caller, current_caller
 from .io import refuse_bad_path_text
+from .links import absolute
 
 log = logging.getLogger(__name__)
 
@@ -282,7 +283,7 @@ def report_link(request_id: str, generation: int, now: datetime | None = None) -
     key = current_app.extensions["sizewise"]["link_key"]
     token = sign_link(key, request_id, expires_at, generation)
     return {
-        "url": f"/v1/requests/{request_id}/report?{LINK_PARAM}={token}",
+        "url": absolute(f"/v1/requests/{request_id}/report?{LINK_PARAM}={token}"),
         "expires_at": expires_at,
     }
 

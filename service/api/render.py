@@ -16,11 +16,24 @@ from service.store import analyses as analysis_store
 from service.store import requests as store
 from service.store.models import Analysis, Request, Rerun
 
+from .links import link
+
 _DETAIL = RequestSchema()
 _SUMMARY = RequestSchema(exclude=("result", "history", "question_submitted", "reruns", "analyses"))
 _RERUN = RerunSchema()
 _EVENT = AuditEventSchema()
 _ANALYSIS = AnalysisSchema()
+
+
+def request_links(request_id: str) -> dict[str, str]:
+    """Absolute URLs of what a client can follow from a request."""
+    return {
+        "self": link("requests.get_request", request_id=request_id),
+        "report": link("reports.request_report", request_id=request_id),
+        "reruns": link("requests.list_reruns", request_id=request_id),
+        "analyses": link("reports.analyses.list_analyses", request_id=request_id),
+        "deliveries": link("webhooks.list_deliveries", request_id=request_id),
+    }
 
 
 def _base(row: Request) -> dict[str, Any]:
@@ -46,6 +59,7 @@ def _base(row: Request) -> dict[str, Any]:
         "attempts": row.attempts,
         "error": row.error,
         "effect_source": row.effect_source,
+        "links": request_links(row.id),
     }
 
 

@@ -31,6 +31,7 @@ from service.store.db import session_scope
 from service.store.models import ApiToken
 
 from . import render
+from .caching import conditional
 from .analyses import store_submission
 from .auth import charge, check_submission_cost
 from .context import sessions, settings
@@ -206,13 +207,20 @@ def list_requests():
     "Read one request: status, progress, result, history and reruns",
     tag="requests",
     response=RequestSchema,
+    description=(
+        "Sends a strong ETag (SHA-256 of the body); a GET with If-None-Match naming it gets "
+        "304 and no body while the request is unchanged."
+    ),
     errors=(404, 422, 500, 503),
+    headers={"ETag": "SHA-256 of the body"},
+    request_headers={"If-None-Match": "An ETag from an earlier answer"},
 )
 def get_request(request_id: str):
     """Return the request with its result record (or null) and its audit history."""
     reject_query()
     with session_scope(sessions()) as session:
-        return jsonify(render.request_detail(session, load_request(session, request_id)))
+        body = render.request_detail(session, load_request(session, request_id))
+    return conditional(jsonify(body))
 
 
 @bp.post("/requests/<request_id>/cancel")

@@ -17,6 +17,7 @@ from .context import sessions
 from .errors import NotFound
 from .identity import visible_submitter
 from .io import load_query
+from .links import absolute
 
 _ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
 
@@ -44,5 +45,5 @@ def located(body: dict, status: int, location: str) -> Response:
     """Return ``body`` as JSON with ``status`` and a Location header naming the new resource."""
     response = jsonify(body)
     response.status_code = status
-    response.headers["Location"] = location
+    response.headers["Location"] = absolute(location) if location.startswith("/") else location
     return response

@@ -383,6 +383,11 @@ class RequestSchema(StrictSchema):
     reruns = fields.Nested(RerunSummarySchema)
     effect_source = fields.String(allow_none=True)
     analyses = fields.List(fields.Nested(AnalysisSchema(exclude=("result",))))
+    links = fields.Dict(
+        keys=fields.String(),
+        values=fields.String(),
+        metadata={"description": "Absolute URLs: self, report, reruns, analyses, deliveries."},
+    )
 
 
 class RequestPageSchema(StrictSchema):

@@ -15,7 +15,7 @@ def test_submit_stores_then_queues(api, settings):
     response = api.submit(name="a.okafor")
     assert response.status_code == 202
     body = response.get_json()
-    assert response.headers["Location"] == f"/v1/requests/{body['id']}"
+    assert response.headers["Location"] == f"http://localhost/v1/requests/{body['id']}"
     assert body["status"] == "queued" and body["published_at"] is not None
     assert body["question"]["effect"] == {"difference": 0.5, "sd_control": 1.0, "sd_treatment": 1.0}
     assert body["question_submitted"]["effect"] == {"difference": 0.5, "sd": 1.0}

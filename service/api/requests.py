@@ -31,9 +31,9 @@ from service.store.db import session_scope
 from service.store.models import ApiToken
 
 from . import render
-from .caching import conditional
 from .analyses import store_submission
 from .auth import charge, check_submission_cost
+from .caching import conditional
 from .context import sessions, settings
 from .docs import operation
 from .errors import ApiError, Conflict, NotFound, ValidationFailed

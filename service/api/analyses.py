@@ -34,6 +34,7 @@ from .errors import Conflict, NotFound, ValidationFailed
 from .feasibility import extreme_fields
 from .identity import current_actor
 from .io import load_body, reject_query
+from .pagination import PageArgsSchema, page_args, page_body
 from .views import load_request, located
 
 log = logging.getLogger(__name__)
@@ -187,16 +188,16 @@ def create_analysis(request_id: str):
     "List a request's analyses and their results",
     tag="analyses",
     response=AnalysisListSchema,
+    query=PageArgsSchema,
     errors=(404, 422, 500, 503),
 )
 def list_analyses(request_id: str):
     """Return the request's analyses, oldest first, with their results."""
-    reject_query()
+    args = page_args()
     with session_scope(sessions()) as session:
         load_request(session, request_id)
-        return jsonify(
-            {"items": [render.analysis(a) for a in store.analyses_for(session, request_id)]}
-        )
+        rows, key = store.analyses_page(session, request_id, **args)
+        return jsonify(page_body([render.analysis(a) for a in rows], args["limit"], key))
 
 
 @bp.get("/requests/<request_id>/analyses/<analysis_id>")

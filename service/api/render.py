@@ -17,6 +17,7 @@ from service.store import requests as store
 from service.store.models import Analysis, Request, Rerun
 
 from .links import link
+from .pagination import page_body
 
 _DETAIL = RequestSchema()
 _SUMMARY = RequestSchema(exclude=("result", "history", "question_submitted", "reruns", "analyses"))
@@ -80,14 +81,10 @@ def request_detail(session: Session, row: Request) -> dict:
     return _DETAIL.dump(data)
 
 
-def request_page(page: store.Page, number: int, per_page: int) -> dict:
-    """Return one listing page."""
-    return {
-        "items": [_SUMMARY.dump(_base(row)) for row in page.items],
-        "page": number,
-        "per_page": per_page,
-        "total": page.total,
-    }
+def request_page(page: store.Page, limit: int) -> dict:
+    """Return one listing page with its ``next`` link."""
+    items = [_SUMMARY.dump(_base(row)) for row in page.items]
+    return page_body(items, limit, page.next_key, total=page.total)
 
 
 def rerun(row: Rerun) -> dict:

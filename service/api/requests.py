@@ -40,6 +40,7 @@ from .errors import ApiError, Conflict, NotFound, ValidationFailed
 from .feasibility import check_computable
 from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
+from .pagination import PageArgsSchema, page_args, page_body
 from .publishing import answer_now, publish_job
 from .views import load_request, located, visible_request_page
 
@@ -375,17 +376,22 @@ def create_rerun(request_id: str):
 
 @bp.get("/requests/<request_id>/reruns")
 @operation(
-    "List a request's reruns", tag="reruns", response=RerunListSchema, errors=(404, 422, 500, 503)
+    "List a request's reruns (oldest first, paginated)",
+    tag="reruns",
+    response=RerunListSchema,
+    query=PageArgsSchema,
+    errors=(404, 422, 500, 503),
 )
 def list_reruns(request_id: str):
     """Return the request's reruns, oldest first."""
-    reject_query()
+    args = page_args()
     with session_scope(sessions()) as session:
         load_request(session, request_id)
-        items = [render.rerun(r) for r in store.reruns_for(session, request_id)]
+        rows, key = store.reruns_page(session, request_id, **args)
+        items = [render.rerun(r) for r in rows]
     for item in items:
         item.pop("record", None)
-    return jsonify({"items": items})
+    return jsonify(page_body(items, args["limit"], key))
 
 
 @bp.get("/requests/<request_id>/reruns/<rerun_id>")

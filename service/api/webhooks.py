@@ -15,6 +15,7 @@ from urllib.parse import urlsplit
 from flask import Blueprint, jsonify
 from marshmallow import ValidationError, fields, validates
 
+from service.schemas.paging import next_field
 from service.schemas.requests import StrictSchema
 from service.store import webhooks as store
 from service.store.db import session_scope
@@ -25,6 +26,7 @@ from .errors import NotFound
 from .identity import current_caller
 from .io import load_body, reject_query
 from .links import public_base
+from .pagination import PageArgsSchema, page_args, page_body
 from .views import load_request
 
 bp = Blueprint("webhooks", __name__, url_prefix="/v1")
@@ -134,6 +136,8 @@ class DeliveryListSchema(StrictSchema):
     """GET /v1/requests/{id}/deliveries."""
 
     items = fields.List(fields.Nested(DeliverySchema))
+    limit = fields.Integer()
+    next = next_field()
 
 
 _WEBHOOK = WebhookSchema()
@@ -217,11 +221,13 @@ def delete_webhook():
     "The request's notifications and every delivery attempt (status codes, times)",
     tag="webhooks",
     response=DeliveryListSchema,
+    query=PageArgsSchema,
     errors=(404, 422, 500, 503),
 )
 def list_deliveries(request_id: str):
     """Return the delivery log of the request, oldest first."""
-    reject_query()
+    args = page_args()
     with session_scope(sessions()) as session:
         load_request(session, request_id)
-        return jsonify(_DELIVERIES.dump({"items": store.deliveries_for(session, request_id)}))
+        items, key = store.deliveries_for(session, request_id, **args)
+    return jsonify(_DELIVERIES.dump(page_body(items, args["limit"], key)))

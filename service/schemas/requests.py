@@ -12,6 +12,7 @@ from marshmallow import Schema, ValidationError, fields, post_load, validate, va
 
 from service.engine import DESIGN_NAMES
 from service.schemas.errors import QuestionInvalid
+from service.schemas.paging import cursor_field, limit_field, next_field
 from service.schemas.question import load_question
 from service.store.models import (
     ANALYSIS_KINDS,
@@ -304,6 +305,8 @@ class AnalysisListSchema(StrictSchema):
     """GET /v1/requests/{id}/analyses."""
 
     items = fields.List(fields.Nested(AnalysisSchema))
+    limit = fields.Integer()
+    next = next_field()
 
 
 class ReportLinkSchema(StrictSchema):
@@ -398,8 +401,8 @@ class RequestPageSchema(StrictSchema):
             RequestSchema(exclude=("result", "history", "question_submitted", "reruns", "analyses"))
         )
     )
-    page = fields.Integer()
-    per_page = fields.Integer()
+    limit = fields.Integer()
+    next = next_field()
     total = fields.Integer()
 
 
@@ -407,6 +410,8 @@ class RerunListSchema(StrictSchema):
     """GET /v1/requests/{id}/reruns."""
 
     items = fields.List(fields.Nested(RerunSchema(exclude=("record",))))
+    limit = fields.Integer()
+    next = next_field()
 
 
 class RequestQueryArgsSchema(StrictSchema):
@@ -424,11 +429,8 @@ class RequestQueryArgsSchema(StrictSchema):
     submitted_to = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "Last UTC day, inclusive."}
     )
-    # Bounded so a page number always fits the database's integers (100 x 1,000,000 rows).
-    page = fields.Integer(
-        load_default=1, error_messages=INT_ERRORS, validate=in_range(1, 1_000_000)
-    )
-    per_page = fields.Integer(load_default=20, error_messages=INT_ERRORS, validate=in_range(1, 100))
+    limit = limit_field()
+    cursor = cursor_field()
 
     @validates_schema
     def dates_in_order(self, data: dict, **_kwargs) -> None:

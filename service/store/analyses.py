@@ -13,6 +13,7 @@ from sqlalchemy.orm import Session
 
 from .audit import add_with_event
 from .models import ANALYSIS_KINDS, Analysis
+from .paging import Key, keyset_page
 
 
 def create_analysis(
@@ -48,6 +49,20 @@ def analyses_for(session: Session, request_id: str) -> list[Analysis]:
             .where(Analysis.request_id == request_id)
             .order_by(Analysis.created_at, Analysis.id)
         )
+    )
+
+
+def analyses_page(
+    session: Session, request_id: str, *, after: Key | None, limit: int
+) -> tuple[list[Analysis], Key | None]:
+    """One page of the request's analyses, oldest first, and the key of the next page."""
+    return keyset_page(
+        session,
+        select(Analysis).where(Analysis.request_id == request_id),
+        Analysis.created_at,
+        Analysis.id,
+        after=after,
+        limit=limit,
     )
 
 

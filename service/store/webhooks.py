@@ -29,6 +29,7 @@ from .models import (
     WebhookAttempt,
     WebhookMessage,
 )
+from .paging import Key, keyset_page
 from .types import utcnow
 
 SECRET_PREFIX = "whsec_"
@@ -260,14 +261,17 @@ def record_attempt(
     return outcome if settled == 1 else "lost"
 
 
-def deliveries_for(session: Session, request_id: str) -> list[dict]:
-    """The request's messages, oldest first, each with its attempts (the delivery log)."""
-    messages = list(
-        session.scalars(
-            select(WebhookMessage)
-            .where(WebhookMessage.request_id == request_id)
-            .order_by(WebhookMessage.created_at, WebhookMessage.id)
-        )
+def deliveries_for(
+    session: Session, request_id: str, *, after: Key | None = None, limit: int = 100
+) -> tuple[list[dict], Key | None]:
+    """One page of the request's messages, oldest first, each with its attempts (the log)."""
+    messages, next_key = keyset_page(
+        session,
+        select(WebhookMessage).where(WebhookMessage.request_id == request_id),
+        WebhookMessage.created_at,
+        WebhookMessage.id,
+        after=after,
+        limit=limit,
     )
     attempts: dict[str, list[WebhookAttempt]] = {m.id: [] for m in messages}
     if messages:
@@ -277,7 +281,7 @@ def deliveries_for(session: Session, request_id: str) -> list[dict]:
             .order_by(WebhookAttempt.attempt, WebhookAttempt.id)
         ):
             attempts[row.message_id].append(row)
-    return [
+    items = [
         {
             "id": m.id,
             "type": m.event_type,
@@ -299,3 +303,4 @@ def deliveries_for(session: Session, request_id: str) -> list[dict]:
         }
         for m in messages
     ]
+    return items, next_key

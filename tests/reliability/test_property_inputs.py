@@ -171,7 +171,7 @@ BODIES = [
     ("auditor", "/v1/requests/{id}/reruns", {"note": "yearly check"}),
     ("admin", "/v1/tokens", {"role": "intake", "name": "front desk"}),
 ]
-QUERY_KEYS = ["status", "protocol_id", "requester", "design", "page", "per_page", "submitted_from"]
+QUERY_KEYS = ["status", "protocol_id", "requester", "design", "limit", "cursor", "submitted_from"]
 
 
 @pytest.fixture

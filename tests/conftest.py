@@ -261,6 +261,17 @@ class Api:
         """The application's sessionmaker (to arrange states the API cannot reach)."""
         return self.app.extensions["sizewise"]["sessions"]
 
+    def compute_as_worker(self, request_id: str, owner: str = "worker-test") -> None:
+        """Claim the request and store the engine's record for it, as a worker would."""
+        from service.engine import compute
+        from service.store import jobs
+
+        with session_scope(self.sessions()) as s:
+            assert jobs.claim(s, "request", request_id, owner, 60, 3)
+        with session_scope(self.sessions()) as s:
+            record = compute(s.get(Request, request_id).question)
+            assert jobs.finish_request(s, request_id, owner, record)
+
 
 @pytest.fixture
 def api(client, app, tokens) -> Api:

@@ -11,7 +11,6 @@ the same on every attempt). Failures are retried with exponential backoff up to
 
 from __future__ import annotations
 
-import ipaddress
 import logging
 import os
 import socket
@@ -30,16 +29,13 @@ from service.store import webhooks as store
 from service.store.db import session_scope
 from workers.celery_app import app
 from workers.sessions import sessions
-from workers.sweeper import _ROUND
+from workers.sweeper import _ROUND, Periodic
 
 log = logging.getLogger(__name__)
 
 USER_AGENT = "sizewise-webhooks/1"
 # What is kept of a receiver's answer: enough to tell a proxy's error page from the receiver's.
 ERROR_MAX = 300
-
-_THREAD: threading.Thread | None = None
-_STOP = threading.Event()
 
 
 class _NoRedirect(urllib.request.HTTPRedirectHandler):
@@ -49,19 +45,10 @@ class _NoRedirect(urllib.request.HTTPRedirectHandler):
         return None
 
 
-def _loopback(host: str) -> bool:
-    if host.lower() == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
-
-
 def _opener(url: str) -> urllib.request.OpenerDirector:
     handlers: list = [_NoRedirect()]
     # An egress proxy from the environment serves remote receivers; a local one is reached directly.
-    if _loopback(urlsplit(url).hostname or ""):
+    if store.is_loopback(urlsplit(url).hostname or ""):
         handlers.append(urllib.request.ProxyHandler({}))
     return urllib.request.build_opener(*handlers)
 
@@ -175,35 +162,17 @@ def deliver_webhooks() -> int:
     return deliver_due(dict(app.conf.sizewise))
 
 
-def _loop(config: dict, interval: float) -> None:
-    while not _STOP.wait(interval):
-        try:
-            deliver_due(config)
-        except Exception:  # a database hiccup must not kill the thread; try again next round
-            log.exception("webhook delivery round failed")
+_COURIER = Periodic("sizewise-courier", deliver_due, "webhook delivery")
 
 
 def start_courier(config: dict) -> threading.Thread:
     """Start the courier daemon thread (once per process) and return it."""
-    global _THREAD
-    if _THREAD is not None and _THREAD.is_alive():
-        return _THREAD
-    _STOP.clear()
-    interval = max(float(config.get("WEBHOOK_POLL_SECONDS", 1.0)), 0.05)
-    _THREAD = threading.Thread(
-        target=_loop, args=(dict(config), interval), name="sizewise-courier", daemon=True
-    )
-    _THREAD.start()
-    return _THREAD
+    return _COURIER.start(config, max(float(config.get("WEBHOOK_POLL_SECONDS", 1.0)), 0.05))
 
 
 def stop_courier(timeout: float = 5.0) -> None:
     """Ask the courier thread to stop and wait briefly for it."""
-    global _THREAD
-    _STOP.set()
-    if _THREAD is not None:
-        _THREAD.join(timeout)
-    _THREAD = None
+    _COURIER.stop(timeout)
 
 
 @worker_ready.connect

@@ -9,7 +9,6 @@ the receiver answered.
 
 from __future__ import annotations
 
-import ipaddress
 from urllib.parse import urlsplit
 
 from flask import Blueprint, jsonify
@@ -56,18 +55,9 @@ def url_problem(url: str, allow_http: bool) -> str | None:
         return "must not have a #fragment"
     if port == 0:
         return "must not use port 0"
-    if not allow_http and _is_loopback(parts.hostname):
+    if not allow_http and store.is_loopback(parts.hostname):
         return "must not point at this machine (loopback) outside a local run"
     return None
-
-
-def _is_loopback(host: str) -> bool:
-    if host.lower() == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
 
 
 class WebhookPutSchema(StrictSchema):

@@ -12,6 +12,7 @@ from __future__ import annotations
 import base64
 import hashlib
 import hmac
+import ipaddress
 import json
 import secrets
 import uuid
@@ -58,6 +59,16 @@ def sign(secret: str, message_id: str, timestamp: int, body: str) -> str:
     signed = f"{message_id}.{timestamp}.{body}".encode()
     digest = hmac.new(secret_key(secret), signed, hashlib.sha256).digest()
     return "v1," + base64.b64encode(digest).decode("ascii")
+
+
+def is_loopback(host: str) -> bool:
+    """True for ``localhost`` and loopback addresses (a local run's receiver)."""
+    if host.lower() == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
 
 
 def get_webhook(session: Session, token_id: str) -> Webhook | None:

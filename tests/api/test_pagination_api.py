@@ -7,8 +7,6 @@ from datetime import UTC, datetime
 import pytest
 from sqlalchemy import update
 
-from service.engine import compute
-from service.store import jobs
 from service.store.db import session_scope
 from service.store.models import Request
 
@@ -19,16 +17,6 @@ def _walk(client, url: str, headers=None) -> list[dict]:
         assert pages[-1]["next"].startswith("http://localhost/v1/")
         pages.append(client.get(pages[-1]["next"], headers=headers).get_json())
     return pages
-
-
-def _computed(api) -> str:
-    request_id = api.submit().get_json()["id"]
-    with session_scope(api.sessions()) as s:
-        assert jobs.claim(s, "request", request_id, "worker-test", 60, 3)
-    with session_scope(api.sessions()) as s:
-        record = compute(s.get(Request, request_id).question)
-        assert jobs.finish_request(s, request_id, "worker-test", record)
-    return request_id
 
 
 def test_the_next_link_keeps_the_filters_and_the_limit(api):
@@ -79,7 +67,8 @@ def test_a_bad_limit_or_cursor_is_refused_naming_the_parameter(api, query, messa
 
 
 def test_reruns_analyses_and_deliveries_are_paginated(api):
-    request_id = _computed(api)
+    request_id = api.submit().get_json()["id"]
+    api.compute_as_worker(request_id)
     auditor = api.tokens.headers("auditor")
     reruns = [
         api.client.post(f"/v1/requests/{request_id}/reruns", headers=auditor).get_json()["id"]

@@ -11,11 +11,9 @@ import base64
 import pytest
 from sqlalchemy import select, update
 
-from service.engine import compute
-from service.store import jobs
 from service.store import webhooks as hook_store
 from service.store.db import session_scope
-from service.store.models import Request, WebhookMessage
+from service.store.models import WebhookMessage
 from tests.webhook_receiver import Receiver
 from workers.webhook_tasks import deliver_due, send
 
@@ -32,15 +30,6 @@ def settings(settings):
 
 def _put(api, url: str, who=INTAKE):
     return api.client.put("/v1/webhook", json={"url": url}, headers=api.tokens.headers(*who))
-
-
-def _computed(api, request_id: str) -> None:
-    """Claim and store a real engine record as a worker would."""
-    with session_scope(api.sessions()) as s:
-        assert jobs.claim(s, "request", request_id, "worker-test", 60, 3)
-    with session_scope(api.sessions()) as s:
-        record = compute(s.get(Request, request_id).question)
-        assert jobs.finish_request(s, request_id, "worker-test", record)
 
 
 def _messages(api, request_id: str) -> list[WebhookMessage]:
@@ -106,7 +95,7 @@ def test_each_notified_status_change_writes_one_outbox_row_in_its_transaction(ap
     assert _put(api, HOOK_URL).status_code == 201
     request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
     assert _messages(api, request_id) == []  # submitted and queued: nothing to tell
-    _computed(api, request_id)
+    api.compute_as_worker(request_id)
     r = api.post(f"/v1/requests/{request_id}/approve", {"note": "Assumptions checked."})
     assert r.status_code == 200, r.get_json()
     messages = _messages(api, request_id)
@@ -118,7 +107,7 @@ def test_each_notified_status_change_writes_one_outbox_row_in_its_transaction(ap
 
 def test_requests_of_a_token_without_a_callback_write_no_outbox_rows(api):
     request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
-    _computed(api, request_id)
+    api.compute_as_worker(request_id)
     assert _messages(api, request_id) == []
 
 
@@ -127,7 +116,7 @@ def test_a_signed_delivery_is_retried_after_a_500_and_logged(app, api):
     with Receiver(codes=[500]) as receiver:
         receiver.secret = _put(api, receiver.url).get_json()["secret"]
         request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
-        _computed(api, request_id)
+        api.compute_as_worker(request_id)
         assert deliver_due(config) == 1  # answered 500: due again (zero backoff here)
         assert deliver_due(config) == 1  # answered 204
         assert deliver_due(config) == 0  # nothing left
@@ -160,7 +149,7 @@ def test_a_message_delivered_twice_has_one_effect(app, api):
     with Receiver() as receiver:
         receiver.secret = _put(api, receiver.url).get_json()["secret"]
         request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
-        _computed(api, request_id)
+        api.compute_as_worker(request_id)
         (message,) = _messages(api, request_id)
         with session_scope(api.sessions()) as s:
             delivery = hook_store.claim(s, message.id, "courier-that-dies", message.next_attempt_at)
@@ -187,7 +176,7 @@ def test_attempts_are_bounded_and_a_removed_callback_drops_what_waits(app, api):
     with Receiver(codes=[500, 503, 500]) as receiver:
         receiver.secret = _put(api, receiver.url).get_json()["secret"]
         request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
-        _computed(api, request_id)
+        api.compute_as_worker(request_id)
         assert deliver_due(config) == 1 and deliver_due(config) == 1
         assert deliver_due(config) == 0
         (message,) = _messages(api, request_id)
@@ -213,7 +202,7 @@ def test_an_unreachable_receiver_is_a_failed_attempt_in_words(app, api):
     # The server is closed: nothing listens on that port any more.
     assert _put(api, url).status_code == 201
     request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
-    _computed(api, request_id)
+    api.compute_as_worker(request_id)
     assert deliver_due(config) == 1
     (delivery,) = api.client.get(
         f"/v1/requests/{request_id}/deliveries", headers=api.tokens.headers(*INTAKE)

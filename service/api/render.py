@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from flask import has_request_context
 from sqlalchemy.orm import Session
 
 from service.schemas.requests import (
@@ -38,6 +39,14 @@ def request_links(request_id: str) -> dict[str, str]:
 
 
 def _base(row: Request) -> dict[str, Any]:
+    data = _fields(row)
+    # Links need the caller's host (or the public URL); the command line renders without them.
+    if has_request_context():
+        data["links"] = request_links(row.id)
+    return data
+
+
+def _fields(row: Request) -> dict[str, Any]:
     return {
         "id": row.id,
         "status": row.status,
@@ -60,7 +69,6 @@ def _base(row: Request) -> dict[str, Any]:
         "attempts": row.attempts,
         "error": row.error,
         "effect_source": row.effect_source,
-        "links": request_links(row.id),
     }
 
 

@@ -214,6 +214,7 @@ def list_requests():
     ),
     errors=(404, 422, 500, 503),
     headers={"ETag": "SHA-256 of the body"},
+    also={304: "Not modified: the ETag in If-None-Match is current (no body)"},
     request_headers={"If-None-Match": "An ETag from an earlier answer"},
 )
 def get_request(request_id: str):

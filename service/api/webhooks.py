@@ -153,8 +153,10 @@ def _view(row, schema=_WEBHOOK, **extra) -> dict:
 @operation(
     "Register or replace this token's callback URL (the secret is shown in this answer only)",
     tag="webhooks",
+    status=201,
     response=WebhookCreatedSchema,
     body=WebhookPutSchema,
+    also={200: "Replaced: this token had a callback (the answer holds its new secret)"},
     description=(
         "201 when new, 200 when replaced. Every PUT issues a new signing secret; notifications "
         "still waiting are signed with it."

@@ -210,3 +210,15 @@ def test_an_unreachable_receiver_is_a_failed_attempt_in_words(app, api):
     attempt = delivery["attempts"][0]
     assert attempt["status_code"] is None and attempt["error"].startswith("no answer:")
     assert delivery["status"] == "pending" and delivery["next_attempt_at"]
+
+
+def test_another_intake_token_cannot_read_the_delivery_log(api):
+    request_id = api.submit(role=INTAKE[0], name=INTAKE[1]).get_json()["id"]
+    other = api.client.get(
+        f"/v1/requests/{request_id}/deliveries", headers=api.tokens.headers("intake", "b.lund")
+    )
+    assert other.status_code == 404  # its existence is not revealed
+    auditor = api.client.get(
+        f"/v1/requests/{request_id}/deliveries", headers=api.tokens.headers("auditor")
+    )
+    assert auditor.status_code == 200 and auditor.get_json()["items"] == []

@@ -25,10 +25,12 @@ log = logging.getLogger(__name__)
 # Held for a whole sweep round, and across every fork: a pool child forked while this thread
 # held a lock (logging, the connection pool, SQLite's) would wait on it forever, and the
 # worker would take messages its replacement children never run.
-_ROUND = threading.Lock()
+ROUND_LOCK = threading.Lock()
 if hasattr(os, "register_at_fork"):
     os.register_at_fork(
-        before=_ROUND.acquire, after_in_parent=_ROUND.release, after_in_child=_ROUND.release
+        before=ROUND_LOCK.acquire,
+        after_in_parent=ROUND_LOCK.release,
+        after_in_child=ROUND_LOCK.release,
     )
 
 
@@ -91,7 +93,7 @@ class Periodic:
 
 
 def _sweep_round(config: dict) -> None:
-    with _ROUND:
+    with ROUND_LOCK:
         sweep_once(config)
 
 

@@ -29,7 +29,7 @@ from service.store import webhooks as store
 from service.store.db import session_scope
 from workers.celery_app import app
 from workers.sessions import sessions
-from workers.sweeper import _ROUND, Periodic
+from workers.sweeper import ROUND_LOCK, Periodic
 
 log = logging.getLogger(__name__)
 
@@ -150,8 +150,8 @@ def deliver_due(config: dict, *, limit: int = 20) -> int:
     owner = owner_name()
     made = 0
     for message_id in due:
-        # Held per message, never across a fork of a pool child (see workers.sweeper._ROUND).
-        with _ROUND:
+        # Held per message, never across a fork of a pool child (see workers.sweeper.ROUND_LOCK).
+        with ROUND_LOCK:
             made += deliver_one(config, message_id, owner) is not None
     return made
 

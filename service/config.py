@@ -173,6 +173,44 @@ SETTINGS: tuple[Setting, ...] = (
         int,
         "A desk session unused for this many minutes ends; the next page asks to sign in again.",
     ),
+    Setting(
+        "SIZEWISE_PUBLIC_URL",
+        "",
+        str,
+        "Base URL of the API as clients reach it (e.g. https://sizewise.example.org), for the "
+        "absolute links in answers and notifications. Empty: the host the caller used.",
+    ),
+    Setting(
+        "SIZEWISE_WEBHOOK_ALLOW_HTTP",
+        False,
+        flag,
+        "Callback URLs may use plain http (local runs; the launcher turns it on). Off: https only.",
+    ),
+    Setting(
+        "SIZEWISE_WEBHOOK_ATTEMPTS",
+        8,
+        int,
+        "Delivery attempts of one notification before it is marked failed.",
+    ),
+    Setting(
+        "SIZEWISE_WEBHOOK_BACKOFF_SECONDS",
+        10.0,
+        float,
+        "Wait after a notification's first failed attempt; each further wait is 4 times longer "
+        "(at most 12 hours).",
+    ),
+    Setting(
+        "SIZEWISE_WEBHOOK_POLL_SECONDS",
+        1.0,
+        float,
+        "How often each worker looks for notifications due for delivery.",
+    ),
+    Setting(
+        "SIZEWISE_WEBHOOK_TIMEOUT_SECONDS",
+        10.0,
+        float,
+        "How long one delivery attempt waits for the receiver's answer.",
+    ),
 )
 
 

@@ -95,6 +95,8 @@ def local_environment(base: Mapping[str, str] | None = None) -> dict[str, str]:
     env.setdefault("SIZEWISE_PORT", "8000")
     # The launcher serves plain HTTP on 127.0.0.1, where a Secure cookie would never be sent.
     env.setdefault("SIZEWISE_DESK_SECURE_COOKIE", "0")
+    # A local run's callback receiver is on this machine, without a certificate.
+    env.setdefault("SIZEWISE_WEBHOOK_ALLOW_HTTP", "1")
     env["SIZEWISE_VAR_DIR"] = str(folder)
     args = f"--bind 127.0.0.1:{env['SIZEWISE_PORT']}"
     if _gunicorn_has_control_socket():

@@ -40,6 +40,9 @@ from service.store.models import (  # noqa: E402
     Rerun,
     Result,
     TokenSpend,
+    Webhook,
+    WebhookAttempt,
+    WebhookMessage,
 )
 
 PG_HOST = "127.0.0.1"
@@ -92,6 +95,9 @@ def empty_tables(url: str) -> None:
     engine = make_engine(url)
     with engine.begin() as conn:
         for model in (
+            WebhookAttempt,
+            WebhookMessage,
+            Webhook,
             ChunkResult,
             Result,
             Rerun,
@@ -258,6 +264,17 @@ class Api:
     def sessions(self):
         """The application's sessionmaker (to arrange states the API cannot reach)."""
         return self.app.extensions["sizewise"]["sessions"]
+
+    def compute_as_worker(self, request_id: str, owner: str = "worker-test") -> None:
+        """Claim the request and store the engine's record for it, as a worker would."""
+        from service.engine import compute
+        from service.store import jobs
+
+        with session_scope(self.sessions()) as s:
+            assert jobs.claim(s, "request", request_id, owner, 60, 3)
+        with session_scope(self.sessions()) as s:
+            record = compute(s.get(Request, request_id).question)
+            assert jobs.finish_request(s, request_id, owner, record)
 
 
 @pytest.fixture

@@ -114,7 +114,10 @@ def celery_settings(config: dict) -> dict:
 
 def make_celery(config: dict) -> Celery:
     """Build the Celery app for ``config`` (the dict from service.config.load_config())."""
-    app = Celery("sizewise", include=["workers.tasks", "workers.exploration_tasks"])
+    app = Celery(
+        "sizewise",
+        include=["workers.tasks", "workers.exploration_tasks", "workers.webhook_tasks"],
+    )
     app.conf.update(celery_settings(config))
     # The tasks read the service config from here (database URL, lease, budget).
     app.conf.sizewise = dict(config)

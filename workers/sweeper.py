@@ -22,15 +22,15 @@ from workers.sessions import sessions
 
 log = logging.getLogger(__name__)
 
-_THREAD: threading.Thread | None = None
-_STOP = threading.Event()
 # Held for a whole sweep round, and across every fork: a pool child forked while this thread
 # held a lock (logging, the connection pool, SQLite's) would wait on it forever, and the
 # worker would take messages its replacement children never run.
-_ROUND = threading.Lock()
+ROUND_LOCK = threading.Lock()
 if hasattr(os, "register_at_fork"):
     os.register_at_fork(
-        before=_ROUND.acquire, after_in_parent=_ROUND.release, after_in_child=_ROUND.release
+        before=ROUND_LOCK.acquire,
+        after_in_parent=ROUND_LOCK.release,
+        after_in_child=ROUND_LOCK.release,
     )
 
 
@@ -58,36 +58,56 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     return published
 
 
-def _loop(config: dict, interval: float) -> None:
-    while not _STOP.wait(interval):
-        try:
-            with _ROUND:
-                sweep_once(config)
-        except Exception:  # a database hiccup must not kill the thread; try again next round
-            log.exception("sweeper round failed")
+class Periodic:
+    """A daemon thread that runs ``work(config)`` every ``interval`` seconds (one per process)."""
+
+    def __init__(self, name: str, work, what: str):
+        self.name, self.work, self.what = name, work, what
+        self.thread: threading.Thread | None = None
+        self.stopping = threading.Event()
+
+    def _loop(self, config: dict, interval: float) -> None:
+        while not self.stopping.wait(interval):
+            try:
+                self.work(config)
+            except Exception:  # a database hiccup must not kill the thread; try again next round
+                log.exception("%s round failed", self.what)
+
+    def start(self, config: dict, interval: float) -> threading.Thread:
+        """Start the thread unless it runs already; return it."""
+        if self.thread is not None and self.thread.is_alive():
+            return self.thread
+        self.stopping.clear()
+        self.thread = threading.Thread(
+            target=self._loop, args=(dict(config), interval), name=self.name, daemon=True
+        )
+        self.thread.start()
+        return self.thread
+
+    def stop(self, timeout: float = 5.0) -> None:
+        """Ask the thread to stop and wait briefly for it."""
+        self.stopping.set()
+        if self.thread is not None:
+            self.thread.join(timeout)
+        self.thread = None
+
+
+def _sweep_round(config: dict) -> None:
+    with ROUND_LOCK:
+        sweep_once(config)
+
+
+_SWEEPER = Periodic("sizewise-sweeper", _sweep_round, "sweeper")
 
 
 def start_thread(config: dict) -> threading.Thread:
     """Start the sweeper daemon thread (once per process) and return it."""
-    global _THREAD
-    if _THREAD is not None and _THREAD.is_alive():
-        return _THREAD
-    _STOP.clear()
-    interval = max(float(config.get("SWEEP_SECONDS", 15)), 0.5)
-    _THREAD = threading.Thread(
-        target=_loop, args=(dict(config), interval), name="sizewise-sweeper", daemon=True
-    )
-    _THREAD.start()
-    return _THREAD
+    return _SWEEPER.start(config, max(float(config.get("SWEEP_SECONDS", 15)), 0.5))
 
 
 def stop_thread(timeout: float = 5.0) -> None:
     """Ask the sweeper thread to stop and wait briefly for it."""
-    global _THREAD
-    _STOP.set()
-    if _THREAD is not None:
-        _THREAD.join(timeout)
-    _THREAD = None
+    _SWEEPER.stop(timeout)
 
 
 def republish_after(config: dict) -> timedelta:

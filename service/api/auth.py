@@ -59,6 +59,7 @@ from .context import sessions, settings
 from .errors import ApiError, NotFound, ValidationFailed, problem
 from .identity import Caller, current_caller
 from .io import refuse_bad_path_text
+from .links import absolute
 
 log = logging.getLogger(__name__)
 
@@ -103,6 +104,11 @@ ACCESS: dict[str, frozenset[str]] = {
     "tokens.revoke_token": frozenset({ADMIN}),
     # Operators' view of the pipeline; Prometheus sends an admin bearer token.
     "metrics.metrics_page": frozenset({ADMIN}),
+    # A submitting token's own callback URL; the delivery log goes with the request it is about.
+    "webhooks.put_webhook": SUBMITTERS,
+    "webhooks.get_webhook": SUBMITTERS,
+    "webhooks.delete_webhook": SUBMITTERS,
+    "webhooks.list_deliveries": READERS,
 }
 
 # The desk (service/desk): pages signed into with a session cookie instead of a bearer header.
@@ -309,7 +315,7 @@ def report_link(request_id: str, generation: int, now: datetime | None = None) -
     key = current_app.extensions["sizewise"]["link_key"]
     token = sign_link(key, request_id, expires_at, generation)
     return {
-        "url": f"/v1/requests/{request_id}/report?{LINK_PARAM}={token}",
+        "url": absolute(f"/v1/requests/{request_id}/report?{LINK_PARAM}={token}"),
         "expires_at": expires_at,
     }
 

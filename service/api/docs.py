@@ -24,6 +24,8 @@ class Operation:
     headers: dict[str, str] = field(default_factory=dict)
     request_headers: dict[str, str] = field(default_factory=dict)
     media_type: str = "application/json"
+    # Other answers than ``status`` that are not errors: code -> description (304 has no body).
+    also: dict[int, str] = field(default_factory=dict)
 
 
 def operation(summary: str, *, tag: str, status: int = 200, response=None, **kwargs) -> Callable:

@@ -31,6 +31,7 @@ from .docs import operation
 from .errors import Conflict, NotFound, ValidationFailed
 from .identity import current_actor
 from .io import load_body, reject_query
+from .pagination import PageArgsSchema, page_args, page_body
 from .publishing import publish_job
 from .views import load_request, located
 
@@ -151,14 +152,16 @@ def start_exploration(request_id: str, item: dict) -> str:
     "List a request's explorations and their results",
     tag="explorations",
     response=ExplorationListSchema,
+    query=PageArgsSchema,
     errors=(404, 422, 500, 503),
 )
 def list_explorations(request_id: str):
     """Return the request's explorations, oldest first, with their results."""
-    reject_query()
+    args = page_args()
     with session_scope(sessions()) as session:
         load_request(session, request_id)
-        return jsonify({"items": [render(e) for e in store.explorations_for(session, request_id)]})
+        rows, key = store.explorations_page(session, request_id, **args)
+        return jsonify(page_body([render(e) for e in rows], args["limit"], key))
 
 
 @bp.get("/requests/<request_id>/explorations/<exploration_id>")

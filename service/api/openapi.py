@@ -61,6 +61,11 @@ def _operation_dict(op: Operation, endpoint: str, *, secured: bool) -> dict:
             "description": "The same Idempotency-Key and body were posted before",
             "content": {"application/json": {"schema": op.response}},
         }
+    for code, text in op.also.items():
+        other: dict = {"description": text}
+        if code not in (204, 304) and op.response is not None:
+            other["content"] = {op.media_type: {"schema": op.response}}
+        responses[str(code)] = other
     # Every secured endpoint can answer 401 (no or bad token), 403 (role) and 429 (rate limit).
     codes = set(op.errors) | {500} | ({401, 403, 429} if secured else set())
     for code in sorted(codes):

@@ -4,12 +4,16 @@ from __future__ import annotations
 
 from typing import Any
 
+from flask import has_request_context
 from sqlalchemy.orm import Session
 
 from service.schemas.requests import AuditEventSchema, RequestSchema, RerunSchema
 from service.store import explorations as exploration_store
 from service.store import requests as store
 from service.store.models import Request, Rerun
+
+from .links import link
+from .pagination import page_body
 
 _DETAIL = RequestSchema()
 _SUMMARY = RequestSchema(
@@ -19,7 +23,26 @@ _RERUN = RerunSchema()
 _EVENT = AuditEventSchema()
 
 
+def request_links(request_id: str) -> dict[str, str]:
+    """Absolute URLs of what a client can follow from a request."""
+    return {
+        "self": link("requests.get_request", request_id=request_id),
+        "report": link("reports.request_report", request_id=request_id),
+        "reruns": link("requests.list_reruns", request_id=request_id),
+        "explorations": link("reports.explorations.list_explorations", request_id=request_id),
+        "deliveries": link("webhooks.list_deliveries", request_id=request_id),
+    }
+
+
 def _base(row: Request) -> dict[str, Any]:
+    data = _fields(row)
+    # Links need the caller's host (or the public URL); the command line renders without them.
+    if has_request_context():
+        data["links"] = request_links(row.id)
+    return data
+
+
+def _fields(row: Request) -> dict[str, Any]:
     return {
         "id": row.id,
         "status": row.status,
@@ -63,14 +86,10 @@ def request_detail(session: Session, row: Request) -> dict:
     return _DETAIL.dump(data)
 
 
-def request_page(page: store.Page, number: int, per_page: int) -> dict:
-    """Return one listing page."""
-    return {
-        "items": [_SUMMARY.dump(_base(row)) for row in page.items],
-        "page": number,
-        "per_page": per_page,
-        "total": page.total,
-    }
+def request_page(page: store.Page, limit: int) -> dict:
+    """Return one listing page with its ``next`` link."""
+    items = [_SUMMARY.dump(_base(row)) for row in page.items]
+    return page_body(items, limit, page.next_key, total=page.total)
 
 
 def rerun(row: Rerun) -> dict:

@@ -32,6 +32,7 @@ from service.store.models import ApiToken
 
 from . import render
 from .auth import charge, check_submission_cost
+from .caching import conditional
 from .context import sessions, settings
 from .docs import operation
 from .errors import ApiError, Conflict, NotFound, ValidationFailed
@@ -39,6 +40,7 @@ from .explorations import store_submission
 from .feasibility import check_computable
 from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
+from .pagination import PageArgsSchema, page_args, page_body
 from .publishing import answer_now, publish_job
 from .views import load_request, located, visible_request_page
 
@@ -215,13 +217,21 @@ def list_requests():
     "Read one request: status, progress, result, history and reruns",
     tag="requests",
     response=RequestSchema,
+    description=(
+        "Sends a strong ETag (SHA-256 of the body); a GET with If-None-Match naming it gets "
+        "304 and no body while the request is unchanged."
+    ),
     errors=(404, 422, 500, 503),
+    headers={"ETag": "SHA-256 of the body"},
+    also={304: "Not modified: the ETag in If-None-Match is current (no body)"},
+    request_headers={"If-None-Match": "An ETag from an earlier answer"},
 )
 def get_request(request_id: str):
     """Return the request with its result record (or null) and its audit history."""
     reject_query()
     with session_scope(sessions()) as session:
-        return jsonify(render.request_detail(session, load_request(session, request_id)))
+        body = render.request_detail(session, load_request(session, request_id))
+    return conditional(jsonify(body))
 
 
 @bp.post("/requests/<request_id>/cancel")
@@ -387,17 +397,22 @@ def start_rerun(request_id: str, note: str | None) -> str:
 
 @bp.get("/requests/<request_id>/reruns")
 @operation(
-    "List a request's reruns", tag="reruns", response=RerunListSchema, errors=(404, 422, 500, 503)
+    "List a request's reruns (oldest first, paginated)",
+    tag="reruns",
+    response=RerunListSchema,
+    query=PageArgsSchema,
+    errors=(404, 422, 500, 503),
 )
 def list_reruns(request_id: str):
     """Return the request's reruns, oldest first."""
-    reject_query()
+    args = page_args()
     with session_scope(sessions()) as session:
         load_request(session, request_id)
-        items = [render.rerun(r) for r in store.reruns_for(session, request_id)]
+        rows, key = store.reruns_page(session, request_id, **args)
+        items = [render.rerun(r) for r in rows]
     for item in items:
         item.pop("record", None)
-    return jsonify({"items": items})
+    return jsonify(page_body(items, args["limit"], key))
 
 
 @bp.get("/requests/<request_id>/reruns/<rerun_id>")

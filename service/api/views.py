@@ -16,7 +16,8 @@ from . import render
 from .context import sessions
 from .errors import NotFound
 from .identity import visible_submitter
-from .io import load_query
+from .links import absolute
+from .pagination import page_args
 
 _ID_PATTERN = re.compile(r"^[0-9a-f]{32}$")
 
@@ -31,18 +32,15 @@ def load_request(session: Session, request_id: str) -> Request:
 
 def visible_request_page() -> dict:
     """Read the list query and return the rendered page of requests the caller may see."""
-    args = load_query(RequestQueryArgsSchema())
-    page, per_page = args.pop("page"), args.pop("per_page")
+    args = page_args(RequestQueryArgsSchema())
     with session_scope(sessions()) as session:
-        result = store.list_requests(
-            session, page=page, per_page=per_page, submitted_by=visible_submitter(), **args
-        )
-        return render.request_page(result, page, per_page)
+        result = store.list_requests(session, submitted_by=visible_submitter(), **args)
+        return render.request_page(result, args["limit"])
 
 
 def located(body: dict, status: int, location: str) -> Response:
     """Return ``body`` as JSON with ``status`` and a Location header naming the new resource."""
     response = jsonify(body)
     response.status_code = status
-    response.headers["Location"] = location
+    response.headers["Location"] = absolute(location) if location.startswith("/") else location
     return response

@@ -14,6 +14,7 @@ from marshmallow import Schema, ValidationError, fields, post_load, validate, va
 
 from service.schemas.errors import QuestionInvalid
 from service.schemas.explorations import price_errors
+from service.schemas.paging import cursor_field, limit_field, next_field
 from service.schemas.question import load_question
 from service.store.models import (
     EXPLORATION_STATUSES,
@@ -266,6 +267,8 @@ class ExplorationListSchema(StrictSchema):
     """GET /v1/requests/{id}/explorations."""
 
     items = fields.List(fields.Nested(ExplorationSchema))
+    limit = fields.Integer()
+    next = next_field()
 
 
 class ReportLinkSchema(StrictSchema):
@@ -346,6 +349,11 @@ class RequestSchema(StrictSchema):
     reruns = fields.Nested(RerunSummarySchema)
     effect_source = fields.String(allow_none=True)
     explorations = fields.List(fields.Nested(ExplorationSchema(exclude=("result",))))
+    links = fields.Dict(
+        keys=fields.String(),
+        values=fields.String(),
+        metadata={"description": "Absolute URLs: self, report, reruns, explorations, deliveries."},
+    )
 
 
 class RequestPageSchema(StrictSchema):
@@ -358,8 +366,8 @@ class RequestPageSchema(StrictSchema):
             )
         )
     )
-    page = fields.Integer()
-    per_page = fields.Integer()
+    limit = fields.Integer()
+    next = next_field()
     total = fields.Integer()
 
 
@@ -367,6 +375,8 @@ class RerunListSchema(StrictSchema):
     """GET /v1/requests/{id}/reruns."""
 
     items = fields.List(fields.Nested(RerunSchema(exclude=("record",))))
+    limit = fields.Integer()
+    next = next_field()
 
 
 def _cell_word(which: str, value: str) -> None:
@@ -400,11 +410,8 @@ class RequestQueryArgsSchema(StrictSchema):
     submitted_to = fields.Date(
         error_messages=DATE_ERRORS, metadata={"description": "Last UTC day, inclusive."}
     )
-    # Bounded so a page number always fits the database's integers (100 x 1,000,000 rows).
-    page = fields.Integer(
-        load_default=1, error_messages=INT_ERRORS, validate=in_range(1, 1_000_000)
-    )
-    per_page = fields.Integer(load_default=20, error_messages=INT_ERRORS, validate=in_range(1, 100))
+    limit = limit_field()
+    cursor = cursor_field()
 
     @validates_schema
     def dates_in_order(self, data: dict, **_kwargs) -> None:

@@ -15,6 +15,7 @@ from .chain import chain_hash
 from .chain import content_hash as content_hash  # re-exported: the store's callers use it
 from .models import AuditEvent
 from .types import utcnow
+from .webhooks import enqueue_for_event
 
 _Row = TypeVar("_Row")
 
@@ -62,6 +63,8 @@ def append_event(
     event.prev_sha256 = prev
     event.sha256 = event_hash(event)
     session.flush()
+    # A status change a client listens for writes its outbox row in this same transaction.
+    enqueue_for_event(session, event)
     return event
 
 

@@ -14,6 +14,7 @@ from sqlalchemy.orm import Session
 
 from .audit import add_with_event
 from .models import EXPLORATION_TYPES, Exploration
+from .paging import Key, keyset_page
 
 
 def create_exploration(
@@ -51,6 +52,20 @@ def explorations_for(session: Session, request_id: str) -> list[Exploration]:
             .where(Exploration.request_id == request_id)
             .order_by(Exploration.created_at, Exploration.id)
         )
+    )
+
+
+def explorations_page(
+    session: Session, request_id: str, *, after: Key | None, limit: int
+) -> tuple[list[Exploration], Key | None]:
+    """One page of the request's explorations, oldest first, and the key of the next page."""
+    return keyset_page(
+        session,
+        select(Exploration).where(Exploration.request_id == request_id),
+        Exploration.created_at,
+        Exploration.id,
+        after=after,
+        limit=limit,
     )
 
 

@@ -283,3 +283,61 @@ class DeskSession(Base):
     last_seen_at: Mapped[Stamp] = mapped_column(default=utcnow)
     ended_at: Mapped[datetime | None]
     end_reason: Mapped[str | None] = mapped_column(String(16))
+
+
+# --- webhooks (issue 15): callbacks of intake clients, their outbox and delivery log ----------
+
+WEBHOOK_EVENTS = ("computed", "failed", "returned", "approved")
+MESSAGE_STATUSES = ("pending", "delivered", "failed", "dropped")
+
+
+class Webhook(Base):
+    """One token's callback URL. The signing secret is symmetric, so it is kept (unlike tokens)."""
+
+    __tablename__ = "webhooks"
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    token_id: Mapped[str] = mapped_column(String(32), unique=True)
+    url: Mapped[str] = mapped_column(String(2000))
+    secret: Mapped[str] = mapped_column(String(120))
+    # Where links in the payloads point (SIZEWISE_PUBLIC_URL, else the host that registered).
+    api_base: Mapped[str] = mapped_column(String(500))
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    updated_at: Mapped[Stamp] = mapped_column(default=utcnow)
+
+
+class WebhookMessage(Base):
+    """An outbox row: one notification, written in the transaction of the status change."""
+
+    __tablename__ = "webhook_messages"
+    __table_args__ = (CheckConstraint(_in("status", MESSAGE_STATUSES), name="status"),)
+
+    # The Standard Webhooks message id (webhook-id header), the same on every attempt.
+    id: Mapped[str] = mapped_column(String(40), primary_key=True)
+    webhook_id: Mapped[str] = mapped_column(String(32))
+    request_id: Mapped[str] = mapped_column(ForeignKey("requests.id"), index=True)
+    # One message per audit event: a status change never notifies twice.
+    audit_event_id: Mapped[int] = mapped_column(Integer, unique=True)
+    event_type: Mapped[str] = mapped_column(String(40))
+    payload: Mapped[str] = mapped_column(Text)
+    status: Mapped[str] = mapped_column(String(16))
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    next_attempt_at: Mapped[datetime] = mapped_column(index=True)
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    created_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    finished_at: Mapped[datetime | None]
+
+
+class WebhookAttempt(Base):
+    """One delivery attempt of a message: the delivery log a client reads."""
+
+    __tablename__ = "webhook_attempts"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    message_id: Mapped[str] = mapped_column(ForeignKey("webhook_messages.id"), index=True)
+    attempt: Mapped[int] = mapped_column(Integer)
+    url: Mapped[str] = mapped_column(String(2000))
+    attempted_at: Mapped[Stamp] = mapped_column(default=utcnow)
+    status_code: Mapped[int | None]
+    error: Mapped[str | None] = mapped_column(Text)
+    duration_ms: Mapped[float] = mapped_column(Double)

@@ -14,6 +14,7 @@ from sqlalchemy.orm import Session
 
 from .audit import add_with_event, append_event, content_hash, events_for
 from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
+from .paging import Key, keyset_page
 from .types import utcnow
 
 
@@ -48,6 +49,8 @@ class Page:
 
     items: list[Request]
     total: int
+    # Where the next page starts (None after the last page).
+    next_key: Key | None = None
 
 
 def body_digest(body: Any) -> str:
@@ -177,10 +180,14 @@ def list_requests(
     submitted_from: date | None = None,
     submitted_to: date | None = None,
     submitted_by: str | None = None,
-    page: int = 1,
-    per_page: int = 20,
+    after: Key | None = None,
+    limit: int = 20,
 ) -> Page:
-    """Return one page of requests, newest first, filtered; dates are whole UTC days, inclusive."""
+    """Return one page of requests, newest first, filtered; dates are whole UTC days, inclusive.
+
+    Pages are keyset pages on (submitted_at, id) descending: ``after`` is the previous page's
+    ``next_key``.
+    """
     conditions = []
     if status is not None:
         conditions.append(Request.status == status)
@@ -202,14 +209,16 @@ def list_requests(
         end = datetime.combine(submitted_to + timedelta(days=1), time(), UTC)
         conditions.append(Request.submitted_at < end)
     total = session.scalar(select(func.count()).select_from(Request).where(*conditions)) or 0
-    items = session.scalars(
-        select(Request)
-        .where(*conditions)
-        .order_by(Request.submitted_at.desc(), Request.id)
-        .offset((page - 1) * per_page)
-        .limit(per_page)
+    items, next_key = keyset_page(
+        session,
+        select(Request).where(*conditions),
+        Request.submitted_at,
+        Request.id,
+        after=after,
+        limit=limit,
+        newest_first=True,
     )
-    return Page(items=list(items), total=total)
+    return Page(items=items, total=total, next_key=next_key)
 
 
 def _touch(row: Request) -> None:
@@ -326,6 +335,20 @@ def reruns_for(session: Session, request_id: str) -> list[Rerun]:
             .where(Rerun.request_id == request_id)
             .order_by(Rerun.requested_at, Rerun.id)
         )
+    )
+
+
+def reruns_page(
+    session: Session, request_id: str, *, after: Key | None, limit: int
+) -> tuple[list[Rerun], Key | None]:
+    """One page of the request's reruns, oldest first, and the key of the next page."""
+    return keyset_page(
+        session,
+        select(Rerun).where(Rerun.request_id == request_id),
+        Rerun.requested_at,
+        Rerun.id,
+        after=after,
+        limit=limit,
     )
 
 

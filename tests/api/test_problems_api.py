@@ -115,10 +115,12 @@ def test_unknown_id_on_reads(client, path):
         ("requester=not-an-email", "query.requester"),
         ("submitted_from=yesterday", "query.submitted_from"),
         ("submitted_from=2025-03-02&submitted_to=2025-03-01", "query.submitted_to"),
-        ("page=0", "query.page"),
-        ("page=two", "query.page"),
-        ("per_page=101", "query.per_page"),
-        ("page=1&page=2", "query.page"),
+        ("limit=0", "query.limit"),
+        ("limit=two", "query.limit"),
+        ("limit=101", "query.limit"),
+        ("limit=1&limit=2", "query.limit"),
+        ("cursor=not-a-cursor", "query.cursor"),
+        ("page=2", "query.page"),
         ("sort=newest", "query.sort"),
     ],
 )
@@ -133,7 +135,6 @@ def test_bad_list_query(client, query, field):
         "/v1/catalogue",
         "/v1/catalogue/question.schema.json",
         "/v1/requests/{id}",
-        "/v1/requests/{id}/reruns",
     ],
 )
 def test_query_on_endpoints_without_parameters(client, request_id, path):

@@ -82,7 +82,7 @@ def test_a_report_link_opens_the_pages_without_a_token(anon_client, api):
     request_id = _computed(api)
     r = api.post(f"/v1/requests/{request_id}/report-links", role="auditor")
     body = r.get_json()
-    assert body["url"].startswith(f"/v1/requests/{request_id}/report?link=")
+    assert body["url"].startswith(f"http://localhost/v1/requests/{request_id}/report?link=")
     expires = datetime.fromisoformat(body["expires_at"])
     # valid 24 hours (common practice for shared links, no source)
     assert timedelta(hours=23, minutes=59) < expires - datetime.now(UTC) <= timedelta(hours=24)

@@ -137,7 +137,9 @@ def test_rerun_is_queued_and_listed(api):
     assert r.status_code == 202
     rerun = r.get_json()
     assert rerun["status"] == "queued" and rerun["published_at"] is not None
-    assert r.headers["Location"] == f"/v1/requests/{request_id}/reruns/{rerun['id']}"
+    assert (
+        r.headers["Location"] == f"http://localhost/v1/requests/{request_id}/reruns/{rerun['id']}"
+    )
     assert rerun["env_original"]["numpy"]
     listed = api.client.get(f"/v1/requests/{request_id}/reruns").get_json()
     assert [i["id"] for i in listed["items"]] == [rerun["id"]]

@@ -140,8 +140,8 @@ def test_local_launcher_end_to_end(tmp_path: Path):
         status, link = api.call("POST", f"/v1/requests/{rid}/report-links")
         assert status == 201, link
         signature = link["url"].rsplit(".", 1)[1]
-        page = Request(api.base + link["url"])
-        page.add_header("Referer", api.base + link["url"])
+        page = Request(link["url"])
+        page.add_header("Referer", link["url"])
         with urlopen(page, timeout=10) as resp:
             assert resp.status == 200
             assert resp.headers["Referrer-Policy"] == "no-referrer"

@@ -180,8 +180,8 @@ QUERY_KEYS = [
     "requester",
     "outcome",
     "layout",
-    "page",
-    "per_page",
+    "limit",
+    "cursor",
     "submitted_from",
 ]
 

@@ -76,7 +76,9 @@ def served(tmp_path_factory):
     assert detail["status"] == "computed"
     for exploration in detail["explorations"]:
         assert run_exploration_job(exploration["id"], config) == "done"
+    # The link is absolute on the test client's host; the browser opens it on the served port.
     link = client.post(f"/v1/requests/{detail['id']}/report-links").get_json()["url"]
+    link = link.removeprefix("http://localhost")
     server = make_server("127.0.0.1", 0, app, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()

@@ -52,6 +52,10 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/v1/tokens"): {ADM},
     ("POST", "/v1/tokens/<token_id>/revoke"): {ADM},
     ("GET", "/metrics"): {ADM},
+    ("PUT", "/v1/webhook"): {INT, S},
+    ("GET", "/v1/webhook"): {INT, S},
+    ("DELETE", "/v1/webhook"): {INT, S},
+    ("GET", "/v1/requests/<request_id>/deliveries"): {INT, S, A},
 }
 
 BODIES = {
@@ -73,6 +77,7 @@ BODIES = {
         "type": "sensitivity_grid",
         "grid": {"alpha": [0.05, 0.01]},
     },
+    "/v1/webhook": {"url": "https://hooks.northbridge-general.example/sizewise"},
 }
 
 
@@ -96,11 +101,9 @@ def _call(client, api, method: str, rule: str, ids: dict[str, str], headers: dic
     body = BODIES.get(rule)
     if (method, rule) == ("POST", "/v1/requests"):
         body = api.request_body()
-    if method == "GET":
-        return client.get(path, headers=headers)
-    if body is None:
-        return client.post(path, headers=headers)
-    return client.post(path, json=body, headers=headers)
+    if method in ("GET", "DELETE") or body is None:
+        return client.open(path, method=method, headers=headers)
+    return client.open(path, method=method, json=body, headers=headers)
 
 
 @pytest.mark.parametrize("method,rule", sorted(MATRIX))

@@ -135,10 +135,10 @@ def test_nul_in_query_and_path_is_refused(app, client, api, auth):
     assert stored_rows(app) == before
 
 
-def test_page_with_thirty_digits_is_422(client):
-    r = client.get("/v1/requests", query_string={"page": "9" * 30})
-    assert "1000000" in _problem(r, 422)["errors"]["query.page"][0]
-    assert client.get("/v1/requests", query_string={"page": "1000000"}).status_code == 200
+def test_limit_with_thirty_digits_is_422(client):
+    r = client.get("/v1/requests", query_string={"limit": "9" * 30})
+    assert "from 1 to 100" in _problem(r, 422)["errors"]["query.limit"][0]
+    assert client.get("/v1/requests", query_string={"limit": "100"}).status_code == 200
 
 
 def test_lognormal_sigma_of_1000_is_refused_with_the_range(app, client, api):

@@ -10,8 +10,8 @@ from pathlib import Path
 import pytest
 
 REPO = Path(__file__).resolve().parents[2]
-# sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ← exploration_tasks:
-# a module imports only those before it.
+# sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ← exploration_tasks,
+# webhook_tasks: a module imports only those before it.
 ORDER = (
     "sessions",
     "fanout",
@@ -21,6 +21,7 @@ ORDER = (
     "sweeper",
     "tasks",
     "exploration_tasks",
+    "webhook_tasks",
 )
 MODULES = ORDER
 

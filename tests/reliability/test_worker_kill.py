@@ -29,7 +29,9 @@ from workers.tasks import sessions
 
 pytestmark = [pytest.mark.services, pytest.mark.slow]
 
-REPLICATES = 20_000
+# Big enough (about 20 s in one process) that a kill 1 s after the run starts lands mid-run even
+# when fan-out spreads it over four pool children.
+REPLICATES = 100_000
 CHUNK_SIZE = 500
 CHUNKS = REPLICATES // CHUNK_SIZE
 
@@ -76,10 +78,10 @@ def stack(config: dict):
 
 
 def _mid_run(factory, request_id: str) -> tuple[int, int] | None:
-    """(lease owner's pid, attempt) once the request runs on a worker (the test then waits 2 s).
+    """(lease owner's pid, attempt) once the request runs on a worker (the test then waits 1 s).
 
     Progress is written per engine batch, and this question is one batch, so the test cannot
-    wait for a progress value; 2 s into a run of tens of seconds is part-way.
+    wait for a progress value; 1 s into a run of several seconds is part-way.
     """
     with session_scope(factory) as session:
         status, owner, attempts = session.execute(
@@ -103,7 +105,8 @@ def test_killed_worker_job_completes_with_identical_digits(config, stack, start_
         pid, _attempt = wait_for(
             lambda rid=request_id: _mid_run(factory, rid), 120, f"{request_id} mid-run", 0.05
         )
-        time.sleep(2.0)
+        time.sleep(1.0)
+        assert _mid_run(factory, request_id) is not None, f"{request_id} ended before the kill"
         child = psutil.Process(pid)
         main_pids = {w.proc.pid for w in workers if w.proc is not None}
         # The lease holder is a prefork pool child of one of our worker main processes.
@@ -147,7 +150,7 @@ def test_embedded_default_survives_the_death_of_both_pool_children(sqlite_config
         worker = start_worker(config, concurrency=2)
         request_id = stack.submit(_posted(seed=7200))
         stack.wait(request_id, until=("running", "computed"), timeout=120, worker=worker)
-        time.sleep(2.0)  # part-way through its 40 chunks (tens of seconds in all)
+        time.sleep(1.0)  # part-way through its 200 chunks (several seconds in all)
         children = psutil.Process(worker.proc.pid).children()
         assert len(children) == 2, children
         for child in children:

@@ -19,7 +19,7 @@ def _table() -> dict[str, tuple[list[str], list[str]]]:
     rows = {}
     for line in match.group(1).splitlines():
         cells = [c.strip() for c in line.strip().strip("|").split("|")]
-        if len(cells) != 3 or not cells[0].startswith("`POST "):
+        if len(cells) != 3 or not re.match(r"`(POST|PUT|PATCH) ", cells[0]):
             continue
         call = cells[0].strip("`")
         rows[call] = (re.findall(r"`([^`]+)`", cells[1]), re.findall(r"`([^`]+)`", cells[2]))

@@ -29,6 +29,7 @@ from .common import (
     hypothesis,
     make_validate,
     number,
+    stated_effect,
     tails,
     two_group_allocation,
     two_groups,
@@ -502,9 +503,7 @@ SIMULATION = SimulationModel(
 
 
 def effect_sentence(q: dict, record: dict | None) -> str:
-    value = values(q, FIELDS).get("p_treatment")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, FIELDS, "p_treatment")
     if value is None:
         return "the event proportion in the treatment group"
     return f"an event proportion of {fmt(value)} in the treatment group"

@@ -225,3 +225,11 @@ def raise_first(errors: dict[str, list[str]]) -> None:
     """Raise the first of ``validate``'s errors as a QuestionError (the engine's own check)."""
     for path, messages in errors.items():
         raise QuestionError(path, messages[0])
+
+
+def stated_effect(q: dict, record: dict | None, fields, name: str):
+    """The effect a sentence states: as posted, or the value solved for (find = effect)."""
+    value = values(q, fields).get(name)
+    if value is None and record and record.get("effect"):
+        value = record["effect"]["value"]
+    return value

@@ -33,6 +33,7 @@ from .common import (
     make_validate,
     no_warnings,
     number,
+    stated_effect,
     tails,
     two_group_allocation,
     two_groups,
@@ -306,9 +307,7 @@ SIMULATION = SimulationModel(
 
 
 def effect_sentence(q: dict, record: dict | None) -> str:
-    value = values(q, FIELDS).get("difference")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, FIELDS, "difference")
     if value is None:
         return "the difference in means, treatment minus reference"
     return f"a difference in means of {fmt(value)} (treatment minus reference, within subjects)"

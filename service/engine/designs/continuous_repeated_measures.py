@@ -31,6 +31,7 @@ from .common import (
     fmt,
     make_validate,
     number,
+    stated_effect,
     tails,
     two_group_allocation,
     two_groups,
@@ -284,9 +285,7 @@ SIMULATION = SimulationModel(
 
 
 def effect_sentence(q: dict, record: dict | None) -> str:
-    value = values(q, FIELDS).get("difference")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, FIELDS, "difference")
     what = (
         "the change per visit interval"
         if (q.get("analysis") or "mean_over_visits") == "slope"

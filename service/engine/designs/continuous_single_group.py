@@ -31,6 +31,7 @@ from .common import (
     number,
     one_group,
     one_group_allocation,
+    stated_effect,
     tails,
     values,
 )
@@ -194,9 +195,7 @@ def difference_sentence(fields: tuple[Field, ...], tail: str):
     """The effect sentence of a one-sample cell: 'a mean difference of 3 (…)'."""
 
     def sentence(q: dict, record: dict | None) -> str:
-        value = values(q, fields).get("difference")
-        if value is None and record and record.get("effect"):
-            value = record["effect"]["value"]
+        value = stated_effect(q, record, fields, "difference")
         if value is None:
             return f"the mean difference ({tail})"
         return f"a mean difference of {fmt(value)} ({tail})"

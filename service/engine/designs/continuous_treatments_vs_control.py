@@ -35,6 +35,7 @@ from .common import (
     fmt,
     make_validate,
     number,
+    stated_effect,
     tails,
     values,
 )
@@ -324,9 +325,7 @@ SIMULATION = SimulationModel(
 
 
 def effect_sentence(q: dict, record: dict | None) -> str:
-    value = values(q, FIELDS).get("difference")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, FIELDS, "difference")
     if value is None:
         return "the difference in means of each treatment group from the control"
     return f"a difference in means of {fmt(value)} for each treatment group against the control"

@@ -30,6 +30,7 @@ from .common import (
     hypothesis,
     make_validate,
     number,
+    stated_effect,
     tails,
     two_group_allocation,
     two_groups,
@@ -541,9 +542,7 @@ SIMULATION = SimulationModel(
 
 
 def effect_sentence(q: dict, record: dict | None) -> str:
-    value = values(q, FIELDS).get("difference")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, FIELDS, "difference")
     if value is None:
         return "the difference in means, treatment minus control"
     return f"a difference in means of {fmt(value)} (treatment minus control)"

@@ -25,6 +25,7 @@ from .common import (
     make_validate,
     no_warnings,
     number,
+    stated_effect,
     two_group_allocation,
     two_groups,
     values,
@@ -151,9 +152,7 @@ def margin_words(q: dict) -> str:
 
 
 def ratio_sentence(q: dict, record: dict | None, fields, reference: str) -> str:
-    value = values(q, fields).get("ratio")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, fields, "ratio")
     if value is None:
         return f"the ratio of geometric means, treatment over {reference}"
     return f"a ratio of geometric means of {fmt(value)} (treatment over {reference})"

@@ -28,6 +28,7 @@ from .common import (
     make_validate,
     no_warnings,
     number,
+    stated_effect,
     tails,
     two_group_allocation,
     two_groups,
@@ -225,9 +226,7 @@ SIMULATION = SimulationModel(
 
 
 def effect_sentence(q: dict, record: dict | None) -> str:
-    value = values(q, FIELDS).get("prob_superiority")
-    if value is None and record and record.get("effect"):
-        value = record["effect"]["value"]
+    value = stated_effect(q, record, FIELDS, "prob_superiority")
     if value is None:
         return "the probability that a treatment outcome beats a control outcome"
     return (

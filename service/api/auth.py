@@ -75,6 +75,7 @@ ACCESS: dict[str, frozenset[str]] = {
     "openapi.openapi_json": ANY_ROLE,
     "calculations.catalogue": ANY_ROLE,
     "calculations.question_schema": ANY_ROLE,
+    "calculations.request_schema": ANY_ROLE,
     "calculations.calculate": SUBMITTERS,
     "requests.submit_request": SUBMITTERS,
     "requests.list_requests": READERS,

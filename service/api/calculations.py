@@ -1,4 +1,5 @@
-"""The catalogue of cells, the JSON Schema of a question and synchronous analytic calculations."""
+"""The catalogue of cells, the JSON Schemas of a question and of a request body, and
+synchronous analytic calculations."""
 
 from __future__ import annotations
 
@@ -47,6 +48,26 @@ def question_schema():
     from service.schemas.json_schema import question_json_schema
 
     response = jsonify(question_json_schema())
+    response.mimetype = "application/schema+json"
+    return response
+
+
+@bp.get("/catalogue/request.schema.json")
+@operation(
+    "The JSON Schema (draft 2020-12) of a request body (POST /v1/requests)",
+    tag="catalogue",
+    response=None,
+    media_type="application/schema+json",
+    description="Generated from the request body's schema, with the question's JSON Schema "
+    "under `$defs`; rules across fields are checked by the API (422 naming the field).",
+    errors=(422, 500),
+)
+def request_schema():
+    """Return the request body's JSON Schema for form builders and clients."""
+    reject_query()
+    from service.schemas.request_json_schema import request_json_schema
+
+    response = jsonify(request_json_schema())
     response.mimetype = "application/schema+json"
     return response
 

@@ -27,6 +27,7 @@ from .blocks import (
 from .data_models import FAMILIES, FAMILY_SCHEMAS, data_keys, families_for, takes_data
 from .fields import Number, Whole
 from .json_schema import SCHEMA_PATH
+from .request_json_schema import REQUEST_SCHEMA_PATH
 from .vocabulary import cells
 
 _RANGE_KEYS = ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum", "minItems", "enum")
@@ -183,4 +184,5 @@ def catalogue() -> dict[str, Any]:
         "blocks": {name: describe_schema(s) for name, s in blocks.items()},
         "families": [describe_family(f) for f in FAMILIES],
         "json_schema": SCHEMA_PATH,
+        "request_json_schema": REQUEST_SCHEMA_PATH,
     }

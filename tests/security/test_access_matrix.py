@@ -26,6 +26,7 @@ MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/openapi.json"): EVERYONE,
     ("GET", "/v1/catalogue"): EVERYONE,
     ("GET", "/v1/catalogue/question.schema.json"): EVERYONE,
+    ("GET", "/v1/catalogue/request.schema.json"): EVERYONE,
     ("POST", "/v1/calculations"): {INT, S},
     ("POST", "/v1/requests"): {INT, S},
     ("GET", "/v1/requests"): {INT, S, A},

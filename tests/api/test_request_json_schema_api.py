@@ -105,3 +105,9 @@ def test_a_broken_body_is_refused_by_the_schema_and_the_api(validator, client, c
     assert r.status_code == 422, r.get_json()
     names = json.dumps(r.get_json())
     assert field in names, names
+
+
+def test_the_openapi_document_lists_the_route(client):
+    spec = client.get("/openapi.json").get_json()
+    get = spec["paths"]["/v1/catalogue/request.schema.json"]["get"]
+    assert "application/schema+json" in get["responses"]["200"]["content"]

@@ -14,6 +14,7 @@ import os
 import threading
 from datetime import UTC, datetime, timedelta
 
+from service import jsonlog
 from service.store import jobs
 from service.store.db import session_scope
 from workers.fanout import clear_orphan_units
@@ -50,9 +51,11 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
     if orphans:
         log.info("sweeper: deleted %d work unit(s) of ended jobs", orphans)
     published = 0
-    for kind, job_id in stale:
-        # A refusal means the broker is down; the next sweep tries again.
-        published += publish_and_mark(kind, job_id, config, factory)
+    for kind, job_id, trace_id in stale:
+        # A refusal means the broker is down; the next sweep tries again. The message carries
+        # the id of the HTTP request that created the job, as its first publication did.
+        with jsonlog.context(request_id=trace_id):
+            published += publish_and_mark(kind, job_id, config, factory)
     if stale:
         log.info("sweeper: %d stale job(s), %d republished", len(stale), published)
     return published

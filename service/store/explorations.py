@@ -12,6 +12,8 @@ import uuid
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service import jsonlog
+
 from .audit import add_with_event
 from .models import EXPLORATION_TYPES, Exploration
 from .paging import Key, keyset_page
@@ -30,6 +32,7 @@ def create_exploration(
         request_id=request_id,
         stored_kind=EXPLORATION_TYPES[type_],
         params=params,
+        trace_id=jsonlog.current().get("request_id"),
         status="queued",
         requested_by=actor,
         attempts=0,

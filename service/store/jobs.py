@@ -422,8 +422,8 @@ def stale_jobs(
     *,
     grace_seconds: float = 0.0,
     republish_seconds: float | None = None,
-) -> list[tuple[str, str]]:
-    """Return (job, id) of jobs the sweeper must publish (again).
+) -> list[tuple[str, str, str | None]]:
+    """Return (job, id, trace id) of jobs the sweeper must publish (again).
 
     Those are jobs never published, jobs running on an expired lease and, with
     ``republish_seconds``, jobs published that long ago and still not claimed: a broker that
@@ -434,13 +434,13 @@ def stale_jobs(
     """
     cutoff = now - timedelta(seconds=grace_seconds)
     resend = None if republish_seconds is None else now - timedelta(seconds=republish_seconds)
-    found: list[tuple[str, str]] = []
+    found: list[tuple[str, str, str | None]] = []
     for job in JOB_KINDS.values():
         model = job.model
         stamp = getattr(model, job.stamp)
         waiting = model.status.in_(job.queued)
         unpublished = and_(model.published_at.is_(None), waiting, stamp <= cutoff)
-        query = select(model.id)
+        query = select(model.id, model.trace_id)
         if job.needs_result:
             query = query.join(Request, Request.id == model.request_id).join(
                 Result, Result.request_id == model.request_id, isouter=True
@@ -459,8 +459,8 @@ def stale_jobs(
                 else true(),
             )
         lost = and_(waiting, model.published_at < resend) if resend is not None else false()
-        rows = session.scalars(query.where(or_(unpublished, abandoned, lost)).order_by(stamp))
-        found.extend((job.name, job_id) for job_id in rows)
+        rows = session.execute(query.where(or_(unpublished, abandoned, lost)).order_by(stamp))
+        found.extend((job.name, job_id, trace_id) for job_id, trace_id in rows)
     return found
 
 

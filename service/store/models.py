@@ -80,6 +80,9 @@ class Leased:
     lease_owner: Mapped[str | None] = mapped_column(String(200))
     lease_expires_at: Mapped[datetime | None]
     attempts: Mapped[int] = mapped_column(Integer, default=0)
+    # The HTTP request id (X-Request-Id) of the call that created the job: a republished
+    # message carries it again, so the worker's log lines join the API's.
+    trace_id: Mapped[str | None] = mapped_column(String(64))
 
 
 class Request(Leased, Base):

@@ -12,6 +12,8 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from service import jsonlog
+
 from .audit import add_with_event, append_event, content_hash, events_for
 from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
 from .paging import Key, keyset_page
@@ -88,6 +90,7 @@ def create_request(
     row = Request(
         id=new_id(),
         status="received",
+        trace_id=jsonlog.current().get("request_id"),
         protocol=protocol,
         protocol_id=protocol["id"],
         requester=requester,
@@ -316,6 +319,7 @@ def create_rerun(session: Session, row: Request, actor: str, note: str | None) -
         requested_by=actor,
         attempts=0,
         env_original=dict(result.versions or {}),
+        trace_id=jsonlog.current().get("request_id"),
     )
     return add_with_event(
         session,

@@ -95,7 +95,7 @@ def test_attempts_used_up_marks_failed(factory):
 def test_stale_jobs_and_mark_published(factory):
     rid = _new_request(factory)
     with session_scope(factory) as s:
-        assert jobs.stale_jobs(s, utcnow()) == [("request", rid)]
+        assert jobs.stale_jobs(s, utcnow()) == [("request", rid, None)]
         assert jobs.mark_published(s, "request", rid)
     with session_scope(factory) as s:
         assert s.get(Request, rid).status == "queued"
@@ -103,7 +103,7 @@ def test_stale_jobs_and_mark_published(factory):
         jobs.claim(s, "request", rid, "w1", 60, 3)
     _expire_lease(factory, rid)
     with session_scope(factory) as s:
-        assert jobs.stale_jobs(s, utcnow()) == [("request", rid)]
+        assert jobs.stale_jobs(s, utcnow()) == [("request", rid, None)]
 
 
 def test_first_result_wins_and_a_different_one_is_kept_as_conflict(factory):

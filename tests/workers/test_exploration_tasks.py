@@ -62,13 +62,13 @@ def test_an_exploration_waits_for_its_request_then_the_sweeper_publishes_it(sqli
     assert (row.status, row.attempts, row.published_at) == ("queued", 0, None)
     later = utcnow() + timedelta(minutes=5)
     with session_scope(factory) as session:
-        assert ("exploration", exploration_id) not in jobs.stale_jobs(session, later)
+        assert ("exploration", exploration_id, None) not in jobs.stale_jobs(session, later)
     # The broker is down when the request finishes, so the exploration stays unpublished ...
     dead_broker = dict(sqlite_config, BROKER_URL="redis://127.0.0.1:1/0")
     assert run_request_job(request_id, dead_broker) == "computed"
     assert _row(factory, exploration_id).published_at is None
     with session_scope(factory) as session:
-        assert ("exploration", exploration_id) in jobs.stale_jobs(session, later)
+        assert ("exploration", exploration_id, None) in jobs.stale_jobs(session, later)
     # ... and the sweeper hands it over once the broker answers.
     assert sweeper.sweep_once(sqlite_config, now=later) >= 1
     assert _row(factory, exploration_id).published_at is not None
@@ -144,7 +144,7 @@ def test_an_exploration_of_a_failed_request_fails_with_the_reason(sqlite_config,
     request_id = insert_request(factory, two_groups_question(), status="failed")
     exploration_id = _exploration(factory, request_id, "sensitivity_grid", {"grid": GRID})
     with session_scope(factory) as session:
-        assert ("exploration", exploration_id) in jobs.stale_jobs(
+        assert ("exploration", exploration_id, None) in jobs.stale_jobs(
             session, utcnow() + timedelta(minutes=1)
         )
     assert run_exploration_job(exploration_id, sqlite_config) == "failed"
@@ -175,7 +175,7 @@ def test_an_abandoned_exploration_is_swept_and_taken_over(sqlite_config, factory
             .values(lease_expires_at=utcnow() - timedelta(seconds=1))
         )
     with session_scope(factory) as session:
-        assert ("exploration", exploration_id) in jobs.stale_jobs(session, utcnow())
+        assert ("exploration", exploration_id, None) in jobs.stale_jobs(session, utcnow())
     assert run_exploration_job(exploration_id, sqlite_config) == "done"
     assert _row(factory, exploration_id).attempts == 2
 

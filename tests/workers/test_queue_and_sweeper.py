@@ -10,7 +10,9 @@ from pathlib import Path
 import pytest
 from workers_testkit import insert_request, two_groups_question
 
+from service import jsonlog
 from service.config import load_config
+from service.store import requests as store
 from service.store.db import session_scope
 from service.store.models import Request
 from service.store.types import utcnow
@@ -73,6 +75,35 @@ def test_sweeper_republishes_a_running_job_whose_lease_expired(sqlite_config, fa
         row.lease_expires_at = utcnow() - timedelta(seconds=1)
     assert sweeper.sweep_once(sqlite_config) == 1
     assert _messages(sqlite_config) == [("sizewise.run_request", [request_id])]
+
+
+def test_a_republished_message_carries_the_request_id_that_created_the_job(sqlite_config, factory):
+    # The HTTP request id in force when the row is created is stored with the job ...
+    question = two_groups_question()
+    with jsonlog.context(request_id="ngh-intake.trace-0042"), session_scope(factory) as session:
+        request_id = store.create_request(
+            session,
+            protocol={"id": "NGH-2026-044", "title": "Night-shift sleep study"},
+            requester={"name": "Dr. Ana Quill", "email": "a.quill@northbridge.example"},
+            deadline=None,
+            notes=None,
+            question_raw=question,
+            question=question,
+            actor="research-office",
+            idempotency_key=None,
+            body_sha256="0" * 64,
+        ).id
+    with session_scope(factory) as session:
+        row = session.get(Request, request_id)
+        assert row.trace_id == "ngh-intake.trace-0042"
+        row.submitted_at = utcnow() - timedelta(minutes=5)
+    # ... and the sweeper, running outside any HTTP request, sends it along again.
+    assert jsonlog.current().get("request_id") is None
+    assert sweeper.sweep_once(sqlite_config) == 1
+    folder = Path(sqlite_config["BROKER_TRANSPORT_OPTIONS"]["data_folder_in"])
+    (path,) = folder.glob("*.msg")
+    headers = json.loads(path.read_text())["headers"]
+    assert headers[queue.REQUEST_ID_HEADER] == "ngh-intake.trace-0042"
 
 
 def test_sweeper_thread_starts_once_and_stops(sqlite_config):

@@ -169,8 +169,14 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         assurance.check(q, design)  # refuse before any work
     sim = None
     clustered = cluster.settings(q) is not None
-    staged = group_sequential.active(q)  # interim analyses (analytic only, checked above)
+    staged = group_sequential.active(q)  # interim analyses (checked above)
+    # analytic: the maximum size is the fixed size × the inflation factor; simulated: the
+    # sequential test itself is simulated (seqsim.py), its search started at the inflated size
     plan = group_sequential.design_drift(q, alpha) if staged and find != "power" else None
+    if simulated and plan is not None:
+        start_inflation, plan = plan["inflation"], None
+    else:
+        start_inflation = 1.0
     if clustered:
         part = cluster.answer(
             q,
@@ -192,7 +198,7 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         elif q.get("effect") and from_data is None:
             solution = starting.analytic_solution(design, q, alpha)
         if simulated:
-            start = solution.per_group if solution else None
+            start = [n * start_inflation for n in solution.per_group] if solution else None
             sim = _simulate(q, alpha, None, start, executor, progress, cancel, budget)
             raw = [float(n) for n in sim["per_group"]]
         else:
@@ -280,7 +286,10 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             if find == "effect":
                 basis = copy.deepcopy(q)
                 basis["effect"][record["effect"]["field"]] = record["effect"]["value"]
-            exact = starting.analytic_power(design, basis, analyzed, alpha)
+            if staged:
+                exact = group_sequential.analytic_power(design, basis, analyzed, alpha)
+            else:
+                exact = starting.analytic_power(design, basis, analyzed, alpha)
             if exact is not None:
                 power = dict(power, analytic=exact)
     else:
@@ -295,7 +304,16 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
                 approximation="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
                 reference="Donner & Klar (2000); Eldridge, Ashby & Kerry (2006)",
             )
-    if staged:
+    if staged and simulated:
+        sequential = dict(sim["sequential"], per_group=analyzed)
+        record["sequential"] = group_sequential.simulated_block(
+            q, alpha, sequential, record["sample_size"]["per_group"]
+        )
+        record["method"] = dict(
+            record["method"],
+            notes=[*record["method"].get("notes", []), group_sequential.simulated_note(q)],
+        )
+    elif staged:
         basis = q
         if record["effect"] is not None:
             basis = copy.deepcopy(q)

@@ -17,7 +17,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats
 
-from . import cluster_sim, manytoone, models, repeated, vectests
+from . import cluster_sim, manytoone, models, repeated, seqsim, vectests
 from .chunks import BLOCK, STREAM_NULL, ChunkTask, Streams
 from .errors import QuestionError
 
@@ -414,6 +414,8 @@ KERNELS: dict[str, Kernel] = {
     "crossover_t": Kernel(
         _crossover_t, lambda t: _raw_draws(t, [3] * len(t.per_group)), _raw_bytes(8), False
     ),
+    # interim analyses: the base kernel's statistic at every look (seqsim.py)
+    "sequential": Kernel(seqsim.run, seqsim.draws, seqsim.row_bytes, summaries=False),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True

@@ -44,6 +44,7 @@ def test_public_surface_is_explicit():
         "implied",
         "ledger",
         "sequential",
+        "seqsim",
         "group_sequential",
         "manytoone",
         "repeated",

@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, assurance, cluster, designs, group_sequential, implied, starting
+from . import adjust, assurance, cluster, designs, group_sequential, implied, multiplicity, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
@@ -147,6 +147,7 @@ def _check_question(q: dict, design, simulated: bool) -> None:
     raise_first(design.validate(blocks, q["find"], from_data))
     if group_sequential.active(q):
         group_sequential.check(q, design)
+    multiplicity.check(q)
 
 
 def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> dict:
@@ -337,6 +338,9 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     if note:
         record["method"] = dict(record["method"], alpha_note=note)
     record["power"] = power
+    if multiplicity.active(q):
+        # Holm or Hochberg named for the comparisons: their power at the Bonferroni size
+        record["multiplicity"] = multiplicity.block(q, power["estimate"])
     if q.get("assurance"):
         record["assurance"] = assurance.block(q, design, analyzed, alpha, power["estimate"])
     repro["versions"] = versions()

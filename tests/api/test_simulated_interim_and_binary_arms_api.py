@@ -96,3 +96,24 @@ def test_binary_treatments_vs_control_simulated_request_by_the_worker(api, app):
     stored = api.client.get(f"/v1/requests/{request_id}").get_json()
     assert canonical_json(stored["result"]) == canonical_json(compute(stored["question"]))
     assert stored["result"]["method"]["analysis"] == "hochberg"
+
+
+def test_holm_for_many_comparisons_through_the_api(client):
+    question = {
+        "outcome": "continuous",
+        "layout": "two_groups",
+        "find": "sample_size",
+        "target_power": 0.8,
+        "effect": {"difference": 0.5},
+        "assumptions": {"sd": 1.0},
+        "adjustments": {"comparisons": 4, "multiplicity": "holm"},
+    }
+    r = client.post("/v1/calculations", json={"question": question})
+    assert r.status_code == 200, r.get_json()
+    block = r.get_json()["multiplicity"]
+    assert block["procedure"] == "holm" and block["comparisons"] == 4
+    assert block["power"]["all"]["estimate"] > block["bonferroni"]["all"]["estimate"]
+    question["adjustments"] = {"comparisons": 4, "comparisons_correlation": 0.3}
+    r = client.post("/v1/calculations", json={"question": question})
+    assert r.status_code == 422
+    assert "adjustments.comparisons_correlation" in json.dumps(r.get_json())

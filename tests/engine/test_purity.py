@@ -45,6 +45,7 @@ def test_public_surface_is_explicit():
         "ledger",
         "sequential",
         "seqsim",
+        "multiplicity",
         "group_sequential",
         "manytoone",
         "repeated",

@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, assurance, cluster, designs, group_sequential, implied, starting
+from . import adjust, assurance, cluster, designs, group_sequential, implied, multiplicity, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
@@ -147,6 +147,7 @@ def _check_question(q: dict, design, simulated: bool) -> None:
     raise_first(design.validate(blocks, q["find"], from_data))
     if group_sequential.active(q):
         group_sequential.check(q, design)
+    multiplicity.check(q)
 
 
 def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> dict:
@@ -169,8 +170,14 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         assurance.check(q, design)  # refuse before any work
     sim = None
     clustered = cluster.settings(q) is not None
-    staged = group_sequential.active(q)  # interim analyses (analytic only, checked above)
+    staged = group_sequential.active(q)  # interim analyses (checked above)
+    # analytic: the maximum size is the fixed size × the inflation factor; simulated: the
+    # sequential test itself is simulated (seqsim.py), its search started at the inflated size
     plan = group_sequential.design_drift(q, alpha) if staged and find != "power" else None
+    if simulated and plan is not None:
+        start_inflation, plan = plan["inflation"], None
+    else:
+        start_inflation = 1.0
     if clustered:
         part = cluster.answer(
             q,
@@ -192,7 +199,7 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         elif q.get("effect") and from_data is None:
             solution = starting.analytic_solution(design, q, alpha)
         if simulated:
-            start = solution.per_group if solution else None
+            start = [n * start_inflation for n in solution.per_group] if solution else None
             sim = _simulate(q, alpha, None, start, executor, progress, cancel, budget)
             raw = [float(n) for n in sim["per_group"]]
         else:
@@ -280,7 +287,10 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             if find == "effect":
                 basis = copy.deepcopy(q)
                 basis["effect"][record["effect"]["field"]] = record["effect"]["value"]
-            exact = starting.analytic_power(design, basis, analyzed, alpha)
+            if staged:
+                exact = group_sequential.analytic_power(design, basis, analyzed, alpha)
+            else:
+                exact = starting.analytic_power(design, basis, analyzed, alpha)
             if exact is not None:
                 power = dict(power, analytic=exact)
     else:
@@ -295,7 +305,16 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
                 approximation="cluster-level t test (noncentral t, k₁ + k₂ − 2 df) with design effect",
                 reference="Donner & Klar (2000); Eldridge, Ashby & Kerry (2006)",
             )
-    if staged:
+    if staged and simulated:
+        sequential = dict(sim["sequential"], per_group=analyzed)
+        record["sequential"] = group_sequential.simulated_block(
+            q, alpha, sequential, record["sample_size"]["per_group"]
+        )
+        record["method"] = dict(
+            record["method"],
+            notes=[*record["method"].get("notes", []), group_sequential.simulated_note(q)],
+        )
+    elif staged:
         basis = q
         if record["effect"] is not None:
             basis = copy.deepcopy(q)
@@ -319,6 +338,9 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
     if note:
         record["method"] = dict(record["method"], alpha_note=note)
     record["power"] = power
+    if multiplicity.active(q):
+        # Holm or Hochberg named for the comparisons: their power at the Bonferroni size
+        record["multiplicity"] = multiplicity.block(q, power["estimate"])
     if q.get("assurance"):
         record["assurance"] = assurance.block(q, design, analyzed, alpha, power["estimate"])
     repro["versions"] = versions()

@@ -188,3 +188,95 @@ def note(q: dict) -> str:
             "whether or not the trial stops for futility)"
         )
     return text
+
+
+def analytic_power(design, q: dict, per_group: list[float], alpha: float) -> float | None:
+    """The sequential power by numerical integration at these sizes (the cell's normal drift),
+    printed beside a simulated one; None when the cell's formula cannot answer."""
+    from .starting import EXPECTED, analytic_basis
+
+    basis = analytic_basis(design, q)
+    if basis is None:
+        return None
+    try:
+        drift, _ = drift_at(design, basis, per_group, alpha)
+        return float(gs.evaluate(_plan(q), alpha, _sides(q), drift, None)["power"])
+    except EXPECTED:
+        return None
+
+
+def _share(count: int, reps: int) -> float:
+    return count / reps if reps else 0.0
+
+
+def simulated_block(q: dict, alpha: float, sim: dict, enrolled: list[int]) -> dict:
+    """The record's ``sequential`` block of a simulated sequential test: the same keys as the
+    analytic block, the stopping probabilities and expected sizes counted over the replicates
+    (efficacy stops on either side for a two-sided test), with their Monte Carlo errors."""
+    plan, sides = _plan(q), _sides(q)
+    reps = sim["replicates"]
+    spent = gs.alpha_spent(plan.efficacy, plan.t, alpha, sides, plan.efficacy_gamma)
+    looks, expected = [], {}
+    from .seqsim import look_sizes
+
+    analyzed = sim["per_group"]
+    for k, t in enumerate(plan.fractions):
+        upper = sim["upper"][k]
+        looks.append(
+            {
+                "look": k + 1,
+                "fraction": t,
+                "per_group": [look_sizes(n, plan.fractions)[k] for n in analyzed],
+                "efficacy_z": upper,
+                "efficacy_p": float((1.0 - ndtr(upper)) * sides),
+                "futility_z": None,
+                "futility_p": None,
+                "alpha_spent": float(spent[k]),
+                "stop_null": {
+                    "efficacy": _share(sim["null"]["stops"][k], reps),
+                    "futility": 0.0,
+                },
+                "stop_alternative": {
+                    "efficacy": _share(sim["alternative"]["stops"][k], reps),
+                    "futility": 0.0,
+                },
+            }
+        )
+    total = sum(enrolled)
+    for name in ("null", "alternative"):
+        stops = [_share(c, reps) for c in sim[name]["stops"]]
+        stop = list(stops[:-1]) + [1.0 - sum(stops[:-1])]
+        fraction = sum(t * s for t, s in zip(plan.fractions, stop, strict=True))
+        # the spread of the stopping fraction gives the Monte Carlo error of its mean
+        second = sum(t * t * s for t, s in zip(plan.fractions, stop, strict=True))
+        sd = math.sqrt(max(second - fraction * fraction, 0.0))
+        expected[f"expected_total_{name}"] = fraction * total
+        expected[f"expected_total_{name}_mcse"] = sd * total / math.sqrt(reps) if reps else None
+        expected[f"expected_analyzed_{name}"] = _share(sim[name]["subjects"], reps)
+    block = {
+        "looks": looks,
+        "efficacy_spending": plan.efficacy,
+        "futility_spending": "none",
+        "binding_futility": False,
+        "alternative": q.get("alternative", "two-sided"),
+        "method": "simulation",
+        "replicates": reps,
+        **expected,
+        "reference": REFERENCE,
+    }
+    if plan.efficacy == "hwang_shih_decani":
+        block["efficacy_gamma"] = plan.efficacy_gamma
+    return block
+
+
+def simulated_note(q: dict) -> str:
+    """The method note of a simulated sequential test."""
+    block = q["interim"]
+    return (
+        f"{block['looks']} analyses with efficacy boundaries by the "
+        f"{block_rules.LABELS[block['efficacy_spending']]} alpha-spending function, computed "
+        f"by numerical integration ({REFERENCE}); each replicate's test statistic is computed "
+        "at every analysis on the data accrued so far, put on the z scale through its p-value "
+        "and compared with the boundaries: power, type I error, the stopping probabilities "
+        "and the expected size are the shares of replicates, not formulas"
+    )

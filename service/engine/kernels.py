@@ -17,7 +17,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats
 
-from . import cluster_sim, manytoone, models, repeated, vectests
+from . import cluster_sim, manytoone, models, repeated, seqsim, vectests
 from .chunks import BLOCK, STREAM_NULL, ChunkTask, Streams
 from .errors import QuestionError
 
@@ -271,6 +271,42 @@ def _many_to_one(streams: Streams, task: ChunkTask, rows: int):
     return manytoone.stepwise_success(p, task.alpha, task.analysis, goal), {}
 
 
+@lru_cache(maxsize=64)
+def _many_critical_normal(
+    analysis: str, alpha: float, per_group: tuple[int, ...], tails: int
+) -> float:
+    if analysis == "dunnett":
+        return manytoone.dunnett_critical(alpha, list(per_group), manytoone.NORMAL_DF, tails)
+    return float(stats.norm.isf(alpha / (tails * (len(per_group) - 1))))
+
+
+def _many_to_one_binary(streams: Streams, task: ChunkTask, rows: int):
+    """k treatment groups against the control, binary outcome: each pair's pooled z test from
+    binomial counts, then the Dunnett-type (multivariate normal), Bonferroni, Holm or Hochberg
+    decision; success is any or all treatment groups significant (the effect-removed stream
+    always asks "any": the familywise error)."""
+    n = task.per_group
+    counts = [streams.binomial(i, m["p"], n[i], rows) for i, m in enumerate(task.models)]
+    p0 = counts[0] / n[0]
+    zs = []
+    for i in range(1, len(n)):
+        pbar = (counts[0] + counts[i]) / (n[0] + n[i])
+        se = np.sqrt(pbar * (1.0 - pbar) * (1.0 / n[0] + 1.0 / n[i]))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            zs.append((counts[i] / n[i] - p0) / se)
+    z = np.nan_to_num(np.stack(zs, axis=1), nan=0.0)  # no events (or all) anywhere: no signal
+    two = task.rule["alternative"] == "two-sided"
+    stat = np.abs(z) if two else task.rule["direction"] * z
+    tails = 2 if two else 1
+    goal = "any_treatment" if task.stream == STREAM_NULL else task.settings["power_goal"]
+    if task.analysis in ("dunnett", "bonferroni"):
+        c = _many_critical_normal(task.analysis, task.alpha, tuple(n), tails)
+        hit = stat > c
+        return (hit.any(axis=1) if goal == "any_treatment" else hit.all(axis=1)), {}
+    p = tails * stats.norm.sf(stat)
+    return manytoone.stepwise_success(p, task.alpha, task.analysis, goal), {}
+
+
 _STANDARD = {"family": "normal", "mean": 0.0, "sd": 1.0}
 _UNIFORM = {"family": "uniform", "low": 0.0, "high": 1.0}
 
@@ -407,6 +443,13 @@ KERNELS: dict[str, Kernel] = {
     "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
     "many_to_one": Kernel(_many_to_one, _moment_draws, _raw_bytes(4), summaries=True),
+    "many_to_one_binary": Kernel(
+        _many_to_one_binary,
+        lambda t: len(t.per_group),
+        _raw_bytes(10),
+        True,
+        always_summaries=True,
+    ),
     "repeated_gls": Kernel(_repeated_gls, _repeated_draws, _raw_bytes(60), summaries=False),
     "ancova": Kernel(
         _ancova, lambda t: _raw_draws(t, [2] * len(t.per_group)), _raw_bytes(8), False
@@ -414,6 +457,8 @@ KERNELS: dict[str, Kernel] = {
     "crossover_t": Kernel(
         _crossover_t, lambda t: _raw_draws(t, [3] * len(t.per_group)), _raw_bytes(8), False
     ),
+    # interim analyses: the base kernel's statistic at every look (seqsim.py)
+    "sequential": Kernel(seqsim.run, seqsim.draws, seqsim.row_bytes, summaries=False),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True

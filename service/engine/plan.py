@@ -181,6 +181,9 @@ def make_plan(q: dict, alpha: float) -> Plan:
     else:
         normal = all(a["family"] == "normal" for a in arms)
         summaries = base.always_summaries or (base.summaries and normal)
+    if q.get("interim"):
+        settings["interim"] = _interim(q, kernel, alpha, rule)
+        kernel, summaries = "sequential", False
     null, null_text = model.null_data(q, arms, rule)
     # Named groups (two groups; a control and its treatment groups) follow the design's
     # allocation; a list of groups is planned equal.
@@ -212,6 +215,28 @@ def make_plan(q: dict, alpha: float) -> Plan:
         min_size=model.min_size,
         data=data,
     )
+
+
+def _interim(q: dict, base: str, alpha: float, rule: DecisionRule) -> dict:
+    """The sequential kernel's settings: the base kernel, the looks and the efficacy boundaries
+    (z scale, by numerical integration at the planned information fractions)."""
+    from . import seqsim, sequential
+
+    if base not in seqsim.BASES:
+        raise QuestionError(
+            "interim",
+            f"the {q.get('analysis')} analysis is not simulated with interim analyses; the "
+            "simulated sequential test is offered for t, z, rank and Fisher exact tests",
+        )
+    plan = sequential.Plan.of(q["interim"])
+    sides = rule.tails
+    upper = sequential.efficacy_bounds(plan.t, alpha, sides, plan.efficacy, plan.efficacy_gamma)
+    return {
+        "kernel": base,
+        "fractions": list(plan.fractions),
+        "upper": [float(c) for c in upper],
+        "sides": sides,
+    }
 
 
 def per_group_for(plan: Plan, m: int) -> list[int]:

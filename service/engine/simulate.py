@@ -203,6 +203,24 @@ def _events(runner: Runner, request: Request, reps: int) -> dict | None:
     return {"mean_per_replicate": events / reps, "replicates": reps}
 
 
+def _sequential(runner: Runner, alt: Request, null: Request, reps: int) -> dict | None:
+    """The simulated sequential test's counts: efficacy stops per look and the analyzed subjects
+    at stopping, under the data model as posed and with the effect removed; None without looks."""
+    settings = (alt.plan or runner.plan).settings.get("interim")
+    if not settings:
+        return None
+    out = {"replicates": reps, "upper": settings["upper"], "fractions": settings["fractions"]}
+    for name, request in (("alternative", alt), ("null", null)):
+        out[name] = {
+            "stops": [
+                runner.extra_sum(f"stop_look_{k + 1}", request) or 0
+                for k in range(len(settings["fractions"]))
+            ],
+            "subjects": runner.extra_sum("subjects_at_stop", request) or 0,
+        }
+    return out
+
+
 def answer(
     q: dict,
     alpha: float,
@@ -316,6 +334,11 @@ def answer(
         search_block["replicates_run"] = _replicates_run(runner.ledger, reps, found.m - 1 >= m_min)
     out = _result(p, q, final, alt, null, settings, warnings)
     out["search"] = search_block
+    staged = _sequential(
+        runner, Request(STREAM_ALT, final, reps), Request(STREAM_NULL, final, reps), reps
+    )
+    if staged is not None:
+        out["sequential"] = staged
     events = _events(runner, Request(STREAM_ALT, final, reps), reps)
     if events is not None:
         out["events"] = events
@@ -412,6 +435,11 @@ def _answer_effect(q, alpha, per_group, executor, progress, cancel, budget=None)
     )
     block = {"field": name, **block, "tolerance": search.EFFECT_TOLERANCE}
     out["search"] = block
+    staged = _sequential(
+        runner, request(STREAM_ALT, found.x, reps), request(STREAM_NULL, found.x, reps), reps
+    )
+    if staged is not None:
+        out["sequential"] = staged
     events = _events(runner, request(STREAM_ALT, found.x, reps), reps)
     if events is not None:
         out["events"] = events

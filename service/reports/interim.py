@@ -67,6 +67,13 @@ def sentence(record: dict) -> str:
     early = sum(row["stop_alternative"]["efficacy"] for row in looks[:-1])
     unit = "events" if "expected_events_alternative" in block else "subjects"
     key = "events" if unit == "events" else "total"
+    if block.get("method") == "simulation":
+        text += (
+            f" The sequential test was simulated ({fmt_count(block['replicates'])} replicates "
+            "of each data model): at every analysis the test is applied to the data accrued so "
+            "far and compared with these boundaries, so the power, the stopping chances and the "
+            "expected size below are simulated shares, not formulas."
+        )
     text += (
         f" If the assumed effect is true, the chance of stopping early for efficacy is "
         f"{fmt_power(early)} and the expected number of {unit} is "

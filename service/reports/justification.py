@@ -135,6 +135,30 @@ def _alpha(q: dict, steps: list[dict]) -> str:
     return text
 
 
+def multiplicity_sentence(record: dict) -> str:
+    """Holm's or Hochberg's power at the Bonferroni size, '' without the block."""
+    block = record.get("multiplicity")
+    if not block:
+        return ""
+    name = {"holm": "Holm's step-down", "hochberg": "Hochberg's step-up"}[block["procedure"]]
+    ours, bonf = block["power"], block["bonferroni"]
+    together = (
+        "independent"
+        if not block["correlation"]
+        else f"correlated ({fmt_num(block['correlation'])})"
+    )
+    return (
+        f" The {fmt_count(block['comparisons'])} comparisons are tested with {name} procedure, "
+        "which rejects whatever Bonferroni's split rejects, so the size planned with that split "
+        f"is enough; with {together} comparisons its power is {fmt_power(ours['each']['estimate'])} "
+        f"for a given comparison, {fmt_power(ours['any']['estimate'])} for at least one and "
+        f"{fmt_power(ours['all']['estimate'])} for all of them (Bonferroni: "
+        f"{fmt_power(bonf['each']['estimate'])}, {fmt_power(bonf['any']['estimate'])} and "
+        f"{fmt_power(bonf['all']['estimate'])}), simulated with {fmt_count(block['replicates'])} "
+        "replicates under the normal approximation."
+    )
+
+
 # --- adjustment chains -------------------------------------------------------------------------
 
 
@@ -491,6 +515,7 @@ def justification(record: dict, context: dict | None = None) -> str:
     else:
         body = _given_size_body(record, context, test_level)
     body += interim.sentence(record)
+    body += multiplicity_sentence(record)
     body += assurance_sentence(record)
     simulated = record["method"].get("method") == "simulation"
     sim = _simulation(record) if simulated else ""

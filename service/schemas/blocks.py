@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from marshmallow import ValidationError, validates_schema
+from marshmallow import ValidationError, post_load, validates_schema
 
 from .data_models import DataModel
 from .fields import (
@@ -163,6 +163,26 @@ class AdjustmentsSchema(Strict):
     comparisons = Whole(
         Interval(1, 10_000), default=1, description="number of comparisons; alpha is divided by it"
     )
+    multiplicity = Choice(
+        ("bonferroni", "holm", "hochberg"),
+        description="procedure across the comparisons: bonferroni (the size's split of alpha), "
+        "or holm (step-down) / hochberg (step-up), whose power at the Bonferroni size is "
+        "simulated for k identical comparisons; only when posted",
+    )
+    comparisons_correlation = Number(
+        UNIT_HALF_OPEN,
+        allow_none=True,
+        description="correlation of the comparisons' z statistics (equicorrelated, ≥ 0) for the "
+        "holm and hochberg power; 0 (independent) when omitted",
+    )
+
+    @post_load
+    def _only_when_posted(self, data: dict, **kwargs: Any) -> dict:
+        # the normalized question gains these keys only when posted (records keep their digits)
+        for name in ("multiplicity", "comparisons_correlation"):
+            if data.get(name) is None:
+                data.pop(name, None)
+        return data
 
 
 class SimulationSchema(Strict):

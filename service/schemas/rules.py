@@ -362,6 +362,7 @@ def interim(ctx: Context) -> None:
     q = {
         "interim": block,
         "method": resolve.method(ctx.design, ctx.data, ctx.raw),
+        "analysis": ctx.data.get("analysis"),
         "adjustments": ctx.data.get("adjustments"),
         "hypothesis": {"aim": aim},
         "alternative": ctx.data.get("alternative")

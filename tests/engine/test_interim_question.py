@@ -147,7 +147,15 @@ def test_one_sample_t_cells_take_interim_analyses():
             },
             "interim",
         ),
-        ({"method": "simulation"}, "interim"),
+        (
+            {
+                "method": "simulation",
+                "alternative": "one-sided",
+                "interim": {"looks": 3, "futility_spending": "pocock"},
+            },
+            "interim.futility_spending",
+        ),
+        ({"method": "simulation", "analysis": "ancova"}, "analysis"),
         ({"interim": {"looks": 3, "futility_spending": "pocock"}}, "interim.futility_spending"),
         (
             {"interim": {"looks": 3, "information_fractions": [0.5, 1.0]}},

@@ -35,6 +35,16 @@ CASES = [
         ),
         "Dunnett",
     ),
+    (
+        "northbridge_wound_dressings_three_arm.json",
+        ("analysis_label", "Dunnett-type many-to-one test on pooled z statistics"),
+        (
+            "Binary outcome, treatments against a shared control",
+            "3 treatment groups",
+            "an event proportion of 0.1 in each treatment group",
+        ),
+        "Dunnett",
+    ),
 ]
 
 

@@ -44,6 +44,8 @@ def test_public_surface_is_explicit():
         "implied",
         "ledger",
         "sequential",
+        "seqsim",
+        "multiplicity",
         "group_sequential",
         "manytoone",
         "repeated",

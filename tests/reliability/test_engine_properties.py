@@ -69,6 +69,15 @@ VALUES = {
             "control_allocation": st.sampled_from(["equal", "square_root"]),
         }
     ),
+    ("binary", "treatments_vs_control"): st.fixed_dictionaries(
+        {
+            "p_control": _floats(0.1, 0.5),
+            "p_treatment": _floats(0.55, 0.9),
+            "treatment_count": st.integers(1, 4),
+            "power_goal": st.sampled_from(["any_treatment", "all_treatments"]),
+            "control_allocation": st.sampled_from(["equal", "square_root"]),
+        }
+    ),
     ("continuous", "repeated_measures"): st.fixed_dictionaries(
         {
             "difference": _floats(0.1, 2.0),

@@ -43,3 +43,18 @@ def test_time_to_event_words_count_events_and_futility():
     assert view["size_heading"] == "Events" and view["futility"]
     assert view["rows"][-1]["size"] == str(record["events"]["required"])
     assert record["question"]["interim"]["futility_spending"] == "pocock"
+
+
+def test_simulated_sequential_test_says_it_was_simulated():
+    body = _example("northbridge_bp_interim.json")
+    body.update(method="simulation", simulation={"replicates": 2000, "seed": 8})
+    body.pop("adjustments")
+    body.update(find="power", target_power=None, sample_size={"per_group": [124, 124]})
+    record = compute(load_question(body))
+    text = justification(record)
+    assert "The sequential test was simulated (2,000 replicates of each data model)" in text
+    block = record["sequential"]
+    expected = round(block["expected_total_alternative"])
+    assert f"expected number of subjects is {expected:,}" in text
+    view = table(record)
+    assert [row["efficacy"] for row in view["rows"]] == ["±3.710", "±2.511", "±1.993"]

@@ -28,6 +28,17 @@ QUESTIONS = {
         "method": "simulation",
         "simulation": {"replicates": 2000, "seed": 31, "chunk_size": 500},
     },
+    "binary_treatments_vs_control": {
+        "outcome": "binary",
+        "layout": "treatments_vs_control",
+        "analysis": "holm",
+        "find": "power",
+        "effect": {"p_treatment": 0.55},
+        "assumptions": {"p_control": 0.4, "treatment_count": 3},
+        "sample_size": {"per_group": [100, 100, 100, 100]},
+        "method": "simulation",
+        "simulation": {"replicates": 2000, "seed": 31, "chunk_size": 500},
+    },
     "repeated_measures": {
         "outcome": "continuous",
         "layout": "repeated_measures",

@@ -12,6 +12,17 @@ from .base import Field
 BLOCK = "interim"
 SPENDING = ("obrien_fleming", "pocock", "hwang_shih_decani")
 MAX_LOOKS = 10
+# the simulation kernels whose statistic the simulated sequential test recomputes at each look
+SIMULATED_KERNELS = (
+    "t_pooled",
+    "t_welch",
+    "t_one_sample",
+    "rank_sum",
+    "signed_rank",
+    "z_pooled",
+    "z_unpooled",
+    "fisher_exact",
+)
 
 FIELDS = (
     Field(
@@ -129,6 +140,37 @@ def normalize(block: dict) -> dict:
     return out
 
 
+def _simulation_refusal(design, q: dict, block: dict) -> tuple[str, str] | None:
+    """What the simulated sequential test (engine/seqsim.py) cannot answer, else None."""
+    model = getattr(design, "simulation", None)
+    kernels = dict(getattr(model, "kernels", None) or {})
+    analysis = q.get("analysis")
+    if analysis and kernels.get(analysis) not in SIMULATED_KERNELS:
+        offered = ", ".join(f'"{a}"' for a, k in kernels.items() if k in SIMULATED_KERNELS)
+        return (
+            "analysis",
+            f"the simulated sequential test recomputes the statistic at every look; it is "
+            f"offered for {offered or 'no analysis'} of {design.cell}, not {analysis!r} (the "
+            "log-rank test's looks fall at event counts in calendar time: use method "
+            "'analytic' for it)",
+        )
+    if not any(k in SIMULATED_KERNELS for k in kernels.values()):
+        return (
+            BLOCK,
+            f"method 'simulation' with an interim block is offered for t, z, rank and Fisher "
+            f"exact tests; {design.cell} has none (use method 'analytic')",
+        )
+    futility = block.get("futility_spending") or "none"
+    if futility != "none":
+        return (
+            f"{BLOCK}.futility_spending",
+            "futility boundaries spend beta under an analytic drift, which a posted data model "
+            f"does not have: method 'simulation' takes efficacy boundaries only; got {futility!r} "
+            "(use 'none', or method 'analytic')",
+        )
+    return None
+
+
 def refusal(design, q: dict) -> tuple[str, str] | None:
     """(field, message) when the question cannot take interim analyses, else None."""
     block = q.get(BLOCK)
@@ -145,11 +187,9 @@ def refusal(design, q: dict) -> tuple[str, str] | None:
             f"interim block are {fits})",
         )
     if q.get("method") == "simulation":
-        return (
-            BLOCK,
-            "interim analyses are answered by method 'analytic' (boundaries by numerical "
-            "integration); method 'simulation' is not offered with an interim block",
-        )
+        why = _simulation_refusal(design, q, block)
+        if why:
+            return why
     if ((q.get("adjustments") or {}).get("cluster")) is not None:
         return (BLOCK, "interim analyses are not offered for cluster-randomized questions")
     aim = (q.get("hypothesis") or {}).get("aim", "superiority")

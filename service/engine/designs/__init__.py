@@ -30,6 +30,7 @@ def _load() -> None:
         continuous_single_group,
         continuous_treatments_vs_control,
         continuous_two_groups,
+        count_two_groups,
         lognormal_crossover,
         lognormal_two_groups,
         ordinal_two_groups,
@@ -50,6 +51,7 @@ def _load() -> None:
         continuous_crossover,
         lognormal_crossover,
         lognormal_two_groups,
+        count_two_groups,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -422,6 +422,12 @@ def data_block(arms: list[dict], labels: list[str], extra: dict) -> dict:
         "follow_up": extra["follow_up"],
         "accrual": extra["accrual"],
         "variance": "mean + dispersion·mean² per subject",
+        "test": (
+            "each group's rate is its events over its follow-up; negative_binomial_wald "
+            "estimates the dispersion in every replicate by the method of moments, pooled over "
+            "both groups and truncated at 0; poisson_wald uses 1/events per group; a replicate "
+            "in which a group has no events does not reject"
+        ),
     }
 
 
@@ -470,15 +476,18 @@ def assumptions_sentence(q: dict) -> str:
         return ""
     unit = v.get("time_unit") or "time units"
     per = unit[:-1] if unit.endswith("s") else unit
+
+    def span(x: float) -> str:
+        return f"{fmt(x)} {per if x == 1 else unit}"
+
     parts = [f"a control rate of {fmt(v['control_rate'])} events per subject per {per}"]
     if v.get("accrual"):
         parts.append(
-            f"follow-up from {fmt(v['follow_up'])} to {fmt(v['follow_up'] + v['accrual'])} "
-            f"{unit} per subject (uniform accrual over {fmt(v['accrual'])} {unit}, a common "
-            "study end)"
+            f"follow-up from {fmt(v['follow_up'])} to {span(v['follow_up'] + v['accrual'])} "
+            f"per subject (uniform accrual over {span(v['accrual'])}, a common study end)"
         )
     else:
-        parts.append(f"{fmt(v['follow_up'])} {unit} of follow-up per subject")
+        parts.append(f"{span(v['follow_up'])} of follow-up per subject")
     if v.get("dispersion"):
         k = fmt(v["dispersion"])
         parts.append(f"a negative binomial dispersion of {k} (variance = mean + {k}·mean²)")

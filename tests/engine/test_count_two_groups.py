@@ -16,6 +16,9 @@ from statsmodels.stats.rates import (
     power_negbin_ratio_2indep,
     power_poisson_ratio_2indep,
 )
+from statsmodels.stats.rates import (
+    test_poisson_2indep as poisson_2indep_check,
+)
 
 from service.engine import QuestionError, compute, designs
 from service.engine.vectests import rate_ratio_wald
@@ -304,6 +307,19 @@ def test_rate_ratio_wald_matches_a_direct_computation():
     assert se[0] == pytest.approx(math.sqrt(1 / y0.sum() + 1 / y1.sum()))
 
 
+def test_poisson_wald_statistic_matches_statsmodels_test_poisson_2indep():
+    # statsmodels.stats.rates.test_poisson_2indep(method="wald-log"): the Wald test of the log
+    # rate ratio with variance 1/events₁ + 1/events₂, on per-subject counts with unequal
+    # follow-up summed to events and exposure per group.
+    rng = np.random.default_rng(11)
+    t0, t1 = rng.uniform(1, 3, (1, 20)), rng.uniform(1, 3, (1, 24))
+    y0 = rng.poisson(0.9 * t0).astype(float)
+    y1 = rng.poisson(0.6 * t1).astype(float)
+    est, se = rate_ratio_wald(y0, t0, y1, t1, estimate_dispersion=False)
+    ref = poisson_2indep_check(y1.sum(), t1.sum(), y0.sum(), t0.sum(), method="wald-log")
+    assert est[0] / se[0] == pytest.approx(float(ref.statistic), rel=1e-12)
+
+
 # --- simulation against the formula ---------------------------------------------------------
 
 
@@ -376,3 +392,17 @@ def test_simulated_sample_size_search_lands_near_the_formula():
     record = _simulated(counts(), replicates=2000)
     analytic = answer(counts())["sample_size"]["per_group"][0]
     assert abs(record["sample_size"]["per_group"][0] - analytic) <= 0.1 * analytic
+
+
+def test_pooled_null_variance_is_refused_for_a_simulation():
+    # The simulation runs the Wald test itself; 'pooled' only changes the formula.
+    body = counts(
+        find="power",
+        sample_size={"per_group": [100, 100]},
+        analysis_options={"null_variance": "pooled"},
+        method="simulation",
+        simulation={"replicates": 200, "seed": 1},
+    )
+    with pytest.raises(QuestionError) as info:
+        answer(body)
+    assert info.value.field == "analysis_options.null_variance"

@@ -393,6 +393,12 @@ def default_data(q: dict) -> list[dict]:
 
 def settings(q: dict) -> dict:
     """What a chunk needs beyond the groups: κ and the follow-up."""
+    if values(q, FIELDS)["null_variance"] != "alternative":
+        raise QuestionError(
+            "analysis_options.null_variance",
+            "'pooled' changes only the sample-size formula; a simulation runs the Wald test "
+            "itself: remove null_variance or use the analytic method",
+        )
     return {
         "dispersion": number(q, FIELDS, "dispersion"),
         "follow_up": number(q, FIELDS, "follow_up"),

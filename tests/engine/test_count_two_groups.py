@@ -406,3 +406,23 @@ def test_pooled_null_variance_is_refused_for_a_simulation():
     with pytest.raises(QuestionError) as info:
         answer(body)
     assert info.value.field == "analysis_options.null_variance"
+
+
+def test_small_overdispersed_groups_warn_and_the_simulation_reports_the_level():
+    # Observed here, no source: with 30 per group and κ = 1 the Wald test with the
+    # method-of-moments dispersion rejects more often than alpha; the analytic record warns and
+    # the simulated record's type I error check is where the size is reported.
+    body = counts(
+        find="power",
+        sample_size={"per_group": [30, 30]},
+        assumptions={
+            "time_unit": "years",
+            "control_rate": 1.0,
+            "follow_up": 1.0,
+            "dispersion": 1.0,
+        },
+    )
+    record = answer(body)
+    assert any("can exceed alpha" in w for w in record["warnings"])
+    simulated = _simulated(body)
+    assert simulated["type_i_error"]["verdict"] == "exceeds", simulated["type_i_error"]

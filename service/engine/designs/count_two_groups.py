@@ -365,12 +365,20 @@ def warnings_for(q: dict, per_group: list[float]) -> list[str]:
         float(per_group[0]) * lam0 * mean,
         float(per_group[1]) * lam0 * v["rate_ratio"] * mean,
     ]
+    out = []
     if min(events) < 20:
-        return [
+        out.append(
             f"Only {min(events):.1f} events are expected in a group: the normal approximation "
             "of the log rate ratio is rough with so few; a simulation is safer."
-        ]
-    return []
+        )
+    smallest = min(float(n) for n in per_group)
+    if v.get("dispersion") and smallest < 50:
+        out.append(
+            f"With {smallest:.0f} subjects in a group the dispersion is estimated from few "
+            "counts and the Wald test can exceed alpha; the simulation method reports its type "
+            "I error."
+        )
+    return out
 
 
 # --- simulation -------------------------------------------------------------------------------

@@ -423,6 +423,52 @@ def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
 
+def _count_group(streams: Streams, task: ChunkTask, i: int, rows: int):
+    """Group i's counts (rows, n) and follow-up (rows, n), or the one follow-up as a float.
+
+    Per column block: variate 1 draws each subject's follow-up uniform on [F, F + A] (when
+    A > 0), variate 2 a gamma frailty of mean 1 and variance κ (when κ > 0), variate 0 the
+    Poisson count at the group's mean count × follow-up / mean follow-up × frailty: a negative
+    binomial count with variance μ + κμ².
+    """
+    s, n, model = task.settings, task.per_group[i], task.models[i]
+    f, a, kappa = s["follow_up"], s["accrual"], s["dispersion"]
+    mean_t = f + a / 2.0
+    y = np.empty((rows, n))
+    t = np.empty((rows, n)) if a > 0 else f
+    for b in range(-(-n // BLOCK)):
+        lo, width = b * BLOCK, min(BLOCK, n - b * BLOCK)
+        mu = np.full((rows, BLOCK), float(model["mean"]))
+        if a > 0:
+            tb = streams.gen(i, 1, b).random((rows, BLOCK))
+            tb *= a
+            tb += f
+            mu *= tb / mean_t
+            t[:, lo : lo + width] = tb[:, :width]
+        if kappa > 0:
+            frailty = streams.gen(i, 2, b).standard_gamma(1.0 / kappa, (rows, BLOCK))
+            mu *= frailty * kappa
+        y[:, lo : lo + width] = streams.gen(i, 0, b).poisson(mu)[:, :width]
+    return y, t
+
+
+def _rate_wald(streams: Streams, task: ChunkTask, rows: int):
+    """The Wald test of the log rate ratio: Poisson variance, or negative binomial variance with
+    the dispersion estimated by the method of moments (analysis negative_binomial_wald)."""
+    y0, t0 = _count_group(streams, task, 0, rows)
+    y1, t1 = _count_group(streams, task, 1, rows)
+    est, se = vectests.rate_ratio_wald(
+        y0, t0, y1, t1, estimate_dispersion=task.analysis == "negative_binomial_wald"
+    )
+    return vectests.decide(est, se, None, task.alpha, task.rule), {}
+
+
+def _rate_draws(task: ChunkTask) -> int:
+    s = task.settings
+    per_obs = 1 + (s["accrual"] > 0) + (s["dispersion"] > 0)
+    return _raw_draws(task, [per_obs] * len(task.per_group))
+
+
 KERNELS: dict[str, Kernel] = {
     "t_pooled": Kernel(_two_sample_t(True), _moment_draws, _raw_bytes(4), summaries=True),
     "t_welch": Kernel(_two_sample_t(False), _moment_draws, _raw_bytes(4), summaries=True),
@@ -463,6 +509,7 @@ KERNELS: dict[str, Kernel] = {
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),
+    "rate_wald": Kernel(_rate_wald, _rate_draws, _raw_bytes(8), summaries=False),
 }
 
 

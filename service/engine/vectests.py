@@ -430,3 +430,45 @@ def chi2_critical(alpha: float, df: int) -> float:
 def f_critical(alpha: float, df1: int, df2: int) -> float:
     """Return the upper-alpha critical value of F(df1, df2)."""
     return float(stats.f.isf(alpha, df1, df2))
+
+
+# --- event counts --------------------------------------------------------------------------
+
+
+def _rate_parts(y: np.ndarray, t: np.ndarray | float) -> tuple:
+    """One group's events, exposure and the method-of-moments parts of κ (rows,)."""
+    n = y.shape[1]
+    events = y.sum(axis=1)
+    if np.ndim(t) == 0:
+        exposure, t2, t3 = n * t, n * t * t, n * t**3
+        rate = events / exposure
+        resid = y - (rate * t)[:, None]
+    else:
+        exposure, t2, t3 = t.sum(axis=1), (t * t).sum(axis=1), (t**3).sum(axis=1)
+        rate = events / exposure
+        resid = y - rate[:, None] * t
+    # E[(Y − λ̂t)²] = λt(1 − t/T) + κλ²(t² − 2t³/T + t²·Σt²/T²), summed over the group.
+    num = np.einsum("ij,ij->i", resid, resid) - rate * (exposure - t2 / exposure)
+    den = rate * rate * (t2 - 2.0 * t3 / exposure + t2 * t2 / (exposure * exposure))
+    return events, exposure, t2, num, den
+
+
+def rate_ratio_wald(y0, t0, y1, t1, *, estimate_dispersion: bool):
+    """Return (log rate ratio, its SE) per replicate, treatment (1) over control (0).
+
+    Each group's rate is its events over its exposure; the SE is √Σ(1/events + κ̂·Σt²/T²), with
+    κ̂ = 0 (Poisson) or the method-of-moments dispersion pooled over both groups (truncated at
+    0). A group without events gives an infinite SE (the replicate does not reject).
+    """
+    e0, x0, s0, n0, d0 = _rate_parts(y0, t0)
+    e1, x1, s1, n1, d1 = _rate_parts(y1, t1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if estimate_dispersion:
+            kappa = np.maximum((n0 + n1) / (d0 + d1), 0.0)
+            kappa = np.where(np.isfinite(kappa), kappa, 0.0)
+        else:
+            kappa = 0.0
+        var = 1.0 / e0 + 1.0 / e1 + kappa * (s0 / (x0 * x0) + s1 / (x1 * x1))
+        est = np.log(e1 / x1) - np.log(e0 / x0)
+        est = np.where(np.isfinite(est), est, 0.0)
+    return est, np.sqrt(var)

@@ -238,7 +238,7 @@ def test_unknown_cell_is_a_question_error_listing_the_cells():
     with pytest.raises(QuestionError) as info:
         compute(q)
     assert info.value.field == "layout" and '"continuous × two_groups"' in info.value.message
-    q["outcome"] = "count"
+    q["outcome"] = "waveform"
     with pytest.raises(QuestionError) as info:
         compute(q)
     assert info.value.field == "outcome" and '"binary × two_groups"' in info.value.message

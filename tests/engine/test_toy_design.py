@@ -25,7 +25,7 @@ def toy():
 def _question(**overrides) -> dict:
     """The engine's worked example question, moved to the toy cell."""
     toy_cell = {
-        "outcome": "count",
+        "outcome": "toy_count",
         "layout": "single_group",
         "analysis": "log_rate_z",
         "effect": {"rate_ratio": 1.5},
@@ -35,11 +35,11 @@ def _question(**overrides) -> dict:
 
 
 def test_the_registry_lists_the_toy_cell_only_while_registered(toy) -> None:
-    assert designs.get("count", "single_group") is toy
-    assert "count × single_group" in designs.cells()
+    assert designs.get("toy_count", "single_group") is toy
+    assert "toy_count × single_group" in designs.cells()
     toy_design.unregister()
     with pytest.raises(QuestionError) as info:
-        designs.get("count", "single_group")
+        designs.get("toy_count", "single_group")
     assert info.value.field == "outcome"
     toy_design.register()
 

@@ -94,7 +94,7 @@ def _contrast(q: dict) -> float | None:
 
 
 TOY = Design(
-    outcome="count",
+    outcome="toy_count",
     layout="single_group",
     label="Count outcome, single group",
     fields=FIELDS,

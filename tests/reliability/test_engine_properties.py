@@ -102,6 +102,16 @@ VALUES = {
     ("lognormal", "two_groups"): st.fixed_dictionaries(
         {"ratio": _floats(0.5, 0.95), "cv": _floats(0.05, 1.0)}
     ),
+    ("count", "two_groups"): st.fixed_dictionaries(
+        {
+            "rate_ratio": _floats(0.4, 0.85),
+            "time_unit": st.sampled_from(["months", "years"]),
+            "control_rate": _floats(0.2, 3.0),
+            "follow_up": _floats(0.5, 2.0),
+            "accrual": _floats(0.0, 1.0),
+            "dispersion": _floats(0.0, 1.5),
+        }
+    ),
 }
 CELLS = sorted(VALUES)
 

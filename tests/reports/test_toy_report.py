@@ -75,7 +75,7 @@ def single_toy():
 
 def _single(**fields) -> dict:
     posted = {
-        "outcome": "count",
+        "outcome": "toy_count",
         "layout": "single_group",
         "effect": {"rate_ratio": 1.5},
         "assumptions": {"reference_rate": 2.0},

@@ -109,7 +109,7 @@ REFUSED = [
     ("analysis", _with(analysis="logrank")),
     ("alternative", _with(alternative="greater")),
     ("layout", _with(layout="k_groups_of_pairs")),
-    ("outcome", _with(outcome="count")),
+    ("outcome", _with(outcome="waveform")),
     (
         "simulation.data.control.family",
         _with(

@@ -17,7 +17,7 @@ TOYS = [
     (
         engine_toy,
         {
-            "outcome": "count",
+            "outcome": "toy_count",
             "layout": "single_group",
             "effect": {"rate_ratio": 1.5},
             "assumptions": {"reference_rate": 2.0},
@@ -46,7 +46,9 @@ def _branch(schema: dict, design) -> dict:
 def test_the_toy_cell_is_in_the_catalogue(toy) -> None:
     design, _ = toy
     entry = next(
-        c for c in catalogue()["cells"] if (c["outcome"], c["layout"]) == ("count", design.layout)
+        c
+        for c in catalogue()["cells"]
+        if (c["outcome"], c["layout"]) == ("toy_count", design.layout)
     )
     assert entry["label"] == design.label
     assert [a["name"] for a in entry["analyses"]] == [a.name for a in design.analyses]
@@ -84,7 +86,7 @@ def test_the_toy_cell_is_gone_once_unregistered() -> None:
 def test_the_toy_cell_is_in_the_json_schema(toy) -> None:
     design, question = toy
     schema = question_json_schema()
-    assert "count" in schema["properties"]["outcome"]["enum"]
+    assert "toy_count" in schema["properties"]["outcome"]["enum"]
     check = jsonschema.Draft202012Validator(schema)
     assert list(check.iter_errors(question)) == []
     assert list(check.iter_errors({**question, "assumptions": {"sd": 2.0}}))
@@ -96,7 +98,7 @@ def test_the_toy_cell_is_in_the_openapi_document(toy, app) -> None:
 
     design, _ = toy
     question = build_spec(app)["components"]["schemas"]["Question"]
-    assert "count" in question["properties"]["outcome"]["enum"]
+    assert "toy_count" in question["properties"]["outcome"]["enum"]
     then = _branch(question, design)["then"]["properties"]
     assert "rate_ratio" in then["effect"]["properties"]
     assert then["analysis"]["enum"] == [design.analyses[0].name, None]

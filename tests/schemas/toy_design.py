@@ -56,7 +56,7 @@ ANALYSES = (
     ),
 )
 QUESTION = {
-    "outcome": "count",
+    "outcome": "toy_count",
     "layout": "two_groups",
     "effect": {"rate_ratio": 0.7},
     "assumptions": {"control_rate": 1.5},

@@ -31,6 +31,7 @@ def _load() -> None:
         continuous_single_group,
         continuous_treatments_vs_control,
         continuous_two_groups,
+        count_two_groups,
         lognormal_crossover,
         lognormal_two_groups,
         ordinal_two_groups,
@@ -52,6 +53,7 @@ def _load() -> None:
         lognormal_crossover,
         lognormal_two_groups,
         binary_treatments_vs_control,
+        count_two_groups,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -80,7 +80,7 @@ def mean_precision(
     ≤ target) (None without a target).
 
     >>> round(mean_precision(10.0, 1 / 10, 99, 0.95)["half_width_expected"], 4)
-    1.979
+    1.9792
     """
     t = float(stats.t.ppf(0.5 + confidence / 2.0, df))
     plug_in = t * sd * scale

@@ -383,6 +383,33 @@ def _ancova(streams: Streams, task: ChunkTask, rows: int):
     return vectests.decide(est, se, df, task.alpha, task.rule), {}
 
 
+def _partial_f(streams: Streams, task: ChunkTask, rows: int):
+    """Linear regression: the partial F test of the tested predictors, every replicate at once.
+
+    Predictors are independent standard normal (variate j for predictor j: the other predictors
+    first, then the tested ones), the error standard normal (the last variate); each tested
+    coefficient is √(f²/u), the others 0 (the partial F test does not depend on them).
+    """
+    m, n = task.models[0], task.per_group[0]
+    u, k = int(m["tested"]), int(m["other"])
+    p = u + k
+    df2 = n - p - 1
+    if df2 < 1:
+        return np.zeros(rows, dtype=bool), {}
+    x = np.empty((rows, n, p + 1))
+    x[:, :, 0] = 1.0
+    for j in range(p):
+        x[:, :, j + 1] = streams.raw(0, _STANDARD, n, rows, variate0=j)
+    y = streams.raw(0, _STANDARD, n, rows, variate0=p)
+    if m["f_squared"] > 0:
+        y += math.sqrt(m["f_squared"] / u) * x[:, :, k + 1 :].sum(axis=2)
+    rss_full = vectests.residual_ss(x, y)
+    rss_reduced = vectests.residual_ss(x[:, :, : k + 1], y)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = ((rss_reduced - rss_full) / u) / (rss_full / df2)
+    return f > vectests.f_critical(task.alpha, u, df2), {}
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -415,6 +442,12 @@ KERNELS: dict[str, Kernel] = {
         _crossover_t, lambda t: _raw_draws(t, [3] * len(t.per_group)), _raw_bytes(8), False
     ),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
+    "partial_f": Kernel(
+        _partial_f,
+        lambda t: _raw_draws(t, [t.models[0]["tested"] + t.models[0]["other"] + 1]),
+        lambda t: 8 * 3 * (t.models[0]["tested"] + t.models[0]["other"] + 2) * t.per_group[0],
+        False,
+    ),
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),

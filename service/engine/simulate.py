@@ -83,6 +83,8 @@ def describe(plan: Plan) -> str:
     families = {m["family"] for m in plan.models}
     if families == {"bivariate_normal"}:
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
+    elif families == {"linear_regression"}:
+        how = "draws every subject's predictors (independent standard normal, the tested ones with equal coefficients giving the stated f², the others with none) and a standard normal error, fits the full and the reduced model by least squares"
     elif families == {"bernoulli"} and plan.summaries:
         how = "draws each group's success count directly (binomial, by inverting one uniform per group)"
     elif plan.summaries:

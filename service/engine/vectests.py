@@ -430,3 +430,16 @@ def chi2_critical(alpha: float, df: int) -> float:
 def f_critical(alpha: float, df1: int, df2: int) -> float:
     """Return the upper-alpha critical value of F(df1, df2)."""
     return float(stats.f.isf(alpha, df1, df2))
+
+
+def residual_ss(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Return the least-squares residual sum of squares of y on the columns of x, per row.
+
+    x is (rows, n, p), y (rows, n); the normal equations of every replicate are solved at once
+    (well conditioned for the standardized predictors the kernels draw).
+    """
+    gram = np.einsum("rni,rnj->rij", x, x)
+    cross = np.einsum("rni,rn->ri", x, y)
+    coef = np.linalg.solve(gram, cross[:, :, None])[:, :, 0]
+    total = np.einsum("rn,rn->r", y, y)
+    return np.maximum(total - np.einsum("ri,ri->r", coef, cross), 0.0)

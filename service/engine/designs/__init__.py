@@ -22,10 +22,12 @@ def _load() -> None:
         return
     from . import (
         association_single_group,
+        binary_regression,
         binary_two_groups,
         continuous_crossover,
         continuous_k_groups,
         continuous_paired,
+        continuous_regression,
         continuous_repeated_measures,
         continuous_single_group,
         continuous_treatments_vs_control,
@@ -33,6 +35,7 @@ def _load() -> None:
         lognormal_crossover,
         lognormal_two_groups,
         ordinal_two_groups,
+        time_to_event_regression,
         time_to_event_two_groups,
     )
 
@@ -50,6 +53,9 @@ def _load() -> None:
         continuous_crossover,
         lognormal_crossover,
         lognormal_two_groups,
+        continuous_regression,
+        binary_regression,
+        time_to_event_regression,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

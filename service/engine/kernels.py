@@ -410,6 +410,19 @@ def _partial_f(streams: Streams, task: ChunkTask, rows: int):
     return f > vectests.f_critical(task.alpha, u, df2), {}
 
 
+def _auc_z(streams: Streams, task: ChunkTask, rows: int):
+    """The Mann–Whitney AUC of cases (group 1) over controls (group 0) per replicate, by ranks,
+    tested against the null AUC with the Hanley–McNeil standard error at the null value."""
+    n0, n1 = task.per_group
+    x = streams.raw(0, task.models[0], n0, rows)
+    y = streams.raw(1, task.models[1], n1, rows)
+    auc = vectests.mann_whitney_auc(x, y)
+    a0 = task.settings["auc_null"]
+    q1, q2 = a0 / (2.0 - a0), 2.0 * a0 * a0 / (1.0 + a0)
+    var0 = (a0 * (1 - a0) + (n1 - 1) * (q1 - a0 * a0) + (n0 - 1) * (q2 - a0 * a0)) / (n0 * n1)
+    return vectests.decide(auc - a0, math.sqrt(var0), None, task.alpha, task.rule), {}
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -448,6 +461,7 @@ KERNELS: dict[str, Kernel] = {
         lambda t: 8 * 3 * (t.models[0]["tested"] + t.models[0]["other"] + 2) * t.per_group[0],
         False,
     ),
+    "auc_z": Kernel(_auc_z, _raw_draws, _raw_bytes(10), summaries=False),
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),

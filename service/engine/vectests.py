@@ -443,3 +443,13 @@ def residual_ss(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     coef = np.linalg.solve(gram, cross[:, :, None])[:, :, 0]
     total = np.einsum("rn,rn->r", y, y)
     return np.maximum(total - np.einsum("ri,ri->r", coef, cross), 0.0)
+
+
+def mann_whitney_auc(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Return the Mann–Whitney AUC, P(Y > X) + ½P(Y = X), of every row (ties share ranks)."""
+    n1, n2 = x.shape[1], y.shape[1]
+    both = np.concatenate((x, y), axis=1)
+    order = np.argsort(both, axis=1)
+    ranks, _ = _sorted_ranks(np.take_along_axis(both, order, axis=1))
+    r2 = np.where(order >= n1, ranks, 0.0).sum(axis=1)
+    return (r2 - n2 * (n2 + 1) / 2.0) / (n1 * n2)

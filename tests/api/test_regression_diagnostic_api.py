@@ -25,6 +25,7 @@ CELLS = [
     ("continuous", "regression"),
     ("binary", "regression"),
     ("time_to_event", "regression"),
+    ("diagnostic", "two_groups"),
 ]
 
 

@@ -32,6 +32,7 @@ def _load() -> None:
         continuous_single_group,
         continuous_treatments_vs_control,
         continuous_two_groups,
+        diagnostic_two_groups,
         lognormal_crossover,
         lognormal_two_groups,
         ordinal_two_groups,
@@ -56,6 +57,7 @@ def _load() -> None:
         continuous_regression,
         binary_regression,
         time_to_event_regression,
+        diagnostic_two_groups,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

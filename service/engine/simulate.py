@@ -85,6 +85,8 @@ def describe(plan: Plan) -> str:
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
     elif families == {"linear_regression"}:
         how = "draws every subject's predictors (independent standard normal, the tested ones with equal coefficients giving the stated f², the others with none) and a standard normal error, fits the full and the reduced model by least squares"
+    elif families == {"logistic_regression"}:
+        how = "draws every subject's covariate (standard normal, or a factor with the stated prevalence), an other covariate correlated √R² with it when R² > 0, and a logistic event, fits the logistic regression by Newton–Raphson (12 steps from the null fit; a replicate with a singular information matrix does not reject)"
     elif families == {"bernoulli"} and plan.summaries:
         how = "draws each group's success count directly (binomial, by inverting one uniform per group)"
     elif plan.summaries:

@@ -130,6 +130,30 @@ def test_bad_input_is_refused_naming_the_field():
     with pytest.raises(QuestionInvalid) as e:
         load_question(logistic(assumptions={"reference_event_rate": 0.2}))
     assert "assumptions.covariate_prevalence" in e.value.errors
-    with pytest.raises(QuestionInvalid) as e:
-        load_question(logistic(method="simulation", simulation={"replicates": 1000}))
-    assert "method" in e.value.errors or "analysis" in e.value.errors
+
+
+@pytest.mark.parametrize(
+    ("n", "effect", "assumptions"),
+    [
+        (543, {"odds_ratio": 1.3}, {"event_rate": 0.3}),
+        (300, {"odds_ratio": 2.0}, {"reference_event_rate": 0.2, "covariate_prevalence": 0.3}),
+    ],
+)
+def test_simulated_wald_power_agrees_with_the_formula(n, effect, assumptions):
+    # The logistic model fitted by Newton–Raphson in every replicate, its Wald test against the
+    # formula's power (near an odds ratio of 1, and for a binary covariate, where the formula's
+    # normal approximation holds well).
+    record = answer(
+        logistic(
+            find="power",
+            sample_size={"per_group": [n]},
+            effect=effect,
+            assumptions=assumptions,
+            method="simulation",
+            simulation={"replicates": 4000, "seed": 20261202},
+        )
+    )
+    power = record["power"]
+    assert abs(power["estimate"] - power["analytic"]) < 4 * power["mcse"]
+    assert record["type_i_error"]["verdict"] != "exceeds"
+    assert record["method"]["data"]["regression"]["family"] == "logistic_regression"

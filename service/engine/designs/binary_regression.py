@@ -17,7 +17,16 @@ from scipy import special
 
 from ..errors import QuestionError
 from ..quantiles import normal_effect, normal_power, power_unreachable, root, z, z_alpha, z_sum
-from .base import Analysis, Design, Field, Phrases, Solution
+from .base import (
+    Analysis,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+    Solution,
+)
 from .common import (
     analysis_of,
     analytic_method,
@@ -94,9 +103,9 @@ ANALYSES = (
     Analysis(
         "logistic_wald",
         "Wald test of a logistic regression coefficient",
-        ("analytic",),
+        ("analytic", "simulation"),
         ("superiority",),
-        "Hsieh, Bloch & Larsen 1998",
+        "Hsieh, Bloch & Larsen 1998; simulation: maximum likelihood by Newton–Raphson",
     ),
 )
 
@@ -236,6 +245,78 @@ def describe(q: dict) -> dict:
     )
 
 
+# --- simulation -------------------------------------------------------------------------------
+
+
+def _logit(p: float) -> float:
+    return math.log(p / (1.0 - p))
+
+
+def _model(q: dict, log_odds_ratio: float) -> dict:
+    rho = math.sqrt(number(q, FIELDS, "r2_covariates"))
+    if _binary(q):
+        return {
+            "family": "logistic_regression",
+            "covariate": "binary",
+            "prevalence": number(q, FIELDS, "covariate_prevalence"),
+            "intercept": _logit(number(q, FIELDS, "reference_event_rate")),
+            "log_odds_ratio": log_odds_ratio,
+            "correlation": rho,
+        }
+    return {
+        "family": "logistic_regression",
+        "covariate": "continuous",
+        "intercept": _logit(number(q, FIELDS, "event_rate")),
+        "log_odds_ratio": log_odds_ratio,
+        "correlation": rho,
+    }
+
+
+def default_data(q: dict) -> list[dict]:
+    """The covariate (standard normal, or a factor with the stated prevalence), an other
+    covariate correlated √R² with it when R² > 0, and logistic events."""
+    return [_model(q, math.log(_odds_ratio(q)))]
+
+
+def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
+    return [
+        {**arms[0], "log_odds_ratio": 0.0}
+    ], "the tested coefficient set to 0 (odds ratio 1), the intercept kept"
+
+
+def approximate_n(plan, target: float) -> float | None:
+    m = plan.models[0]
+    if m["log_odds_ratio"] == 0:
+        return None
+    z_total = z_alpha(plan.alpha, plan.rule.tails) + z(target)
+    p = 1.0 / (1.0 + math.exp(-m["intercept"]))
+    if m["covariate"] == "binary":
+        b = m["prevalence"]
+        p2 = _with_factor(p, math.exp(m["log_odds_ratio"]))
+        var = 1.0 / (p * (1 - p) * (1 - b)) + 1.0 / (p2 * (1 - p2) * b)
+        n = z_total**2 * var / m["log_odds_ratio"] ** 2
+    else:
+        n = z_total**2 / (p * (1 - p) * m["log_odds_ratio"] ** 2)
+    return n / (1.0 - m["correlation"] ** 2)
+
+
+def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:
+    return EffectAxis(1.0, rule.direction, math.inf if rule.direction > 0 else 1.0)
+
+
+SIMULATION = SimulationModel(
+    data_keys=(),
+    default_data=default_data,
+    null_data=null_data,
+    kernels={"logistic_wald": "logistic_wald"},
+    effect_axis=effect_axis,
+    data_block=lambda arms, labels, settings: {"regression": dict(arms[0])},
+    implied_contrast=lambda arms: arms[0]["log_odds_ratio"],
+    approximate_n=approximate_n,
+    min_size=10,
+)
+
+
 def effect_sentence(q: dict, record: dict | None) -> str:
     v = values(q, FIELDS)
     value = v.get("odds_ratio")
@@ -281,7 +362,7 @@ DESIGN = Design(
     solve_effect=solve_effect,
     describe=describe,
     warnings_for=no_warnings,
-    simulation=None,
+    simulation=SIMULATION,
     phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
     example="northbridge_delirium_logistic.json",
     contrast=_contrast,

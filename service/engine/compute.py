@@ -12,7 +12,7 @@ import math
 import secrets
 from collections.abc import Callable
 
-from . import adjust, assurance, cluster, designs, group_sequential, implied, starting
+from . import adjust, assurance, cluster, designs, group_sequential, implied, precision, starting
 from .designs.common import analysis_of, check_aim, raise_first
 from .errors import BudgetExceeded, EngineError, QuestionError, describe_failure
 from .records import CAUTIONS, RECORD_VERSION, seal, size_warnings, versions
@@ -117,9 +117,10 @@ def _check_simulation(q: dict, budget: int | None) -> None:
 
 def _check_question(q: dict, design, simulated: bool) -> None:
     """The engine's own check of what the schema validates: the cell's fields, aim, analysis."""
-    if q.get("find") not in ("sample_size", "power", "effect"):
+    if q.get("find") not in ("sample_size", "power", "effect", "precision"):
         raise QuestionError(
-            "find", f"must be 'sample_size', 'power' or 'effect'; got {q.get('find')!r}"
+            "find",
+            f"must be 'sample_size', 'power', 'effect' or 'precision'; got {q.get('find')!r}",
         )
     alternative = q.get("alternative", "two-sided")
     if alternative not in ("two-sided", "one-sided"):
@@ -132,6 +133,9 @@ def _check_question(q: dict, design, simulated: bool) -> None:
             f"the tests of {design.cell} have no direction; only 'two-sided' applies",
         )
     aim = check_aim(q, design)
+    if aim == "estimation" or q["find"] == "precision":
+        precision.check(q, design)
+        return
     if aim != "superiority" and alternative != "one-sided":
         raise QuestionError(
             "alternative", f"a {aim} question is tested one-sided; got {alternative!r}"
@@ -150,6 +154,8 @@ def _check_question(q: dict, design, simulated: bool) -> None:
 
 
 def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> dict:
+    if (q.get("hypothesis") or {}).get("aim") == "estimation":
+        return _answer_estimation(q, design)
     alpha, bonferroni = adjust.alpha_for(q)
     # A posted data model is what is simulated: the effect stated is the one it implies.
     from_data = implied.reconcile(q, design) if simulated and q["find"] != "effect" else None
@@ -323,6 +329,51 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
         record["assurance"] = assurance.block(q, design, analyzed, alpha, power["estimate"])
     repro["versions"] = versions()
     record["reproducibility"] = repro
+    record["warnings"].extend(_warnings(design, q, analyzed))
+    record["warnings"].extend(size_warnings(record))
+    return record
+
+
+def _answer_estimation(q: dict, design) -> dict:
+    """A precision question: the n whose interval is narrow enough, or the half-width a given
+    n achieves; dropout applies as usual, ``power`` is null and ``precision`` says the rest."""
+    record = {
+        "record_version": RECORD_VERSION,
+        "question": q,
+        "effect": None,
+        "events": None,
+        "type_i_error": None,
+        "search": None,
+        "power": None,
+        "warnings": [],
+        "cautions": list(CAUTIONS),
+    }
+    if q["find"] == "sample_size":
+        # alpha = 1 − confidence: the interval's two-sided level, for the cell's solve_n
+        raw = design.solve_n(q, 1.0 - q["hypothesis"]["confidence"]).per_group
+        final, steps = adjust.inflate(raw, q)
+        analyzed = _base_per_group(steps, raw)
+        record["sample_size"] = {"per_group": final, "total": sum(final), "steps": steps}
+    else:
+        enrolled = list(q["sample_size"]["per_group"])
+        analyzed, steps = adjust.deflate(enrolled, q)
+        record["sample_size"] = {
+            "per_group": enrolled,
+            "total": sum(enrolled),
+            "steps": steps,
+            "analyzed_per_group": analyzed,
+        }
+    record["method"] = design.describe(q)
+    record["precision"] = precision.record_block(
+        q, design, analyzed, record["method"]["analysis_label"]
+    )
+    record["reproducibility"] = {
+        "seed": None,
+        "bit_generator": None,
+        "seed_scheme": None,
+        "chunk_size": None,
+        "versions": versions(),
+    }
     record["warnings"].extend(_warnings(design, q, analyzed))
     record["warnings"].extend(size_warnings(record))
     return record

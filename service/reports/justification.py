@@ -15,6 +15,8 @@ from . import interim
 from .describe import (
     analysis_label,
     assumed_text,
+    assumptions_text,
+    cell,
     cell_label,
     derived_text,
     field_label,
@@ -36,7 +38,10 @@ __all__ = [
     "fmt_num",
     "fmt_pct",
     "fmt_power",
+    "estimand_text",
     "events_of",
+    "interval_words",
+    "precision_sentence",
     "fmt_prob",
     "hypothesis_words",
     "justification",
@@ -476,9 +481,93 @@ def _given_size_body(record: dict, context: dict | None, test_level: str) -> str
     return body + _source(context)
 
 
+def estimand_text(q: dict) -> str:
+    """What a precision question estimates, with its planning values, in the cell's words."""
+    own = cell(q).phrases.estimand
+    if own is not None:
+        return own(q)
+    assumed = assumptions_text(q)
+    return "the estimand" + (f", assuming {assumed}" if assumed else "")
+
+
+def interval_words(q: dict) -> str:
+    """'a two-sided 95% confidence interval whose half-width is at most 3 (expected)'."""
+    hyp = q["hypothesis"]
+    text = f"a two-sided {fmt_pct(hyp['confidence'])} confidence interval"
+    if hyp.get("half_width") is None:
+        return text
+    text += f" whose half-width is at most {fmt_num(hyp['half_width'])}"
+    if hyp.get("assurance") is not None:
+        return text + f" with a probability of at least {fmt_pct(hyp['assurance'])}"
+    return f"{text} {cell(q).estimation.expected_words}"
+
+
+def precision_sentence(record: dict) -> str:
+    """The half-width at the analyzed size, in words, from the record's ``precision`` block."""
+    p, q = record["precision"], record["question"]
+    where = "At the analyzed size" if q["find"] == "sample_size" else "At this size"
+    text = f" {where} the half-width is {fmt_num(p['half_width_expected'])} {p['basis']}"
+    if p.get("half_width_assured") is not None:
+        text += (
+            f", and with a probability of {fmt_pct(p['assurance'])} it is at most "
+            f"{fmt_num(p['half_width_assured'])}"
+        )
+    text += "."
+    if p.get("probability") is not None and p.get("assurance") is None:
+        text += (
+            f" Because the sample SD varies, the probability that the interval actually obtained "
+            f"has a half-width of at most {fmt_num(p['half_width_target'])} is "
+            f"{fmt_pct(p['probability'])}; an assurance (hypothesis.assurance) sizes the study "
+            "so that this probability is as high as required (Kupper & Hafner 1989)."
+        )
+    return text
+
+
+def _estimation_body(record: dict, context: dict | None) -> str:
+    q, size = record["question"], record["sample_size"]
+    if q["find"] == "precision":
+        body = f" With {_enrolled(size['per_group'], size['total'], q)}"
+        dropout = next((s for s in size["steps"] if s["step"] == "dropout"), None)
+        if dropout is not None:
+            body += (
+                f" (after {fmt_pct(dropout['rate'])} dropout, an effective "
+                f"{_analyzed(size['analyzed_per_group'], q)} are analyzed)"
+            )
+        body += f", {interval_words(q)} estimates {estimand_text(q)}."
+        return body + precision_sentence(record) + _source(context)
+    base = next(s for s in size["steps"] if s["step"] == "base")
+    raw = list(dict.fromkeys(base["per_group_raw"]))
+    body = (
+        f" The study aims to estimate {estimand_text(q)}, by {interval_words(q)}. This needs "
+        f"{_per_group(base['per_group'], q)}"
+    )
+    if len(base["per_group"]) > 1:
+        body += f" ({fmt_count(sum(base['per_group']))} in total)"
+    body += f" before adjustment (unrounded {', '.join(_raw(x) for x in raw)})." + _source(context)
+    chain = _steps_sentence(size["steps"], size["total"], q)
+    if chain:
+        body += " " + chain
+    elif len(size["per_group"]) > 1:
+        body += (
+            f" No further adjustment was applied: {fmt_count(size['total'])} are to be "
+            "enrolled in total."
+        )
+    return body + precision_sentence(record)
+
+
 def justification(record: dict, context: dict | None = None) -> str:
     """Return a protocol-ready paragraph justifying the sample size (or power) in the record."""
     q = record["question"]
+    if record.get("precision") is not None:
+        what = "sample size" if q["find"] == "sample_size" else "precision"
+        opening = (
+            f"The {what} was determined for the design “{cell_label(q)}”; planned analysis: "
+            f"{analysis_label(q, record)}. {method_sentence(record)}"
+        )
+        warnings = "".join(f" Note: {w.rstrip('.')}." for w in record.get("warnings") or [])
+        note = method_note(record)
+        body = _estimation_body(record, context)
+        return _tidy(opening + body + (f" {note}" if note else "") + warnings)
     what = {"sample_size": "sample size", "power": "power", "effect": "detectable effect"}[
         q["find"]
     ]

@@ -94,9 +94,11 @@ def curve_points(
         raise QuestionError(
             "span", f"must be (low, high) with 0 < low < 1 < high ≤ 4; got {span!r}"
         )
-    q = _power_question(record)
     chosen = int(record["sample_size"]["per_group"][0])
     sizes = _sizes(chosen, points, tuple(span), _MIN_N)
+    if record.get("precision") is not None:
+        return _precision_points(record, sizes, chosen)
+    q = _power_question(record)
     simulated = q.get("method") == "simulation"
 
     analytic_q = None
@@ -139,6 +141,46 @@ def curve_points(
         "seed": (q.get("simulation") or {}).get("seed"),
         "target_power": target,
         "chosen": {"n": chosen, "power": record["power"]["estimate"]},
+    }
+
+
+def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
+    """A precision question's curve: the expected half-width against the enrolled size."""
+    q = copy.deepcopy(record["question"])
+    q["find"] = "precision"
+    q["hypothesis"] = dict(q["hypothesis"], half_width=None)
+    values = []
+    for m in sizes:
+        try:
+            block = compute(dict(q, sample_size={"per_group": _per_group_for(record, m)}))
+            values.append(block["precision"]["half_width_expected"])
+        except QuestionError:
+            values.append(None)
+    x_label = "Enrolled per group" if len(record["sample_size"]["per_group"]) > 1 else "Enrolled"
+    target = record["precision"]["half_width_target"]
+    lines = [
+        f"{describe.cell_label(q)}; {describe.analysis_label(q, record)} (analytic); "
+        f"confidence {describe.fmt_pct(q['hypothesis']['confidence'])}, two-sided",
+    ]
+    dropout = (q.get("adjustments") or {}).get("dropout")
+    if dropout:
+        lines.append(f"Adjusted for dropout {describe.fmt_pct(dropout)}")
+    return {
+        "kind": "precision",
+        "title": f"Half-width of the interval against {x_label.lower()}, with the "
+        + ("chosen" if q.get("sample_size") is None else "stated")
+        + " size marked",
+        "assumptions": lines,
+        "method": "analytic",
+        "x_label": x_label,
+        "n": sizes,
+        "analytic": values if any(v is not None for v in values) else [],
+        "simulated": [],
+        "replicates": None,
+        "seed": None,
+        "target_power": None,
+        "target_half_width": target,
+        "chosen": {"n": chosen, "half_width": record["precision"]["half_width_expected"]},
     }
 
 
@@ -199,7 +241,53 @@ def _simulated_at(q: dict, per_group: list[int]) -> dict | None:
 # --- drawing ------------------------------------------------------------------------------
 
 
+def _precision_figure(points: dict) -> Figure:
+    """The expected half-width against n, the target as a dashed line, the answer marked."""
+    fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
+    ax = fig.add_subplot()
+    ax.set_gid("precision-curve-axes")
+    fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
+    notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
+    ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
+    pairs = [(n, h) for n, h in zip(points["n"], points["analytic"], strict=False) if h is not None]
+    if pairs:
+        (line,) = ax.plot(*zip(*pairs, strict=True), color=_ANALYTIC, lw=2, label="formula")
+        line.set_gid("analytic-curve")
+    target = points.get("target_half_width")
+    if target is not None:
+        t = ax.axhline(
+            target,
+            color=_TARGET,
+            ls="--",
+            lw=1.2,
+            label=f"target half-width {describe.fmt_num(target)}",
+        )
+        t.set_gid("target-line")
+    chosen = points["chosen"]
+    ax.axvline(chosen["n"], color=_CHOSEN, ls=":", lw=1.5).set_gid("chosen-n")
+    (dot,) = ax.plot(
+        [chosen["n"]],
+        [chosen["half_width"]],
+        marker="D",
+        ms=7,
+        color=_CHOSEN,
+        ls="none",
+        label=f"answer: {chosen['n']:,} (half-width {describe.fmt_num(chosen['half_width'])})",
+    )
+    dot.set_gid("chosen-point")
+    ax.set_xlabel(points["x_label"], color=_INK)
+    ax.set_ylabel("Half-width", color=_INK)
+    ax.grid(True, color="#d5dbe1", lw=0.6)
+    ax.tick_params(colors=_INK)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.legend(loc="upper right", frameon=False, fontsize=9)
+    return fig
+
+
 def _figure(points: dict) -> Figure:
+    if points.get("kind") == "precision":
+        return _precision_figure(points)
     fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
     ax = fig.add_subplot()
     ax.set_gid("power-curve-axes")

@@ -46,7 +46,9 @@ _FIND = {
     "sample_size": "the sample size that reaches the target power",
     "power": "the power of the stated sample size",
     "effect": "the smallest effect the stated sample size detects",
+    "precision": "the half-width of the interval the stated sample size gives",
 }
+_FIND_ESTIMATION = "the sample size that makes the confidence interval narrow enough"
 
 
 _METHODS = {"analytic": "analytic", "simulation": "Monte Carlo simulation"}
@@ -108,20 +110,20 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
     rows = [
         ("Design", describe.cell_label(q)),
         ("Planned analysis", describe.analysis_label(q, record)),
-        ("Looking for", _FIND.get(q["find"], q["find"]).capitalize()),
     ]
+    hyp = q.get("hypothesis") or {}
+    if hyp.get("aim") == "estimation":
+        looking = _FIND_ESTIMATION if q["find"] == "sample_size" else _FIND[q["find"]]
+        rows.append(("Looking for", looking.capitalize()))
+        rows.append(("Interval", words.interval_words(q).removeprefix("a ").capitalize()))
+        rows.append(("Estimating", words.estimand_text(q)))
+        return rows + _size_rows(q, record)
+    rows.append(("Looking for", _FIND.get(q["find"], q["find"]).capitalize()))
     alternative = "" if describe.is_omnibus(q) else q.get("alternative", "two-sided")
     rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {alternative}".strip()))
     if q.get("target_power") is not None:
         rows.append(("Target power", words.fmt_pct(q["target_power"])))
-    if q.get("sample_size"):
-        sizes = q["sample_size"].get("per_group") or []
-        if sizes:
-            rows.append(
-                ("Enrolled per group" if len(sizes) > 1 else "Enrolled", _per_group_text(sizes))
-            )
-        else:
-            rows.append(("Enrolled in total", words.fmt_count(q["sample_size"]["total"])))
+    rows.extend(_enrolled_rows(q))
     if q["find"] == "effect":
         effect = f"solved for: the smallest detectable {describe.field_label(q, cell.solved)}"
     else:
@@ -140,6 +142,28 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
             ("Hypothesis", words.hypothesis_words(q).removeprefix("to ").capitalize() + better)
         )
     if describe.group_count(q) == 2:
+        rows.append(
+            (
+                "Allocation",
+                f"{words.fmt_num(q.get('allocation_ratio') or 1.0)} : 1 (treatment : control)",
+            )
+        )
+    return rows + _size_rows(q, record, enrolled=False)
+
+
+def _enrolled_rows(q: dict) -> list[tuple[str, str]]:
+    if not q.get("sample_size"):
+        return []
+    sizes = q["sample_size"].get("per_group") or []
+    if sizes:
+        return [("Enrolled per group" if len(sizes) > 1 else "Enrolled", _per_group_text(sizes))]
+    return [("Enrolled in total", words.fmt_count(q["sample_size"]["total"]))]
+
+
+def _size_rows(q: dict, record: dict | None, enrolled: bool = True) -> list[tuple[str, str]]:
+    """The rows every question ends with: enrolled numbers, allocation, adjustments, method."""
+    rows = _enrolled_rows(q) if enrolled else []
+    if enrolled and describe.group_count(q) == 2:
         rows.append(
             (
                 "Allocation",
@@ -187,6 +211,29 @@ def _adjustments_text(q: dict) -> str:
     return "; ".join(parts) if parts else "none"
 
 
+def _precision_figures(record: dict) -> list[dict]:
+    """The answer's half-widths: expected, assured (with an assurance), and the target's odds."""
+    p = record["precision"]
+    figures = [
+        {"value": words.fmt_num(p["half_width_expected"]), "label": f"half-width {p['basis']}"}
+    ]
+    if p.get("half_width_assured") is not None:
+        figures.append(
+            {
+                "value": words.fmt_num(p["half_width_assured"]),
+                "label": f"half-width not exceeded with probability {words.fmt_pct(p['assurance'])}",
+            }
+        )
+    if p.get("probability") is not None:
+        figures.append(
+            {
+                "value": words.fmt_pct(p["probability"]),
+                "label": f"probability the half-width is at most {words.fmt_num(p['half_width_target'])}",
+            }
+        )
+    return figures
+
+
 def _answer_figures(record: dict) -> list[dict]:
     q, size, power = record["question"], record["sample_size"], record["power"]
     figures = []
@@ -212,6 +259,8 @@ def _answer_figures(record: dict) -> list[dict]:
                 "label": f"smallest detectable {describe.field_label(q, record['effect']['field'])}",
             }
         )
+    if power is None:  # a precision question: the interval's half-width instead
+        return figures + _precision_figures(record)
     if power.get("mcse") is None:
         label = "power"
     else:
@@ -256,7 +305,7 @@ def _steps_caption(record: dict) -> str:
         + (
             " (the simulation ran at the whole numbers at or below them)."
             if simulated
-            else " (the power formula uses them as they are)."
+            else " (the formula uses them as they are)."
         )
     )
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from marshmallow import ValidationError, validates_schema
+from marshmallow import ValidationError, missing, validates_schema
 
 from .data_models import DataModel
 from .fields import (
@@ -48,9 +48,15 @@ class SampleSizeSchema(Strict):
 
 
 class HypothesisSchema(Strict):
-    """Superiority, noninferiority or equivalence, with its margin on the effect's scale."""
+    """Superiority, noninferiority or equivalence, with its margin on the effect's scale; or
+    estimation, with the confidence interval's half-width, confidence and assurance."""
 
-    aim = Choice(AIMS, load_default="superiority", description="what the study aims to show")
+    aim = Choice(
+        AIMS,
+        load_default="superiority",
+        description="what the study aims to show; estimation asks for the n that makes a "
+        "confidence interval narrow enough (half_width, confidence, assurance)",
+    )
     margin = Number(
         description="noninferiority margin (< 0 when higher is better, > 0 otherwise) or "
         "equivalence margin (> 0; bounds are +/- margin), on the treatment - control scale"
@@ -60,11 +66,56 @@ class HypothesisSchema(Strict):
         description="true when larger outcomes are better; a one-sided superiority question "
         "that leaves it out takes the direction of its effect, and one contradicting it is refused",
     )
+    half_width = Number(
+        Interval(0, None, low_open=True),
+        load_default=missing,
+        description="estimation only: the largest acceptable half-width of the two-sided "
+        "confidence interval, on the estimand's own scale (outcome units for a mean, a "
+        "proportion for a proportion); required for find = sample_size",
+    )
+    confidence = Number(
+        Interval(0.5, 1, low_open=True, high_open=True),
+        load_default=missing,
+        description="estimation only: the confidence level of the interval; default 0.95",
+    )
+    assurance = Number(
+        Interval(0.5, 1, low_open=True, high_open=True),
+        load_default=missing,
+        description="estimation only: the probability that the half-width is at most "
+        "half_width (Kupper & Hafner 1989); absent or null: the expected half-width is at most "
+        "half_width",
+    )
+
+    @validates_schema(pass_original=True, skip_on_field_errors=False)
+    def _estimation(self, data: dict, original: Any, **kwargs: Any) -> None:
+        aim = data.get("aim")
+        if aim is None:
+            return  # the aim failed its own check
+        errors: dict[str, list[str]] = {}
+        if aim == "estimation":
+            for name, why in (
+                ("margin", "there is no hypothesis to test against a margin"),
+                ("higher_is_better", "an interval has no direction"),
+            ):
+                if posted(original, name):
+                    errors[name] = [
+                        f"does not apply when aim is estimation ({why}); remove it; "
+                        f"got {show(original[name])}"
+                    ]
+        else:
+            for name in ESTIMATION_FIELDS:
+                if posted(original, name):
+                    errors[name] = [
+                        'applies only when aim is "estimation" (a precision question); '
+                        f"got {show(original[name])} with aim {show(aim)}"
+                    ]
+        if errors:
+            raise ValidationError(errors)
 
     @validates_schema(skip_on_field_errors=False)
     def _margin(self, data: dict, **kwargs: Any) -> None:
-        if "aim" not in data:
-            return  # the aim failed its own check
+        if "aim" not in data or data["aim"] == "estimation":
+            return  # the aim failed its own check, or estimation (checked above)
         aim, margin = data["aim"], data.get("margin")
         if aim == "superiority":
             if margin is not None:
@@ -112,6 +163,10 @@ class HypothesisSchema(Strict):
                         ]
                     }
                 )
+
+
+ESTIMATION_FIELDS = ("half_width", "confidence", "assurance")
+DEFAULT_CONFIDENCE = 0.95  # common practice, no source
 
 
 class ClusterSchema(Strict):

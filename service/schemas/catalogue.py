@@ -152,6 +152,12 @@ def describe_cell(design: Any) -> dict[str, Any]:
         "forms": [list(f) for f in design.forms],
         "solved": design.solved,
         "interim": bool(getattr(design, "sequential", False)),
+        "estimation": None
+        if getattr(design, "estimation", None) is None
+        else {
+            "forms": [list(f) for f in design.estimation.forms],
+            "assurance": design.estimation.assurance,
+        },
         "data_model": {"keys": list(data_keys(design)), "families": list(families_for(design))}
         if takes_data(design)
         else None,

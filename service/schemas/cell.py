@@ -19,6 +19,8 @@ from typing import Any
 
 from marshmallow import ValidationError
 
+from service.engine.designs.common import aim_of, validate_question_blocks
+
 from . import declared
 from .errors import flatten_errors
 from .fields import got, show
@@ -83,7 +85,9 @@ class Cell:
         (a field that failed its own check is reported there only)."""
         self.load_blocks()
         failed = set(self.errors)
-        found = self.design.validate(self.loaded, self.find, self.from_data) or {}
+        found = validate_question_blocks(
+            self.design, self.loaded, self.find, self.from_data, aim_of(self.raw)
+        )
         for where, messages in found.items():
             if where in failed:
                 continue

@@ -118,6 +118,8 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         "method": how,
         "simulation": sim,
     }
+    if aim == "estimation":
+        estimation(q, hyp)
     if isinstance(data.get("interim"), Mapping) and "looks" in data["interim"]:
         # Only when posted: a question without interim analyses keeps its record digits.
         q["interim"] = interim_block.normalize(data["interim"])
@@ -138,6 +140,20 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         # Unstated: the one-sided test looks where the effect points; the record says so.
         hyp["higher_is_better"] = one_sided(design, q) > 0
     return q
+
+
+def estimation(q: dict, hyp: dict) -> None:
+    """A precision question in normal form: the interval's half-width, confidence and assurance
+    in the hypothesis; no test level, power or direction (DEVELOPERS.md, "The question")."""
+    from .blocks import DEFAULT_CONFIDENCE
+
+    q["hypothesis"] = {
+        "aim": "estimation",
+        "half_width": None if q["find"] == "precision" else hyp.get("half_width"),
+        "confidence": DEFAULT_CONFIDENCE if hyp.get("confidence") is None else hyp["confidence"],
+        "assurance": hyp.get("assurance"),
+    }
+    q.update(alpha=None, target_power=None, alternative="two-sided")
 
 
 def group_count(design: Any, q: dict) -> int | None:

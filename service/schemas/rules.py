@@ -52,6 +52,7 @@ def check(ctx: Context) -> None:
     find_and_size(ctx)
     target_power(ctx)
     margin_aims(ctx)
+    estimation(ctx)
     if ctx.design is None:
         return
     directionless(ctx)
@@ -78,7 +79,7 @@ def find_and_size(ctx: Context) -> None:
             "must be absent when find = sample_size (it is what is solved for); "
             f"got {show(raw['sample_size'])}",
         )
-    if find in ("power", "effect") and not posted(raw, "sample_size"):
+    if find in ("power", "effect", "precision") and not posted(raw, "sample_size"):
         ctx.add(
             "sample_size",
             f'is required when find = {find}: {{"per_group": [n, ...]}} or {{"total": N}}',
@@ -110,7 +111,7 @@ def margin_aims(ctx: Context) -> None:
     aim = ctx.aim
     if aim in (None, "superiority"):
         return
-    if ctx.data.get("alternative") == "two-sided":
+    if aim != "estimation" and ctx.data.get("alternative") == "two-sided":
         ctx.add(
             "alternative",
             f'must be "one-sided" for {aim} (one-sided by construction); got "two-sided"',
@@ -132,6 +133,91 @@ def margin_aims(ctx: Context) -> None:
             f"must be in (-1, 1) for {ctx.design.cell} (a difference of proportions); "
             f"got {show(margin)}",
         )
+
+
+def estimation(ctx: Context) -> None:
+    """A precision question (aim estimation) asks for an interval's n or half-width: no test
+    level, power, one-sided alternative, simulation, clustering or interim analyses."""
+    raw, find = ctx.raw, ctx.find
+    if ctx.aim != "estimation":
+        if find == "precision":
+            ctx.add(
+                "find",
+                'precision applies only when hypothesis.aim is "estimation" (the half-width of '
+                'a confidence interval); got "precision"',
+            )
+        return
+    if find in ("power", "effect"):
+        ctx.add(
+            "find",
+            'must be "sample_size" (the n whose interval is narrow enough) or "precision" (the '
+            f'half-width a given n achieves) when hypothesis.aim is estimation; got "{find}"',
+        )
+    hyp = raw.get("hypothesis") if isinstance(raw.get("hypothesis"), Mapping) else {}
+    if find == "precision" and posted(hyp, "half_width"):
+        ctx.add(
+            "hypothesis.half_width",
+            "is what find = precision solves for; remove it (or ask find = sample_size); "
+            f"got {show(hyp['half_width'])}",
+        )
+    if find in (None, "sample_size") and not posted(hyp, "half_width"):
+        ctx.add(
+            "hypothesis.half_width",
+            "is required when hypothesis.aim is estimation and find = sample_size: a number > 0, "
+            "the largest acceptable half-width of the interval on the estimand's own scale",
+        )
+    for name in ("alpha", "target_power"):
+        if posted(raw, name):
+            ctx.add(
+                name,
+                "is not used when hypothesis.aim is estimation: the interval's level is "
+                "hypothesis.confidence (default 0.95) and the chance of reaching the half-width "
+                f"is hypothesis.assurance; remove it; got {show(raw[name])}",
+            )
+    if ctx.data.get("alternative") == "one-sided":
+        ctx.add(
+            "alternative",
+            'must be "two-sided" when hypothesis.aim is estimation (the interval is two-sided; '
+            'its level is hypothesis.confidence); got "one-sided"',
+        )
+    if raw.get("method") == "simulation":
+        ctx.add(
+            "method",
+            'must be "analytic" when hypothesis.aim is estimation (precision is answered by '
+            'formula); got "simulation"',
+        )
+    adjustments = raw.get("adjustments") if isinstance(raw.get("adjustments"), Mapping) else {}
+    if posted(adjustments, "cluster"):
+        ctx.add(
+            "adjustments.cluster",
+            "is not offered when hypothesis.aim is estimation (the intervals assume independent "
+            "subjects); remove it",
+        )
+    comparisons = adjustments.get("comparisons")
+    if isinstance(comparisons, int) and not isinstance(comparisons, bool) and comparisons > 1:
+        ctx.add(
+            "adjustments.comparisons",
+            "must be 1 when hypothesis.aim is estimation (one interval is planned; for several, "
+            f"raise hypothesis.confidence to 1 - (1 - confidence)/k); got {comparisons}",
+        )
+    for name, why in (
+        ("interim", "an estimation question plans a single analysis"),
+        (
+            "assurance",
+            "for an interval, hypothesis.assurance is the probability of reaching the half-width",
+        ),
+    ):
+        if posted(raw, name):
+            ctx.add(name, f"is not offered when hypothesis.aim is estimation ({why}); remove it")
+    design = ctx.design
+    assurance = hyp.get("assurance")
+    if design is not None and assurance is not None and design.estimation is not None:
+        if not design.estimation.assurance:
+            ctx.add(
+                "hypothesis.assurance",
+                f'is not offered for "{design.cell}" (its interval is planned at the expected '
+                f"half-width); remove it; got {show(assurance)}",
+            )
 
 
 def directionless(ctx: Context) -> None:

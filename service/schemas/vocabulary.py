@@ -14,7 +14,7 @@ from service.engine.designs.base import AIMS, BLOCKS, METHODS
 
 __all__ = ["AIMS", "BLOCKS", "METHODS"]  # the engine's words, re-exported for the schema modules
 
-FINDS = ("sample_size", "power", "effect")
+FINDS = ("sample_size", "power", "effect", "precision")  # precision: estimation only
 ALTERNATIVES = ("two-sided", "one-sided")
 ROUNDINGS = ("each_group", "exact_ratio")
 DECISION_RULES = ("point", "lower_bound")

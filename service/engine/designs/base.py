@@ -17,7 +17,9 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 BLOCKS = ("effect", "assumptions", "analysis_options")
-AIMS = ("superiority", "noninferiority", "equivalence")
+AIMS = ("superiority", "noninferiority", "equivalence", "estimation")
+# The aims that test a hypothesis; "estimation" asks for a confidence interval's precision.
+TESTING_AIMS = ("superiority", "noninferiority", "equivalence")
 METHODS = ("analytic", "simulation")
 
 
@@ -209,6 +211,33 @@ class Phrases:
     # optional q -> the groups' names in prose, in group order ("control", "treatment 1", …)
     group_names: Callable[[dict], list[str]] | None = None
     margin: Callable[[dict], str] | None = None
+    # optional q -> what a precision question estimates and the planning values it assumes
+    # ("the mean, assuming a standard deviation of 20"); None: "the estimand" + assumptions
+    estimand: Callable[[dict], str] | None = None
+
+
+@dataclass(frozen=True)
+class Estimation:
+    """How a cell answers a precision question (``hypothesis.aim = "estimation"``).
+
+    forms : the accepted field sets of an estimation question, as ``Design.forms`` (a field
+        outside every form, such as a mean's ``difference``, is refused: the interval's width
+        does not depend on it).
+    precision : (q, per_group) -> {"half_width_expected": the half-width expected at these
+        (analyzed, possibly fractional) sizes, "half_width_assured": the half-width not exceeded
+        with probability ``hypothesis.assurance`` (None without it), "probability": the
+        probability that the half-width is at most ``hypothesis.half_width`` (None when it is not
+        computed, e.g. without assurance)}. ``solve_n(q, alpha)`` answers find = sample_size
+        with alpha = 1 − confidence; the shared math is ``service/engine/precision.py``.
+    assurance : True when the cell's intervals take ``hypothesis.assurance``.
+    expected_words : what "the half-width is at most the target" means without an assurance,
+        in the report's words (the record's ``precision.basis`` says how it is computed).
+    """
+
+    forms: tuple[tuple[str, ...], ...]
+    precision: Callable[[dict, list[float]], dict]
+    assurance: bool = False
+    expected_words: str = "on average (the expected half-width)"
 
 
 @dataclass(frozen=True)
@@ -265,6 +294,9 @@ class Design:
     equivalence_alpha_source: str = (
         "the level regulatory guidance expects of such trials (ICH E9, 1998)"
     )
+    # How the cell answers hypothesis.aim = "estimation" (precision questions); None: not offered.
+    # An analysis whose ``aims`` hold "estimation" must be offered with it.
+    estimation: Estimation | None = None
 
     @property
     def cell(self) -> str:

@@ -7,16 +7,17 @@ import math
 
 from scipy import stats
 
-from .. import models
+from .. import models, precision
 from ..errors import QuestionError
 from ..quantiles import normal_power, power_unreachable, root, z, z_alpha
 from .base import (
-    AIMS,
+    TESTING_AIMS,
     Analysis,
     ClusterSupport,
     DecisionRule,
     Design,
     EffectAxis,
+    Estimation,
     Field,
     Phrases,
     SimulationModel,
@@ -83,7 +84,7 @@ ANALYSES = (
         "unpooled_z",
         "z test with unpooled variance (Wald)",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Chow, Shao & Wang 2008, ch. 4",
     ),
     Analysis(
@@ -107,6 +108,13 @@ ANALYSES = (
         ("superiority",),
         "Fisher 1935; power by simulation",
     ),
+    Analysis(
+        "newcombe_interval",
+        "Newcombe hybrid score interval for the difference in proportions",
+        ("analytic",),
+        ("estimation",),
+        "Newcombe 1998, Stat Med 17:873 (method 10), from Wilson 1927 score intervals",
+    ),
 )
 _EDGE = 1e-9
 
@@ -119,7 +127,9 @@ validate = make_validate(FIELDS, FORMS, "p_treatment", ("p_control", "p_treatmen
 
 def default_analysis(q: dict) -> str:
     """pooled_z for superiority; against a margin the score test (its Wald form when simulated,
-    as the score test is not simulated)."""
+    as the score test is not simulated); Newcombe's interval for a precision question."""
+    if hypothesis(q)[0] == "estimation":
+        return "newcombe_interval"
     if hypothesis(q)[0] == "superiority":
         return "pooled_z"
     return "unpooled_z" if q.get("method") == "simulation" else "score"
@@ -257,6 +267,8 @@ def _check_effect(q: dict, p1: float, p2: float) -> None:
 
 def solve_n(q: dict, alpha: float) -> Solution:
     """Return the unrounded n per group from the closed-form formula (root finding for equivalence)."""
+    if hypothesis(q)[0] == "estimation":
+        return _interval_solution(q)
     analysis, aim, margin, higher, cc = _setup(q)
     p1, p2 = _prob(q, "p_control"), _prob(q, "p_treatment")
     _check_effect(q, p1, p2)
@@ -346,6 +358,8 @@ def solve_effect(q: dict, per_group: list[float], alpha: float) -> dict:
 
 def warnings_for(q: dict, per_group: list[float]) -> list[str]:
     """Return plain-language warnings when the normal approximation is strained (n·p < 5)."""
+    if hypothesis(q)[0] == "estimation":
+        return []  # Newcombe's interval is built from score intervals, not the z test
     out = []
     v = values(q, FIELDS)
     for group, name, n in zip(
@@ -365,6 +379,8 @@ def warnings_for(q: dict, per_group: list[float]) -> list[str]:
 
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
+    if hypothesis(q)[0] == "estimation":
+        return _interval_method(q)
     analysis, aim, margin, higher, cc = _setup(q)
     label = DESIGN.analysis(analysis).label
 
@@ -514,6 +530,49 @@ def assumptions_sentence(q: dict) -> str:
     return "" if p is None else f"an event proportion of {fmt(p)} in the control group"
 
 
+# --- precision questions: Newcombe's interval for p_treatment − p_control ----------------------
+
+
+def _interval_precision(q: dict, per_group: list[float]) -> dict:
+    """The interval's half-width when the observed proportions equal the planned ones."""
+    hyp = q["hypothesis"]
+    p1, p2 = _prob(q, "p_control"), _prob(q, "p_treatment")
+    return {
+        "half_width_expected": precision.newcombe_half_width(p1, p2, per_group, hyp["confidence"]),
+        "half_width_assured": None,
+        "probability": None,
+        "basis": "when the observed proportions equal the planned ones (counts n·p, not rounded)",
+    }
+
+
+def _interval_solution(q: dict) -> Solution:
+    analysis_of(q, DESIGN, "analytic")
+    share = allocation(q)
+    n = precision.solve_size(
+        lambda n: _interval_precision(q, [n * a for a in share])["half_width_expected"],
+        q["hypothesis"]["half_width"],
+        floor=max(2.0 / a for a in share),
+    )
+    return Solution(per_group=[n * a for a in share])
+
+
+def _interval_method(q: dict) -> dict:
+    analysis = analysis_of(q, DESIGN, "analytic")
+    return analytic_method(
+        analysis,
+        DESIGN.analysis(analysis).label,
+        "hybrid score interval at the planned proportions",
+        "Newcombe (1998), Stat Med 17:873, method 10; Wilson (1927), JASA 22:209",
+        [
+            "Two-sided interval for p_treatment − p_control: its limits combine each group's "
+            "Wilson score limits (Newcombe's method 10).",
+            "The half-width is the one the interval has when the observed proportions equal "
+            "the planned ones (counts n·p, not rounded).",
+        ],
+        {},
+    )
+
+
 def _contrast(q: dict) -> float | None:
     v = values(q, FIELDS)
     if v.get("p_treatment") is None or v.get("p_control") is None:
@@ -561,10 +620,23 @@ DESIGN = Design(
     describe=describe,
     warnings_for=warnings_for,
     simulation=SIMULATION,
-    phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
+    phrases=Phrases(
+        effect=effect_sentence,
+        assumptions=assumptions_sentence,
+        estimand=lambda q: (
+            "the difference in event proportions (treatment minus control), "
+            f"planned at {fmt(_prob(q, 'p_treatment'))} in the treatment group and "
+            f"{fmt(_prob(q, 'p_control'))} in the control group"
+        ),
+    ),
     example="northbridge_wound_infection.json",
     sequential=True,
     contrast=_contrast,
     null_effect=lambda q: values(q, FIELDS).get("p_control"),
     cluster=CLUSTER,
+    estimation=Estimation(
+        forms=(("p_control", "p_treatment"),),
+        precision=_interval_precision,
+        expected_words="when the observed proportions equal the planned ones",
+    ),
 )

@@ -6,7 +6,7 @@ Stdlib only (the schema layer calls ``validate`` without importing numpy).
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 
 from ..errors import QuestionError
 from .base import BLOCKS, Design, Field
@@ -233,3 +233,71 @@ def stated_effect(q: dict, record: dict | None, fields, name: str):
     if value is None and record and record.get("effect"):
         value = record["effect"]["value"]
     return value
+
+
+# --- precision questions (hypothesis.aim = "estimation") ---------------------------------------
+
+
+def aim_of(raw: object) -> str | None:
+    """The posted hypothesis aim of a question (None when absent or not a word)."""
+    hyp = raw.get("hypothesis") if isinstance(raw, Mapping) else None
+    aim = hyp.get("aim") if isinstance(hyp, Mapping) else None
+    return aim if isinstance(aim, str) else None
+
+
+def estimation_validate(design: Design, blocks: dict) -> dict[str, list[str]]:
+    """The cell's fields for an estimation question: exactly one of ``design.estimation.forms``;
+    any other field is refused (posted at its declared default it is accepted, so a normalized
+    question loads again)."""
+    by_name = {f.name: f for f in design.fields}
+    forms = design.estimation.forms
+    used = {n for form in forms for n in form}
+    errors: dict[str, list[str]] = {}
+    posted: set[str] = set()
+    for block in BLOCKS:
+        for key, value in (blocks.get(block) or {}).items():
+            decl = by_name.get(key)
+            if decl is None or value is None:
+                continue
+            if decl.block != block:
+                errors.setdefault(f"{block}.{key}", []).append(
+                    f"belongs in {decl.block}, not {block}"
+                )
+            elif key in used:
+                posted.add(key)
+            elif value != decl.default:
+                errors.setdefault(decl.path, []).append(
+                    "is not used when hypothesis.aim is estimation (the interval's half-width "
+                    "does not depend on it); remove it; an estimation question here takes "
+                    + " or ".join(" + ".join(form) for form in forms)
+                )
+    fits = [form for form in forms if posted <= set(form)]
+    if not fits:
+        shown = " or ".join(" + ".join(form) for form in forms)
+        for name in sorted(posted):
+            errors.setdefault(by_name[name].path, []).append(
+                f"give {shown}, not a mix; got {', '.join(sorted(posted))}"
+            )
+        return errors
+    chosen = max(fits, key=lambda form: len(set(form) & posted))
+    others = [form for form in forms if form != chosen]
+    for name in chosen:
+        if name not in posted:
+            hint = (
+                " (or give " + " or ".join(" + ".join(f) for f in others) + ")"
+                if others and not posted
+                else ""
+            )
+            errors.setdefault(by_name[name].path, []).append(
+                f"is required for an estimation question{hint}"
+            )
+    return errors
+
+
+def validate_question_blocks(
+    design: Design, blocks: dict, find: str, from_data: bool, aim: str | None
+) -> dict[str, list[str]]:
+    """The cell's own check of its blocks, by aim: estimation forms or the design's validate."""
+    if aim == "estimation" and design.estimation is not None:
+        return estimation_validate(design, blocks)
+    return design.validate(blocks, find, from_data) or {}

@@ -17,7 +17,7 @@ from ..errors import QuestionError
 from ..quantiles import power_unreachable, root, solve_effect_or_raise, solve_n_or_raise, t_power
 from . import continuous_two_groups as parallel
 from .base import (
-    AIMS,
+    TESTING_AIMS,
     Analysis,
     Design,
     Field,
@@ -88,7 +88,7 @@ ANALYSES = (
         "crossover_t",
         "Crossover t test on the period differences",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Jones & Kenward 2003, ch. 2; power by the noncentral t (Owen 1965 for equivalence)",
     ),
 )

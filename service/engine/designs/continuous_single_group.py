@@ -7,7 +7,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 
-from .. import models
+from .. import models, precision
 from ..errors import QuestionError
 from ..quantiles import solve_effect_or_raise, solve_n_or_raise, t_power
 from .base import (
@@ -15,6 +15,7 @@ from .base import (
     DecisionRule,
     Design,
     EffectAxis,
+    Estimation,
     Field,
     Phrases,
     SimulationModel,
@@ -39,8 +40,24 @@ from .common import (
 DIFFERENCE_HELP = "Expected true mean minus the null value."
 
 
-def analyses(what: str) -> tuple[Analysis, ...]:
-    """The t test (analytic and simulated) and the signed-rank test (simulated) on ``what``."""
+T_INTERVAL = Analysis(
+    "t_interval",
+    "t confidence interval for the mean",
+    ("analytic",),
+    ("estimation",),
+    "Kupper & Hafner 1989, Am Stat 43:101; half-width t·s/√n, E[s] = c4·σ, "
+    "P(s ≤ bound) by the chi-square distribution",
+)
+
+
+def analyses(what: str, interval: bool = False) -> tuple[Analysis, ...]:
+    """The t test (analytic and simulated) and the signed-rank test (simulated) on ``what``;
+    with ``interval``, the t interval for a precision question."""
+    return (*analyses_tests(what), *((T_INTERVAL,) if interval else ()))
+
+
+def analyses_tests(what: str) -> tuple[Analysis, ...]:
+    """The tests on ``what``: the t test and the signed-rank test."""
     return (
         Analysis(
             "t_test",
@@ -76,8 +93,10 @@ def t_cell(
     phrases: Phrases,
     example: str,
     implied_sd_fields: Callable[[float | None], dict],
+    interval: bool = False,
 ) -> Design:
-    """Build a one-sample t cell whose SD is ``sd(q)`` and whose data are ``what``."""
+    """Build a one-sample t cell whose SD is ``sd(q)`` and whose data are ``what``; with
+    ``interval`` it also answers precision questions (the t interval for the mean)."""
     design: Design
 
     def _sd(q: dict) -> float:
@@ -88,7 +107,12 @@ def t_cell(
     def _power_at(q: dict, delta: float, n: float, alpha: float) -> float:
         return t_power(abs(delta) * math.sqrt(n) / _sd(q), n - 1.0, alpha, tails(q))
 
+    def interval_precision(q: dict, per_group: list[float]) -> dict:
+        return precision.t_interval(q, _sd(q), per_group)
+
     def solve_n(q: dict, alpha: float) -> Solution:
+        if hypothesis(q)[0] == "estimation":
+            return precision.t_interval_solution(q, _sd(q), [1.0])
         delta = number(q, fields, "difference")
         _sd(q)
         if delta == 0:
@@ -118,6 +142,23 @@ def t_cell(
 
     def describe(q: dict) -> dict:
         analysis = analysis_of(q, design, "analytic")
+        if analysis == "t_interval":
+            return analytic_method(
+                analysis,
+                T_INTERVAL.label,
+                "t interval: expected half-width, or its probability by the chi-square "
+                "distribution",
+                "Kupper & Hafner (1989), Am Stat 43:101",
+                [
+                    f"Two-sided t interval for the mean of {what}: half-width t·s/√n with n − 1 "
+                    "degrees of freedom.",
+                    "Without an assurance the expected half-width, t·c4·SD/√n (E[s] = c4·SD), "
+                    "is at most the target; with one, (n − 1)s²/SD² is chi-square on n − 1 "
+                    "degrees of freedom and the half-width is at most the target with that "
+                    "probability.",
+                ],
+                derive(q),
+            )
         notes = [
             f"t test on {what} with n − 1 degrees of freedom; noncentrality difference·√n / SD.",
             "Power counts both rejection tails for a two-sided test; a one-sided test looks in "
@@ -170,9 +211,11 @@ def t_cell(
         fields=fields,
         forms=forms,
         solved="difference",
-        analyses=analyses(what),
+        analyses=analyses(what, interval),
         validate=make_validate(fields, forms, "difference", model_fields),
-        default_analysis=lambda q: "t_test",
+        default_analysis=lambda q: (
+            "t_interval" if interval and hypothesis(q)[0] == "estimation" else "t_test"
+        ),
         groups=one_group,
         allocation=one_group_allocation,
         derive=derive,
@@ -187,6 +230,11 @@ def t_cell(
         sequential=True,
         contrast=lambda q: values(q, fields).get("difference"),
         null_effect=lambda q: 0.0,
+        estimation=Estimation(
+            forms=tuple(f for f in forms), precision=interval_precision, assurance=True
+        )
+        if interval
+        else None,
     )
     return design
 
@@ -250,7 +298,9 @@ DESIGN = t_cell(
     phrases=Phrases(
         effect=difference_sentence(FIELDS, "true mean minus the null value"),
         assumptions=_sd_sentence,
+        estimand=lambda q: f"the mean, assuming {_sd_sentence(q)}",
     ),
     example="northbridge_vitamin_d_audit.json",
     implied_sd_fields=_implied_sd,
+    interval=True,
 )

@@ -7,17 +7,18 @@ import math
 
 from scipy import integrate, special, stats
 
-from .. import models
+from .. import models, precision
 from ..errors import QuestionError
 from ..quantiles import power_unreachable, root, solve_effect_or_raise, solve_n_or_raise, t_power
 from . import ordinal_two_groups as noether
 from .base import (
-    AIMS,
+    TESTING_AIMS,
     Analysis,
     ClusterSupport,
     DecisionRule,
     Design,
     EffectAxis,
+    Estimation,
     Field,
     Phrases,
     SimulationModel,
@@ -96,14 +97,14 @@ ANALYSES = (
         "pooled_t",
         "Student's t test (pooled variance)",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Cohen 1988, ch. 2; power by the noncentral t",
     ),
     Analysis(
         "welch_t",
         "Welch's t test",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Welch 1947; Satterthwaite 1946; power by the noncentral t",
     ),
     Analysis(
@@ -117,8 +118,16 @@ ANALYSES = (
         "ancova",
         "Analysis of covariance on the baseline measurement",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Borm, Fransen & Lemmens 2007 (design factor 1 − ρ²); power by the noncentral t",
+    ),
+    Analysis(
+        "pooled_t_interval",
+        "t confidence interval for the difference in means (pooled variance)",
+        ("analytic",),
+        ("estimation",),
+        "Kupper & Hafner 1989, Am Stat 43:101; half-width t·s·√(1/n₁ + 1/n₂), E[s] = c4·σ, "
+        "P(s ≤ bound) by the chi-square distribution",
     ),
 )
 
@@ -143,7 +152,9 @@ def _unequal(q: dict) -> bool:
 
 def default_analysis(q: dict) -> str:
     """Welch when the two SDs differ (as posted, or as a posted data model implies), else the
-    pooled t test."""
+    pooled t test; the pooled t interval for a precision question."""
+    if hypothesis(q)[0] == "estimation":
+        return "pooled_t_interval"
     if _unequal(q):
         return "welch_t"
     data = (q.get("simulation") or {}).get("data") if q.get("method") == "simulation" else None
@@ -284,8 +295,16 @@ def _check_effect(q: dict, delta: float) -> None:
         )
 
 
+def interval_precision(q: dict, per_group: list[float]) -> dict:
+    """The pooled t interval for the difference in means at these sizes (a precision question)."""
+    return precision.t_interval(q, number(q, FIELDS, "sd"), per_group)
+
+
 def solve_n(q: dict, alpha: float) -> Solution:
-    """Return the unrounded n per group reaching the target power (root of the exact curve)."""
+    """Return the unrounded n per group reaching the target power (root of the exact curve), or
+    making the interval narrow enough for a precision question."""
+    if _analysis(q) == "pooled_t_interval":
+        return precision.t_interval_solution(q, number(q, FIELDS, "sd"), allocation(q))
     delta = number(q, FIELDS, "difference")
     _check_effect(q, delta)
     r = allocation(q)[1]
@@ -371,6 +390,21 @@ def describe(q: dict) -> dict:
     analysis = _analysis(q)
     aim, margin, higher = hypothesis(q)
     label = DESIGN.analysis(analysis).label
+    if analysis == "pooled_t_interval":
+        return analytic_method(
+            analysis,
+            label,
+            "t interval: expected half-width, or its probability by the chi-square distribution",
+            "Kupper & Hafner (1989), Am Stat 43:101",
+            [
+                "Two-sided t interval for the difference in means (treatment − control) with the "
+                "pooled SD: half-width t·s·√(1/n₁ + 1/n₂) on n₁ + n₂ − 2 degrees of freedom.",
+                "Without an assurance the expected half-width (E[s] = c4·SD) is at most the "
+                "target; with one, (n₁ + n₂ − 2)s²/SD² is chi-square and the half-width is at "
+                "most the target with that probability.",
+            ],
+            derive(q),
+        )
     if analysis == "rank_sum":
         block = noether.method_block(q, analysis, label)
         block["derived"] = derive(q)
@@ -594,10 +628,17 @@ DESIGN = Design(
     describe=describe,
     warnings_for=warnings_for,
     simulation=SIMULATION,
-    phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
+    phrases=Phrases(
+        effect=effect_sentence,
+        assumptions=assumptions_sentence,
+        estimand=lambda q: (
+            "the difference in means (treatment minus control), assuming " + assumptions_sentence(q)
+        ),
+    ),
     example="northbridge_bp_trial.json",
     sequential=True,
     contrast=lambda q: values(q, FIELDS).get("difference"),
     null_effect=lambda q: 0.0,
     cluster=CLUSTER,
+    estimation=Estimation(forms=(("sd",),), precision=interval_precision, assurance=True),
 )

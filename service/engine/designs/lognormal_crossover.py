@@ -16,7 +16,16 @@ from ..errors import QuestionError
 from ..quantiles import power_unreachable, root, solve_effect_or_raise
 from . import continuous_crossover as crossover
 from . import continuous_two_groups as parallel
-from .base import AIMS, Analysis, DecisionRule, Design, EffectAxis, Field, Phrases, SimulationModel
+from .base import (
+    TESTING_AIMS,
+    Analysis,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+)
 from .common import (
     analysis_of,
     analytic_method,
@@ -60,7 +69,7 @@ ANALYSES = (
         "crossover_t",
         "Crossover t test on the log scale (two one-sided tests against limits)",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Schuirmann 1987; Phillips 1990 (exact power by Owen's Q); Diletti, Hauschke & "
         "Steinijans 1991",
     ),

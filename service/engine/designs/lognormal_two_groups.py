@@ -12,7 +12,7 @@ import math
 from ..quantiles import t_power
 from . import continuous_two_groups as parallel
 from . import lognormal_crossover as ratio_cell
-from .base import AIMS, Analysis, Design, Phrases, SimulationModel
+from .base import TESTING_AIMS, Analysis, Design, Phrases, SimulationModel
 from .common import (
     analysis_of,
     analytic_method,
@@ -40,7 +40,7 @@ ANALYSES = (
         "pooled_t",
         "Student's t test on the log scale (two one-sided tests against limits)",
         ("analytic", "simulation"),
-        AIMS,
+        TESTING_AIMS,
         "Schuirmann 1987; Phillips 1990 (exact power by Owen's Q)",
     ),
 )

@@ -105,3 +105,46 @@ def test_refusal_names_the_field(client):
     r = client.post("/v1/calculations", json={"question": question})
     assert r.status_code == 422
     assert "effect.r2_increment" in json.dumps(r.get_json())
+
+
+def test_sensitivity_specificity_precision_through_api_worker_cli_and_report(client, api, app):
+    path = _file("diagnostic", "single_group")
+    question = json.loads(path.read_text())
+    r = client.post("/v1/calculations", json={"question": question})
+    assert r.status_code == 200, r.get_json()
+    record = r.get_json()
+    assert record["power"] is None
+    assert record["precision"]["half_width_target"] == 0.05
+    assert record["method"]["derived"]["governed_by"] in ("sensitivity", "specificity")
+
+    queued = api.submit(api.request_body(question)).get_json()
+    config = app.extensions["sizewise"]["config"]
+    assert run_request_job(queued["id"], config) == "computed"
+    body = api.client.get(f"/v1/requests/{queued['id']}").get_json()
+    assert body["result"]["sample_size"] == record["sample_size"]
+
+    sizewise = ROOT / ".venv" / "bin" / "sizewise"
+    cmd = [str(sizewise)] if sizewise.exists() else [sys.executable, "-m", "service.cli"]
+    out = subprocess.run(
+        [*cmd, "compute", str(path)], capture_output=True, text=True, cwd=ROOT, timeout=120
+    )
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout)["sample_size"] == record["sample_size"]
+
+    text = justification(record)
+    assert designs.get("diagnostic", "single_group").label in text
+    assert "sensitivity and the specificity" in text
+    assert "half-width is at most 0.05" in text
+    page = render_report(REQUEST, record, curve_svg="<svg></svg>")
+    assert str(record["sample_size"]["total"]) in page
+
+    refused = dict(question, hypothesis={"aim": "superiority"})
+    r = client.post("/v1/calculations", json={"question": refused})
+    assert r.status_code == 422
+    assert "hypothesis.aim" in json.dumps(r.get_json())
+
+
+def test_catalogue_lists_the_precision_cell(client):
+    cells = client.get("/v1/catalogue").get_json()["cells"]
+    listed = {(c["outcome"], c["layout"]) for c in cells}
+    assert ("diagnostic", "single_group") in listed

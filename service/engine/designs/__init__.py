@@ -32,6 +32,7 @@ def _load() -> None:
         continuous_single_group,
         continuous_treatments_vs_control,
         continuous_two_groups,
+        diagnostic_single_group,
         diagnostic_two_groups,
         lognormal_crossover,
         lognormal_two_groups,
@@ -58,6 +59,7 @@ def _load() -> None:
         binary_regression,
         time_to_event_regression,
         diagnostic_two_groups,
+        diagnostic_single_group,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

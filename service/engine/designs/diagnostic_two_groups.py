@@ -270,7 +270,7 @@ SIMULATION = SimulationModel(
     check_models=_check_models,
     settings=lambda q: {"auc_null": number(q, FIELDS, "auc_null")},
     data_block=lambda arms, labels, settings: {"controls": dict(arms[0]), "cases": dict(arms[1])},
-    implied_contrast=lambda arms: arms[1]["mean"] - arms[0]["mean"],
+    implied_contrast=None,  # the direction is the AUC against auc_null (design.contrast)
     approximate_n=approximate_n,
 )
 

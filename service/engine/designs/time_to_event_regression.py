@@ -12,9 +12,21 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+from scipy import optimize
+
 from ..errors import QuestionError
-from ..quantiles import normal_effect, normal_power, z_alpha, z_sum
-from .base import Analysis, Design, Field, Phrases, Solution
+from ..quantiles import normal_effect, normal_power, z, z_alpha, z_sum
+from .base import (
+    Analysis,
+    DecisionRule,
+    Design,
+    EffectAxis,
+    Field,
+    Phrases,
+    SimulationModel,
+    Solution,
+)
 from .common import (
     analysis_of,
     analytic_method,
@@ -94,9 +106,9 @@ ANALYSES = (
     Analysis(
         "cox_wald",
         "test of a Cox regression coefficient",
-        ("analytic",),
+        ("analytic", "simulation"),
         ("superiority",),
-        "Hsieh & Lavori 2000",
+        "Hsieh & Lavori 2000; simulation: partial likelihood by Newton–Raphson",
     ),
 )
 
@@ -205,6 +217,82 @@ def describe(q: dict) -> dict:
     )
 
 
+# --- simulation -------------------------------------------------------------------------------
+
+
+def _event_share(model: dict, tau: float) -> float:
+    """P(event by τ) with hazard exp(β·x) over the covariate's distribution."""
+    beta = model["log_hazard_ratio"]
+    if model["covariate"] == "binary":
+        b = model["prevalence"]
+        return (1 - b) * (1 - math.exp(-tau)) + b * (1 - math.exp(-tau * math.exp(beta)))
+    nodes, weights = np.polynomial.hermite_e.hermegauss(60)
+    rate = np.exp(beta * model["sd"] * nodes)
+    return float(np.sum(weights * (1 - np.exp(-tau * rate))) / math.sqrt(2 * math.pi))
+
+
+def _model(q: dict, log_hr: float) -> dict:
+    v = values(q, FIELDS)
+    model = {
+        "family": "cox_regression",
+        "log_hazard_ratio": log_hr,
+        "correlation": math.sqrt(number(q, FIELDS, "r2_covariates")),
+    }
+    if v.get("covariate_prevalence") is not None:
+        model.update(covariate="binary", prevalence=number(q, FIELDS, "covariate_prevalence"))
+    else:
+        model.update(covariate="continuous", sd=number(q, FIELDS, "sd_covariate"))
+    p = number(q, FIELDS, "event_probability")
+    if p >= 1:
+        raise QuestionError(
+            "assumptions.event_probability", "must be below 1 to be simulated; got 1"
+        )
+    tau = math.exp(
+        optimize.brentq(lambda u: _event_share(model, math.exp(u)) - p, -40.0, 40.0, xtol=1e-12)
+    )
+    return {**model, "censor_time": tau}
+
+
+def default_data(q: dict) -> list[dict]:
+    """The covariate, an other covariate correlated √R² with it when R² > 0, exponential event
+    times with hazard exp(β·x) and a common follow-up time giving P(event)."""
+    return [_model(q, _log_hr(q))]
+
+
+def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
+    return [
+        {**arms[0], "log_hazard_ratio": 0.0}
+    ], "the tested coefficient set to 0 (hazard ratio 1), the follow-up time kept"
+
+
+def approximate_n(plan, target: float) -> float | None:
+    m = plan.models[0]
+    if m["log_hazard_ratio"] == 0:
+        return None
+    z_total = z_alpha(plan.alpha, plan.rule.tails) + z(target)
+    var = m["prevalence"] * (1 - m["prevalence"]) if m["covariate"] == "binary" else m["sd"] ** 2
+    events = z_total**2 / (var * m["log_hazard_ratio"] ** 2 * (1 - m["correlation"] ** 2))
+    return events / _event_share(m, m["censor_time"])
+
+
+def effect_axis(q: dict, rule: DecisionRule) -> EffectAxis:
+    # "higher" is longer times: a hazard ratio below 1
+    return EffectAxis(1.0, -rule.direction, 1.0 if rule.direction > 0 else math.inf)
+
+
+SIMULATION = SimulationModel(
+    data_keys=(),
+    default_data=default_data,
+    null_data=null_data,
+    kernels={"cox_wald": "cox_wald"},
+    effect_axis=effect_axis,
+    data_block=lambda arms, labels, settings: {"regression": dict(arms[0])},
+    implied_contrast=lambda arms: -arms[0]["log_hazard_ratio"],
+    approximate_n=approximate_n,
+    min_size=10,
+)
+
+
 def effect_sentence(q: dict, record: dict | None) -> str:
     v = values(q, FIELDS)
     hr = v.get("hazard_ratio")
@@ -253,7 +341,7 @@ DESIGN = Design(
     solve_effect=solve_effect,
     describe=describe,
     warnings_for=no_warnings,
-    simulation=None,
+    simulation=SIMULATION,
     phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
     example="northbridge_sepsis_cox.json",
     contrast=_contrast,

@@ -419,6 +419,162 @@ def _ancova(streams: Streams, task: ChunkTask, rows: int):
     return vectests.decide(est, se, df, task.alpha, task.rule), {}
 
 
+def _partial_f(streams: Streams, task: ChunkTask, rows: int):
+    """Linear regression: the partial F test of the tested predictors, every replicate at once.
+
+    Predictors are independent standard normal (variate j for predictor j: the other predictors
+    first, then the tested ones), the error standard normal (the last variate); each tested
+    coefficient is √(f²/u), the others 0 (the partial F test does not depend on them).
+    """
+    m, n = task.models[0], task.per_group[0]
+    u, k = int(m["tested"]), int(m["other"])
+    p = u + k
+    df2 = n - p - 1
+    if df2 < 1:
+        return np.zeros(rows, dtype=bool), {}
+    x = np.empty((rows, n, p + 1))
+    x[:, :, 0] = 1.0
+    for j in range(p):
+        x[:, :, j + 1] = streams.raw(0, _STANDARD, n, rows, variate0=j)
+    y = streams.raw(0, _STANDARD, n, rows, variate0=p)
+    if m["f_squared"] > 0:
+        y += math.sqrt(m["f_squared"] / u) * x[:, :, k + 1 :].sum(axis=2)
+    rss_full = vectests.residual_ss(x, y)
+    rss_reduced = vectests.residual_ss(x[:, :, : k + 1], y)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = ((rss_reduced - rss_full) / u) / (rss_full / df2)
+    return f > vectests.f_critical(task.alpha, u, df2), {}
+
+
+def _auc_z(streams: Streams, task: ChunkTask, rows: int):
+    """The Mann–Whitney AUC of cases (group 1) over controls (group 0) per replicate, by ranks,
+    tested against the null AUC with the Hanley–McNeil standard error at the null value."""
+    n0, n1 = task.per_group
+    x = streams.raw(0, task.models[0], n0, rows)
+    y = streams.raw(1, task.models[1], n1, rows)
+    auc = vectests.mann_whitney_auc(x, y)
+    a0 = task.settings["auc_null"]
+    q1, q2 = a0 / (2.0 - a0), 2.0 * a0 * a0 / (1.0 + a0)
+    var0 = (a0 * (1 - a0) + (n1 - 1) * (q1 - a0 * a0) + (n0 - 1) * (q2 - a0 * a0)) / (n0 * n1)
+    return vectests.decide(auc - a0, math.sqrt(var0), None, task.alpha, task.rule), {}
+
+
+def _logistic_wald(streams: Streams, task: ChunkTask, rows: int):
+    """Logistic regression: the Wald z of the tested covariate, every replicate fitted at once.
+
+    The covariate is standard normal (variate 0) or Bernoulli(prevalence) from a uniform; with
+    a correlation ρ an other covariate ρ·x_std + √(1 − ρ²)·N(0, 1) (variate 1) joins the model;
+    the outcome is a Bernoulli draw (variate 2) at logit⁻¹(intercept + β·x). Newton–Raphson from
+    the null fit, a fixed number of steps for every row; a row whose information is singular
+    (separation, no events) does not reject.
+    """
+    m, n = task.models[0], task.per_group[0]
+    rho = float(m.get("correlation") or 0.0)
+    if m["covariate"] == "binary":
+        b = m["prevalence"]
+        x = (streams.raw(0, _UNIFORM, n, rows, variate0=0) < b).astype(float)
+        std = (x - b) / math.sqrt(b * (1 - b))
+    else:
+        x = streams.raw(0, _STANDARD, n, rows, variate0=0)
+        std = x
+    columns = [np.ones((rows, n)), x]
+    if rho > 0:
+        noise = streams.raw(0, _STANDARD, n, rows, variate0=1)
+        columns.append(rho * std + math.sqrt(1 - rho * rho) * noise)
+    design = np.stack(columns, axis=2)  # (rows, n, p)
+    eta = m["intercept"] + m["log_odds_ratio"] * x
+    y = (streams.raw(0, _UNIFORM, n, rows, variate0=2) < 1.0 / (1.0 + np.exp(-eta))).astype(float)
+    p = design.shape[2]
+    coef = np.zeros((rows, p))
+    mean = np.clip(y.mean(axis=1), 1e-6, 1 - 1e-6)
+    coef[:, 0] = np.log(mean / (1 - mean))
+    eye = np.eye(p)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        for _ in range(_NEWTON_STEPS):
+            lin = np.clip(np.einsum("rnp,rp->rn", design, coef), -30.0, 30.0)
+            prob = 1.0 / (1.0 + np.exp(-lin))
+            w = prob * (1 - prob)
+            info = np.einsum("rni,rn,rnj->rij", design, w, design)
+            score = np.einsum("rnp,rn->rp", design, y - prob)
+            ok = np.abs(np.linalg.det(info)) > 1e-12
+            info[~ok] = eye
+            score[~ok] = 0.0
+            coef += np.linalg.solve(info, score[:, :, None])[:, :, 0]
+        lin = np.clip(np.einsum("rnp,rp->rn", design, coef), -30.0, 30.0)
+        prob = 1.0 / (1.0 + np.exp(-lin))
+        info = np.einsum("rni,rn,rnj->rij", design, prob * (1 - prob), design)
+        ok = np.abs(np.linalg.det(info)) > 1e-12
+        info[~ok] = eye
+        var = np.linalg.inv(info)[:, 1, 1]
+        se = np.where(ok & np.isfinite(coef[:, 1]), np.sqrt(var), np.inf)
+    return vectests.decide(coef[:, 1], se, None, task.alpha, task.rule), {}
+
+
+_NEWTON_STEPS = 12
+
+
+def _cox_wald(streams: Streams, task: ChunkTask, rows: int):
+    """Cox regression: the Wald z of the tested covariate from the partial likelihood (Breslow,
+    continuous times: no ties), every replicate fitted at once by Newton–Raphson.
+
+    The covariate is normal with the stated SD (variate 0) or a factor with the stated
+    prevalence; with a correlation ρ an other covariate (variate 1) joins the model; event times
+    are exponential with hazard exp(β·x) (variate 2), censored at the model's follow-up time.
+    """
+    m, n = task.models[0], task.per_group[0]
+    rho = float(m.get("correlation") or 0.0)
+    if m["covariate"] == "binary":
+        b = m["prevalence"]
+        x = (streams.raw(0, _UNIFORM, n, rows, variate0=0) < b).astype(float)
+        std = (x - b) / math.sqrt(b * (1 - b))
+    else:
+        std = streams.raw(0, _STANDARD, n, rows, variate0=0)
+        x = m["sd"] * std
+    columns = [x]
+    if rho > 0:
+        noise = streams.raw(0, _STANDARD, n, rows, variate0=1)
+        columns.append(rho * std + math.sqrt(1 - rho * rho) * noise)
+    e = streams.raw(0, {"family": "exponential", "scale": 1.0}, n, rows, variate0=2)
+    t = e * np.exp(-m["log_hazard_ratio"] * x)
+    event = t <= m["censor_time"]
+    t = np.minimum(t, m["censor_time"])
+    order = np.argsort(t, axis=1)
+    design = np.take_along_axis(np.stack(columns, axis=2), order[:, :, None], axis=1)
+    event = np.take_along_axis(event, order, axis=1).astype(float)
+    p = design.shape[2]
+    coef = np.zeros((rows, p))
+    eye = np.eye(p)
+    outer = np.einsum("rni,rnj->rnij", design, design)
+
+    def parts(c):
+        w = np.exp(np.clip(np.einsum("rnp,rp->rn", design, c), -50.0, 50.0))
+        s0 = np.cumsum(w[:, ::-1], axis=1)[:, ::-1]
+        s1 = np.cumsum((design * w[:, :, None])[:, ::-1], axis=1)[:, ::-1]
+        s2 = np.cumsum((outer * w[:, :, None, None])[:, ::-1], axis=1)[:, ::-1]
+        mean = s1 / s0[:, :, None]
+        score = np.einsum("rn,rnp->rp", event, design - mean)
+        info = np.einsum(
+            "rn,rnij->rij",
+            event,
+            s2 / s0[:, :, None, None] - np.einsum("rni,rnj->rnij", mean, mean),
+        )
+        ok = np.abs(np.linalg.det(info)) > 1e-10
+        info[~ok] = eye
+        score[~ok] = 0.0
+        return score, info, ok
+
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        for _ in range(_NEWTON_STEPS):
+            score, info, ok = parts(coef)
+            coef += np.linalg.solve(info, score[:, :, None])[:, :, 0]
+        _, info, ok = parts(coef)
+        var = np.linalg.inv(info)[:, 0, 0]
+        se = np.where(ok & np.isfinite(coef[:, 0]), np.sqrt(var), np.inf)
+    # the outcome scale's "higher" is longer times: −β̂ (as the log-rank statistic's sign)
+    reject = vectests.decide(-coef[:, 0], se, None, task.alpha, task.rule)
+    return reject, {"events": int(event.sum())}
+
+
 def _cluster_t(streams: Streams, task: ChunkTask, rows: int):
     return cluster_sim.reject(streams, task, rows)
 
@@ -506,6 +662,25 @@ KERNELS: dict[str, Kernel] = {
     # interim analyses: the base kernel's statistic at every look (seqsim.py)
     "sequential": Kernel(seqsim.run, seqsim.draws, seqsim.row_bytes, summaries=False),
     # per_group counts clusters: a size, a cluster effect and a mean per cluster
+    "partial_f": Kernel(
+        _partial_f,
+        lambda t: _raw_draws(t, [t.models[0]["tested"] + t.models[0]["other"] + 1]),
+        lambda t: 8 * 3 * (t.models[0]["tested"] + t.models[0]["other"] + 2) * t.per_group[0],
+        False,
+    ),
+    "auc_z": Kernel(_auc_z, _raw_draws, _raw_bytes(10), summaries=False),
+    "logistic_wald": Kernel(
+        _logistic_wald,
+        lambda t: _raw_draws(t, [2 + (float(t.models[0].get("correlation") or 0) > 0)]),
+        _raw_bytes(12),
+        False,
+    ),
+    "cox_wald": Kernel(
+        _cox_wald,
+        lambda t: _raw_draws(t, [2 + (float(t.models[0].get("correlation") or 0) > 0)]),
+        _raw_bytes(16),
+        False,
+    ),
     "cluster_t": Kernel(
         _cluster_t, lambda t: 3 * sum(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),

@@ -83,6 +83,12 @@ def describe(plan: Plan) -> str:
     families = {m["family"] for m in plan.models}
     if families == {"bivariate_normal"}:
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
+    elif families == {"linear_regression"}:
+        how = "draws every subject's predictors (independent standard normal, the tested ones with equal coefficients giving the stated f², the others with none) and a standard normal error, fits the full and the reduced model by least squares"
+    elif families == {"logistic_regression"}:
+        how = "draws every subject's covariate (standard normal, or a factor with the stated prevalence), an other covariate correlated √R² with it when R² > 0, and a logistic event, fits the logistic regression by Newton–Raphson (12 steps from the null fit; a replicate with a singular information matrix does not reject)"
+    elif families == {"cox_regression"}:
+        how = "draws every subject's covariate (normal with the stated SD, or a factor with the stated prevalence), an other covariate correlated √R² with it when R² > 0, an exponential event time with hazard exp(β·x) and censoring at a common follow-up time that gives the stated probability of an event, fits the Cox model by Newton–Raphson on the partial likelihood (12 steps; a replicate with a singular information matrix does not reject)"
     elif families == {"bernoulli"} and plan.summaries:
         how = "draws each group's success count directly (binomial, by inverting one uniform per group)"
     elif plan.summaries:

@@ -472,3 +472,26 @@ def rate_ratio_wald(y0, t0, y1, t1, *, estimate_dispersion: bool):
         est = np.log(e1 / x1) - np.log(e0 / x0)
         est = np.where(np.isfinite(est), est, 0.0)
     return est, np.sqrt(var)
+
+
+def residual_ss(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Return the least-squares residual sum of squares of y on the columns of x, per row.
+
+    x is (rows, n, p), y (rows, n); the normal equations of every replicate are solved at once
+    (well conditioned for the standardized predictors the kernels draw).
+    """
+    gram = np.einsum("rni,rnj->rij", x, x)
+    cross = np.einsum("rni,rn->ri", x, y)
+    coef = np.linalg.solve(gram, cross[:, :, None])[:, :, 0]
+    total = np.einsum("rn,rn->r", y, y)
+    return np.maximum(total - np.einsum("ri,ri->r", coef, cross), 0.0)
+
+
+def mann_whitney_auc(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Return the Mann–Whitney AUC, P(Y > X) + ½P(Y = X), of every row (ties share ranks)."""
+    n1, n2 = x.shape[1], y.shape[1]
+    both = np.concatenate((x, y), axis=1)
+    order = np.argsort(both, axis=1)
+    ranks, _ = _sorted_ranks(np.take_along_axis(both, order, axis=1))
+    r2 = np.where(order >= n1, ranks, 0.0).sum(axis=1)
+    return (r2 - n2 * (n2 + 1) / 2.0) / (n1 * n2)

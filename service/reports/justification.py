@@ -424,13 +424,17 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
     ev = events_of(record)
     if ev:
         p = ev["probability"]
+        chance = (
+            f"{fmt_prob(p['control'])} in the control group and {fmt_prob(p['treatment'])} in "
+            f"the treatment group (allocation-weighted mean {fmt_prob(p['mean'])})"
+            if "control" in p
+            else fmt_prob(p["mean"])
+        )
         body += (
             f" {fmt_count(ev['required'])} events are "
             f"{'expected' if ev.get('basis') == 'expected' else 'required'} "
             f"(unrounded {_raw(ev['raw'])}). "
-            f"With a probability of an event during the study of {fmt_prob(p['control'])} in "
-            f"the control group and {fmt_prob(p['treatment'])} in the treatment group "
-            f"(allocation-weighted mean {fmt_prob(p['mean'])}), this needs "
+            f"With a probability of an event during the study of {chance}, this needs "
             f"{_per_group(base['per_group'], q)}"
         )
         if len(base["per_group"]) > 1:

@@ -109,6 +109,14 @@ def target_power(ctx: Context) -> None:
 def margin_aims(ctx: Context) -> None:
     """Noninferiority and equivalence are one-sided, and offered only where an analysis aims so."""
     aim = ctx.aim
+    if aim == "superiority" and ctx.design is not None and aim not in ctx.design.aims():
+        # a cell that answers precision questions only (diagnostic × single_group)
+        ctx.add(
+            "hypothesis.aim",
+            f'"{ctx.design.cell}" answers only {", ".join(ctx.design.aims())} questions; set '
+            f'hypothesis.aim to {" or ".join(ctx.design.aims())}; got "{aim}"',
+        )
+        return
     if aim in (None, "superiority"):
         return
     if aim != "estimation" and ctx.data.get("alternative") == "two-sided":

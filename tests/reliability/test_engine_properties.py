@@ -112,6 +112,39 @@ VALUES = {
             "dispersion": _floats(0.0, 1.5),
         }
     ),
+    ("continuous", "regression"): st.fixed_dictionaries(
+        {
+            "f_squared": _floats(0.02, 0.5),
+            "tested_predictors": st.integers(1, 3),
+            "other_predictors": st.integers(0, 4),
+        }
+    ),
+    ("binary", "regression"): st.fixed_dictionaries(
+        {
+            "odds_ratio": _floats(1.2, 3.0),
+            "event_rate": _floats(0.05, 0.5),
+            "r2_covariates": _floats(0.0, 0.5),
+        }
+    ),
+    ("time_to_event", "regression"): st.fixed_dictionaries(
+        {
+            "hazard_ratio": _floats(0.5, 0.85),
+            "sd_covariate": _floats(0.5, 2.0),
+            "event_probability": _floats(0.1, 0.9),
+        }
+    ),
+    ("diagnostic", "two_groups"): st.fixed_dictionaries({"auc": _floats(0.6, 0.9)}),
+    # a precision question only: the hypothesis goes to the question's top level
+    ("diagnostic", "single_group"): st.fixed_dictionaries(
+        {
+            "sensitivity": _floats(0.6, 0.95),
+            "specificity": _floats(0.6, 0.95),
+            "prevalence": _floats(0.05, 0.5),
+            "hypothesis": st.fixed_dictionaries(
+                {"aim": st.just("estimation"), "half_width": _floats(0.03, 0.15)}
+            ),
+        }
+    ),
 }
 CELLS = sorted(VALUES)
 
@@ -121,6 +154,9 @@ def _blocks(cell: tuple, values: dict) -> dict:
     design = designs.get(*cell)
     out: dict = {}
     for name, value in values.items():
+        if name == "hypothesis":
+            out[name] = value
+            continue
         out.setdefault(design.field(name).block, {})[name] = value
     return out
 
@@ -169,6 +205,11 @@ def questions(draw) -> dict:
         if draw(st.integers(0, 3)) == 0:
             question["method"] = "simulation"
             question["simulation"] = _simulation(cell, draw)
+    if "hypothesis" in question:  # a precision question: a confidence, not alpha and power
+        for name in ("alpha", "target_power", "method", "simulation"):
+            question.pop(name, None)
+        if find == "power":
+            question.update(find="precision", hypothesis={"aim": "estimation"})
     return question
 
 
@@ -198,6 +239,9 @@ def test_valid_questions_give_a_sealed_record_or_a_field_error(raw):
     per_group = record["sample_size"]["per_group"]
     assert len(per_group) >= 1 and all(isinstance(n, int) and n >= 2 for n in per_group), per_group
     assert record["sample_size"]["total"] == sum(per_group)
+    if question["hypothesis"]["aim"] == "estimation":  # a precision question: no power
+        assert record["power"] is None and record["precision"]["half_width_expected"] > 0
+        return
     power = record["power"]["estimate"]
     assert 0.0 <= power <= 1.0, power
     if question["method"] == "simulation":

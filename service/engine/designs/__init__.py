@@ -23,18 +23,23 @@ def _load() -> None:
     from . import (
         association_single_group,
         binary_treatments_vs_control,
+        binary_regression,
         binary_two_groups,
         continuous_crossover,
         continuous_k_groups,
         continuous_paired,
+        continuous_regression,
         continuous_repeated_measures,
         continuous_single_group,
         continuous_treatments_vs_control,
         continuous_two_groups,
         count_two_groups,
+        diagnostic_single_group,
+        diagnostic_two_groups,
         lognormal_crossover,
         lognormal_two_groups,
         ordinal_two_groups,
+        time_to_event_regression,
         time_to_event_two_groups,
     )
 
@@ -54,6 +59,11 @@ def _load() -> None:
         lognormal_two_groups,
         binary_treatments_vs_control,
         count_two_groups,
+        continuous_regression,
+        binary_regression,
+        time_to_event_regression,
+        diagnostic_two_groups,
+        diagnostic_single_group,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -226,6 +226,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             "total": sum(final),
             "steps": pre_steps + steps,
         }
+        if solution is not None and not simulated and solution.details.get("sample_size_details"):
+            record["sample_size"]["details"] = solution.details["sample_size_details"]
         analyzed = base
     else:
         enrolled = list(q["sample_size"]["per_group"])

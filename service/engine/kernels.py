@@ -17,7 +17,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats
 
-from . import cluster_sim, manytoone, models, repeated, vectests
+from . import cluster_sim, exact_binomial, manytoone, models, repeated, vectests
 from .chunks import BLOCK, STREAM_NULL, ChunkTask, Streams
 from .errors import QuestionError
 
@@ -139,6 +139,23 @@ def _fisher(streams: Streams, task: ChunkTask, rows: int):
     c1, c2 = _counts(streams, task, rows)
     n1, n2 = task.per_group
     return vectests.fisher_reject(c1, n1, c2, n2, task.alpha, task.rule), {}
+
+
+def _binomial_exact(streams: Streams, task: ChunkTask, rows: int):
+    """One group's count against the reference rate: the exact binomial test's critical counts."""
+    n, p0 = task.per_group[0], task.settings["p_null"]
+    x = streams.binomial(0, task.models[0]["p"], n, rows)
+    rule = task.rule
+    tails = 2 if rule["alternative"] == "two-sided" else 1
+    return exact_binomial.reject(x, n, p0, task.alpha, tails, rule["direction"]), {}
+
+
+def _binomial_z(streams: Streams, task: ChunkTask, rows: int):
+    """One group's count against the reference rate: z with the null variance p0(1 − p0)/n."""
+    n, p0 = task.per_group[0], task.settings["p_null"]
+    x = streams.binomial(0, task.models[0]["p"], n, rows)
+    se = np.full(rows, math.sqrt(p0 * (1.0 - p0) / n))
+    return vectests.decide(x / n - p0, se, None, task.alpha, task.rule), {}
 
 
 def _pearson(streams: Streams, task: ChunkTask, rows: int):
@@ -404,6 +421,8 @@ KERNELS: dict[str, Kernel] = {
     "fisher_exact": Kernel(
         _fisher, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),
+    "binomial_exact": Kernel(_binomial_exact, lambda t: 1, _raw_bytes(10), True, True),
+    "binomial_z": Kernel(_binomial_z, lambda t: 1, _raw_bytes(10), True, True),
     "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
     "many_to_one": Kernel(_many_to_one, _moment_draws, _raw_bytes(4), summaries=True),

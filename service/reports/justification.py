@@ -15,6 +15,7 @@ from . import interim
 from .describe import (
     analysis_label,
     assumed_text,
+    cell,
     cell_label,
     derived_text,
     field_label,
@@ -490,6 +491,7 @@ def justification(record: dict, context: dict | None = None) -> str:
         body = _sample_size_body(record, context, test_level)
     else:
         body = _given_size_body(record, context, test_level)
+    body += details_sentence(record)
     body += interim.sentence(record)
     body += assurance_sentence(record)
     simulated = record["method"].get("method") == "simulation"
@@ -497,6 +499,12 @@ def justification(record: dict, context: dict | None = None) -> str:
     warnings = "".join(f" Note: {w.rstrip('.')}." for w in record.get("warnings") or [])
     note = method_note(record)
     return _tidy(opening + body + sim + (f" {note}" if note else "") + warnings)
+
+
+def details_sentence(record: dict) -> str:
+    """The cell's own sentences on its answer details (``Phrases.details``), '' when none."""
+    words = cell(record["question"]).phrases.details
+    return words(record) if words is not None else ""
 
 
 def assurance_sentence(record: dict) -> str:

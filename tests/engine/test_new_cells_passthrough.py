@@ -35,6 +35,16 @@ CASES = [
         ),
         "Dunnett",
     ),
+    (
+        "northbridge_smoking_cessation_rate.json",
+        ("analysis", "exact_binomial"),
+        (
+            "Binary outcome, single group against a reference rate",
+            "a reference rate of 0.2",
+            "from n = 59 on",
+        ),
+        "exact binomial test",
+    ),
 ]
 
 

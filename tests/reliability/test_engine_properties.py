@@ -93,6 +93,9 @@ VALUES = {
     ("lognormal", "two_groups"): st.fixed_dictionaries(
         {"ratio": _floats(0.5, 0.95), "cv": _floats(0.05, 1.0)}
     ),
+    ("binary", "single_group"): st.tuples(_floats(0.05, 0.6), _floats(0.1, 0.35)).map(
+        lambda t: {"p_null": t[0], "p": t[0] + t[1]}
+    ),
 }
 CELLS = sorted(VALUES)
 

@@ -22,6 +22,7 @@ def _load() -> None:
         return
     from . import (
         association_single_group,
+        binary_single_group,
         binary_two_groups,
         continuous_crossover,
         continuous_k_groups,
@@ -50,6 +51,7 @@ def _load() -> None:
         continuous_crossover,
         lognormal_crossover,
         lognormal_two_groups,
+        binary_single_group,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

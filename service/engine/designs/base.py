@@ -83,7 +83,12 @@ class Analysis:
 
 @dataclass(frozen=True)
 class Solution:
-    """An analytic solve: raw (unrounded) n per group and cell-specific details (e.g. events)."""
+    """An analytic solve: raw (unrounded) n per group and cell-specific details (e.g. events).
+
+    ``details["events"]`` becomes the record's ``events`` block and
+    ``details["sample_size_details"]`` the record's ``sample_size.details`` (a cell's own answer
+    details: the exact search's two n's, a two-stage design's stage rules).
+    """
 
     per_group: list[float]
     details: dict = field(default_factory=dict)
@@ -209,6 +214,9 @@ class Phrases:
     # optional q -> the groups' names in prose, in group order ("control", "treatment 1", …)
     group_names: Callable[[dict], list[str]] | None = None
     margin: Callable[[dict], str] | None = None
+    # optional record -> sentences on the cell's own answer details (the exact search's two
+    # n's, a two-stage design's stage rules), '' when there are none
+    details: Callable[[dict], str] | None = None
 
 
 @dataclass(frozen=True)

@@ -131,6 +131,10 @@ def _check_question(q: dict, design, simulated: bool) -> None:
             "alternative",
             f"the tests of {design.cell} have no direction; only 'two-sided' applies",
         )
+    if alternative == "two-sided" and design.one_sided_only:
+        raise QuestionError(
+            "alternative", f"the design of {design.cell} tests one-sided only; got 'two-sided'"
+        )
     aim = check_aim(q, design)
     if aim != "superiority" and alternative != "one-sided":
         raise QuestionError(

@@ -81,7 +81,9 @@ def describe(plan: Plan) -> str:
             "interval."
         )
     families = {m["family"] for m in plan.models}
-    if families == {"bivariate_normal"}:
+    if plan.design.simulation.draws_words:
+        how = plan.design.simulation.draws_words
+    elif families == {"bivariate_normal"}:
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
     elif families == {"bernoulli"} and plan.summaries:
         how = "draws each group's success count directly (binomial, by inverting one uniform per group)"

@@ -22,9 +22,20 @@ from workers.tasks import run_request_job
 
 ROOT = Path(__file__).resolve().parents[2]
 EXAMPLES = ROOT / "service" / "examples"
-CELLS = [("binary", "single_group")]
+CELLS = [("binary", "single_group"), ("binary", "two_stage"), ("binary", "paired")]
 # a phrase of the cell's own details sentence, in the justification of its example
-DETAIL_WORDS = {("binary", "single_group"): "saw-toothed"}
+DETAIL_WORDS = {
+    ("binary", "single_group"): "saw-toothed",
+    ("binary", "two_stage"): "stop if 3 or fewer respond",
+    ("binary", "paired"): "206 pairs are needed",
+}
+# a posted design for the simulated find = power request (Simon 1989, Table 1, minimax)
+POSTED = {
+    ("binary", "two_stage"): {
+        "sample_size": {"per_group": [33]},
+        "analysis_options": {"stage1_size": 18, "stage1_max_responses": 4, "max_responses": 10},
+    }
+}
 
 
 def _example(outcome: str, layout: str) -> dict:
@@ -74,6 +85,7 @@ def test_simulated_request_is_computed_by_the_worker_task(api, app, outcome, lay
         method="simulation",
         simulation={"replicates": 2000, "seed": 7},
     )
+    question.update(POSTED.get((outcome, layout), {}))
     question.pop("target_power", None)
     queued = api.submit(api.request_body(question))
     assert queued.status_code == 202, queued.get_json()
@@ -104,3 +116,23 @@ def test_single_group_refusal_names_the_field(client):
     r = client.post("/v1/calculations", json={"question": same})
     assert r.status_code == 422
     assert "effect.p" in json.dumps(r.get_json())
+
+
+def test_two_stage_refusals_name_the_field(client):
+    question = _example("binary", "two_stage")
+    r = client.post("/v1/calculations", json={"question": {**question, "alternative": "two-sided"}})
+    assert r.status_code == 422
+    assert "question.alternative" in r.get_json()["errors"]
+    r = client.post(
+        "/v1/calculations",
+        json={
+            "question": {
+                **question,
+                "find": "effect",
+                "sample_size": {"per_group": [40]},
+                "effect": {},
+            }
+        },
+    )
+    assert r.status_code == 422, r.get_json()
+    assert "find = effect is not offered" in json.dumps(r.get_json())

@@ -22,8 +22,10 @@ def _load() -> None:
         return
     from . import (
         association_single_group,
+        binary_paired,
         binary_single_group,
         binary_two_groups,
+        binary_two_stage,
         continuous_crossover,
         continuous_k_groups,
         continuous_paired,
@@ -52,6 +54,8 @@ def _load() -> None:
         lognormal_crossover,
         lognormal_two_groups,
         binary_single_group,
+        binary_two_stage,
+        binary_paired,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -161,6 +161,8 @@ class SimulationModel:
         planned data, for the robustness panel's departures; None: the panel is not offered.
     direction_sign : +1, or −1 when the test statistic falls as the outcome improves (log-rank).
     min_size : the smallest group size the analyses accept.
+    draws_words : how one replicate is drawn ("draws …"), for the method's description; None:
+        the generic words (every observation, or each group's summary statistics).
     """
 
     data_keys: tuple[str, ...]
@@ -177,6 +179,8 @@ class SimulationModel:
     planned_moments: Callable[[dict], tuple[float, float, float, float]] | None = None
     direction_sign: int = 1
     min_size: int = 2
+    # how one replicate is drawn, in words ("draws …"), when the generic words do not fit
+    draws_words: str | None = None
 
 
 @dataclass(frozen=True)
@@ -258,6 +262,9 @@ class Design:
     null_effect: Callable[[dict], float | None]
     cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
     directional: bool = True  # False: the tests have no direction (F), one-sided is refused
+    # True: the design tests in one direction by construction (Simon's two-stage design): the
+    # alternative defaults to one-sided and two-sided is refused
+    one_sided_only: bool = False
     # True: the test statistic is asymptotically normal with independent increments, so the
     # question may plan interim analyses (the ``interim`` block, engine/sequential.py)
     sequential: bool = False

@@ -175,6 +175,13 @@ def test_a_lower_rate_worth_pursuing_is_refused():
     assert "effect.p" in str(getattr(info.value, "errors", None) or info.value.field)
 
 
+def test_assurance_is_refused_on_its_field():
+    body = question(assurance={"mean": 0.4, "sd": 0.05})
+    with pytest.raises(QuestionError) as info:
+        answer(body)
+    assert info.value.field == "assurance"
+
+
 def test_no_design_within_max_n_names_the_field():
     body = question(effect={"p": 0.25})
     body["analysis_options"] = {"max_n": 20}

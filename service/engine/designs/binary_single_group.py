@@ -119,7 +119,7 @@ def _z_power(p: float, p0: float, n: float, alpha: float, count: int) -> float:
 
 
 def z_test_n(p: float, p0: float, alpha: float, count: int, target: float) -> float:
-    """Return n = [z_a·√(p0(1 − p0)) + z_b·√(p(1 − p))]² / (p − p0)² (Lachin 1981, eq. 3.2)."""
+    """Return n = [z_a·√(p0(1 − p0)) + z_b·√(p(1 − p))]² / (p − p0)² (Lachin 1981)."""
     z_a, z_b = z_alpha(alpha, count), z(target)
     return (z_a * math.sqrt(p0 * (1 - p0)) + z_b * math.sqrt(p * (1 - p))) ** 2 / (p - p0) ** 2
 

@@ -161,6 +161,12 @@ def _setup(q: dict) -> tuple[float, float]:
         )
     if q.get("alternative") == "two-sided":
         raise QuestionError("alternative", "Simon's two-stage design is one-sided")
+    if q.get("assurance"):
+        raise QuestionError(
+            "assurance",
+            "is not offered for a two-stage design: its power belongs to one design, found at "
+            "the assumed response rate",
+        )
     adjustments = q.get("adjustments") or {}
     if adjustments.get("dropout"):
         raise QuestionError(

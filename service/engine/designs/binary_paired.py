@@ -345,8 +345,8 @@ SIMULATION = SimulationModel(
     effect_axis=effect_axis,
     data_block=lambda arms, labels, settings: {"pairs": dict(arms[0])},
     min_size=2,
-    draws_words="draws each replicate's number of discordant pairs (binomial over the pairs) "
-    "and, given it, how many have the event under treatment only (binomial)",
+    draws_words="draws the number of discordant pairs (binomial over the pairs) and, given it, "
+    "how many have the event under treatment only (binomial)",
 )
 
 

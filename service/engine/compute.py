@@ -142,6 +142,10 @@ def _check_question(q: dict, design, simulated: bool) -> None:
             "alternative",
             f"the tests of {design.cell} have no direction; only 'two-sided' applies",
         )
+    if alternative == "two-sided" and design.one_sided_only:
+        raise QuestionError(
+            "alternative", f"the design of {design.cell} tests one-sided only; got 'two-sided'"
+        )
     aim = check_aim(q, design)
     if aim == "estimation" or q["find"] == "precision":
         precision.check(q, design)
@@ -249,6 +253,8 @@ def _answer(q, design, simulated, progress, cancel, executor, budget=None) -> di
             "total": sum(final),
             "steps": pre_steps + steps,
         }
+        if solution is not None and not simulated and solution.details.get("sample_size_details"):
+            record["sample_size"]["details"] = solution.details["sample_size_details"]
         analyzed = base
     else:
         enrolled = list(q["sample_size"]["per_group"])

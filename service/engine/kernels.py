@@ -17,7 +17,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats
 
-from . import cluster_sim, manytoone, models, repeated, seqsim, vectests
+from . import cluster_sim, exact_binomial, manytoone, models, repeated, seqsim, vectests
 from .chunks import BLOCK, STREAM_NULL, ChunkTask, Streams
 from .errors import QuestionError
 
@@ -139,6 +139,65 @@ def _fisher(streams: Streams, task: ChunkTask, rows: int):
     c1, c2 = _counts(streams, task, rows)
     n1, n2 = task.per_group
     return vectests.fisher_reject(c1, n1, c2, n2, task.alpha, task.rule), {}
+
+
+def _binomial_exact(streams: Streams, task: ChunkTask, rows: int):
+    """One group's count against the reference rate: the exact binomial test's critical counts."""
+    n, p0 = task.per_group[0], task.settings["p_null"]
+    x = streams.binomial(0, task.models[0]["p"], n, rows)
+    rule = task.rule
+    tails = 2 if rule["alternative"] == "two-sided" else 1
+    return exact_binomial.reject(x, n, p0, task.alpha, tails, rule["direction"]), {}
+
+
+def _binomial_z(streams: Streams, task: ChunkTask, rows: int):
+    """One group's count against the reference rate: z with the null variance p0(1 − p0)/n."""
+    n, p0 = task.per_group[0], task.settings["p_null"]
+    x = streams.binomial(0, task.models[0]["p"], n, rows)
+    se = np.full(rows, math.sqrt(p0 * (1.0 - p0) / n))
+    return vectests.decide(x / n - p0, se, None, task.alpha, task.rule), {}
+
+
+def _two_stage(streams: Streams, task: ChunkTask, rows: int):
+    """Simon's two stages: stage-1 and stage-2 response counts drawn from their own streams."""
+    n, p = task.per_group[0], task.models[0]["p"]
+    n1 = task.settings["stage1_size"]
+    r1, r = task.settings["stage1_max_responses"], task.settings["max_responses"]
+    x1 = streams.binomial(0, p, n1, rows)
+    u = streams.gen(0, 1).random(rows)
+    np.subtract(1.0, u, out=u)  # (0, 1], as Streams.binomial
+    x2 = vectests.binomial_quantile(u, n - n1, p)
+    return (x1 > r1) & (x1 + x2 > r), {}
+
+
+def _discordant(streams: Streams, task: ChunkTask, rows: int):
+    """Matched pairs: the discordant pairs D ~ Bin(n, ψ), then those favoring treatment given D."""
+    model, n = task.models[0], task.per_group[0]
+    p10, p01 = model["p_treatment_only"], model["p_control_only"]
+    psi = p10 + p01
+    d = streams.binomial(0, psi, n, rows).astype(np.int64)
+    x = streams.gen(0, 1).binomial(d, p10 / psi if psi > 0 else 0.5).astype(np.int64)
+    return x, d
+
+
+def _mcnemar(streams: Streams, task: ChunkTask, rows: int):
+    """McNemar's z = (b − c)/√(b + c) on the discordant pairs; no pair discordant: no rejection."""
+    x, d = _discordant(streams, task, rows)
+    est = (2 * x - d).astype(np.float64)
+    se = np.sqrt(d.astype(np.float64))
+    se[d == 0] = np.inf
+    return vectests.decide(est, se, None, task.alpha, task.rule), {}
+
+
+def _mcnemar_exact(streams: Streams, task: ChunkTask, rows: int):
+    """The exact conditional test: x of d against Binomial(d, 1/2), critical counts per d."""
+    x, d = _discordant(streams, task, rows)
+    rule = task.rule
+    tails = 2 if rule["alternative"] == "two-sided" else 1
+    lo, hi = exact_binomial.critical_counts(
+        np.arange(task.per_group[0] + 1), 0.5, task.alpha, tails, rule["direction"]
+    )
+    return ((x <= lo[d]) | (x >= hi[d])) & (d > 0), {}
 
 
 def _pearson(streams: Streams, task: ChunkTask, rows: int):
@@ -642,6 +701,11 @@ KERNELS: dict[str, Kernel] = {
     "fisher_exact": Kernel(
         _fisher, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),
+    "binomial_exact": Kernel(_binomial_exact, lambda t: 1, _raw_bytes(10), True, True),
+    "binomial_z": Kernel(_binomial_z, lambda t: 1, _raw_bytes(10), True, True),
+    "two_stage": Kernel(_two_stage, lambda t: 2, _raw_bytes(10), True, True),
+    "mcnemar": Kernel(_mcnemar, lambda t: 2, _raw_bytes(10), True, True),
+    "mcnemar_exact": Kernel(_mcnemar_exact, lambda t: 2, _raw_bytes(10), True, True),
     "pearson": Kernel(_pearson, lambda t: 3, _raw_bytes(10), True, always_summaries=True),
     "logrank": Kernel(_logrank, _logrank_draws, _raw_bytes(14), summaries=False),
     "many_to_one": Kernel(_many_to_one, _moment_draws, _raw_bytes(4), summaries=True),

@@ -81,7 +81,9 @@ def describe(plan: Plan) -> str:
             "interval."
         )
     families = {m["family"] for m in plan.models}
-    if families == {"bivariate_normal"}:
+    if plan.design.simulation.draws_words:
+        how = plan.design.simulation.draws_words
+    elif families == {"bivariate_normal"}:
         how = "draws each replicate's sample correlation directly (Bartlett's decomposition of the bivariate normal scatter matrix)"
     elif families == {"linear_regression"}:
         how = "draws every subject's predictors (independent standard normal, the tested ones with equal coefficients giving the stated f², the others with none) and a standard normal error, fits the full and the reduced model by least squares"

@@ -607,6 +607,7 @@ def justification(record: dict, context: dict | None = None) -> str:
         body = _sample_size_body(record, context, test_level)
     else:
         body = _given_size_body(record, context, test_level)
+    body += details_sentence(record)
     body += interim.sentence(record)
     body += multiplicity_sentence(record)
     body += assurance_sentence(record)
@@ -615,6 +616,12 @@ def justification(record: dict, context: dict | None = None) -> str:
     warnings = "".join(f" Note: {w.rstrip('.')}." for w in record.get("warnings") or [])
     note = method_note(record)
     return _tidy(opening + body + sim + (f" {note}" if note else "") + warnings)
+
+
+def details_sentence(record: dict) -> str:
+    """The cell's own sentences on its answer details (``Phrases.details``), '' when none."""
+    words = cell(record["question"]).phrases.details
+    return words(record) if words is not None else ""
 
 
 def assurance_sentence(record: dict) -> str:

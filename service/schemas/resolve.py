@@ -91,7 +91,8 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
     hyp = {**_hypothesis_default(), **(data.get("hypothesis") or {})}
     aim = hyp["aim"]
     how = method(design, data, raw)
-    alternative = data.get("alternative") or ("two-sided" if aim == "superiority" else "one-sided")
+    two_sided = aim == "superiority" and not getattr(design, "one_sided_only", False)
+    alternative = data.get("alternative") or ("two-sided" if two_sided else "one-sided")
     sim = data.get("simulation") if how == "simulation" else None
     if how == "simulation" and sim is None:
         sim = simulation_schema(design).load({})

@@ -236,6 +236,12 @@ def directionless(ctx: Context) -> None:
             f'must be "two-sided" for {ctx.design.cell}: its tests have no direction (they '
             'reject for large statistics only); got "one-sided"',
         )
+    if ctx.data.get("alternative") == "two-sided" and getattr(ctx.design, "one_sided_only", False):
+        ctx.add(
+            "alternative",
+            f'must be "one-sided" for {ctx.design.cell}: its design tests in one direction by '
+            'construction (the default); got "two-sided"',
+        )
 
 
 # -- allocation ---------------------------------------------------------------------------------

@@ -10,7 +10,10 @@ plus the type I check) at n ≈ 20, 200 and 2,000 — a count, not a time, so no
 (8) kernels near the cost of drawing their data: two proportions ≤ 2×, rank-sum ≤ 2×,
 log-rank ≤ 5× their draw floors, Welch ≤ 1.5× (as in (2)); (9) group-sequential boundaries for
 K = 5 in under 50 ms, and the simulated sequential test's per-replicate cost (the engine's
-``sequential`` kernel, seqsim.py) beside the fixed design's kernel on the same question.
+``sequential`` kernel, seqsim.py) beside the fixed design's kernel on the same question;
+(10) exact enumerations under a second: the one-proportion exact power curve for n = 2 … 2,000,
+the exact McNemar curve for n = 2 … 2,000, and Simon's two-stage search (p0 .05 vs p1 .15, every
+n up to 100).
 """
 
 from __future__ import annotations
@@ -288,8 +291,29 @@ def interim_boundaries() -> None:
     )
 
 
+def exact_enumerations() -> None:
+    """(10) the exact enumerations against one second each."""
+    from service.engine import exact_binomial, two_stage
+
+    n = np.arange(2, 2001)
+    for name, fn in (
+        ("exact binomial curve, n ≤ 2,000", lambda: exact_binomial.power(n, 0.25, 0.2, 0.05, 2, 1)),
+        (
+            "exact McNemar curve, n ≤ 2,000",
+            lambda: exact_binomial.conditional_power(n, 0.1, 0.6, 0.05, 2, 1),
+        ),
+        (
+            "Simon search, n ≤ 100",
+            lambda: two_stage.search.__wrapped__(0.05, 0.15, 0.05, 0.8, 100),
+        ),
+    ):
+        took = best(fn, repeat=3)
+        print(f"(10) {name}: {took:6.3f} s; ratio {took:5.2f} of 1 s (goal ≤ 1)")
+
+
 if __name__ == "__main__":
     main()
+    exact_enumerations()
     memory()
     analytic()
     search_replicates()

@@ -45,6 +45,36 @@ CASES = [
         ),
         "Dunnett",
     ),
+    (
+        "northbridge_smoking_cessation_rate.json",
+        ("analysis", "exact_binomial"),
+        (
+            "Binary outcome, single group against a reference rate",
+            "a reference rate of 0.2",
+            "from n = 59 on",
+        ),
+        "exact binomial test",
+    ),
+    (
+        "northbridge_phase2_two_stage.json",
+        ("analysis", "simon_two_stage"),
+        (
+            "Binary outcome, two-stage single-arm study (Simon)",
+            "r1/n1 = 3/13, r/n = 12/43",
+            "the minimax design is 4/18, 10/33",
+        ),
+        "Simon",
+    ),
+    (
+        "northbridge_antiemetic_paired.json",
+        ("analysis", "mcnemar"),
+        (
+            "Binary outcome, paired (matched pairs)",
+            "0.15 of pairs with the event under treatment only",
+            "206 pairs",
+        ),
+        "McNemar",
+    ),
 ]
 
 

@@ -145,6 +145,21 @@ VALUES = {
             ),
         }
     ),
+    ("binary", "single_group"): st.tuples(_floats(0.05, 0.6), _floats(0.1, 0.35)).map(
+        lambda t: {"p_null": t[0], "p": t[0] + t[1]}
+    ),
+    # Simon's designs are searched by enumeration (cost ~ n⁴): differences of 0.2 or more
+    ("binary", "two_stage"): st.tuples(_floats(0.05, 0.5), _floats(0.2, 0.35)).map(
+        lambda t: {"p_null": t[0], "p": t[0] + t[1]}
+    ),
+    ("binary", "paired"): st.one_of(
+        st.tuples(_floats(0.02, 0.3), _floats(0.03, 0.3)).map(
+            lambda t: {"p_control_only": t[0], "p_treatment_only": t[0] + t[1]}
+        ),
+        st.tuples(_floats(0.1, 0.6), _floats(0.05, 0.3), _floats(0.0, 0.5)).map(
+            lambda t: {"p_control": t[0], "p_treatment": t[0] + t[1], "correlation": t[2]}
+        ),
+    ),
 }
 CELLS = sorted(VALUES)
 

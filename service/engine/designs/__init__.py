@@ -22,9 +22,12 @@ def _load() -> None:
         return
     from . import (
         association_single_group,
-        binary_treatments_vs_control,
+        binary_paired,
         binary_regression,
+        binary_single_group,
+        binary_treatments_vs_control,
         binary_two_groups,
+        binary_two_stage,
         continuous_crossover,
         continuous_k_groups,
         continuous_paired,
@@ -64,6 +67,9 @@ def _load() -> None:
         time_to_event_regression,
         diagnostic_two_groups,
         diagnostic_single_group,
+        binary_single_group,
+        binary_two_stage,
+        binary_paired,
     ):
         _REGISTRY.setdefault((module.DESIGN.outcome, module.DESIGN.layout), module.DESIGN)
     _LOADED = True

@@ -85,7 +85,12 @@ class Analysis:
 
 @dataclass(frozen=True)
 class Solution:
-    """An analytic solve: raw (unrounded) n per group and cell-specific details (e.g. events)."""
+    """An analytic solve: raw (unrounded) n per group and cell-specific details (e.g. events).
+
+    ``details["events"]`` becomes the record's ``events`` block and
+    ``details["sample_size_details"]`` the record's ``sample_size.details`` (a cell's own answer
+    details: the exact search's two n's, a two-stage design's stage rules).
+    """
 
     per_group: list[float]
     details: dict = field(default_factory=dict)
@@ -158,6 +163,8 @@ class SimulationModel:
         planned data, for the robustness panel's departures; None: the panel is not offered.
     direction_sign : +1, or −1 when the test statistic falls as the outcome improves (log-rank).
     min_size : the smallest group size the analyses accept.
+    draws_words : how one replicate is drawn ("draws …"), for the method's description; None:
+        the generic words (every observation, or each group's summary statistics).
     """
 
     data_keys: tuple[str, ...]
@@ -174,6 +181,8 @@ class SimulationModel:
     planned_moments: Callable[[dict], tuple[float, float, float, float]] | None = None
     direction_sign: int = 1
     min_size: int = 2
+    # how one replicate is drawn, in words ("draws …"), when the generic words do not fit
+    draws_words: str | None = None
 
 
 @dataclass(frozen=True)
@@ -214,6 +223,10 @@ class Phrases:
     # optional q -> what a precision question estimates and the planning values it assumes
     # ("the mean, assuming a standard deviation of 20"); None: "the estimand" + assumptions
     estimand: Callable[[dict], str] | None = None
+
+    # optional record -> sentences on the cell's own answer details (the exact search's two
+    # n's, a two-stage design's stage rules), '' when there are none
+    details: Callable[[dict], str] | None = None
 
 
 @dataclass(frozen=True)
@@ -279,6 +292,9 @@ class Design:
     null_effect: Callable[[dict], float | None]
     cluster: ClusterSupport | None = None  # None: cluster randomization is not offered
     directional: bool = True  # False: the tests have no direction (F), one-sided is refused
+    # True: the design tests in one direction by construction (Simon's two-stage design): the
+    # alternative defaults to one-sided and two-sided is refused
+    one_sided_only: bool = False
     # True: the test statistic is asymptotically normal with independent increments, so the
     # question may plan interim analyses (the ``interim`` block, engine/sequential.py)
     sequential: bool = False

@@ -135,6 +135,24 @@ def _z(pooled: bool) -> Run:
     return run
 
 
+def _mn_score(streams: Streams, task: ChunkTask, rows: int):
+    """The Miettinen-Nurminen score test against the margin on the task's scale (TOST for
+    equivalence), from binomial counts."""
+    from .designs.binary_scales import score_z
+
+    c1, c2 = _counts(streams, task, rows)
+    n1, n2 = task.per_group
+    scale = task.settings.get("scale", "difference")
+    rule = task.rule
+    crit = float(stats.norm.isf(task.alpha))
+    margin = float(rule["margin"])
+    if rule.get("aim") == "equivalence":
+        lower = score_z(c1, n1, c2, n2, scale, -margin, mn=True) > crit
+        upper = score_z(c1, n1, c2, n2, scale, margin, mn=True) < -crit
+        return lower & upper, {}
+    return rule["direction"] * score_z(c1, n1, c2, n2, scale, margin, mn=True) > crit, {}
+
+
 def _fisher(streams: Streams, task: ChunkTask, rows: int):
     c1, c2 = _counts(streams, task, rows)
     n1, n2 = task.per_group
@@ -400,6 +418,9 @@ KERNELS: dict[str, Kernel] = {
     ),
     "z_unpooled": Kernel(
         _z(False), lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
+    ),
+    "mn_score": Kernel(
+        _mn_score, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),
     "fisher_exact": Kernel(
         _fisher, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True

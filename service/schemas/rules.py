@@ -126,7 +126,15 @@ def margin_aims(ctx: Context) -> None:
         )
     margin = (ctx.data.get("hypothesis") or {}).get("margin")
     solved = {f.name: f for f in ctx.design.fields}.get(ctx.design.solved)
-    if margin is not None and getattr(solved, "unit", None) == "proportion" and not abs(margin) < 1:
+    # a ratio scale (binary × two_groups, analysis_options.scale) takes a log-ratio margin
+    scale = (ctx.data.get("analysis_options") or {}).get("scale", "difference")
+    on_difference = scale in (None, "difference")
+    if (
+        margin is not None
+        and on_difference
+        and getattr(solved, "unit", None) == "proportion"
+        and not abs(margin) < 1
+    ):
         ctx.add(
             "hypothesis.margin",
             f"must be in (-1, 1) for {ctx.design.cell} (a difference of proportions); "

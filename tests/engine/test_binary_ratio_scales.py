@@ -252,3 +252,19 @@ def test_the_simulated_null_sits_on_the_ratio_margin():
     assert null[1]["p"] == pytest.approx(0.85 * 0.8)
     assert "risk ratio" in how
     assert np.isclose(bs.contrast(0.85, null[1]["p"], "risk_ratio"), math.log(0.8))
+
+
+@pytest.mark.parametrize("scale", ["difference", "risk_ratio", "odds_ratio"])
+def test_mn_sample_size_sits_on_its_power_curve_and_above_fm(scale):
+    # formula: the MN null variance is the FM one times N/(N − 1) (Miettinen & Nurminen 1985),
+    # so the MN size is the first n on its own curve and never below the FM size.
+    margin = -0.1 if scale == "difference" else math.log(0.85)
+    b = body(scale=scale, margin=margin, analysis="mn_score", alpha=0.025)
+    q = load_question(b)
+    n = answer(b)["sample_size"]["per_group"][0]
+    fm = answer(dict(b, analysis="score"))["sample_size"]["per_group"][0]
+    q_power = dict(q, find="power")
+    assert (
+        DESIGN.power(q_power, [n, n], 0.025) >= 0.8 > DESIGN.power(q_power, [n - 1, n - 1], 0.025)
+    )
+    assert fm <= n <= fm + 2

@@ -368,7 +368,7 @@ def solve_n(q: dict, alpha: float) -> Solution:
         details["restricted_mle"] = {"p_control": q1, "p_treatment": q2}
     elif analysis == "mn_score_enumerated":
         n1, details = _enumerated_n(q, p1, p2, r, alpha)
-    elif aim == "noninferiority":
+    elif aim == "noninferiority" and analysis not in SCORE_ANALYSES:
         z_a = z(1 - alpha)
         n1 = (z_a + z_b) ** 2 * (p1 * (1 - p1) + p2 * (1 - p2) / r) / (p2 - p1 - margin) ** 2
     else:
@@ -383,7 +383,9 @@ def solve_n(q: dict, alpha: float) -> Solution:
                 raise QuestionError(
                     "effect.p_treatment", "the difference is too close to the bounds to plan for"
                 )
-        n1 = root(f, 1e-6, hi)
+        # the Miettinen-Nurminen factor N/(N − 1) needs more than one subject in all
+        lo = 1.0 if analysis == "mn_score" else 1e-6
+        n1 = lo if f(lo) >= 0 else root(f, lo, hi)
     return Solution(per_group=[n1, r * n1], details=details)
 
 
@@ -704,6 +706,26 @@ def assumptions_sentence(q: dict) -> str:
     return "" if p is None else f"an event proportion of {fmt(p)} in the control group"
 
 
+def margin_words(q: dict) -> str | None:
+    """On a ratio scale, the margin as limits on the ratio (with the log the investigator
+    entered); on the difference, None (the report prints the number)."""
+    aim, margin, _ = hypothesis(q)
+    scale = _scale_value(q)
+    if scale not in ("risk_ratio", "odds_ratio") or margin is None:
+        return None
+    words = _SCALE_WORDS[scale]
+    if aim == "equivalence":
+        return (
+            f"to show equivalence within the limits {math.exp(-margin):.4g} to "
+            f"{math.exp(margin):.4g} on the {words} (treatment over control; ±{margin:.4g} on "
+            "the log scale) by two one-sided tests (TOST)"
+        )
+    return (
+        f"to show non-inferiority with a limit of {math.exp(margin):.4g} on the {words} "
+        f"(treatment over control; {margin:.4g} on the log scale)"
+    )
+
+
 def _contrast(q: dict) -> float | None:
     v = values(q, FIELDS)
     if v.get("p_treatment") is None or v.get("p_control") is None:
@@ -755,7 +777,7 @@ DESIGN = Design(
     describe=describe,
     warnings_for=warnings_for,
     simulation=SIMULATION,
-    phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence),
+    phrases=Phrases(effect=effect_sentence, assumptions=assumptions_sentence, margin=margin_words),
     example="northbridge_wound_infection.json",
     sequential=True,
     contrast=_contrast,

@@ -295,6 +295,12 @@ def effect_against_hypothesis(ctx: Context) -> None:
     solved = ctx.design.solved
     block = {f.name: f.block for f in ctx.design.fields}[solved]
     value = (q.get(block) or {}).get(solved)
+    if value is None:  # another effect form was posted (an odds ratio, group means): name it
+        for f in ctx.design.fields:
+            posted = (q.get(f.block) or {}).get(f.name)
+            if f.block == "effect" and posted is not None:
+                solved, block, value = f.name, f.block, posted
+                break
     margin = (q["hypothesis"] or {}).get("margin")
     if ctx.aim == "superiority":
         if effect == 0:

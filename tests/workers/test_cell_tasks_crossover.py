@@ -36,6 +36,14 @@ QUESTIONS = {
         "hypothesis": {"aim": "equivalence", "margin": math.log(1.25)},
         "sample_size": {"per_group": [14, 14]},
     },
+    "proportional_odds": {
+        "outcome": "ordinal",
+        "layout": "two_groups",
+        "find": "power",
+        "effect": {"odds_ratio": 1.8},
+        "assumptions": {"category_probs": [0.2, 0.3, 0.3, 0.2]},
+        "sample_size": {"per_group": [60, 60]},
+    },
     "ancova": {
         "outcome": "continuous",
         "layout": "two_groups",

@@ -1,5 +1,6 @@
 """Binary × two_groups on a ratio scale (Miettinen-Nurminen score test, exact enumerated power)
-through the API (calculations and requests), the CLI, the report and the catalogue."""
+and ordinal × two_groups under proportional odds (Whitehead) through the API (calculations and
+requests), the CLI, the report and the catalogue."""
 
 from __future__ import annotations
 
@@ -20,10 +21,15 @@ from tests.reports.reports_testkit import REQUEST
 
 ROOT = Path(__file__).resolve().parents[2]
 EXAMPLES = ROOT / "service" / "examples"
-FILES = ["northbridge_antibiotic_risk_ratio.json", "northbridge_eye_drops_odds_ratio.json"]
+FILES = [
+    "northbridge_antibiotic_risk_ratio.json",
+    "northbridge_eye_drops_odds_ratio.json",
+    "northbridge_stroke_recovery_ordinal.json",
+]
 WORDS = {
     "northbridge_antibiotic_risk_ratio.json": "limit of 0.9 on the risk ratio",
     "northbridge_eye_drops_odds_ratio.json": "limit of 0.4 on the odds ratio",
+    "northbridge_stroke_recovery_ordinal.json": "common odds ratio of 1.6",
 }
 
 
@@ -50,7 +56,7 @@ def test_ratio_example_through_api_cli_and_report(client, name):
     assert json.loads(out.stdout)["sample_size"] == record["sample_size"]
 
     text = justification(record)
-    design = designs.get("binary", "two_groups")
+    design = designs.get(question["outcome"], question["layout"])
     assert design.label in text
     assert record["method"]["analysis_label"] in text
     assert WORDS[name] in text
@@ -93,3 +99,21 @@ def test_a_ratio_scale_with_a_difference_analysis_is_a_422(client):
     r = client.post("/v1/calculations", json={"question": question})
     assert r.status_code == 422, r.get_json()
     assert "analysis_options.scale" in json.dumps(r.get_json())
+
+
+def test_catalogue_lists_the_proportional_odds_analysis(client):
+    cells = client.get("/v1/catalogue").get_json()["cells"]
+    [cell] = [c for c in cells if (c["outcome"], c["layout"]) == ("ordinal", "two_groups")]
+    dumped = json.dumps(cell)
+    for word in ("proportional_odds", "odds_ratio", "category_probs"):
+        assert word in dumped
+
+
+def test_category_probabilities_off_one_are_a_422_naming_the_field(client):
+    question = json.loads((EXAMPLES / FILES[2]).read_text())
+    question["assumptions"]["category_probs"] = [0.2, 0.2, 0.2]
+    r = client.post("/v1/calculations", json={"question": question})
+    assert r.status_code == 422
+    problem = r.get_json()
+    assert "question.assumptions.category_probs" in problem["errors"]
+    assert "sum to 1" in json.dumps(problem["errors"])

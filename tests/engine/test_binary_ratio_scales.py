@@ -268,3 +268,56 @@ def test_mn_sample_size_sits_on_its_power_curve_and_above_fm(scale):
         DESIGN.power(q_power, [n, n], 0.025) >= 0.8 > DESIGN.power(q_power, [n - 1, n - 1], 0.025)
     )
     assert fm <= n <= fm + 2
+
+
+# --- the exact unconditional test ---------------------------------------------------------------
+
+
+@pytest.mark.parametrize("tables", [(12, 15, [(2, 9), (3, 8), (5, 10), (1, 5), (0, 0)])])
+def test_unconditional_pvalues_match_scipy_barnard_exact(tables):
+    # General-purpose library: scipy.stats.barnard_exact (pooled, one-sided), Barnard's test
+    # with the pooled z ordering maximized over the nuisance proportion; at a difference of 0
+    # the MN score orders the tables the same way. scipy's table has the samples as columns.
+    n1, n2, cells = tables
+    ours = bs.unconditional_pvalues(n1, n2, "difference", 0.0, True)
+    for x1, x2 in cells:
+        ref = stats.barnard_exact(
+            [[x2, x1], [n2 - x2, n1 - x1]], alternative="greater", pooled=True, n=200
+        ).pvalue
+        # both maximize over a grid of the nuisance proportion (ours 100 points, scipy 200)
+        assert ours[x1, x2] == pytest.approx(ref, abs=2e-4), (x1, x2)
+
+
+@pytest.mark.parametrize(
+    "scale,margin", [("risk_ratio", math.log(0.8)), ("odds_ratio", math.log(0.5))]
+)
+def test_unconditional_test_keeps_alpha_on_the_null_boundary(scale, margin):
+    # formula: an exact unconditional test's size is at most alpha at every nuisance value
+    # (Suissa & Shuster 1985); checked at control proportions off the maximization grid.
+    n1, n2, alpha = 25, 30, 0.05
+    grid = bs.unconditional_reject_grid(n1, n2, scale, "noninferiority", margin, True, alpha)
+    for p1 in (0.23, 0.5, 0.77):
+        p2 = float(bs.at_bound(p1, margin, scale))
+        assert bs.enumerated_power(grid, p1, p2) <= alpha + 1e-3
+    # and it rejects no more often than the asymptotic MN test at the assumed proportions
+    asym = bs.reject_grid(n1, n2, scale, "noninferiority", margin, True, alpha)
+    assert bs.enumerated_power(grid, 0.7, 0.7) <= bs.enumerated_power(asym, 0.7, 0.7)
+
+
+def test_unconditional_sample_size_is_the_first_n_reaching_the_target():
+    b = body(scale="odds_ratio", margin=round(math.log(0.3), 4), analysis="mn_score_unconditional")
+    b["effect"] = {"p_treatment": 0.85}
+    b["assumptions"] = {"p_control": 0.85}
+    b["alpha"] = 0.025
+    record = answer(b)
+    n = record["sample_size"]["per_group"][0]
+    q = dict(load_question(b), find="power")
+    assert DESIGN.power(q, [n, n], 0.025) >= 0.8 > DESIGN.power(q, [n - 1, n - 1], 0.025)
+    assert "Suissa & Shuster" in record["method"]["reference"]
+
+
+def test_unconditional_test_refuses_groups_above_its_limit():
+    b = body(analysis="mn_score_unconditional", margin=math.log(0.9))
+    with pytest.raises(Exception) as info:
+        answer(b)
+    assert "at most 100" in str(info.value)

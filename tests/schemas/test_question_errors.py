@@ -180,7 +180,7 @@ CASES = [
         merge(PROP, **SIM, analysis="chi2"),
         "analysis",
         [
-            "pooled_z, unpooled_z, arcsine, score, mn_score, mn_score_enumerated, fisher_exact",
+            "pooled_z, unpooled_z, arcsine, score, mn_score, mn_score_enumerated, mn_score_unconditional, fisher_exact",
             '"chi2"',
         ],
     ),

@@ -13,11 +13,14 @@ enumeration call the same functions as the analytic formulas.
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from scipy import special, stats
 
 SCALES = ("difference", "risk_ratio", "odds_ratio")
 ENUMERATION_LIMIT = 200  # largest group size the exact enumeration accepts
+UNCONDITIONAL_LIMIT = 100  # largest group size of the exact unconditional test (a p per table)
 
 
 def contrast(p1, p2, scale: str):
@@ -181,3 +184,78 @@ def enumerated_power(reject: np.ndarray, p1: float, p2: float) -> float:
     f1 = stats.binom.pmf(np.arange(n1 + 1), n1, p1)
     f2 = stats.binom.pmf(np.arange(n2 + 1), n2, p2)
     return float(min(max(f1 @ reject.astype(float) @ f2, 0.0), 1.0))
+
+
+# --- the exact unconditional test -------------------------------------------------------------
+
+NUISANCE_POINTS = 100  # grid points of the nuisance (control) proportion for the maximized p
+
+
+def nuisance_grid(scale: str, bound: float, points: int = NUISANCE_POINTS) -> np.ndarray:
+    """Control proportions on the null boundary (treatment = the bound's partner in [0, 1])."""
+    if scale == "difference":
+        lo, hi = max(0.0, -bound), min(1.0, 1.0 - bound)
+    elif scale == "risk_ratio":
+        lo, hi = 0.0, min(1.0, float(np.exp(-bound)))
+    else:
+        lo, hi = 0.0, 1.0
+    # the ends are kept: the supremum of a tail probability can sit at a degenerate boundary
+    return np.linspace(lo, hi, points)
+
+
+def unconditional_pvalues(n1: int, n2: int, scale: str, bound: float, upper: bool) -> np.ndarray:
+    """Exact unconditional p-values of the one-sided MN score test of contrast = ``bound``.
+
+    For each table, the largest (over a grid of the nuisance control proportion on the null
+    boundary) probability of a table at least as extreme as it: Suissa & Shuster (1985) with the
+    score statistic's ordering (Barnard's approach; Chan 1998 for a margin). The supremum is
+    taken over ``NUISANCE_POINTS`` grid points, not found by optimization.
+    """
+    x1 = np.arange(n1 + 1)[:, None]
+    x2 = np.arange(n2 + 1)[None, :]
+    z = score_z(x1, n1, x2, n2, scale, bound, mn=True)
+    t = (z if upper else -z).ravel()
+    order = np.argsort(-t, kind="stable")
+    ts = t[order]
+    # tables tied with the observed one count as "at least as extreme"
+    last = np.searchsorted(-ts, -ts, side="right") - 1
+    grid = nuisance_grid(scale, bound)
+    best = np.zeros(t.size)
+    k1 = np.arange(n1 + 1)
+    k2 = np.arange(n2 + 1)
+    for part in np.array_split(grid, max(1, grid.size // 25)):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            q2 = at_bound(part, bound, scale)
+        # an odds ratio's boundary at p1 = 1 is p2 = 1 (the odds are infinite on both sides)
+        q2 = np.clip(np.where(np.isnan(q2), part, q2), 0.0, 1.0)
+        f1 = stats.binom.pmf(k1[None, :], n1, part[:, None])  # (g, n1 + 1)
+        f2 = stats.binom.pmf(k2[None, :], n2, q2[:, None])  # (g, n2 + 1)
+        probs = (f1[:, :, None] * f2[:, None, :]).reshape(part.size, -1)[:, order]
+        tail = np.cumsum(probs, axis=1)[:, last]
+        np.maximum(best, tail.max(axis=0), out=best)
+    out = np.empty(t.size)
+    out[order] = np.minimum(best, 1.0)
+    return out.reshape(n1 + 1, n2 + 1)
+
+
+def unconditional_reject_grid(
+    n1: int, n2: int, scale: str, aim: str, margin: float, higher: bool, alpha: float
+) -> np.ndarray:
+    """Rejection table of the exact unconditional score test (TOST for equivalence)."""
+    if aim == "noninferiority":
+        return unconditional_pvalues(n1, n2, scale, margin, higher) <= alpha
+    lower = unconditional_pvalues(n1, n2, scale, -margin, True) <= alpha
+    upper = unconditional_pvalues(n1, n2, scale, margin, False) <= alpha
+    return lower & upper
+
+
+@lru_cache(maxsize=32)
+def cached_reject_grid(
+    exact: bool, n1: int, n2: int, scale: str, aim: str, margin: float, higher: bool, alpha: float
+) -> np.ndarray:
+    """The rejection table of the asymptotic (``exact`` false) or the exact unconditional score
+    test, kept for the n search and the record's power at the same sizes (read-only)."""
+    make = unconditional_reject_grid if exact else reject_grid
+    out = make(n1, n2, scale, aim, margin, higher, alpha)
+    out.setflags(write=False)
+    return out

@@ -134,6 +134,13 @@ ANALYSES = (
         "Miettinen & Nurminen 1985; the asymptotic test's exact power by enumeration",
     ),
     Analysis(
+        "mn_score_unconditional",
+        "exact unconditional Miettinen-Nurminen score test",
+        ("analytic",),
+        MARGIN_AIMS,
+        "Suissa & Shuster 1985; Chan 1998; power by enumeration",
+    ),
+    Analysis(
         "fisher_exact",
         "Fisher's exact test",
         ("simulation",),
@@ -143,7 +150,8 @@ ANALYSES = (
 )
 _EDGE = 1e-9
 # the analyses that test on any scale (the others test a difference of proportions)
-SCORE_ANALYSES = ("score", "mn_score", "mn_score_enumerated")
+SCORE_ANALYSES = ("score", "mn_score", "mn_score_enumerated", "mn_score_unconditional")
+ENUMERATED = ("mn_score_enumerated", "mn_score_unconditional")
 
 groups = two_groups
 allocation = two_group_allocation
@@ -238,9 +246,12 @@ def _score_power(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: flo
     """
     analysis, aim, margin, higher, _ = _setup(q)
     scale = _scale_value(q)
-    if analysis == "mn_score_enumerated":
-        m1, m2 = _whole(n1), _whole(n2)
-        grid = binary_scales.reject_grid(m1, m2, scale, aim, margin, higher, alpha)
+    if analysis in ENUMERATED:
+        m1, m2 = _whole(n1, analysis), _whole(n2, analysis)
+        exact = analysis == "mn_score_unconditional"
+        grid = binary_scales.cached_reject_grid(
+            exact, m1, m2, scale, aim, float(margin), bool(higher), float(alpha)
+        )
         return binary_scales.enumerated_power(grid, p1, p2)
     z_a = z(1 - alpha)
     mn = analysis == "mn_score"
@@ -255,15 +266,22 @@ def _score_power(q: dict, p1: float, p2: float, n1: float, n2: float, alpha: flo
     return float(max(both, 0.0))
 
 
-def _whole(n: float) -> int:
-    """A group size for the enumeration: whole, at least 2, at most the enumeration limit."""
+def _limit(analysis: str) -> int:
+    if analysis == "mn_score_unconditional":
+        return binary_scales.UNCONDITIONAL_LIMIT
+    return binary_scales.ENUMERATION_LIMIT
+
+
+def _whole(n: float, analysis: str) -> int:
+    """A group size for the enumeration: whole, at least 2, at most the analysis' limit."""
     m = int(math.floor(n + 1e-9))
-    if m > binary_scales.ENUMERATION_LIMIT:
+    limit = _limit(analysis)
+    if m > limit:
         raise QuestionError(
             "analysis",
-            f"mn_score_enumerated enumerates every outcome for groups of at most "
-            f"{binary_scales.ENUMERATION_LIMIT}; this question needs {m} in a group: use "
-            "mn_score (its normal approximation is accurate at such sizes)",
+            f"{analysis} enumerates every outcome for groups of at most {limit}; this question "
+            f"needs {m} in a group: use mn_score (its normal approximation is accurate at such "
+            "sizes)",
         )
     return max(m, 2)
 
@@ -366,8 +384,8 @@ def solve_n(q: dict, alpha: float) -> Solution:
         )
         n1 = (z_a * sd0 + z_b * sd1) ** 2 / mean**2
         details["restricted_mle"] = {"p_control": q1, "p_treatment": q2}
-    elif analysis == "mn_score_enumerated":
-        n1, details = _enumerated_n(q, p1, p2, r, alpha)
+    elif analysis in ENUMERATED:
+        n1, details = _enumerated_n(q, p1, p2, r, alpha, analysis)
     elif aim == "noninferiority" and analysis not in SCORE_ANALYSES:
         z_a = z(1 - alpha)
         n1 = (z_a + z_b) ** 2 * (p1 * (1 - p1) + p2 * (1 - p2) / r) / (p2 - p1 - margin) ** 2
@@ -389,24 +407,36 @@ def solve_n(q: dict, alpha: float) -> Solution:
     return Solution(per_group=[n1, r * n1], details=details)
 
 
-def _enumerated_n(q: dict, p1: float, p2: float, r: float, alpha: float) -> tuple[float, dict]:
+def _enumerated_n(
+    q: dict, p1: float, p2: float, r: float, alpha: float, analysis: str
+) -> tuple[float, dict]:
     """The smallest whole control-group size whose enumerated power reaches the target.
 
-    Starts below the normal-approximation size of the same test and walks up one at a time (the
-    exact power is saw-toothed in n, so the first n reaching the target is reported; a larger n
-    may fall back below it).
+    Starts below the normal-approximation size of the MN test (at it for the conservative exact
+    unconditional test) and walks up one at a time (the exact power is saw-toothed in n, so the
+    first n reaching the target is reported; a larger n may fall back below it).
     """
     target = float(q["target_power"])
     approx = dict(q, analysis="mn_score")
     asym = solve_n(approx, alpha).per_group[0]
-    limit = binary_scales.ENUMERATION_LIMIT
+    limit = _limit(analysis)
+
+    def too_large() -> QuestionError:
+        return QuestionError(
+            "analysis",
+            f"{analysis} enumerates every outcome for groups of at most {limit}; this question "
+            f"needs more (the normal approximation of the score test asks about {asym:.0f} in "
+            "the control group): use mn_score",
+        )
+
     if asym > 1.5 * limit:
-        _whole(asym)  # refuses with the limit in words
-    n1 = max(2, int(0.7 * asym))
+        raise too_large()
+    start = 0.7 if analysis == "mn_score_enumerated" else 0.95
+    n1 = max(2, int(start * asym))
     while True:
         n2 = math.ceil(r * n1 - 1e-9)
         if max(n1, n2) > limit:
-            _whole(max(n1, n2))
+            raise too_large()
         if _power_at(q, p1, p2, n1, n2, alpha) >= target:
             return float(n1), {"normal_approximation_per_group": [asym, r * asym]}
         n1 += 1
@@ -485,7 +515,7 @@ def describe(q: dict) -> dict:
             if scale == "difference"
             else _ratio_margin_note(aim, margin, scale)
         ]
-        if analysis in ("mn_score", "mn_score_enumerated") or scale != "difference":
+        if analysis in ("mn_score", *ENUMERATED) or scale != "difference":
             return _score_block(analysis, label, what, scale, notes)
         if analysis == "score":
             notes.append(
@@ -577,6 +607,25 @@ def _score_block(analysis: str, label: str, what: str, scale: str, notes: list[s
             label,
             f"normal approximation with restricted-MLE variance, {what}",
             "Miettinen & Nurminen (1985), Stat Med 4:213; Farrington & Manning (1990)",
+            notes,
+            {},
+        )
+    if analysis == "mn_score_unconditional":
+        notes.append(
+            "Exact unconditional test: each table's p-value is the largest probability, over "
+            f"{binary_scales.NUISANCE_POINTS} grid points of the control proportion on the null "
+            "boundary, of a table whose score statistic is at least as extreme (Suissa & Shuster "
+            "1985; Chan 1998 against a margin); the type I error never exceeds alpha at those "
+            "points. Power is summed over every table at whole group sizes of at most "
+            f"{binary_scales.UNCONDITIONAL_LIMIT}; the answer is the first n reaching the target "
+            "(the power is saw-toothed in n)."
+        )
+        return analytic_method(
+            analysis,
+            label,
+            f"exact unconditional test, power by complete enumeration, {what}",
+            "Suissa & Shuster (1985), JRSS A 148:317; Chan (1998), Stat Med 17:1403; "
+            "Miettinen & Nurminen (1985)",
             notes,
             {},
         )

@@ -712,7 +712,19 @@ def settings(q: dict) -> dict:
 def approximate_n(plan, target: float) -> float | None:
     from ..approximate import proportions_first
 
-    return proportions_first(plan, target)
+    scale = plan.settings.get("scale", "difference")
+    if scale == "difference" or plan.rule.aim != "noninferiority":
+        return proportions_first(plan, target)
+    # a ratio margin (log scale): Farrington-Manning's size on that scale; equivalence brackets
+    p1, p2 = plan.models[0]["p"], plan.models[1]["p"]
+    w = plan.weights
+    r = w[1] / w[0] if len(w) == 2 else 1.0
+    if not (0 < p1 < 1 and 0 < p2 < 1):
+        return None
+    mean, sd1, sd0, _ = binary_scales.normal_parts(p1, p2, 1.0, r, scale, plan.rule.margin)
+    if plan.rule.direction * mean <= 0:
+        return None
+    return (z(1 - plan.alpha) * sd0 + z(target) * sd1) ** 2 / mean**2
 
 
 def implied_fields(q: dict, arms: list[dict]) -> dict:

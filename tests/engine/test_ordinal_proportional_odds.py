@@ -149,3 +149,32 @@ def test_simulated_proportional_odds_agrees_with_whitehead(odds_ratio, probs, si
     assert abs(power["estimate"] - power["analytic"]) <= 4 * power["mcse"], power
     assert record["method"]["data"]["odds_ratio"] == pytest.approx(odds_ratio)
     assert record["type_i_error"]["verdict"] in ("holds", "conservative")
+
+
+def test_detectable_odds_ratio_round_trips_through_whitehead_formula():
+    # formula: the odds ratio solved at 150 per group gives back 150 per group from Whitehead's
+    # sample-size formula (Whitehead 1993), and lower-is-better solves below 1.
+    record = answer(
+        {
+            "outcome": "ordinal",
+            "layout": "two_groups",
+            "find": "effect",
+            "sample_size": {"per_group": [150, 150]},
+            "assumptions": {"category_probs": PROBS},
+        }
+    )
+    found = record["effect"]
+    assert found["field"] == "odds_ratio" and found["value"] > 1
+    raw = DESIGN.solve_n(load_question(body(found["value"])), 0.05).per_group
+    assert raw[0] == pytest.approx(150, rel=1e-4)  # the power counts both tails
+    lower = answer(
+        {
+            "outcome": "ordinal",
+            "layout": "two_groups",
+            "find": "effect",
+            "sample_size": {"per_group": [150, 150]},
+            "assumptions": {"category_probs": PROBS},
+            "hypothesis": {"higher_is_better": False},
+        }
+    )
+    assert lower["effect"]["value"] < 1

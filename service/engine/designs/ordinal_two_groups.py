@@ -286,11 +286,7 @@ def power(q: dict, per_group: list[float], alpha: float) -> float:
 def solve_effect(q: dict, per_group: list[float], alpha: float) -> dict:
     """Return P(Y > X) nearest ½ (above unless lower is better) reaching the target power."""
     if _analysis(q) == "proportional_odds":
-        raise QuestionError(
-            "find",
-            "find = effect solves for prob_superiority with analysis rank_sum; the "
-            "proportional-odds analysis answers sample_size and power",
-        )
+        return _po_solve_effect(q, per_group, alpha)
     n1, n2 = float(per_group[0]), float(per_group[1])
     z_a = z_alpha(alpha, tails(q))
     target = float(q["target_power"])
@@ -303,13 +299,46 @@ def solve_effect(q: dict, per_group: list[float], alpha: float) -> dict:
     return {"field": "prob_superiority", "value": 0.5 + x if higher else 0.5 - x}
 
 
+def _po_solve_effect(q: dict, per_group: list[float], alpha: float) -> dict:
+    """The common odds ratio nearest 1 (above unless lower is better) reaching the target."""
+    v = values(q, FIELDS)
+    probs = [float(p) for p in v["category_probs"]]
+    n1, n2 = float(per_group[0]), float(per_group[1])
+    z_a = z_alpha(alpha, tails(q))
+    target = float(q["target_power"])
+    sign = 1.0 if hypothesis(q)[2] else -1.0
+
+    def power_of(log_or: float) -> float:
+        return normal_power(_po_shift(math.exp(sign * log_or), probs, n1, n2), z_a, tails(q))
+
+    top = 12.0  # an odds ratio of e^12: beyond it the categories no longer move
+    if power_of(top) < target:
+        raise power_unreachable("sample_size.per_group", target, per_group)
+    lo, hi = 0.0, top
+    for _ in range(200):  # bisection: the power rises with |ln OR|
+        mid = 0.5 * (lo + hi)
+        if power_of(mid) < target:
+            lo = mid
+        else:
+            hi = mid
+        if hi - lo < 1e-12:
+            break
+    return {"field": "odds_ratio", "value": math.exp(sign * hi)}
+
+
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
     analysis = _analysis(q)
     if analysis == "proportional_odds":
-        odds_ratio, probs = _po_inputs(q)
-        treated = po_treatment_probs(probs, odds_ratio)
-        shown = ", ".join(f"{p:.4g}" for p in treated)
+        if values(q, FIELDS).get("odds_ratio") is None:  # find = effect: solved for
+            implied = "Treatment category probabilities follow from the solved odds ratio."
+        else:
+            odds_ratio, probs = _po_inputs(q)
+            treated = ", ".join(f"{p:.4g}" for p in po_treatment_probs(probs, odds_ratio))
+            implied = (
+                f"Treatment category probabilities implied by the odds ratio: {treated} (lowest "
+                "first)."
+            )
         return analytic_method(
             analysis,
             DESIGN.analysis(analysis).label,
@@ -319,8 +348,7 @@ def describe(q: dict) -> dict:
                 "N = 3(z_a + z_b)² / (c(1 − c)·(ln OR)²·(1 − Σ p̄³)), c = n_control / N; "
                 "p̄ the category probabilities averaged over the two groups (weighted by the "
                 "allocation).",
-                f"Treatment category probabilities implied by the odds ratio: {shown} (lowest "
-                "first).",
+                implied,
                 "The score test of the proportional-odds model at OR = 1 is the rank-sum test on "
                 "the categories with tied ranks averaged; the simulation uses that tie-corrected "
                 "rank-sum z.",
@@ -470,6 +498,8 @@ SIMULATION = SimulationModel(
 
 def effect_sentence(q: dict, record: dict | None) -> str:
     odds_ratio = values(q, FIELDS).get("odds_ratio")
+    if odds_ratio is None and values(q, FIELDS).get("category_probs") is not None:
+        odds_ratio = stated_effect(q, record, FIELDS, "odds_ratio")
     if odds_ratio is not None:
         return (
             f"a common odds ratio of {fmt(odds_ratio)} (treatment over control) for a response "

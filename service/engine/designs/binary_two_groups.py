@@ -1,7 +1,7 @@
 """Binary outcome, two groups: pooled and unpooled z, Fleiss continuity correction, arcsine (h),
 the Farrington-Manning and Miettinen-Nurminen score tests against a margin on the difference,
-risk-ratio or odds-ratio scale (the latter also with its power by exact enumeration), and Fisher's
-exact test by simulation.
+risk-ratio or odds-ratio scale (Miettinen-Nurminen also with its power by exact enumeration, and
+as an exact unconditional test), and Fisher's exact test by simulation.
 
 On a ratio scale (``analysis_options.scale``) the effect is still stated by ``p_treatment`` and
 ``p_control`` (the ratio is implied by them) and ``hypothesis.margin`` is the natural log of the
@@ -161,8 +161,8 @@ validate = make_validate(FIELDS, FORMS, "p_treatment", ("p_control", "p_treatmen
 
 
 def default_analysis(q: dict) -> str:
-    """pooled_z for superiority; against a margin the score test (its Wald form when simulated,
-    as the score test is not simulated)."""
+    """pooled_z for superiority; against a margin the Farrington-Manning score test (simulated:
+    the Wald test on the difference, the Miettinen-Nurminen score test on a ratio scale)."""
     if hypothesis(q)[0] == "superiority":
         return "pooled_z"
     if q.get("method") == "simulation":

@@ -91,6 +91,25 @@ def _rank_sum(streams: Streams, task: ChunkTask, rows: int):
     return vectests.decide(vectests.rank_sum_z(x, y), 1.0, None, task.alpha, task.rule), {}
 
 
+def _po_rank_sum(streams: Streams, task: ChunkTask, rows: int):
+    """Ordinal categories under proportional odds, tested by the tie-corrected rank-sum z.
+
+    Each subject's uniform u is a latent logistic variable logit(u) + s (s = ln OR in the
+    treatment group, the model's ``shift``); its category is the number of control cumulative
+    probabilities below the control CDF at that latent value, u·e^s / (1 − u + u·e^s).
+    """
+    cum = np.asarray(task.settings["category_cumulative"], dtype=float)
+    cats = []
+    for i, (model, n) in enumerate(zip(task.models, task.per_group, strict=True)):
+        base = {k: v for k, v in model.items() if k != "shift"}
+        u = streams.raw(i, base, n, rows)
+        e = math.exp(float(model.get("shift", 0.0)))
+        level = u * e / (1.0 - u + u * e)
+        cats.append(np.searchsorted(cum, level, side="left").astype(np.float64))
+    z = vectests.rank_sum_z(cats[0], cats[1])
+    return vectests.decide(z, 1.0, None, task.alpha, task.rule), {}
+
+
 def _signed_rank(streams: Streams, task: ChunkTask, rows: int):
     d = streams.raw(0, task.models[0], task.per_group[0], rows)
     return vectests.decide(vectests.signed_rank_z(d), 1.0, None, task.alpha, task.rule), {}
@@ -133,6 +152,24 @@ def _z(pooled: bool) -> Run:
         return vectests.decide(est, se, None, task.alpha, task.rule), {}
 
     return run
+
+
+def _mn_score(streams: Streams, task: ChunkTask, rows: int):
+    """The Miettinen-Nurminen score test against the margin on the task's scale (TOST for
+    equivalence), from binomial counts."""
+    from .designs.binary_scales import score_z
+
+    c1, c2 = _counts(streams, task, rows)
+    n1, n2 = task.per_group
+    scale = task.settings.get("scale", "difference")
+    rule = task.rule
+    crit = float(stats.norm.isf(task.alpha))
+    margin = float(rule["margin"])
+    if rule.get("aim") == "equivalence":
+        lower = score_z(c1, n1, c2, n2, scale, -margin, mn=True) > crit
+        upper = score_z(c1, n1, c2, n2, scale, margin, mn=True) < -crit
+        return lower & upper, {}
+    return rule["direction"] * score_z(c1, n1, c2, n2, scale, margin, mn=True) > crit, {}
 
 
 def _fisher(streams: Streams, task: ChunkTask, rows: int):
@@ -690,6 +727,7 @@ KERNELS: dict[str, Kernel] = {
     "t_one_sample": Kernel(_one_sample_t, _moment_draws, _raw_bytes(4), summaries=True),
     "f_test": Kernel(_f_test, _moment_draws, _raw_bytes(4), summaries=True),
     "rank_sum": Kernel(_rank_sum, _raw_draws, _raw_bytes(10), summaries=False),
+    "po_rank_sum": Kernel(_po_rank_sum, _raw_draws, _raw_bytes(10), summaries=False),
     "signed_rank": Kernel(_signed_rank, _raw_draws, _raw_bytes(10), summaries=False),
     "kruskal_wallis": Kernel(_kruskal_wallis, _raw_draws, _raw_bytes(10), summaries=False),
     "z_pooled": Kernel(
@@ -697,6 +735,9 @@ KERNELS: dict[str, Kernel] = {
     ),
     "z_unpooled": Kernel(
         _z(False), lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
+    ),
+    "mn_score": Kernel(
+        _mn_score, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True
     ),
     "fisher_exact": Kernel(
         _fisher, lambda t: len(t.per_group), _raw_bytes(10), True, always_summaries=True

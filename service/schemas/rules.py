@@ -135,7 +135,15 @@ def margin_aims(ctx: Context) -> None:
         )
     margin = (ctx.data.get("hypothesis") or {}).get("margin")
     solved = {f.name: f for f in ctx.design.fields}.get(ctx.design.solved)
-    if margin is not None and getattr(solved, "unit", None) == "proportion" and not abs(margin) < 1:
+    # a ratio scale (binary × two_groups, analysis_options.scale) takes a log-ratio margin
+    scale = (ctx.data.get("analysis_options") or {}).get("scale", "difference")
+    on_difference = scale in (None, "difference")
+    if (
+        margin is not None
+        and on_difference
+        and getattr(solved, "unit", None) == "proportion"
+        and not abs(margin) < 1
+    ):
         ctx.add(
             "hypothesis.margin",
             f"must be in (-1, 1) for {ctx.design.cell} (a difference of proportions); "
@@ -387,6 +395,12 @@ def effect_against_hypothesis(ctx: Context) -> None:
     solved = ctx.design.solved
     block = {f.name: f.block for f in ctx.design.fields}[solved]
     value = (q.get(block) or {}).get(solved)
+    if value is None:  # another effect form was posted (an odds ratio, group means): name it
+        for f in ctx.design.fields:
+            posted = (q.get(f.block) or {}).get(f.name)
+            if f.block == "effect" and posted is not None:
+                solved, block, value = f.name, f.block, posted
+                break
     margin = (q["hypothesis"] or {}).get("margin")
     if ctx.aim == "superiority":
         if effect == 0:

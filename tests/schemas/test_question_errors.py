@@ -179,7 +179,10 @@ CASES = [
         "analysis-unknown",
         merge(PROP, **SIM, analysis="chi2"),
         "analysis",
-        ["pooled_z, unpooled_z, arcsine, score, fisher_exact", '"chi2"'],
+        [
+            "pooled_z, unpooled_z, arcsine, score, mn_score, mn_score_enumerated, mn_score_unconditional, fisher_exact",
+            '"chi2"',
+        ],
     ),
     (
         "analysis-not-by-the-method",

@@ -36,6 +36,14 @@ QUESTIONS = {
         "hypothesis": {"aim": "equivalence", "margin": math.log(1.25)},
         "sample_size": {"per_group": [14, 14]},
     },
+    "proportional_odds": {
+        "outcome": "ordinal",
+        "layout": "two_groups",
+        "find": "power",
+        "effect": {"odds_ratio": 1.8},
+        "assumptions": {"category_probs": [0.2, 0.3, 0.3, 0.2]},
+        "sample_size": {"per_group": [60, 60]},
+    },
     "ancova": {
         "outcome": "continuous",
         "layout": "two_groups",
@@ -63,3 +71,30 @@ def test_a_simulated_request_of_a_new_design_is_computed_by_the_worker(
     assert (
         record["reproducibility"]["record_sha256"] == expected["reproducibility"]["record_sha256"]
     )
+
+
+def test_a_simulated_ratio_scale_request_is_computed_by_the_worker(sqlite_config, factory):
+    question = load_question(
+        {
+            "outcome": "binary",
+            "layout": "two_groups",
+            "find": "power",
+            "analysis": "mn_score",
+            "alternative": "one-sided",
+            "effect": {"p_treatment": 0.85},
+            "assumptions": {"p_control": 0.85},
+            "analysis_options": {"scale": "risk_ratio"},
+            "hypothesis": {"aim": "noninferiority", "margin": math.log(0.9)},
+            "sample_size": {"per_group": [150, 150]},
+            "method": "simulation",
+            "simulation": SIM,
+        }
+    )
+    request_id = insert_request(factory, question)
+    assert tasks.run_request_job(request_id, sqlite_config) == "computed"
+    with session_scope(factory) as session:
+        [result] = session.scalars(select(Result).where(Result.request_id == request_id))
+        record = result.record
+    expected = compute(question)
+    assert record["power"] == expected["power"]
+    assert record["method"]["analysis"] == "mn_score"

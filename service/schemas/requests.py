@@ -95,7 +95,9 @@ class QuestionField(fields.Dict):
         try:
             return load_question(raw)
         except QuestionInvalid as exc:
-            raise ValidationError(exc.errors) from None
+            # Nested relative to the question, so each error lands at its own path under the
+            # member (question.effect.sd; the question's own at question).
+            raise ValidationError(exc.messages) from None
 
 
 class ProtocolSchema(StrictSchema):

@@ -69,7 +69,7 @@ READERS = frozenset({INTAKE, STATISTICIAN, AUDITOR})
 SUBMITTERS = frozenset({INTAKE, STATISTICIAN})
 REVIEWERS = frozenset({STATISTICIAN})
 
-PUBLIC = frozenset({"health.healthz", "health.readyz"})
+PUBLIC = frozenset({"health.healthz", "health.readyz", "openapi.openapi_json"})
 # endpoint -> roles allowed; intake's reads are further limited to its own requests.
 ACCESS: dict[str, frozenset[str]] = {
     "openapi.openapi_json": ANY_ROLE,

@@ -30,13 +30,9 @@ from statsmodels.stats.power import TTestIndPower
 pytestmark = pytest.mark.slow
 
 BIN = Path(sys.executable).parent
-# The generator has no reader for image bodies; it is told to treat them as bytes. This is the
-# only setting it is given (the package name and everything else come from the document).
-GENERATOR_CONFIG = """\
-content_type_overrides:
-  image/png: application/octet-stream
-  image/svg+xml: application/octet-stream
-"""
+# The generator's one setting: how to read the curves' image bodies (it reads JSON, text and
+# bytes only). The package name and everything else come from the document.
+GENERATOR_CONFIG = Path(__file__).resolve().parents[1] / "api" / "openapi_client_config.yaml"
 
 # Invented Northbridge General Hospital studies.
 PROTOCOL = {"id": f"NGH-OAPI-{uuid.uuid4().hex[:6]}", "title": "Heart-failure nurse calls"}
@@ -73,7 +69,6 @@ def sdk(live_service, tmp_path_factory):
         assert reply.headers.get_content_type() == "application/json"
         document = json.loads(reply.read())
     (folder / "openapi.json").write_text(json.dumps(document))
-    (folder / "config.yaml").write_text(GENERATOR_CONFIG)
     done = subprocess.run(
         [
             str(BIN / "openapi-python-client"),
@@ -81,7 +76,7 @@ def sdk(live_service, tmp_path_factory):
             "--path",
             str(folder / "openapi.json"),
             "--config",
-            str(folder / "config.yaml"),
+            str(GENERATOR_CONFIG),
             "--output-path",
             str(folder / "client"),
             "--fail-on-warning",
@@ -105,11 +100,9 @@ def sdk(live_service, tmp_path_factory):
     sys.path.insert(0, str(folder / "client"))
     try:
         yield SimpleNamespace(
-            name=package,
             root=importlib.import_module(package),
             op=lambda name: importlib.import_module(operations[name]),
             models=importlib.import_module(f"{package}.models"),
-            types=importlib.import_module(f"{package}.types"),
         )
     finally:
         sys.path.remove(str(folder / "client"))
@@ -131,13 +124,13 @@ def _clients(sdk, live_service) -> SimpleNamespace:
     )
 
 
-def _body(sdk, question: dict, **extra):
+def _body(sdk, question: dict):
     models = sdk.models
     return models.RequestCreate(
         protocol=models.Protocol(**PROTOCOL),
         requester=models.Requester(**REQUESTER),
-        question=models.Question.from_dict(question),
-        **extra,
+        # One question type per cell (outcome × layout), as the document names them.
+        question=models.QuestionContinuousTwoGroups.from_dict(question),
     )
 
 
@@ -174,6 +167,12 @@ def test_an_integrator_drives_the_flow_with_a_generated_client(sdk, live_service
     )
     assert again.status_code == 200, again.content
     assert again.parsed.id == request.id
+    # The same key with another body is refused, naming the header.
+    other = op("requests_submit_request").sync_detailed(
+        client=c.office, body=_body(sdk, ANALYTIC), idempotency_key=key
+    )
+    assert other.status_code == 422, other.content
+    assert "headers.Idempotency-Key" in other.parsed.errors.to_dict()
 
     # -- poll until computed, then read the typed result --------------------------------
     def detail():

@@ -23,7 +23,7 @@ EVERYONE = {INT, S, A, ADM}
 MATRIX: dict[tuple[str, str], set[str] | None] = {
     ("GET", "/healthz"): None,
     ("GET", "/readyz"): None,
-    ("GET", "/openapi.json"): EVERYONE,
+    ("GET", "/openapi.json"): None,  # public: a client generator reads it by URL (issue 16)
     ("GET", "/v1/catalogue"): EVERYONE,
     ("GET", "/v1/catalogue/question.schema.json"): EVERYONE,
     ("GET", "/v1/catalogue/request.schema.json"): EVERYONE,

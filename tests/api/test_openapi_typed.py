@@ -259,8 +259,9 @@ def test_conflicts_rate_limits_and_idempotency_are_documented(document):
     ][0]
     assert "not be before submitted_from" in submitted_to["description"]
     token = schemas["TokenCreate"]
-    assert token["required"] == ["role"] and "named after its role" in (
-        token["properties"]["name"]["description"]
+    assert (
+        token["required"] == ["role"]
+        and "named after its role" in (token["properties"]["name"]["description"])
     )
 
 

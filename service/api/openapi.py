@@ -10,7 +10,7 @@ from apispec import APISpec
 from apispec.ext.marshmallow import MarshmallowPlugin
 from apispec.ext.marshmallow.common import resolve_schema_cls
 from flask import Blueprint, Flask, current_app, jsonify
-from marshmallow import Schema
+from marshmallow import Schema, fields
 
 from service.schemas import register_openapi_types
 from service.schemas.api import ProblemSchema
@@ -220,6 +220,7 @@ def build_spec(app: Flask) -> dict:
         },
     )
     register_openapi_types(plugin)  # needs the converter that APISpec's init just made
+    plugin.map_to_openapi_type(fields.Url, "string", "uri")  # JSON Schema's name for a URL
     spec.components.schema("Problem", schema=ProblemSchema)
     # The question is generated from the designs' declarations (OpenAPI 3.1 schemas are JSON
     # Schema 2020-12), not from QuestionSchema's fields, whose cell blocks are open objects.
@@ -416,6 +417,9 @@ def _extend(document: dict) -> None:
             extra["required"] = required
         keep = {k: v for k, v in whole.items() if k in ("description", "title")}
         schemas[full] = {**keep, "allOf": [{"$ref": SCHEMAS + summary}, extra]}
+        # A closed summary would refuse the members the full object adds (allOf checks each
+        # part on the whole body): answers are open, a client ignores what it does not know.
+        schemas[summary].pop("additionalProperties", None)
 
 
 def _flat(schemas: dict, name: str) -> dict:

@@ -331,8 +331,8 @@ class ReportLinkSchema(StrictSchema):
     url = fields.Url(
         required=True,
         metadata={
-            "description": "Absolute URL of the report page with the signed link as its ``link`` "
-            "query parameter; the same ``link`` value opens curve.svg and curve.png."
+            "description": "Absolute URL of the report page with the signed link as its `link` "
+            "query parameter; the same `link` value opens curve.svg and curve.png."
         },
     )
     expires_at = fields.AwareDateTime(required=True)

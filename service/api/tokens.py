@@ -130,7 +130,7 @@ def issue_token(role: str, name: str) -> dict:
             token_id, secret = store.create_token(session, role, name, actor=_actor())
             body = _render(store.get_token(session, token_id))
     except store.TokenInputError as exc:
-        raise ValidationFailed(str(exc), errors={exc.field: [str(exc)]}) from None
+        raise ValidationFailed(str(exc), errors={exc.field: [exc.message]}) from None
     body["token"] = secret
     return body
 

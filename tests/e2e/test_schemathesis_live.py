@@ -8,14 +8,13 @@ document: no 5xx, a documented status, content type, headers and body schema, 40
 token, 405 for methods the path does not have. Half the positive cases of an operation with a
 ``request_id`` in its path use a real computed request, so success answers are checked too.
 
-Bounded by ``MAX_EXAMPLES`` per operation and mode (derandomized, no shrinking) and a wall
-clock budget for the whole walk, so it stays within a few minutes on the CI machine.
+Bounded by ``MAX_EXAMPLES`` per operation and mode (derandomized, no shrinking): about 750
+calls, a minute or two on the CI machine.
 """
 
 from __future__ import annotations
 
 import json
-import time
 from urllib.request import Request, urlopen
 
 import pytest
@@ -29,9 +28,6 @@ from schemathesis.generation import GenerationMode
 pytestmark = pytest.mark.slow
 
 MAX_EXAMPLES = 10
-# The whole walk stops starting new operations after this many seconds (the CI machine is a
-# loaded two-core box); the operations it reached are all reported.
-BUDGET_SECONDS = 150
 
 # An invented Northbridge General Hospital study, answered at submission (analytic).
 VALID_REQUEST = {
@@ -117,11 +113,8 @@ def test_every_operation_keeps_to_the_document(api_schema, live_service, compute
     # walked here; every failing operation is reported, not only the first.
     failures: dict[str, str] = {}
     tested: list[str] = []
-    started = time.monotonic()
     for result in api_schema.get_all_operations():
         operation = result.ok()
-        if time.monotonic() - started > BUDGET_SECONDS:
-            break
         tested.append(operation.label)
         for mode in (GenerationMode.POSITIVE, GenerationMode.NEGATIVE):
             try:
@@ -133,5 +126,5 @@ def test_every_operation_keeps_to_the_document(api_schema, live_service, compute
                 failures[f"{operation.label} [{mode.value}]"] = f"{type(exc).__name__}: {exc}"[
                     :3000
                 ]
-    assert len(tested) >= 20, f"only {len(tested)} operations reached: {tested}"
+    assert len(tested) >= 30, f"only {len(tested)} operations in the document: {tested}"
     assert not failures, "\n\n".join(f"{label}\n{text}" for label, text in failures.items())

@@ -293,8 +293,6 @@ class Obj(fields.Nested):
 # Base schema: unknown keys are refused with the list of allowed ones
 
 
-
-
 def posted(original: Any, name: str) -> bool:
     """True when ``name`` was posted with a non-null value."""
     return isinstance(original, Mapping) and original.get(name) is not None

@@ -6,6 +6,7 @@ from flask import Blueprint, jsonify
 from marshmallow import Schema, fields
 
 from service.bundle.export import build_bundle
+from service.schemas.records import ResultRecordSchema
 from service.store import requests as store
 from service.store.db import session_scope
 
@@ -30,10 +31,14 @@ class AuditBundleSchema(Schema):
     exported_at = fields.String(required=True)
     request = fields.Dict(required=True)
     submission = fields.Dict(required=True, metadata={"description": "The request as submitted."})
-    question = fields.Dict(required=True, metadata={"description": "The normalized question."})
+    question = fields.Dict(
+        required=True, metadata={"description": "The normalized question.", "x-question": True}
+    )
     seed = fields.Integer(allow_none=True)
     seed_scheme = fields.Dict(required=True)
-    record = fields.Dict(required=True, metadata={"description": "The stored result record."})
+    record = fields.Nested(
+        ResultRecordSchema, required=True, metadata={"description": "The stored result record."}
+    )
     record_sha256 = fields.String(required=True)
     environment = fields.Dict(required=True)
     audit = fields.Dict(

@@ -34,6 +34,7 @@ from service.store.models import (
 from .auth import LINK_ENDPOINTS, LINK_PARAM, PAGES_PREFIX, PUBLIC
 from .docs import Operation, operation
 from .errors import PROBLEM_MEDIA_TYPE
+from .webhooks import EVENTS as WEBHOOK_EVENTS
 
 bp = Blueprint("openapi", __name__)
 
@@ -49,6 +50,7 @@ ENUM_NAMES: dict[str, tuple] = {
     "ExplorationType": tuple(EXPLORATION_TYPES),
     "TokenRole": tuple(TOKEN_ROLES),
     "DeliveryStatus": tuple(MESSAGE_STATUSES),
+    "WebhookEvent": tuple(WEBHOOK_EVENTS),
     "Family": tuple(FAMILIES),
     "QuestionBlock": tuple(BLOCKS),
     "DeclaredFieldType": DECLARED_TYPES,

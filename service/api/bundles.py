@@ -6,7 +6,6 @@ from flask import Blueprint, jsonify
 from marshmallow import Schema, fields
 
 from service.bundle.export import build_bundle
-from service.schemas.records import ResultRecordSchema
 from service.store import requests as store
 from service.store.db import session_scope
 
@@ -36,8 +35,9 @@ class AuditBundleSchema(Schema):
     )
     seed = fields.Integer(allow_none=True)
     seed_scheme = fields.Dict(required=True)
-    record = fields.Nested(
-        ResultRecordSchema, required=True, metadata={"description": "The stored result record."}
+    record = fields.Dict(
+        required=True,
+        metadata={"description": "The stored result record.", "x-component": "ResultRecord"},
     )
     record_sha256 = fields.String(required=True)
     environment = fields.Dict(required=True)

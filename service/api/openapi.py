@@ -17,6 +17,7 @@ from service.schemas.api import ProblemSchema
 from service.schemas.catalogue import DECLARED_TYPES, JSON_TYPES
 from service.schemas.data_models import FAMILIES
 from service.schemas.json_schema import camel, question_components
+from service.schemas.records import ResultRecordSchema
 from service.schemas.requests import (
     IDEMPOTENCY_DESCRIPTION,
     RobustnessPanelCreateSchema,
@@ -34,6 +35,7 @@ from service.store.models import (
 from .auth import LINK_ENDPOINTS, LINK_PARAM, PAGES_PREFIX, PUBLIC
 from .docs import Operation, operation
 from .errors import PROBLEM_MEDIA_TYPE
+from .webhooks import EVENTS as WEBHOOK_EVENTS
 
 bp = Blueprint("openapi", __name__)
 
@@ -49,6 +51,7 @@ ENUM_NAMES: dict[str, tuple] = {
     "ExplorationType": tuple(EXPLORATION_TYPES),
     "TokenRole": tuple(TOKEN_ROLES),
     "DeliveryStatus": tuple(MESSAGE_STATUSES),
+    "WebhookEvent": tuple(WEBHOOK_EVENTS),
     "Family": tuple(FAMILIES),
     "QuestionBlock": tuple(BLOCKS),
     "DeclaredFieldType": DECLARED_TYPES,
@@ -226,6 +229,7 @@ def build_spec(app: Flask) -> dict:
     # Schema 2020-12), not from QuestionSchema's fields, whose cell blocks are open objects.
     for name, component in question_components().items():
         spec.components.schema(name, component=component)
+    spec.components.schema("ResultRecord", schema=ResultRecordSchema)
     spec.components.schema("SensitivityGridCreate", schema=SensitivityGridCreateSchema)
     spec.components.schema("RobustnessPanelCreate", schema=RobustnessPanelCreateSchema)
     spec.components.security_scheme(
@@ -277,17 +281,21 @@ def build_spec(app: Flask) -> dict:
 
 
 def _link_questions(document: dict) -> None:
-    """Point every member that holds a question at the generated Question component."""
+    """Point every member that holds a question at the generated Question component, and each
+    member sent unchanged (``x-component``, e.g. a stored record) at the component it is."""
     for component in document.get("components", {}).get("schemas", {}).values():
         for name, member in (component.get("properties") or {}).items():
-            if isinstance(member, dict) and member.get("x-question"):
-                ref = {"$ref": SCHEMAS + "Question"}
+            if not isinstance(member, dict):
+                continue
+            target = "Question" if member.get("x-question") else member.get("x-component")
+            if target:
+                ref = {"$ref": SCHEMAS + target}
                 typed: dict = ref
                 if "null" in (member.get("type") or ()):
                     typed = {"anyOf": [ref, {"type": "null"}]}
                 component["properties"][name] = {
                     **typed,
-                    "description": member.get("description", "The question."),
+                    "description": member.get("description", f"The {target}."),
                 }
 
 

@@ -234,6 +234,7 @@ def question_components() -> dict[str, dict]:
     cell is named by two members, so no single-member discriminator applies: a client tells
     the variants apart by the ``outcome`` and ``layout`` constants.
     """
+    from .catalogue import example
     from .question import QuestionSchema
 
     whole = question_json_schema()
@@ -302,6 +303,9 @@ def question_components() -> dict[str, dict]:
             "properties": props,
             "description": f"A question on {design.label} ({design.outcome} × {design.layout}).",
         }
+        shown = example(design)
+        if shown is not None:  # the catalogue's example of the cell, a complete question
+            out[f"Question{cell}"]["examples"] = [shown]
         variants.append(_ref(f"Question{cell}"))
     out["Question"] = {
         "oneOf": variants,

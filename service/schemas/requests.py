@@ -376,11 +376,13 @@ class RerunItemSchema(RerunLatestSchema):
 class RerunSchema(RerunItemSchema):
     """A rerun: the stored question recomputed and compared with the original record."""
 
-    record = fields.Nested(
-        "ResultRecordSchema",
+    record = fields.Dict(
         required=True,
         allow_none=True,
-        metadata={"description": "The recomputed record; null until done."},
+        metadata={
+            "description": "The recomputed record; null until done.",
+            "x-component": "ResultRecord",
+        },
     )
 
 
@@ -443,11 +445,15 @@ class RequestSchema(RequestSummarySchema):
     question_submitted = fields.Dict(
         required=True, metadata={"description": "The question as posted.", "x-question": True}
     )
-    result = fields.Nested(
-        "ResultRecordSchema",
+    # Sent unchanged (a Dict, not Nested: dumping through the record's schema would drop the
+    # members it does not declare); the document shows it as the ResultRecord component.
+    result = fields.Dict(
         required=True,
         allow_none=True,
-        metadata={"description": "The engine's result record, unchanged; null until computed."},
+        metadata={
+            "description": "The engine's result record, unchanged; null until computed.",
+            "x-component": "ResultRecord",
+        },
     )
     history = fields.List(fields.Nested(AuditEventSchema), required=True)
     reruns = fields.Nested(RerunSummarySchema, required=True)

@@ -288,6 +288,26 @@ def test_live_answers_match_the_document(api, client, document):
     link = api.post(f"/v1/requests/{body['id']}/report-links").get_json()
     assert _errors(document, "ReportLink", link) == []
     assert link["url"].startswith("http")
+    grid = {"type": "sensitivity_grid", "grid": {"effect.difference": [0.4, 0.5]}}
+    exploration = api.post(f"/v1/requests/{request_id}/explorations", grid)
+    assert exploration.status_code == 202
+    assert _errors(document, "Exploration", exploration.get_json()) == []
+    listed = client.get(f"/v1/requests/{request_id}/explorations").get_json()
+    assert _errors(document, "ExplorationList", listed) == []
+    comment = api.post(f"/v1/requests/{request_id}/comments", {"text": "SD from the audit."})
+    assert _errors(document, "AuditEvent", comment.get_json()) == []
+    rerun = api.post(f"/v1/requests/{request_id}/reruns", role="auditor")
+    assert rerun.status_code == 202
+    assert _errors(document, "Rerun", rerun.get_json()) == []
+    reruns = client.get(f"/v1/requests/{request_id}/reruns").get_json()
+    assert _errors(document, "RerunList", reruns) == []
+    bundle = client.get(f"/v1/requests/{request_id}/bundle").get_json()
+    assert _errors(document, "AuditBundle", bundle) == []
+    deliveries = client.get(f"/v1/requests/{request_id}/deliveries").get_json()
+    assert _errors(document, "DeliveryList", deliveries) == []
+    refused = api.post(f"/v1/requests/{request_id}/cancel")
+    assert refused.status_code == 409 and refused.get_json()["allowed_from"]
+    assert _errors(document, "Problem", refused.get_json()) == []
 
 
 def test_a_token_posted_without_a_name_is_named_after_its_role(client, auth):

@@ -2,7 +2,8 @@
 
 Every endpoint is listed in ``ACCESS`` with the roles allowed on it; a route missing from the
 table is refused for every role (fail closed), and a test walks ``app.url_map`` so a new route
-without an entry fails. Only the probes in ``PUBLIC`` need no token.
+without an entry fails. Only the probes and the OpenAPI document (``PUBLIC``) need no token:
+a client generator fetches the document before it has one.
 
 A browser cannot send a bearer header, so a reader may ask for a signed report link
 (``?link=<request id>.<expiry>.<HMAC-SHA256>``, valid 24 h); it opens only the three
@@ -30,6 +31,7 @@ import math
 import os
 import re
 import secrets
+import tempfile
 import threading
 import time
 from datetime import UTC, datetime, timedelta
@@ -69,10 +71,9 @@ READERS = frozenset({INTAKE, STATISTICIAN, AUDITOR})
 SUBMITTERS = frozenset({INTAKE, STATISTICIAN})
 REVIEWERS = frozenset({STATISTICIAN})
 
-PUBLIC = frozenset({"health.healthz", "health.readyz"})
+PUBLIC = frozenset({"health.healthz", "health.readyz", "openapi.openapi_json"})
 # endpoint -> roles allowed; intake's reads are further limited to its own requests.
 ACCESS: dict[str, frozenset[str]] = {
-    "openapi.openapi_json": ANY_ROLE,
     "calculations.catalogue": ANY_ROLE,
     "calculations.question_schema": ANY_ROLE,
     "calculations.request_schema": ANY_ROLE,
@@ -264,14 +265,18 @@ def link_key(config: dict[str, Any]) -> bytes:
     folder = var_folder()
     path = folder / LINK_KEY_FILE
     folder.mkdir(mode=0o700, parents=True, exist_ok=True)
-    try:
-        # O_EXCL: of several processes starting at once exactly one writes the key; all read it.
-        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
-    except FileExistsError:
-        pass
-    else:
-        with os.fdopen(fd, "w") as handle:
-            handle.write(secrets.token_hex(32))
+    if not path.exists():
+        # Written whole under a private name, then linked in place: of several processes
+        # starting at once exactly one key wins, and none reads a file still being written.
+        fd, draft = tempfile.mkstemp(prefix=f".{LINK_KEY_FILE}.", dir=folder)
+        try:
+            with os.fdopen(fd, "w") as handle:
+                handle.write(secrets.token_hex(32))
+            os.link(draft, path)
+        except FileExistsError:
+            pass
+        finally:
+            os.unlink(draft)
     return path.read_text().strip().encode("utf-8")
 
 

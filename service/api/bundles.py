@@ -30,10 +30,15 @@ class AuditBundleSchema(Schema):
     exported_at = fields.String(required=True)
     request = fields.Dict(required=True)
     submission = fields.Dict(required=True, metadata={"description": "The request as submitted."})
-    question = fields.Dict(required=True, metadata={"description": "The normalized question."})
+    question = fields.Dict(
+        required=True, metadata={"description": "The normalized question.", "x-question": True}
+    )
     seed = fields.Integer(allow_none=True)
     seed_scheme = fields.Dict(required=True)
-    record = fields.Dict(required=True, metadata={"description": "The stored result record."})
+    record = fields.Dict(
+        required=True,
+        metadata={"description": "The stored result record.", "x-component": "ResultRecord"},
+    )
     record_sha256 = fields.String(required=True)
     environment = fields.Dict(required=True)
     audit = fields.Dict(

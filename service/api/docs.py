@@ -15,7 +15,8 @@ class Operation:
     summary: str
     tag: str
     status: int
-    response: type[Schema] | Schema | None
+    # A marshmallow schema, a plain JSON Schema dict, or None (a body described by media_type).
+    response: type[Schema] | Schema | dict | None
     description: str = ""
     body: type[Schema] | None = None
     body_required: bool = True

@@ -7,7 +7,12 @@ from typing import Any
 from flask import has_request_context
 from sqlalchemy.orm import Session
 
-from service.schemas.requests import AuditEventSchema, RequestSchema, RerunSchema
+from service.schemas.requests import (
+    AuditEventSchema,
+    RequestSchema,
+    RequestSummarySchema,
+    RerunSchema,
+)
 from service.store import explorations as exploration_store
 from service.store import requests as store
 from service.store.models import Request, Rerun
@@ -16,9 +21,7 @@ from .links import link
 from .pagination import page_body
 
 _DETAIL = RequestSchema()
-_SUMMARY = RequestSchema(
-    exclude=("result", "history", "question_submitted", "reruns", "explorations")
-)
+_SUMMARY = RequestSummarySchema()
 _RERUN = RerunSchema()
 _EVENT = AuditEventSchema()
 

@@ -29,9 +29,12 @@ class TokenCreateSchema(StrictSchema):
 
     role = fields.String(required=True, validate=one_of(TOKEN_ROLES))
     name = fields.String(
-        required=True,
         validate=length(1, store.NAME_MAX),
-        metadata={"description": "Who holds the token; recorded as the actor in the audit trail."},
+        metadata={
+            "description": "Who holds the token; recorded as the actor in the audit trail. "
+            "Optional: without it the token is named after its role, as `sizewise tokens "
+            "create` names one without --name."
+        },
     )
 
 
@@ -84,7 +87,8 @@ def create_token():
     """Create a token of the posted role and return it with its secret."""
     reject_query()
     _raw, data = load_body(TokenCreateSchema())
-    body = issue_token(data["role"], data["name"])
+    # As the command line: a token posted without a name is named after its role.
+    body = issue_token(data["role"], data.get("name") or data["role"])
     response = jsonify(body)
     response.status_code = 201
     # The secret must not linger in caches or proxies.
@@ -126,7 +130,7 @@ def issue_token(role: str, name: str) -> dict:
             token_id, secret = store.create_token(session, role, name, actor=_actor())
             body = _render(store.get_token(session, token_id))
     except store.TokenInputError as exc:
-        raise ValidationFailed(str(exc), errors={exc.field: [str(exc)]}) from None
+        raise ValidationFailed(str(exc), errors={exc.field: [exc.message]}) from None
     body["token"] = secret
     return body
 

@@ -15,9 +15,10 @@ from flask import Blueprint, jsonify
 from marshmallow import ValidationError, fields, validates
 
 from service.schemas.paging import next_field
-from service.schemas.requests import StrictSchema
+from service.schemas.requests import StrictSchema, one_of
 from service.store import webhooks as store
 from service.store.db import session_scope
+from service.store.models import MESSAGE_STATUSES
 
 from .context import sessions, settings
 from .docs import operation
@@ -60,6 +61,9 @@ def url_problem(url: str, allow_http: bool) -> str | None:
     return None
 
 
+EVENTS = [f"request.{name}" for name in ("computed", "failed", "returned", "approved")]
+
+
 class WebhookPutSchema(StrictSchema):
     """Body of PUT /v1/webhook."""
 
@@ -79,61 +83,66 @@ class WebhookPutSchema(StrictSchema):
 class WebhookSchema(StrictSchema):
     """The caller's callback (never its secret, except in the answer to PUT)."""
 
-    id = fields.String()
-    url = fields.String()
-    created_at = fields.AwareDateTime()
-    updated_at = fields.AwareDateTime()
-    events = fields.List(fields.String())
+    id = fields.String(required=True)
+    url = fields.Url(required=True)
+    created_at = fields.AwareDateTime(required=True)
+    updated_at = fields.AwareDateTime(required=True)
+    events = fields.List(
+        fields.String(validate=one_of(EVENTS)),
+        required=True,
+        metadata={"description": "The events notified."},
+    )
 
 
 class WebhookCreatedSchema(WebhookSchema):
     """The answer to PUT: the callback and its signing secret, shown this once."""
 
     secret = fields.String(
+        required=True,
         metadata={
             "description": "whsec_ + base64 key: verify webhook-signature (HMAC-SHA256 of "
             "'{webhook-id}.{webhook-timestamp}.{body}') with it. Shown only here."
-        }
+        },
     )
 
 
 class AttemptSchema(StrictSchema):
     """One delivery attempt."""
 
-    attempt = fields.Integer()
-    url = fields.String()
-    at = fields.AwareDateTime()
-    status_code = fields.Integer(allow_none=True)
-    error = fields.String(allow_none=True)
-    duration_ms = fields.Float()
+    attempt = fields.Integer(required=True)
+    url = fields.Url(required=True)
+    at = fields.AwareDateTime(required=True)
+    status_code = fields.Integer(required=True, allow_none=True)
+    error = fields.String(required=True, allow_none=True)
+    duration_ms = fields.Float(required=True)
 
 
 class DeliverySchema(StrictSchema):
     """One notification of a request and its attempts."""
 
     id = fields.String(
-        metadata={"description": "The webhook-id header, the same on every attempt."}
+        required=True,
+        metadata={"description": "The webhook-id header, the same on every attempt."},
     )
-    type = fields.String()
-    status = fields.String()
-    created_at = fields.AwareDateTime()
-    next_attempt_at = fields.AwareDateTime(allow_none=True)
-    finished_at = fields.AwareDateTime(allow_none=True)
-    attempts = fields.List(fields.Nested(AttemptSchema))
+    type = fields.String(required=True, validate=one_of(EVENTS))
+    status = fields.String(required=True, validate=one_of(MESSAGE_STATUSES))
+    created_at = fields.AwareDateTime(required=True)
+    next_attempt_at = fields.AwareDateTime(required=True, allow_none=True)
+    finished_at = fields.AwareDateTime(required=True, allow_none=True)
+    attempts = fields.List(fields.Nested(AttemptSchema), required=True)
 
 
 class DeliveryListSchema(StrictSchema):
     """GET /v1/requests/{id}/deliveries."""
 
-    items = fields.List(fields.Nested(DeliverySchema))
-    limit = fields.Integer()
-    next = next_field()
+    items = fields.List(fields.Nested(DeliverySchema), required=True)
+    limit = fields.Integer(required=True)
+    next = next_field(required=True)
 
 
 _WEBHOOK = WebhookSchema()
 _CREATED = WebhookCreatedSchema()
 _DELIVERIES = DeliveryListSchema()
-EVENTS = [f"request.{name}" for name in ("computed", "failed", "returned", "approved")]
 
 
 def _view(row, schema=_WEBHOOK, **extra) -> dict:

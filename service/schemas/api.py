@@ -4,7 +4,11 @@ from __future__ import annotations
 
 from marshmallow import Schema, fields
 
-from .requests import StrictSchema, length
+from service.store.models import REQUEST_STATUSES
+
+from .catalogue import CatalogueSchema  # noqa: F401 (described beside its generator)
+from .records import ResultRecordSchema  # noqa: F401 (the record's blocks)
+from .requests import StrictSchema, length, one_of
 
 NOTE = length(1, 5000)
 
@@ -66,7 +70,21 @@ class ProblemSchema(Schema):
     allowed_roles = fields.List(
         fields.String(), metadata={"description": "Roles that may make this call (403 only)."}
     )
+    allowed_from = fields.List(
+        fields.String(validate=one_of(REQUEST_STATUSES)),
+        metadata={
+            "description": "The statuses the refused transition is allowed from (409 on cancel, "
+            "assign, comment, approve or return)."
+        },
+    )
     limit = fields.String(metadata={"description": "The rate limit that was used up (429 only)."})
+    estimate = fields.Integer(
+        metadata={"description": "Estimated draws of the refused work (422 or 429, budget)."}
+    )
+    remaining = fields.Integer(
+        metadata={"description": "Draws left of the token's hourly budget (429, budget)."}
+    )
+    budget = fields.Integer(metadata={"description": "The budget in draws (422 or 429, budget)."})
 
 
 class HealthSchema(Schema):
@@ -74,29 +92,3 @@ class HealthSchema(Schema):
 
     status = fields.String(required=True)
     checks = fields.Dict(keys=fields.String(), values=fields.String())
-
-
-class CatalogueSchema(Schema):
-    """GET /v1/catalogue: the cells (outcome × layout), their analyses and fields."""
-
-    class Meta:
-        # The catalogue's shape belongs to service.schemas.catalogue; pass it through unchanged.
-        unknown = "include"
-
-
-class ResultRecordSchema(Schema):
-    """The engine's result record (see DEVELOPERS.md, "The result record")."""
-
-    record_version = fields.Integer()
-    question = fields.Dict()
-    sample_size = fields.Dict(allow_none=True)
-    power = fields.Dict(allow_none=True)
-    effect = fields.Raw(allow_none=True)
-    method = fields.Dict()
-    # The contract's keys that are null for some designs or methods.
-    type_i_error = fields.Dict(allow_none=True)
-    search = fields.Dict(allow_none=True)
-    events = fields.Dict(allow_none=True)
-    reproducibility = fields.Dict()
-    cautions = fields.List(fields.String())
-    warnings = fields.List(fields.String())

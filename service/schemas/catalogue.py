@@ -12,7 +12,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from marshmallow import Schema, fields
+from marshmallow import Schema, fields, validate
 
 from . import declared
 from .blocks import (
@@ -28,7 +28,7 @@ from .data_models import FAMILIES, FAMILY_SCHEMAS, data_keys, families_for, take
 from .fields import Number, Whole
 from .json_schema import SCHEMA_PATH
 from .request_json_schema import REQUEST_SCHEMA_PATH
-from .vocabulary import cells
+from .vocabulary import AIMS, BLOCKS, METHODS, cells
 
 _RANGE_KEYS = ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum", "minItems", "enum")
 
@@ -203,3 +203,129 @@ def catalogue() -> dict[str, Any]:
         "json_schema": SCHEMA_PATH,
         "request_json_schema": REQUEST_SCHEMA_PATH,
     }
+
+
+# ---------------------------------------------------------------------------------------------
+# The catalogue's shape, for the OpenAPI document (the generator above is what is served).
+
+JSON_TYPES = ("integer", "number", "boolean", "array", "string", "object")
+DECLARED_TYPES = ("number", "integer", "boolean", "choice", "number_list")
+_VALUE = "a number, a whole number, true or false, or one of the choices, as the type says"
+
+
+class CommonFieldSchema(Schema):
+    """One field of the question's common part or of a block (``describe_field``)."""
+
+    name = fields.String(required=True)
+    type = fields.String(
+        required=True,
+        validate=validate.OneOf(JSON_TYPES),
+    )
+    description = fields.String(required=True)
+    required = fields.Boolean(required=True)
+    allowed = fields.String(metadata={"description": "What a number field accepts, in words."})
+    minimum = fields.Float()
+    exclusiveMinimum = fields.Float()
+    maximum = fields.Float()
+    exclusiveMaximum = fields.Float()
+    minItems = fields.Integer()
+    enum = fields.List(fields.Raw(), metadata={"description": "The allowed values."})
+    default = fields.Raw(allow_none=True)
+    items = fields.Dict(metadata={"description": "A list's item, described like a field."})
+
+
+class DeclaredFieldSchema(Schema):
+    """One declared field of a cell: where it goes, what it is and allows, when it is needed."""
+
+    name = fields.String(required=True)
+    path = fields.String(required=True, metadata={"description": "block.name"})
+    block = fields.String(required=True, validate=validate.OneOf(BLOCKS))
+    type = fields.String(
+        required=True,
+        validate=validate.OneOf(DECLARED_TYPES),
+    )
+    label = fields.String(required=True)
+    help = fields.String(required=True)
+    unit = fields.String(required=True, allow_none=True)
+    allowed = fields.String(required=True, metadata={"description": "What it accepts, in words."})
+    needed = fields.String(required=True, metadata={"description": "When it must be posted."})
+    minimum = fields.Float()
+    maximum = fields.Float()
+    exclusive_minimum = fields.Boolean()
+    exclusive_maximum = fields.Boolean()
+    min_items = fields.Integer()
+    default = fields.Raw(metadata={"description": _VALUE})
+    choices = fields.List(fields.String())
+
+
+class AnalysisEntrySchema(Schema):
+    """One analysis a cell offers."""
+
+    name = fields.String(required=True)
+    label = fields.String(required=True)
+    methods = fields.List(fields.String(validate=validate.OneOf(METHODS)), required=True)
+    aims = fields.List(fields.String(validate=validate.OneOf(AIMS)), required=True)
+    reference = fields.String(required=True)
+
+
+class DataModelEntrySchema(Schema):
+    """The keys and distribution families of a cell's simulation data model."""
+
+    keys = fields.List(fields.String(), required=True)
+    families = fields.List(fields.String(validate=validate.OneOf(FAMILIES)), required=True)
+
+
+class CellEntrySchema(Schema):
+    """One cell (outcome × layout): its analyses, declared fields, forms and example."""
+
+    outcome = fields.String(required=True)
+    layout = fields.String(required=True)
+    name = fields.String(required=True)
+    label = fields.String(required=True)
+    analyses = fields.List(fields.Nested(AnalysisEntrySchema), required=True)
+    fields_ = fields.List(fields.Nested(DeclaredFieldSchema), required=True, data_key="fields")
+    forms = fields.List(
+        fields.List(fields.String()),
+        required=True,
+        metadata={"description": "Alternative sets of fields that make a question complete."},
+    )
+    solved = fields.String(
+        required=True,
+        allow_none=True,
+        metadata={"description": "The effect field find = effect solves for."},
+    )
+    interim = fields.Boolean(required=True, metadata={"description": "Offers interim analyses."})
+    data_model = fields.Nested(DataModelEntrySchema, required=True, allow_none=True)
+    example = fields.Dict(
+        required=True,
+        allow_none=True,
+        metadata={"description": "An example question of the cell.", "x-question": True},
+    )
+
+
+class FamilyEntrySchema(Schema):
+    """One distribution family and its parameters."""
+
+    name = fields.String(required=True, validate=validate.OneOf(FAMILIES))
+    parameters = fields.List(fields.Nested(CommonFieldSchema), required=True)
+
+
+class CatalogueSchema(Schema):
+    """GET /v1/catalogue: the cells (outcome × layout), their analyses and fields, generated
+    from the designs; the question's common fields and blocks; the distribution families."""
+
+    cells = fields.List(fields.Nested(CellEntrySchema), required=True)
+    question = fields.List(fields.Nested(CommonFieldSchema), required=True)
+    blocks = fields.Dict(
+        keys=fields.String(),
+        values=fields.List(fields.Nested(CommonFieldSchema)),
+        required=True,
+        metadata={"description": "Block name (dotted for a nested one) -> its fields."},
+    )
+    families = fields.List(fields.Nested(FamilyEntrySchema), required=True)
+    json_schema = fields.String(
+        required=True, metadata={"description": "Path of the question's JSON Schema."}
+    )
+    request_json_schema = fields.String(
+        required=True, metadata={"description": "Path of the request body's JSON Schema."}
+    )

@@ -67,9 +67,10 @@ class Cell:
                     for k, v in (exc.valid_data or {}).items()
                     if v is not None and k not in exc.messages
                 }
-                for key, messages in flatten_errors(exc.messages).items():
+                for where, messages in flatten_errors(exc.messages, prefix=block).items():
+                    key = where[len(block) + 1 :]  # empty for the block's own messages
                     for message in messages:
-                        self.add(f"{block}.{key}", self._misplaced(block, key, message))
+                        self.add(where, self._misplaced(block, key, message))
 
     def _misplaced(self, block: str, key: str, message: str) -> str:
         # A field of this cell posted in the wrong block: say where it belongs.

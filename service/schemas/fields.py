@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import json
 import math
-import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -294,9 +293,6 @@ class Obj(fields.Nested):
 # Base schema: unknown keys are refused with the list of allowed ones
 
 
-_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
-
-
 def posted(original: Any, name: str) -> bool:
     """True when ``name`` was posted with a non-null value."""
     return isinstance(original, Mapping) and original.get(name) is not None
@@ -326,9 +322,9 @@ class Strict(Schema):
             names = ", ".join(sorted(allowed))
             errors: dict = {}
             for k in extra:
-                # A key that is not a plain name would break the dotted path: report it on
-                # the object that holds it.
-                where = k if isinstance(k, str) and _NAME.match(k) else "_schema"
+                # Each unknown key at its own path, plain name or not (effect.a b), so a form
+                # shows the error beside it; only marshmallow's own marker stays on the object.
+                where = str(k)
                 errors.setdefault(where, []).append(
                     f"unknown field {show(k)}; allowed here: {names}"
                 )

@@ -169,3 +169,147 @@ def question_json_schema() -> dict:
         **body,
         "allOf": [{"anyOf": pairs}, *(cell_branch(d) for d in cells())],
     }
+
+
+# ---------------------------------------------------------------------------------------------
+# The question as OpenAPI components: the same schemas, split into one named variant per cell.
+
+# Component names of the question's common blocks (their schemas are the ones above).
+QUESTION_BLOCKS = {
+    "hypothesis": "Hypothesis",
+    "sample_size": "EnrolledSize",
+    "adjustments": "Adjustments",
+    "interim": "Interim",
+    "assurance": "AssurancePrior",
+    "simulation": "Simulation",
+}
+
+
+def camel(*words: str) -> str:
+    """``("time_to_event", "two_groups")`` -> ``"TimeToEventTwoGroups"``."""
+    return "".join(part.title() for word in words for part in str(word).split("_"))
+
+
+def _ref(name: str) -> dict:
+    return {"$ref": f"#/components/schemas/{name}"}
+
+
+def _nullable_ref(name: str, schema: dict) -> dict:
+    """A member that holds the named component or null, keeping the member's description."""
+    out: dict = {"anyOf": [_ref(name), {"type": "null"}]}
+    if schema.get("description"):
+        out["description"] = schema["description"]
+    return out
+
+
+def _object(schema: dict) -> dict:
+    """A nullable object schema as its non-null component (the member says null)."""
+    out = {k: v for k, v in schema.items() if k != "description"}
+    out["type"] = "object"
+    return out
+
+
+def _distribution_member(families: tuple[str, ...], description: str) -> dict:
+    """One distribution of a data model: the family's component, or oneOf them on ``family``."""
+    names = {f: f"{camel(f)}Distribution" for f in families}
+    if len(families) == 1:
+        return {**_ref(names[families[0]]), "description": description}
+    return {
+        "oneOf": [_ref(n) for n in names.values()],
+        "discriminator": {
+            "propertyName": "family",
+            "mapping": {f: f"#/components/schemas/{n}" for f, n in names.items()},
+        },
+        "description": description,
+    }
+
+
+def question_components() -> dict[str, dict]:
+    """The OpenAPI components of a posted question, from the same generators as the JSON Schema.
+
+    ``Question`` is ``oneOf`` one variant per registered cell (``QuestionContinuousTwoGroups``
+    …): the common fields of ``question_json_schema`` with ``outcome`` and ``layout`` fixed by
+    ``const``, the cell's analyses, its ``effect``, ``assumptions`` and ``analysis_options``
+    blocks and its data model — what the JSON Schema says in its ``if``/``then`` branches. The
+    cell is named by two members, so no single-member discriminator applies: a client tells
+    the variants apart by the ``outcome`` and ``layout`` constants.
+    """
+    from .catalogue import example
+    from .question import QuestionSchema
+
+    whole = question_json_schema()
+    common = whole["properties"]
+    out: dict[str, dict] = {}
+    shared: dict[str, dict] = {}
+    for name, schema in object_schema(QuestionSchema)["properties"].items():
+        if name in QUESTION_BLOCKS:
+            out[QUESTION_BLOCKS[name]] = _object(schema)
+            shared[name] = _nullable_ref(QUESTION_BLOCKS[name], schema)
+        else:
+            shared[name] = common[name]
+    out["Simulation"]["properties"]["data"] = {
+        "type": "null",
+        "description": "no data model: the cell simulates from its effect and assumptions",
+    }
+    for family in {f for d in cells() for f in families_for(d)}:
+        out[f"{camel(family)}Distribution"] = distribution_schema(family)
+    variants = []
+    for design in cells():
+        cell = camel(design.outcome, design.layout)
+        props = dict(shared)
+        props["outcome"] = {**common["outcome"], "const": design.outcome}
+        props["layout"] = {**common["layout"], "const": design.layout}
+        props["outcome"].pop("enum", None)
+        props["layout"].pop("enum", None)
+        names = [a.name for a in design.analyses]
+        props["analysis"] = {**common["analysis"], "enum": [*names, None]}
+        for block in BLOCKS:
+            component = f"{cell}{camel(block)}"
+            schema = block_schema(design, block)
+            out[component] = {**_object(schema), "description": f"{block} of {design.label}"}
+            props[block] = _nullable_ref(component, common[block])
+        data = data_schema(design)
+        if data.get("properties"):
+            data_props = {
+                key: (
+                    {
+                        "type": "array",
+                        "items": _distribution_member(families_for(design), "one group"),
+                        "minItems": 2,
+                        "description": "one distribution per group, control first",
+                    }
+                    if key == "groups"
+                    else _distribution_member(families_for(design), f"the {key} distribution")
+                )
+                for key in data["properties"]
+            }
+            out[f"{cell}Data"] = {
+                **_object(data),
+                "properties": data_props,
+                "description": f"the data model of {design.label}",
+            }
+            simulation = {**out["Simulation"], "properties": dict(out["Simulation"]["properties"])}
+            simulation["properties"]["data"] = _nullable_ref(
+                f"{cell}Data",
+                {
+                    "description": "the data model; null draws the cell's own data from the effect "
+                    "and assumptions"
+                },
+            )
+            out[f"{cell}Simulation"] = simulation
+            props["simulation"] = _nullable_ref(f"{cell}Simulation", common["simulation"])
+        out[f"Question{cell}"] = {
+            **{k: v for k, v in whole.items() if k not in ("$schema", "allOf", "title")},
+            "properties": props,
+            "description": f"A question on {design.label} ({design.outcome} × {design.layout}).",
+        }
+        shown = example(design)
+        if shown is not None:  # the catalogue's example of the cell, a complete question
+            out[f"Question{cell}"]["examples"] = [shown]
+        variants.append(_ref(f"Question{cell}"))
+    out["Question"] = {
+        "oneOf": variants,
+        "description": whole["description"] + " One variant per cell: its outcome and layout "
+        "are constants, so the pair names the variant.",
+    }
+    return out

@@ -30,9 +30,10 @@ def cursor_field() -> fields.String:
     )
 
 
-def next_field() -> fields.String:
+def next_field(**kwargs) -> fields.String:
     """The ``next`` member of a page: the absolute URL of the next page, null after the last."""
-    return fields.String(
+    return fields.Url(
         allow_none=True,
+        **kwargs,
         metadata={"description": "Absolute URL of the next page; null on the last page."},
     )

@@ -187,7 +187,7 @@ def load_question(raw: Any) -> dict:
     try:
         return shared(QuestionSchema).load(dict(raw))
     except ValidationError as exc:
-        raise QuestionInvalid(flatten_errors(exc.messages)) from None
+        raise QuestionInvalid(flatten_errors(exc.messages), exc.messages) from None
 
 
 def register_openapi_types(plugin: Any) -> None:

@@ -16,6 +16,7 @@ from service.schemas.errors import QuestionInvalid
 from service.schemas.explorations import price_errors
 from service.schemas.paging import cursor_field, limit_field, next_field
 from service.schemas.question import load_question
+from service.schemas.vocabulary import METHODS
 from service.store.models import (
     EXPLORATION_STATUSES,
     EXPLORATION_TYPES,
@@ -95,7 +96,9 @@ class QuestionField(fields.Dict):
         try:
             return load_question(raw)
         except QuestionInvalid as exc:
-            raise ValidationError(exc.errors) from None
+            # Nested relative to the question, so each error lands at its own path under the
+            # member (question.effect.sd; the question's own at question).
+            raise ValidationError(exc.messages) from None
 
 
 class ProtocolSchema(StrictSchema):
@@ -177,6 +180,34 @@ class ExplorationCreateSchema(StrictSchema):
             raise ValidationError("applies to type sensitivity_grid only", "grid")
 
 
+class SensitivityGridCreateSchema(StrictSchema):
+    """A sensitivity grid: the question re-solved at every combination of the listed values."""
+
+    type = fields.String(required=True, validate=one_of(("sensitivity_grid",)))
+    grid = fields.Dict(
+        keys=fields.String(validate=length(1, 100)),
+        values=fields.List(fields.Float(), validate=validate.Length(min=1, max=400)),
+        required=True,
+        validate=validate.Length(min=1, max=3),
+        metadata={"description": GRID_DESCRIPTION},
+    )
+
+
+class RobustnessPanelCreateSchema(StrictSchema):
+    """A robustness panel: the planned test simulated under departures from the planned data."""
+
+    type = fields.String(required=True, validate=one_of(("robustness_panel",)))
+    replicates = ExplorationCreateSchema._declared_fields["replicates"]
+
+
+IDEMPOTENCY_DESCRIPTION = (
+    "Makes a retried submission safe: the same key with the same body returns the first "
+    "request (200) instead of storing another; the same key with another body is refused "
+    "(422). Keys are global across tokens: a key used by any token counts, so make it unique "
+    "(e.g. a UUID). 1 to 200 printable ASCII characters."
+)
+
+
 def _budget() -> int | None:
     """The per-simulation budget of the running app (None outside one, e.g. in the CLI)."""
     from flask import current_app, has_app_context
@@ -246,137 +277,206 @@ class CalculationCreateSchema(StrictSchema):
     )
 
 
-class ExplorationSchema(StrictSchema):
+PARAMS_DESCRIPTION = (
+    "sensitivity_grid: {grid: {path: [values]}}; robustness_panel: {replicates, seed}."
+)
+RESULT_DESCRIPTION = (
+    "null until done. sensitivity_grid: shape, base and cells (each cell's values by dotted "
+    "question path, its per_group or power); robustness_panel: per_group, "
+    "analyzed_per_group, replicates, seed and one entry per departure with its power and "
+    'type_i_error (DEVELOPERS.md, "The result record").'
+)
+
+
+class ExplorationSummarySchema(StrictSchema):
+    """A sensitivity grid or robustness panel of a request, without its result."""
+
+    id = fields.String(required=True)
+    request_id = fields.String(required=True)
+    type = fields.String(required=True, validate=one_of(tuple(EXPLORATION_TYPES)))
+    params = fields.Dict(
+        keys=fields.String(), required=True, metadata={"description": PARAMS_DESCRIPTION}
+    )
+    status = fields.String(required=True, validate=one_of(EXPLORATION_STATUSES))
+    requested_by = fields.String(required=True)
+    created_at = fields.AwareDateTime(required=True)
+    published_at = fields.AwareDateTime(required=True, allow_none=True)
+    attempts = fields.Integer(required=True)
+    error = fields.String(required=True, allow_none=True)
+    finished_at = fields.AwareDateTime(required=True, allow_none=True)
+
+
+class ExplorationSchema(ExplorationSummarySchema):
     """A sensitivity grid or robustness panel of a request, and its result when done."""
 
-    id = fields.String()
-    request_id = fields.String()
-    type = fields.String(validate=one_of(tuple(EXPLORATION_TYPES)))
-    params = fields.Dict()
-    status = fields.String(validate=one_of(EXPLORATION_STATUSES))
-    requested_by = fields.String()
-    created_at = fields.AwareDateTime()
-    published_at = fields.AwareDateTime(allow_none=True)
-    attempts = fields.Integer()
-    result = fields.Dict(allow_none=True)
-    error = fields.String(allow_none=True)
-    finished_at = fields.AwareDateTime(allow_none=True)
+    result = fields.Dict(
+        keys=fields.String(),
+        required=True,
+        allow_none=True,
+        metadata={"description": RESULT_DESCRIPTION},
+    )
 
 
 class ExplorationListSchema(StrictSchema):
     """GET /v1/requests/{id}/explorations."""
 
-    items = fields.List(fields.Nested(ExplorationSchema))
-    limit = fields.Integer()
-    next = next_field()
+    items = fields.List(fields.Nested(ExplorationSchema), required=True)
+    limit = fields.Integer(required=True)
+    next = next_field(required=True)
 
 
 class ReportLinkSchema(StrictSchema):
     """A signed link that opens a request's report pages in a browser, without a token."""
 
-    url = fields.String()
-    expires_at = fields.AwareDateTime()
+    url = fields.Url(
+        required=True,
+        metadata={
+            "description": "Absolute URL of the report page with the signed link as its `link` "
+            "query parameter; the same `link` value opens curve.svg and curve.png."
+        },
+    )
+    expires_at = fields.AwareDateTime(required=True)
 
 
 class AuditEventSchema(StrictSchema):
     """One entry of a request's history."""
 
-    id = fields.Integer()
-    actor = fields.String()
-    action = fields.String()
-    detail = fields.Dict()
-    created_at = fields.AwareDateTime()
-    sha256 = fields.String()
+    id = fields.Integer(required=True)
+    actor = fields.String(required=True)
+    action = fields.String(required=True)
+    detail = fields.Dict(keys=fields.String(), required=True)
+    created_at = fields.AwareDateTime(required=True)
+    sha256 = fields.String(required=True)
 
 
-class RerunSchema(StrictSchema):
+class RerunLatestSchema(StrictSchema):
+    """The latest rerun of a request, in brief."""
+
+    id = fields.String(required=True)
+    status = fields.String(required=True, validate=one_of(RERUN_STATUSES))
+    identical = fields.Boolean(required=True, allow_none=True)
+
+
+class RerunItemSchema(RerunLatestSchema):
+    """A rerun without its record (the items of GET /v1/requests/{id}/reruns)."""
+
+    request_id = fields.String(required=True)
+    requested_by = fields.String(required=True)
+    requested_at = fields.AwareDateTime(required=True)
+    published_at = fields.AwareDateTime(required=True, allow_none=True)
+    attempts = fields.Integer(required=True)
+    differences = fields.List(fields.String(), required=True, allow_none=True)
+    env_original = fields.Dict(keys=fields.String(), required=True)
+    env_rerun = fields.Dict(keys=fields.String(), required=True, allow_none=True)
+    record_sha256 = fields.String(required=True, allow_none=True)
+    finished_at = fields.AwareDateTime(required=True, allow_none=True)
+    error = fields.String(required=True, allow_none=True)
+
+
+class RerunSchema(RerunItemSchema):
     """A rerun: the stored question recomputed and compared with the original record."""
 
-    id = fields.String()
-    request_id = fields.String()
-    status = fields.String(validate=one_of(RERUN_STATUSES))
-    requested_by = fields.String()
-    requested_at = fields.AwareDateTime()
-    published_at = fields.AwareDateTime(allow_none=True)
-    attempts = fields.Integer()
-    identical = fields.Boolean(allow_none=True)
-    differences = fields.List(fields.String(), allow_none=True)
-    env_original = fields.Dict()
-    env_rerun = fields.Dict(allow_none=True)
-    record = fields.Dict(allow_none=True)
-    record_sha256 = fields.String(allow_none=True)
-    finished_at = fields.AwareDateTime(allow_none=True)
-    error = fields.String(allow_none=True)
+    record = fields.Dict(
+        required=True,
+        allow_none=True,
+        metadata={
+            "description": "The recomputed record; null until done.",
+            "x-component": "ResultRecord",
+        },
+    )
 
 
 class RerunSummarySchema(StrictSchema):
     """Counts of a request's reruns and the latest one."""
 
-    total = fields.Integer()
-    identical = fields.Integer()
-    different = fields.Integer()
-    latest = fields.Nested(RerunSchema(only=("id", "status", "identical")), allow_none=True)
+    total = fields.Integer(required=True)
+    identical = fields.Integer(required=True)
+    different = fields.Integer(required=True)
+    latest = fields.Nested(RerunLatestSchema, required=True, allow_none=True)
 
 
-class RequestSchema(StrictSchema):
-    """A stored request as the API returns it."""
+class RequestSummarySchema(StrictSchema):
+    """A stored request as listed: everything but its result, history, reruns and explorations."""
 
-    id = fields.String()
-    status = fields.String(validate=one_of(REQUEST_STATUSES))
-    progress = fields.Float()
-    cancel_requested = fields.Boolean()
-    assigned_to = fields.String(allow_none=True)
-    protocol = fields.Dict()
-    requester = fields.Dict()
-    deadline = fields.Date(allow_none=True)
-    notes = fields.String(allow_none=True)
-    outcome = fields.String()
-    layout = fields.String()
-    method = fields.String()
-    seed = fields.Integer(allow_none=True)
-    question = fields.Dict(metadata={"description": "Normalized question, seed filled in."})
-    question_submitted = fields.Dict(metadata={"description": "The question as posted."})
-    submitted_by = fields.String()
-    submitted_at = fields.AwareDateTime()
-    updated_at = fields.AwareDateTime()
-    published_at = fields.AwareDateTime(allow_none=True)
-    attempts = fields.Integer()
-    error = fields.String(allow_none=True)
+    id = fields.String(required=True)
+    status = fields.String(required=True, validate=one_of(REQUEST_STATUSES))
+    progress = fields.Float(required=True, metadata={"description": "0 to 1."})
+    cancel_requested = fields.Boolean(required=True)
+    assigned_to = fields.String(required=True, allow_none=True)
+    protocol = fields.Nested(ProtocolSchema, required=True)
+    requester = fields.Nested(RequesterSchema, required=True)
+    deadline = fields.Date(required=True, allow_none=True)
+    notes = fields.String(required=True, allow_none=True)
+    outcome = fields.String(required=True)
+    layout = fields.String(required=True)
+    method = fields.String(required=True, validate=one_of(METHODS))
+    seed = fields.Integer(required=True, allow_none=True)
+    question = fields.Dict(
+        required=True,
+        metadata={"description": "Normalized question, seed filled in.", "x-question": True},
+    )
+    submitted_by = fields.String(required=True)
+    submitted_at = fields.AwareDateTime(required=True)
+    updated_at = fields.AwareDateTime(required=True)
+    published_at = fields.AwareDateTime(required=True, allow_none=True)
+    attempts = fields.Integer(required=True)
+    error = fields.String(required=True, allow_none=True)
+    effect_source = fields.String(required=True, allow_none=True)
+    links = fields.Nested(
+        "RequestLinksSchema",
+        required=True,
+        metadata={"description": "Absolute URLs a client can follow."},
+    )
+
+
+class RequestLinksSchema(StrictSchema):
+    """Absolute URLs of what a client can follow from a request."""
+
+    self = fields.Url(required=True)
+    report = fields.Url(required=True)
+    reruns = fields.Url(required=True)
+    explorations = fields.Url(required=True)
+    deliveries = fields.Url(required=True)
+
+
+class RequestSchema(RequestSummarySchema):
+    """A stored request as the API returns it: the summary, its result, history and reruns."""
+
+    question_submitted = fields.Dict(
+        required=True, metadata={"description": "The question as posted.", "x-question": True}
+    )
+    # Sent unchanged (a Dict, not Nested: dumping through the record's schema would drop the
+    # members it does not declare); the document shows it as the ResultRecord component.
     result = fields.Dict(
-        allow_none=True, metadata={"description": "The engine's result record, unchanged."}
+        required=True,
+        allow_none=True,
+        metadata={
+            "description": "The engine's result record, unchanged; null until computed.",
+            "x-component": "ResultRecord",
+        },
     )
-    history = fields.List(fields.Nested(AuditEventSchema))
-    reruns = fields.Nested(RerunSummarySchema)
-    effect_source = fields.String(allow_none=True)
-    explorations = fields.List(fields.Nested(ExplorationSchema(exclude=("result",))))
-    links = fields.Dict(
-        keys=fields.String(),
-        values=fields.String(),
-        metadata={"description": "Absolute URLs: self, report, reruns, explorations, deliveries."},
-    )
+    history = fields.List(fields.Nested(AuditEventSchema), required=True)
+    reruns = fields.Nested(RerunSummarySchema, required=True)
+    explorations = fields.List(fields.Nested(ExplorationSummarySchema), required=True)
 
 
 class RequestPageSchema(StrictSchema):
     """One page of GET /v1/requests."""
 
-    items = fields.List(
-        fields.Nested(
-            RequestSchema(
-                exclude=("result", "history", "question_submitted", "reruns", "explorations")
-            )
-        )
+    items = fields.List(fields.Nested(RequestSummarySchema), required=True)
+    limit = fields.Integer(required=True)
+    next = next_field(required=True)
+    total = fields.Integer(
+        required=True, metadata={"description": "Requests matching the filters."}
     )
-    limit = fields.Integer()
-    next = next_field()
-    total = fields.Integer()
 
 
 class RerunListSchema(StrictSchema):
     """GET /v1/requests/{id}/reruns."""
 
-    items = fields.List(fields.Nested(RerunSchema(exclude=("record",))))
-    limit = fields.Integer()
-    next = next_field()
+    items = fields.List(fields.Nested(RerunItemSchema), required=True)
+    limit = fields.Integer(required=True)
+    next = next_field(required=True)
 
 
 def _cell_word(which: str, value: str) -> None:
@@ -405,10 +505,15 @@ class RequestQueryArgsSchema(StrictSchema):
         metadata={"description": "Only requests with this layout, e.g. two_groups."},
     )
     submitted_from = fields.Date(
-        error_messages=DATE_ERRORS, metadata={"description": "First UTC day, inclusive."}
+        error_messages=DATE_ERRORS,
+        metadata={"description": "First UTC day, inclusive; not after submitted_to."},
     )
     submitted_to = fields.Date(
-        error_messages=DATE_ERRORS, metadata={"description": "Last UTC day, inclusive."}
+        error_messages=DATE_ERRORS,
+        metadata={
+            "description": "Last UTC day, inclusive; must not be before submitted_from (422 "
+            "naming submitted_to otherwise)."
+        },
     )
     limit = limit_field()
     cursor = cursor_field()

@@ -34,6 +34,7 @@ class TokenInputError(ValueError):
 
     def __init__(self, field: str, message: str):
         self.field = field
+        self.message = message  # without the field's name, for an error keyed by the field
         super().__init__(f"{field}: {message}")
 
 

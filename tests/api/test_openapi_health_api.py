@@ -92,9 +92,14 @@ def test_question_json_schema_is_served_and_validates_the_catalogue_examples(cli
 
 def test_openapi_question_component_is_the_generated_schema(client):
     spec = client.get("/openapi.json").get_json()
-    question = spec["components"]["schemas"]["Question"]
-    assert "continuous" in question["properties"]["outcome"]["enum"]
-    assert "welch_t" in question["properties"]["analysis"]["enum"]
+    schemas = spec["components"]["schemas"]
+    # One variant per cell, its outcome and layout constants (service.schemas.json_schema).
+    variants = [v["$ref"].rsplit("/", 1)[-1] for v in schemas["Question"]["oneOf"]]
+    two = schemas["QuestionContinuousTwoGroups"]["properties"]
+    assert "QuestionContinuousTwoGroups" in variants
+    assert (two["outcome"]["const"], two["layout"]["const"]) == ("continuous", "two_groups")
+    analysis = two["analysis"]["anyOf"][0]["$ref"].rsplit("/", 1)[-1]
+    assert "welch_t" in schemas[analysis]["enum"]
     for body in ("RequestCreate", "CalculationCreate"):
         member = spec["components"]["schemas"][body]["properties"]["question"]
         assert member["$ref"] == "#/components/schemas/Question"

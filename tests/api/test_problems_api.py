@@ -214,3 +214,36 @@ def test_database_outage_is_503(tmp_path):
     r = app.test_client().get("/v1/requests", headers={"Authorization": "Bearer sw_" + "x" * 43})
     assert r.status_code == 503 and r.mimetype == PROBLEM
     assert "database" in r.get_json()["detail"]
+
+
+QUESTION = BODY_ENDPOINTS[0][1]["question"]
+
+
+@pytest.mark.parametrize(
+    "question,path",
+    [
+        # Keys a form could not turn into a plain name still land at their own path.
+        ({**QUESTION, "x-y": 1}, "question.x-y"),
+        ({**QUESTION, "a.b": 1}, "question.a.b"),
+        ({**QUESTION, "question": 1}, "question.question"),
+        ({**QUESTION, "effect": {"difference": 0.5, "a b": 1}}, "question.effect.a b"),
+        ({**QUESTION, "effect": {"difference": 0.5, "zeta": 1}}, "question.effect.zeta"),
+        (
+            {**QUESTION, "method": "simulation", "simulation": {"seed": 7, "b-c": 2}},
+            "question.simulation.b-c",
+        ),
+    ],
+)
+def test_an_unknown_question_key_is_reported_at_its_own_path(api, client, question, path):
+    for url, body in (
+        ("/v1/calculations", {"question": question}),
+        ("/v1/requests", api.request_body(question)),
+    ):
+        errors = _is_problem(client.post(url, json=body), 422)["errors"]
+        assert list(errors) == [path], (url, errors)
+        assert errors[path][0].startswith("unknown field"), errors
+
+
+def test_the_question_s_own_errors_stay_on_the_question(client):
+    errors = _is_problem(client.post("/v1/calculations", json={"question": 5}), 422)["errors"]
+    assert list(errors) == ["question"]

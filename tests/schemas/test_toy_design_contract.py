@@ -97,8 +97,14 @@ def test_the_toy_cell_is_in_the_openapi_document(toy, app) -> None:
     from service.api.openapi import build_spec
 
     design, _ = toy
-    question = build_spec(app)["components"]["schemas"]["Question"]
-    assert "toy_count" in question["properties"]["outcome"]["enum"]
-    then = _branch(question, design)["then"]["properties"]
-    assert "rate_ratio" in then["effect"]["properties"]
-    assert then["analysis"]["enum"] == [design.analyses[0].name, None]
+    schemas = build_spec(app)["components"]["schemas"]
+    # The toy cell is one more variant of the Question component, named after its cell.
+    cell = "".join(w.title() for part in (design.outcome, design.layout) for w in part.split("_"))
+    assert {"$ref": f"#/components/schemas/Question{cell}"} in schemas["Question"]["oneOf"]
+    variant = schemas[f"Question{cell}"]["properties"]
+    assert variant["outcome"]["const"] == design.outcome
+    assert "rate_ratio" in schemas[f"{cell}Effect"]["properties"]
+    # The cell's analyses as a named enum, or null for the cell's default.
+    analysis, null = variant["analysis"]["anyOf"]
+    assert null == {"type": "null"}
+    assert schemas[analysis["$ref"].rsplit("/", 1)[-1]]["enum"] == [design.analyses[0].name]

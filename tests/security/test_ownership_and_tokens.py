@@ -107,6 +107,11 @@ def test_token_endpoints_refuse_bad_input_naming_the_field(anon_client, auth):
     assert "'superuser'" in message and "statistician" in message
     r = anon_client.post("/v1/tokens", json={"role": "intake", "name": ""}, headers=admin)
     assert list(r.get_json()["errors"]) == ["name"]
+    # A right-to-left override would make the name print as something else in the audit trail.
+    r = anon_client.post("/v1/tokens", json={"role": "intake", "name": "a\u202eb"}, headers=admin)
+    assert list(r.get_json()["errors"]) == ["name"]
+    # The message under the field's key does not name the field again.
+    assert r.get_json()["errors"]["name"][0].startswith("must be 1-120 printable characters")
     r = anon_client.post("/v1/tokens", json={"role": "intake", "name": "a", "x": 1}, headers=admin)
     assert r.get_json()["errors"]["x"][0].startswith("unknown field; allowed:")
     for token_id in ("0" * 32, "nope"):

@@ -684,7 +684,7 @@ def _count_group(streams: Streams, task: ChunkTask, i: int, rows: int):
     binomial count with variance μ + κμ².
     """
     s, n, model = task.settings, task.per_group[i], task.models[i]
-    f, a, kappa = s["follow_up"], s["accrual"], s["dispersion"]
+    f, a, kappa = s["follow_up"], s["accrual"], s["overdispersion"]
     mean_t = f + a / 2.0
     y = np.empty((rows, n))
     t = np.empty((rows, n)) if a > 0 else f
@@ -717,7 +717,7 @@ def _rate_wald(streams: Streams, task: ChunkTask, rows: int):
 
 def _rate_draws(task: ChunkTask) -> int:
     s = task.settings
-    per_obs = 1 + (s["accrual"] > 0) + (s["dispersion"] > 0)
+    per_obs = 1 + (s["accrual"] > 0) + (s["overdispersion"] > 0)
     return _raw_draws(task, [per_obs] * len(task.per_group))
 
 

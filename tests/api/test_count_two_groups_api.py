@@ -76,7 +76,7 @@ def test_example_through_api_cli_and_report(client):
     assert DESIGN.label in text
     assert "a rate ratio of 0.7 (treatment over control)" in text
     assert "a control rate of 0.8 events per subject per year" in text
-    assert "a negative binomial dispersion of 0.6" in text
+    assert "a negative binomial overdispersion of 0.6" in text
     assert record["method"]["analysis_label"] in text
     page = render_report(REQUEST, record, curve_svg=power_curve_svg(curve_points(record, points=5)))
     assert html.escape(record["method"]["analysis_label"], quote=False) in page
@@ -128,7 +128,7 @@ def test_catalogue_lists_the_cell_with_its_fields(client):
     cells = client.get("/v1/catalogue").get_json()["cells"]
     (cell,) = [c for c in cells if (c["outcome"], c["layout"]) == ("count", "two_groups")]
     text = json.dumps(cell)
-    for name in ("rate_ratio", "control_rate", "follow_up", "dispersion", "time_unit"):
+    for name in ("rate_ratio", "control_rate", "follow_up", "overdispersion", "time_unit"):
         assert name in text
     for analysis in ("negative_binomial_wald", "poisson_wald"):
         assert analysis in text

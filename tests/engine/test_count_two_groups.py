@@ -37,7 +37,7 @@ def counts(**over) -> dict:
             "time_unit": "years",
             "control_rate": 0.8,
             "follow_up": 1.0,
-            "dispersion": 0.6,
+            "overdispersion": 0.6,
         },
     }
     body.update(over)
@@ -85,7 +85,7 @@ def test_negative_binomial_power_matches_statsmodels(ratio, kappa, follow_up, n,
             "time_unit": "years",
             "control_rate": 0.8,
             "follow_up": follow_up,
-            "dispersion": kappa,
+            "overdispersion": kappa,
         },
         sample_size={"per_group": [n, math.ceil(n * allocation)]},
         allocation_ratio=allocation,
@@ -214,7 +214,7 @@ def test_staggered_entry_uses_the_follow_up_spread():
             "control_rate": 0.8,
             "follow_up": 0.5,
             "accrual": 1.0,
-            "dispersion": 0.6,
+            "overdispersion": 0.6,
         },
         sample_size={"per_group": [150, 150]},
     )
@@ -364,7 +364,7 @@ def test_simulated_noninferiority_agrees():
             "time_unit": "years",
             "control_rate": 1.2,
             "follow_up": 1.0,
-            "dispersion": 0.4,
+            "overdispersion": 0.4,
         },
     )
     _agree(_simulated(body))
@@ -379,7 +379,7 @@ def test_poisson_test_on_overdispersed_counts_exceeds_alpha():
             "time_unit": "years",
             "control_rate": 2.0,
             "follow_up": 1.0,
-            "dispersion": 1.0,
+            "overdispersion": 1.0,
         },
         sample_size={"per_group": [60, 60]},
     )
@@ -419,7 +419,7 @@ def test_small_overdispersed_groups_warn_and_the_simulation_reports_the_level():
             "time_unit": "years",
             "control_rate": 1.0,
             "follow_up": 1.0,
-            "dispersion": 1.0,
+            "overdispersion": 1.0,
         },
     )
     record = answer(body)

@@ -109,7 +109,7 @@ VALUES = {
             "control_rate": _floats(0.2, 3.0),
             "follow_up": _floats(0.5, 2.0),
             "accrual": _floats(0.0, 1.0),
-            "dispersion": _floats(0.0, 1.5),
+            "overdispersion": _floats(0.0, 1.5),
         }
     ),
     ("continuous", "regression"): st.fixed_dictionaries(

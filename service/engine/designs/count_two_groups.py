@@ -1,6 +1,6 @@
 """Event counts, two parallel groups: the ratio of event rates, treatment over control, by the Wald
 test of the log rate ratio. Each subject's count is Poisson, or negative binomial (gamma-Poisson)
-with dispersion κ: a subject followed for time t at rate λ has mean μ = λt and variance μ + κμ²
+with overdispersion κ: a subject followed for time t at rate λ has mean μ = λt and variance μ + κμ²
 (κ = 0 is Poisson). Each group's rate is estimated by its events over its total follow-up.
 
 The variance of a group's log rate per subject is 1/(λ·t̄) + κ·E[t²]/t̄² (t̄ the mean follow-up);
@@ -95,12 +95,12 @@ FIELDS = (
         default=0.0,
     ),
     Field(
-        "dispersion",
+        "overdispersion",
         "assumptions",
         "number",
-        "Negative binomial dispersion κ of a subject's count: variance = μ + κμ² for a count "
+        "Negative binomial overdispersion κ of a subject's count: variance = μ + κμ² for a count "
         "with mean μ; 0 for Poisson counts.",
-        "negative binomial dispersion",
+        "negative binomial overdispersion",
         minimum=0,
         default=0.0,
     ),
@@ -138,7 +138,9 @@ validate = make_validate(FIELDS, FORMS, "rate_ratio")
 
 def default_analysis(q: dict) -> str:
     """Poisson counts are tested with the Poisson variance, overdispersed counts with the NB."""
-    return "poisson_wald" if not values(q, FIELDS).get("dispersion") else "negative_binomial_wald"
+    return (
+        "poisson_wald" if not values(q, FIELDS).get("overdispersion") else "negative_binomial_wald"
+    )
 
 
 # --- follow-up ------------------------------------------------------------------------------
@@ -160,11 +162,11 @@ def exposure_of(f: float, a: float) -> tuple[float, float]:
 def _setup(q: dict) -> dict:
     """The checked inputs of the analytic method."""
     analysis = analysis_of(q, DESIGN, "analytic")
-    kappa = number(q, FIELDS, "dispersion")
+    kappa = number(q, FIELDS, "overdispersion")
     if analysis == "poisson_wald" and kappa > 0:
         raise QuestionError(
             "analysis",
-            "poisson_wald ignores the assumed dispersion "
+            "poisson_wald ignores the assumed overdispersion "
             f"({kappa:g}): its type I error would exceed alpha; use negative_binomial_wald, or "
             "simulate poisson_wald to see by how much",
         )
@@ -312,7 +314,7 @@ def describe(q: dict) -> dict:
     analysis = analysis_of(q, DESIGN, "analytic")
     notes = [
         "Each group's rate is its events over its total follow-up; the log rate ratio has "
-        "variance W/n per group with W = 1/(λ·t̄) + κ·E[t²]/t̄² (κ the dispersion, "
+        "variance W/n per group with W = 1/(λ·t̄) + κ·E[t²]/t̄² (κ the overdispersion, "
         "Var = μ + κμ²; t̄ the mean follow-up).",
     ]
     if s["rho"] != 1.0:
@@ -372,9 +374,9 @@ def warnings_for(q: dict, per_group: list[float]) -> list[str]:
             "of the log rate ratio is rough with so few; a simulation is safer."
         )
     smallest = min(float(n) for n in per_group)
-    if v.get("dispersion") and smallest < 50:
+    if v.get("overdispersion") and smallest < 50:
         out.append(
-            f"With {smallest:.0f} subjects in a group the dispersion is estimated from few "
+            f"With {smallest:.0f} subjects in a group the overdispersion is estimated from few "
             "counts and the Wald test can exceed alpha; the simulation method reports its type "
             "I error."
         )
@@ -388,7 +390,7 @@ def default_data(q: dict) -> list[dict]:
     """Each group's count at the mean follow-up: Poisson, or negative binomial with size 1/κ."""
     lam0 = number(q, FIELDS, "control_rate")
     ratio = number(q, FIELDS, "rate_ratio")
-    kappa = number(q, FIELDS, "dispersion")
+    kappa = number(q, FIELDS, "overdispersion")
     mean, _ = exposure(q)
     out = []
     for lam in (lam0, lam0 * ratio):
@@ -408,7 +410,7 @@ def settings(q: dict) -> dict:
             "itself: remove null_variance or use the analytic method",
         )
     return {
-        "dispersion": number(q, FIELDS, "dispersion"),
+        "overdispersion": number(q, FIELDS, "overdispersion"),
         "follow_up": number(q, FIELDS, "follow_up"),
         "accrual": number(q, FIELDS, "accrual"),
     }
@@ -429,16 +431,16 @@ def data_block(arms: list[dict], labels: list[str], extra: dict) -> dict:
     """The simulated counts in the cell's own words (rates per time unit, κ, follow-up)."""
     mean, _ = exposure_of(extra["follow_up"], extra["accrual"])
     return {
-        "counts": "negative binomial (gamma-Poisson)" if extra["dispersion"] > 0 else "Poisson",
+        "counts": "negative binomial (gamma-Poisson)" if extra["overdispersion"] > 0 else "Poisson",
         "control": {"rate": arms[0]["mean"] / mean, "mean_count": arms[0]["mean"]},
         "treatment": {"rate": arms[1]["mean"] / mean, "mean_count": arms[1]["mean"]},
-        "dispersion": extra["dispersion"],
+        "overdispersion": extra["overdispersion"],
         "follow_up": extra["follow_up"],
         "accrual": extra["accrual"],
-        "variance": "mean + dispersion·mean² per subject",
+        "variance": "mean + overdispersion·mean² per subject",
         "test": (
             "each group's rate is its events over its follow-up; negative_binomial_wald "
-            "estimates the dispersion in every replicate by the method of moments, pooled over "
+            "estimates the overdispersion in every replicate by the method of moments, pooled over "
             "both groups and truncated at 0; poisson_wald uses 1/events per group; a replicate "
             "in which a group has no events does not reject"
         ),
@@ -455,7 +457,7 @@ def approximate_n(plan, target: float) -> float | None:
     gap = math.log(lam1 / lam0) - (rule.margin if rule.aim != "superiority" else 0.0)
     if gap == 0:
         return None
-    extra = s["dispersion"] * rho
+    extra = s["overdispersion"] * rho
     w = 1.0 / (lam0 * mean) + extra + (1.0 / (lam1 * mean) + extra) / r
     za = z(1.0 - plan.alpha / (rule.tails if rule.aim == "superiority" else 1))
     return max(2.0, (za + z(target)) ** 2 * w / gap**2)
@@ -502,9 +504,9 @@ def assumptions_sentence(q: dict) -> str:
         )
     else:
         parts.append(f"{span(v['follow_up'])} of follow-up per subject")
-    if v.get("dispersion"):
-        k = fmt(v["dispersion"])
-        parts.append(f"a negative binomial dispersion of {k} (variance = mean + {k}·mean²)")
+    if v.get("overdispersion"):
+        k = fmt(v["overdispersion"])
+        parts.append(f"a negative binomial overdispersion of {k} (variance = mean + {k}·mean²)")
     else:
         parts.append("Poisson counts (no overdispersion)")
     return ", ".join(parts[:-1]) + " and " + parts[-1]
@@ -555,7 +557,7 @@ DESIGN = Design(
     notes=(
         "hypothesis.margin is on the log scale (ln 1.25 = 0.2231 is a limit of 1.25 on the "
         "rate ratio); when fewer events are better, set higher_is_better to false.",
-        "dispersion is κ in variance = μ + κμ² (a simulation data model's negative_binomial "
+        "overdispersion is κ in variance = μ + κμ² (a simulation data model's negative_binomial "
         "'dispersion' is the size 1/κ).",
     ),
 )

@@ -606,11 +606,19 @@ def _score_block(analysis: str, label: str, what: str, scale: str, notes: list[s
         "assumed proportions."
     )
     if analysis == "score":
+        reference = "Farrington & Manning (1990), Stat Med 9:1447"
+        if scale == "odds_ratio":
+            notes.append(
+                "On the odds ratio the score is Miettinen & Nurminen's (1985); its variance under "
+                "the alternative is the delta-method one at the assumed proportions, as "
+                "Farrington & Manning do for the difference and the risk ratio."
+            )
+            reference += "; Miettinen & Nurminen (1985), Stat Med 4:213"
         return analytic_method(
             analysis,
             label,
             f"normal approximation with restricted-MLE variance, {what}",
-            "Farrington & Manning (1990), Stat Med 9:1447",
+            reference,
             notes,
             {},
         )

@@ -194,7 +194,14 @@ def sections(design: Any) -> list[Section]:
     hypothesis = _described(
         HypothesisSchema,
         Q + "hypothesis.",
-        {"aim": "Aim", "margin": "Margin", "higher_is_better": "Higher is better"},
+        {
+            "aim": "Aim",
+            "margin": "Margin",
+            "higher_is_better": "Higher is better",
+            "half_width": "Half-width (estimation)",
+            "confidence": "Confidence (estimation)",
+            "assurance": "Assurance (estimation)",
+        },
     )
     allocation = _described(
         QuestionSchema,

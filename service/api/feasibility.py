@@ -50,6 +50,9 @@ def _solved_path(question: dict) -> str:
     """The question path of what the engine solves for: the sample size, the power's inputs
     (the enrolled numbers) or the cell's solved effect field."""
     find = question.get("find")
+    if (question.get("hypothesis") or {}).get("aim") == "estimation":
+        # a precision question solves for the n of a half-width, or the half-width of an n
+        return "question.hypothesis.half_width" if find == "sample_size" else "question.sample_size"
     if find == "power":
         return "question.sample_size"
     if find == "effect":

@@ -357,6 +357,12 @@ def _answer_estimation(q: dict, design) -> dict:
     else:
         enrolled = list(q["sample_size"]["per_group"])
         analyzed, steps = adjust.deflate(enrolled, q)
+        if min(analyzed) < 2:
+            raise QuestionError(
+                "sample_size.per_group",
+                f"leaves {min(analyzed):g} analyzed in a group after dropout; an interval needs "
+                "at least 2",
+            )
         record["sample_size"] = {
             "per_group": enrolled,
             "total": sum(enrolled),

@@ -68,8 +68,14 @@ def _numeric_paths(q: dict, prefix: str = "") -> list[str]:
 def _allowed_paths(q: dict) -> list[str]:
     # Fields a grid may move: the assumptions, not the bookkeeping (seeds, replicates, chunking).
     movable = ("alpha", "target_power", "allocation_ratio", *_FIELD_BLOCKS, "adjustments")
+    if _estimation(q):  # a precision question moves its interval's half-width and confidence
+        movable = (*movable, "hypothesis")
     paths = [p for p in _numeric_paths(q) if p.split(".")[0] in movable]
     return paths + [p for p in _single_forms(q) if p not in paths]
+
+
+def _estimation(q: dict) -> bool:
+    return (q.get("hypothesis") or {}).get("aim") == "estimation"
 
 
 def _set_path(q: dict, path: str, value: float) -> None:
@@ -167,6 +173,10 @@ def _check_question(question: dict, *, simulated_ok: bool) -> None:
             "find",
             f"a sensitivity grid needs find 'sample_size' or 'power'; got {question.get('find')!r}",
         )
+    if _estimation(question) and question.get("find") != "sample_size":
+        raise QuestionError(
+            "find", "a sensitivity grid of a precision question needs find 'sample_size'"
+        )
 
 
 def grid_cost(question: dict, grid: dict[str, list[float]]) -> int:
@@ -252,11 +262,11 @@ def sensitivity(
 
 
 def _summary(record: dict) -> dict:
-    size, power = record["sample_size"], record["power"]
+    size, power = record["sample_size"], record["power"] or {}  # null: a precision question
     return {
         "per_group": list(size["per_group"]),
         "total": size["total"],
-        "power": power["estimate"],
+        "power": power.get("estimate"),
         "mcse": power.get("mcse"),
         "error": None,
     }
@@ -311,6 +321,11 @@ def robustness_refusal(question: dict) -> str | None:
         design = _design(question)
     except EngineError as exc:
         return str(exc)
+    if _estimation(question):
+        return (
+            "the robustness panel simulates a test's power and type I error; a precision "
+            "question (hypothesis.aim estimation) has neither"
+        )
     if question.get("interim"):
         # the panel simulates the test of a single final analysis; the sequential test's
         # simulation is not offered yet

@@ -37,6 +37,7 @@ __all__ = [
     "mean_precision",
     "newcombe_half_width",
     "proportion_half_width",
+    "proportion_interval",
     "proportion_interval_solution",
     "record_block",
     "solve_size",
@@ -79,7 +80,7 @@ def mean_precision(
     ≤ target) (None without a target).
 
     >>> round(mean_precision(10.0, 1 / 10, 99, 0.95)["half_width_expected"], 4)
-    1.979
+    1.9792
     """
     t = float(stats.t.ppf(0.5 + confidence / 2.0, df))
     plug_in = t * sd * scale
@@ -185,6 +186,19 @@ def proportion_interval_solution(p: float, half_width: float, confidence: float,
         floor=2.0,
     )
     return Solution(per_group=[n])
+
+
+def proportion_interval(q: dict, p: float, per_group: list[float], method: str) -> dict:
+    """A single proportion's interval at the analyzed size, as the cell's
+    ``Estimation.precision`` returns it (``method`` wilson or clopper_pearson)."""
+    return {
+        "half_width_expected": float(
+            proportion_half_width(p, float(per_group[0]), q["hypothesis"]["confidence"], method)
+        ),
+        "half_width_assured": None,
+        "probability": None,
+        "basis": "when the observed proportion equals the planned one (count n·p, not rounded)",
+    }
 
 
 def newcombe_half_width(p_control: float, p_treatment: float, sizes, confidence: float) -> float:

@@ -100,7 +100,18 @@ def describe_declared(design: Any, field: Any) -> dict[str, Any]:
 
 
 def needed(design: Any, field: Any) -> str:
-    """When a field must be posted, in words (the rule ``cell.py`` enforces)."""
+    """When a field must be posted, in words (the rules ``cell.py`` enforces)."""
+    text = _needed_for_tests(design, field)
+    estimation = getattr(design, "estimation", None)
+    if estimation is None or field.default is not None:
+        return text
+    if any(field.name in form for form in estimation.forms):
+        return f"{text}; required by a precision question (hypothesis.aim estimation)"
+    return f"{text}; not used by a precision question (hypothesis.aim estimation)"
+
+
+def _needed_for_tests(design: Any, field: Any) -> str:
+    """When a field must be posted for a sample-size, power or effect question."""
     if field.default is not None:
         return "optional"
     if field.name == design.solved:

@@ -115,6 +115,16 @@ def test_catalogue_and_json_schema_show_the_aim(client):
         ({"hypothesis": {"aim": "estimation", "half_width": -1.0}}, "half_width"),
         ({"hypothesis": {"aim": "estimation", "half_width": 3, "confidence": 1.2}}, "confidence"),
         ({"adjustments": {"comparisons": 2}}, "question.adjustments.comparisons"),
+        (
+            {
+                "find": "precision",
+                "hypothesis": {"aim": "estimation"},
+                "sample_size": {"per_group": [2]},
+                "adjustments": {"dropout": 0.99},
+            },
+            "sample_size",
+        ),
+        ({"find": "precision", "sample_size": {"per_group": [50]}}, "half_width"),
     ],
 )
 def test_refusals_name_the_field(client, change, field):

@@ -270,3 +270,24 @@ def test_unreachable_half_width_is_refused_on_the_field():
     with pytest.raises(QuestionError) as caught:
         _answer(_mean_question(1e-6, 1000.0))
     assert caught.value.field == "hypothesis.half_width"
+
+
+def test_sensitivity_grid_moves_the_half_width_and_robustness_is_refused():
+    from service.engine import explore
+
+    q = load_question(_mean_question(3.0, 20.0))
+    grid = explore.sensitivity(q, {"hypothesis.half_width": [2.0, 3.0], "assumptions.sd": [20.0]})
+    # formula (as above): each cell is the question answered again at its values
+    for cell in grid["cells"]:
+        again = _answer(_mean_question(cell["values"]["hypothesis.half_width"], 20.0))
+        assert cell["per_group"] == again["sample_size"]["per_group"]
+        assert cell["power"] is None
+    assert "precision question" in explore.robustness_refusal(q)
+
+
+def test_proportion_interval_part_for_the_single_group_cell():
+    # general-purpose library: statsmodels proportion_confint (Wilson) at the count n·p
+    q = {"hypothesis": {"aim": "estimation", "half_width": 0.05, "confidence": 0.9}}
+    part = precision.proportion_interval(q, 0.2, [150], "wilson")
+    lo, hi = proportion_confint(30, 150, alpha=0.1, method="wilson")
+    assert part["half_width_expected"] == pytest.approx((hi - lo) / 2, rel=1e-9)

@@ -324,6 +324,10 @@ class Design:
         )
 
     def aims(self) -> tuple[str, ...]:
-        """Every hypothesis aim some analysis of the cell answers, in AIMS order."""
+        """Every hypothesis aim some analysis of the cell answers, in AIMS order; estimation
+        only when the cell declares how (``estimation``), so a testing analysis that lists
+        ``AIMS`` instead of ``TESTING_AIMS`` offers no precision question by mistake."""
         offered = {aim for a in self.analyses for aim in a.aims}
+        if self.estimation is None:
+            offered.discard("estimation")
         return tuple(a for a in AIMS if a in offered)

@@ -267,9 +267,10 @@ def estimation_validate(design: Design, blocks: dict) -> dict[str, list[str]]:
                 posted.add(key)
             elif value != decl.default:
                 errors.setdefault(decl.path, []).append(
-                    "is not used when hypothesis.aim is estimation (the interval's half-width "
-                    "does not depend on it); remove it; an estimation question here takes "
+                    f"is not used when hypothesis.aim is estimation: a precision question for "
+                    f"{design.cell} takes "
                     + " or ".join(" + ".join(form) for form in forms)
+                    + "; remove it"
                 )
     fits = [form for form in forms if posted <= set(form)]
     if not fits:

@@ -38,7 +38,7 @@ def _raw(record: dict) -> float:
 
 @pytest.mark.parametrize(("p", "odds_ratio", "r2"), [(0.1, 1.5, 0.0), (0.3, 1.3, 0.25)])
 def test_continuous_covariate_formula(p, odds_ratio, r2):
-    # formula: Hsieh, Bloch & Larsen (1998), eq. for a normal covariate,
+    # formula: Hsieh, Bloch & Larsen (1998), the formula for a normal covariate,
     # n = (z_{1−α/2} + z_{1−β})² / (P(1 − P)·(ln OR)²), divided by 1 − R² for other covariates.
     n = (Z(0.975) + Z(0.8)) ** 2 / (p * (1 - p) * math.log(odds_ratio) ** 2) / (1 - r2)
     record = answer(
@@ -53,7 +53,7 @@ def test_continuous_covariate_formula(p, odds_ratio, r2):
 
 
 def test_binary_covariate_formula():
-    # formula: Hsieh, Bloch & Larsen (1998), eq. for a binary covariate (prevalence B):
+    # formula: Hsieh, Bloch & Larsen (1998), the formula for a binary covariate (prevalence B):
     # n = [z_α·√(P(1−P)/B) + z_β·√(P₁(1−P₁) + P₂(1−P₂)(1−B)/B)]² / ((P₁ − P₂)²(1 − B)),
     # here P₁ = 0.2, OR 2 (P₂ = 1/3), B = 0.3, alpha 0.05 two-sided, power 0.9.
     p1, b = 0.2, 0.3

@@ -32,7 +32,7 @@ def answer(body: dict) -> dict:
 
 
 def hm_var(a: float, controls: int, cases: int) -> float:
-    # formula: Hanley & McNeil (1982), Radiology 143:29, eq. (2) with Q1 = A/(2 − A),
+    # formula: Hanley & McNeil (1982), Radiology 143:29, the variance of the AUC with Q1 = A/(2 − A),
     # Q2 = 2A²/(1 + A); n_A the cases (abnormal), n_N the controls (normal).
     q1, q2 = a / (2 - a), 2 * a * a / (1 + a)
     return (a * (1 - a) + (cases - 1) * (q1 - a * a) + (controls - 1) * (q2 - a * a)) / (

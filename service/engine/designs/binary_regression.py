@@ -167,7 +167,7 @@ def _odds_ratio(q: dict) -> float:
 
 
 def solve_n(q: dict, alpha: float) -> Solution:
-    """Return the unrounded number of subjects (Hsieh, Bloch & Larsen 1998, eq. 1 or 2)."""
+    """Return the unrounded number of subjects (Hsieh, Bloch & Larsen 1998: normal or binary covariate)."""
     _check(q)
     odds_ratio, keep = _odds_ratio(q), _keep(q)
     target = float(q["target_power"])
@@ -238,8 +238,8 @@ def describe(q: dict) -> dict:
         [
             "The size with one covariate is divided by 1 − R², R² that of the tested covariate "
             "on the other covariates (the variance inflation).",
-            "The continuous-covariate formula holds for odds ratios near 1; for strong effects "
-            "it is approximate (Hsieh, Bloch & Larsen 1998).",
+            "The formulas use the variance of the estimate near an odds ratio of 1; for strong "
+            "effects they are approximations (a simulation fits the logistic model itself).",
         ],
         derive(q),
     )

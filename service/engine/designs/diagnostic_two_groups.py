@@ -92,7 +92,7 @@ def _check(q: dict) -> str:
 
 
 def hanley_mcneil_variance(a: float, controls: float, cases: float) -> float:
-    """Var(Â) of Hanley & McNeil (1982), eq. 2, with Q₁ = A/(2 − A), Q₂ = 2A²/(1 + A)."""
+    """Var(Â) of Hanley & McNeil (1982), with Q₁ = A/(2 − A), Q₂ = 2A²/(1 + A)."""
     q1, q2 = a / (2.0 - a), 2.0 * a * a / (1.0 + a)
     return (a * (1.0 - a) + (cases - 1.0) * (q1 - a * a) + (controls - 1.0) * (q2 - a * a)) / (
         cases * controls

@@ -503,7 +503,8 @@ def justification(record: dict, context: dict | None = None) -> str:
 
 def details_sentence(record: dict) -> str:
     """The cell's own sentences on its answer details (``Phrases.details``), '' when none."""
-    words = cell(record["question"]).phrases.details
+    phrases = cell(record["question"]).phrases  # None: a design told from its field labels
+    words = phrases.details if phrases is not None else None
     return words(record) if words is not None else ""
 
 

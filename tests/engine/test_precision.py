@@ -291,3 +291,51 @@ def test_proportion_interval_part_for_the_single_group_cell():
     part = precision.proportion_interval(q, 0.2, [150], "wilson")
     lo, hi = proportion_confint(30, 150, alpha=0.1, method="wilson")
     assert part["half_width_expected"] == pytest.approx((hi - lo) / 2, rel=1e-9)
+
+
+@pytest.mark.parametrize(
+    ("analysis", "library"), [("wilson_interval", "wilson"), ("clopper_pearson_interval", "beta")]
+)
+def test_single_group_cell_answers_a_proportion_precision_question(analysis, library):
+    # general-purpose library: statsmodels proportion_confint ('wilson'; 'beta' is
+    # Clopper-Pearson) at the count n·p: the answered n's interval has a half-width ≤ 0.05 and
+    # n − 1's does not; 10% dropout enrolls n / 0.9, rounded up.
+    record = _answer(
+        {
+            "outcome": "binary",
+            "layout": "single_group",
+            "analysis": analysis,
+            "hypothesis": {"aim": "estimation", "half_width": 0.05},
+            "effect": {"p": 0.3},
+            "adjustments": {"dropout": 0.1},
+        }
+    )
+
+    def width(m: int) -> float:
+        lo, hi = proportion_confint(m * 0.3, m, alpha=0.05, method=library)
+        return (hi - lo) / 2
+
+    analyzed = math.ceil(
+        precision.proportion_interval_solution(
+            0.3, 0.05, 0.95, library.replace("beta", "clopper_pearson")
+        ).per_group[0]
+        - 1e-9
+    )
+    assert width(analyzed) <= 0.05 < width(analyzed - 1)
+    assert record["power"] is None
+    assert record["method"]["analysis"] == analysis
+    assert record["sample_size"]["per_group"] == [math.ceil(analyzed / 0.9 - 1e-9)]
+    assert record["precision"]["half_width_target"] == 0.05
+    assert record["precision"]["half_width_expected"] <= 0.05
+
+
+def test_single_group_proportion_precision_defaults_to_wilson_and_refuses_p_null():
+    q = {
+        "outcome": "binary",
+        "layout": "single_group",
+        "hypothesis": {"aim": "estimation", "half_width": 0.05},
+        "effect": {"p": 0.3},
+    }
+    assert _answer(q)["method"]["analysis"] == "wilson_interval"
+    with pytest.raises(Exception, match="p_null"):
+        load_question({**q, "assumptions": {"p_null": 0.2}})

@@ -3,7 +3,9 @@
 The exact binomial test (default) is powered by exact enumeration over the counts, vectorized
 over n; its power curve is saw-toothed, so find = sample_size reports the smallest n reaching the
 target and the smallest n from which every larger n reaches it, and answers with the second. The
-one-sample z test (normal approximation, null variance under H0) has the closed-form n.
+one-sample z test (normal approximation, null variance under H0) has the closed-form n. A
+precision question (``hypothesis.aim = "estimation"``) asks for the n whose Wilson or
+Clopper–Pearson interval around the planned rate is narrow enough (``engine/precision.py``).
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ import math
 import numpy as np
 from scipy import stats
 
-from .. import direction, exact_binomial
+from .. import direction, exact_binomial, precision
 from ..errors import QuestionError
 from ..quantiles import power_unreachable, root, z, z_alpha
 from .base import (
@@ -21,6 +23,7 @@ from .base import (
     DecisionRule,
     Design,
     EffectAxis,
+    Estimation,
     Field,
     Phrases,
     SimulationModel,
@@ -82,7 +85,23 @@ ANALYSES = (
         ("superiority",),
         "Lachin 1981; normal approximation, null variance under H0",
     ),
+    Analysis(
+        "wilson_interval",
+        "Wilson score interval for a proportion",
+        ("analytic",),
+        ("estimation",),
+        "Wilson 1927, JASA 22:209; half-width at the planned rate",
+    ),
+    Analysis(
+        "clopper_pearson_interval",
+        "Clopper–Pearson exact interval for a proportion",
+        ("analytic",),
+        ("estimation",),
+        "Clopper & Pearson 1934, Biometrika 26:404; half-width at the planned rate",
+    ),
 )
+# the interval analyses and the method name precision.proportion_half_width takes
+INTERVALS = {"wilson_interval": "wilson", "clopper_pearson_interval": "clopper_pearson"}
 ANSWER = "stays_above_from"  # which of the exact search's two n's is the answer
 _EDGE = 1e-9
 
@@ -134,8 +153,24 @@ def _power_at(q: dict, p: float, n: float, alpha: float) -> float:
     )
 
 
+def _interval(q: dict) -> str:
+    """The precision question's interval method (wilson unless clopper_pearson is named)."""
+    return INTERVALS[analysis_of(q, DESIGN, "analytic")]
+
+
+def interval_precision(q: dict, per_group: list[float]) -> dict:
+    """The planned rate's interval at the analyzed size (``Estimation.precision``)."""
+    return precision.proportion_interval(q, _rate(q, "p"), per_group, _interval(q))
+
+
 def solve_n(q: dict, alpha: float) -> Solution:
-    """z test: the closed form. Exact test: both saw-tooth answers; the answer is the second."""
+    """z test: the closed form. Exact test: both saw-tooth answers; the answer is the second.
+    A precision question: the n whose interval's half-width at the planned rate is the target."""
+    if hypothesis(q)[0] == "estimation":
+        hyp = q["hypothesis"]
+        return precision.proportion_interval_solution(
+            _rate(q, "p"), hyp["half_width"], hyp["confidence"], _interval(q)
+        )
     analysis = _setup(q)
     p, p0 = _rate(q, "p"), _rate(q, "p_null")
     if p == p0:
@@ -202,6 +237,26 @@ def warnings_for(q: dict, per_group: list[float]) -> list[str]:
 
 def describe(q: dict) -> dict:
     """Return the analytic method block for the record."""
+    if hypothesis(q)[0] == "estimation":
+        analysis = analysis_of(q, DESIGN, "analytic")
+        words = {
+            "wilson_interval": "Wilson score limits (p̂ + z²/2n ± z·√(p̂(1 − p̂)/n + z²/4n²)) / "
+            "(1 + z²/n)",
+            "clopper_pearson_interval": "Clopper–Pearson limits from the beta quantiles of the "
+            "count (exact coverage at least the confidence level)",
+        }[analysis]
+        return analytic_method(
+            analysis,
+            DESIGN.analysis(analysis).label,
+            "interval half-width at the planned rate",
+            DESIGN.analysis(analysis).reference,
+            [
+                f"Two-sided interval for the response rate: {words}.",
+                "The half-width is half the interval's length when the observed proportion "
+                "equals the planned one (count n·p, not rounded).",
+            ],
+            {},
+        )
     analysis = _setup(q)
     label = DESIGN.analysis(analysis).label
     if analysis == "z_test":
@@ -328,7 +383,9 @@ DESIGN = Design(
     solved="p",
     analyses=ANALYSES,
     validate=validate,
-    default_analysis=lambda q: "exact_binomial",
+    default_analysis=lambda q: (
+        "wilson_interval" if hypothesis(q)[0] == "estimation" else "exact_binomial"
+    ),
     groups=one_group,
     allocation=one_group_allocation,
     derive=lambda q: {},
@@ -339,9 +396,17 @@ DESIGN = Design(
     warnings_for=warnings_for,
     simulation=SIMULATION,
     phrases=Phrases(
-        effect=effect_sentence, assumptions=assumptions_sentence, details=details_sentence
+        effect=effect_sentence,
+        assumptions=assumptions_sentence,
+        details=details_sentence,
+        estimand=lambda q: f"the response rate, planned at {fmt(_rate(q, 'p'))}",
     ),
     example="northbridge_smoking_cessation_rate.json",
     contrast=_contrast,
     null_effect=lambda q: values(q, FIELDS).get("p_null"),
+    estimation=Estimation(
+        forms=(("p",),),
+        precision=interval_precision,
+        expected_words="when the observed proportion equals the planned one",
+    ),
 )

@@ -21,7 +21,9 @@ from service.schemas.records import ResultRecordSchema
 from service.schemas.requests import (
     IDEMPOTENCY_DESCRIPTION,
     RobustnessPanelCreateSchema,
+    RobustnessPanelParamsSchema,
     SensitivityGridCreateSchema,
+    SensitivityGridParamsSchema,
 )
 from service.schemas.vocabulary import BLOCKS
 from service.store.models import (
@@ -234,6 +236,19 @@ def build_spec(app: Flask) -> dict:
     spec.components.schema("ResultRecord", schema=ResultRecordSchema)
     spec.components.schema("SensitivityGridCreate", schema=SensitivityGridCreateSchema)
     spec.components.schema("RobustnessPanelCreate", schema=RobustnessPanelCreateSchema)
+    spec.components.schema("SensitivityGridParams", schema=SensitivityGridParamsSchema)
+    spec.components.schema("RobustnessPanelParams", schema=RobustnessPanelParamsSchema)
+    spec.components.schema(
+        "ExplorationParams",
+        component={
+            "description": "What an exploration runs with, by its type (the exploration's "
+            "`type` member says which).",
+            "oneOf": [
+                {"$ref": SCHEMAS + "SensitivityGridParams"},
+                {"$ref": SCHEMAS + "RobustnessPanelParams"},
+            ],
+        },
+    )
     spec.components.security_scheme(
         BEARER_SCHEME,
         {
@@ -348,6 +363,10 @@ def _name_types(document: dict) -> None:
         kinds = list(kinds) if isinstance(kinds, list) else ([kinds] if kinds else [])
         nullable = "null" in kinds
         base = [k for k in kinds if k != "null"]
+        if base == ["object"]:  # apispec writes a Dict's Length as a string's keywords
+            for short, long in (("minLength", "minProperties"), ("maxLength", "maxProperties")):
+                if short in out:
+                    out[long] = out.pop(short)
         meta = {k: out[k] for k in ("description", "default", "title") if k in out}
         if "enum" in out and member is not None:
             values = [v for v in out["enum"] if v is not None]

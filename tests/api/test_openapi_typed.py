@@ -219,6 +219,9 @@ def test_the_exploration_body_is_one_of_two_kinds(document):
     grid = schemas["SensitivityGridCreate"]
     assert grid["required"] == ["grid", "type"]
     assert grid["properties"]["grid"]["additionalProperties"]["items"]["type"] == "number"
+    assert grid["properties"]["grid"]["maxProperties"] == 3  # at most 3 axes
+    params = schemas["ExplorationSummary"]["properties"]["params"]
+    assert params["$ref"] == REF + "ExplorationParams"
     assert "grid" not in schemas["RobustnessPanelCreate"]["properties"]
     assert _errors(document, "ExplorationCreate", {"type": "sensitivity_grid"}) != []
     ok = {"type": "sensitivity_grid", "grid": {"effect.difference": [4, 5]}}

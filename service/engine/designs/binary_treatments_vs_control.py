@@ -35,9 +35,7 @@ from .base import (
     Solution,
 )
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
     fmt,
     make_validate,
     number,
@@ -45,7 +43,17 @@ from .common import (
     tails,
     values,
 )
-from .continuous_treatments_vs_control import GOAL_WORDS
+from .continuous_treatments_vs_control import (
+    ARM_FIELDS,
+    GOAL_WORDS,
+    allocation,
+    check_arms,
+    control_factor,
+    derive,
+    goal,
+    groups,
+    treatment_count,
+)
 
 _PROPORTION = {
     "unit": "proportion",
@@ -71,36 +79,7 @@ FIELDS = (
         "event proportion in the control group",
         **_PROPORTION,
     ),
-    Field(
-        "treatment_count",
-        "assumptions",
-        "integer",
-        "Number of treatment groups, each compared with the one control group.",
-        "number of treatment groups",
-        minimum=1,
-        maximum=20,
-    ),
-    Field(
-        "power_goal",
-        "analysis_options",
-        "choice",
-        "What counts as success: at least one treatment group significant (any_treatment, "
-        "disjunctive power) or every treatment group significant (all_treatments, conjunctive "
-        "power).",
-        "power goal",
-        choices=("any_treatment", "all_treatments"),
-        default="any_treatment",
-    ),
-    Field(
-        "control_allocation",
-        "analysis_options",
-        "choice",
-        "Size of the control group: equal to each treatment group (equal) or √k times as large "
-        "(square_root, with k treatment groups).",
-        "control group allocation",
-        choices=("equal", "square_root"),
-        default="equal",
-    ),
+    *ARM_FIELDS,
 )
 FORMS = (("p_control", "treatment_count"),)
 ANALYSES = (
@@ -135,50 +114,11 @@ ANALYSES = (
 )
 
 
-def treatment_count(q: dict) -> int:
-    return int(number(q, FIELDS, "treatment_count"))
-
-
-def control_factor(q: dict) -> float:
-    """Control size over each treatment group's size: 1, or √k."""
-    if values(q, FIELDS).get("control_allocation") == "square_root":
-        return math.sqrt(treatment_count(q))
-    return 1.0
-
-
-def goal(q: dict) -> str:
-    return values(q, FIELDS).get("power_goal") or "any_treatment"
-
-
-def groups(q: dict) -> int:
-    return treatment_count(q) + 1
-
-
-def allocation(q: dict) -> list[float]:
-    """Control first, then the k treatment groups."""
-    return [control_factor(q)] + [1.0] * treatment_count(q)
-
-
-def derive(q: dict) -> dict:
-    """The null correlation of any two comparisons under the planned allocation: 1/(1 + n₀/nₜ)."""
-    try:
-        return {"comparison_correlation": 1.0 / (1.0 + control_factor(q))}
-    except QuestionError:
-        return {}
-
-
 validate = make_validate(FIELDS, FORMS, "p_treatment")
 
 
 def _check(q: dict) -> str:
-    check_aim(q, DESIGN)
-    if int((q.get("adjustments") or {}).get("comparisons") or 1) != 1:
-        raise QuestionError(
-            "adjustments.comparisons",
-            "must be 1 for treatments against a shared control: the analysis itself adjusts "
-            "for the k comparisons (choose it with analysis)",
-        )
-    return analysis_of(q, DESIGN, "analytic")
+    return check_arms(q, DESIGN)
 
 
 def critical(analysis: str, alpha: float, per_group: list[float], tails_: int) -> float:

@@ -40,25 +40,9 @@ from .common import (
     values,
 )
 
-FIELDS = (
-    Field(
-        "difference",
-        "effect",
-        "number",
-        "Expected difference in means of each treatment group minus the control group.",
-        "difference in means of each treatment group from the control",
-        unit="outcome units",
-    ),
-    Field(
-        "sd",
-        "assumptions",
-        "number",
-        "Common standard deviation of the outcome in every group.",
-        "standard deviation",
-        unit="outcome units",
-        minimum=0,
-        exclusive_minimum=True,
-    ),
+# The fields every many-to-one cell shares (the binary cell imports them with the layout
+# functions below).
+ARM_FIELDS = (
     Field(
         "treatment_count",
         "assumptions",
@@ -89,6 +73,27 @@ FIELDS = (
         choices=("equal", "square_root"),
         default="equal",
     ),
+)
+FIELDS = (
+    Field(
+        "difference",
+        "effect",
+        "number",
+        "Expected difference in means of each treatment group minus the control group.",
+        "difference in means of each treatment group from the control",
+        unit="outcome units",
+    ),
+    Field(
+        "sd",
+        "assumptions",
+        "number",
+        "Common standard deviation of the outcome in every group.",
+        "standard deviation",
+        unit="outcome units",
+        minimum=0,
+        exclusive_minimum=True,
+    ),
+    *ARM_FIELDS,
 )
 FORMS = (("sd", "treatment_count"),)
 # Bonferroni first: the analytic power printed beside a simulated Holm or Hochberg answer is the
@@ -131,18 +136,18 @@ GOAL_WORDS = {
 
 
 def treatment_count(q: dict) -> int:
-    return int(number(q, FIELDS, "treatment_count"))
+    return int(number(q, ARM_FIELDS, "treatment_count"))
 
 
 def control_factor(q: dict) -> float:
     """Control size over each treatment group's size: 1, or √k."""
-    if values(q, FIELDS).get("control_allocation") == "square_root":
+    if values(q, ARM_FIELDS).get("control_allocation") == "square_root":
         return math.sqrt(treatment_count(q))
     return 1.0
 
 
 def goal(q: dict) -> str:
-    return values(q, FIELDS).get("power_goal") or "any_treatment"
+    return values(q, ARM_FIELDS).get("power_goal") or "any_treatment"
 
 
 def groups(q: dict) -> int:
@@ -165,15 +170,20 @@ def derive(q: dict) -> dict:
 validate = make_validate(FIELDS, FORMS, "difference")
 
 
-def _check(q: dict) -> str:
-    check_aim(q, DESIGN)
+def check_arms(q: dict, design: Design) -> str:
+    """The analysis of a many-to-one question; the analysis adjusts, so comparisons stays 1."""
+    check_aim(q, design)
     if int((q.get("adjustments") or {}).get("comparisons") or 1) != 1:
         raise QuestionError(
             "adjustments.comparisons",
             "must be 1 for treatments against a shared control: the analysis itself adjusts "
             "for the k comparisons (choose it with analysis)",
         )
-    return analysis_of(q, DESIGN, "analytic")
+    return analysis_of(q, design, "analytic")
+
+
+def _check(q: dict) -> str:
+    return check_arms(q, DESIGN)
 
 
 def error_df(per_group: list[float]) -> float:

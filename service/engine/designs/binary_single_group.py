@@ -32,6 +32,7 @@ from .base import (
 from .common import (
     analysis_of,
     analytic_method,
+    bernoulli_only,
     check_aim,
     fmt,
     hypothesis,
@@ -295,16 +296,6 @@ def default_data(q: dict) -> list[dict]:
     return [{"family": "bernoulli", "p": _rate(q, "p")}]
 
 
-def check_models(q: dict, arms: list[dict], labels: list[str]) -> None:
-    """A binary outcome is simulated with a bernoulli group only."""
-    for a, lab in zip(arms, labels, strict=True):
-        if a["family"] != "bernoulli":
-            raise QuestionError(
-                f"simulation.data.{lab}.family",
-                f"a binary outcome needs a bernoulli group; got {a['family']!r}",
-            )
-
-
 def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
     p0 = _rate(q, "p_null")
     return [{"family": "bernoulli", "p": p0}], f"rate set to the reference rate ({p0:g})"
@@ -328,7 +319,7 @@ SIMULATION = SimulationModel(
     null_data=null_data,
     kernels={"exact_binomial": "binomial_exact", "z_test": "binomial_z"},
     effect_axis=effect_axis,
-    check_models=check_models,
+    check_models=bernoulli_only,
     settings=lambda q: {"p_null": _rate(q, "p_null")},
     implied_fields=implied_fields,
     min_size=1,

@@ -36,6 +36,7 @@ from .base import (
 )
 from .common import (
     analytic_method,
+    bernoulli_only,
     fmt,
     make_validate,
     number,
@@ -265,15 +266,6 @@ def default_data(q: dict) -> list[dict]:
     return [{"family": "bernoulli", "p": p0}] + [{"family": "bernoulli", "p": p1} for _ in range(k)]
 
 
-def check_models(q: dict, arms: list[dict], labels: list[str]) -> None:
-    for a, lab in zip(arms, labels, strict=True):
-        if a["family"] != "bernoulli":
-            raise QuestionError(
-                f"simulation.data.{lab}.family",
-                f"a binary outcome needs bernoulli groups; got {a['family']!r}",
-            )
-
-
 def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
     p0 = arms[0]["p"]
     return [arms[0]] + [{"family": "bernoulli", "p": p0} for _ in arms[1:]], (
@@ -318,7 +310,7 @@ SIMULATION = SimulationModel(
     null_data=null_data,
     kernels={a.name: "many_to_one_binary" for a in ANALYSES},
     effect_axis=effect_axis,
-    check_models=check_models,
+    check_models=bernoulli_only,
     settings=settings,
     data_block=data_block,
     implied_contrast=lambda arms: arms[1]["p"] - arms[0]["p"],

@@ -35,6 +35,7 @@ from .base import (
 from .common import (
     analysis_of,
     analytic_method,
+    bernoulli_only,
     fmt,
     hypothesis,
     make_validate,
@@ -684,16 +685,6 @@ def default_data(q: dict) -> list[dict]:
     ]
 
 
-def check_models(q: dict, arms: list[dict], labels: list[str]) -> None:
-    """A binary outcome is simulated with bernoulli groups only."""
-    for a, lab in zip(arms, labels, strict=True):
-        if a["family"] != "bernoulli":
-            raise QuestionError(
-                f"simulation.data.{lab}.family",
-                f"a binary outcome needs bernoulli groups; got {a['family']!r}",
-            )
-
-
 def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
     """Treatment p set to the control's (plus the margin against a margin): the null boundary."""
     margin = rule.margin if rule.aim != "superiority" else 0.0
@@ -769,7 +760,7 @@ SIMULATION = SimulationModel(
         "fisher_exact": "fisher_exact",
     },
     effect_axis=effect_axis,
-    check_models=check_models,
+    check_models=bernoulli_only,
     settings=settings,
     implied_contrast=lambda arms: models.center(arms[1]) - models.center(arms[0]),
     implied_fields=implied_fields,

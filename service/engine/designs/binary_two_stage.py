@@ -27,6 +27,7 @@ from .base import (
 from .common import (
     analysis_of,
     analytic_method,
+    bernoulli_only,
     check_aim,
     fmt,
     make_validate,
@@ -312,15 +313,6 @@ def default_data(q: dict) -> list[dict]:
     return [{"family": "bernoulli", "p": _rate(q, "p")}]
 
 
-def check_models(q: dict, arms: list[dict], labels: list[str]) -> None:
-    for a, lab in zip(arms, labels, strict=True):
-        if a["family"] != "bernoulli":
-            raise QuestionError(
-                f"simulation.data.{lab}.family",
-                f"a binary outcome needs a bernoulli group; got {a['family']!r}",
-            )
-
-
 def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict], str]:
     p0 = _rate(q, "p_null")
     return [{"family": "bernoulli", "p": p0}], f"response rate set to p_null ({p0:g})"
@@ -355,7 +347,7 @@ SIMULATION = SimulationModel(
     null_data=null_data,
     kernels={"simon_two_stage": "two_stage"},
     effect_axis=effect_axis,
-    check_models=check_models,
+    check_models=bernoulli_only,
     settings=settings,
     implied_fields=implied_fields,
     min_size=2,

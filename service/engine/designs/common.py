@@ -128,6 +128,16 @@ def analytic_method(
     }
 
 
+def bernoulli_only(q: dict, arms: list[dict], labels: list[str]) -> None:
+    """A binary outcome is simulated with bernoulli groups only (``SimulationModel.check_models``)."""
+    for arm, label in zip(arms, labels, strict=True):
+        if arm["family"] != "bernoulli":
+            raise QuestionError(
+                f"simulation.data.{label}.family",
+                f"a binary outcome needs bernoulli groups; got {arm['family']!r}",
+            )
+
+
 def no_warnings(q: dict, per_group: list[float]) -> list[str]:
     """A cell without approximation warnings."""
     return []

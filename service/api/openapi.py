@@ -21,7 +21,9 @@ from service.schemas.records import ResultRecordSchema
 from service.schemas.requests import (
     IDEMPOTENCY_DESCRIPTION,
     RobustnessPanelCreateSchema,
+    RobustnessPanelParamsSchema,
     SensitivityGridCreateSchema,
+    SensitivityGridParamsSchema,
 )
 from service.schemas.vocabulary import BLOCKS
 from service.store.models import (
@@ -42,7 +44,6 @@ bp = Blueprint("openapi", __name__)
 _PATH_PARAM = re.compile(r"<(?:[^:<>]+:)?([^<>]+)>")
 _SKIP_METHODS = {"HEAD", "OPTIONS"}
 BEARER_SCHEME = "bearer"
-LINK_SCHEME = "reportLink"
 SCHEMAS = "#/components/schemas/"
 # Enums named by their values (several members share them); others take their member's name.
 ENUM_NAMES: dict[str, tuple] = {
@@ -158,14 +159,17 @@ def _operation_dict(op: Operation, endpoint: str, *, secured: bool) -> dict:
     if not secured:
         out["security"] = []
     elif endpoint in LINK_ENDPOINTS:
-        out["security"] = [{BEARER_SCHEME: []}, {LINK_SCHEME: []}]
+        # {}: no Authorization header when the signed `link` parameter is given, so a
+        # generated client can open a report link with a client that holds no token.
+        out["security"] = [{BEARER_SCHEME: []}, {}]
     else:
         out["security"] = [{BEARER_SCHEME: []}]
     description = op.description
     if endpoint in LINK_ENDPOINTS:
-        description = (
-            f"{description} " if description else ""
-        ) + "Opens with a bearer token or, without one, with a signed `link` (POST report-links)."
+        description = (f"{description} " if description else "") + (
+            "Opens with a bearer token or, with no Authorization header, with the signed `link` "
+            "query parameter (POST /v1/requests/{request_id}/report-links)."
+        )
     if description:
         out["description"] = description
     parameters: list[dict] = []
@@ -232,22 +236,25 @@ def build_spec(app: Flask) -> dict:
     spec.components.schema("ResultRecord", schema=ResultRecordSchema)
     spec.components.schema("SensitivityGridCreate", schema=SensitivityGridCreateSchema)
     spec.components.schema("RobustnessPanelCreate", schema=RobustnessPanelCreateSchema)
+    spec.components.schema("SensitivityGridParams", schema=SensitivityGridParamsSchema)
+    spec.components.schema("RobustnessPanelParams", schema=RobustnessPanelParamsSchema)
+    spec.components.schema(
+        "ExplorationParams",
+        component={
+            "description": "What an exploration runs with, by its type (the exploration's "
+            "`type` member says which).",
+            "oneOf": [
+                {"$ref": SCHEMAS + "SensitivityGridParams"},
+                {"$ref": SCHEMAS + "RobustnessPanelParams"},
+            ],
+        },
+    )
     spec.components.security_scheme(
         BEARER_SCHEME,
         {
             "type": "http",
             "scheme": "bearer",
             "description": "An API token (sw_...) issued by an admin; its role decides access.",
-        },
-    )
-    spec.components.security_scheme(
-        LINK_SCHEME,
-        {
-            "type": "apiKey",
-            "in": "query",
-            "name": LINK_PARAM,
-            "description": "A signed report link (POST /v1/requests/{request_id}/report-links): "
-            "opens that request's report, curve.svg and curve.png for 24 hours, no token needed.",
         },
     )
     for rule in sorted(app.url_map.iter_rules(), key=lambda r: r.rule):
@@ -356,6 +363,10 @@ def _name_types(document: dict) -> None:
         kinds = list(kinds) if isinstance(kinds, list) else ([kinds] if kinds else [])
         nullable = "null" in kinds
         base = [k for k in kinds if k != "null"]
+        if base == ["object"]:  # apispec writes a Dict's Length as a string's keywords
+            for short, long in (("minLength", "minProperties"), ("maxLength", "maxProperties")):
+                if short in out:
+                    out[long] = out.pop(short)
         meta = {k: out[k] for k in ("description", "default", "title") if k in out}
         if "enum" in out and member is not None:
             values = [v for v in out["enum"] if v is not None]

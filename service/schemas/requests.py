@@ -200,6 +200,21 @@ class RobustnessPanelCreateSchema(StrictSchema):
     replicates = ExplorationCreateSchema._declared_fields["replicates"]
 
 
+class SensitivityGridParamsSchema(StrictSchema):
+    """The stored parameters of a sensitivity grid: its grid as posted."""
+
+    grid = SensitivityGridCreateSchema._declared_fields["grid"]
+
+
+class RobustnessPanelParamsSchema(StrictSchema):
+    """The stored parameters of a robustness panel: replicates per data model and the seed."""
+
+    replicates = fields.Integer(required=True)
+    seed = fields.Integer(
+        required=True, metadata={"description": "The simulated request's seed, or one drawn."}
+    )
+
+
 IDEMPOTENCY_DESCRIPTION = (
     "Makes a retried submission safe: the same key with the same body returns the first "
     "request (200) instead of storing another; the same key with another body is refused "
@@ -295,7 +310,9 @@ class ExplorationSummarySchema(StrictSchema):
     request_id = fields.String(required=True)
     type = fields.String(required=True, validate=one_of(tuple(EXPLORATION_TYPES)))
     params = fields.Dict(
-        keys=fields.String(), required=True, metadata={"description": PARAMS_DESCRIPTION}
+        keys=fields.String(),
+        required=True,
+        metadata={"description": PARAMS_DESCRIPTION, "x-component": "ExplorationParams"},
     )
     status = fields.String(required=True, validate=one_of(EXPLORATION_STATUSES))
     requested_by = fields.String(required=True)

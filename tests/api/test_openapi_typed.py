@@ -9,6 +9,7 @@ openapi-python-client in strict mode (built in a temporary folder, never committ
 from __future__ import annotations
 
 import importlib
+import inspect
 import json
 import os
 import shutil
@@ -218,6 +219,9 @@ def test_the_exploration_body_is_one_of_two_kinds(document):
     grid = schemas["SensitivityGridCreate"]
     assert grid["required"] == ["grid", "type"]
     assert grid["properties"]["grid"]["additionalProperties"]["items"]["type"] == "number"
+    assert grid["properties"]["grid"]["maxProperties"] == 3  # at most 3 axes
+    params = schemas["ExplorationSummary"]["properties"]["params"]
+    assert params["$ref"] == REF + "ExplorationParams"
     assert "grid" not in schemas["RobustnessPanelCreate"]["properties"]
     assert _errors(document, "ExplorationCreate", {"type": "sensitivity_grid"}) != []
     ok = {"type": "sensitivity_grid", "grid": {"effect.difference": [4, 5]}}
@@ -229,14 +233,13 @@ def test_the_exploration_body_is_one_of_two_kinds(document):
 def test_report_pages_take_a_link_or_a_token(document):
     for page, media in (("report", "text/html"), ("curve.svg", "image/svg+xml")):
         get = document["paths"][f"/v1/requests/{{request_id}}/{page}"]["get"]
-        assert {"bearer": []} in get["security"] and {"reportLink": []} in get["security"]
+        # A bearer token, or none at all when the signed link is given.
+        assert get["security"] == [{"bearer": []}, {}]
         link = [p for p in get["parameters"] if p["name"] == "link"]
         assert link and link[0]["in"] == "query" and not link[0]["required"]
         assert get["responses"]["200"]["content"][media]["schema"]["type"] == "string"
     png = document["paths"]["/v1/requests/{request_id}/curve.png"]["get"]["responses"]["200"]
     assert png["content"]["image/png"]["schema"]["format"] == "binary"
-    scheme = document["components"]["securitySchemes"]["reportLink"]
-    assert scheme == {**scheme, "type": "apiKey", "in": "query", "name": "link"}
     url = document["components"]["schemas"]["ReportLink"]["properties"]["url"]
     assert url["format"] == "uri"
 
@@ -367,6 +370,11 @@ def test_a_strict_generated_client_builds_and_reads_a_record(document, tmp_path)
         request_fields = {k: str(v) for k, v in models.Request.__annotations__.items()}
         assert "ResultRecord" in request_fields["result"]
         assert "RequestStatus" in request_fields["status"]
+        # The curve takes the signed link as a parameter and reads the PNG as bytes.
+        png = importlib.import_module(f"{package}.api.reports.reports_curve_png")
+        signature = inspect.signature(png.sync_detailed)
+        assert "link" in signature.parameters
+        assert "File" in str(signature.return_annotation)
         # A record the engine computed reads into typed objects and back unchanged.
         from service.engine import compute
         from service.schemas import load_question

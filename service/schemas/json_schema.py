@@ -19,7 +19,7 @@ from marshmallow import fields as mfields
 
 from . import declared
 from .data_models import FAMILY_PARAMS, data_keys, families_for
-from .fields import Choice, Flag, Number, NumberList, Obj, Text, Whole
+from .fields import TEXT_PATTERN, Choice, Flag, Number, NumberList, Obj, Text, Whole
 from .vocabulary import BLOCKS, cells, layouts, outcomes
 
 DIALECT = "https://json-schema.org/draft/2020-12/schema"
@@ -53,7 +53,7 @@ def field_schema(field: mfields.Field) -> dict:
     elif isinstance(field, Obj):
         out = {**object_schema(field.nested), **meta}  # type: ignore[arg-type]
     elif isinstance(field, Text) or isinstance(field, mfields.String):
-        out = {"type": "string", **meta}
+        out = {"type": "string", "pattern": TEXT_PATTERN, **meta}
     else:
         out = {"type": "object", **meta}
     return out if field.required else _nullable(out)

@@ -301,7 +301,10 @@ def question_components() -> dict[str, dict]:
         out[f"Question{cell}"] = {
             **{k: v for k, v in whole.items() if k not in ("$schema", "allOf", "title")},
             "properties": props,
-            "description": f"A question on {design.label} ({design.outcome} × {design.layout}).",
+            "description": f"A question on {design.label} ({design.outcome} × {design.layout}). "
+            "What it requires beyond each field's type, by aim and find (the forms of the "
+            "catalogue), is its if/then/else.",
+            **requirements(design),
         }
         shown = example(design)
         if shown is not None:  # the catalogue's example of the cell, a complete question
@@ -313,3 +316,277 @@ def question_components() -> dict[str, dict]:
         "are constants, so the pair names the variant.",
     }
     return out
+
+
+# ---------------------------------------------------------------------------------------------
+# What a complete question requires, by aim and find, from the design's declarations (forms,
+# solved, estimation.forms, aims): the same rules ``designs.common.make_validate``,
+# ``estimation_validate`` and ``rules.py`` check, written as ``if``/``then``/``else`` on the
+# aim and ``anyOf`` over find and the forms. A field is *given* when posted non-null.
+
+_BASE_TYPES = {
+    "number": "number",
+    "integer": "integer",
+    "boolean": "boolean",
+    "choice": "string",
+    "number_list": "array",
+}
+_ABSENT = {"type": "null"}  # absent or null: not posted
+# The question simulates a posted data model (resolve.from_data).
+_DATA_MODEL = {
+    "properties": {
+        "method": {"anyOf": [{"const": "simulation"}, _ABSENT]},
+        "simulation": {
+            "type": "object",
+            "required": ["data"],
+            "properties": {"data": {"type": "object"}},
+        },
+    },
+    "required": ["simulation"],
+}
+
+
+def _one(*values: Any) -> dict:
+    """One of a few constants (``anyOf`` of ``const``: no inline enum to name)."""
+    if len(values) == 1:
+        return {"const": values[0]}
+    return {"anyOf": [{"const": v} for v in values]}
+
+
+def _fields_given(design: Any, given: tuple[str, ...], absent: set[str]) -> dict:
+    """Blocks holding every field of ``given`` (non-null) and none of ``absent``."""
+    by_name = {f.name: f for f in design.fields}
+    out: dict = {"properties": {}, "required": []}
+    for block in BLOCKS:
+        need = [n for n in given if by_name[n].block == block]
+        gone = sorted(n for n in absent if by_name[n].block == block and n not in need)
+        if not need and not gone:
+            continue
+        props = {n: {"type": _BASE_TYPES[by_name[n].type]} for n in need}
+        props.update({n: _ABSENT for n in gone})
+        if need:
+            out["properties"][block] = {"type": "object", "required": need, "properties": props}
+            out["required"].append(block)
+        else:
+            out["properties"][block] = {"properties": props}
+    if not out["required"]:
+        out.pop("required")
+    return out
+
+
+def _testing_forms(design: Any, find_effect: bool) -> list[dict]:
+    """The field sets a sample-size or power question (or, ``find_effect``, a detectable-effect
+    question) gives: one form's fields, plus the solved field unless the form replaces it."""
+    effect_names = {f.name for f in design.fields if f.block == "effect"}
+    if find_effect:
+        usable = [f for f in design.forms if not set(f) & effect_names] or [()]
+    else:
+        usable = list(design.forms)
+    names = {n for form in usable for n in form}
+    # a posted data model (simulated, find not effect) implies these: they may be left out
+    implied = set(getattr(design.validate, "model_fields", ()) or ())
+    out = []
+    for form in usable:
+        given, absent = tuple(form), names - set(form)
+        if find_effect:
+            absent |= effect_names
+        elif set(form) & effect_names:
+            absent |= {design.solved}
+        else:
+            given = (*given, design.solved)
+        out.append(_fields_given(design, given, absent))
+        if implied and not find_effect:
+            out.append(
+                {
+                    **_DATA_MODEL,
+                    "allOf": [
+                        _fields_given(design, tuple(n for n in given if n not in implied), absent)
+                    ],
+                }
+            )
+    return out
+
+
+def _hypotheses(design: Any) -> list[dict]:
+    """The testing aims the cell offers, each with its margin and sidedness."""
+    aims = [a for a in design.aims() if a != "estimation"]
+    sided = {"alternative": _one("one-sided", None)}
+    out = []
+    if "superiority" in aims:
+        out.append(
+            {
+                "properties": {
+                    "hypothesis": {
+                        "anyOf": [
+                            _ABSENT,
+                            {"properties": {"aim": _one("superiority"), "margin": _ABSENT}},
+                        ]
+                    }
+                }
+            }
+        )
+    margin = {"type": "number"}
+    if "noninferiority" in aims:
+        higher = {"aim": {"const": "noninferiority"}, "higher_is_better": _one(True, None)}
+        lower = {"aim": {"const": "noninferiority"}, "higher_is_better": {"const": False}}
+        out.append(
+            {
+                "properties": {
+                    **sided,
+                    "hypothesis": {
+                        "type": "object",
+                        "required": ["aim", "margin"],
+                        "anyOf": [
+                            {"properties": {**higher, "margin": {**margin, "exclusiveMaximum": 0}}},
+                            {
+                                "required": ["higher_is_better"],
+                                "properties": {
+                                    **lower,
+                                    "margin": {**margin, "exclusiveMinimum": 0},
+                                },
+                            },
+                        ],
+                    },
+                },
+                "required": ["hypothesis"],
+            }
+        )
+    if "equivalence" in aims:
+        out.append(
+            {
+                "properties": {
+                    **sided,
+                    "hypothesis": {
+                        "type": "object",
+                        "required": ["aim", "margin"],
+                        "properties": {
+                            "aim": {"const": "equivalence"},
+                            "margin": {**margin, "exclusiveMinimum": 0},
+                        },
+                    },
+                },
+                "required": ["hypothesis"],
+            }
+        )
+    return out
+
+
+def _finds(estimation: bool) -> dict[str, dict]:
+    """find's cases: the sample size is absent when it is solved for, given otherwise."""
+    size = {"properties": {"sample_size": {"type": "object"}}, "required": ["sample_size"]}
+    if estimation:
+        return {
+            "sample_size": {
+                "properties": {
+                    "find": _one("sample_size", None),
+                    "sample_size": _ABSENT,
+                    "hypothesis": {
+                        "required": ["half_width"],
+                        "properties": {"half_width": {"type": "number"}},
+                    },
+                }
+            },
+            "precision": {
+                "allOf": [size],
+                "required": ["find"],
+                "properties": {
+                    "find": {"const": "precision"},
+                    "hypothesis": {"properties": {"half_width": _ABSENT}},
+                },
+            },
+        }
+    return {
+        "sample_size": {"properties": {"find": _one("sample_size", None), "sample_size": _ABSENT}},
+        "power": {
+            "allOf": [size],
+            "required": ["find"],
+            "properties": {"find": {"const": "power"}, "target_power": _ABSENT},
+        },
+        "effect": {
+            "allOf": [size],
+            "required": ["find"],
+            "properties": {"find": {"const": "effect"}},
+        },
+    }
+
+
+def _estimation(design: Any) -> dict:
+    """A precision question (hypothesis.aim estimation): exactly one of the estimation forms,
+    a two-sided analytic interval, no test level, power, clusters, comparisons or interim."""
+    if design.estimation is None:
+        return {"not": {}}
+    forms = design.estimation.forms
+    used = {n for form in forms for n in form}
+    unused = {f.name: f for f in design.fields if f.name not in used}
+    fixed: dict = {}
+    for name, f in unused.items():  # accepted only at the declared default
+        rule = _ABSENT if f.default is None else {"anyOf": [_ABSENT, {"const": f.default}]}
+        fixed.setdefault(f.block, {})[name] = rule
+    branches = []
+    for form in forms:
+        given = _fields_given(design, tuple(form), used - set(form))
+        for block, props in fixed.items():
+            target = given["properties"].setdefault(block, {"properties": {}})
+            target.setdefault("properties", {}).update(props)
+        branches.append(given)
+    hypothesis: dict = {"margin": _ABSENT, "higher_is_better": _ABSENT}
+    if not design.estimation.assurance:
+        hypothesis["assurance"] = _ABSENT
+    return {
+        "properties": {
+            "alpha": _ABSENT,
+            "target_power": _ABSENT,
+            "alternative": _one("two-sided", None),
+            "method": _one("analytic", None),
+            "interim": _ABSENT,
+            "assurance": _ABSENT,
+            "adjustments": {
+                "properties": {"cluster": _ABSENT, "comparisons": _one(1, None)},
+            },
+            "hypothesis": {"properties": hypothesis},
+        },
+        "allOf": [{"anyOf": list(_finds(True).values())}, {"anyOf": branches}],
+    }
+
+
+def _testing(design: Any) -> dict:
+    """A sample-size, power or detectable-effect question on a testing aim the cell offers."""
+    hypotheses = _hypotheses(design)
+    if not hypotheses:
+        return {"not": {}}
+    cases = []
+    for find, case in _finds(False).items():
+        cases.append({**case, "anyOf": _testing_forms(design, find == "effect")})
+    alternative: dict = {}
+    if not getattr(design, "directional", True):
+        alternative = {"alternative": _one("two-sided", None)}
+    elif getattr(design, "one_sided_only", False):
+        alternative = {"alternative": _one("one-sided", None)}
+    return {
+        "properties": {
+            **alternative,
+            "hypothesis": {
+                "properties": {"half_width": _ABSENT, "confidence": _ABSENT, "assurance": _ABSENT}
+            },
+        },
+        "allOf": [{"anyOf": hypotheses}, {"anyOf": cases}],
+    }
+
+
+def requirements(design: Any) -> dict:
+    """``if`` the question asks for precision, ``then`` the estimation forms, ``else`` a testing
+    aim with find's forms: what the cell requires beyond each field's type and range."""
+    return {
+        "if": {
+            "properties": {
+                "hypothesis": {
+                    "type": "object",
+                    "required": ["aim"],
+                    "properties": {"aim": {"const": "estimation"}},
+                }
+            },
+            "required": ["hypothesis"],
+        },
+        "then": _estimation(design),
+        "else": _testing(design),
+    }

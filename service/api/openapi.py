@@ -335,8 +335,35 @@ _NOT_TEXT = ("enum", "const", "pattern", "format", "contentMediaType")
 
 
 def _text_patterns(document: dict) -> None:
-    """Every free-text string says that control characters are refused (``TEXT_PATTERN``):
-    body members and keys, query and header values (the server's io.text_problem)."""
+    """Every free-text string the server reads says that control characters are refused
+    (``TEXT_PATTERN``): body members and keys, query and header values (io.text_problem).
+    Only what a request carries: an answer may echo what was refused (a problem's instance)."""
+    schemas = document.get("components", {}).get("schemas", {})
+    inputs: list = []
+    for item in document.get("paths", {}).values():
+        for method, op in item.items():
+            if method == "parameters":
+                continue
+            inputs.extend(p.get("schema", {}) for p in op.get("parameters", []))
+            for media in ((op.get("requestBody") or {}).get("content") or {}).values():
+                inputs.append(media.get("schema", {}))
+    reached: set[str] = set()
+
+    def refs(node) -> None:
+        if isinstance(node, list):
+            for item in node:
+                refs(item)
+        elif isinstance(node, dict):
+            ref = node.get("$ref")
+            if isinstance(ref, str) and ref.startswith(SCHEMAS):
+                name = ref.removeprefix(SCHEMAS)
+                if name not in reached and name in schemas:
+                    reached.add(name)
+                    refs(schemas[name])
+            for value in node.values():
+                refs(value)
+
+    refs(inputs)
 
     def visit(node) -> None:
         if isinstance(node, list):
@@ -353,8 +380,9 @@ def _text_patterns(document: dict) -> None:
             if key not in ("examples", "example", "default", "enum", "const"):
                 visit(value)
 
-    visit(document.get("components", {}).get("schemas", {}))
-    visit(document.get("paths", {}))
+    visit(inputs)
+    for name in sorted(reached):
+        visit(schemas[name])
 
 
 def _link_questions(document: dict) -> None:

@@ -5,9 +5,10 @@ OpenAPI document's ``Question`` component (OpenAPI 3.1 schemas are JSON Schema 2
 common fields come from ``QuestionSchema``'s strict fields (types, ranges, enums, descriptions);
 each registered cell adds one ``if``/``then`` branch giving its analyses, the fields of its
 ``effect``, ``assumptions`` and ``analysis_options`` blocks and the shape of its data model.
-The schema refuses wrong types, ranges, unknown keys and analyses outside the cell; what depends
-on several fields at once (forms, find, a margin's sign) is checked by the API, whose 422
-problem names the field.
+The schema refuses wrong types, ranges, unknown keys and analyses outside the cell, and requires what a
+complete question gives by aim and find (``requirements``: the forms, the solved field, the
+sample size, the margin's sign); what compares values (a target power above alpha, an effect in
+the hypothesis's direction) or needs the engine is checked by the API, whose 422 names the field.
 """
 
 from __future__ import annotations
@@ -60,14 +61,23 @@ def field_schema(field: mfields.Field) -> dict:
 
 
 def object_schema(schema: type[Schema] | Schema) -> dict:
-    """A ``Strict`` schema as a closed JSON object."""
+    """A ``Strict`` schema as a closed JSON object; a schema whose ``exactly_one`` names two
+    fields takes one of them, given (non-null), and not the other (``if``/``then``/``else``)."""
     declared_fields = schema._declared_fields if isinstance(schema, type) else schema.fields
-    return {
+    out = {
         "type": "object",
         "properties": {name: field_schema(f) for name, f in declared_fields.items()},
         "required": [name for name, f in declared_fields.items() if f.required],
         "additionalProperties": False,
     }
+    pair = getattr(schema, "exactly_one", None)
+    if pair:
+        first, second = pair
+        kind = [t for t in out["properties"][second]["type"] if t != "null"]
+        out["if"] = {"properties": {first: {"type": "null"}}}
+        out["then"] = {"required": [second], "properties": {second: {"type": kind[0]}}}
+        out["else"] = {"properties": {second: {"type": "null"}}}
+    return out
 
 
 def declared_schema(field: Any) -> dict:
@@ -128,7 +138,9 @@ def cell_branch(design: Any) -> dict:
             "analysis": {"enum": [*names, None]},
             **{block: block_schema(design, block) for block in BLOCKS},
             "simulation": {"properties": {"data": data_schema(design)}},
-        }
+        },
+        # what a complete question of the cell requires, by aim and find
+        "allOf": [requirements(design)],
     }
     return {
         "if": {
@@ -164,8 +176,9 @@ def question_json_schema() -> dict:
         "title": "sizewise question",
         "description": "A sample-size, power or detectable-effect question. The cell (outcome × "
         "layout) decides the analyses and the fields of effect, assumptions and "
-        "analysis_options; rules across fields (which alternative fields form a complete "
-        "question, find, the margin's sign) are checked by the API.",
+        "analysis_options, and which of them a complete question gives (by aim and find, the "
+        "margin's sign); rules across values (a target power above alpha, an effect in the "
+        "hypothesis's direction, what the engine can compute) are checked by the API.",
         **body,
         "allOf": [{"anyOf": pairs}, *(cell_branch(d) for d in cells())],
     }
@@ -471,9 +484,22 @@ def _hypotheses(design: Any) -> list[dict]:
     return out
 
 
-def _finds(estimation: bool) -> dict[str, dict]:
-    """find's cases: the sample size is absent when it is solved for, given otherwise."""
-    size = {"properties": {"sample_size": {"type": "object"}}, "required": ["sample_size"]}
+def group_count(design: Any) -> int | None:
+    """The cell's number of groups when its layout fixes it (None: the question says it)."""
+    try:
+        count = design.groups({})
+    except Exception:  # noqa: BLE001 - a count read from the question's fields
+        return None
+    return count if isinstance(count, int) else None
+
+
+def _finds(estimation: bool, groups: int | None = None) -> dict[str, dict]:
+    """find's cases: the sample size is absent when it is solved for, given otherwise (one
+    number per group where the layout fixes their count)."""
+    given: dict = {"type": "object"}
+    if groups is not None:
+        given["properties"] = {"per_group": {"minItems": groups, "maxItems": groups}}
+    size = {"properties": {"sample_size": given}, "required": ["sample_size"]}
     if estimation:
         return {
             "sample_size": {
@@ -545,7 +571,10 @@ def _estimation(design: Any) -> dict:
             },
             "hypothesis": {"properties": hypothesis},
         },
-        "allOf": [{"anyOf": list(_finds(True).values())}, {"anyOf": branches}],
+        "allOf": [
+            {"anyOf": list(_finds(True, group_count(design)).values())},
+            {"anyOf": branches},
+        ],
     }
 
 
@@ -555,7 +584,7 @@ def _testing(design: Any) -> dict:
     if not hypotheses:
         return {"not": {}}
     cases = []
-    for find, case in _finds(False).items():
+    for find, case in _finds(False, group_count(design)).items():
         cases.append({**case, "anyOf": _testing_forms(design, find == "effect")})
     alternative: dict = {}
     if not getattr(design, "directional", True):

@@ -420,8 +420,43 @@ def _testing_forms(design: Any, find_effect: bool) -> list[dict]:
     return out
 
 
+def _methods(design: Any, aim: str) -> dict:
+    """The methods that answer ``aim`` in the cell, each with the analyses it honors there; a
+    simulation block only with method simulation (analytic is the default)."""
+    out = []
+    for method in ("analytic", "simulation"):
+        names = design.analyses_for(method, aim)
+        if not names:
+            continue
+        if method == "analytic":
+            props = {"method": _one("analytic", None), "simulation": _ABSENT}
+            out.append({"properties": {**props, "analysis": _one(*names, None)}})
+        else:
+            out.append(
+                {
+                    "required": ["method"],
+                    "properties": {"method": {"const": method}, "analysis": _one(*names, None)},
+                }
+            )
+            # resolve.method: a data model posted without the solved field it implies is
+            # simulated when no method is named
+            block = next(f.block for f in design.fields if f.name == design.solved)
+            out.append(
+                {
+                    "properties": {
+                        **_DATA_MODEL["properties"],
+                        "method": _ABSENT,
+                        "analysis": _ABSENT,
+                        block: {"properties": {design.solved: _ABSENT}},
+                    },
+                    "required": ["simulation"],
+                }
+            )
+    return {"anyOf": out} if out else {"not": {}}
+
+
 def _hypotheses(design: Any) -> list[dict]:
-    """The testing aims the cell offers, each with its margin and sidedness."""
+    """The testing aims the cell offers, each with its margin, sidedness and methods."""
     aims = [a for a in design.aims() if a != "estimation"]
     sided = {"alternative": _one("one-sided", None)}
     out = []
@@ -435,7 +470,8 @@ def _hypotheses(design: Any) -> list[dict]:
                             {"properties": {"aim": _one("superiority"), "margin": _ABSENT}},
                         ]
                     }
-                }
+                },
+                "allOf": [_methods(design, "superiority")],
             }
         )
     margin = {"type": "number"}
@@ -462,6 +498,7 @@ def _hypotheses(design: Any) -> list[dict]:
                     },
                 },
                 "required": ["hypothesis"],
+                "allOf": [_methods(design, "noninferiority")],
             }
         )
     if "equivalence" in aims:
@@ -479,6 +516,7 @@ def _hypotheses(design: Any) -> list[dict]:
                     },
                 },
                 "required": ["hypothesis"],
+                "allOf": [_methods(design, "equivalence")],
             }
         )
     return out
@@ -531,7 +569,11 @@ def _finds(estimation: bool, groups: int | None = None) -> dict[str, dict]:
         "effect": {
             "allOf": [size],
             "required": ["find"],
-            "properties": {"find": {"const": "effect"}},
+            # a posted data model has no single effect parameter to move
+            "properties": {
+                "find": {"const": "effect"},
+                "simulation": {"properties": {"data": _ABSENT}},
+            },
         },
     }
 

@@ -288,6 +288,7 @@ def build_spec(app: Flask) -> dict:
     _webhook_url(document, bool(app.extensions["sizewise"]["config"].get("WEBHOOK_ALLOW_HTTP")))
     _link_questions(document)
     _explorations_by_type(document)
+    _analytic_calculations(document)
     _text_patterns(document)
     _name_types(document)
     _extend(document)
@@ -402,6 +403,24 @@ def _link_questions(document: dict) -> None:
                     **typed,
                     "description": member.get("description", f"The {target}."),
                 }
+
+
+def _analytic_calculations(document: dict) -> None:
+    """POST /v1/calculations answers analytic questions only: no method simulation and no
+    simulation block (a data model alone is simulated); simulations go to /v1/requests."""
+    body = document["components"]["schemas"]["CalculationCreate"]
+    body["dependentSchemas"] = {
+        "question": {
+            "properties": {
+                "question": {
+                    "properties": {
+                        "method": {"anyOf": [{"const": "analytic"}, {"type": "null"}]},
+                        "simulation": {"type": "null"},
+                    }
+                }
+            }
+        }
+    }
 
 
 def _explorations_by_type(document: dict) -> None:

@@ -560,7 +560,11 @@ def _finds(estimation: bool, groups: int | None = None) -> dict[str, dict]:
         "power": {
             "allOf": [size],
             "required": ["find"],
-            "properties": {"find": {"const": "power"}, "target_power": _ABSENT},
+            "properties": {
+                "find": {"const": "power"},
+                "target_power": _ABSENT,
+                "allocation_rounding": {"anyOf": [_ABSENT, {"const": "each_group"}]},
+            },
         },
         "effect": {
             "allOf": [size],
@@ -569,6 +573,7 @@ def _finds(estimation: bool, groups: int | None = None) -> dict[str, dict]:
             "properties": {
                 "find": {"const": "effect"},
                 "simulation": {"properties": {"data": _ABSENT}},
+                "allocation_rounding": {"anyOf": [_ABSENT, {"const": "each_group"}]},
             },
         },
     }
@@ -640,9 +645,30 @@ def _testing(design: Any) -> dict:
     }
 
 
+def _allocation(design: Any) -> dict:
+    """An allocation ratio (other than 1) and exact-ratio rounding only where the layout sizes
+    its groups by a ratio (rules.allocation); an interim block only where the cell offers it."""
+    from .vocabulary import takes_ratio
+
+    out: dict = {}
+    if not getattr(design, "sequential", False):  # the catalogue's interim: false
+        out["interim"] = _ABSENT
+    if takes_ratio(design):
+        return out
+    return {
+        **out,
+        "allocation_ratio": {"anyOf": [_ABSENT, {"const": 1}]},
+        "allocation_rounding": {"anyOf": [_ABSENT, {"const": "each_group"}]},
+    }
+
+
 def requirements(design: Any) -> dict:
     """``if`` the question asks for precision, ``then`` the estimation forms, ``else`` a testing
     aim with find's forms: what the cell requires beyond each field's type and range."""
+    estimation, testing = _estimation(design), _testing(design)
+    for branch in (estimation, testing):
+        if "properties" in branch:
+            branch["properties"].update(_allocation(design))
     return {
         "if": {
             "properties": {
@@ -654,6 +680,6 @@ def requirements(design: Any) -> dict:
             },
             "required": ["hypothesis"],
         },
-        "then": _estimation(design),
-        "else": _testing(design),
+        "then": estimation,
+        "else": testing,
     }

@@ -62,6 +62,10 @@ FUZZ = settings(
 )
 
 
+VALUE_RULES = (
+    "must sum to 1",  # category probabilities: their sum
+    "must be in (alpha, 1)",  # target_power against alpha (posted or the aim's default)
+)
 ENGINE_REFUSALS = (
     "the question cannot be computed",
     "the engine cannot answer this question as posed",
@@ -92,6 +96,20 @@ def _beyond_the_document(operation, case, response) -> bool:
         name = body.get("name")
         return isinstance(name, str) and not name.strip().isprintable() and set(errors) == {"name"}
     question = body.get("question") if isinstance(body.get("question"), dict) else {}
+    if errors and all(
+        all(message.startswith(VALUE_RULES) for message in messages) for messages in errors.values()
+    ):
+        # Rules on several values at once (VALUE_RULES), which JSON Schema cannot compare; the
+        # fields' descriptions say them.
+        return True
+    rounding = errors.get("question.allocation_rounding") or []
+    if set(errors) == {"question.allocation_rounding"} and all(
+        "fraction with denominator at most 100" in m or "simulated search" in m or "cluster" in m
+        for m in rounding
+    ):
+        # exact_ratio needs a ratio that is a fraction with a small denominator, an analytic
+        # answer and no clusters: values and blocks together, said in the field's description.
+        return True
     target = errors.get("question.target_power") or []
     if set(errors) == {"question.target_power"} and all(
         message.startswith("must be in (alpha, 1)") for message in target
@@ -107,6 +125,14 @@ def _beyond_the_document(operation, case, response) -> bool:
         return set(errors) == {"question.sample_size.per_group"} and all(
             message.startswith("must list") for message in errors["question.sample_size.per_group"]
         )
+    if (
+        operation.path == "/v1/requests"
+        and errors
+        and all(key.startswith("explorations.") for key in errors)
+    ):
+        # The explorations posted with a question: a grid's axes name that question's numeric
+        # fields, and a robustness panel needs a tested question; both depend on the question.
+        return True
     if operation.path.endswith("/explorations") and operation.method.upper() == "POST":
         # A grid's axes are the numeric fields of that request's stored question, and their
         # values ones its cell accepts: they depend on the stored request, not on the document.

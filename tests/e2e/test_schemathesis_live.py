@@ -65,6 +65,7 @@ FUZZ = settings(
 VALUE_RULES = (
     "must sum to 1",  # category probabilities: their sum
     "must be in (alpha, 1)",  # target_power against alpha (posted or the aim's default)
+    "a cell of the paired table would be negative",  # a correlation against two proportions
 )
 ENGINE_REFUSALS = (
     "the question cannot be computed",
@@ -97,7 +98,8 @@ def _beyond_the_document(operation, case, response) -> bool:
         return isinstance(name, str) and not name.strip().isprintable() and set(errors) == {"name"}
     question = body.get("question") if isinstance(body.get("question"), dict) else {}
     if errors and all(
-        all(message.startswith(VALUE_RULES) for message in messages) for messages in errors.values()
+        all(any(rule in message for rule in VALUE_RULES) for message in messages)
+        for messages in errors.values()
     ):
         # Rules on several values at once (VALUE_RULES), which JSON Schema cannot compare; the
         # fields' descriptions say them.

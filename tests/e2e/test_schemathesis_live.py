@@ -66,6 +66,7 @@ VALUE_RULES = (
     "must sum to 1",  # category probabilities: their sum
     "must be in (alpha, 1)",  # target_power against alpha (posted or the aim's default)
     "a cell of the paired table would be negative",  # a correlation against two proportions
+    "every group needs at least 2",  # a total split by the allocation ratio
 )
 ENGINE_REFUSALS = (
     "the question cannot be computed",

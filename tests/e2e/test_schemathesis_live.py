@@ -8,6 +8,12 @@ document: no 5xx, a documented status, content type, headers and body schema, 40
 token, 405 for methods the path does not have. Half the positive cases of an operation with a
 ``request_id`` in its path use a real computed request, so success answers are checked too.
 
+Positive data: the document states what a complete question requires (by aim, find and the
+cell's forms), text without control characters, the filters' words. What JSON Schema cannot
+state is named in ``_beyond_the_document`` with its reason (values compared with each other, the
+engine's own answer, the deployment's budget, what depends on a stored request, a token name's
+Unicode categories); any other refusal of document-valid data fails the test.
+
 Bounded by ``MAX_EXAMPLES`` per operation and mode (derandomized, no shrinking): about 750
 calls, a minute or two on the CI machine.
 """

@@ -15,14 +15,17 @@ from typing import Any
 from flask import request
 from marshmallow import Schema
 
+from service.schemas.fields import CONTROL
+
 from .errors import ApiError, NotFound, ValidationFailed, flatten_errors
 
 JSON_TYPES = ("application/json",)
 # Deepest legitimate body (a question inside a submission) is 6 levels; 64 leaves room and keeps
 # the parser far from Python's recursion limit.
 MAX_DEPTH = 64
-# C0 controls but tab, newline and carriage return; DEL and the C1 controls.
-_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
+# C0 controls but tab, newline and carriage return; DEL and the C1 controls (the documents'
+# TEXT_PATTERN says the same).
+_CONTROL = CONTROL
 _SURROGATE = re.compile(r"[\ud800-\udfff]")
 
 

@@ -16,6 +16,7 @@ from service.schemas import register_openapi_types
 from service.schemas.api import ProblemSchema
 from service.schemas.catalogue import DECLARED_TYPES, JSON_TYPES
 from service.schemas.data_models import FAMILIES
+from service.schemas.fields import TEXT_PATTERN
 from service.schemas.json_schema import camel, question_components
 from service.schemas.records import ResultRecordSchema
 from service.schemas.requests import (
@@ -25,7 +26,7 @@ from service.schemas.requests import (
     SensitivityGridCreateSchema,
     SensitivityGridParamsSchema,
 )
-from service.schemas.vocabulary import BLOCKS
+from service.schemas.vocabulary import BLOCKS, layouts, outcomes
 from service.store.models import (
     EXPLORATION_TYPES,
     MESSAGE_STATUSES,
@@ -38,6 +39,8 @@ from .auth import LINK_ENDPOINTS, LINK_PARAM, PAGES_PREFIX, PUBLIC
 from .docs import Operation, operation
 from .errors import PROBLEM_MEDIA_TYPE
 from .webhooks import EVENTS as WEBHOOK_EVENTS
+from .webhooks import URL_MAX as WEBHOOK_URL_MAX
+from .webhooks import webhook_url_pattern
 
 bp = Blueprint("openapi", __name__)
 
@@ -227,6 +230,7 @@ def build_spec(app: Flask) -> dict:
         },
     )
     register_openapi_types(plugin)  # needs the converter that APISpec's init just made
+    plugin.converter.add_attribute_function(_dict_keys)
     plugin.map_to_openapi_type(fields.Url, "string", "uri")  # JSON Schema's name for a URL
     spec.components.schema("Problem", schema=ProblemSchema)
     # The question is generated from the designs' declarations (OpenAPI 3.1 schemas are JSON
@@ -280,11 +284,106 @@ def build_spec(app: Flask) -> dict:
         ]
         spec.path(path=path, operations=operations, parameters=parameters or None)
     document = spec.to_dict()
+    _cell_words(document)
+    _webhook_url(document, bool(app.extensions["sizewise"]["config"].get("WEBHOOK_ALLOW_HTTP")))
     _link_questions(document)
     _explorations_by_type(document)
+    _analytic_calculations(document)
+    _text_patterns(document)
     _name_types(document)
     _extend(document)
     return document
+
+
+def _dict_keys(self, field, **kwargs) -> dict:
+    """A Dict's keys as ``propertyNames`` (apispec writes only its values)."""
+    if isinstance(field, fields.Dict) and field.key_field is not None:
+        return {"propertyNames": self.field2property(field.key_field)}
+    return {}
+
+
+def _cell_words(document: dict) -> None:
+    """The list filters ``outcome`` and ``layout`` take the registered cells' words."""
+    words = {"outcome": list(outcomes()), "layout": list(layouts())}
+    for item in document.get("paths", {}).values():
+        for method, op in item.items():
+            if method == "parameters":
+                continue
+            for parameter in op.get("parameters", []):
+                if parameter.get("in") == "query" and parameter.get("name") in words:
+                    parameter["schema"] = {
+                        **parameter["schema"],
+                        "type": "string",
+                        "enum": words[parameter["name"]],
+                    }
+
+
+def _webhook_url(document: dict, allow_http: bool) -> None:
+    """The callback URL's pattern: the scheme this service accepts and the shape url_problem
+    checks (a host, an optional port 1-65535, no user name, password or fragment)."""
+    url = document["components"]["schemas"]["WebhookPut"]["properties"]["url"]
+    url["pattern"] = webhook_url_pattern(allow_http)
+    url["maxLength"] = WEBHOOK_URL_MAX
+    url["description"] = (
+        url.get("description", "")
+        + " An absolute URL naming a host, without a user name, password or #fragment"
+        + ("." if allow_http else ", not pointing at this machine (loopback).")
+    )
+
+
+# Strings that are not free text: their own pattern, format or values say what they hold.
+_NOT_TEXT = ("enum", "const", "pattern", "format", "contentMediaType")
+
+
+def _text_patterns(document: dict) -> None:
+    """Every free-text string the server reads says that control characters are refused
+    (``TEXT_PATTERN``): body members and keys, query and header values (io.text_problem).
+    Only what a request carries: an answer may echo what was refused (a problem's instance)."""
+    schemas = document.get("components", {}).get("schemas", {})
+    inputs: list = []
+    for item in document.get("paths", {}).values():
+        for method, op in item.items():
+            if method == "parameters":
+                continue
+            inputs.extend(p.get("schema", {}) for p in op.get("parameters", []))
+            for media in ((op.get("requestBody") or {}).get("content") or {}).values():
+                inputs.append(media.get("schema", {}))
+    reached: set[str] = set()
+
+    def refs(node) -> None:
+        if isinstance(node, list):
+            for item in node:
+                refs(item)
+        elif isinstance(node, dict):
+            ref = node.get("$ref")
+            if isinstance(ref, str) and ref.startswith(SCHEMAS):
+                name = ref.removeprefix(SCHEMAS)
+                if name not in reached and name in schemas:
+                    reached.add(name)
+                    refs(schemas[name])
+            for value in node.values():
+                refs(value)
+
+    refs(inputs)
+
+    def visit(node) -> None:
+        if isinstance(node, list):
+            for item in node:
+                visit(item)
+            return
+        if not isinstance(node, dict):
+            return
+        kinds = node.get("type")
+        kinds = kinds if isinstance(kinds, list) else [kinds]
+        if "string" in kinds and not any(key in node for key in _NOT_TEXT):
+            node["pattern"] = TEXT_PATTERN
+        for key, value in node.items():
+            if key not in ("examples", "example", "default", "enum", "const"):
+                visit(value)
+
+    visit(inputs)
+    for name in sorted(reached):
+        visit(schemas[name])
 
 
 def _link_questions(document: dict) -> None:
@@ -304,6 +403,24 @@ def _link_questions(document: dict) -> None:
                     **typed,
                     "description": member.get("description", f"The {target}."),
                 }
+
+
+def _analytic_calculations(document: dict) -> None:
+    """POST /v1/calculations answers analytic questions only: no method simulation and no
+    simulation block (a data model alone is simulated); simulations go to /v1/requests."""
+    body = document["components"]["schemas"]["CalculationCreate"]
+    body["dependentSchemas"] = {
+        "question": {
+            "properties": {
+                "question": {
+                    "properties": {
+                        "method": {"anyOf": [{"const": "analytic"}, {"type": "null"}]},
+                        "simulation": {"type": "null"},
+                    }
+                }
+            }
+        }
+    }
 
 
 def _explorations_by_type(document: dict) -> None:

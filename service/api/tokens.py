@@ -33,7 +33,11 @@ class TokenCreateSchema(StrictSchema):
         metadata={
             "description": "Who holds the token; recorded as the actor in the audit trail. "
             "Optional: without it the token is named after its role, as `sizewise tokens "
-            "create` names one without --name."
+            "create` names one without --name. Stored without leading and trailing white "
+            f"space, 1-{store.NAME_MAX} printable characters: no control character (the "
+            "pattern), and no format, private-use, unassigned or separator character other "
+            "than the plain space (Python's str.isprintable).",
+            "pattern": store.NAME_PATTERN,
         },
     )
 

@@ -34,6 +34,20 @@ bp = Blueprint("webhooks", __name__, url_prefix="/v1")
 URL_MAX = 2000
 
 
+# A TCP port 1-65535, as urlsplit reads it (no leading zeros needed).
+_PORT = r"(6553[0-5]|655[0-2][0-9]|65[0-4][0-9]{2}|6[0-4][0-9]{3}|[1-5][0-9]{4}|[1-9][0-9]{0,3})"
+
+
+def webhook_url_pattern(allow_http: bool) -> str:
+    """The callback URLs ``url_problem`` accepts, as a pattern (for the OpenAPI document): the
+    scheme, a host name or IPv4 address, an optional port, then a path or query of URI
+    characters without a fragment. (The server also takes what the pattern leaves out, such as IPv6
+    literals and non-ASCII paths; loopback hosts are refused outside a local run.)"""
+    scheme = "https?" if allow_http else "https"
+    uri = r"(%[0-9A-Fa-f]{2}|[A-Za-z0-9._~:/?@!$&'()*+,;=-])"  # RFC 3986, no fragment
+    return rf"^{scheme}://[A-Za-z0-9._~-]+(:{_PORT})?([/?]{uri}*)?$"
+
+
 def url_problem(url: str, allow_http: bool) -> str | None:
     """Why ``url`` cannot be a callback URL (None when it can)."""
     if len(url) > URL_MAX:

@@ -88,9 +88,13 @@ def compute(
     except Exception as exc:  # numerics failing in an unforeseen corner still get a typed error
         # Users read the words; the exception travels on as the cause, for the logs.
         raise EngineError(f"the computation failed: {describe_failure(exc)}") from exc
+    try:
+        sealed = seal(record)
+    except ValueError as exc:  # a value overflowed to infinity or NaN on the way
+        raise EngineError(f"the computation failed: a result is not finite ({exc})") from exc
     if progress is not None:
         progress(1.0)
-    return seal(record)
+    return sealed
 
 
 class _CallerError(Exception):

@@ -27,6 +27,8 @@ from .vocabulary import AIMS, DECISION_RULES, MAX_N, SEED_LIMIT, cell_of
 class SampleSizeSchema(Strict):
     """Enrolled numbers: ``per_group`` (control first) or a ``total`` split by the allocation."""
 
+    exactly_one = ("per_group", "total")  # the JSON Schema says it too
+
     per_group = NumberList(
         Whole(Interval(2, MAX_N), required=True, description="enrolled subjects in one group"),
         min_length=1,
@@ -171,6 +173,8 @@ DEFAULT_CONFIDENCE = 0.95  # common practice, no source
 
 class ClusterSchema(Strict):
     """Cluster randomization: design effect 1 + ((cv² + 1)·mean_size − 1)·icc, whole clusters."""
+
+    exactly_one = ("mean_size", "clusters_per_group")  # the JSON Schema says it too
 
     mean_size = Number(
         Interval(1, None),

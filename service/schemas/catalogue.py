@@ -275,6 +275,19 @@ class DataModelEntrySchema(Schema):
     families = fields.List(fields.String(validate=validate.OneOf(FAMILIES)), required=True)
 
 
+class EstimationEntrySchema(Schema):
+    """How a cell answers a precision question (hypothesis.aim estimation)."""
+
+    forms = fields.List(
+        fields.List(fields.String()),
+        required=True,
+        metadata={"description": "The field sets a precision question takes (exactly one)."},
+    )
+    assurance = fields.Boolean(
+        required=True, metadata={"description": "Takes hypothesis.assurance."}
+    )
+
+
 class CellEntrySchema(Schema):
     """One cell (outcome × layout): its analyses, declared fields, forms and example."""
 
@@ -295,6 +308,12 @@ class CellEntrySchema(Schema):
         metadata={"description": "The effect field find = effect solves for."},
     )
     interim = fields.Boolean(required=True, metadata={"description": "Offers interim analyses."})
+    estimation = fields.Nested(
+        EstimationEntrySchema,
+        required=True,
+        allow_none=True,
+        metadata={"description": "Precision questions: their forms; null when not offered."},
+    )
     data_model = fields.Nested(DataModelEntrySchema, required=True, allow_none=True)
     example = fields.Dict(
         required=True,

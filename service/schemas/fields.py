@@ -10,11 +10,20 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
 from marshmallow import EXCLUDE, Schema, ValidationError, fields, pre_load, validates_schema
+
+# C0 controls but tab, newline and carriage return; DEL and the C1 controls: refused in every
+# string the API reads (body values and keys, query values, path ids; NUL cannot be stored in
+# PostgreSQL text). The class reads the same in Python's re and in ECMA-262, so the OpenAPI
+# document and the JSON Schema say it as the ``pattern`` of every free-text string.
+CONTROL_CLASS = r"\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f"
+CONTROL = re.compile(f"[{CONTROL_CLASS}]")
+TEXT_PATTERN = f"^[^{CONTROL_CLASS}]*$"
 
 # ---------------------------------------------------------------------------------------------
 # Messages and intervals

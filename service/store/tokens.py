@@ -23,6 +23,11 @@ from .types import utcnow
 
 TOKEN_PREFIX = "sw_"
 NAME_MAX = 120
+# The part of check_name's "printable" rule a JSON Schema pattern can say (ECMA-262 without the
+# u flag names no Unicode categories): no control character at all (tab and newline included)
+# and at least one character that is not white space.
+_NAME_CHAR = r"[^\x00-\x1f\x7f-\x9f]"
+NAME_PATTERN = rf"^{_NAME_CHAR}*[^\s\x00-\x1f\x7f-\x9f]{_NAME_CHAR}*$"
 DEMO_TOKEN_NAME = "demo statistician"
 # last_used_at is a hint for admins, not a log: writing it at most once a minute keeps a busy
 # token from turning every read into a write (SQLite has a single writer).

@@ -228,6 +228,7 @@ def make_validate(
             rules(errors, values(blocks, fields), find, from_data)
         return errors
 
+    validate.model_fields = model_fields  # type: ignore[attr-defined]  # the JSON Schema reads it
     return validate
 
 

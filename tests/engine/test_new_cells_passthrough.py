@@ -49,7 +49,7 @@ CASES = [
         "northbridge_smoking_cessation_rate.json",
         ("analysis", "exact_binomial"),
         (
-            "Binary outcome, single group against a reference rate",
+            "Binary outcome, single group",
             "a reference rate of 0.2",
             "from n = 59 on",
         ),

@@ -60,3 +60,20 @@ def test_report_page_shows_the_precision_and_no_power(hyp):
     assert "Significance level" not in text and "Target power" not in text
     assert fmt_num(record["precision"]["half_width_expected"]) in text
     assert "half-width" in text and "confidence interval" in text
+
+
+def test_the_report_header_names_precision_not_power():
+    # A precision question computes no power: the page's header says what it reports.
+    record = compute(
+        load_question(
+            {
+                "outcome": "binary",
+                "layout": "single_group",
+                "hypothesis": {"aim": "estimation", "half_width": 0.05},
+                "effect": {"p": 0.3},
+            }
+        )
+    )
+    page = render_report(REQUEST, record, curve_svg=power_curve_svg(curve_points(record, points=5)))
+    assert "Sample size and precision report" in page
+    assert "Sample size and power report" not in page

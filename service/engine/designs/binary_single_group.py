@@ -91,14 +91,14 @@ ANALYSES = (
         "Wilson score interval for a proportion",
         ("analytic",),
         ("estimation",),
-        "Wilson 1927, JASA 22:209; half-width at the planned rate",
+        "Wilson 1927, JASA 22:209",
     ),
     Analysis(
         "clopper_pearson_interval",
         "Clopper–Pearson exact interval for a proportion",
         ("analytic",),
         ("estimation",),
-        "Clopper & Pearson 1934, Biometrika 26:404; half-width at the planned rate",
+        "Clopper & Pearson 1934, Biometrika 26:404",
     ),
 )
 # the interval analyses and the method name precision.proportion_half_width takes
@@ -368,7 +368,7 @@ def _contrast(q: dict) -> float | None:
 DESIGN = Design(
     outcome="binary",
     layout="single_group",
-    label="Binary outcome, single group against a reference rate",
+    label="Binary outcome, single group",
     fields=FIELDS,
     forms=FORMS,
     solved="p",

@@ -2,7 +2,7 @@
 
 The engine (continuous_two_groups.ancova_se_df) plans the baseline-adjusted difference with
 variance σ²(1 − ρ²)(1/n₁ + 1/n₂)·(1 + 1/(N − 4)) on N − 3 df: the design factor 1 − ρ² of
-Borm, Fransen & Lemmens (2007), J Clin Epidemiol 60:1234 (*formula*, REFERENCES.md row), times
+Borm, Fransen & Lemmens (2007), J Clin Epidemiol 60:1234 (*formula*), times
 the expected inflation from estimating the slope with a random baseline. That inflation is
 E[1 + (x̄₂ − x̄₁)²/(Sxx(1/n₁ + 1/n₂))] = 1 + E[χ²₁/χ²_{N−2}]; it is checked here by scipy's
 numerical integration over the two chi-square laws (*formula*, computed in the test), not by a

@@ -48,11 +48,13 @@ from .continuous_treatments_vs_control import (
     ARM_FIELDS,
     GOAL_WORDS,
     allocation,
+    arms_words,
     check_arms,
     control_factor,
     derive,
     goal,
     groups,
+    settings,
     treatment_count,
 )
 
@@ -274,10 +276,6 @@ def null_data(q: dict, arms: list[dict], rule: DecisionRule) -> tuple[list[dict]
     )
 
 
-def settings(q: dict) -> dict:
-    return {"power_goal": goal(q)}
-
-
 def data_block(arms: list[dict], labels: list[str], settings_: dict) -> dict:
     return {
         "control": {"family": "bernoulli", "p": arms[0]["p"]},
@@ -329,14 +327,9 @@ def assumptions_sentence(q: dict) -> str:
     v = values(q, FIELDS)
     if v.get("p_control") is None or v.get("treatment_count") is None:
         return ""
-    control = (
-        "a control group √k times as large as each treatment group"
-        if v.get("control_allocation") == "square_root"
-        else "a control group as large as each treatment group"
-    )
     return (
-        f"{v['treatment_count']} treatment groups and {control}, an event proportion of "
-        f"{fmt(v['p_control'])} in the control group, and power meaning {GOAL_WORDS[goal(q)]}"
+        f"{arms_words(q)}, an event proportion of {fmt(v['p_control'])} in the control group, "
+        f"and power meaning {GOAL_WORDS[goal(q)]}"
     )
 
 

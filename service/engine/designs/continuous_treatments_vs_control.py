@@ -341,18 +341,24 @@ def effect_sentence(q: dict, record: dict | None) -> str:
     return f"a difference in means of {fmt(value)} for each treatment group against the control"
 
 
-def assumptions_sentence(q: dict) -> str:
-    v = values(q, FIELDS)
-    if v.get("sd") is None or v.get("treatment_count") is None:
-        return ""
+def arms_words(q: dict) -> str:
+    """The groups in words: '3 treatment groups and a control group as large as each …'."""
+    v = values(q, ARM_FIELDS)
     control = (
         "a control group √k times as large as each treatment group"
         if v.get("control_allocation") == "square_root"
         else "a control group as large as each treatment group"
     )
+    return f"{v['treatment_count']} treatment groups and {control}"
+
+
+def assumptions_sentence(q: dict) -> str:
+    v = values(q, FIELDS)
+    if v.get("sd") is None or v.get("treatment_count") is None:
+        return ""
     return (
-        f"{v['treatment_count']} treatment groups and {control}, a standard deviation of "
-        f"{fmt(v['sd'])} in every group, and power meaning {GOAL_WORDS[goal(q)]}"
+        f"{arms_words(q)}, a standard deviation of {fmt(v['sd'])} in every group, and power "
+        f"meaning {GOAL_WORDS[goal(q)]}"
     )
 
 

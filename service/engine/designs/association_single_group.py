@@ -17,9 +17,8 @@ from .base import (
     Solution,
 )
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     fmt,
     hypothesis,
     make_validate,
@@ -68,9 +67,8 @@ def _r(q: dict, name: str) -> float:
     return number(q, FIELDS, name)
 
 
-def _check(q: dict) -> None:
-    check_aim(q, DESIGN)
-    analysis_of(q, DESIGN, "analytic")
+def _check(q: dict) -> str:
+    return checked_analysis(q, DESIGN)
 
 
 def _pairs(per_group: list[float]) -> float:

@@ -30,10 +30,10 @@ from .base import (
     SimulationModel,
     Solution,
 )
+from .binary_single_group import exact_search_sentence
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     fmt,
     hypothesis,
     make_validate,
@@ -123,8 +123,7 @@ validate = make_validate(FIELDS, FORMS, "p_treatment_only")
 
 
 def _setup(q: dict) -> str:
-    check_aim(q, DESIGN)
-    return analysis_of(q, DESIGN, "analytic")
+    return checked_analysis(q, DESIGN)
 
 
 def discordant(q: dict) -> tuple[float, float]:
@@ -377,21 +376,8 @@ def assumptions_sentence(q: dict) -> str:
 
 
 def details_sentence(record: dict) -> str:
-    block = ((record.get("sample_size") or {}).get("details") or {}).get("exact_search")
-    if not block:
-        return ""
-    first, stays = block["first_reaching"], block["stays_above_from"]
-    if first == stays:
-        return (
-            f" The exact test's power first reaches the target at {first} pairs and stays at or "
-            f"above it for every larger number checked (through {block['checked_through']})."
-        )
-    return (
-        f" The exact test's power curve is saw-toothed: it first reaches the target at {first} "
-        f"pairs, but falls below it again at some larger sizes; from {stays} pairs on, every "
-        f"size checked (through {block['checked_through']}) reaches it. The answer is the "
-        f"conservative {stays} pairs."
-    )
+    """The exact McNemar test's two sizes in words (``exact_search``), else ''."""
+    return exact_search_sentence(record, lambda n: f"{n} pairs", "number", "size")
 
 
 def _contrast(q: dict) -> float | None:

@@ -33,7 +33,7 @@ from .common import (
     analysis_of,
     analytic_method,
     bernoulli_only,
-    check_aim,
+    checked_analysis,
     fmt,
     hypothesis,
     make_validate,
@@ -114,8 +114,7 @@ def _rate(q: dict, name: str) -> float:
 
 
 def _setup(q: dict) -> str:
-    check_aim(q, DESIGN)
-    return analysis_of(q, DESIGN, "analytic")
+    return checked_analysis(q, DESIGN)
 
 
 def _direction(q: dict) -> int:
@@ -339,23 +338,31 @@ def assumptions_sentence(q: dict) -> str:
     return "" if p0 is None else f"a reference rate of {fmt(p0)}"
 
 
-def details_sentence(record: dict) -> str:
-    """The saw-tooth's two n's in words (an exact sample-size answer only), else ''."""
+def exact_search_sentence(record: dict, size, larger: str = "n", every: str = "n") -> str:
+    """The saw-tooth's two sizes in words (an exact sample-size answer only), else ''.
+
+    ``size`` formats a size ("n = 59", "59 pairs"); ``larger`` and ``every`` name the sizes
+    checked ("every larger n checked", "every size checked")."""
     block = ((record.get("sample_size") or {}).get("details") or {}).get("exact_search")
     if not block:
         return ""
     first, stays = block["first_reaching"], block["stays_above_from"]
     if first == stays:
         return (
-            f" The exact test's power first reaches the target at n = {first} and stays at or "
-            f"above it for every larger n checked (through {block['checked_through']})."
+            f" The exact test's power first reaches the target at {size(first)} and stays at or "
+            f"above it for every larger {larger} checked (through {block['checked_through']})."
         )
     return (
         f" The exact test's power curve is saw-toothed: it first reaches the target at "
-        f"n = {first}, but falls below it again at some larger sizes; from n = {stays} on, every "
-        f"n checked (through {block['checked_through']}) reaches it. The answer is the "
-        f"conservative n = {stays}."
+        f"{size(first)}, but falls below it again at some larger sizes; from {size(stays)} on, "
+        f"every {every} checked (through {block['checked_through']}) reaches it. The answer is "
+        f"the conservative {size(stays)}."
     )
+
+
+def details_sentence(record: dict) -> str:
+    """The saw-tooth's two n's in words (an exact sample-size answer only), else ''."""
+    return exact_search_sentence(record, lambda n: f"n = {n}")
 
 
 def _contrast(q: dict) -> float | None:

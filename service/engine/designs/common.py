@@ -90,6 +90,12 @@ def check_aim(q: dict, design: Design) -> str:
     return aim
 
 
+def checked_analysis(q: dict, design: Design) -> str:
+    """Refuse an aim the cell does not answer; return the analytic analysis of the question."""
+    check_aim(q, design)
+    return analysis_of(q, design, "analytic")
+
+
 # --- group layouts ------------------------------------------------------------------------------
 
 

@@ -25,7 +25,7 @@ from .base import (
     SimulationModel,
     Solution,
 )
-from .common import analysis_of, analytic_method, check_aim, fmt, make_validate, no_warnings, values
+from .common import analytic_method, checked_analysis, fmt, make_validate, no_warnings, values
 
 FIELDS = (
     Field(
@@ -142,9 +142,8 @@ def _rules(errors: dict, v: dict, find: str, from_data: bool) -> None:
 validate = make_validate(FIELDS, FORMS, "cohens_f", ("group_means", "sd"), _rules)
 
 
-def _check(q: dict) -> None:
-    check_aim(q, DESIGN)
-    analysis_of(q, DESIGN, "analytic")
+def _check(q: dict) -> str:
+    return checked_analysis(q, DESIGN)
 
 
 def lambda_power(lam: float, per_group: list[float], alpha: float) -> float:

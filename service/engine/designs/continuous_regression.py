@@ -27,9 +27,8 @@ from .base import (
     Solution,
 )
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     fmt,
     make_validate,
     no_warnings,
@@ -161,9 +160,8 @@ def _rules(errors: dict, v: dict, find: str, from_data: bool) -> None:
 validate = make_validate(FIELDS, FORMS, "f_squared", rules=_rules)
 
 
-def _check(q: dict) -> None:
-    check_aim(q, DESIGN)
-    analysis_of(q, DESIGN, "analytic")
+def _check(q: dict) -> str:
+    return checked_analysis(q, DESIGN)
 
 
 def _int(q: dict, name: str) -> int:

@@ -27,7 +27,7 @@ from .base import (
 from .common import (
     analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     fmt,
     make_validate,
     number,
@@ -159,8 +159,7 @@ validate = make_validate(FIELDS, FORMS, "difference")
 
 
 def _check(q: dict) -> str:
-    check_aim(q, DESIGN)
-    return analysis_of(q, DESIGN, "analytic")
+    return checked_analysis(q, DESIGN)
 
 
 def _power_at(q: dict, difference: float, per_group: list[float], alpha: float) -> float:

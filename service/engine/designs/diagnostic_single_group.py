@@ -12,9 +12,8 @@ from .. import diagnostic_precision
 from ..errors import QuestionError
 from .base import Analysis, Design, Estimation, Field, Phrases, Solution
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     estimation_validate,
     fmt,
     no_warnings,
@@ -72,9 +71,8 @@ def validate(blocks: dict, find: str, from_data: bool) -> dict[str, list[str]]:
     return estimation_validate(DESIGN, blocks)
 
 
-def _check(q: dict) -> None:
-    check_aim(q, DESIGN)
-    analysis_of(q, DESIGN, "analytic")
+def _check(q: dict) -> str:
+    return checked_analysis(q, DESIGN)
 
 
 def _planned(q: dict) -> tuple[float, float, float]:

@@ -31,9 +31,8 @@ from .base import (
     Solution,
 )
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     fmt,
     hypothesis,
     make_validate,
@@ -87,8 +86,7 @@ validate = make_validate(FIELDS, FORMS, "auc")
 
 
 def _check(q: dict) -> str:
-    check_aim(q, DESIGN)
-    return analysis_of(q, DESIGN, "analytic")
+    return checked_analysis(q, DESIGN)
 
 
 def hanley_mcneil_variance(a: float, controls: float, cases: float) -> float:

@@ -28,9 +28,8 @@ from .base import (
     Solution,
 )
 from .common import (
-    analysis_of,
     analytic_method,
-    check_aim,
+    checked_analysis,
     fmt,
     hypothesis,
     make_validate,
@@ -121,9 +120,8 @@ def _rules(errors: dict, v: dict, find: str, from_data: bool) -> None:
 validate = make_validate(FIELDS, FORMS, "hazard_ratio", rules=_rules)
 
 
-def _check(q: dict) -> None:
-    check_aim(q, DESIGN)
-    analysis_of(q, DESIGN, "analytic")
+def _check(q: dict) -> str:
+    return checked_analysis(q, DESIGN)
 
 
 def covariate_variance(q: dict) -> float:

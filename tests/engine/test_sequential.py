@@ -4,6 +4,11 @@ Sources:
 - Pocock (1977), Biometrika 64:191, and O'Brien & Fleming (1979), Biometrics 35:549; both
   tabulated in Jennison & Turnbull (2000), Group Sequential Methods, ch. 2 (Tables 2.1, 2.3):
   two-sided alpha 0.05, K equally spaced looks (published).
+- More cells of the same tables (K = 5 to 10 at alpha 0.05; K = 2 to 5 at alpha 0.01 and 0.10),
+  Pocock's (1977, Table 1) nominal significance level of each repeated test, and the maximum
+  sample size ratios R_P(K, alpha, beta) and R_B(K, alpha, beta) of Jennison & Turnbull (2000),
+  Tables 2.2 and 2.4 (published: recalled, then reproduced here at the printed precision by
+  recomputation; each assertion rounds to the printed digits).
 - Lan & DeMets (1983), Biometrika 70:659: a spending design is defined by its cumulative alpha,
   checked here by an independent computation with scipy's multivariate normal (Z_k correlated
   √(t_i/t_j)), and by simulating the sequential test (cumulative sums of normal increments).
@@ -13,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import stats
+from scipy import optimize, stats
 
 from service.engine import sequential as gs
 
@@ -32,6 +37,91 @@ def test_classical_constants(looks, pocock, obrien_fleming, obf_first):
     c = gs.classical_constant(looks, 0.05, "obrien_fleming")
     assert c == pytest.approx(obrien_fleming, abs=6e-4)
     assert c * np.sqrt(looks) == pytest.approx(obf_first, abs=1.5e-3)  # C·√(K/k) at k = 1
+
+
+# published: Jennison & Turnbull (2000), Table 2.1 (Pocock, C_P(K, alpha)) and Table 2.3
+# (O'Brien & Fleming, C_B(K, alpha)), two-sided, K equally spaced looks, three decimals as printed
+# (recalled, recomputed here: each value rounds to the printed one).
+POCOCK_TABLE = {
+    0.05: {5: 2.413, 6: 2.453, 7: 2.485, 8: 2.512, 9: 2.535, 10: 2.555},
+    0.01: {2: 2.772, 3: 2.873, 4: 2.939, 5: 2.986},
+    0.10: {2: 1.875, 3: 1.992, 4: 2.067, 5: 2.122},
+}
+OBRIEN_FLEMING_TABLE = {
+    0.05: {5: 2.040, 6: 2.053, 7: 2.063, 8: 2.072, 9: 2.080, 10: 2.087},
+    0.01: {2: 2.580, 3: 2.595, 4: 2.609, 5: 2.621},
+    0.10: {2: 1.678, 3: 1.710, 4: 1.733, 5: 1.751},
+}
+
+
+@pytest.mark.parametrize(
+    ("shape", "alpha", "looks", "printed"),
+    [
+        (shape, alpha, looks, value)
+        for shape, table in (("pocock", POCOCK_TABLE), ("obrien_fleming", OBRIEN_FLEMING_TABLE))
+        for alpha, row in table.items()
+        for looks, value in row.items()
+    ],
+)
+def test_classical_constants_at_the_printed_precision(shape, alpha, looks, printed):
+    # published (recomputed): Jennison & Turnbull (2000), Tables 2.1 and 2.3
+    assert round(gs.classical_constant(looks, alpha, shape), 3) == printed
+
+
+@pytest.mark.parametrize(
+    ("looks", "nominal"),
+    [
+        # published: Pocock (1977), Biometrika 64:191, Table 1: the nominal two-sided level of
+        # each of N repeated tests, overall alpha 0.05 and 0.01 (recalled, recomputed here)
+        ((2, 0.05), 0.0294),
+        ((3, 0.05), 0.0221),
+        ((4, 0.05), 0.0182),
+        ((5, 0.05), 0.0158),
+        ((10, 0.05), 0.0106),
+        ((2, 0.01), 0.0056),
+        ((3, 0.01), 0.0041),
+        ((4, 0.01), 0.0033),
+        ((5, 0.01), 0.0028),
+        ((10, 0.01), 0.0018),
+    ],
+)
+def test_pocock_nominal_significance_levels(looks, nominal):
+    k, alpha = looks
+    c = gs.classical_constant(k, alpha, "pocock")
+    assert round(2.0 * stats.norm.sf(c), 4) == nominal
+
+
+def _classical_ratio(looks: int, alpha: float, power: float, shape: str) -> float:
+    """R = maximum information of the classical test / fixed information at the same power:
+    the drift whose sequential power (numerical integration, ``gs.crossings``) is the target,
+    over the fixed design's drift, squared (Jennison & Turnbull 2000, ch. 2)."""
+    c = gs.classical_constant(looks, alpha, shape)
+    t = np.asarray(gs.equal(looks))
+    upper = [c] * looks if shape == "pocock" else list(c * np.sqrt(1.0 / t))
+
+    def gap(drift: float) -> float:
+        return sum(gs.crossings(t, None, upper, drift, 2)["efficacy"]) - power
+
+    drift = optimize.brentq(gap, 0.5, 8.0, xtol=1e-12)
+    return (drift / gs.fixed_drift(alpha, 2, power)) ** 2
+
+
+@pytest.mark.parametrize(
+    ("shape", "power", "ratios"),
+    [
+        # published: Jennison & Turnbull (2000), Table 2.2, R_P(K, 0.05, beta), K = 2..5
+        ("pocock", 0.80, (1.110, 1.166, 1.202, 1.229)),
+        ("pocock", 0.90, (1.100, 1.151, 1.183, 1.207)),
+        # published: Jennison & Turnbull (2000), Table 2.4, R_B(K, 0.05, beta), K = 2..5
+        ("obrien_fleming", 0.80, (1.008, 1.017, 1.024, 1.028)),
+        ("obrien_fleming", 0.90, (1.007, 1.016, 1.022, 1.026)),
+    ],
+)
+def test_maximum_sample_size_ratios(shape, power, ratios):
+    # two-sided alpha 0.05; recalled, recomputed here: each ratio rounds to the printed one.
+    # These check the integration under the alternative (power), not only the null boundaries.
+    got = [round(_classical_ratio(k, 0.05, power, shape), 3) for k in (2, 3, 4, 5)]
+    assert got == list(ratios)
 
 
 def _mvn_continue(t, lower, upper, drift=0.0):

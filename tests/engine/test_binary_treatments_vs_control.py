@@ -6,7 +6,8 @@ statsmodels, and the simulated power against the analytic power within 4 MCSE.
 Sources (each check says which): scipy.stats.multivariate_normal.cdf (Genz's quasi-Monte Carlo
 integration: *general-purpose library check*); the pooled two-proportion z test's power,
 Φ((|Δ| − z·σ₀)/σ₁) (Fleiss, Levin & Paik 2003, *formula*); statsmodels multipletests (Holm;
-Simes–Hochberg); Dunnett (1955) for the √k allocation.
+Simes–Hochberg); Dunnett (1955) for the √k allocation, and Dunnett (1955), Table 1a, row
+df = ∞, for the one-sided critical values on the z scale (*published*, recomputed).
 """
 
 from __future__ import annotations
@@ -62,6 +63,18 @@ def test_dunnett_type_critical_value_against_scipy_multivariate_normal(per_group
     assert inside == pytest.approx(0.95, abs=5e-4)
     # below Bonferroni's, above a single comparison's
     assert stats.norm.isf(0.05 / tails) < c < stats.norm.isf(0.05 / (tails * k))
+
+
+@pytest.mark.parametrize(
+    ("k", "printed"),
+    # published: Dunnett (1955), JASA 50:1096-1121, Table 1a, one-sided, joint confidence .95,
+    # row df = ∞ (the SD known, as on the z scale of the pooled z tests), two decimals as printed
+    # (read from a textbook appendix's reprint; recomputed here: each rounds to the printed one)
+    [(2, 1.92), (3, 2.06), (4, 2.16), (5, 2.23), (6, 2.29), (7, 2.34), (8, 2.38), (9, 2.42)],
+)
+def test_one_sided_critical_value_is_dunnetts_infinite_df_row(k, printed):
+    c = cell.critical("dunnett", 0.05, [100] * (k + 1), 1)
+    assert round(c, 2) == printed
 
 
 @pytest.mark.parametrize(

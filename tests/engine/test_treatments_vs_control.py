@@ -32,8 +32,10 @@ def _question(**over) -> dict:
 # --- reference values ----------------------------------------------------------------------
 
 # Dunnett's (1955) table grid (k treatment groups, error df, tails) at alpha 0.05 with equal
-# groups; the printed two-decimal values are not restated (recalled, not held): each critical
-# value is checked instead by scipy's multivariate t (or normal, df ∞) cdf, computed here.
+# groups, checked here by scipy's multivariate t (or normal, df ∞) cdf; the printed one-sided
+# values are checked below (test_dunnett_one_sided_table); the two-sided table (Dunnett 1964,
+# which replaced the approximate two-sided values of 1955) is not held, so the two-sided cells
+# are checked by scipy only.
 DUNNETT_GRID = [
     (2, 10, 2),
     (3, 20, 2),
@@ -60,6 +62,50 @@ def test_dunnett_critical_values_against_scipy(k, df, tails):
         law = stats.multivariate_t(shape=corr, df=df)
         inside = law.cdf(np.full(k, c), lower_limit=lower, random_state=11)
     assert inside == pytest.approx(0.95, abs=1e-3)
+
+
+# published: Dunnett (1955), JASA 50:1096-1121, Table 1a: one-sided many-to-one critical values,
+# joint confidence .95 (alpha 0.05), equal groups, k treatment groups beside the control, two
+# decimals as printed (read from a textbook appendix's reprint of the table, credited to JASA
+# 50, pp. 1112-1118; recomputed here: each value rounds to the printed one).
+DUNNETT_ONE_SIDED = {
+    5: {2: 2.44, 3: 2.68, 4: 2.85, 5: 2.98, 9: 3.30},
+    10: {2: 2.15, 3: 2.34, 4: 2.47, 5: 2.56, 9: 2.81},
+    20: {2: 2.03, 3: 2.19, 4: 2.30, 5: 2.39, 9: 2.60},
+    60: {2: 1.95, 3: 2.10, 4: 2.21, 5: 2.28, 9: 2.48},
+    math.inf: {2: 1.92, 3: 2.06, 4: 2.16, 5: 2.23, 9: 2.42},
+}
+
+
+@pytest.mark.parametrize(
+    ("df", "k", "printed"),
+    [(df, k, value) for df, row in DUNNETT_ONE_SIDED.items() for k, value in row.items()],
+)
+def test_dunnett_one_sided_table(df, k, printed):
+    # published (recomputed): Dunnett (1955), Table 1a, at the printed precision
+    df_engine = manytoone.NORMAL_DF if math.isinf(df) else df
+    c = manytoone.dunnett_critical(0.05, [10.0] * (k + 1), df_engine, 1)
+    assert round(c, 2) == printed
+
+
+@pytest.mark.parametrize(
+    ("k", "n", "printed"),
+    [
+        # published: Dunnett (1955), Table 1a, the cells whose error df N − k − 1 equal groups
+        # of n reach: (k + 1)(n − 1) = 20, 10 or 60
+        (3, 6, 2.19),  # df 20
+        (4, 5, 2.30),  # df 20
+        (4, 3, 2.47),  # df 10
+        (9, 2, 2.81),  # df 10
+        (2, 21, 1.95),  # df 60
+        (5, 11, 2.28),  # df 60
+    ],
+)
+def test_cell_critical_value_at_its_error_df(k, n, printed):
+    # the continuous cell's own critical value (its error df rule N − k − 1 included), one-sided
+    from service.engine.designs import continuous_treatments_vs_control as cell
+
+    assert round(cell.critical("dunnett", 0.05, [n] * (k + 1), 1), 2) == printed
 
 
 @pytest.mark.parametrize("per_group", [[20, 20, 20, 20], [35, 20, 20, 20], [30, 12, 18]])

@@ -56,8 +56,9 @@ def answer(body: dict) -> dict:
 
 def test_bioequivalence_crossover_cv25_gmr095_needs_28():
     # published: Diletti, Hauschke & Steinijans (1991), Int J Clin Pharmacol Ther Toxicol 29:1,
-    # table for limits 0.80–1.25, alpha .05, power .80: CV 25 %, ratio 0.95 -> N = 28 in total,
-    # power 0.8074 (recomputed exactly: σ_w² = ln(1 + CV²), se = σ_w·√(2/N), df = N − 2).
+    # table for limits 0.80–1.25, alpha .05, power .80: CV 25 %, ratio 0.95 -> N = 28 in total
+    # (recomputed exactly: σ_w² = ln(1 + CV²), se = σ_w·√(2/N), df = N − 2); the power 0.8074
+    # at N = 28 is this method's output (formula), not a printed number.
     record = answer(bioequivalence())
     assert record["sample_size"]["total"] == 28
     assert record["sample_size"]["per_group"] == [14, 14]
@@ -78,7 +79,8 @@ def test_bioequivalence_crossover_other_table_cells(cv, total, power):
 
 
 def test_bioequivalence_power_at_28_and_27():
-    # published: the same table cell; one subject fewer (13 + 14) falls below 0.80 (formula).
+    # published N = 28 (the same table cell) reaches .80; the power 0.8074 and one subject
+    # fewer (13 + 14) falling below 0.80 are this method's output (formula).
     at = answer(bioequivalence(find="power", sample_size={"per_group": [14, 14]}))
     assert at["power"]["estimate"] == pytest.approx(0.8074, abs=5e-5)
     below = answer(bioequivalence(find="power", sample_size={"per_group": [13, 14]}))

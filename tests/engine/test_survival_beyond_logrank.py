@@ -80,7 +80,8 @@ def test_noninferiority_formula_digits():
 # as Schoenfeld's events 4(z_.975 + z_.90)²/ln²(margin/HR), rounded up; 17 of its 18 cells are
 # reproduced exactly. The eighteenth (HR 1.05, margin 1.3) is printed 921 while the formula gives
 # 921.42 (922 rounded up, 921 rounded to nearest, and 921 with z = 1.96, 1.28): not reproduced
-# at the printed rounding, so it is tested below as the raw value only.
+# at the printed rounding, so it is tested below as the raw value only. (The table was read from
+# the journal's own table page for this article; its page in the print issue was not checked.)
 CV_SAFETY_TABLE = [
     # (true HR, events for margin 1.8, events for margin 1.3), as printed
     (0.70, 48, 110),

@@ -7,8 +7,8 @@ probit-on-√m line and stops once candidates differ by less than their Monte Ca
 confirmation stage finds, at the full count, an m that meets the target while m − 1 does not,
 stepping by the slope the full runs show (bounded), or, where neighbouring sizes differ by less
 than the Monte Carlo error of a full run, settles on the smallest passing size after one hedged
-pair of full runs. ``smallest_effect`` brackets, bisects and
-confirms (gallop, then bisect) on a continuous effect scale at a fixed n.
+pair of full runs. ``smallest_effect`` brackets, bisects and confirms (gallop, then bisect) on a
+continuous effect scale at a fixed n.
 """
 
 from __future__ import annotations
@@ -276,12 +276,12 @@ def _confirm_n(
     first full run is placed on a search candidate near c when one lies within u/2 (its chunks
     are reused), and after it one batch runs two sizes at SETTLE_LOW and SETTLE_HIGH prediction
     errors above the new prediction (rounded up; one apart at least, never further apart than
-    one MCSE of power): with a normal prediction error the lower meets the target 69% of the time, the
-    upper 98%. Once that pair has run, the search settles as soon as any full run meets the
-    target, on the smallest size run at the full count whose power met it, and ``result.settled`` records the pair, the slope, the MCSE and
-    the largest failing full run below (n − 1 is not run unless the pair brackets exactly). At
-    most MAX_N_MOVES runs follow the first batch; if they run out, the smallest passing size is
-    reported with a warning.
+    one MCSE of power): with a normal prediction error the lower meets the target 69% of the
+    time, the upper 98%. Once that pair has run, the search settles as soon as any full run
+    meets the target, on the smallest size run at the full count whose power met it, and
+    ``result.settled`` records the pair, the slope, the MCSE and the largest failing full run
+    below (n − 1 is not run unless the pair brackets exactly). At most MAX_N_MOVES runs follow
+    the first batch; if they run out, the smallest passing size is reported with a warning.
     """
     full: dict[int, Estimate] = {}
     goal = _effective_target(target, rule, reps)

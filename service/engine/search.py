@@ -5,8 +5,10 @@ candidates are evaluated on common random numbers, so estimated power moves smoo
 The search stage narrows the bracket at the search replicates by jumping to the crossing of a
 probit-on-√m line and stops once candidates differ by less than their Monte Carlo error; the
 confirmation stage finds, at the full count, an m that meets the target while m − 1 does not,
-stepping by the slope the full runs show (bounded). ``smallest_effect`` brackets, bisects and
-confirms (gallop, then bisect) on a continuous effect scale at a fixed n.
+stepping by the slope the full runs show (bounded), or, where neighbouring sizes differ by less
+than the Monte Carlo error of a full run, settles on the smallest passing size after one hedged
+pair of full runs. ``smallest_effect`` brackets, bisects and confirms (gallop, then bisect) on a
+continuous effect scale at a fixed n.
 """
 
 from __future__ import annotations
@@ -22,6 +24,7 @@ Z95 = 1.959963984540054
 MAX_CANDIDATES = 15  # search-stage evaluations; a good start needs 3–7
 MAX_MOVES = 12  # extra full-replicate runs the effect confirmation may make
 MAX_N_MOVES = 8  # extra full-replicate runs the n confirmation may make (3–4 typical)
+SETTLE_LOW, SETTLE_HIGH = 0.5, 2.0  # a settling pair's sizes, in prediction errors above it
 _STEPS = (0.1, 0.25, 0.6, 1.5, 4.0, 9.0)  # relative bracket steps, growing geometrically
 
 
@@ -79,6 +82,7 @@ class SearchResult:
     confirmation: list[tuple[int, Estimate]] = field(default_factory=list)
     moves: int = 0
     warnings: list[str] = field(default_factory=list)
+    settled: dict | None = None  # set when the confirmation stopped below Monte Carlo noise
 
 
 def smallest_n(
@@ -129,7 +133,17 @@ def smallest_n(
     lo, hi = _bracket(ok, m0, m_min, m_max)
     guess, slope = _narrow(ok, seen, lo, hi, goal, search_replicates)
     _confirm_n(
-        evaluate, result, guess, slope, m_min, m_max, target, rule, replicates, search_replicates
+        evaluate,
+        result,
+        guess,
+        slope,
+        m_min,
+        m_max,
+        target,
+        rule,
+        replicates,
+        search_replicates,
+        _slope_error(seen, search_replicates),
     )
     if len(result.candidates) > MAX_CANDIDATES:
         result.warnings.append(
@@ -187,6 +201,18 @@ def _fit(points: list[tuple[int, Estimate]], goal: float) -> tuple[float, float]
     return m, _phi(_ndtri(goal)) * b / (2 * root)  # d power / d m at the crossing
 
 
+def _slope_error(seen: dict[int, Estimate], reps: int) -> float:
+    """The fitted slope's relative error, from the replicates that flip across the candidates.
+
+    On common random numbers the power difference between the candidates farthest apart in
+    power is carried by about (p_max − p_min) × replicates flipping replicates, so the slope it
+    implies is good to about 1/√flips; at most 25% and at least 10% (the probit line is a model).
+    """
+    powers = [e.power for e in seen.values()]
+    flips = (max(powers) - min(powers)) * reps if powers else 0.0
+    return min(0.25, max(0.1, 1 / math.sqrt(flips))) if flips > 0 else 0.25
+
+
 def _ndtri(p: float) -> float:
     return NormalDist().inv_cdf(p)
 
@@ -229,25 +255,40 @@ def _narrow(ok, seen: dict[int, Estimate], lo: int, hi: int, goal: float, reps: 
     return min(float(hi), max(float(lo), fit[0])), fit[1]
 
 
-def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, reps, search_reps):
-    """Find, at full replicates, an m that meets the target while m − 1 does not.
+def _confirm_n(
+    evaluate, result, c: float, slope, m_min, m_max, target, rule, reps, search_reps, fit_error
+):
+    """Find, at full replicates, an m that meets the target while m − 1 does not, or settle.
 
     ``c`` is the predicted crossing and ``slope`` the power gained per unit of m there (None
-    when the search stage could not fit one). Each step predicts the crossing c and its error
-    u in sizes: at first from the search stage (its Monte Carlo error over the slope), then
-    from the full run nearest the target, stepping by the slope between the two full runs
-    farthest apart. Common random numbers make the rejection count grow almost steadily with
-    m: between two sizes d apart about d × slope × replicates replicates flip, so the step's
-    error is about √(d / (slope × replicates)) sizes, plus the slope's own error. When
-    [c − u, c + u] lies within one size, the pair (m, m − 1) runs in one batch, with the type I
-    check when [c − 2u, c + 2u] does; otherwise one size runs and informs the next step. At
-    most MAX_N_MOVES runs follow the first batch; if they run out, the smallest passing size is
-    reported with a warning.
+    when the search stage could not fit one); ``fit_error`` is the slope's relative error. Each
+    step predicts the crossing c and its error u in sizes: at first from the search stage (its
+    Monte Carlo error over the slope), then from the full run nearest the target, stepping by
+    the slope between the two full runs farthest apart. Common random numbers make the
+    rejection count grow almost steadily with m: between two sizes d apart about
+    d × slope × replicates replicates flip, so the step's error is about √(d / (slope ×
+    replicates)) sizes, plus the slope's own error. When [c − u, c + u] lies within one size,
+    the pair (m, m − 1) runs in one batch, with the type I check when [c − 2u, c + 2u] does;
+    otherwise one size runs and informs the next step.
+
+    When one size gains less power than the Monte Carlo standard error of a full run (large n),
+    the exact integer crossing is below the noise and chasing it wastes full runs. Then the
+    first full run is placed on a search candidate near c when one lies within u/2 (its chunks
+    are reused), and after it one batch runs two sizes at SETTLE_LOW and SETTLE_HIGH prediction
+    errors above the new prediction (rounded up; one apart at least, never further apart than
+    one MCSE of power): with a normal prediction error the lower meets the target 69% of the
+    time, the upper 98%. Once that pair has run, the search settles as soon as any full run
+    meets the target, on the smallest size run at the full count whose power met it, and
+    ``result.settled`` records the pair, the slope, the MCSE and the largest failing full run
+    below (n − 1 is not run unless the pair brackets exactly). At most MAX_N_MOVES runs follow
+    the first batch; if they run out, the smallest passing size is reported with a warning.
     """
     full: dict[int, Estimate] = {}
     goal = _effective_target(target, rule, reps)
+    mcse = math.sqrt(goal * (1 - goal) / reps)  # of one full run at the goal
     u = math.sqrt(goal * (1 - goal) / search_reps) / slope if slope else 0.0
     first, fitted = True, slope
+    pair: tuple[int, int] | None = None  # the settling pair, once run
     lost: Exception | None = None
     while True:
         hi = min((x for x in full if _passes(full, x, target, rule, reps)), default=None)
@@ -255,20 +296,36 @@ def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, re
         lo = max((x for x in below if hi is None or x < hi), default=m_min - 1)
         if hi is not None and hi - lo == 1 or result.moves >= MAX_N_MOVES:
             break
+        if pair is not None and hi is not None:  # below the noise: the smallest passing run
+            result.settled = _settled(full, pair, hi, lo, mcse, slope)
+            break
         if not first:
             slope = _secant(full, fitted, reps)
-            c, u = _predict(full, lo, hi, goal, slope, reps, result.moves)
+            c, u = _predict(full, lo, hi, goal, slope, reps, result.moves, fit_error)
         if hi is None and lo >= m_max:
             lost = QuestionError(
                 "target_power", f"simulated power stays below the target at {m_max:,}"
             )
             break
+        if not first and pair is None and slope and slope < mcse and math.isfinite(u):
+            top = m_max if hi is None else hi
+            b = min(top, max(lo + 2, m_min + 1, math.ceil(c + SETTLE_HIGH * u - 1e-9)))
+            a = min(b - 1, math.ceil(c + SETTLE_LOW * u - 1e-9))
+            a = max(lo + 1, m_min, a, b - max(1, math.floor(mcse / slope)))
+            pair = (a, b)
+            xs = [v for v in dict.fromkeys(pair) if v not in full]
+            full.update(zip(xs, evaluate(xs, reps, None), strict=True))
+            result.moves += len(xs)
+            continue
         x = max(lo + 1, min(m_max if hi is None else hi, math.ceil(c - 1e-9)))
-        pair = x - 1 < c - u and c + u <= x
+        if first and slope and slope < mcse:  # will settle: probe where a candidate already ran
+            x = min((m for m, _ in result.candidates), key=lambda m: (abs(m - c), m), default=x)
+            x = x if abs(x - c) <= u / 2 else max(lo + 1, min(m_max, math.ceil(c - 1e-9)))
+        near = x - 1 < c - u and c + u <= x
         null_at = x if x - 1 < c - 2 * u and c + 2 * u <= x else None
         if x == hi:
             xs = [x - 1]
-        elif pair and x - 1 > lo and x - 1 >= m_min:
+        elif near and x - 1 > lo and x - 1 >= m_min:
             xs = [x, x - 1]
         else:
             xs = [x]
@@ -280,7 +337,7 @@ def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, re
     if lost is not None:
         raise lost
     passing = [x for x in full if _passes(full, x, target, rule, reps)]
-    if hi is None or hi - lo != 1:
+    if result.settled is None and (hi is None or hi - lo != 1):
         result.warnings.append(
             f"the confirmation did not settle within {MAX_N_MOVES} extra runs; the reported n is "
             "the smallest examined whose power met the target"
@@ -291,15 +348,32 @@ def _confirm_n(evaluate, result, c: float, slope, m_min, m_max, target, rule, re
             f"the target is already met at the smallest size the test allows ({m_min})"
         )
     result.m = hi
-    result.confirmation = [(x, full[x]) for x in (hi, hi - 1) if x in full]
+    if result.settled is not None:
+        result.confirmation = [(x, full[x]) for x in (hi, lo) if x in full]
+    else:
+        result.confirmation = [(x, full[x]) for x in (hi, hi - 1) if x in full]
+
+
+def _settled(full: dict, pair: tuple[int, int], hi: int, lo: int, mcse: float, slope) -> dict:
+    """The record of a confirmation that stopped because neighbouring sizes are within noise."""
+    return {
+        "pair": [(x, full[x]) for x in pair],
+        "power_per_size": slope,
+        "mcse": mcse,
+        "sizes_per_mcse": mcse / slope,
+        "failing_below": (lo, full[lo]) if lo in full else None,
+    }
 
 
 def _passes(full: dict, x: int, target: float, rule: str, reps: int) -> bool:
     return meets(full[x], target, rule, reps)
 
 
-def _predict(full, lo: int, hi, goal: float, slope, reps: int, moves: int):
-    """Return (predicted crossing, its error in sizes) stepping from the run nearest the goal."""
+def _predict(full, lo: int, hi, goal: float, slope, reps: int, moves: int, fit_error=0.25):
+    """Return (predicted crossing, its error in sizes) stepping from the run nearest the goal.
+
+    ``fit_error`` is the relative error of the slope while only one full run exists.
+    """
     rate = slope * reps if slope and slope > 0 else 0.0  # replicates flipping per size
     ends = [x for x in (lo, hi) if x in full]
     x0 = min(ends, key=lambda x: abs(full[x].power - goal))
@@ -315,7 +389,7 @@ def _predict(full, lo: int, hi, goal: float, slope, reps: int, moves: int):
         c = (lo + hi) / 2
     d = abs(c - x0)
     span = max(full) - min(full)
-    slope_error = 0.25 if span == 0 else 1 / math.sqrt(rate * span)  # relative
+    slope_error = fit_error if span == 0 else 1 / math.sqrt(rate * span)  # relative
     # + ½: even at d = 0 the neighbour shares the count with probability e^(−rate)
     return c, math.sqrt((d + 0.5) / rate + (d * slope_error) ** 2)
 

@@ -203,6 +203,22 @@ def _search_block(source_start, source, target, settings, found, describe_point)
     }
 
 
+def _settled_block(settled: dict, sizes: Callable[[int], list[int]]) -> dict:
+    """The record of an n confirmation that stopped below Monte Carlo noise, in per-group sizes."""
+
+    def point(m: int, e: search.Estimate) -> dict:
+        return {"per_group": sizes(m), "replicates": e.replicates, "power": e.power, "mcse": e.mcse}
+
+    below = settled["failing_below"]
+    return {
+        "pair": [point(m, e) for m, e in settled["pair"]],
+        "power_per_size": settled["power_per_size"],
+        "mcse": settled["mcse"],
+        "sizes_per_mcse": settled["sizes_per_mcse"],
+        "failing_below": point(*below) if below is not None else None,
+    }
+
+
 def _events(runner: Runner, request: Request, reps: int) -> dict | None:
     """Mean events per replicate when the kernel counts them (time to event)."""
     events = runner.extra_sum("events", request)
@@ -340,6 +356,8 @@ def answer(
             lambda m: {"per_group": per_group_for(p, m)},
         )
         search_block["replicates_run"] = _replicates_run(runner.ledger, reps, found.m - 1 >= m_min)
+        if found.settled is not None:
+            search_block["settled"] = _settled_block(found.settled, lambda m: per_group_for(p, m))
     out = _result(p, q, final, alt, null, settings, warnings)
     out["search"] = search_block
     staged = _sequential(

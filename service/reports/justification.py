@@ -357,6 +357,8 @@ def _simulation(record: dict) -> str:
         f" with {fmt_count(power['replicates'])} replicates (seed {repro['seed']}, "
         f"{repro['bit_generator']} generator): estimated power {_power_with_interval(power)}."
     )
+    if search and search.get("settled"):
+        text += _settled_words(search["settled"], power["replicates"])
     if sim.get("decision_rule") == "lower_bound" and q["find"] == "sample_size":
         text += " The size was accepted only when the lower 95% bound reached the target power."
     if power.get("analytic") is not None:
@@ -372,6 +374,26 @@ def _simulation(record: dict) -> str:
         )
         text += SIZE_WORDS[size_verdict(t1)]
     return text
+
+
+def _settled_words(settled: dict, replicates: int) -> str:
+    """Why the n confirmation stopped short of the exact crossing, in the record's numbers."""
+    below = settled.get("failing_below")
+    short = (
+        f"; the largest size below it run with the full count, {fmt_count(below['per_group'][0])} "
+        f"in the first group, had power {fmt_power(below['power'])}"
+        if below
+        else "; no smaller size was run with the full count"
+    )
+    return (
+        f" Near the answer, sizes one apart differ in simulated power by about "
+        f"{fmt_prob(settled['power_per_size'], 4)}, less than the Monte Carlo standard error of "
+        f"one run ({fmt_prob(settled['mcse'], 4)}), so the confirmation did not look for the exact "
+        "size where power crosses the target: the size reported is the smallest run with "
+        f"{fmt_count(replicates)} replicates whose power met it{short}. By Monte Carlo error alone "
+        f"the answer is uncertain by about ±{settled['sizes_per_mcse']:.1f} in the first group's "
+        "size."
+    )
 
 
 # What each verdict of the type I error check means, in the record's own verdict words.

@@ -203,6 +203,33 @@ class SearchCandidateSchema(OpenSchema):
     ci95 = _numbers(metadata={"description": "Confirmation points only."})
 
 
+class SearchSettledSchema(OpenSchema):
+    """Why an n confirmation stopped without running n − 1: sizes one apart differ in simulated
+    power by less than the Monte Carlo standard error of one full run."""
+
+    pair = fields.List(
+        fields.Nested(SearchCandidateSchema),
+        required=True,
+        metadata={"description": "The two sizes run together at the full count to settle."},
+    )
+    power_per_size = fields.Float(
+        required=True,
+        metadata={"description": "Fitted power gained per unit of the first group's size."},
+    )
+    mcse = fields.Float(
+        required=True, metadata={"description": "Monte Carlo standard error of one full run."}
+    )
+    sizes_per_mcse = fields.Float(
+        required=True,
+        metadata={"description": "mcse / power_per_size: the answer's Monte Carlo error in sizes."},
+    )
+    failing_below = fields.Nested(
+        SearchCandidateSchema,
+        allow_none=True,
+        metadata={"description": "The largest full run below the answer (short of the target)."},
+    )
+
+
 class SearchResultSchema(OpenSchema):
     """The simulated sample-size (or effect) search: candidates, confirmation, what was run."""
 
@@ -218,6 +245,12 @@ class SearchResultSchema(OpenSchema):
         keys=fields.String(),
         values=fields.Integer(),
         metadata={"description": "search, full, null, total, minimum, draws"},
+    )
+    settled = fields.Nested(
+        SearchSettledSchema,
+        metadata={
+            "description": "Present when the n confirmation settled below Monte Carlo noise."
+        },
     )
 
 

@@ -190,14 +190,17 @@ SEARCH_SEEDS = (11, 12, 13, 14, 15)
 
 
 def search_replicates() -> None:
-    """(7) Print replicates run / minimum for the simulated n search at n ≈ 20, 200, 2,000."""
+    """(7) Print replicates run / minimum for the simulated n search at n ≈ 20, 200, 2,000, with
+    where they went per seed: search candidates / full runs of the alternative / type I check,
+    in thousands, and whether the confirmation settled below Monte Carlo noise (s) or found n
+    and n − 1 (exact, x)."""
     import math
 
     from service.engine import compute
 
     for n in (20, 200, 2000):
-        d = (1.959964 + 0.841621) * math.sqrt(2 / n)  # z approximation: n per group
-        ratios, answers = [], []
+        d = (1.959964 + 0.841621) * math.sqrt(2 / n)
+        ratios, answers, stages = [], [], []
         for seed in SEARCH_SEEDS:
             q = make_q(
                 "continuous",
@@ -207,14 +210,20 @@ def search_replicates() -> None:
                 analysis="pooled_t",
                 simulation={"seed": seed},
             )
-            block = compute(q)["search"]["replicates_run"]
+            record = compute(q)
+            block = record["search"]["replicates_run"]
             ratios.append(block["total"] / block["minimum"])
-            answers.append(compute(q)["sample_size"]["per_group"][0])
+            answers.append(record["sample_size"]["per_group"][0])
+            how = "s" if record["search"].get("settled") else "x"
+            stages.append(
+                f"{block['search'] // 1000}/{block['full'] // 1000}/{block['null'] // 1000}{how}"
+            )
         print(
             f"(7) n search at n ≈ {n:,} (10,000 replicates, seeds {SEARCH_SEEDS[0]}–"
             f"{SEARCH_SEEDS[-1]}): replicates run / minimum "
             f"{' '.join(f'{r:.2f}' for r in ratios)}; mean {sum(ratios) / len(ratios):.2f}, "
-            f"max {max(ratios):.2f} (goal ≤ 1.5); answers {answers}"
+            f"max {max(ratios):.2f} (goal ≤ 1.5); answers {answers}; thousands run "
+            f"search/full/null {' '.join(stages)}"
         )
 
 
@@ -338,6 +347,13 @@ def score_enumeration() -> None:
 
 
 if __name__ == "__main__":
+    import sys
+
+    if sys.argv[1:] == [
+        "search"
+    ]:  # the n-search counts alone: python -m tests.bench.bench_engine search
+        search_replicates()
+        raise SystemExit
     main()
     exact_enumerations()
     memory()

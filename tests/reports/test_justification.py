@@ -312,3 +312,33 @@ def test_cluster_power_and_fixed_clusters_are_told_in_whole_clusters():
     assert "smallest whole cluster size whose cluster-level t test" in text
     assert f"{fmt_count(12 * m)} people per group" in text
     _assert_no_foreign_numbers(text, record)
+
+
+def test_settled_search_says_what_it_did(simulated_record):
+    # formula: at 2,000 replicates the MCSE of power .80 is √(.8 × .2 / 2,000) = 0.0089 (Morris,
+    # White & Crowther 2019), more than one size adds near 64 per group for d = 0.5, so the
+    # search settles; the paragraph quotes the record's settled block, nothing else
+    text = justification(simulated_record)
+    settled = simulated_record["search"]["settled"]
+    assert settled["mcse"] == pytest.approx(0.0089, abs=5e-5)
+    for piece in (
+        f"differ in simulated power by about {fmt_prob(settled['power_per_size'], 4)}",
+        f"standard error of one run ({fmt_prob(settled['mcse'], 4)})",
+        "did not look for the exact size where power crosses the target",
+        f"smallest run with {fmt_count(simulated_record['power']['replicates'])} replicates",
+        f"±{settled['sizes_per_mcse']:.1f} in the first group's size",
+    ):
+        assert piece in text, piece
+    below = settled["failing_below"]
+    if below is None:
+        assert "no smaller size was run with the full count" in text
+    else:
+        assert f"had power {fmt_power(below['power'])}" in text
+    _assert_no_foreign_numbers(text, simulated_record)
+
+
+def test_exact_search_has_no_settled_words(simulated_record):
+    # common practice, no source: a search that found n and n − 1 says nothing about settling
+    record = {**simulated_record, "search": {**simulated_record["search"]}}
+    record["search"].pop("settled")
+    assert "did not look for the exact size" not in justification(record)

@@ -28,6 +28,7 @@ from .describe import (
     group_names,
     is_omnibus,
     margin_text,
+    size_search,
     unit_words,
 )
 
@@ -444,8 +445,12 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         if len(base["per_group"]) > 1:
             body += f" ({fmt_count(sum(base['per_group']))} in total)"
         body += " are needed before adjustment"
-        # A simulated search lands on whole numbers; only a formula has an unrounded answer.
-        if analytic:
+        # A simulated or an exact search lands on whole numbers; only a formula has an
+        # unrounded answer.
+        searched = size_search(record)
+        if searched:
+            body += f" ({searched})"
+        elif analytic:
             raw = list(dict.fromkeys(base["per_group_raw"]))
             body += f" (unrounded {', '.join(_raw(x) for x in raw)})"
     body += "." + _source(context)

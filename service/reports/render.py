@@ -289,6 +289,14 @@ def _steps_caption(record: dict) -> str:
                 "Each step starts from the row above; every step rounds up to whole subjects "
                 "keeping the allocation ratio exact."
             )
+        if describe.size_search(record):
+            later = any(s["step"] != "base" for s in record["sample_size"]["steps"])
+            return "The base size is a whole number found by exact search" + (
+                "; each later step starts from the row above and rounds each group up to whole "
+                "subjects."
+                if later
+                else "."
+            )
         if (record["question"].get("adjustments") or {}).get("cluster"):
             return (
                 "Each step starts from the row above; the design-effect row shows the unrounded "
@@ -347,6 +355,9 @@ def _step_rows(record: dict) -> list[dict]:
                 if record["method"].get("method") != "simulation"
                 else "smallest simulated size reaching the target"
             )
+            searched = describe.size_search(record)
+            if searched:
+                detail = searched  # whole sizes from the start: nothing was rounded
             events = words.events_of(record)
             if events:
                 detail += (

@@ -81,6 +81,10 @@ class Analysis:
     methods: tuple[str, ...]  # which of "analytic", "simulation" honor it
     aims: tuple[str, ...]  # the hypothesis aims it answers
     reference: str  # "Welch 1947; power by the noncentral t"
+    # How an analytic sample size is found when it comes from an exact search over whole sizes
+    # (enumeration) rather than a formula, in the report's words ("the smallest n …"); such an
+    # answer has no unrounded value. None: a formula's (or a root's) unrounded n, rounded up.
+    size_search: str | None = None
 
 
 @dataclass(frozen=True)

@@ -118,6 +118,8 @@ ANALYSES = (
         ("analytic", "simulation"),
         ("superiority",),
         "Simon 1989; exact enumeration of the two binomial stages",
+        size_search="the total size n of the design that best meets the design criterion "
+        "among every two-stage design up to the searched maximum",
     ),
 )
 _WORDS = {"optimal": "optimal", "minimax": "minimax"}

@@ -150,12 +150,22 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
     q["find"] = "precision"
     q["hypothesis"] = dict(q["hypothesis"], half_width=None)
     values = []
+    several: dict[str, list] = {  # a cell with several intervals: one line each
+        i["estimand"]: [] for i in record["precision"].get("intervals") or []
+    }
     for m in sizes:
         try:
             block = compute(dict(q, sample_size={"per_group": _per_group_for(record, m)}))
             values.append(block["precision"]["half_width_expected"])
+            widths = {
+                i["estimand"]: i["half_width_expected"]
+                for i in block["precision"].get("intervals") or []
+            }
         except QuestionError:
             values.append(None)
+            widths = {}
+        for name, line in several.items():
+            line.append(widths.get(name))
     x_label = "Enrolled per group" if len(record["sample_size"]["per_group"]) > 1 else "Enrolled"
     target = record["precision"]["half_width_target"]
     lines = [
@@ -165,9 +175,12 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
     dropout = (q.get("adjustments") or {}).get("dropout")
     if dropout:
         lines.append(f"Adjusted for dropout {describe.fmt_pct(dropout)}")
+    which = "Half-width of the interval"
+    if several:
+        which = "Half-width of each interval"  # the legend names them
     return {
         "kind": "precision",
-        "title": f"Half-width of the interval against {x_label.lower()}, with the "
+        "title": f"{which} against {x_label.lower()}, with the "
         + ("chosen" if q.get("sample_size") is None else "stated")
         + " size marked",
         "assumptions": lines,
@@ -175,6 +188,7 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
         "x_label": x_label,
         "n": sizes,
         "analytic": values if any(v is not None for v in values) else [],
+        "intervals": [{"estimand": name, "half_widths": line} for name, line in several.items()],
         "simulated": [],
         "replicates": None,
         "seed": None,
@@ -249,10 +263,15 @@ def _precision_figure(points: dict) -> Figure:
     fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
     notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
     ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
-    pairs = [(n, h) for n, h in zip(points["n"], points["analytic"], strict=False) if h is not None]
-    if pairs:
-        (line,) = ax.plot(*zip(*pairs, strict=True), color=_ANALYTIC, lw=2, label="formula")
-        line.set_gid("analytic-curve")
+    lines = [
+        (f"{i['estimand']} interval", i["half_widths"]) for i in points.get("intervals") or []
+    ] or [("formula", points["analytic"])]
+    for k, (label, ys) in enumerate(lines):
+        pairs = [(n, h) for n, h in zip(points["n"], ys, strict=False) if h is not None]
+        if pairs:
+            color = _LINE_COLORS[k % len(_LINE_COLORS)]
+            (line,) = ax.plot(*zip(*pairs, strict=True), color=color, lw=2, label=label)
+            line.set_gid("analytic-curve" if k == 0 else f"analytic-curve-{k}")
     target = points.get("target_half_width")
     if target is not None:
         t = ax.axhline(
@@ -272,7 +291,9 @@ def _precision_figure(points: dict) -> Figure:
         ms=7,
         color=_CHOSEN,
         ls="none",
-        label=f"answer: {chosen['n']:,} (half-width {describe.fmt_num(chosen['half_width'])})",
+        label=f"answer: {chosen['n']:,} ("
+        + ("wider half-width" if points.get("intervals") else "half-width")
+        + f" {describe.fmt_num(chosen['half_width'])})",
     )
     dot.set_gid("chosen-point")
     ax.set_xlabel(points["x_label"], color=_INK)

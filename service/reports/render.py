@@ -49,6 +49,12 @@ _FIND = {
     "precision": "the half-width of the interval the stated sample size gives",
 }
 _FIND_ESTIMATION = "the sample size that makes the confidence interval narrow enough"
+# A cell that estimates several quantities at once (Estimation.interval_words) has one interval
+# each: the question asks for every one of them.
+_FIND_SEVERAL = {
+    "sample_size": "the sample size that makes each confidence interval narrow enough",
+    "precision": "the half-width of each interval the stated sample size gives",
+}
 
 
 _METHODS = {"analytic": "analytic", "simulation": "Monte Carlo simulation"}
@@ -114,6 +120,8 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
     hyp = q.get("hypothesis") or {}
     if hyp.get("aim") == "estimation":
         looking = _FIND_ESTIMATION if q["find"] == "sample_size" else _FIND[q["find"]]
+        if cell.estimation is not None and cell.estimation.interval_words is not None:
+            looking = _FIND_SEVERAL[q["find"]]
         rows.append(("Looking for", looking.capitalize()))
         rows.append(("Interval", words.interval_words(q).removeprefix("a ").capitalize()))
         rows.append(("Estimating", words.estimand_text(q)))
@@ -217,6 +225,24 @@ def _precision_figures(record: dict) -> list[dict]:
     figures = [
         {"value": words.fmt_num(p["half_width_expected"]), "label": f"half-width {p['basis']}"}
     ]
+    if p.get("intervals"):  # several intervals: each one's half-width, and which one is wider
+        figures = [
+            {
+                "value": words.fmt_num(i["half_width_expected"]),
+                "label": f"half-width of the {i['estimand']} interval (among the expected "
+                f"{words.fmt_num(round(i['expected_subjects'], 1))} {i['subjects']})"
+                + (
+                    (
+                        ", the wider: it sets the sample size"
+                        if record["question"]["find"] == "sample_size"
+                        else ", the wider"
+                    )
+                    if i["estimand"] == p["wider"]
+                    else ""
+                ),
+            }
+            for i in p["intervals"]
+        ]
     if p.get("half_width_assured") is not None:
         figures.append(
             {

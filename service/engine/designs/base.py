@@ -249,12 +249,22 @@ class Estimation:
     assurance : True when the cell's intervals take ``hypothesis.assurance``.
     expected_words : what "the half-width is at most the target" means without an assurance,
         in the report's words (the record's ``precision.basis`` says how it is computed).
+    interval_words : optional q -> the intervals in words, for a cell that estimates several
+        quantities at once ("two two-sided 95% confidence intervals, one for …"); its
+        ``precision`` then also returns ``intervals`` (one {"estimand", "half_width_expected",
+        "expected_subjects", "subjects"} each; the record's half_width_expected is the widest)
+        and ``wider`` (the estimand whose interval is the widest: it sets the sample size).
+        None: one interval, in the report's shared words.
+    precision_words : optional record -> the half-width sentence of such a cell, read from the
+        record's ``precision.intervals`` and ``wider``; None: the shared sentence.
     """
 
     forms: tuple[tuple[str, ...], ...]
     precision: Callable[[dict, list[float]], dict]
     assurance: bool = False
     expected_words: str = "on average (the expected half-width)"
+    interval_words: Callable[[dict], str] | None = None
+    precision_words: Callable[[dict], str] | None = None
 
 
 @dataclass(frozen=True)

@@ -98,6 +98,8 @@ def curve_points(
     sizes = _sizes(chosen, points, tuple(span), _MIN_N)
     if record.get("precision") is not None:
         return _precision_points(record, sizes, chosen)
+    if describe.cell(record["question"]).operating_curve is not None:
+        return _operating_points(record)
     q = _power_question(record)
     simulated = q.get("method") == "simulation"
 
@@ -195,6 +197,34 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
         "target_power": None,
         "target_half_width": target,
         "chosen": {"n": chosen, "half_width": record["precision"]["half_width_expected"]},
+    }
+
+
+def _operating_points(record: dict) -> dict:
+    """A design whose size its own rules fix: its exact power against the true rate
+    (``Design.operating_curve``), not against other sizes."""
+    q = record["question"]
+    oc = describe.cell(q).operating_curve(record)
+    lines = _curve_assumptions(record)
+    lines[0] = (
+        f"{describe.cell_label(q)}; {describe.analysis_label(q, record)} ; "
+        f"alpha {describe.fmt_num(q['alpha'])}, {q.get('alternative', 'two-sided')}"
+    )
+    return {
+        "kind": "operating",
+        "title": oc["title"],
+        "assumptions": lines,
+        "method": "analytic",
+        "x_label": oc["x_label"],
+        "y_label": oc["y_label"],
+        "x": oc["x"],
+        "analytic": oc["power"],
+        "marks": oc["marks"],
+        "caption": oc["caption"],
+        "simulated": [],
+        "replicates": None,
+        "seed": None,
+        "target_power": q.get("target_power"),
     }
 
 
@@ -306,9 +336,53 @@ def _precision_figure(points: dict) -> Figure:
     return fig
 
 
+def _operating_figure(points: dict) -> Figure:
+    """Power against the true rate for one fixed design, its two planning rates marked."""
+    fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
+    ax = fig.add_subplot()
+    ax.set_gid("power-curve-axes")
+    fig.suptitle(textwrap.fill(points["title"], 80), color=_INK, fontsize=11).set_gid(
+        "curve-heading"
+    )
+    notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
+    ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
+    (line,) = ax.plot(points["x"], points["analytic"], color=_ANALYTIC, lw=2, label="exact")
+    line.set_gid("analytic-curve")
+    target = points.get("target_power")
+    if target is not None:
+        t = ax.axhline(
+            target, color=_TARGET, ls="--", lw=1.2, label=f"target power {describe.fmt_pct(target)}"
+        )
+        t.set_gid("target-line")
+    for k, (mark, marker) in enumerate(zip(points["marks"], ("o", "D"), strict=False)):
+        ax.axvline(mark["x"], color=_CHOSEN, ls=":", lw=1.2).set_gid(f"rate-line-{k}")
+        (dot,) = ax.plot(
+            [mark["x"]],
+            [mark["power"]],
+            marker=marker,
+            ms=7,
+            color=_CHOSEN,
+            ls="none",
+            label=mark["label"],
+        )
+        dot.set_gid(f"rate-point-{k}")
+    ax.set_xlabel(points["x_label"], color=_INK)
+    ax.set_ylabel(points["y_label"], color=_INK)
+    ax.set_ylim(0, 1.02)
+    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
+    ax.grid(True, color="#d5dbe1", lw=0.6)
+    ax.tick_params(colors=_INK)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.legend(loc="lower right", frameon=False, fontsize=9)
+    return fig
+
+
 def _figure(points: dict) -> Figure:
     if points.get("kind") == "precision":
         return _precision_figure(points)
+    if points.get("kind") == "operating":
+        return _operating_figure(points)
     fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
     ax = fig.add_subplot()
     ax.set_gid("power-curve-axes")

@@ -585,6 +585,9 @@ def render_report(
         context["effect_source"] = request["effect_source"]
     status = request.get("status") or "computed"
     several = len(record["sample_size"]["per_group"]) > 1
+    # a design whose rules fix its size draws power against the true rate (plots.curve_points)
+    operating = describe.cell(q).operating_curve
+    curve_caption = operating(record)["caption"] if operating is not None else None
     return (
         _env()
         .get_template("report.html.j2")
@@ -606,6 +609,7 @@ def render_report(
             steps_caption=_steps_caption(record),
             justification=words.justification(record, context),
             curve_svg=Markup(curve_svg),
+            curve_caption=curve_caption,
             sensitivity=sensitivity,
             sensitivity_axes=[
                 {"path": a["path"], "label": describe.path_label(q, a["path"]).capitalize()}

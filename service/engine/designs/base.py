@@ -327,6 +327,11 @@ class Design:
     # How the cell answers hypothesis.aim = "estimation" (precision questions); None: not offered.
     # An analysis whose ``aims`` hold "estimation" must be offered with it.
     estimation: Estimation | None = None
+    # record -> the curve the report draws instead of power against the enrolled size, for a
+    # design whose size is fixed by its own rules (Simon's two-stage design: power against the
+    # true rate). Keys: title, x_label, y_label, x, power (lists), marks ([{x, power, label}]),
+    # caption (the sentence under the drawing). None: the power curve against n.
+    operating_curve: Callable[[dict], dict] | None = None
 
     @property
     def cell(self) -> str:

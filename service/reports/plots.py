@@ -285,14 +285,36 @@ def _simulated_at(q: dict, per_group: list[int]) -> dict | None:
 # --- drawing ------------------------------------------------------------------------------
 
 
-def _precision_figure(points: dict) -> Figure:
-    """The expected half-width against n, the target as a dashed line, the answer marked."""
+def _axes(points: dict, gid: str) -> tuple[Figure, object]:
+    """A figure and its axes with the curve's title and the assumptions it was drawn under
+    (they travel with the drawing: a saved PNG stands alone)."""
     fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
     ax = fig.add_subplot()
-    ax.set_gid("precision-curve-axes")
+    ax.set_gid(gid)
     fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
     notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
     ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
+    return fig, ax
+
+
+def _finish(ax, x_label: str, y_label: str, *, power: bool, legend: str | None) -> None:
+    """Axis labels, a 0–100% axis for a power, the grid, open top and right, the legend."""
+    ax.set_xlabel(x_label, color=_INK)
+    ax.set_ylabel(y_label, color=_INK)
+    if power:
+        ax.set_ylim(0, 1.02)
+        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
+    ax.grid(True, color="#d5dbe1", lw=0.6)
+    ax.tick_params(colors=_INK)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    if legend is not None:
+        ax.legend(loc=legend, frameon=False, fontsize=9)
+
+
+def _precision_figure(points: dict) -> Figure:
+    """The expected half-width against n, the target as a dashed line, the answer marked."""
+    fig, ax = _axes(points, "precision-curve-axes")
     lines = [
         (f"{i['estimand']} interval", i["half_widths"]) for i in points.get("intervals") or []
     ] or [("formula", points["analytic"])]
@@ -326,26 +348,13 @@ def _precision_figure(points: dict) -> Figure:
         + f" {describe.fmt_num(chosen['half_width'])})",
     )
     dot.set_gid("chosen-point")
-    ax.set_xlabel(points["x_label"], color=_INK)
-    ax.set_ylabel("Half-width", color=_INK)
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    ax.legend(loc="upper right", frameon=False, fontsize=9)
+    _finish(ax, points["x_label"], "Half-width", power=False, legend="upper right")
     return fig
 
 
 def _operating_figure(points: dict) -> Figure:
     """Power against the true rate for one fixed design, its two planning rates marked."""
-    fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
-    ax = fig.add_subplot()
-    ax.set_gid("power-curve-axes")
-    fig.suptitle(textwrap.fill(points["title"], 80), color=_INK, fontsize=11).set_gid(
-        "curve-heading"
-    )
-    notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
-    ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
+    fig, ax = _axes(points, "power-curve-axes")
     (line,) = ax.plot(points["x"], points["analytic"], color=_ANALYTIC, lw=2, label="exact")
     line.set_gid("analytic-curve")
     target = points.get("target_power")
@@ -366,15 +375,7 @@ def _operating_figure(points: dict) -> Figure:
             label=mark["label"],
         )
         dot.set_gid(f"rate-point-{k}")
-    ax.set_xlabel(points["x_label"], color=_INK)
-    ax.set_ylabel(points["y_label"], color=_INK)
-    ax.set_ylim(0, 1.02)
-    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    ax.legend(loc="lower right", frameon=False, fontsize=9)
+    _finish(ax, points["x_label"], points["y_label"], power=True, legend="lower right")
     return fig
 
 
@@ -383,13 +384,7 @@ def _figure(points: dict) -> Figure:
         return _precision_figure(points)
     if points.get("kind") == "operating":
         return _operating_figure(points)
-    fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
-    ax = fig.add_subplot()
-    ax.set_gid("power-curve-axes")
-    # The title and the assumptions travel with the drawing (a saved PNG stands alone).
-    fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
-    notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
-    ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
+    fig, ax = _axes(points, "power-curve-axes")
     if points["analytic"]:
         pairs = [
             (n, p) for n, p in zip(points["n"], points["analytic"], strict=True) if p is not None
@@ -435,15 +430,7 @@ def _figure(points: dict) -> Figure:
         label=f"answer: {chosen['n']:,} (power {describe.fmt_power(chosen['power'])})",
     )
     dot.set_gid("chosen-point")
-    ax.set_xlabel(points["x_label"], color=_INK)
-    ax.set_ylabel("Power", color=_INK)
-    ax.set_ylim(0, 1.02)
-    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    ax.legend(loc="lower right", frameon=False, fontsize=9)
+    _finish(ax, points["x_label"], "Power", power=True, legend="lower right")
     return fig
 
 
@@ -523,17 +510,14 @@ def sensitivity_svg(grid_result: dict, question: dict | None = None) -> str:
             line["x"], ys, marker="o", ms=4, lw=1.8, color=color, label=line["label"]
         )
         drawn.set_gid(f"sensitivity-line-{i}")
-    ax.set_xlabel(data["x_label"], color=_INK)
-    ax.set_ylabel(data["y_label"], color=_INK)
-    if data["y_label"] == "Power":
-        ax.set_ylim(0, 1.02)
-        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    if len(data["lines"]) > 1 or data["lines"][0]["label"] != "as asked":
-        ax.legend(loc="best", frameon=False, fontsize=9)
+    several = len(data["lines"]) > 1 or data["lines"][0]["label"] != "as asked"
+    _finish(
+        ax,
+        data["x_label"],
+        data["y_label"],
+        power=data["y_label"] == "Power",
+        legend="best" if several else None,
+    )
     title = f"{data['y_label']} against {data['x_label'].lower()}, one line per assumption set"
     return _svg(fig, "sensitivity-title", title)
 

@@ -100,7 +100,10 @@ def report_html(detail: dict, done: dict) -> str:
     errors=PAGE_ERRORS,
 )
 def curve_svg(request_id: str):
-    """Power against the enrolled size around the answer, as SVG with its title and assumptions."""
+    """Power against the enrolled size around the answer, as SVG with its title and assumptions.
+
+    A design whose stage rules fix its size draws its exact power against the true rate instead.
+    """
     return _curve(request_id, power_curve_svg, "image/svg+xml")
 
 
@@ -112,7 +115,10 @@ def curve_svg(request_id: str):
     errors=PAGE_ERRORS,
 )
 def curve_png(request_id: str):
-    """Power against the enrolled size around the answer, as PNG that stands alone in a document."""
+    """Power against the enrolled size around the answer, as PNG that stands alone in a document.
+
+    A design whose stage rules fix its size draws its exact power against the true rate instead.
+    """
     return _curve(request_id, power_curve_png, "image/png")
 
 

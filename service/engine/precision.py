@@ -255,7 +255,7 @@ def record_block(q: dict, design, per_group: list[float], label: str) -> dict:
     """The record's ``precision`` block at the analyzed sizes ``per_group``."""
     hyp = q["hypothesis"]
     part = design.estimation.precision(q, [float(n) for n in per_group])
-    return {
+    block = {
         "interval": label,
         "confidence": hyp["confidence"],
         "half_width_target": hyp.get("half_width"),
@@ -265,6 +265,10 @@ def record_block(q: dict, design, per_group: list[float], label: str) -> dict:
         "probability": part.get("probability"),
         "basis": part["basis"],
     }
+    if part.get("intervals") is not None:  # several intervals at once (Estimation docstring)
+        block["intervals"] = part["intervals"]
+        block["wider"] = part["wider"]
+    return block
 
 
 def check(q: dict, design) -> None:

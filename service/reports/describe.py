@@ -30,6 +30,7 @@ __all__ = [
     "is_omnibus",
     "label_of_analysis",
     "path_label",
+    "size_search",
     "unit_words",
 ]
 
@@ -95,6 +96,16 @@ def analysis_label(q: dict, record: dict | None = None) -> str:
         return label
     analysis = _analysis(q, record)
     return analysis.label if analysis is not None else "the planned test"
+
+
+def size_search(record: dict) -> str | None:
+    """How an exact search found the analytic base size ("found by exact search: the smallest
+    n …"), or None when a formula gave an unrounded size (or the answer was simulated)."""
+    if (record.get("method") or {}).get("method") == "simulation":
+        return None
+    analysis = _analysis(record["question"], record)
+    words = getattr(analysis, "size_search", None)
+    return f"found by exact search: {words}" if words else None
 
 
 def _fields(design) -> dict:

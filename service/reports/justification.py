@@ -28,6 +28,7 @@ from .describe import (
     group_names,
     is_omnibus,
     margin_text,
+    size_search,
     unit_words,
 )
 
@@ -466,8 +467,12 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         if len(base["per_group"]) > 1:
             body += f" ({fmt_count(sum(base['per_group']))} in total)"
         body += " are needed before adjustment"
-        # A simulated search lands on whole numbers; only a formula has an unrounded answer.
-        if analytic:
+        # A simulated or an exact search lands on whole numbers; only a formula has an
+        # unrounded answer.
+        searched = size_search(record)
+        if searched:
+            body += f" ({searched})"
+        elif analytic:
             raw = list(dict.fromkeys(base["per_group_raw"]))
             body += f" (unrounded {', '.join(_raw(x) for x in raw)})"
     body += "." + _source(context)
@@ -537,7 +542,11 @@ def estimand_text(q: dict) -> str:
 
 
 def interval_words(q: dict) -> str:
-    """'a two-sided 95% confidence interval whose half-width is at most 3 (expected)'."""
+    """'a two-sided 95% confidence interval whose half-width is at most 3 (expected)'; a cell
+    with several intervals says them in its own words (``Estimation.interval_words``)."""
+    own = cell(q).estimation.interval_words
+    if own is not None:
+        return own(q)
     hyp = q["hypothesis"]
     text = f"a two-sided {fmt_pct(hyp['confidence'])} confidence interval"
     if hyp.get("half_width") is None:
@@ -551,6 +560,9 @@ def interval_words(q: dict) -> str:
 def precision_sentence(record: dict) -> str:
     """The half-width at the analyzed size, in words, from the record's ``precision`` block."""
     p, q = record["precision"], record["question"]
+    own = cell(q).estimation.precision_words
+    if own is not None:
+        return own(record)
     where = "At the analyzed size" if q["find"] == "sample_size" else "At this size"
     text = f" {where} the half-width is {fmt_num(p['half_width_expected'])} {p['basis']}"
     if p.get("half_width_assured") is not None:
@@ -579,7 +591,10 @@ def _estimation_body(record: dict, context: dict | None) -> str:
                 f" (after {fmt_pct(dropout['rate'])} dropout, an effective "
                 f"{_analyzed(size['analyzed_per_group'], q)} are analyzed)"
             )
-        body += f", {interval_words(q)} estimates {estimand_text(q)}."
+        several = cell(q).estimation.interval_words is not None  # "two … intervals estimate"
+        body += (
+            f", {interval_words(q)} {'estimate' if several else 'estimates'} {estimand_text(q)}."
+        )
         return body + precision_sentence(record) + _source(context)
     base = next(s for s in size["steps"] if s["step"] == "base")
     raw = list(dict.fromkeys(base["per_group_raw"]))

@@ -98,6 +98,8 @@ def curve_points(
     sizes = _sizes(chosen, points, tuple(span), _MIN_N)
     if record.get("precision") is not None:
         return _precision_points(record, sizes, chosen)
+    if describe.cell(record["question"]).operating_curve is not None:
+        return _operating_points(record)
     q = _power_question(record)
     simulated = q.get("method") == "simulation"
 
@@ -150,12 +152,22 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
     q["find"] = "precision"
     q["hypothesis"] = dict(q["hypothesis"], half_width=None)
     values = []
+    several: dict[str, list] = {  # a cell with several intervals: one line each
+        i["estimand"]: [] for i in record["precision"].get("intervals") or []
+    }
     for m in sizes:
         try:
             block = compute(dict(q, sample_size={"per_group": _per_group_for(record, m)}))
             values.append(block["precision"]["half_width_expected"])
+            widths = {
+                i["estimand"]: i["half_width_expected"]
+                for i in block["precision"].get("intervals") or []
+            }
         except QuestionError:
             values.append(None)
+            widths = {}
+        for name, line in several.items():
+            line.append(widths.get(name))
     x_label = "Enrolled per group" if len(record["sample_size"]["per_group"]) > 1 else "Enrolled"
     target = record["precision"]["half_width_target"]
     lines = [
@@ -165,9 +177,12 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
     dropout = (q.get("adjustments") or {}).get("dropout")
     if dropout:
         lines.append(f"Adjusted for dropout {describe.fmt_pct(dropout)}")
+    which = "Half-width of the interval"
+    if several:
+        which = "Half-width of each interval"  # the legend names them
     return {
         "kind": "precision",
-        "title": f"Half-width of the interval against {x_label.lower()}, with the "
+        "title": f"{which} against {x_label.lower()}, with the "
         + ("chosen" if q.get("sample_size") is None else "stated")
         + " size marked",
         "assumptions": lines,
@@ -175,12 +190,41 @@ def _precision_points(record: dict, sizes: list[int], chosen: int) -> dict:
         "x_label": x_label,
         "n": sizes,
         "analytic": values if any(v is not None for v in values) else [],
+        "intervals": [{"estimand": name, "half_widths": line} for name, line in several.items()],
         "simulated": [],
         "replicates": None,
         "seed": None,
         "target_power": None,
         "target_half_width": target,
         "chosen": {"n": chosen, "half_width": record["precision"]["half_width_expected"]},
+    }
+
+
+def _operating_points(record: dict) -> dict:
+    """A design whose size its own rules fix: its exact power against the true rate
+    (``Design.operating_curve``), not against other sizes."""
+    q = record["question"]
+    oc = describe.cell(q).operating_curve(record)
+    lines = _curve_assumptions(record)
+    lines[0] = (
+        f"{describe.cell_label(q)}; {describe.analysis_label(q, record)} ; "
+        f"alpha {describe.fmt_num(q['alpha'])}, {q.get('alternative', 'two-sided')}"
+    )
+    return {
+        "kind": "operating",
+        "title": oc["title"],
+        "assumptions": lines,
+        "method": "analytic",
+        "x_label": oc["x_label"],
+        "y_label": oc["y_label"],
+        "x": oc["x"],
+        "analytic": oc["power"],
+        "marks": oc["marks"],
+        "caption": oc["caption"],
+        "simulated": [],
+        "replicates": None,
+        "seed": None,
+        "target_power": q.get("target_power"),
     }
 
 
@@ -241,18 +285,45 @@ def _simulated_at(q: dict, per_group: list[int]) -> dict | None:
 # --- drawing ------------------------------------------------------------------------------
 
 
-def _precision_figure(points: dict) -> Figure:
-    """The expected half-width against n, the target as a dashed line, the answer marked."""
+def _axes(points: dict, gid: str) -> tuple[Figure, object]:
+    """A figure and its axes with the curve's title and the assumptions it was drawn under
+    (they travel with the drawing: a saved PNG stands alone)."""
     fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
     ax = fig.add_subplot()
-    ax.set_gid("precision-curve-axes")
+    ax.set_gid(gid)
     fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
     notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
     ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
-    pairs = [(n, h) for n, h in zip(points["n"], points["analytic"], strict=False) if h is not None]
-    if pairs:
-        (line,) = ax.plot(*zip(*pairs, strict=True), color=_ANALYTIC, lw=2, label="formula")
-        line.set_gid("analytic-curve")
+    return fig, ax
+
+
+def _finish(ax, x_label: str, y_label: str, *, power: bool, legend: str | None) -> None:
+    """Axis labels, a 0–100% axis for a power, the grid, open top and right, the legend."""
+    ax.set_xlabel(x_label, color=_INK)
+    ax.set_ylabel(y_label, color=_INK)
+    if power:
+        ax.set_ylim(0, 1.02)
+        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
+    ax.grid(True, color="#d5dbe1", lw=0.6)
+    ax.tick_params(colors=_INK)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    if legend is not None:
+        ax.legend(loc=legend, frameon=False, fontsize=9)
+
+
+def _precision_figure(points: dict) -> Figure:
+    """The expected half-width against n, the target as a dashed line, the answer marked."""
+    fig, ax = _axes(points, "precision-curve-axes")
+    lines = [
+        (f"{i['estimand']} interval", i["half_widths"]) for i in points.get("intervals") or []
+    ] or [("formula", points["analytic"])]
+    for k, (label, ys) in enumerate(lines):
+        pairs = [(n, h) for n, h in zip(points["n"], ys, strict=False) if h is not None]
+        if pairs:
+            color = _LINE_COLORS[k % len(_LINE_COLORS)]
+            (line,) = ax.plot(*zip(*pairs, strict=True), color=color, lw=2, label=label)
+            line.set_gid("analytic-curve" if k == 0 else f"analytic-curve-{k}")
     target = points.get("target_half_width")
     if target is not None:
         t = ax.axhline(
@@ -272,29 +343,48 @@ def _precision_figure(points: dict) -> Figure:
         ms=7,
         color=_CHOSEN,
         ls="none",
-        label=f"answer: {chosen['n']:,} (half-width {describe.fmt_num(chosen['half_width'])})",
+        label=f"answer: {chosen['n']:,} ("
+        + ("wider half-width" if points.get("intervals") else "half-width")
+        + f" {describe.fmt_num(chosen['half_width'])})",
     )
     dot.set_gid("chosen-point")
-    ax.set_xlabel(points["x_label"], color=_INK)
-    ax.set_ylabel("Half-width", color=_INK)
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    ax.legend(loc="upper right", frameon=False, fontsize=9)
+    _finish(ax, points["x_label"], "Half-width", power=False, legend="upper right")
+    return fig
+
+
+def _operating_figure(points: dict) -> Figure:
+    """Power against the true rate for one fixed design, its two planning rates marked."""
+    fig, ax = _axes(points, "power-curve-axes")
+    (line,) = ax.plot(points["x"], points["analytic"], color=_ANALYTIC, lw=2, label="exact")
+    line.set_gid("analytic-curve")
+    target = points.get("target_power")
+    if target is not None:
+        t = ax.axhline(
+            target, color=_TARGET, ls="--", lw=1.2, label=f"target power {describe.fmt_pct(target)}"
+        )
+        t.set_gid("target-line")
+    for k, (mark, marker) in enumerate(zip(points["marks"], ("o", "D"), strict=False)):
+        ax.axvline(mark["x"], color=_CHOSEN, ls=":", lw=1.2).set_gid(f"rate-line-{k}")
+        (dot,) = ax.plot(
+            [mark["x"]],
+            [mark["power"]],
+            marker=marker,
+            ms=7,
+            color=_CHOSEN,
+            ls="none",
+            label=mark["label"],
+        )
+        dot.set_gid(f"rate-point-{k}")
+    _finish(ax, points["x_label"], points["y_label"], power=True, legend="lower right")
     return fig
 
 
 def _figure(points: dict) -> Figure:
     if points.get("kind") == "precision":
         return _precision_figure(points)
-    fig = Figure(figsize=(7.2, 4.8), dpi=100, layout="constrained")
-    ax = fig.add_subplot()
-    ax.set_gid("power-curve-axes")
-    # The title and the assumptions travel with the drawing (a saved PNG stands alone).
-    fig.suptitle(points["title"], color=_INK, fontsize=11).set_gid("curve-heading")
-    notes = "\n".join(textwrap.fill(line, 105) for line in points["assumptions"])
-    ax.set_title(notes, loc="left", color=_INK, fontsize=7.5).set_gid("curve-assumptions")
+    if points.get("kind") == "operating":
+        return _operating_figure(points)
+    fig, ax = _axes(points, "power-curve-axes")
     if points["analytic"]:
         pairs = [
             (n, p) for n, p in zip(points["n"], points["analytic"], strict=True) if p is not None
@@ -340,15 +430,7 @@ def _figure(points: dict) -> Figure:
         label=f"answer: {chosen['n']:,} (power {describe.fmt_power(chosen['power'])})",
     )
     dot.set_gid("chosen-point")
-    ax.set_xlabel(points["x_label"], color=_INK)
-    ax.set_ylabel("Power", color=_INK)
-    ax.set_ylim(0, 1.02)
-    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))  # power in percent
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    ax.legend(loc="lower right", frameon=False, fontsize=9)
+    _finish(ax, points["x_label"], "Power", power=True, legend="lower right")
     return fig
 
 
@@ -428,17 +510,14 @@ def sensitivity_svg(grid_result: dict, question: dict | None = None) -> str:
             line["x"], ys, marker="o", ms=4, lw=1.8, color=color, label=line["label"]
         )
         drawn.set_gid(f"sensitivity-line-{i}")
-    ax.set_xlabel(data["x_label"], color=_INK)
-    ax.set_ylabel(data["y_label"], color=_INK)
-    if data["y_label"] == "Power":
-        ax.set_ylim(0, 1.02)
-        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1, decimals=0))
-    ax.grid(True, color="#d5dbe1", lw=0.6)
-    ax.tick_params(colors=_INK)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    if len(data["lines"]) > 1 or data["lines"][0]["label"] != "as asked":
-        ax.legend(loc="best", frameon=False, fontsize=9)
+    several = len(data["lines"]) > 1 or data["lines"][0]["label"] != "as asked"
+    _finish(
+        ax,
+        data["x_label"],
+        data["y_label"],
+        power=data["y_label"] == "Power",
+        legend="best" if several else None,
+    )
     title = f"{data['y_label']} against {data['x_label'].lower()}, one line per assumption set"
     return _svg(fig, "sensitivity-title", title)
 

@@ -49,6 +49,12 @@ _FIND = {
     "precision": "the half-width of the interval the stated sample size gives",
 }
 _FIND_ESTIMATION = "the sample size that makes the confidence interval narrow enough"
+# A cell that estimates several quantities at once (Estimation.interval_words) has one interval
+# each: the question asks for every one of them.
+_FIND_SEVERAL = {
+    "sample_size": "the sample size that makes each confidence interval narrow enough",
+    "precision": "the half-width of each interval the stated sample size gives",
+}
 
 
 _METHODS = {"analytic": "analytic", "simulation": "Monte Carlo simulation"}
@@ -114,6 +120,8 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
     hyp = q.get("hypothesis") or {}
     if hyp.get("aim") == "estimation":
         looking = _FIND_ESTIMATION if q["find"] == "sample_size" else _FIND[q["find"]]
+        if cell.estimation is not None and cell.estimation.interval_words is not None:
+            looking = _FIND_SEVERAL[q["find"]]
         rows.append(("Looking for", looking.capitalize()))
         rows.append(("Interval", words.interval_words(q).removeprefix("a ").capitalize()))
         rows.append(("Estimating", words.estimand_text(q)))
@@ -217,6 +225,24 @@ def _precision_figures(record: dict) -> list[dict]:
     figures = [
         {"value": words.fmt_num(p["half_width_expected"]), "label": f"half-width {p['basis']}"}
     ]
+    if p.get("intervals"):  # several intervals: each one's half-width, and which one is wider
+        figures = [
+            {
+                "value": words.fmt_num(i["half_width_expected"]),
+                "label": f"half-width of the {i['estimand']} interval (among the expected "
+                f"{words.fmt_num(round(i['expected_subjects'], 1))} {i['subjects']})"
+                + (
+                    (
+                        ", the wider: it sets the sample size"
+                        if record["question"]["find"] == "sample_size"
+                        else ", the wider"
+                    )
+                    if i["estimand"] == p["wider"]
+                    else ""
+                ),
+            }
+            for i in p["intervals"]
+        ]
     if p.get("half_width_assured") is not None:
         figures.append(
             {
@@ -289,6 +315,14 @@ def _steps_caption(record: dict) -> str:
                 "Each step starts from the row above; every step rounds up to whole subjects "
                 "keeping the allocation ratio exact."
             )
+        if describe.size_search(record):
+            later = any(s["step"] != "base" for s in record["sample_size"]["steps"])
+            return "The base size is a whole number found by exact search" + (
+                "; each later step starts from the row above and rounds each group up to whole "
+                "subjects."
+                if later
+                else "."
+            )
         if (record["question"].get("adjustments") or {}).get("cluster"):
             return (
                 "Each step starts from the row above; the design-effect row shows the unrounded "
@@ -347,6 +381,9 @@ def _step_rows(record: dict) -> list[dict]:
                 if record["method"].get("method") != "simulation"
                 else "smallest simulated size reaching the target"
             )
+            searched = describe.size_search(record)
+            if searched:
+                detail = searched  # whole sizes from the start: nothing was rounded
             events = words.events_of(record)
             if events:
                 detail += (
@@ -548,6 +585,9 @@ def render_report(
         context["effect_source"] = request["effect_source"]
     status = request.get("status") or "computed"
     several = len(record["sample_size"]["per_group"]) > 1
+    # a design whose rules fix its size draws power against the true rate (plots.curve_points)
+    operating = describe.cell(q).operating_curve
+    curve_caption = operating(record)["caption"] if operating is not None else None
     return (
         _env()
         .get_template("report.html.j2")
@@ -569,6 +609,7 @@ def render_report(
             steps_caption=_steps_caption(record),
             justification=words.justification(record, context),
             curve_svg=Markup(curve_svg),
+            curve_caption=curve_caption,
             sensitivity=sensitivity,
             sensitivity_axes=[
                 {"path": a["path"], "label": describe.path_label(q, a["path"]).capitalize()}

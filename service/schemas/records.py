@@ -368,6 +368,19 @@ class SequentialResultSchema(OpenSchema):
     expected_analyzed_alternative = fields.Float()
 
 
+class PrecisionIntervalSchema(OpenSchema):
+    """One of several intervals of a precision question."""
+
+    estimand = fields.String(required=True, metadata={"description": "What it estimates."})
+    half_width_expected = fields.Float(required=True)
+    expected_subjects = fields.Float(
+        required=True, metadata={"description": "The subjects it is computed among (expected)."}
+    )
+    subjects = fields.String(
+        required=True, metadata={"description": "Who they are, in words ('cases')."}
+    )
+
+
 class PrecisionResultSchema(OpenSchema):
     """A precision question (hypothesis.aim estimation): the interval's half-widths."""
 
@@ -385,6 +398,20 @@ class PrecisionResultSchema(OpenSchema):
         metadata={"description": "P(half-width <= target) at the analyzed size, or null."},
     )
     basis = fields.String(required=True, metadata={"description": "How it was computed."})
+    intervals = fields.List(
+        fields.Nested(PrecisionIntervalSchema),
+        metadata={
+            "description": "Only when the cell estimates several quantities at once (sensitivity "
+            "and specificity): each interval's expected half-width; half_width_expected is the "
+            "widest."
+        },
+    )
+    wider = fields.String(
+        metadata={
+            "description": "With intervals: the estimand whose interval is the widest (it sets "
+            "the sample size)."
+        }
+    )
 
 
 class ShareSchema(OpenSchema):

@@ -134,7 +134,7 @@ def test_sensitivity_specificity_precision_through_api_worker_cli_and_report(cli
     text = justification(record)
     assert designs.get("diagnostic", "single_group").label in text
     assert "sensitivity and the specificity" in text
-    assert "half-width is at most 0.05" in text
+    assert "each with a half-width of at most 0.05" in text  # two intervals, one target
     page = render_report(REQUEST, record, curve_svg="<svg></svg>")
     assert str(record["sample_size"]["total"]) in page
 

@@ -81,6 +81,10 @@ class Analysis:
     methods: tuple[str, ...]  # which of "analytic", "simulation" honor it
     aims: tuple[str, ...]  # the hypothesis aims it answers
     reference: str  # "Welch 1947; power by the noncentral t"
+    # How an analytic sample size is found when it comes from an exact search over whole sizes
+    # (enumeration) rather than a formula, in the report's words ("the smallest n …"); such an
+    # answer has no unrounded value. None: a formula's (or a root's) unrounded n, rounded up.
+    size_search: str | None = None
 
 
 @dataclass(frozen=True)
@@ -245,12 +249,22 @@ class Estimation:
     assurance : True when the cell's intervals take ``hypothesis.assurance``.
     expected_words : what "the half-width is at most the target" means without an assurance,
         in the report's words (the record's ``precision.basis`` says how it is computed).
+    interval_words : optional q -> the intervals in words, for a cell that estimates several
+        quantities at once ("two two-sided 95% confidence intervals, one for …"); its
+        ``precision`` then also returns ``intervals`` (one {"estimand", "half_width_expected",
+        "expected_subjects", "subjects"} each; the record's half_width_expected is the widest)
+        and ``wider`` (the estimand whose interval is the widest: it sets the sample size).
+        None: one interval, in the report's shared words.
+    precision_words : optional record -> the half-width sentence of such a cell, read from the
+        record's ``precision.intervals`` and ``wider``; None: the shared sentence.
     """
 
     forms: tuple[tuple[str, ...], ...]
     precision: Callable[[dict, list[float]], dict]
     assurance: bool = False
     expected_words: str = "on average (the expected half-width)"
+    interval_words: Callable[[dict], str] | None = None
+    precision_words: Callable[[dict], str] | None = None
 
 
 @dataclass(frozen=True)
@@ -313,6 +327,11 @@ class Design:
     # How the cell answers hypothesis.aim = "estimation" (precision questions); None: not offered.
     # An analysis whose ``aims`` hold "estimation" must be offered with it.
     estimation: Estimation | None = None
+    # record -> the curve the report draws instead of power against the enrolled size, for a
+    # design whose size is fixed by its own rules (Simon's two-stage design: power against the
+    # true rate). Keys: title, x_label, y_label, x, power (lists), marks ([{x, power, label}]),
+    # caption (the sentence under the drawing). None: the power curve against n.
+    operating_curve: Callable[[dict], dict] | None = None
 
     @property
     def cell(self) -> str:

@@ -112,6 +112,8 @@ ANALYSES = (
         ("analytic", "simulation"),
         ("superiority",),
         "exact binomial test of the discordant pairs; power by exact enumeration",
+        size_search="the smallest number of pairs from which the exact test's power stays at or "
+        "above the target for every larger number checked",
     ),
 )
 ANSWER = "stays_above_from"

@@ -78,6 +78,8 @@ ANALYSES = (
         ("analytic", "simulation"),
         ("superiority",),
         "Clopper & Pearson 1934; power by exact enumeration of the binomial counts",
+        size_search="the smallest n from which the exact test's power stays at or above the "
+        "target for every larger n checked",
     ),
     Analysis(
         "z_test",

@@ -134,6 +134,9 @@ ANALYSES = (
         ("analytic",),
         MARGIN_AIMS,
         "Miettinen & Nurminen 1985; the asymptotic test's exact power by enumeration",
+        size_search="the smallest whole control-group size whose power, enumerated over every "
+        "possible outcome, reaches the target (the treatment group at the allocation ratio, "
+        "rounded up)",
     ),
     Analysis(
         "mn_score_unconditional",
@@ -141,6 +144,9 @@ ANALYSES = (
         ("analytic",),
         MARGIN_AIMS,
         "Suissa & Shuster 1985; Chan 1998; power by enumeration",
+        size_search="the smallest whole control-group size whose power, enumerated over every "
+        "possible outcome, reaches the target (the treatment group at the allocation ratio, "
+        "rounded up)",
     ),
     Analysis(
         "fisher_exact",

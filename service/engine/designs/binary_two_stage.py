@@ -118,6 +118,8 @@ ANALYSES = (
         ("analytic", "simulation"),
         ("superiority",),
         "Simon 1989; exact enumeration of the two binomial stages",
+        size_search="the total size n of the design that best meets the design criterion "
+        "among every two-stage design up to the searched maximum",
     ),
 )
 _WORDS = {"optimal": "optimal", "minimax": "minimax"}
@@ -414,6 +416,67 @@ def details_sentence(record: dict) -> str:
     return ""
 
 
+# --- the operating characteristic ----------------------------------------------------------------
+
+CURVE_POINTS = 41
+
+
+def _chosen(record: dict) -> tuple[int, int, int, int]:
+    """The design the record answers with: the one found (find = sample_size) or posted."""
+    block = ((record.get("sample_size") or {}).get("details") or {}).get("two_stage")
+    if block:
+        return block["n1"], block["r1"], block["n"], block["r"]
+    q = record["question"]
+    v = values(q, FIELDS)
+    n = _whole(q["sample_size"]["per_group"][0])
+    return int(v["stage1_size"]), int(v["stage1_max_responses"]), n, int(v["max_responses"])
+
+
+def operating_curve(record: dict) -> dict:
+    """The chosen design's exact probability of calling the treatment promising against the
+    true response rate (from p0 − (p1 − p0) to p1 + (p1 − p0), within 0 and 1), with p0 (the
+    type I error) and p1 (the power) marked. A two-stage design's size is fixed by its stage
+    rules, so power against the enrolled size (other n, same rules) would describe designs
+    nobody chose."""
+    q = record["question"]
+    v = values(q, FIELDS)
+    p0, p1 = float(v["p_null"]), float(v["p"])
+    n1, r1, n, r = _chosen(record)
+    lo, hi = max(0.0, p0 - (p1 - p0)), min(1.0, p1 + (p1 - p0))
+    step = (hi - lo) / (CURVE_POINTS - 1)
+    rates = sorted({lo + i * step for i in range(CURVE_POINTS)} | {p0, p1})
+    power_at = [two_stage.operating(n1, r1, n, r, p)[0] for p in rates]
+    alpha_0, power_1 = (two_stage.operating(n1, r1, n, r, p)[0] for p in (p0, p1))
+    return {
+        "title": f"Power of the design r1/n1 = {r1}/{n1}, r/n = {r}/{n} against the true "
+        "response rate",
+        "x_label": "True response rate",
+        "y_label": "Probability of calling the treatment promising",
+        "x": rates,
+        "power": power_at,
+        "marks": [
+            {
+                "x": p0,
+                "power": alpha_0,
+                "label": f"uninteresting rate {fmt(p0)}: type I error {alpha_0:.4f}",
+            },
+            {
+                "x": p1,
+                "power": power_1,
+                "label": f"rate worth pursuing {fmt(p1)}: power {power_1:.4f}",
+            },
+        ],
+        "caption": (
+            f"The exact probability that the two-stage design (r1/n1 = {r1}/{n1}, r/n = "
+            f"{r}/{n}) calls the treatment promising, for each true response rate: at the "
+            f"uninteresting rate {fmt(p0)} it is the type I error ({alpha_0:.4f}), at the rate "
+            f"worth pursuing {fmt(p1)} the power ({power_1:.4f}). The design's size is fixed by "
+            "its stage rules, so its power is drawn against the response rate, not against the "
+            "enrolled size."
+        ),
+    }
+
+
 def _contrast(q: dict) -> float | None:
     v = values(q, FIELDS)
     if v.get("p") is None or v.get("p_null") is None:
@@ -447,6 +510,7 @@ DESIGN = Design(
     contrast=_contrast,
     null_effect=lambda q: values(q, FIELDS).get("p_null"),
     one_sided_only=True,
+    operating_curve=operating_curve,
     notes=(
         "find = sample_size finds Simon's optimal or minimax design (analysis_options.criterion); "
         "find = power gives a posted design's exact power and type I error.",

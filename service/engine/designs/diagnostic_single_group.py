@@ -119,10 +119,27 @@ def interval_precision(q: dict, per_group: list[float]) -> dict:
     _, confidence = _hypothesis(q)
     n = float(per_group[0])
     widths = diagnostic_precision.buderer_half_widths(n, se, sp, prev, confidence)
+    # the same tie rule as Buderer's governing n (n_sens ≥ n_spec ⇔ the sensitivity's width ≥)
+    wider = "sensitivity" if widths["sensitivity"] >= widths["specificity"] else "specificity"
     return {
         "half_width_expected": max(widths.values()),
         "half_width_assured": None,
         "probability": None,
+        "intervals": [
+            {
+                "estimand": "sensitivity",
+                "half_width_expected": widths["sensitivity"],
+                "expected_subjects": n * prev,
+                "subjects": "cases",
+            },
+            {
+                "estimand": "specificity",
+                "half_width_expected": widths["specificity"],
+                "expected_subjects": n * (1 - prev),
+                "subjects": "non-cases",
+            },
+        ],
+        "wider": wider,
         "basis": (
             f"for the wider of the two intervals (sensitivity ±{widths['sensitivity']:.4f} among "
             f"the expected {fmt(round(n * prev, 2))} cases, specificity "
@@ -173,6 +190,47 @@ def estimand_sentence(q: dict) -> str:
     )
 
 
+def interval_words(q: dict) -> str:
+    """The two intervals in words, each with the target half-width (``Estimation``)."""
+    hyp = q["hypothesis"]
+    text = (
+        f"two two-sided {100 * float(hyp['confidence']):.4g}% confidence intervals, one for the "
+        "sensitivity (among the cases) and one for the specificity (among the non-cases)"
+    )
+    if hyp.get("half_width") is None:
+        return text
+    return (
+        f"{text}, each with a half-width of at most {fmt(hyp['half_width'])} when the observed "
+        "proportions equal the planned ones"
+    )
+
+
+def precision_words(record: dict) -> str:
+    """Each interval's half-width at the size, and which one is wider and sets the size."""
+    p, q = record["precision"], record["question"]
+    where = "At the analyzed size" if q["find"] == "sample_size" else "At this size"
+    first, second = p["intervals"]
+
+    def among(i: dict) -> str:
+        return f"among the expected {fmt(round(i['expected_subjects'], 1))} {i['subjects']}"
+
+    text = (
+        f" {where} the {first['estimand']} interval's half-width is "
+        f"{fmt(first['half_width_expected'])} ({among(first)}) and the {second['estimand']} "
+        f"interval's is {fmt(second['half_width_expected'])} ({among(second)}), when the "
+        "observed proportions equal the planned ones."
+    )
+    wider = p["wider"]
+    other = second["estimand"] if wider == first["estimand"] else first["estimand"]
+    alone = ((record.get("method") or {}).get("derived") or {}).get(f"subjects_for_{other}")
+    if q["find"] == "sample_size" and alone is not None:
+        return text + (
+            f" The {wider} interval is the wider of the two and sets the sample size; the "
+            f"{other} interval alone would need {float(alone):.2f} participants (unrounded)."
+        )
+    return text + f" The {wider} interval is the wider of the two."
+
+
 def effect_sentence(q: dict, record: dict | None) -> str:
     v = values(q, FIELDS)
     return (
@@ -217,5 +275,7 @@ DESIGN = Design(
         precision=interval_precision,
         expected_words="for both sensitivity and specificity when the observed proportions "
         "equal the planned ones",
+        interval_words=interval_words,
+        precision_words=precision_words,
     ),
 )

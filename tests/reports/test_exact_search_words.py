@@ -1,0 +1,160 @@
+"""A size found by exact search is whole from the start: the report says how it was found and
+quotes no "unrounded" value; a formula's answer keeps its unrounded n. Demo data: Northbridge,
+invented."""
+
+from __future__ import annotations
+
+import html
+import math
+import re
+
+from scipy import stats
+
+from service.engine import compute
+from service.reports.justification import justification
+from service.reports.render import render_report
+from service.schemas import load_question
+from tests.reports.reports_testkit import REQUEST
+
+# The smoking-cessation question of the examples: one group, p 0.35 against 0.2, one-sided.
+SINGLE = {
+    "outcome": "binary",
+    "layout": "single_group",
+    "find": "sample_size",
+    "alternative": "one-sided",
+    "alpha": 0.05,
+    "target_power": 0.8,
+    "effect": {"p": 0.35},
+    "assumptions": {"p_null": 0.2},
+}
+
+
+def _record(raw: dict) -> dict:
+    return compute(load_question(raw))
+
+
+def _page_text(record: dict) -> str:
+    page = render_report(REQUEST, record, curve_svg="<svg></svg>")
+    return re.sub(r"\s+", " ", html.unescape(re.sub(r"<[^>]+>", " ", page)))
+
+
+def _exact_power(n: int, p: float, p0: float, alpha: float) -> float:
+    """One-sided exact binomial test (reject for large counts) by scipy: its power at p."""
+    k = int(stats.binom.isf(alpha, n, p0)) + 1  # smallest k with P(X ≥ k | p0) ≤ alpha
+    while k > 0 and stats.binom.sf(k - 2, n, p0) <= alpha:
+        k -= 1
+    return float(stats.binom.sf(k - 1, n, p))
+
+
+def test_exact_binomial_answer_says_it_was_searched_not_rounded():
+    record = _record(dict(SINGLE, analysis="exact_binomial"))
+    n = record["sample_size"]["per_group"][0]
+    block = record["sample_size"]["details"]["exact_search"]
+    # general-purpose library: scipy's binomial tails give the exact test's power at each n;
+    # n is the smallest size from which every size checked reaches 80%, n − 1 falls short.
+    powers = {m: _exact_power(m, 0.35, 0.2, 0.05) for m in range(n - 1, block["checked_through"])}
+    assert all(powers[m] >= 0.8 for m in range(n, block["checked_through"]))
+    assert powers[n - 1] < 0.8
+    text = justification(record)
+    assert "unrounded" not in text and f"{n}.00" not in text
+    assert (
+        f"{n} participants are needed before adjustment (found by exact search: the smallest n "
+        "from which the exact test's power stays at or above the target for every larger n "
+        "checked)."
+    ) in text
+    page = _page_text(record)
+    assert "unrounded" not in page and f"{n}.00" not in page
+    assert "solved by the formula" not in page
+    assert "Base size found by exact search: the smallest n from which" in page
+    assert "The base size is a whole number found by exact search." in page
+
+
+def test_later_steps_still_round_after_an_exact_search():
+    record = _record(dict(SINGLE, analysis="exact_binomial", adjustments={"dropout": 0.1}))
+    n = record["sample_size"]["steps"][0]["per_group"][0]
+    # formula: dropout divides the analyzed size by 1 − 0.1 and rounds up
+    assert record["sample_size"]["per_group"] == [math.ceil(n / 0.9 - 1e-9)]
+    page = _page_text(record)
+    assert (
+        "The base size is a whole number found by exact search; each later step starts from the "
+        "row above and rounds each group up to whole subjects."
+    ) in page
+    assert "unrounded" not in page
+
+
+def test_the_z_test_formula_keeps_its_unrounded_size():
+    record = _record(dict(SINGLE, analysis="z_test"))
+    # formula: Lachin (1981), n = [z_a·√(p0(1 − p0)) + z_b·√(p(1 − p))]² / (p − p0)²
+    za, zb = stats.norm.ppf(0.95), stats.norm.ppf(0.8)
+    raw = (za * math.sqrt(0.2 * 0.8) + zb * math.sqrt(0.35 * 0.65)) ** 2 / 0.15**2
+    text = justification(record)
+    assert f"{math.ceil(raw)} participants are needed before adjustment (unrounded {raw:.2f})" in (
+        text
+    )
+    assert "found by exact search" not in text
+    assert f"solved by the formula: {raw:.2f}, rounded up" in _page_text(record)
+
+
+def test_exact_mcnemar_answer_says_it_was_searched():
+    raw = {
+        "outcome": "binary",
+        "layout": "paired",
+        "analysis": "exact_mcnemar",
+        "alpha": 0.05,
+        "target_power": 0.8,
+        "effect": {"p_treatment_only": 0.2},
+        "assumptions": {"p_control_only": 0.08},
+    }
+    record = _record(raw)
+    n = record["sample_size"]["per_group"][0]
+    text = justification(record)
+    assert "unrounded" not in text
+    assert (
+        f"{n} pairs are needed before adjustment (found by exact search: the smallest number of "
+        "pairs from which the exact test's power stays at or above the target"
+    ) in text
+
+
+def test_enumerated_two_group_answer_says_it_was_searched():
+    raw = {
+        "outcome": "binary",
+        "layout": "two_groups",
+        "analysis": "mn_score_unconditional",
+        "alpha": 0.025,
+        "target_power": 0.8,
+        "hypothesis": {"aim": "noninferiority", "margin": -0.2, "higher_is_better": True},
+        "effect": {"p_treatment": 0.9},
+        "assumptions": {"p_control": 0.9},
+    }
+    record = _record(raw)
+    n = record["sample_size"]["per_group"][0]
+    text = justification(record)
+    assert "unrounded" not in text and f"{n}.00" not in text
+    assert (
+        f"{n} per group ({2 * n} in total) are needed before adjustment (found by exact search: "
+        "the smallest whole control-group size whose power, enumerated over every possible "
+        "outcome, reaches the target"
+    ) in text
+
+
+def test_simon_design_says_it_was_searched():
+    raw = {
+        "outcome": "binary",
+        "layout": "two_stage",
+        "alpha": 0.05,
+        "target_power": 0.8,
+        "effect": {"p": 0.4},
+        "assumptions": {"p_null": 0.2},
+    }
+    record = _record(raw)
+    # published: Simon (1989), Controlled Clin Trials 10:1, Table 1 (p0 .20, p1 .40, alpha .05,
+    # power .80), optimal design 3/13, 12/43; recomputed by the engine's enumeration.
+    assert record["sample_size"]["per_group"] == [43]
+    text = justification(record)
+    assert "unrounded" not in text and "43.00" not in text
+    assert (
+        "43 participants are needed before adjustment (found by exact search: the total size n of "
+        "the design that best meets the design criterion among every two-stage design up to the "
+        "searched maximum)."
+    ) in text
+    assert "unrounded" not in _page_text(record)

@@ -19,7 +19,7 @@ from service.engine import Cancelled
 from service.store.db import session_scope
 from service.store.models import ChunkResult
 from service.store.types import utcnow
-from workers.fanout import ChunkExecutor, clear_units, task_key, work_units
+from workers.fanout import ChunkExecutor, _text, clear_units, task_key, work_units
 
 
 def seeded_chunk(task: dict) -> dict:
@@ -206,3 +206,34 @@ def test_a_stop_request_is_honoured_between_chunks(factory):
     with pytest.raises(Cancelled):
         ex(batch(10))
     assert runner.calls == 3
+
+
+def test_units_shrink_towards_the_end_and_keep_the_batch_order(factory):
+    # 0.01 s a task, two processes: each unit about a quarter of what is left, between 0.05 s
+    # (5 tasks) and 0.5 s (50 tasks), so both finish close together.
+    ex = executor(factory, publish_helpers=lambda n: n, helpers=1)
+    ex.rate = 0.01  # seconds per task (these tasks weigh 1)
+    tasks = batch(400)
+    units = ex._units([(t, _text(t)) for t in tasks])
+    sizes = [len(u) for u in units]
+    assert [t for u in units for t, _ in u] == tasks
+    assert sizes == sorted(sizes, reverse=True) and sizes[0] == 50
+    assert all(s >= 5 for s in sizes[:-1]) and sizes[-1] <= 5
+    # Further on, each unit is about a quarter of what is left (rounded down to whole tasks).
+    left = 400
+    for size in sizes[:-1]:
+        assert size == min(50, max(5, int(left / 4))), sizes
+        left -= size
+
+
+def test_units_are_inserted_once_and_a_second_insert_keeps_the_rows(factory):
+    from workers.fanout import add_units
+
+    units = [batch(3), batch(2, seed=8)]
+    with session_scope(factory) as session:
+        keys = add_units(session, "request", "job1", units)
+    with session_scope(factory) as session:
+        assert add_units(session, "request", "job1", units) == keys  # duplicates: no error
+    stored = rows(factory)
+    assert [u.task_key for u in stored] == keys == [task_key(u) for u in units]
+    assert [u.tasks for u in stored] == units and {u.status for u in stored} == {"pending"}

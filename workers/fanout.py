@@ -3,8 +3,9 @@
 The engine gives the executor a batch of chunk tasks (JSON dicts) and wants their results back
 in the same order. A database round trip costs more than a small chunk, so:
 
-* the orchestrating worker computes chunks itself, timing them, until the rest of the batch is
-  estimated to take longer than ``split_seconds`` (and helpers are allowed);
+* the orchestrating worker computes chunks itself, timing them (a few chunks at least, the
+  fastest one giving the speed), until the rest of the batch is estimated to take longer than
+  ``split_seconds`` (and helpers are allowed);
 * it then cuts the rest into *units* of decreasing size (guided self-scheduling: each unit
   about 1/(2·workers) of what is left, between ``min_unit_seconds`` and ``unit_seconds``, so
   the first units are long and the last ones even out the finish), inserts them into
@@ -49,6 +50,9 @@ KeepGoing = Callable[[object], bool]  # asked with the open session before each 
 # units are long, and shorter only towards the end.
 UNIT_SECONDS = 0.5  # the longest unit: a waiting request or a cancel waits at most this much
 MIN_UNIT_SECONDS = 0.05  # the shortest: still longer than the transaction around it
+# The speed is measured on a few chunks (or on this much compute) before a batch is split.
+PROBE_CHUNKS = 3
+PROBE_SECONDS = 0.05
 UNIT_LEASE_SECONDS = 15.0  # a dead helper's unit is taken over after this long
 
 
@@ -294,7 +298,8 @@ class ChunkExecutor:
         self.runner = runner
         self.order = order
         self.poll_seconds = poll_seconds
-        self.rate: float | None = None  # seconds per unit of _weight, measured here
+        self.rate: float | None = None  # seconds per unit of _weight: the fastest chunk here
+        self.local_seconds = 0.0  # time spent computing chunks here
         self.reused: dict[str, dict] | None = None
         self.computed = 0  # chunks this executor computed itself
         self.units = 0  # units this job was split into
@@ -310,9 +315,18 @@ class ChunkExecutor:
         result = self.runner(task)
         elapsed = time.perf_counter() - started
         rate = elapsed / _weight(task)
-        self.rate = rate if self.rate is None else 0.7 * self.rate + 0.3 * rate
+        # The fastest chunk: a process's first chunk can take ten times longer than the next
+        # (cold caches, a preemption), and units cut from that rate were a few ms each.
+        self.rate = rate if self.rate is None else min(self.rate, rate)
+        self.local_seconds += elapsed
         self.computed += 1
         return result
+
+    def _measured(self) -> bool:
+        """True once the speed is known well enough to plan units from it."""
+        return self.rate is not None and (
+            self.computed >= PROBE_CHUNKS or self.local_seconds >= PROBE_SECONDS
+        )
 
     def __call__(self, tasks: list[dict]) -> list[dict]:
         """Run a batch of chunk tasks and return their results in the batch's order."""
@@ -336,7 +350,7 @@ class ChunkExecutor:
             pending = self.order(list(pending))
         while pending:
             self._check_stop()
-            if self.helpers and self.rate is not None and len(pending) > 1:
+            if self.helpers and len(pending) > 1 and self._measured():
                 estimate = self.rate * sum(_weight(tasks[i]) for i in pending)
                 if estimate > self.split_seconds:
                     self._share([(tasks[i], texts[i]) for i in pending], results)

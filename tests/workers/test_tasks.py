@@ -226,13 +226,14 @@ def test_a_shared_job_gives_the_in_process_record_and_leaves_no_unit(sqlite_conf
     runs = []
 
     def runner(task: dict) -> dict:
-        # The first unit the orchestrator takes: a helper (same process, same code) joins in.
+        # Three chunks measure the speed, the fourth is the first unit the orchestrator takes:
+        # a helper (same process, same code) joins in.
         runs.append(1)
-        if len(runs) == 3 and not helped:
+        if len(runs) == 4 and not helped:
             helped.append(tasks.run_helper_job("request", request_id, sqlite_config))
         return engine_run_chunk(task)
 
-    # Split every batch at once, one chunk per unit; helper tasks go to the real (folder) broker.
+    # Split every batch once measured, one chunk per unit; helpers go to the real (folder) broker.
     config = dict(sqlite_config, FANOUT_SPLIT_SECONDS=0.0, FANOUT_UNIT_SECONDS=0.0)
     assert tasks.run_request_job(request_id, config, fan_out=True, runner=runner) == "computed"
     [result] = _results(factory, request_id)

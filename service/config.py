@@ -85,7 +85,7 @@ SETTINGS: tuple[Setting, ...] = (
     ),
     Setting(
         "SIZEWISE_FANOUT_SPLIT_SECONDS",
-        1.0,
+        0.25,
         float,
         "A simulation batch estimated to take longer than this is split across workers.",
     ),

@@ -26,10 +26,12 @@ from service.engine.errors import describe_failure
 from service.store import jobs
 from service.store.db import session_scope
 from service.store.types import utcnow
-from workers.fanout import UNIT_SECONDS, ChunkExecutor, clear_units
+from workers.fanout import MIN_UNIT_SECONDS, UNIT_SECONDS, ChunkExecutor, clear_units
 from workers.queue import publish_helpers
 
 log = logging.getLogger(__name__)
+
+CANCEL_CHECK_SECONDS = 0.2  # how often a running job reads its cancel flag, at most
 
 
 class LeaseLost(Exception):
@@ -59,6 +61,9 @@ class JobHooks:
         self.fraction = 0.0
         self._renewed = time.monotonic()
         self._cancelled = False
+        # The cancel flag is read at most this often: a read per chunk cost more than the chunks.
+        self.cancel_every = float(config.get("CANCEL_CHECK_SECONDS", CANCEL_CHECK_SECONDS))
+        self._checked: float | None = None
 
     def renew(self, force: bool = False) -> None:
         """Renew the lease (and write progress) at most every few seconds; raise LeaseLost."""
@@ -77,9 +82,14 @@ class JobHooks:
         self.renew()
 
     def cancel(self) -> bool:
-        """True when someone asked to cancel the job (one primary-key read per check)."""
+        """True when someone asked to cancel the job: one primary-key read, at most every
+        ``cancel_every`` seconds (the first check always reads)."""
         if not jobs.job_kind(self.kind).cancellable or self._cancelled:
             return self._cancelled
+        now = time.monotonic()
+        if self._checked is not None and now - self._checked < self.cancel_every:
+            return False
+        self._checked = now
         with session_scope(self.factory) as session:
             self._cancelled = jobs.cancel_requested(session, self.kind, self.job_id)
         return self._cancelled
@@ -108,8 +118,9 @@ def executor_for(
         lease_seconds=float(config["LEASE_SECONDS"]),
         publish_helpers=publish if fan_out else None,
         helpers=int(config.get("FANOUT_HELPERS", 1)),
-        split_seconds=float(config.get("FANOUT_SPLIT_SECONDS", 1.0)),
+        split_seconds=float(config.get("FANOUT_SPLIT_SECONDS", 0.25)),
         unit_seconds=float(config.get("FANOUT_UNIT_SECONDS", UNIT_SECONDS)),
+        min_unit_seconds=float(config.get("FANOUT_MIN_UNIT_SECONDS", MIN_UNIT_SECONDS)),
         heartbeat=hooks.renew,
         should_stop=hooks.cancel if jobs.job_kind(kind).cancellable else None,
         runner=runner,
@@ -135,16 +146,18 @@ def run_claimed(
     store: Callable[[Any], str],
     *,
     log_failure: bool = True,
+    units: bool = True,
 ) -> str:
     """Run a claimed job's ``work`` and settle it: ``store`` the value, fail, cancel or stop.
 
     Returns ``store``'s outcome, 'failed', 'cancelled' (cancellable jobs only) or 'lost';
     an OperationalError is raised, so the lease expires and the sweeper retries the job.
+    ``units`` False says the job can have no work units (nothing to delete when it ends).
     """
     started = time.perf_counter()
     outcome = _settle(factory, config, kind, job_id, owner, work, store, log_failure)
     metrics.COMPUTE_TIME.labels(kind, owner.split(":", 1)[0]).observe(time.perf_counter() - started)
-    if outcome != "lost":
+    if outcome != "lost" and units:
         # The job has ended: its shared work units are of no further use.
         with session_scope(factory) as session:
             clear_units(session, kind, job_id)

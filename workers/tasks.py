@@ -79,6 +79,7 @@ def run_request_job(
         row = session.get(Request, request_id)
         question = row.question
         attempts = row.attempts
+        simulated = row.method != "analytic"
         waited("request", row.submitted_at)
         _event(
             session,
@@ -92,10 +93,10 @@ def run_request_job(
     started = utcnow()
 
     def work(hooks: JobHooks) -> dict:
+        if answer is not None and answer.get("question") == question:
+            return answer  # already computed: a cancel would save nothing (and costs a read)
         if hooks.cancel():
             raise Cancelled(f"request {request_id} cancelled before it started")
-        if answer is not None and answer.get("question") == question:
-            return answer
         return compute(
             question,
             progress=hooks.progress,
@@ -116,20 +117,21 @@ def run_request_job(
                 started_at=started,
                 chunk_size=(question.get("simulation") or {}).get("chunk_size"),
             )
+            # The explorations that waited for this result, read in the same transaction.
+            waiting = explorations.waiting(session, request_id) if stored is not None else []
         if stored is None:
             log.warning("request %s: lease lost before the result was stored", request_id)
             return "lost"
         log.info("request %s: computed", request_id)
-        _publish_waiting_explorations(factory, request_id, config)
+        _publish_explorations(factory, waiting, config)
         return "computed"
 
-    return run_claimed(factory, config, "request", request_id, owner, work, store)
+    # A closed-form request never has work units: no DELETE of them when it ends.
+    return run_claimed(factory, config, "request", request_id, owner, work, store, units=simulated)
 
 
-def _publish_waiting_explorations(factory, request_id: str, config: dict) -> None:
-    """Hand the broker the explorations that waited for this result (else the sweeper does)."""
-    with session_scope(factory) as session:
-        ids = explorations.waiting(session, request_id)
+def _publish_explorations(factory, ids: list[str], config: dict) -> None:
+    """Hand the broker the explorations that waited for a result (else the sweeper does)."""
     for exploration_id in ids:
         publish_and_mark("exploration", exploration_id, config, factory)
 
@@ -202,11 +204,11 @@ def run_helper_job(kind: str, job_id: str, config: dict, *, runner=engine_run_ch
     jobs.job_kind(kind)  # ValueError naming the jobs for anything else
     factory = sessions(config)
 
-    def keep_going() -> bool:
-        with session_scope(factory) as session:
-            if jobs.job_status(session, kind, job_id) != "running":
-                return False
-            return not jobs.work_waiting(session)
+    def keep_going(session) -> bool:
+        # Asked inside the transaction that claims the next unit (no round trip of its own).
+        if jobs.job_status(session, kind, job_id) != "running":
+            return False
+        return not jobs.work_waiting(session)
 
     done = work_units(
         factory,

@@ -19,7 +19,7 @@ from service.engine import Cancelled
 from service.store.db import session_scope
 from service.store.models import ChunkResult
 from service.store.types import utcnow
-from workers.fanout import ChunkExecutor, clear_units, task_key, work_units
+from workers.fanout import ChunkExecutor, _text, clear_units, task_key, work_units
 
 
 def seeded_chunk(task: dict) -> dict:
@@ -110,13 +110,13 @@ def test_a_long_batch_is_cut_into_units_and_a_few_helpers_are_published(factory)
     ex = sharing(factory, sent=sent, helpers=3)
     got = ex(tasks)
     assert got == [seeded_chunk(t) for t in tasks]
-    # The first chunk measured the speed; the other 8 became units; at most `helpers` messages.
-    assert ex.units == 8 and sent == [3]
+    # Three chunks measured the speed; the other 6 became units; at most `helpers` messages.
+    assert ex.units == 6 and sent == [3]
     units = rows(factory)
-    assert len(units) == 8 and {u.status for u in units} == {"done"}
-    assert [t for u in sorted(units, key=lambda u: u.id) for t in u.tasks] == tasks[1:]
+    assert len(units) == 6 and {u.status for u in units} == {"done"}
+    assert [t for u in sorted(units, key=lambda u: u.id) for t in u.tasks] == tasks[3:]
     with session_scope(factory) as session:
-        assert clear_units(session, "request", "job1") == 8
+        assert clear_units(session, "request", "job1") == 6
     assert rows(factory) == []
 
 
@@ -169,14 +169,14 @@ def slow(fn, seconds: float = 0.01):
 
 
 def test_a_unit_left_by_a_dead_worker_is_redone_after_its_lease_expires(factory):
-    tasks = batch(4)
+    tasks = batch(6)  # three measured here, then three units of one chunk
     with session_scope(factory) as session:
         session.add(
             ChunkResult(
                 job_kind="request",
                 job_id="job1",
-                task_key=task_key([tasks[2]]),
-                tasks=[tasks[2]],
+                task_key=task_key([tasks[4]]),
+                tasks=[tasks[4]],
                 status="running",
                 lease_owner="worker:gone:9:dead",
                 lease_expires_at=utcnow() + timedelta(seconds=0.5),
@@ -186,9 +186,9 @@ def test_a_unit_left_by_a_dead_worker_is_redone_after_its_lease_expires(factory)
     ex = sharing(factory, runner=runner)
     got = ex(tasks)
     assert got == [seeded_chunk(t) for t in tasks]
-    assert runner.calls == 4  # including the dead worker's unit, once its lease ran out
+    assert runner.calls == 6  # including the dead worker's unit, once its lease ran out
     owners = {u.task_key: u.lease_owner for u in rows(factory)}
-    assert owners[task_key([tasks[2]])] == "worker:test:1:a"
+    assert owners[task_key([tasks[4]])] == "worker:test:1:a"
 
 
 def test_a_retried_job_reuses_the_units_its_first_attempt_finished(factory):
@@ -197,7 +197,7 @@ def test_a_retried_job_reuses_the_units_its_first_attempt_finished(factory):
     runner = Counting()
     again = sharing(factory, owner="worker:test:2:b", runner=runner)(tasks)
     assert again == first
-    assert runner.calls == 1  # only the chunk the first attempt ran locally (never a unit)
+    assert runner.calls == 3  # only the chunks the first attempt ran locally (never units)
 
 
 def test_a_stop_request_is_honoured_between_chunks(factory):
@@ -206,3 +206,54 @@ def test_a_stop_request_is_honoured_between_chunks(factory):
     with pytest.raises(Cancelled):
         ex(batch(10))
     assert runner.calls == 3
+
+
+def test_units_shrink_towards_the_end_and_keep_the_batch_order(factory):
+    # 0.01 s a task, two processes: each unit about a quarter of what is left, between 0.05 s
+    # (5 tasks) and 0.5 s (50 tasks), so both finish close together.
+    ex = executor(factory, publish_helpers=lambda n: n, helpers=1)
+    ex.rate = 0.01  # seconds per task (these tasks weigh 1)
+    tasks = batch(400)
+    units = ex._units([(t, _text(t)) for t in tasks])
+    sizes = [len(u) for u in units]
+    assert [t for u in units for t, _ in u] == tasks
+    assert sizes == sorted(sizes, reverse=True) and sizes[0] == 50
+    assert all(s >= 5 for s in sizes[:-1]) and sizes[-1] <= 5
+    # Further on, each unit is about a quarter of what is left (rounded down to whole tasks).
+    left = 400
+    for size in sizes[:-1]:
+        assert size == min(50, max(5, int(left / 4))), sizes
+        left -= size
+
+
+def test_units_are_inserted_once_and_a_second_insert_keeps_the_rows(factory):
+    from workers.fanout import add_units
+
+    units = [batch(3), batch(2, seed=8)]
+    with session_scope(factory) as session:
+        keys = add_units(session, "request", "job1", units)
+    with session_scope(factory) as session:
+        assert add_units(session, "request", "job1", units) == keys  # duplicates: no error
+    stored = rows(factory)
+    assert [u.task_key for u in stored] == keys == [task_key(u) for u in units]
+    assert [u.tasks for u in stored] == units and {u.status for u in stored} == {"pending"}
+
+
+def test_the_speed_is_measured_on_a_few_chunks_and_the_fastest_one_counts(factory):
+    # The first chunk of a process can be many times slower than the rest (cold caches, a
+    # preemption); units planned from it were a few milliseconds each.
+    import time as clock
+
+    calls = []
+
+    def first_slow(task: dict) -> dict:
+        calls.append(1)
+        if len(calls) == 1:
+            clock.sleep(0.02)
+        return seeded_chunk(task)
+
+    ex = executor(factory, runner=first_slow, publish_helpers=lambda n: n, helpers=1)
+    ex.split_seconds = 1e9  # never split: only the measurement is looked at
+    ex(batch(4))
+    assert ex.computed == 4 and ex._measured()
+    assert ex.rate < 0.02  # the first chunk took at least 0.02 s: its rate is not the one kept

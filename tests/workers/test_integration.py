@@ -6,14 +6,11 @@ same config the worker reads from its environment) and polls until the worker ha
 
 from __future__ import annotations
 
-import time
-
 import pytest
 from statsmodels.stats.power import TTestIndPower
 from workers_testkit import Stack, canonical
 
 from service.engine import compute
-from service.store.models import ChunkResult
 
 pytestmark = [pytest.mark.services, pytest.mark.slow]
 
@@ -84,48 +81,8 @@ def test_a_running_simulation_is_cancelled_between_chunks(stack, pg_redis_config
     assert body["result"] is None
 
 
-def test_one_worker_and_two_workers_store_byte_identical_records(
-    stack, pg_redis_config, start_worker
-):
-    import redis
-
-    # The rank-sum test draws every observation, so 10,000 replicates at 500 per group take seconds:
-    # long enough to split (lowered thresholds make sure of it on a fast machine too).
-    config = dict(pg_redis_config, FANOUT_SPLIT_SECONDS=0.2)
-    question = _posted("simulation", replicates=10_000, seed=777, analysis="rank_sum")
-    question["sample_size"] = {"per_group": [500, 500]}
-    one = start_worker(dict(config, FANOUT_HELPERS=0), concurrency=1)
-    first = stack.wait(stack.submit(question), worker=one)
-    one.stop()
-    two = start_worker(config, concurrency=2)
-    second = stack.wait(stack.submit(question), worker=two)
-    assert first["status"] == second["status"] == "computed"
-    assert canonical(first["result"]) == canonical(second["result"])
-    assert (
-        first["result"]["reproducibility"]["record_sha256"]
-        == second["result"]["reproducibility"]["record_sha256"]
-    )
-    # The second pool process really helped (it logs the units it computed) ...
-    assert "a helper computed" in two.tail(400), two.tail(30)
-    # ... and nothing is left behind: no unit rows, no message in either queue.
-    assert _unit_rows(pg_redis_config) == 0
-    client = redis.Redis.from_url(pg_redis_config["BROKER_URL"])
-    for _ in range(100):
-        lengths = [client.llen(q) for q in ("sizewise", "sizewise.helpers")]
-        if lengths == [0, 0]:
-            break
-        time.sleep(0.1)
-    assert lengths == [0, 0]
-
-
-def _unit_rows(config: dict) -> int:
-    from sqlalchemy import func, select
-
-    from service.store.db import session_scope
-    from workers.tasks import sessions
-
-    with session_scope(sessions(config)) as session:
-        return session.scalar(select(func.count()).select_from(ChunkResult))
+# One worker process and two store byte-identical records, both pool processes computing units
+# of the split job: tests/workers/test_fanout_stacks.py (on this stack and the embedded one).
 
 
 def test_a_job_of_a_killed_worker_is_republished_and_finished_with_the_same_digits(

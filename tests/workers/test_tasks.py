@@ -9,7 +9,7 @@ from datetime import timedelta
 from pathlib import Path
 
 import pytest
-from sqlalchemy import func, select, update
+from sqlalchemy import event, func, select, update
 from statsmodels.stats.power import TTestIndPower
 from workers_testkit import insert_request, two_groups_question
 
@@ -164,12 +164,42 @@ def test_cancel_between_chunks_stops_the_simulation(sqlite_config, factory):
                 )
         return engine_run_chunk(task)
 
-    assert tasks.run_request_job(request_id, sqlite_config, runner=runner) == "cancelled"
+    # Read the flag before every chunk (by default a running job reads it at most every 0.2 s).
+    config = dict(sqlite_config, CANCEL_CHECK_SECONDS=0.0)
+    assert tasks.run_request_job(request_id, config, runner=runner) == "cancelled"
     assert 2 <= len(calls) < 10  # stopped well before the 10 chunks of the whole run
     row = _request(factory, request_id)
     assert row.status == "cancelled" and row.lease_owner is None
     assert _results(factory, request_id) == []
     assert _actions(factory, request_id)[-1][1] == "cancelled"
+
+
+def test_the_cancel_flag_is_read_a_few_times_per_job_not_once_per_chunk(sqlite_config, factory):
+    # 40 chunks a stream (with the effect, and the null check without it); a read per chunk
+    # cost more than the chunks themselves.
+    question = two_groups_question(method="simulation", replicates=20_000, chunk_size=500)
+    request_id = insert_request(factory, question)
+    reads = []
+    engine = factory.kw["bind"]
+
+    def count(_conn, _cursor, statement, *_args) -> None:
+        if statement.lstrip().startswith("SELECT requests.cancel_requested "):
+            reads.append(statement)  # jobs.cancel_requested's read
+
+    calls = []
+
+    def runner(task: dict) -> dict:
+        calls.append(1)
+        return engine_run_chunk(task)
+
+    event.listen(engine, "before_cursor_execute", count)
+    try:
+        # An interval far longer than the job: only the first check reads the flag.
+        config = dict(sqlite_config, CANCEL_CHECK_SECONDS=600.0)
+        assert tasks.run_request_job(request_id, config, runner=runner) == "computed"
+    finally:
+        event.remove(engine, "before_cursor_execute", count)
+    assert len(calls) >= 40 and len(reads) == 1
 
 
 def test_shuffled_chunk_order_gives_the_record_of_the_in_process_executor(sqlite_config, factory):
@@ -196,13 +226,14 @@ def test_a_shared_job_gives_the_in_process_record_and_leaves_no_unit(sqlite_conf
     runs = []
 
     def runner(task: dict) -> dict:
-        # The first unit the orchestrator takes: a helper (same process, same code) joins in.
+        # Three chunks measure the speed, the fourth is the first unit the orchestrator takes:
+        # a helper (same process, same code) joins in.
         runs.append(1)
-        if len(runs) == 3 and not helped:
+        if len(runs) == 4 and not helped:
             helped.append(tasks.run_helper_job("request", request_id, sqlite_config))
         return engine_run_chunk(task)
 
-    # Split every batch at once, one chunk per unit; helper tasks go to the real (folder) broker.
+    # Split every batch once measured, one chunk per unit; helpers go to the real (folder) broker.
     config = dict(sqlite_config, FANOUT_SPLIT_SECONDS=0.0, FANOUT_UNIT_SECONDS=0.0)
     assert tasks.run_request_job(request_id, config, fan_out=True, runner=runner) == "computed"
     [result] = _results(factory, request_id)

@@ -20,7 +20,11 @@ import gc, json, sys
 from service import create_app
 before = gc.get_freeze_count()
 app = create_app({config})
-print(json.dumps([before, gc.get_freeze_count(), len(gc.get_objects(generation=2))]))
+loaded = "service.engine.designs.continuous_two_groups" in sys.modules
+if loaded:  # a design's field list: tracked by the collector unless it was frozen
+    fields = sys.modules["service.engine.designs.continuous_two_groups"].DESIGN.fields
+    loaded = [loaded, any(o is fields for o in gc.get_objects())]
+print(json.dumps([before, gc.get_freeze_count(), len(gc.get_objects(generation=2)), loaded]))
 """
 
 
@@ -44,15 +48,18 @@ def _probe(tmp_path: Path, config: str) -> list[int]:
 
 
 def test_the_served_app_freezes_its_start_up_heap(tmp_path: Path):
-    before, frozen, old = _probe(tmp_path, "")
+    before, frozen, old, designs = _probe(tmp_path, "")
     assert before == 0
     # Everything loaded by then is frozen: tens of thousands of objects, none left in the
     # oldest generation for a full collection to walk.
     assert frozen > 50_000
     assert old == 0
+    # The design modules (loaded on first use otherwise: the first question paid for it) are
+    # loaded at start-up and frozen with the rest.
+    assert designs == [True, False]
 
 
 def test_an_app_built_with_a_config_leaves_the_collector_alone(tmp_path: Path):
     config = "{'DATABASE_URL': 'sqlite:///%s', 'TESTING': True}" % (tmp_path / "t.db")
-    _before, frozen, _old = _probe(tmp_path, config)
+    _before, frozen, _old, _designs = _probe(tmp_path, config)
     assert frozen == 0

@@ -30,19 +30,18 @@ API_COMMAND: tuple[str, ...] = (
     "python",
     "-m",
     "gunicorn",
-    # Two processes for two cores, two threads each: a request spends part of its time waiting
+    # Two processes for two cores, four threads each: a request spends part of its time waiting
     # on SQLite or PostgreSQL, and gthread keeps a client's connection open between calls (sync
     # workers close every one). Measured with wrk on 2 cores: gthread about 1.7x the requests/s.
-    # Not four threads: the handlers are CPU-bound under one GIL per process, and every wait
-    # (a database call, a log write, the socket) hands the GIL to a sibling for up to its 5 ms
-    # switch interval; with four threads the time inside Flask of POST /v1/calculations had a
-    # p90 of 10-13 ms against 3-5 ms with two, for the same requests/s.
+    # Two threads per process cut the time a calculation spends inside Flask (p90 4-6 ms against
+    # 8-18 ms: fewer siblings to hand the GIL to), but the wait moved to gthread's queue: the
+    # client saw the same requests/s and p99 within the noise of a shared machine, so four stay.
     "--workers",
     "2",
     "--worker-class",
     "gthread",
     "--threads",
-    "2",
+    "4",
     "--timeout",
     "60",
     "--graceful-timeout",

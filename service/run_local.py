@@ -33,6 +33,9 @@ API_COMMAND: tuple[str, ...] = (
     # Two processes for two cores, four threads each: a request spends part of its time waiting
     # on SQLite or PostgreSQL, and gthread keeps a client's connection open between calls (sync
     # workers close every one). Measured with wrk on 2 cores: gthread about 1.7x the requests/s.
+    # Two threads per process cut the time a calculation spends inside Flask (p90 4-6 ms against
+    # 8-18 ms: fewer siblings to hand the GIL to), but the wait moved to gthread's queue: the
+    # client saw the same requests/s and p99 within the noise of a shared machine, so four stay.
     "--workers",
     "2",
     "--worker-class",

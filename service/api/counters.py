@@ -3,26 +3,45 @@
 The embedded default runs several gunicorn workers and no Redis; counters in each process's
 memory would let a caller make the configured rate once per process. This ``limits`` storage
 keeps the fixed-window counters in one SQLite file instead (``sizewise+sqlite:///path``); each
-increment is one ``BEGIN IMMEDIATE`` transaction, so concurrent processes count exactly.
+increment is one write transaction, so concurrent processes count exactly.
 
 Each thread of each process keeps one open connection (opening one costs more than the count),
 and the file is in WAL mode with ``synchronous=NORMAL``: a commit appends to the log without an
 fsync, readers never wait for the writer, and exactness comes from the write lock, not from the
 disk. A power cut may lose the last counts of a window (they are throttling state, not records).
+
+An increment is one ``INSERT … ON CONFLICT DO UPDATE … RETURNING`` statement (its own
+transaction), and writers queue on an ``flock`` of a sidecar file (``<file>.lock``, one open
+descriptor per thread) before it, so the SQLite write lock is never found taken. SQLite's own
+busy handler polls a taken lock with sleeps of 1, 2, 5, 10, 15, 20 … 100 ms, so under a steady
+load of increments from several processes a waiter slept past the moment the lock came free:
+measured with wrk against the two-process API, about one increment in four waited over 3 ms
+and some over 100 ms, the largest share of the served path's p99. A blocked ``flock`` is woken
+by the kernel as soon as the holder lets go (or dies: the kernel drops a dead process's lock).
 """
 
 from __future__ import annotations
 
+import fcntl
 import os
 import sqlite3
 import threading
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 from limits.storage import Storage
 
 SCHEME = "sizewise+sqlite"
 _TABLE = "CREATE TABLE IF NOT EXISTS counters (key TEXT PRIMARY KEY, n INTEGER, expires REAL)"
+# Add to the key's count, or start a new window (count = amount) when it has none or it expired.
+_UPSERT = (
+    "INSERT INTO counters (key, n, expires) VALUES (?1, ?2, ?3) ON CONFLICT (key) DO UPDATE SET"
+    " n = CASE WHEN expires <= ?4 THEN excluded.n ELSE n + excluded.n END,"
+    " expires = CASE WHEN expires <= ?5 THEN excluded.expires ELSE expires END"
+    " RETURNING n"
+)
 
 
 class SqliteFileStorage(Storage):
@@ -33,9 +52,11 @@ class SqliteFileStorage(Storage):
     def __init__(self, uri: str | None = None, wrap_exceptions: bool = False, **options):
         super().__init__(uri, wrap_exceptions=wrap_exceptions, **options)
         self.path = Path((uri or "").split("://", 1)[1])
+        self.lock_path = self.path.with_name(self.path.name + ".lock")
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        if not self.path.exists():
-            os.close(os.open(self.path, os.O_WRONLY | os.O_CREAT, 0o600))
+        for path in (self.path, self.lock_path):
+            if not path.exists():
+                os.close(os.open(path, os.O_WRONLY | os.O_CREAT, 0o600))
         self._local = threading.local()
         conn = self._connect()
         conn.execute("PRAGMA journal_mode=WAL")
@@ -51,46 +72,65 @@ class SqliteFileStorage(Storage):
         conn = getattr(local, "conn", None)
         if conn is not None and local.pid == os.getpid():
             return conn
+        inherited = getattr(local, "lock_file", None)
+        if inherited is not None:  # the parent's descriptor: this process takes its own
+            inherited.close()
+            local.lock_file = None
         conn = sqlite3.connect(self.path, timeout=10, isolation_level=None, check_same_thread=True)
         conn.execute("PRAGMA busy_timeout=10000")
         conn.execute("PRAGMA synchronous=NORMAL")
+        # A descriptor of its own per thread: flock treats two descriptors as two holders even
+        # within one process (one shared descriptor would let this process's threads all in).
+        # A file object, so a thread that ends closes it with its other thread-local state.
+        local.lock_file = open(self.lock_path, "rb", buffering=0)  # noqa: SIM115
         local.conn, local.pid = conn, os.getpid()
         return conn
 
+    @contextmanager
+    def _writing(self) -> Iterator[sqlite3.Connection]:
+        """This thread's connection, held as the only writer of the file on the host."""
+        conn = self._connect()
+        fd = self._local.lock_file.fileno()
+        fcntl.flock(fd, fcntl.LOCK_EX)  # waits in the kernel, woken when the holder lets go
+        try:
+            yield conn
+        finally:
+            fcntl.flock(fd, fcntl.LOCK_UN)
+
     def _drop(self) -> None:
         """Forget this thread's connection after an error, so the next call opens a fresh one."""
-        conn = getattr(self._local, "conn", None)
-        self._local.conn = None
+        local = self._local
+        conn, lock_file = getattr(local, "conn", None), getattr(local, "lock_file", None)
+        local.conn = local.lock_file = None
         if conn is not None:
             try:
                 conn.close()
             except sqlite3.Error:
                 pass
+        if lock_file is not None:
+            lock_file.close()
 
     def incr(self, key: str, expiry: float, amount: int = 1) -> int:
         """Add ``amount`` to the key's count (a new window when it expired) and return the count."""
-        now = time.time()
-        conn = self._connect()
         try:
-            conn.execute("BEGIN IMMEDIATE")
-            row = conn.execute("SELECT n, expires FROM counters WHERE key = ?", (key,)).fetchone()
-            if row is None or row[1] <= now:
-                count = amount
-                conn.execute(
-                    "INSERT OR REPLACE INTO counters (key, n, expires) VALUES (?, ?, ?)",
-                    (key, count, now + expiry),
-                )
-            else:
-                count = row[0] + amount
-                conn.execute("UPDATE counters SET n = ? WHERE key = ?", (count, key))
-            if count == amount:
-                # Expired windows of other keys are dropped now and then, so the file stays small.
-                conn.execute("DELETE FROM counters WHERE expires <= ?", (now,))
-            conn.execute("COMMIT")
-            return count
+            with self._writing() as conn:
+                return self._incr(conn, key, expiry, amount)
         except BaseException:
             self._drop()  # closing rolls back whatever the transaction had begun
             raise
+
+    @staticmethod
+    def _incr(conn: sqlite3.Connection, key: str, expiry: float, amount: int) -> int:
+        now = time.time()
+        # One statement, its own transaction: the write lock (and the flock around it) is held
+        # for one step, not across BEGIN, SELECT, UPDATE and COMMIT. Each of those released the
+        # GIL and had to win it back from the process's busy threads (up to 5 ms each) while
+        # every other writer on the host waited.
+        count = conn.execute(_UPSERT, (key, amount, now + expiry, now, now)).fetchall()[0][0]
+        if count == amount:
+            # Expired windows of other keys are dropped now and then, so the file stays small.
+            conn.execute("DELETE FROM counters WHERE expires <= ?", (now,))
+        return int(count)
 
     def get(self, key: str) -> int:
         """The key's count in its current window (0 when none)."""
@@ -120,7 +160,8 @@ class SqliteFileStorage(Storage):
     def reset(self) -> int | None:
         """Drop every counter; return how many there were."""
         try:
-            return self._connect().execute("DELETE FROM counters").rowcount
+            with self._writing() as conn:
+                return conn.execute("DELETE FROM counters").rowcount
         except BaseException:
             self._drop()
             raise
@@ -128,7 +169,8 @@ class SqliteFileStorage(Storage):
     def clear(self, key: str) -> None:
         """Drop one key's counter."""
         try:
-            self._connect().execute("DELETE FROM counters WHERE key = ?", (key,))
+            with self._writing() as conn:
+                conn.execute("DELETE FROM counters WHERE key = ?", (key,))
         except BaseException:
             self._drop()
             raise

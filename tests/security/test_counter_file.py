@@ -80,3 +80,60 @@ def test_an_expired_window_starts_again_and_clear_forgets(tmp_path: Path):
     storage.clear("j")
     assert storage.get("j") == 0
     assert storage.check()
+
+
+def test_writers_queue_on_the_lock_file_not_on_sqlites_busy_handler(tmp_path: Path):
+    """An increment waits for whoever holds the sidecar lock (another process's writer), then
+    counts; it never opens a write transaction while the lock is taken elsewhere."""
+    import fcntl
+
+    storage = SqliteFileStorage(f"sizewise+sqlite://{tmp_path / 'ratelimit.sqlite'}")
+    lock_file = tmp_path / "ratelimit.sqlite.lock"
+    assert lock_file.stat().st_mode & 0o777 == 0o600
+    done: list[int] = []
+    holder = os.open(lock_file, os.O_RDWR)
+    fcntl.flock(holder, fcntl.LOCK_EX)  # as another process's writer would hold it
+    try:
+        waiter = threading.Thread(target=lambda: done.append(storage.incr("k", 60)))
+        waiter.start()
+        waiter.join(0.5)
+        assert waiter.is_alive() and done == []  # still queued behind the holder
+        # While it waits, the database's write lock is free: the holder can write directly.
+        direct = sqlite3.connect(tmp_path / "ratelimit.sqlite", timeout=0, isolation_level=None)
+        direct.execute("BEGIN IMMEDIATE")
+        direct.execute("INSERT INTO counters (key, n, expires) VALUES ('other', 1, 9e99)")
+        direct.execute("COMMIT")
+        direct.close()
+    finally:
+        fcntl.flock(holder, fcntl.LOCK_UN)
+        os.close(holder)
+    waiter.join(60)
+    assert done == [1]
+    assert (storage.get("k"), storage.get("other")) == (1, 1)
+
+
+def test_a_thread_holds_its_own_lock_descriptor(tmp_path: Path):
+    """flock counts open descriptors, not processes: threads of one process must not share one,
+    or a second thread would walk into a write another thread of the process is making. A
+    thread's descriptor closes when the thread ends."""
+    import gc
+    import weakref
+
+    storage = SqliteFileStorage(f"sizewise+sqlite://{tmp_path / 'ratelimit.sqlite'}")
+    files = []
+
+    def record() -> None:
+        storage.incr("k", 60)
+        files.append(weakref.ref(storage._local.lock_file))
+
+    threads = [threading.Thread(target=record) for _ in range(3)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(60)
+    record()
+    assert storage.get("k") == 4
+    gc.collect()
+    # The three ended threads' descriptors are gone; this thread's is open and its own.
+    assert [f() is None for f in files] == [True, True, True, False]
+    assert not files[3]().closed

@@ -551,7 +551,7 @@ def init_auth(app: Flask) -> Limiter:
     limiter = Limiter(
         rate_limit_key,
         application_limits=[str(config["RATE_LIMIT"])],
-        storage_uri=storage_url(config),
+        storage_uri=counters.window_storage_url(storage_url(config)),
         strategy="fixed-window",
         headers_enabled=True,
         retry_after="delta-seconds",

@@ -18,6 +18,17 @@ load of increments from several processes a waiter slept past the moment the loc
 measured with wrk against the two-process API, about one increment in four waited over 3 ms
 and some over 100 ms, the largest share of the served path's p99. A blocked ``flock`` is woken
 by the kernel as soon as the holder lets go (or dies: the kernel drops a dead process's lock).
+
+The X-RateLimit headers are answered from the increment itself. Flask-Limiter asks its strategy
+for the window's stats after the hit (``get`` of the count, then ``get_expiry``): two more
+trips to the store per request, and a count that may already include other callers' calls.
+Both storages here return the count and the window's end with the increment and keep them for
+this thread (``WindowMemo``); the ``get`` and ``get_expiry`` that follow an increment of the same
+key in the same thread are answered from it, each once, so the headers say what this request's
+own increment left. Any other read goes to the store. ``RedisWindowStorage`` does this for
+Redis (``sizewise+redis://``; ``window_storage_url`` maps ``redis://`` to it): one Lua script runs
+INCRBY, EXPIRE on a new window and TTL, one round trip instead of three, and the count is still
+the one Redis key every process shares.
 """
 
 from __future__ import annotations
@@ -31,17 +42,101 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
-from limits.storage import Storage
+from limits.storage import RedisStorage, Storage
 
 SCHEME = "sizewise+sqlite"
+REDIS_SCHEMES = {"redis": "sizewise+redis", "rediss": "sizewise+rediss"}
 _TABLE = "CREATE TABLE IF NOT EXISTS counters (key TEXT PRIMARY KEY, n INTEGER, expires REAL)"
 # Add to the key's count, or start a new window (count = amount) when it has none or it expired.
 _UPSERT = (
     "INSERT INTO counters (key, n, expires) VALUES (?1, ?2, ?3) ON CONFLICT (key) DO UPDATE SET"
     " n = CASE WHEN expires <= ?4 THEN excluded.n ELSE n + excluded.n END,"
     " expires = CASE WHEN expires <= ?5 THEN excluded.expires ELSE expires END"
-    " RETURNING n"
+    " RETURNING n, expires"
 )
+
+
+class WindowMemo:
+    """This thread's last increment (key, count, window end), read back once by the stats."""
+
+    def __init__(self) -> None:
+        self._local = threading.local()
+
+    def remember(self, key: str, count: int, expires: float) -> None:
+        self._local.entry = [key, count, expires]
+
+    def count(self, key: str) -> int | None:
+        """The count of this thread's last increment of ``key`` (once), else None."""
+        entry = getattr(self._local, "entry", None)
+        if entry is None or entry[0] != key or entry[1] is None:
+            return None
+        count, entry[1] = entry[1], None
+        return count
+
+    def forget(self) -> None:
+        """Drop the entry (the store was cleared or reset: the count it holds is gone)."""
+        self._local.entry = None
+
+    def expiry(self, key: str) -> float | None:
+        """The window end of this thread's last increment of ``key`` (once), else None."""
+        entry = getattr(self._local, "entry", None)
+        if entry is None or entry[0] != key:
+            return None
+        self._local.entry = None
+        return entry[2]
+
+
+def window_storage_url(url: str) -> str:
+    """The storage URL the limiter is given: Redis URLs go to ``RedisWindowStorage``."""
+    scheme, sep, rest = url.partition("://")
+    return f"{REDIS_SCHEMES[scheme]}{sep}{rest}" if sep and scheme in REDIS_SCHEMES else url
+
+
+# INCRBY, EXPIRE when the window is new (as the limits library's own script), and the TTL, in
+# one round trip; Redis runs a script atomically, so the TTL is that of the window just counted.
+_REDIS_INCR = """
+local amount = tonumber(ARGV[2])
+local current = redis.call("incrby", KEYS[1], amount)
+if tonumber(current) == amount then
+    redis.call("expire", KEYS[1], ARGV[1])
+end
+return {current, redis.call("ttl", KEYS[1])}
+"""
+
+
+class RedisWindowStorage(RedisStorage):
+    """Redis counters whose increment also returns the window's TTL (see the module's text)."""
+
+    STORAGE_SCHEME = list(REDIS_SCHEMES.values())
+
+    def __init__(self, uri: str, **options):
+        scheme, _, rest = uri.partition("://")
+        plain = {v: k for k, v in REDIS_SCHEMES.items()}.get(scheme, scheme)
+        super().__init__(f"{plain}://{rest}", **options)
+        self.memo = WindowMemo()
+        self.lua_incr_ttl = self.get_connection().register_script(_REDIS_INCR)
+
+    def incr(self, key: str, expiry: int, amount: int = 1) -> int:
+        count, ttl = self.lua_incr_ttl([self.prefixed_key(key)], [expiry, amount])
+        # As RedisStorage.get_expiry computes it from TTL: whole seconds left, from now.
+        self.memo.remember(key, int(count), max(int(ttl), 0) + time.time())
+        return int(count)
+
+    def get(self, key: str) -> int:
+        count = self.memo.count(key)
+        return count if count is not None else super().get(key)
+
+    def get_expiry(self, key: str) -> float:
+        expires = self.memo.expiry(key)
+        return expires if expires is not None else super().get_expiry(key)
+
+    def clear(self, key: str) -> None:
+        self.memo.forget()
+        super().clear(key)
+
+    def reset(self) -> int | None:
+        self.memo.forget()
+        return super().reset()
 
 
 class SqliteFileStorage(Storage):
@@ -58,6 +153,7 @@ class SqliteFileStorage(Storage):
             if not path.exists():
                 os.close(os.open(path, os.O_WRONLY | os.O_CREAT, 0o600))
         self._local = threading.local()
+        self.memo = WindowMemo()
         conn = self._connect()
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute(_TABLE)
@@ -114,31 +210,39 @@ class SqliteFileStorage(Storage):
         """Add ``amount`` to the key's count (a new window when it expired) and return the count."""
         try:
             with self._writing() as conn:
-                return self._incr(conn, key, expiry, amount)
+                count, expires = self._incr(conn, key, expiry, amount)
         except BaseException:
             self._drop()  # closing rolls back whatever the transaction had begun
             raise
+        self.memo.remember(key, count, expires)
+        return count
 
     @staticmethod
-    def _incr(conn: sqlite3.Connection, key: str, expiry: float, amount: int) -> int:
+    def _incr(conn: sqlite3.Connection, key: str, expiry: float, amount: int) -> tuple[int, float]:
         now = time.time()
         # One statement, its own transaction: the write lock (and the flock around it) is held
         # for one step, not across BEGIN, SELECT, UPDATE and COMMIT. Each of those released the
         # GIL and had to win it back from the process's busy threads (up to 5 ms each) while
         # every other writer on the host waited.
-        count = conn.execute(_UPSERT, (key, amount, now + expiry, now, now)).fetchall()[0][0]
+        count, expires = conn.execute(_UPSERT, (key, amount, now + expiry, now, now)).fetchall()[0]
         if count == amount:
             # Expired windows of other keys are dropped now and then, so the file stays small.
             conn.execute("DELETE FROM counters WHERE expires <= ?", (now,))
-        return int(count)
+        return int(count), float(expires)
 
     def get(self, key: str) -> int:
         """The key's count in its current window (0 when none)."""
+        count = self.memo.count(key)
+        if count is not None:
+            return count
         row = self._read("SELECT n FROM counters WHERE key = ? AND expires > ?", (key, time.time()))
         return int(row[0]) if row else 0
 
     def get_expiry(self, key: str) -> float:
         """When the key's window ends (epoch seconds; now when it has none)."""
+        expires = self.memo.expiry(key)
+        if expires is not None:
+            return expires
         row = self._read("SELECT expires FROM counters WHERE key = ?", (key,))
         return float(row[0]) if row else time.time()
 
@@ -159,6 +263,7 @@ class SqliteFileStorage(Storage):
 
     def reset(self) -> int | None:
         """Drop every counter; return how many there were."""
+        self.memo.forget()
         try:
             with self._writing() as conn:
                 return conn.execute("DELETE FROM counters").rowcount
@@ -168,6 +273,7 @@ class SqliteFileStorage(Storage):
 
     def clear(self, key: str) -> None:
         """Drop one key's counter."""
+        self.memo.forget()
         try:
             with self._writing() as conn:
                 conn.execute("DELETE FROM counters WHERE key = ?", (key,))

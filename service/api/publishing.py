@@ -1,8 +1,9 @@
 """Hand a committed job to the queue, or answer a closed-form question here and now.
 
 A publish failure only delays a job (the sweeper publishes later). A closed-form question costs
-milliseconds, so the API answers it itself with the worker's own code path (same claim, audit
-events and sealed record); only simulations and explorations go through the broker.
+milliseconds, so the API answers it itself with the worker's own steps (same claim, audit events
+and sealed record), in the transaction that stores the request; only simulations and
+explorations go through the broker.
 """
 
 from __future__ import annotations
@@ -36,25 +37,19 @@ def api_owner() -> str:
     return f"api:{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
 
 
-def answer_now(request_id: str, answer: dict | None = None) -> str | None:
-    """Compute a closed-form request in this process; return the outcome, None if not done here.
-
-    ``answer`` is the record already computed from the request's question at submission (it is
-    stored as is when the stored question is the one it answers).
-
-    None means the request could not be run here (worker package missing, database hiccup): the
-    caller then publishes it as usual. A claimed request whose run broke off is left on its lease
-    and the sweeper hands it to a worker when the lease expires.
-    """
+def answer_in(session, request_id: str, answer: dict) -> list[str] | None:
+    """Store ``answer`` as the request's record in the caller's transaction (see
+    ``workers.tasks.answer_in_transaction``); the explorations to publish after the commit, or
+    None when it was not stored here (the request then goes to the queue)."""
     try:
-        from workers.tasks import run_request_job
+        from workers.tasks import answer_in_transaction
     except ImportError as exc:
         log.warning("worker code unavailable (%s); request %s goes to the queue", exc, request_id)
         return None
-    try:
-        return run_request_job(
-            request_id, settings(), owner=api_owner(), factory=sessions(), answer=answer
-        )
-    except Exception:  # never fail a request that is already stored
-        log.exception("request %s: computing at submission failed; left to the workers", request_id)
-        return None
+    return answer_in_transaction(session, request_id, settings(), owner=api_owner(), answer=answer)
+
+
+def publish_explorations(ids: list[str]) -> None:
+    """Publish the explorations that waited for a result just committed (else the sweeper does)."""
+    for exploration_id in ids:
+        publish_job("exploration", exploration_id)

@@ -41,7 +41,7 @@ from .feasibility import check_computable
 from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
 from .pagination import PageArgsSchema, page_args, page_body
-from .publishing import answer_now, publish_job
+from .publishing import answer_in, publish_explorations, publish_job
 from .views import load_request, located, visible_request_page
 
 bp = Blueprint("requests", __name__, url_prefix="/v1")
@@ -162,6 +162,13 @@ def submit(raw: object, key: str | None = None) -> tuple[dict, int]:
     answer = check_computable(data["question"], data["question_raw"])
     estimate = check_submission_cost(data["question"])
     question = _with_seed(data["question"])
+    # A closed-form answer costs milliseconds: it is stored with the request, in its transaction.
+    here = (
+        answer is not None
+        and question.get("method") != "simulation"
+        and settings().get("ANSWER_AT_SUBMISSION", True)
+    )
+    answered: list[str] | None = None
     try:
         with session_scope(sessions()) as session:
             row = store.create_request(
@@ -182,6 +189,8 @@ def submit(raw: object, key: str | None = None) -> tuple[dict, int]:
             # Budget check and reservation in the transaction that stores the work: all or nothing.
             charge(session, [("request", row.id, estimate), *explorations])
             request_id = row.id
+            if here:
+                answered = answer_in(session, request_id, answer)
     except IntegrityError:
         if key is None:
             raise
@@ -191,9 +200,9 @@ def submit(raw: object, key: str | None = None) -> tuple[dict, int]:
         if earlier is None:
             raise
         return earlier, 200
-    # A closed-form answer costs milliseconds: compute it here rather than queue it.
-    here = question.get("method") != "simulation" and settings().get("ANSWER_AT_SUBMISSION", True)
-    if not here or answer_now(request_id, answer) in (None, "skipped"):
+    if answered is not None:
+        publish_explorations(answered)
+    else:
         publish_job("request", request_id)
     with session_scope(sessions()) as session:
         return render.request_detail(session, store.get_request(session, request_id)), 202

@@ -36,13 +36,31 @@ def event_hash(event: AuditEvent) -> str:
     )
 
 
+_LOCK_HELD = "audit_chain_lock"
+
+
+def _lock_chain(session: Session) -> None:
+    """Serialise appenders so two transactions never link to the same predecessor (PostgreSQL).
+
+    The lock lasts until the transaction ends, so a transaction that appends several events
+    (a request answered at submission appends three) asks once. A lock taken inside a savepoint
+    is released if the savepoint rolls back, so only one taken outside any savepoint is
+    remembered, for the transaction it was taken in.
+    """
+    root = session.get_transaction()
+    if root is not None and session.info.get(_LOCK_HELD) is root:
+        return
+    session.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _PG_LOCK_KEY})
+    if session.get_nested_transaction() is None:
+        session.info[_LOCK_HELD] = session.get_transaction()
+
+
 def append_event(
     session: Session, *, request_id: str | None, actor: str, action: str, detail: dict | None
 ) -> AuditEvent:
     """Append one event to the chain in the caller's transaction and return it."""
     if session.get_bind().dialect.name == "postgresql":
-        # Serialise appenders so two transactions never link to the same predecessor.
-        session.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _PG_LOCK_KEY})
+        _lock_chain(session)
     event = AuditEvent(
         request_id=request_id,
         actor=actor,

@@ -145,3 +145,59 @@ def test_an_answer_given_to_the_job_is_stored_only_for_the_question_it_answers(a
     assert run_request_job(again["id"], config, answer=answer) == "computed"
     stored = api.client.get(f"/v1/requests/{again['id']}").get_json()["result"]
     assert canonical_json(stored) == canonical_json(answer)
+
+
+def test_an_analytic_submission_is_stored_and_answered_in_one_commit(live_api, live_app):
+    # The request, its claim, its three chained events and its record are one transaction: one
+    # writing commit (one WAL flush on PostgreSQL), so no reader ever sees the request computed
+    # without its record and no event can be durable without the others. Counted on the real
+    # database's connection events; the answer's GET-like rendering is a read-only transaction.
+    from sqlalchemy import event
+
+    engine = live_app.extensions["sizewise"]["engine"]
+    live_api.submit(live_api.request_body(question_body()))  # tokens issued, caches warm
+    transactions: list[list[str]] = [[]]
+    locks: list[str] = []
+
+    def statement(conn, cursor, sql, params, context, executemany):
+        transactions[-1].append(sql.split(None, 1)[0].upper())
+        if "pg_advisory_xact_lock" in sql:
+            locks.append(sql)
+
+    def commit(conn):
+        transactions.append([])
+
+    event.listen(engine, "before_cursor_execute", statement)
+    event.listen(engine, "commit", commit)
+    try:
+        body = live_api.submit(live_api.request_body(question_body())).get_json()
+    finally:
+        event.remove(engine, "before_cursor_execute", statement)
+        event.remove(engine, "commit", commit)
+    assert body["status"] == "computed"
+    writing = [t for t in transactions if {"INSERT", "UPDATE", "DELETE"} & set(t)]
+    assert len(writing) == 1, transactions
+    # submitted, running, computed: three audit rows (plus the request and its result).
+    assert writing[0].count("INSERT") == 5
+    # On PostgreSQL the chain's lock is asked for once per transaction, not once per event.
+    assert len(locks) == (1 if engine.dialect.name == "postgresql" else 0)
+    assert [e["action"] for e in body["history"]] == ["submitted", "running", "computed"]
+
+
+def test_a_failure_while_answering_leaves_the_request_stored_and_queued(
+    live_api, settings, monkeypatch
+):
+    # Fault injection: storing the record breaks. The savepoint it ran in is rolled back (no
+    # 'running' event, no claim left behind) and the received request goes to the queue.
+    from service.store import jobs
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("injected failure while storing the record")
+
+    monkeypatch.setattr(jobs, "finish_request", broken)
+    r = live_api.submit(live_api.request_body(question_body()))
+    assert r.status_code == 202, r.get_json()
+    body = r.get_json()
+    assert body["status"] == "queued" and body["result"] is None
+    assert [e["action"] for e in body["history"]] == ["submitted", "published"]
+    assert _task_names(settings) == ["sizewise.run_request"]

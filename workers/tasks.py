@@ -53,6 +53,18 @@ def _event(session, request_id: str | None, action: str, detail: dict, *, owner:
     audit.append_event(session, request_id=request_id, actor=who, action=action, detail=detail)
 
 
+def _running(session, row: Request, owner: str) -> None:
+    """A claimed request starts: its queue wait measured and its 'running' event appended."""
+    waited("request", row.submitted_at)
+    _event(
+        session,
+        row.id,
+        "running",
+        {"owner": owner, "attempt": row.attempts, "status": "running"},
+        owner=owner,
+    )
+
+
 def run_request_job(
     request_id: str,
     config: dict,
@@ -81,14 +93,7 @@ def run_request_job(
         question = row.question
         attempts = row.attempts
         simulated = row.method != "analytic"
-        waited("request", row.submitted_at)
-        _event(
-            session,
-            request_id,
-            "running",
-            {"owner": owner, "attempt": attempts, "status": "running"},
-            owner=owner,
-        )
+        _running(session, row, owner)
     log.info("request %s: claimed by %s (attempt %s)", request_id, owner, attempts)
 
     started = utcnow()
@@ -152,14 +157,7 @@ def answer_in_transaction(
                 return None
             if not claim(session, "request", request_id, owner, config):
                 return None
-            waited("request", row.submitted_at)
-            _event(
-                session,
-                request_id,
-                "running",
-                {"owner": owner, "attempt": row.attempts, "status": "running"},
-                owner=owner,
-            )
+            _running(session, row, owner)
             stored = jobs.finish_request(
                 session, request_id, owner, answer, started_at=utcnow(), chunk_size=None
             )

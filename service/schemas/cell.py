@@ -54,8 +54,12 @@ class Cell:
                 continue
             names = [f.name for f in declared.block_fields(self.design, block)]
             if not isinstance(value, Mapping):
-                keys = ", ".join(names) if names else "none for this cell"
-                self.add(block, f"must be an object with keys {keys}; {got(value)}")
+                shape = (
+                    f"must be an object with keys {', '.join(names)}"
+                    if names
+                    else f"takes no keys for {self.design.cell}: remove it"
+                )
+                self.add(block, f"{shape}; {got(value)}")
                 self.loaded[block] = {}
                 continue
             try:

@@ -136,7 +136,9 @@ def margin_aims(ctx: Context) -> None:
     margin = (ctx.data.get("hypothesis") or {}).get("margin")
     solved = {f.name: f for f in ctx.design.fields}.get(ctx.design.solved)
     # a ratio scale (binary × two_groups, analysis_options.scale) takes a log-ratio margin
-    scale = (ctx.data.get("analysis_options") or {}).get("scale", "difference")
+    # analysis_options is checked against the cell's fields elsewhere; here it may be anything
+    options = ctx.data.get("analysis_options")
+    scale = options.get("scale", "difference") if isinstance(options, Mapping) else None
     on_difference = scale in (None, "difference")
     if (
         margin is not None

@@ -347,34 +347,51 @@ def lognormal_welch(replicates: int, seed: int) -> dict:
     }
 
 
+# Each job runs FAN_OUT_TRIALS times on each worker count and the fastest run of each is compared:
+# the other tenants of a shared machine only ever add time, so the minimum is the run they
+# disturbed least (every run is printed too).
+FAN_OUT_TRIALS = 3
+
+
 def fan_out(stack: Stack) -> None:
     """Each job on one worker process and on two: wall time, speed-up, identical record, queues."""
     from service.engine import compute
 
-    times: dict[tuple[str, int], float] = {}
-    records: dict[tuple[str, int], str] = {}
+    times: dict[tuple[str, int], list[float]] = {}
+    records: dict[tuple[str, int], set[str]] = {}
     stored: dict[str, dict] = {}
     for processes in (1, 2):
         stack.start_worker(processes)
         stack.wait(*stack.submit(simulation(2000, 1)))  # every pool process is started
         for name, question in FAN_OUT_JOBS:
             load = os.getloadavg()[0]
-            times[name, processes], reply = stack.wait(*stack.submit(question()), stamped=True)
-            records[name, processes] = reply["result"]["reproducibility"]["record_sha256"]
-            stored[name] = reply["question"]
+            for _ in range(FAN_OUT_TRIALS):
+                seconds, reply = stack.wait(*stack.submit(question()), stamped=True)
+                times.setdefault((name, processes), []).append(seconds)
+                sha = reply["result"]["reproducibility"]["record_sha256"]
+                records.setdefault((name, processes), set()).add(sha)
+                stored[name] = reply["question"]
             time.sleep(1.0)  # helper messages delivered after the job find nothing and leave
             empty = queues_empty(stack)
-            line(f"1,000,000 replicates ({name}), {processes} process(es), load {load:.1f}", f"{times[name, processes]:.2f} s", "")  # fmt: skip
+            runs = times[name, processes]
+            every = ", ".join(f"{t:.2f}" for t in runs)
+            line(f"1,000,000 replicates ({name}), {processes} process(es), load {load:.1f}", f"{min(runs):.2f} s", "")  # fmt: skip
+            line(f"  every run ({len(runs)}), seconds", every, "")
             line("  queues empty afterwards", empty, "yes", empty == "yes")
     for name, _ in FAN_OUT_JOBS:
         started = time.perf_counter()
         compute(stored[name])  # the engine alone, in this process: no queue, no database
         alone = time.perf_counter() - started
-        speedup = times[name, 1] / times[name, 2]
+        one, two = times[name, 1], times[name, 2]
+        speedup = min(one) / min(two)
+        median = statistics.median(one) / statistics.median(two)
         line(f"{name}: engine alone in one process (no queue, no store)", f"{alone:.2f} s", "")  # fmt: skip
-        line(f"  {name}: speed-up two processes vs one", f"{speedup:.2f}x", ">= 1.8x", speedup >= 1.8)  # fmt: skip
-        same = records[name, 1] == records[name, 2]
-        line(f"  {name}: record identical (sha256)", "yes" if same else "NO", "yes", same)
+        line(f"  {name}: speed-up two processes vs one (fastest runs)", f"{speedup:.2f}x", ">= 1.8x", speedup >= 1.8)  # fmt: skip
+        line(f"  {name}: speed-up of the median runs", f"{median:.2f}x", "")
+        same = len(records[name, 1] | records[name, 2]) == 1
+        line(
+            f"  {name}: record identical (sha256, every run)", "yes" if same else "NO", "yes", same
+        )
 
 
 def prepare(name: str, database_url: str, broker_url: str, folder: Path) -> Stack:

@@ -838,3 +838,23 @@ def test_margin_rule_with_a_missing_proportion_names_the_proportion(missing):
     with pytest.raises(QuestionInvalid) as info:
         load_question(raw)
     assert missing in info.value.errors
+
+
+@pytest.mark.parametrize("options", [5, "ratio", [1, 2], True])
+def test_a_block_that_is_not_an_object_is_a_field_error_under_any_aim(options):
+    # The noninferiority margin rule reads analysis_options.scale; a non-object there once
+    # raised AttributeError (found by the property test) instead of naming the field.
+    raw = merge(PROP, alpha=0.025)
+    raw["hypothesis"] = {"aim": "noninferiority", "margin": -0.1}
+    raw["alternative"] = "one-sided"
+    raw["analysis_options"] = options
+    with pytest.raises(QuestionInvalid) as info:
+        load_question(raw)
+    assert info.value.messages["analysis_options"][0].startswith("must be an object with keys")
+
+
+def test_a_cell_without_options_says_to_remove_the_block():
+    with pytest.raises(QuestionInvalid) as info:
+        load_question(merge(BASE, analysis_options=5))
+    (message,) = info.value.messages["analysis_options"]
+    assert message.startswith("takes no keys for continuous × two_groups: remove it")

@@ -27,7 +27,7 @@ from service.store.models import Request, Rerun, Result
 from service.store.types import utcnow
 from workers.celery_app import TASK_NAMES, app
 from workers.fanout import work_units
-from workers.queue import REQUEST_ID_HEADER, publish_and_mark
+from workers.queue import REQUEST_ID_HEADER, publish_explorations
 from workers.running import (
     JobHooks,
     actor,
@@ -122,7 +122,7 @@ def run_request_job(
             log.warning("request %s: lease lost before the result was stored", request_id)
             return "lost"
         log.info("request %s: computed", request_id)
-        _publish_explorations(factory, waiting, config)
+        publish_explorations(waiting, config, factory)
         return "computed"
 
     # A closed-form request never has work units: no DELETE of them when it ends.
@@ -165,12 +165,6 @@ def answer_in_transaction(
     )
     log.info("request %s: computed at submission by %s", request_id, owner)
     return waiting
-
-
-def _publish_explorations(factory, ids: list[str], config: dict) -> None:
-    """Hand the broker the explorations that waited for a result (else the sweeper does)."""
-    for exploration_id in ids:
-        publish_and_mark("exploration", exploration_id, config, factory)
 
 
 def run_rerun_job(

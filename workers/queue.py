@@ -92,6 +92,15 @@ def publish_and_mark(kind: str, job_id: str, config: dict, factory) -> bool:
     return True
 
 
+def publish_explorations(ids: list[str], config: dict, factory) -> None:
+    """Publish the explorations that waited for a result just stored (else the sweeper does).
+
+    The one path of the API (after answering at submission) and of a worker (after computing).
+    """
+    for exploration_id in ids:
+        publish_and_mark("exploration", exploration_id, config, factory)
+
+
 def publish_helpers(kind: str, job_id: str, count: int, config: dict) -> int:
     """Send ``count`` helper tasks for a job's work units (helper queue); return how many went."""
     jobs.job_kind(kind)

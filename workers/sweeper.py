@@ -1,5 +1,8 @@
 """The sweeper: republish jobs that were never handed to the broker or whose worker died.
 
+Each round also deletes what no job needs any more: work units of ended jobs and long-ended desk
+sessions.
+
 It runs as a daemon thread in every worker's main process, started on ``worker_ready`` (so no
 separate beat process or schedule file is needed), every ``SWEEP_SECONDS``. Running it in many
 workers at once is harmless: publishing a job twice only produces a duplicate delivery, and the
@@ -15,7 +18,7 @@ import threading
 from datetime import UTC, datetime, timedelta
 
 from service import jsonlog
-from service.store import jobs
+from service.store import desk_sessions, jobs
 from service.store.db import session_scope
 from workers.fanout import clear_orphan_units
 from workers.queue import publish_and_mark
@@ -48,8 +51,11 @@ def sweep_once(config: dict, *, now: datetime | None = None) -> int:
             republish_seconds=republish_after(config).total_seconds(),
         )
         orphans = clear_orphan_units(session)
+        desks = desk_sessions.purge(session, now, desk_sessions.idle_limit(config))
     if orphans:
         log.info("sweeper: deleted %d work unit(s) of ended jobs", orphans)
+    if desks:
+        log.info("sweeper: deleted %d ended desk session(s)", desks)
     published = 0
     for kind, job_id, trace_id in stale:
         # A refusal means the broker is down; the next sweep tries again. The message carries

@@ -16,7 +16,6 @@ from collections.abc import Callable
 
 from celery.signals import task_postrun, task_prerun, worker_ready, worker_shutdown
 from sqlalchemy import select
-from sqlalchemy.orm import sessionmaker
 
 from service import jsonlog, metrics
 from service.engine import Cancelled, EngineError, canonical_json, compute
@@ -28,7 +27,7 @@ from service.store.models import Request, Rerun, Result
 from service.store.types import utcnow
 from workers.celery_app import TASK_NAMES, app
 from workers.fanout import work_units
-from workers.queue import REQUEST_ID_HEADER, publish_and_mark
+from workers.queue import REQUEST_ID_HEADER, publish_explorations
 from workers.running import (
     JobHooks,
     actor,
@@ -73,18 +72,14 @@ def run_request_job(
     fan_out: bool = False,
     runner: Callable[[dict], dict] = engine_run_chunk,
     order: Callable[[list[int]], list[int]] | None = None,
-    factory: sessionmaker | None = None,
-    answer: dict | None = None,
 ) -> str:
     """Claim and compute one request; return its outcome ('computed', 'skipped', 'failed', ...).
 
-    The API calls this too, with its own ``factory`` and an ``api:`` owner, for closed-form
-    questions: the same claim, events and record as on a worker, without the queue. It passes
-    the ``answer`` it computed while checking the submission; that record is stored instead of
-    computing again when it was made from exactly the stored question (the engine is
-    deterministic, so computing again would give the same record).
+    The API answers closed-form questions itself with :func:`answer_in_transaction` (the same
+    claim, events and record, in the transaction that stores the request); this is the queue's
+    path.
     """
-    factory = factory or sessions(config)
+    factory = sessions(config)
     owner = owner or new_owner()
     with session_scope(factory) as session:
         if not claim(session, "request", request_id, owner, config):
@@ -99,8 +94,6 @@ def run_request_job(
     started = utcnow()
 
     def work(hooks: JobHooks) -> dict:
-        if answer is not None and answer.get("question") == question:
-            return answer  # already computed: a cancel would save nothing (and costs a read)
         if hooks.cancel():
             raise Cancelled(f"request {request_id} cancelled before it started")
         return compute(
@@ -129,7 +122,7 @@ def run_request_job(
             log.warning("request %s: lease lost before the result was stored", request_id)
             return "lost"
         log.info("request %s: computed", request_id)
-        _publish_explorations(factory, waiting, config)
+        publish_explorations(waiting, config, factory)
         return "computed"
 
     # A closed-form request never has work units: no DELETE of them when it ends.
@@ -172,12 +165,6 @@ def answer_in_transaction(
     )
     log.info("request %s: computed at submission by %s", request_id, owner)
     return waiting
-
-
-def _publish_explorations(factory, ids: list[str], config: dict) -> None:
-    """Hand the broker the explorations that waited for a result (else the sweeper does)."""
-    for exploration_id in ids:
-        publish_and_mark("exploration", exploration_id, config, factory)
 
 
 def run_rerun_job(

@@ -86,6 +86,44 @@ class WindowMemo:
         return entry[2]
 
 
+class MemoFirst:
+    """``get``, ``get_expiry``, ``clear`` and ``reset`` of a storage with a ``memo``: the stats of
+    this thread's last increment come from the memo (each once), anything else from the store
+    (the ``_stored_*`` hooks); clearing or resetting the store forgets the memo."""
+
+    memo: WindowMemo
+
+    def get(self, key: str) -> int:
+        count = self.memo.count(key)
+        return count if count is not None else self._stored_count(key)
+
+    def get_expiry(self, key: str) -> float:
+        expires = self.memo.expiry(key)
+        return expires if expires is not None else self._stored_expiry(key)
+
+    def clear(self, key: str) -> None:
+        self.memo.forget()
+        self._clear_stored(key)
+
+    def reset(self) -> int | None:
+        self.memo.forget()
+        return self._reset_stored()
+
+    # The store's own calls: the next storage class's methods (RedisStorage's), unless the
+    # storage is the store itself and overrides them (SqliteFileStorage).
+    def _stored_count(self, key: str) -> int:
+        return super().get(key)
+
+    def _stored_expiry(self, key: str) -> float:
+        return super().get_expiry(key)
+
+    def _clear_stored(self, key: str) -> None:
+        super().clear(key)
+
+    def _reset_stored(self) -> int | None:
+        return super().reset()
+
+
 def window_storage_url(url: str) -> str:
     """The storage URL the limiter is given: Redis URLs go to ``RedisWindowStorage``."""
     scheme, sep, rest = url.partition("://")
@@ -104,7 +142,7 @@ return {current, redis.call("ttl", KEYS[1])}
 """
 
 
-class RedisWindowStorage(RedisStorage):
+class RedisWindowStorage(MemoFirst, RedisStorage):
     """Redis counters whose increment also returns the window's TTL (see the module's text)."""
 
     STORAGE_SCHEME = list(REDIS_SCHEMES.values())
@@ -122,24 +160,8 @@ class RedisWindowStorage(RedisStorage):
         self.memo.remember(key, int(count), max(int(ttl), 0) + time.time())
         return int(count)
 
-    def get(self, key: str) -> int:
-        count = self.memo.count(key)
-        return count if count is not None else super().get(key)
 
-    def get_expiry(self, key: str) -> float:
-        expires = self.memo.expiry(key)
-        return expires if expires is not None else super().get_expiry(key)
-
-    def clear(self, key: str) -> None:
-        self.memo.forget()
-        super().clear(key)
-
-    def reset(self) -> int | None:
-        self.memo.forget()
-        return super().reset()
-
-
-class SqliteFileStorage(Storage):
+class SqliteFileStorage(MemoFirst, Storage):
     """Fixed-window counters in a SQLite file (the file is created 0600)."""
 
     STORAGE_SCHEME = [SCHEME]
@@ -230,19 +252,13 @@ class SqliteFileStorage(Storage):
             conn.execute("DELETE FROM counters WHERE expires <= ?", (now,))
         return int(count), float(expires)
 
-    def get(self, key: str) -> int:
+    def _stored_count(self, key: str) -> int:
         """The key's count in its current window (0 when none)."""
-        count = self.memo.count(key)
-        if count is not None:
-            return count
         row = self._read("SELECT n FROM counters WHERE key = ? AND expires > ?", (key, time.time()))
         return int(row[0]) if row else 0
 
-    def get_expiry(self, key: str) -> float:
+    def _stored_expiry(self, key: str) -> float:
         """When the key's window ends (epoch seconds; now when it has none)."""
-        expires = self.memo.expiry(key)
-        if expires is not None:
-            return expires
         row = self._read("SELECT expires FROM counters WHERE key = ?", (key,))
         return float(row[0]) if row else time.time()
 
@@ -261,9 +277,8 @@ class SqliteFileStorage(Storage):
         except sqlite3.Error:
             return False
 
-    def reset(self) -> int | None:
+    def _reset_stored(self) -> int | None:
         """Drop every counter; return how many there were."""
-        self.memo.forget()
         try:
             with self._writing() as conn:
                 return conn.execute("DELETE FROM counters").rowcount
@@ -271,9 +286,8 @@ class SqliteFileStorage(Storage):
             self._drop()
             raise
 
-    def clear(self, key: str) -> None:
+    def _clear_stored(self, key: str) -> None:
         """Drop one key's counter."""
-        self.memo.forget()
         try:
             with self._writing() as conn:
                 conn.execute("DELETE FROM counters WHERE key = ?", (key,))

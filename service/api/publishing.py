@@ -20,15 +20,32 @@ log = logging.getLogger(__name__)
 
 def publish_job(kind: str, job_id: str) -> bool:
     """Publish the job's task after the commit and mark it published; False leaves it for later."""
+    return _queued(
+        f"{kind} {job_id}",
+        lambda queue: queue.publish_and_mark(kind, job_id, settings(), sessions()),
+    )
+
+
+def publish_explorations(ids: list[str]) -> None:
+    """Publish the explorations that waited for a result just committed (else the sweeper does)."""
+    if ids:
+        _queued(
+            "exploration " + ", ".join(ids),
+            lambda queue: queue.publish_explorations(ids, settings(), sessions()),
+        )
+
+
+def _queued(what: str, publish) -> bool:
+    """Call ``publish(workers.queue)``; any failure only leaves ``what`` for the sweeper."""
     try:
-        from workers.queue import publish_and_mark
+        from workers import queue
     except ImportError as exc:  # the worker package is optional for the API process
-        log.warning("queue unavailable (%s); %s %s left for the sweeper", exc, kind, job_id)
+        log.warning("queue unavailable (%s); %s left for the sweeper", exc, what)
         return False
     try:
-        return publish_and_mark(kind, job_id, settings(), sessions())
+        return bool(publish(queue))
     except Exception:  # never fail a request that is already stored
-        log.exception("publishing %s %s failed; left for the sweeper", kind, job_id)
+        log.exception("publishing %s failed; left for the sweeper", what)
         return False
 
 
@@ -47,9 +64,3 @@ def answer_in(session, request_id: str, answer: dict) -> list[str] | None:
         log.warning("worker code unavailable (%s); request %s goes to the queue", exc, request_id)
         return None
     return answer_in_transaction(session, request_id, settings(), owner=api_owner(), answer=answer)
-
-
-def publish_explorations(ids: list[str]) -> None:
-    """Publish the explorations that waited for a result just committed (else the sweeper does)."""
-    for exploration_id in ids:
-        publish_job("exploration", exploration_id)

@@ -58,7 +58,7 @@ def configure(app: Flask) -> None:
 
 
 def _idle() -> timedelta:
-    return timedelta(minutes=int(settings()["DESK_IDLE_MINUTES"]))
+    return store.idle_limit(settings())
 
 
 def sign_in(secret: str) -> Caller | None:

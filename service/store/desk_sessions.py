@@ -2,22 +2,31 @@
 
 The browser's cookie carries a random secret; the table keeps only its SHA-256, so a leaked
 database opens no session. A session ends by sign-out, by idling past the limit, or when its
-token is revoked; an ended row stays for the record and never opens again.
+token is revoked; an ended row never opens again, and the sweeper deletes it once ``KEEP`` has
+passed since the idle limit (:func:`purge`).
 """
 
 from __future__ import annotations
 
 import hashlib
 import secrets
-from datetime import timedelta
+from datetime import datetime, timedelta
 
-from sqlalchemy import update
+from sqlalchemy import delete, update
 from sqlalchemy.orm import Session
 
 from .models import DeskSession
 from .types import utcnow
 
 END_REASONS = ("signed_out", "idle", "revoked")
+# How long a row outlives the idle limit: a browser that comes back within it is told why its
+# session ended ("signed out", "idle", "revoked") rather than only asked to sign in.
+KEEP = timedelta(days=1)
+
+
+def idle_limit(config: dict) -> timedelta:
+    """How long a desk session may go unused (``DESK_IDLE_MINUTES``)."""
+    return timedelta(minutes=int(config["DESK_IDLE_MINUTES"]))
 
 
 def _digest(secret: str) -> str:
@@ -74,4 +83,14 @@ def end_sessions_of(session: Session, token_id: str) -> int:
         .where(DeskSession.token_id == token_id, DeskSession.ended_at.is_(None))
         .values(ended_at=utcnow(), end_reason="revoked")
     )
+    return int(result.rowcount or 0)
+
+
+def purge(session: Session, now: datetime, idle: timedelta) -> int:
+    """Delete the sessions unused for longer than ``idle`` + ``KEEP``; return how many.
+
+    Every such session has ended (by idling, if nothing ended it before), so none is usable.
+    """
+    cutoff = now - idle - KEEP
+    result = session.execute(delete(DeskSession).where(DeskSession.last_seen_at < cutoff))
     return int(result.rowcount or 0)

@@ -16,7 +16,7 @@ from service import jsonlog
 
 from .audit import add_with_event
 from .models import EXPLORATION_TYPES, Exploration
-from .paging import Key, keyset_page
+from .paging import Key, of_request, page_of_request
 
 
 def create_exploration(
@@ -49,26 +49,15 @@ def create_exploration(
 
 def explorations_for(session: Session, request_id: str) -> list[Exploration]:
     """Return the request's explorations, oldest first."""
-    return list(
-        session.scalars(
-            select(Exploration)
-            .where(Exploration.request_id == request_id)
-            .order_by(Exploration.created_at, Exploration.id)
-        )
-    )
+    return of_request(session, Exploration, Exploration.created_at, request_id)
 
 
 def explorations_page(
     session: Session, request_id: str, *, after: Key | None, limit: int
 ) -> tuple[list[Exploration], Key | None]:
     """One page of the request's explorations, oldest first, and the key of the next page."""
-    return keyset_page(
-        session,
-        select(Exploration).where(Exploration.request_id == request_id),
-        Exploration.created_at,
-        Exploration.id,
-        after=after,
-        limit=limit,
+    return page_of_request(
+        session, Exploration, Exploration.created_at, request_id, after=after, limit=limit
     )
 
 

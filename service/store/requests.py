@@ -16,7 +16,7 @@ from service import jsonlog
 
 from .audit import add_with_event, append_event, content_hash, events_for
 from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
-from .paging import Key, keyset_page
+from .paging import Key, keyset_page, of_request, page_of_request
 from .types import utcnow
 
 
@@ -333,27 +333,14 @@ def create_rerun(session: Session, row: Request, actor: str, note: str | None) -
 
 def reruns_for(session: Session, request_id: str) -> list[Rerun]:
     """Return the request's reruns, oldest first."""
-    return list(
-        session.scalars(
-            select(Rerun)
-            .where(Rerun.request_id == request_id)
-            .order_by(Rerun.requested_at, Rerun.id)
-        )
-    )
+    return of_request(session, Rerun, Rerun.requested_at, request_id)
 
 
 def reruns_page(
     session: Session, request_id: str, *, after: Key | None, limit: int
 ) -> tuple[list[Rerun], Key | None]:
     """One page of the request's reruns, oldest first, and the key of the next page."""
-    return keyset_page(
-        session,
-        select(Rerun).where(Rerun.request_id == request_id),
-        Rerun.requested_at,
-        Rerun.id,
-        after=after,
-        limit=limit,
-    )
+    return page_of_request(session, Rerun, Rerun.requested_at, request_id, after=after, limit=limit)
 
 
 def get_rerun(session: Session, request_id: str, rerun_id: str) -> Rerun | None:

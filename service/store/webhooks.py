@@ -30,7 +30,7 @@ from .models import (
     WebhookAttempt,
     WebhookMessage,
 )
-from .paging import Key, keyset_page
+from .paging import Key, page_of_request
 from .types import utcnow
 
 SECRET_PREFIX = "whsec_"
@@ -276,13 +276,8 @@ def deliveries_for(
     session: Session, request_id: str, *, after: Key | None = None, limit: int = 100
 ) -> tuple[list[dict], Key | None]:
     """One page of the request's messages, oldest first, each with its attempts (the log)."""
-    messages, next_key = keyset_page(
-        session,
-        select(WebhookMessage).where(WebhookMessage.request_id == request_id),
-        WebhookMessage.created_at,
-        WebhookMessage.id,
-        after=after,
-        limit=limit,
+    messages, next_key = page_of_request(
+        session, WebhookMessage, WebhookMessage.created_at, request_id, after=after, limit=limit
     )
     attempts: dict[str, list[WebhookAttempt]] = {m.id: [] for m in messages}
     if messages:

@@ -15,10 +15,11 @@ import pytest
 from statsmodels.stats.power import TTestIndPower
 
 from service import create_app
+from service.api.publishing import api_owner
 from service.engine import canonical_json, compute
 from service.store.db import session_scope
 from service.store.models import Exploration
-from workers.tasks import run_request_job
+from workers.tasks import answer_in_transaction, run_request_job
 
 
 @pytest.fixture
@@ -127,24 +128,32 @@ def test_explorations_posted_with_an_analytic_request_are_handed_to_the_queue(li
         assert row.status == "queued" and row.published_at is not None
 
 
-def test_an_answer_given_to_the_job_is_stored_only_for_the_question_it_answers(api, app):
-    # The API hands the record it computed while checking the submission to the job, so the
-    # question is computed once; a record of any other question must never be stored instead.
+def test_an_answer_is_stored_only_for_the_question_it_answers(api, app):
+    # The API stores the record it computed while checking the submission, so the question is
+    # computed once; a record of any other question must never be stored instead.
     config = app.extensions["sizewise"]["config"]
     queued = api.submit(api.request_body(question_body())).get_json()
     other = compute(
         dict(queued["question"], effect=dict(queued["question"]["effect"], difference=0.4))
     )
-    assert run_request_job(queued["id"], config, answer=other) == "computed"
-    stored = api.client.get(f"/v1/requests/{queued['id']}").get_json()["result"]
-    assert canonical_json(stored) == canonical_json(compute(queued["question"]))
-    assert stored["sample_size"]["per_group"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
+    with session_scope(api.sessions()) as session:
+        assert (
+            answer_in_transaction(session, queued["id"], config, owner=api_owner(), answer=other)
+            is None
+        )
+    left = api.client.get(f"/v1/requests/{queued['id']}").get_json()
+    assert left["status"] == "queued" and left["result"] is None
+    assert [e["action"] for e in left["history"]] == ["submitted", "published"]
     # The matching record is stored as is: the same digits the engine gives for the question.
-    again = api.submit(api.request_body(question_body())).get_json()
-    answer = compute(again["question"])
-    assert run_request_job(again["id"], config, answer=answer) == "computed"
-    stored = api.client.get(f"/v1/requests/{again['id']}").get_json()["result"]
+    answer = compute(queued["question"])
+    with session_scope(api.sessions()) as session:
+        waiting = answer_in_transaction(
+            session, queued["id"], config, owner=api_owner(), answer=answer
+        )
+    assert waiting == []
+    stored = api.client.get(f"/v1/requests/{queued['id']}").get_json()["result"]
     assert canonical_json(stored) == canonical_json(answer)
+    assert stored["sample_size"]["per_group"] == [64, 64]  # statsmodels' 63.77 rounded up (above)
 
 
 def test_an_analytic_submission_is_stored_and_answered_in_one_commit(live_api, live_app):

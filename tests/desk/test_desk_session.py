@@ -184,3 +184,33 @@ def test_every_page_checks_the_token_itself_not_only_the_session(desk_app, desk,
     assert "Your token was revoked" in d.get(r.headers["Location"]).get_data(as_text=True)
     with session_scope(_sessions(desk_app)) as db:
         assert db.scalars(select(DeskSession.end_reason)).one() == "revoked"
+
+
+def test_the_sweeper_deletes_sessions_a_day_past_their_idle_limit(desk_app, desk, desk_tokens):
+    from service.store.desk_sessions import KEEP
+    from workers import sweeper
+
+    # Three statisticians' browsers: one unused past the idle limit plus a day, one past the
+    # idle limit only, one in use. Ages are moved back by hand (no waiting in a test).
+    old, idle, live = (desk("statistician", name) for name in ("j.moreau", "r.patel", "a.ng"))
+    limit = timedelta(minutes=30)
+    with session_scope(_sessions(desk_app)) as db:
+        for name, age in (("j.moreau", limit + KEEP), ("r.patel", limit)):
+            row = db.scalars(
+                select(DeskSession).where(
+                    DeskSession.token_id == desk_tokens.token_id("statistician", name)
+                )
+            ).one()
+            row.last_seen_at = row.last_seen_at - age - timedelta(minutes=1)
+    sweeper.sweep_once(desk_app.extensions["sizewise"]["config"])
+    with session_scope(_sessions(desk_app)) as db:
+        left = set(db.scalars(select(DeskSession.token_id)))
+    assert left == {desk_tokens.token_id("statistician", n) for n in ("r.patel", "a.ng")}
+    # The deleted session opens nothing: its browser is asked to sign in, with no reason left.
+    r = old.get("/desk/requests")
+    assert r.status_code == 302
+    assert "Sign in with your token" in old.get(r.headers["Location"]).get_data(as_text=True)
+    # The one kept still says why it ended; the one in use stays open.
+    r = idle.get("/desk/requests")
+    assert "ended after 30 minutes" in idle.get(r.headers["Location"]).get_data(as_text=True)
+    assert live.get("/desk/requests").status_code == 200

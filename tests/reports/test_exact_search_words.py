@@ -8,6 +8,7 @@ import html
 import math
 import re
 
+import pytest
 from scipy import stats
 
 from service.reports.justification import justification
@@ -118,16 +119,27 @@ def test_enumerated_two_group_answer_says_it_was_searched():
     ) in text
 
 
-def test_simon_design_says_it_was_searched():
-    record = record_of(SIMON)
+@pytest.mark.parametrize(
+    "criterion, design, printed",
+    [("optimal", (3, 13, 12, 43), "20.6"), ("minimax", (4, 18, 10, 33), "22.3")],
+)
+def test_simon_design_states_its_maximum_and_expected_size(criterion, design, printed):
+    record = record_of(posted(SIMON, analysis_options={"criterion": criterion}))
+    r1, n1, _, n = design
     # published: Simon (1989), Controlled Clin Trials 10:1, Table 1 (p0 .20, p1 .40, alpha .05,
-    # power .80), optimal design 3/13, 12/43; recomputed by the engine's enumeration.
-    assert record["sample_size"]["per_group"] == [43]
+    # power .80): optimal 3/13, 12/43 with EN(p0) 20.6, minimax 4/18, 10/33 with EN(p0) 22.3;
+    # recomputed by the engine's enumeration, EN(p0) = n1 + (1 − P(X1 ≤ r1 | p0))·(n − n1)
+    # (formula) with scipy's binomial.
+    assert record["sample_size"]["per_group"] == [n]
+    expected = n1 + stats.binom.sf(r1, n1, 0.2) * (n - n1)
+    assert f"{expected:.1f}" == printed
     text = justification(record)
-    assert "unrounded" not in text and "43.00" not in text
+    assert "unrounded" not in text and f"{n}.00" not in text
+    assert "adjustment" not in text  # the stage rules count evaluable patients; none is made
     assert (
-        "43 participants are needed before adjustment (found by exact search: the total size n of "
-        "the design that best meets the design criterion among every two-stage design up to the "
-        "searched maximum)."
+        f"the {criterion} two-stage design enrolls {printed} participants on average when the "
+        f"response rate is the uninteresting one, and at most {n} (found by exact search: the "
+        "total size n of the design that best meets the design criterion among every two-stage "
+        "design up to the searched maximum)."
     ) in text
     assert "unrounded" not in _page_text(record)

@@ -12,7 +12,16 @@ import copy
 from service.engine import compute
 from service.schemas import load_question
 
-__all__ = ["PAIRED", "SIMON", "SINGLE_RATE", "SURV", "posted", "record_of", "simon_posted"]
+__all__ = [
+    "ACCURACY",
+    "PAIRED",
+    "SIMON",
+    "SINGLE_RATE",
+    "SURV",
+    "posted",
+    "record_of",
+    "simon_posted",
+]
 
 # Log-rank with a control median of 12 months, accrual 24 and 12 more of follow-up
 # (Lachin & Foulkes 1986).
@@ -49,6 +58,16 @@ PAIRED = {
     "target_power": 0.9,
     "effect": {"p_treatment_only": 0.15},
     "assumptions": {"p_control_only": 0.05},
+}
+
+# Sensitivity and specificity to ±0.05 (Buderer 1996): the chest-pain rule example's values.
+ACCURACY = {
+    "outcome": "diagnostic",
+    "layout": "single_group",
+    "find": "sample_size",
+    "hypothesis": {"aim": "estimation", "half_width": 0.05},
+    "effect": {"sensitivity": 0.9, "specificity": 0.8},
+    "assumptions": {"prevalence": 0.2},
 }
 
 # Simon's two-stage phase II question of Simon (1989), Table 1: p0 .20, p1 .40, alpha .05,

@@ -10,6 +10,7 @@ registered design renders without any edit here.
 from __future__ import annotations
 
 from service.engine import QuestionError, designs
+from service.engine.designs.derived import DERIVED
 
 __all__ = [
     "analysis_label",
@@ -123,7 +124,7 @@ def _time_unit(q: dict) -> str | None:
 
 
 def _value_text(q: dict, f, value) -> str:
-    """One entered value with its unit: '24 months', '0.05 per month', '10, 12 and 15'."""
+    """One value with its unit: '24 months', '1 year', '0.05 per month', '10, 12 and 15'."""
     if isinstance(value, (list, tuple)):
         items = [fmt_num(v) for v in value]
         text = ", ".join(items[:-1]) + " and " + items[-1] if len(items) > 1 else "".join(items)
@@ -131,7 +132,7 @@ def _value_text(q: dict, f, value) -> str:
         text = fmt_num(value)
     unit = _time_unit(q)
     if f.unit == "time units" and unit:
-        return f"{text} {unit}"
+        return f"{text} {unit.removesuffix('s') if text == '1' else unit}"  # "1 year"
     if f.unit == "per time unit" and unit:
         return f"{text} per {unit.removesuffix('s')}"
     return text
@@ -191,13 +192,16 @@ def derived_text(q: dict, record: dict) -> str:
     declared = _fields(cell(q))
     parts = []
     for name, value in derived.items():
-        f = declared.get(name)
+        # the cell's own field, else the one table of derived quantities; a key in neither
+        # (a design registered elsewhere) is shown as its words
+        f = declared.get(name) or DERIVED.get(name)
+        label = f.label if f is not None else name.replace("_", " ")
         if f is not None and not isinstance(value, (dict, str)):
-            parts.append(f"{f.label} {_value_text(q, f, value)}")
+            parts.append(f"{label} {_value_text(q, f, value)}")
         elif isinstance(value, (int, float)):
-            parts.append(f"{name.replace('_', ' ')} {fmt_num(value)}")
+            parts.append(f"{label} {fmt_num(value)}")
         else:
-            parts.append(f"{name.replace('_', ' ')} {value}")
+            parts.append(f"{label} {value}")
     return "; ".join(parts)
 
 

@@ -463,10 +463,14 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         if len(base["per_group"]) > 1:
             body += f" ({fmt_count(sum(base['per_group']))} in total)"
     else:
-        body += f" {_per_group(base['per_group'], q)}"
-        if len(base["per_group"]) > 1:
-            body += f" ({fmt_count(sum(base['per_group']))} in total)"
-        body += " are needed before adjustment"
+        own = size_words(record)
+        if own:
+            body += f" {own}"
+        else:
+            body += f" {_per_group(base['per_group'], q)}"
+            if len(base["per_group"]) > 1:
+                body += f" ({fmt_count(sum(base['per_group']))} in total)"
+            body += " are needed before adjustment"
         # A simulated or an exact search lands on whole numbers; only a formula has an
         # unrounded answer.
         searched = size_search(record)
@@ -659,6 +663,13 @@ def details_sentence(record: dict) -> str:
     """The cell's own sentences on its answer details (``Phrases.details``), '' when none."""
     phrases = cell(record["question"]).phrases
     words = phrases.details if phrases is not None else None
+    return words(record) if words is not None else ""
+
+
+def size_words(record: dict) -> str:
+    """The solved size in the cell's own words (``Phrases.size``), '' for the shared wording."""
+    phrases = cell(record["question"]).phrases
+    words = phrases.size if phrases is not None else None
     return words(record) if words is not None else ""
 
 

@@ -12,28 +12,13 @@ import pytest
 from scipy import stats
 from statsmodels.stats.contingency_tables import mcnemar
 
-from service.engine import QuestionError, compute, exact_binomial
+from service.engine import QuestionError, exact_binomial
 from service.schemas import QuestionInvalid, load_question
+from tests.posted import PAIRED, posted, record_of
 
 
 def question(**over) -> dict:
-    body = {
-        "outcome": "binary",
-        "layout": "paired",
-        "find": "sample_size",
-        "alpha": 0.05,
-        "target_power": 0.9,
-        "effect": {"p_treatment_only": 0.15},
-        "assumptions": {"p_control_only": 0.05},
-    }
-    body.update(over)
-    if body["find"] == "power":
-        body.pop("target_power")
-    return body
-
-
-def answer(body: dict) -> dict:
-    return compute(load_question(body))
+    return posted(PAIRED, **over)
 
 
 def _connor(p10, p01, za, zb):
@@ -57,7 +42,7 @@ def test_connor_sample_size(p10, p01, power, raw):
     body = question(target_power=power)
     body["effect"] = {"p_treatment_only": p10}
     body["assumptions"] = {"p_control_only": p01}
-    record = answer(body)
+    record = record_of(body)
     assert record["sample_size"]["steps"][0]["per_group_raw"][0] == pytest.approx(want, rel=1e-9)
     assert record["sample_size"]["per_group"] == [math.ceil(want)]
 
@@ -70,7 +55,7 @@ def test_marginal_rates_and_correlation_give_the_discordant_proportions():
     body = question()
     body["effect"] = {"p_treatment": pt}
     body["assumptions"] = {"p_control": pc, "correlation": rho}
-    record = answer(body)
+    record = record_of(body)
     assert record["method"]["derived"]["p_treatment_only"] == pytest.approx(p10, abs=1e-12)
     assert record["method"]["derived"]["p_control_only"] == pytest.approx(p01, abs=1e-12)
     want = _connor(p10, p01, stats.norm.ppf(0.975), stats.norm.ppf(0.9))
@@ -82,7 +67,7 @@ def test_an_impossible_correlation_names_its_field():
     body["effect"] = {"p_treatment": 0.9}
     body["assumptions"] = {"p_control": 0.1, "correlation": 0.9}
     with pytest.raises(QuestionError) as info:
-        answer(body)
+        record_of(body)
     assert info.value.field == "assumptions.correlation"
 
 
@@ -120,7 +105,7 @@ def test_exact_power_matches_statsmodels_decisions(n):
 def test_exact_sample_size_reports_both_answers():
     body = question(analysis="exact_mcnemar", target_power=0.8)
     body["effect"] = {"p_treatment_only": 0.2}
-    record = answer(body)
+    record = record_of(body)
     block = record["sample_size"]["details"]["exact_search"]
     # formula: the exact power curve recomputed for every n around the answer
     n = np.arange(2, block["checked_through"] + 1)
@@ -136,7 +121,7 @@ def test_exact_sample_size_reports_both_answers():
 def test_detectable_treatment_only_proportion_reaches_the_target():
     body = question(find="effect", sample_size={"per_group": [206]})
     body.pop("effect")
-    record = answer(body)
+    record = record_of(body)
     assert record["effect"]["field"] == "p_treatment_only"
     assert record["effect"]["value"] == pytest.approx(0.15, abs=1e-3)
 
@@ -147,7 +132,7 @@ def test_detectable_treatment_only_proportion_reaches_the_target():
 def _simulated(body: dict, replicates: int = 4000) -> dict:
     sim = copy.deepcopy(body)
     sim.update(method="simulation", simulation={"replicates": replicates, "seed": 20261202})
-    return answer(sim)
+    return record_of(sim)
 
 
 def test_simulated_exact_test_agrees_with_the_enumeration():

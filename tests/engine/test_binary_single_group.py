@@ -11,29 +11,13 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from service.engine import compute, exact_binomial
+from service.engine import exact_binomial
 from service.schemas import QuestionInvalid, load_question
+from tests.posted import SINGLE_RATE, posted, record_of
 
 
 def question(**over) -> dict:
-    body = {
-        "outcome": "binary",
-        "layout": "single_group",
-        "find": "sample_size",
-        "alternative": "one-sided",
-        "alpha": 0.05,
-        "target_power": 0.8,
-        "effect": {"p": 0.35},
-        "assumptions": {"p_null": 0.2},
-    }
-    body.update(over)
-    if body["find"] == "power":
-        body.pop("target_power")
-    return body
-
-
-def answer(body: dict) -> dict:
-    return compute(load_question(body))
+    return posted(SINGLE_RATE, **over)
 
 
 def _brute_power(n: int, p: float, p0: float, alpha: float, two_sided: bool) -> float:
@@ -82,7 +66,7 @@ def test_sample_size_reports_both_saw_tooth_answers():
     first = min(n for n, pw in powers.items() if pw >= 0.8)
     stays = 1 + max(n for n, pw in powers.items() if pw < 0.8)
     assert (first, stays) == (56, 59)
-    record = answer(question())
+    record = record_of(question())
     block = record["sample_size"]["details"]["exact_search"]
     assert block["first_reaching"] == first
     assert block["stays_above_from"] == stays
@@ -99,7 +83,7 @@ def test_two_sided_sample_size_matches_the_brute_force_curve():
     body["effect"] = {"p": 0.7}
     body["assumptions"] = {"p_null": 0.5}
     powers = {n: _brute_power(n, 0.7, 0.5, 0.05, True) for n in range(20, 160)}
-    block = answer(body)["sample_size"]["details"]["exact_search"]
+    block = record_of(body)["sample_size"]["details"]["exact_search"]
     assert block["first_reaching"] == min(n for n, pw in powers.items() if pw >= 0.9)
     assert block["stays_above_from"] == 1 + max(n for n, pw in powers.items() if pw < 0.9)
 
@@ -110,7 +94,7 @@ def test_a_lower_rate_is_tested_in_the_lower_tail():
     body = question()
     body["effect"] = {"p": 0.65}
     body["assumptions"] = {"p_null": 0.8}
-    block = answer(body)["sample_size"]["details"]["exact_search"]
+    block = record_of(body)["sample_size"]["details"]["exact_search"]
     assert (block["first_reaching"], block["stays_above_from"]) == (56, 59)
 
 
@@ -122,7 +106,7 @@ def test_z_test_sample_size_formula():
     za, zb = stats.norm.ppf(0.95), stats.norm.ppf(0.8)
     raw = (za * math.sqrt(0.16) + zb * math.sqrt(0.35 * 0.65)) ** 2 / 0.15**2
     assert raw == pytest.approx(49.878, abs=1e-3)
-    record = answer(question(analysis="z_test"))
+    record = record_of(question(analysis="z_test"))
     base = record["sample_size"]["steps"][0]
     assert base["per_group_raw"][0] == pytest.approx(raw, rel=1e-9)
     assert record["sample_size"]["per_group"] == [50]
@@ -138,14 +122,14 @@ def test_z_test_power_is_the_normal_approximation():
     want = stats.norm.cdf((d * math.sqrt(80) - za * s0) / s1) + stats.norm.cdf(
         (-d * math.sqrt(80) - za * s0) / s1
     )
-    assert answer(body)["power"]["estimate"] == pytest.approx(want, rel=1e-12)
+    assert record_of(body)["power"]["estimate"] == pytest.approx(want, rel=1e-12)
 
 
 def test_detectable_rate_reaches_the_target_exactly():
     body = question(find="effect")
     body.pop("effect")
     body["sample_size"] = {"per_group": [59]}
-    record = answer(body)
+    record = record_of(body)
     p = record["effect"]["value"]
     assert record["effect"]["field"] == "p"
     # formula: the exact power at the solved rate is the target (term-by-term sum)
@@ -157,7 +141,7 @@ def test_equal_rates_are_refused_on_the_effect_field():
     body = question()
     body["effect"] = {"p": 0.2}
     with pytest.raises(Exception) as info:
-        answer(body)
+        record_of(body)
     assert "effect.p" in str(info.value)
 
 
@@ -183,7 +167,7 @@ def test_exact_curve_is_vectorized_over_n():
 def _simulated(body: dict, replicates: int = 4000) -> dict:
     sim = copy.deepcopy(body)
     sim.update(method="simulation", simulation={"replicates": replicates, "seed": 20261202})
-    return answer(sim)
+    return record_of(sim)
 
 
 @pytest.mark.parametrize("analysis", ["exact_binomial", "z_test"])

@@ -9,37 +9,13 @@ import copy
 import pytest
 from scipy import stats
 
-from service.engine import QuestionError, compute, two_stage
+from service.engine import QuestionError, two_stage
 from service.schemas import QuestionInvalid, load_question
+from tests.posted import SIMON, posted, record_of, simon_posted
 
 
 def question(**over) -> dict:
-    body = {
-        "outcome": "binary",
-        "layout": "two_stage",
-        "find": "sample_size",
-        "alpha": 0.05,
-        "target_power": 0.8,
-        "effect": {"p": 0.4},
-        "assumptions": {"p_null": 0.2},
-    }
-    body.update(over)
-    return body
-
-
-def posted(n1: int, r1: int, n: int, r: int, **over) -> dict:
-    body = question(find="power", sample_size={"per_group": [n]}, **over)
-    body.pop("target_power")
-    body["analysis_options"] = {
-        "stage1_size": n1,
-        "stage1_max_responses": r1,
-        "max_responses": r,
-    }
-    return body
-
-
-def answer(body: dict) -> dict:
-    return compute(load_question(body))
+    return posted(SIMON, **over)
 
 
 def _brute(n1: int, r1: int, n: int, r: int, p: float) -> tuple[float, float]:
@@ -72,7 +48,7 @@ FROM_MEMORY = [
 def test_published_simon_designs(p0, p1, criterion, design, en, pet):
     body = question(effect={"p": p1}, assumptions={"p_null": p0})
     body["analysis_options"] = {"criterion": criterion}
-    record = answer(body)
+    record = record_of(body)
     block = record["sample_size"]["details"]["two_stage"]
     assert (block["r1"], block["n1"], block["r"], block["n"]) == design
     assert round(block["expected_n_null"], 1) == en
@@ -133,7 +109,7 @@ def test_search_matches_an_independent_brute_force_search():
 def test_power_of_a_posted_design():
     # published design (Simon 1989, Table 1, minimax for p0 .20 / p1 .40); its characteristics
     # by the double binomial sum (formula)
-    record = answer(posted(18, 4, 33, 10))
+    record = record_of(simon_posted(18, 4, 33, 10))
     want_power = _brute(18, 4, 33, 10, 0.4)[0]
     want_alpha, want_pet = _brute(18, 4, 33, 10, 0.2)
     assert record["power"]["estimate"] == pytest.approx(want_power, abs=1e-12)
@@ -156,7 +132,7 @@ def test_stage_fields_belong_to_find_power():
     with pytest.raises(QuestionInvalid) as info:
         load_question(body)
     assert "analysis_options.stage1_size" in info.value.errors
-    body = posted(13, 3, 43, 12)
+    body = simon_posted(13, 3, 43, 12)
     del body["analysis_options"]["max_responses"]
     with pytest.raises(QuestionInvalid) as info:
         load_question(body)
@@ -165,20 +141,20 @@ def test_stage_fields_belong_to_find_power():
 
 def test_an_impossible_posted_design_names_its_field():
     with pytest.raises(QuestionError) as info:
-        answer(posted(13, 13, 43, 12))
+        record_of(simon_posted(13, 13, 43, 12))
     assert info.value.field == "analysis_options.stage1_max_responses"
 
 
 def test_a_lower_rate_worth_pursuing_is_refused():
     with pytest.raises((QuestionError, QuestionInvalid)) as info:
-        answer(question(effect={"p": 0.1}))
+        record_of(question(effect={"p": 0.1}))
     assert "effect.p" in str(getattr(info.value, "errors", None) or info.value.field)
 
 
 def test_assurance_is_refused_on_its_field():
     body = question(assurance={"mean": 0.4, "sd": 0.05})
     with pytest.raises(QuestionError) as info:
-        answer(body)
+        record_of(body)
     assert info.value.field == "assurance"
 
 
@@ -186,7 +162,7 @@ def test_no_design_within_max_n_names_the_field():
     body = question(effect={"p": 0.25})
     body["analysis_options"] = {"max_n": 20}
     with pytest.raises(QuestionError) as info:
-        answer(body)
+        record_of(body)
     assert info.value.field == "analysis_options.max_n"
 
 
@@ -194,9 +170,9 @@ def test_no_design_within_max_n_names_the_field():
 
 
 def test_simulated_power_of_a_posted_design_agrees():
-    body = posted(13, 3, 43, 12)
+    body = simon_posted(13, 3, 43, 12)
     body.update(method="simulation", simulation={"replicates": 4000, "seed": 20261202})
-    record = answer(copy.deepcopy(body))
+    record = record_of(copy.deepcopy(body))
     power = record["power"]
     assert power["analytic"] == pytest.approx(_brute(13, 3, 43, 12, 0.4)[0])
     assert abs(power["estimate"] - power["analytic"]) <= 4 * power["mcse"], power

@@ -12,6 +12,7 @@ from statsmodels.stats.proportion import proportion_confint
 
 from service.engine.diagnostic_precision import buderer_half_widths, buderer_n
 from service.engine.errors import QuestionError
+from tests.posted import ACCURACY, posted, record_of
 
 
 @pytest.mark.parametrize(
@@ -64,27 +65,15 @@ def test_confidence_and_bad_input():
 
 
 def accuracy(**over) -> dict:
-    body = {
-        "outcome": "diagnostic",
-        "layout": "single_group",
-        "find": "sample_size",
-        "hypothesis": {"aim": "estimation", "half_width": 0.05},
-        "effect": {"sensitivity": 0.9, "specificity": 0.8},
-        "assumptions": {"prevalence": 0.2},
-    }
-    body.update(over)
-    return body
+    return posted(ACCURACY, **over)
 
 
 def test_cell_answers_with_the_larger_of_the_two_sizes():
     # formula: Buderer (1996) at Se 0.9, Sp 0.8, prevalence 0.2, E 0.05, 95%:
     # n_sens = 1.96²·0.09/(0.0025·0.2) = 691.46 > n_spec = 1.96²·0.16/(0.0025·0.8) = 307.32.
-    from service.engine import compute
-    from service.schemas import load_question
-
     z2 = stats.norm.ppf(0.975) ** 2
     n_sens, n_spec = z2 * 0.09 / (0.0025 * 0.2), z2 * 0.16 / (0.0025 * 0.8)
-    record = compute(load_question(accuracy()))
+    record = record_of(accuracy())
     assert record["power"] is None
     assert record["sample_size"]["steps"][0]["per_group_raw"][0] == pytest.approx(n_sens)
     assert record["sample_size"]["total"] == math.ceil(n_sens)
@@ -98,12 +87,9 @@ def test_cell_answers_with_the_larger_of_the_two_sizes():
 
 
 def test_cell_half_width_at_a_given_size():
-    from service.engine import compute
-    from service.schemas import load_question
-
     body = accuracy(find="precision", sample_size={"per_group": [800]})
     body["hypothesis"] = {"aim": "estimation"}
-    record = compute(load_question(body))
+    record = record_of(body)
     # formula: z·√(Se(1 − Se)/(n·prev)) = 1.96·√(0.09/160) = 0.0465 (sensitivity, the wider)
     expected = stats.norm.ppf(0.975) * math.sqrt(0.09 / 160)
     assert record["precision"]["half_width_expected"] == pytest.approx(expected)

@@ -6,7 +6,7 @@ same vocabulary as the API, the CLI and the examples (VOCAB §1).
 
 from service.engine import compute
 from service.schemas import load_question
-from tests.schemas.posted import SURV as SURVIVAL  # HR 0.75, control median 12 months
+from tests.posted import SURV as SURVIVAL  # HR 0.75, control median 12 months
 
 __all__ = ["D_HALF", "REQUEST", "SURVIVAL", "answer", "posted", "question"]
 

@@ -12,27 +12,23 @@ import re
 import pytest
 from scipy import stats
 
-from service.engine import compute
 from service.reports.justification import justification
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report
-from service.schemas import load_question
+from tests.posted import ACCURACY, posted, record_of
 from tests.reports.reports_testkit import REQUEST
 
 Z = stats.norm.ppf(0.975)
 
 
-def _record(se: float, sp: float, prev: float, **posted) -> dict:
-    raw = {
-        "outcome": "diagnostic",
-        "layout": "single_group",
-        "find": "sample_size",
-        "hypothesis": {"aim": "estimation", "half_width": 0.05, "confidence": 0.95},
-        "effect": {"sensitivity": se, "specificity": sp},
-        "assumptions": {"prevalence": prev},
-        **posted,
-    }
-    return compute(load_question(raw))
+def _record(se: float, sp: float, prev: float, **over) -> dict:
+    raw = posted(
+        ACCURACY,
+        effect={"sensitivity": se, "specificity": sp},
+        assumptions={"prevalence": prev},
+        **over,
+    )
+    return record_of(raw)
 
 
 def _half_width(p: float, subjects: float) -> float:
@@ -99,16 +95,15 @@ def test_specificity_can_set_the_size():
 
 
 def test_a_stated_size_gives_both_half_widths():
-    raw = {
-        "outcome": "diagnostic",
-        "layout": "single_group",
-        "find": "precision",
-        "sample_size": {"total": 400},
-        "hypothesis": {"aim": "estimation"},
-        "effect": {"sensitivity": 0.8, "specificity": 0.7},
-        "assumptions": {"prevalence": 0.6},
-    }
-    record = compute(load_question(raw))
+    raw = posted(
+        ACCURACY,
+        find="precision",
+        sample_size={"total": 400},
+        hypothesis={"aim": "estimation"},
+        effect={"sensitivity": 0.8, "specificity": 0.7},
+        assumptions={"prevalence": 0.6},
+    )
+    record = record_of(raw)
     text = justification(record)
     assert (
         "With 400 participants enrolled, two two-sided 95% confidence intervals, one for the "

@@ -8,29 +8,13 @@ import html
 import math
 import re
 
+import pytest
 from scipy import stats
 
-from service.engine import compute
 from service.reports.justification import justification
 from service.reports.render import render_report
-from service.schemas import load_question
+from tests.posted import PAIRED, SIMON, SINGLE_RATE, posted, record_of
 from tests.reports.reports_testkit import REQUEST
-
-# The smoking-cessation question of the examples: one group, p 0.35 against 0.2, one-sided.
-SINGLE = {
-    "outcome": "binary",
-    "layout": "single_group",
-    "find": "sample_size",
-    "alternative": "one-sided",
-    "alpha": 0.05,
-    "target_power": 0.8,
-    "effect": {"p": 0.35},
-    "assumptions": {"p_null": 0.2},
-}
-
-
-def _record(raw: dict) -> dict:
-    return compute(load_question(raw))
 
 
 def _page_text(record: dict) -> str:
@@ -47,7 +31,7 @@ def _exact_power(n: int, p: float, p0: float, alpha: float) -> float:
 
 
 def test_exact_binomial_answer_says_it_was_searched_not_rounded():
-    record = _record(dict(SINGLE, analysis="exact_binomial"))
+    record = record_of(posted(SINGLE_RATE, analysis="exact_binomial"))
     n = record["sample_size"]["per_group"][0]
     block = record["sample_size"]["details"]["exact_search"]
     # general-purpose library: scipy's binomial tails give the exact test's power at each n;
@@ -70,7 +54,7 @@ def test_exact_binomial_answer_says_it_was_searched_not_rounded():
 
 
 def test_later_steps_still_round_after_an_exact_search():
-    record = _record(dict(SINGLE, analysis="exact_binomial", adjustments={"dropout": 0.1}))
+    record = record_of(posted(SINGLE_RATE, analysis="exact_binomial", adjustments={"dropout": 0.1}))
     n = record["sample_size"]["steps"][0]["per_group"][0]
     # formula: dropout divides the analyzed size by 1 − 0.1 and rounds up
     assert record["sample_size"]["per_group"] == [math.ceil(n / 0.9 - 1e-9)]
@@ -83,7 +67,7 @@ def test_later_steps_still_round_after_an_exact_search():
 
 
 def test_the_z_test_formula_keeps_its_unrounded_size():
-    record = _record(dict(SINGLE, analysis="z_test"))
+    record = record_of(posted(SINGLE_RATE, analysis="z_test"))
     # formula: Lachin (1981), n = [z_a·√(p0(1 − p0)) + z_b·√(p(1 − p))]² / (p − p0)²
     za, zb = stats.norm.ppf(0.95), stats.norm.ppf(0.8)
     raw = (za * math.sqrt(0.2 * 0.8) + zb * math.sqrt(0.35 * 0.65)) ** 2 / 0.15**2
@@ -96,16 +80,14 @@ def test_the_z_test_formula_keeps_its_unrounded_size():
 
 
 def test_exact_mcnemar_answer_says_it_was_searched():
-    raw = {
-        "outcome": "binary",
-        "layout": "paired",
-        "analysis": "exact_mcnemar",
-        "alpha": 0.05,
-        "target_power": 0.8,
-        "effect": {"p_treatment_only": 0.2},
-        "assumptions": {"p_control_only": 0.08},
-    }
-    record = _record(raw)
+    raw = posted(
+        PAIRED,
+        analysis="exact_mcnemar",
+        target_power=0.8,
+        effect={"p_treatment_only": 0.2},
+        assumptions={"p_control_only": 0.08},
+    )
+    record = record_of(raw)
     n = record["sample_size"]["per_group"][0]
     text = justification(record)
     assert "unrounded" not in text
@@ -126,7 +108,7 @@ def test_enumerated_two_group_answer_says_it_was_searched():
         "effect": {"p_treatment": 0.9},
         "assumptions": {"p_control": 0.9},
     }
-    record = _record(raw)
+    record = record_of(raw)
     n = record["sample_size"]["per_group"][0]
     text = justification(record)
     assert "unrounded" not in text and f"{n}.00" not in text
@@ -137,24 +119,27 @@ def test_enumerated_two_group_answer_says_it_was_searched():
     ) in text
 
 
-def test_simon_design_says_it_was_searched():
-    raw = {
-        "outcome": "binary",
-        "layout": "two_stage",
-        "alpha": 0.05,
-        "target_power": 0.8,
-        "effect": {"p": 0.4},
-        "assumptions": {"p_null": 0.2},
-    }
-    record = _record(raw)
+@pytest.mark.parametrize(
+    "criterion, design, printed",
+    [("optimal", (3, 13, 12, 43), "20.6"), ("minimax", (4, 18, 10, 33), "22.3")],
+)
+def test_simon_design_states_its_maximum_and_expected_size(criterion, design, printed):
+    record = record_of(posted(SIMON, analysis_options={"criterion": criterion}))
+    r1, n1, _, n = design
     # published: Simon (1989), Controlled Clin Trials 10:1, Table 1 (p0 .20, p1 .40, alpha .05,
-    # power .80), optimal design 3/13, 12/43; recomputed by the engine's enumeration.
-    assert record["sample_size"]["per_group"] == [43]
+    # power .80): optimal 3/13, 12/43 with EN(p0) 20.6, minimax 4/18, 10/33 with EN(p0) 22.3;
+    # recomputed by the engine's enumeration, EN(p0) = n1 + (1 − P(X1 ≤ r1 | p0))·(n − n1)
+    # (formula) with scipy's binomial.
+    assert record["sample_size"]["per_group"] == [n]
+    expected = n1 + stats.binom.sf(r1, n1, 0.2) * (n - n1)
+    assert f"{expected:.1f}" == printed
     text = justification(record)
-    assert "unrounded" not in text and "43.00" not in text
+    assert "unrounded" not in text and f"{n}.00" not in text
+    assert "adjustment" not in text  # the stage rules count evaluable patients; none is made
     assert (
-        "43 participants are needed before adjustment (found by exact search: the total size n of "
-        "the design that best meets the design criterion among every two-stage design up to the "
-        "searched maximum)."
+        f"the {criterion} two-stage design enrolls {printed} participants on average when the "
+        f"response rate is the uninteresting one, and at most {n} (found by exact search: the "
+        "total size n of the design that best meets the design criterion among every two-stage "
+        "design up to the searched maximum)."
     ) in text
     assert "unrounded" not in _page_text(record)

@@ -11,20 +11,10 @@ import re
 import pytest
 from scipy import stats
 
-from service.engine import compute
 from service.reports.plots import curve_points, power_curve_svg
 from service.reports.render import render_report
-from service.schemas import load_question
+from tests.posted import SIMON, record_of, simon_posted
 from tests.reports.reports_testkit import REQUEST
-
-PHASE_II = {
-    "outcome": "binary",
-    "layout": "two_stage",
-    "alpha": 0.05,
-    "target_power": 0.8,
-    "effect": {"p": 0.4},
-    "assumptions": {"p_null": 0.2},
-}
 
 
 def _promising(n1: int, r1: int, n: int, r: int, p: float) -> float:
@@ -41,7 +31,7 @@ def _page_text(record: dict, svg: str) -> str:
 
 
 def test_found_design_draws_its_exact_power_against_the_response_rate():
-    record = compute(load_question(dict(PHASE_II, find="sample_size")))
+    record = record_of(SIMON)
     block = record["sample_size"]["details"]["two_stage"]
     # published: Simon (1989), Controlled Clin Trials 10:1, Table 1 (p0 .20, p1 .40, alpha .05,
     # power .80): the optimal design 3/13, 12/43; recomputed by the engine's enumeration.
@@ -81,17 +71,10 @@ def test_found_design_draws_its_exact_power_against_the_response_rate():
 
 @pytest.mark.parametrize("method", ["analytic", "simulation"])
 def test_posted_design_draws_its_own_curve(method):
-    raw = dict(
-        PHASE_II,
-        find="power",
-        sample_size={"per_group": [33]},
-        analysis_options={"stage1_size": 18, "stage1_max_responses": 4, "max_responses": 10},
-        method=method,
-    )
-    raw.pop("target_power")
+    raw = simon_posted(18, 4, 33, 10, method=method)
     if method == "simulation":
         raw["simulation"] = {"replicates": 2000, "seed": 20261202}
-    record = compute(load_question(raw))
+    record = record_of(raw)
     points = curve_points(record)
     low, high = points["marks"]
     # published: Simon (1989), Table 1, the minimax design 4/18, 10/33 for p0 .20 / p1 .40;

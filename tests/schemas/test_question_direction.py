@@ -6,7 +6,7 @@ from __future__ import annotations
 import pytest
 
 from service.schemas import QuestionInvalid, load_question
-from tests.schemas.posted import SURV
+from tests.posted import SURV
 
 # One question per cell with a one-sided option, its assumed effect pointing *lower*.
 LOWER = [

@@ -9,7 +9,7 @@ import math
 import pytest
 
 from service.schemas import QuestionInvalid, load_question
-from tests.schemas.posted import SURV
+from tests.posted import SURV
 
 BASE = {
     "outcome": "continuous",

@@ -8,7 +8,7 @@ import pytest
 from service.engine import designs
 from service.schemas import QuestionSchema, load_question
 from service.schemas.resolve import split_total
-from tests.schemas.posted import SURV
+from tests.posted import SURV
 
 TWO = {"outcome": "continuous", "layout": "two_groups"}
 

@@ -231,6 +231,10 @@ class Phrases:
     # optional record -> sentences on the cell's own answer details (the exact search's two
     # n's, a two-stage design's stage rules), '' when there are none
     details: Callable[[dict], str] | None = None
+    # optional record -> the solved size in the cell's own words, for a cell whose size takes
+    # no adjustment afterwards (a two-stage design's maximum and expected sizes); None: "<n>
+    # participants are needed before adjustment"
+    size: Callable[[dict], str] | None = None
 
 
 @dataclass(frozen=True)

@@ -394,6 +394,17 @@ def _numbers(d: dict) -> str:
     )
 
 
+def size_sentence(record: dict) -> str:
+    """The found design's maximum and expected sizes: its stage rules count evaluable patients
+    and no dropout is added (``_setup`` refuses it), so nothing is "before adjustment"."""
+    block = record["sample_size"]["details"]["two_stage"]
+    return (
+        f"the {block['criterion']} two-stage design enrolls {block['expected_n_null']:.1f} "
+        f"participants on average when the response rate is the uninteresting one, and at most "
+        f"{block['n']}"
+    )
+
+
 def details_sentence(record: dict) -> str:
     """The stage rules in words (a design found, or a posted design's characteristics)."""
     block = ((record.get("sample_size") or {}).get("details") or {}).get("two_stage")
@@ -504,7 +515,10 @@ DESIGN = Design(
     warnings_for=no_warnings,
     simulation=SIMULATION,
     phrases=Phrases(
-        effect=effect_sentence, assumptions=assumptions_sentence, details=details_sentence
+        effect=effect_sentence,
+        assumptions=assumptions_sentence,
+        details=details_sentence,
+        size=size_sentence,
     ),
     example="northbridge_phase2_two_stage.json",
     contrast=_contrast,

@@ -445,6 +445,7 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         f"{fmt_pct(q['target_power'])}, and assuming {assumed_text(q, record)},"
     )
     ev = events_of(record)
+    own = "" if ev else size_words(record)  # the cell's own words for its size, if any
     if ev:
         p = ev["probability"]
         chance = (
@@ -463,7 +464,6 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
         if len(base["per_group"]) > 1:
             body += f" ({fmt_count(sum(base['per_group']))} in total)"
     else:
-        own = size_words(record)
         if own:
             body += f" {own}"
         else:
@@ -488,7 +488,7 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
             f" No further adjustment was applied: {fmt_count(size['total'])} are to be "
             "enrolled in total."
         )
-    if analytic:
+    if analytic and not own:  # a cell's own size words leave its power to its details
         body += f" The power at the analyzed size is {fmt_power(record['power']['estimate'])}."
     if ev and ev.get("calendar_time") is not None:
         body += (
@@ -671,6 +671,18 @@ def size_words(record: dict) -> str:
     phrases = cell(record["question"]).phrases
     words = phrases.size if phrases is not None else None
     return words(record) if words is not None else ""
+
+
+def size_figures(record: dict) -> list[tuple[str, str]]:
+    """The answer's figures in the cell's own words (``Phrases.figures``), [] for the shared."""
+    words = cell(record["question"]).phrases.figures
+    return words(record) if words is not None else []
+
+
+def size_stages(record: dict) -> dict | None:
+    """The cell's table in place of the adjustment steps (``Phrases.stages``), else None."""
+    words = cell(record["question"]).phrases.stages
+    return words(record) if words is not None else None
 
 
 def assurance_sentence(record: dict) -> str:

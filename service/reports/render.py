@@ -260,8 +260,23 @@ def _precision_figures(record: dict) -> list[dict]:
     return figures
 
 
+def _power_label(power: dict) -> str:
+    if power.get("mcse") is None:
+        return "power"
+    lo, hi = power["ci95"]
+    return f"simulated power (95% interval {words.fmt_power(lo)} to {words.fmt_power(hi)})"
+
+
 def _answer_figures(record: dict) -> list[dict]:
     q, size, power = record["question"], record["sample_size"], record["power"]
+    own = words.size_figures(record)
+    if own:  # the cell says what its sizes are; a simulated power is shown beside its own
+        figures = [{"value": value, "label": label} for value, label in own]
+        if power is not None and power.get("mcse") is not None:
+            figures.append(
+                {"value": words.fmt_power(power["estimate"]), "label": _power_label(power)}
+            )
+        return figures
     figures = []
     sizes = size["per_group"]
     if len(sizes) > 1:
@@ -287,12 +302,7 @@ def _answer_figures(record: dict) -> list[dict]:
         )
     if power is None:  # a precision question: the interval's half-width instead
         return figures + _precision_figures(record)
-    if power.get("mcse") is None:
-        label = "power"
-    else:
-        lo, hi = power["ci95"]
-        label = f"simulated power (95% interval {words.fmt_power(lo)} to {words.fmt_power(hi)})"
-    figures.append({"value": words.fmt_power(power["estimate"]), "label": label})
+    figures.append({"value": words.fmt_power(power["estimate"]), "label": _power_label(power)})
     if size.get("clusters_per_group"):
         figures.append(
             {
@@ -304,6 +314,21 @@ def _answer_figures(record: dict) -> list[dict]:
             {"value": words.fmt_num(size["mean_cluster_size"]), "label": "people per cluster"}
         )
     return figures
+
+
+def _steps(record: dict, several: bool) -> dict:
+    """The table after the answer: the cell's own (a two-stage design's stages), else the
+    adjustment steps."""
+    own = words.size_stages(record)
+    if own is not None:
+        return own
+    return {
+        "title": "Adjustment steps",
+        "name_heading": "Step",
+        "caption": _steps_caption(record),
+        "heading": "Per group" if several else "Number",
+        "rows": _step_rows(record),
+    }
 
 
 def _steps_caption(record: dict) -> str:
@@ -604,9 +629,8 @@ def render_report(
             question_rows=question_rows(q, record),
             answer_figures=_answer_figures(record),
             per_group_heading="Per group" if several else "Number",
-            step_rows=_step_rows(record),
+            steps=_steps(record, several),
             interim=interim.table(record),
-            steps_caption=_steps_caption(record),
             justification=words.justification(record, context),
             curve_svg=Markup(curve_svg),
             curve_caption=curve_caption,

@@ -233,8 +233,18 @@ class Phrases:
     details: Callable[[dict], str] | None = None
     # optional record -> the solved size in the cell's own words, for a cell whose size takes
     # no adjustment afterwards (a two-stage design's maximum and expected sizes); None: "<n>
-    # participants are needed before adjustment"
+    # participants are needed before adjustment". With it the shared "The power at the analyzed
+    # size is …" is left out: the cell's ``details`` state its power in its own words.
     size: Callable[[dict], str] | None = None
+    # optional record -> the report's answer figures [(value, label)] in the cell's own words,
+    # for a cell whose answer is not one enrolled number and its power (a two-stage design's
+    # maximum and expected sizes, its exact power and type I error); None: "<N> enrolled in
+    # total" and the power. A simulated power is still shown beside them.
+    figures: Callable[[dict], list[tuple[str, str]]] | None = None
+    # optional record -> the report's table in place of the adjustment steps, for a cell that
+    # takes no adjustment (a two-stage design's stages): {"title", "caption", "name_heading",
+    # "heading", "rows": [{"name", "detail", "result"}]}; None: the adjustment steps
+    stages: Callable[[dict], dict] | None = None
 
 
 @dataclass(frozen=True)

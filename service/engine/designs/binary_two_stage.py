@@ -405,26 +405,102 @@ def size_sentence(record: dict) -> str:
     )
 
 
-def details_sentence(record: dict) -> str:
-    """The stage rules in words (a design found, or a posted design's characteristics)."""
+def _design(record: dict) -> tuple[dict, bool] | None:
+    """The record's design and its exact characteristics, and whether it was found (not
+    posted): the found block of find = sample_size, or a posted design's ``method.derived``."""
     block = ((record.get("sample_size") or {}).get("details") or {}).get("two_stage")
     if block:
-        other = block["other_criterion"]
-        return (
-            f" Simon's {block['criterion']} two-stage design (searched up to n = "
-            f"{block['searched_max_n']}): {_rule_words(block)} (r1/n1 = {block['r1']}/"
-            f"{block['n1']}, r/n = {block['r']}/{block['n']}). Under it, {_numbers(block)}. "
-            f"For comparison, the {other['criterion']} design is {other['r1']}/{other['n1']}, "
-            f"{other['r']}/{other['n']} (expected size {other['expected_n_null']:.1f})."
-        )
+        return block, True
     derived = (record.get("method") or {}).get("derived") or {}
     if "design_n1" in derived:
-        d = {k.removeprefix("design_"): v for k, v in derived.items()}
+        return {k.removeprefix("design_"): v for k, v in derived.items()}, False
+    return None
+
+
+def _rates(record: dict) -> tuple[str, str]:
+    v = values(record["question"], FIELDS)
+    return fmt(v["p_null"]), fmt(v["p"])
+
+
+def answer_figures(record: dict) -> list[tuple[str, str]]:
+    """The design's maximum and expected sizes and its exact power and type I error, each
+    labelled with what it is (the maximum is enrolled only when the study reaches stage 2)."""
+    found = _design(record)
+    if found is None:
+        return []
+    d, _ = found
+    p0, p1 = _rates(record)
+    return [
+        (f"{d['n']:,}", "enrolled at most (when the study continues to stage 2)"),
+        (
+            f"{d['expected_n_null']:.1f}",
+            f"enrolled on average when the true response rate is {p0} (uninteresting)",
+        ),
+        (f"{d['power']:.4f}", f"exact power when the true response rate is {p1} (worth pursuing)"),
+        (
+            f"{d['type_i_error']:.4f}",
+            f"exact type I error when the true response rate is {p0} (uninteresting)",
+        ),
+    ]
+
+
+def stages_table(record: dict) -> dict | None:
+    """The design's two stages, in place of adjustment steps: none is made (dropout is refused
+    in ``_setup``: the stage rules count evaluable patients)."""
+    found = _design(record)
+    if found is None:
+        return None
+    d, searched = found
+    p0, p1 = _rates(record)
+    which = (
+        f"Simon's {d['criterion']} design, found by exact search among every two-stage design "
+        f"up to n = {d['searched_max_n']}."
+        if searched
+        else "The posted design."
+    )
+    return {
+        "title": "Stages",
+        "name_heading": "Stage",
+        "caption": f"{which} No dropout adjustment is made: the stage rules count evaluable "
+        "patients, so replace patients who cannot be evaluated.",
+        "heading": "Patients (cumulative)",
+        "rows": [
+            {
+                "name": "Stage 1",
+                "detail": f"treat n1 = {d['n1']}; stop when r1 = {d['r1']} or fewer respond "
+                f"(probability of stopping {d['pet_null']:.2f} at the uninteresting rate {p0}, "
+                f"{d['pet_alternative']:.2f} at the rate worth pursuing {p1})",
+                "result": f"{d['n1']:,}",
+            },
+            {
+                "name": "Stage 2",
+                "detail": f"treat {d['n'] - d['n1']} more; call the treatment promising when "
+                f"more than r = {d['r']} of the n = {d['n']} respond",
+                "result": f"{d['n']:,}",
+            },
+        ],
+    }
+
+
+def details_sentence(record: dict) -> str:
+    """The stage rules in words (a design found, or a posted design's characteristics)."""
+    found = _design(record)
+    if found is None:
+        return ""
+    d, searched = found
+    if searched:
+        other = d["other_criterion"]
         return (
-            f" The design is to {_rule_words(d)} (r1/n1 = {d['r1']}/{d['n1']}, r/n = "
-            f"{d['r']}/{d['n']}); {_numbers(d)}."
+            f" Simon's {d['criterion']} two-stage design (searched up to n = "
+            f"{d['searched_max_n']}): {_rule_words(d)} (r1/n1 = {d['r1']}/{d['n1']}, r/n = "
+            f"{d['r']}/{d['n']}). Under it, {_numbers(d)}. For comparison, the "
+            f"{other['criterion']} design is {other['r1']}/{other['n1']}, {other['r']}/"
+            f"{other['n']} (expected size {other['expected_n_null']:.1f})."
         )
-    return ""
+    return (
+        f" The design is to {_rule_words(d)} (r1/n1 = {d['r1']}/{d['n1']}, r/n = "
+        f"{d['r']}/{d['n']}); {_numbers(d)}."
+    )
 
 
 # --- the operating characteristic ----------------------------------------------------------------
@@ -519,6 +595,8 @@ DESIGN = Design(
         assumptions=assumptions_sentence,
         details=details_sentence,
         size=size_sentence,
+        figures=answer_figures,
+        stages=stages_table,
     ),
     example="northbridge_phase2_two_stage.json",
     contrast=_contrast,

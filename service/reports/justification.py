@@ -499,8 +499,19 @@ def _sample_size_body(record: dict, context: dict | None, test_level: str) -> st
     return body
 
 
+def _power_words(record: dict) -> str:
+    """'power to detect … is 80.1%.': the record's power against what it detects."""
+    q = record["question"]
+    assumed, verb = assumed_text(q, record), hypothesis_words(q)
+    target = f"{verb} {assumed}" if verb == "to detect" else f"{verb}, assuming {assumed}"
+    return f"power {target} is {fmt_power(record['power']['estimate'])}."
+
+
 def _given_size_body(record: dict, context: dict | None, test_level: str) -> str:
     q, size = record["question"], record["sample_size"]
+    own = size_words(record) if q["find"] == "power" else ""
+    if own:  # the cell says its size itself (a two-stage design's maximum and expected sizes)
+        return f" With {test_level}, {own}, and its {_power_words(record)}" + _source(context)
     analyzed = size.get("analyzed_per_group") or size["per_group"]
     body = f" With {_enrolled(size['per_group'], size['total'], q)}"
     if size.get("clusters_per_group"):
@@ -524,9 +535,7 @@ def _given_size_body(record: dict, context: dict | None, test_level: str) -> str
     # find = effect: the effect is the answer, so "given" names only the assumptions
     assumed = assumed_text(q, record, effect=q["find"] == "power")
     if q["find"] == "power":
-        verb = hypothesis_words(q)
-        target = f"{verb} {assumed}" if verb == "to detect" else f"{verb}, assuming {assumed}"
-        body += f", the power {target} is {fmt_power(record['power']['estimate'])}."
+        body += f", the {_power_words(record)}"
     else:
         eff = record["effect"]
         body += (

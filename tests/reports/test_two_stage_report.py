@@ -95,6 +95,14 @@ def test_posted_design_report_says_its_sizes_and_exact_characteristics(method):
     text = _page_text(record)
     _says_the_design(text, 18, 4, 33, 10, "22.3")
     assert "Stages The posted design." in text
+    words = justification(record)
+    assert "participants enrolled" not in words  # 33 is the most enrolled, not the number
+    assert (
+        "the posted two-stage design enrolls 22.3 participants on average when the response rate "
+        f"is the uninteresting one, and at most 33, and its power to detect a response rate of "
+        f"0.4 worth pursuing with an uninteresting response rate of 0.2 is "
+        f"{100 * record['power']['estimate']:.1f}%."
+    ) in words
     simulated = "simulated power (95% interval"
     if method == "simulation":  # the simulated power is shown beside the exact one
         power = record["power"]

@@ -231,10 +231,11 @@ class Phrases:
     # optional record -> sentences on the cell's own answer details (the exact search's two
     # n's, a two-stage design's stage rules), '' when there are none
     details: Callable[[dict], str] | None = None
-    # optional record -> the solved size in the cell's own words, for a cell whose size takes
-    # no adjustment afterwards (a two-stage design's maximum and expected sizes); None: "<n>
-    # participants are needed before adjustment". With it the shared "The power at the analyzed
-    # size is …" is left out: the cell's ``details`` state its power in its own words.
+    # optional record -> the solved or posted size in the cell's own words, for a cell whose
+    # size takes no adjustment (a two-stage design's maximum and expected sizes); None: "<n>
+    # participants are needed before adjustment" (find = power: "With <n> participants
+    # enrolled"). With it the shared "The power at the analyzed size is …" is left out: the
+    # cell's ``details`` state its power in its own words.
     size: Callable[[dict], str] | None = None
     # optional record -> the report's answer figures [(value, label)] in the cell's own words,
     # for a cell whose answer is not one enrolled number and its power (a two-stage design's

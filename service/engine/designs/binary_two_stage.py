@@ -395,13 +395,17 @@ def _numbers(d: dict) -> str:
 
 
 def size_sentence(record: dict) -> str:
-    """The found design's maximum and expected sizes: its stage rules count evaluable patients
-    and no dropout is added (``_setup`` refuses it), so nothing is "before adjustment"."""
-    block = record["sample_size"]["details"]["two_stage"]
+    """The design's maximum and expected sizes (found or posted): its stage rules count
+    evaluable patients and no dropout is added (``_setup`` refuses it), so nothing is "before
+    adjustment" and the posted n is a maximum, not the number enrolled."""
+    found = _design(record)
+    if found is None:
+        return ""
+    d, searched = found
+    which = f"the {d['criterion']}" if searched else "the posted"
     return (
-        f"the {block['criterion']} two-stage design enrolls {block['expected_n_null']:.1f} "
-        f"participants on average when the response rate is the uninteresting one, and at most "
-        f"{block['n']}"
+        f"{which} two-stage design enrolls {d['expected_n_null']:.1f} participants on average "
+        f"when the response rate is the uninteresting one, and at most {d['n']}"
     )
 
 

@@ -6,7 +6,10 @@ example), invented."""
 from __future__ import annotations
 
 import html
+import json
 import re
+import subprocess
+import sys
 
 import pytest
 from scipy import stats
@@ -19,9 +22,12 @@ from tests.reports.reports_testkit import REQUEST
 P0, P1 = 0.2, 0.4
 
 
-def _page_text(record: dict) -> str:
-    page = render_report(REQUEST, record, curve_svg="<svg></svg>")
+def _text(page: str) -> str:
     return re.sub(r"\s+", " ", html.unescape(re.sub(r"<[^>]+>", " ", page)))
+
+
+def _page_text(record: dict) -> str:
+    return _text(render_report(REQUEST, record, curve_svg="<svg></svg>"))
 
 
 def _promising(n1: int, r1: int, n: int, r: int, p: float) -> float:
@@ -112,3 +118,20 @@ def test_posted_design_report_says_its_sizes_and_exact_characteristics(method):
         ) in text
     else:
         assert simulated not in text
+
+
+def test_cli_report_says_the_same(tmp_path):
+    """`sizewise report` writes the page the service serves, with the same words."""
+    # published: Simon (1989), Table 1, the optimal design 3/13, 12/43 (EN(p0) 20.6)
+    record = record_of(SIMON)
+    path = tmp_path / "simon.json"
+    path.write_text(json.dumps(record), encoding="utf-8")
+    done = subprocess.run(
+        [sys.executable, "-m", "service.cli", "report", str(path), "--out", str(tmp_path)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert done.returncode == 0, done.stderr
+    page = open(done.stdout.strip().splitlines()[-1], encoding="utf-8").read()
+    _says_the_design(_text(page), 13, 3, 43, 12, "20.6")

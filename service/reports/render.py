@@ -163,6 +163,9 @@ def _enrolled_rows(q: dict) -> list[tuple[str, str]]:
     if not q.get("sample_size"):
         return []
     sizes = q["sample_size"].get("per_group") or []
+    own = describe.cell(q).phrases.enrolled  # a size that is not simply the number enrolled
+    if sizes and own:
+        return [(own, _per_group_text(sizes))]
     if sizes:
         return [("Enrolled per group" if len(sizes) > 1 else "Enrolled", _per_group_text(sizes))]
     return [("Enrolled in total", words.fmt_count(q["sample_size"]["total"]))]

@@ -246,6 +246,9 @@ class Phrases:
     # takes no adjustment (a two-stage design's stages): {"title", "caption", "name_heading",
     # "heading", "rows": [{"name", "detail", "result"}]}; None: the adjustment steps
     stages: Callable[[dict], dict] | None = None
+    # optional: the report's label of a posted size (find = power) when it is not simply the
+    # number enrolled (a two-stage design's n is reached only in stage 2); None: "Enrolled"
+    enrolled: str | None = None
 
 
 @dataclass(frozen=True)

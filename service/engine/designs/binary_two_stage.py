@@ -601,6 +601,7 @@ DESIGN = Design(
         size=size_sentence,
         figures=answer_figures,
         stages=stages_table,
+        enrolled="Total size n (enrolled at most, when the study continues to stage 2)",
     ),
     example="northbridge_phase2_two_stage.json",
     contrast=_contrast,

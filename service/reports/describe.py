@@ -109,6 +109,13 @@ def size_search(record: dict) -> str | None:
     return f"found by exact search: {words}" if words else None
 
 
+def analytic_words(record: dict) -> str:
+    """What the analytic answer beside a simulation is: an exact enumeration for an analysis
+    whose sizes come from an exact search, else a formula."""
+    analysis = _analysis(record["question"], record)
+    return "exact enumeration" if getattr(analysis, "size_search", None) else "analytic formula"
+
+
 def _fields(design) -> dict:
     return {f.name: f for f in design.fields}
 

@@ -14,6 +14,7 @@ from service.engine import simulate
 from . import interim
 from .describe import (
     analysis_label,
+    analytic_words,
     assumed_text,
     assumptions_text,
     cell,
@@ -364,7 +365,10 @@ def _simulation(record: dict) -> str:
         text += " The size was accepted only when the lower 95% bound reached the target power."
     if power.get("analytic") is not None:
         where = "the simulated effect" if what == "effect" else "the same size"
-        text += f" The analytic formula gives a power of {fmt_power(power['analytic'])} at {where}."
+        text += (
+            f" The {analytic_words(record)} gives a power of {fmt_power(power['analytic'])} at "
+            f"{where}."
+        )
     t1 = record.get("type_i_error")
     if t1:
         text += (

@@ -118,6 +118,12 @@ def test_posted_design_report_says_its_sizes_and_exact_characteristics(method):
         assert (
             f"{100 * power['estimate']:.1f}% simulated power (95% interval {lo} to {hi})"
         ) in text
+        # the analytic power beside a simulation is an exact binomial sum here, not a formula
+        exact = _promising(18, 4, 33, 10, P1)
+        assert (
+            f"The exact enumeration gives a power of {100 * exact:.1f}% at the same size." in words
+        )
+        assert "analytic formula" not in words
     else:
         assert simulated not in text
 

@@ -9,13 +9,13 @@ from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import exists, func, select
 from sqlalchemy.orm import Session
 
 from service import jsonlog
 
 from .audit import add_with_event, append_event, content_hash, events_for
-from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
+from .models import ENDED_STATUSES, AuditEvent, Exploration, Request, Rerun, Result
 from .paging import Key, keyset_page
 from .types import utcnow
 
@@ -165,6 +165,31 @@ def get_request(session: Session, request_id: str) -> Request | None:
 def result_for(session: Session, request_id: str) -> Result | None:
     """Return the stored original result of a request, if any."""
     return session.scalar(select(Result).where(Result.request_id == request_id))
+
+
+@dataclass(frozen=True)
+class Present:
+    """Which of a request's result, reruns and explorations exist."""
+
+    result: bool
+    reruns: bool
+    explorations: bool
+
+
+def present(session: Session, request_id: str) -> Present:
+    """Which of the request's result, reruns and explorations exist, in one query.
+
+    A request being polled while it runs has none of them: its full view then reads the
+    request and its history only, not three more empty lists.
+    """
+    row = session.execute(
+        select(
+            exists().where(Result.request_id == request_id),
+            exists().where(Rerun.request_id == request_id),
+            exists().where(Exploration.request_id == request_id),
+        )
+    ).one()
+    return Present(*(bool(flag) for flag in row))
 
 
 def history(session: Session, request_id: str) -> list[AuditEvent]:

@@ -162,6 +162,7 @@ TOKEN_CACHE_SECONDS = 1.0
 TOKEN_CACHE_SIZE = 4096
 TOKEN_CACHE = "token_cache"
 REQUEST_OWNERS = "request_owners"
+REQUEST_OWNERS_SIZE = 4096
 
 
 class TokenCache:
@@ -256,7 +257,7 @@ def _request_owner(request_id: str) -> str | None:
         with session_scope(sessions()) as session:
             owner = session.scalar(select(Request.submitted_by).where(Request.id == request_id))
         if owner is not None:
-            if len(owners) >= TOKEN_CACHE_SIZE:
+            if len(owners) >= REQUEST_OWNERS_SIZE:
                 owners.clear()  # stay bounded
             owners[request_id] = owner
     return owner

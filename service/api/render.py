@@ -72,9 +72,14 @@ def _fields(row: Request) -> dict[str, Any]:
     }
 
 
-def request_detail(session: Session, row: Request) -> dict:
-    """Return the full request: result record, history and a reruns summary."""
-    present = store.present(session, row.id)
+def request_detail(session: Session, row: Request, present: store.Present | None = None) -> dict:
+    """Return the full request: result record, history and a reruns summary.
+
+    ``present`` says which of its result, reruns and explorations exist when the caller read it
+    with the row (``store.request_and_present``); else it is read here.
+    """
+    if present is None:
+        present = store.present(session, row.id)
     result = store.result_for(session, row.id) if present.result else None
     reruns = store.reruns_for(session, row.id) if present.reruns else []
     data = _base(row)

@@ -185,17 +185,26 @@ def present(session: Session, request_id: str) -> Present:
     A request being polled while it runs has none of them: its full view then reads the
     request and its history only, not three more empty lists.
     """
-    row = session.execute(_PRESENT, {"request_id": request_id}).one()
-    return Present(*(bool(flag) for flag in row))
+    return Present(*(bool(flag) for flag in session.execute(_PRESENT, {"id": request_id}).one()))
 
 
-# Built once (as the other statements of a request's view): constructing the three subqueries
-# cost more than running them.
-_PRESENT = select(
-    exists().where(Result.request_id == bindparam("request_id")),
-    exists().where(Rerun.request_id == bindparam("request_id")),
-    exists().where(Exploration.request_id == bindparam("request_id")),
+def request_and_present(session: Session, request_id: str) -> tuple[Request, Present] | None:
+    """The request ``request_id`` and which of its children exist (one query), or None."""
+    row = session.execute(_REQUEST_AND_PRESENT, {"id": request_id}).one_or_none()
+    if row is None:
+        return None
+    return row[0], Present(*(bool(flag) for flag in row[1:]))
+
+
+# Built once (as the other statements of a request's view): constructing the subqueries cost
+# more than running them. Each is correlated with the request row the statement reads.
+_CHILDREN = (
+    exists().where(Result.request_id == Request.id),
+    exists().where(Rerun.request_id == Request.id),
+    exists().where(Exploration.request_id == Request.id),
 )
+_PRESENT = select(*_CHILDREN).where(Request.id == bindparam("id"))
+_REQUEST_AND_PRESENT = select(Request, *_CHILDREN).where(Request.id == bindparam("id"))
 
 
 def history(session: Session, request_id: str) -> list[AuditEvent]:

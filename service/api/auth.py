@@ -46,6 +46,7 @@ from flask_limiter.util import get_remote_address
 from limits import parse as parse_limit
 from limits.storage import MemoryStorage
 from limits.strategies import FixedWindowRateLimiter
+from sqlalchemy import select
 from werkzeug.wrappers import Response
 
 from service.engine import EngineError, estimate_cost
@@ -160,6 +161,8 @@ BUDGET_WINDOW = timedelta(hours=1)
 TOKEN_CACHE_SECONDS = 1.0
 TOKEN_CACHE_SIZE = 4096
 TOKEN_CACHE = "token_cache"
+REQUEST_OWNERS = "request_owners"
+REQUEST_OWNERS_SIZE = 4096
 
 
 class TokenCache:
@@ -239,14 +242,33 @@ def _bearer_secret() -> str:
     return secret.strip()
 
 
+def _request_owner(request_id: str) -> str | None:
+    """The token that submitted ``request_id`` (None for an unknown id), remembered per process.
+
+    A request's submitter never changes (it is part of the hash its 'submitted' event holds) and
+    requests are never deleted, so an intake form polling its request costs no query here after
+    the first. Unknown ids are not remembered.
+    """
+    from flask import current_app
+
+    owners = current_app.extensions["sizewise"][REQUEST_OWNERS]
+    owner = owners.get(request_id)
+    if owner is None and _REQUEST_ID.fullmatch(request_id):
+        with session_scope(sessions()) as session:
+            owner = session.scalar(select(Request.submitted_by).where(Request.id == request_id))
+        if owner is not None:
+            if len(owners) >= REQUEST_OWNERS_SIZE:
+                owners.clear()  # stay bounded
+            owners[request_id] = owner
+    return owner
+
+
 def _check_owner(caller: Caller) -> None:
     """Answer 404 when an intake token names a request it did not submit."""
     request_id = (request.view_args or {}).get("request_id")
     if caller.role != INTAKE or not isinstance(request_id, str):
         return
-    with session_scope(sessions()) as session:
-        row = session.get(Request, request_id) if _REQUEST_ID.fullmatch(request_id) else None
-        owner = row.submitted_by if row is not None else None
+    owner = _request_owner(request_id)
     # Unknown ids fall through to the view, which answers the same 404 with its own checks.
     if owner is not None and owner != caller.token_id:
         raise NotFound(f"no request with id '{request_id}'")
@@ -548,6 +570,7 @@ def init_auth(app: Flask) -> Limiter:
     config = app.extensions["sizewise"]["config"]
     app.extensions["sizewise"]["link_key"] = link_key(config)
     app.extensions["sizewise"][TOKEN_CACHE] = TokenCache()
+    app.extensions["sizewise"][REQUEST_OWNERS] = {}
     limiter = Limiter(
         rate_limit_key,
         application_limits=[str(config["RATE_LIMIT"])],

@@ -7,15 +7,19 @@ the API lives.
 
 from __future__ import annotations
 
-from flask import request, url_for
+from flask import g, request, url_for
 
 from .context import settings
 
 
 def public_base() -> str:
     """The base URL of the API, without a trailing slash."""
-    configured = str(settings().get("PUBLIC_URL") or "").rstrip("/")
-    return configured or request.host_url.rstrip("/")
+    base = g.get("public_base")
+    if base is None:
+        # Once per HTTP request: a request's view holds five links, each built on this base.
+        configured = str(settings().get("PUBLIC_URL") or "").rstrip("/")
+        base = g.public_base = configured or request.host_url.rstrip("/")
+    return base
 
 
 def absolute(path: str) -> str:

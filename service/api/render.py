@@ -72,10 +72,16 @@ def _fields(row: Request) -> dict[str, Any]:
     }
 
 
-def request_detail(session: Session, row: Request) -> dict:
-    """Return the full request: result record, history and a reruns summary."""
-    result = store.result_for(session, row.id)
-    reruns = store.reruns_for(session, row.id)
+def request_detail(session: Session, row: Request, present: store.Present | None = None) -> dict:
+    """Return the full request: result record, history and a reruns summary.
+
+    ``present`` says which of its result, reruns and explorations exist when the caller read it
+    with the row (``store.request_and_present``); else it is read here.
+    """
+    if present is None:
+        present = store.present(session, row.id)
+    result = store.result_for(session, row.id) if present.result else None
+    reruns = store.reruns_for(session, row.id) if present.reruns else []
     data = _base(row)
     data["result"] = result.record if result is not None else None
     data["history"] = store.history(session, row.id)
@@ -85,7 +91,9 @@ def request_detail(session: Session, row: Request) -> dict:
         "different": sum(1 for r in reruns if r.identical is False),
         "latest": reruns[-1] if reruns else None,
     }
-    data["explorations"] = exploration_store.explorations_for(session, row.id)
+    data["explorations"] = (
+        exploration_store.explorations_for(session, row.id) if present.explorations else []
+    )
     return _DETAIL.dump(data)
 
 

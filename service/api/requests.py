@@ -42,7 +42,7 @@ from .identity import current_actor, current_caller, submitter
 from .io import load_body, raw_json_body, reject_query
 from .pagination import PageArgsSchema, page_args, page_body
 from .publishing import answer_in, publish_explorations, publish_job
-from .views import load_request, located, visible_request_page
+from .views import load_request, load_request_and_present, located, visible_request_page
 
 bp = Blueprint("requests", __name__, url_prefix="/v1")
 
@@ -239,7 +239,7 @@ def get_request(request_id: str):
     """Return the request with its result record (or null) and its audit history."""
     reject_query()
     with session_scope(sessions()) as session:
-        body = render.request_detail(session, load_request(session, request_id))
+        body = render.request_detail(session, *load_request_and_present(session, request_id))
     return conditional(jsonify(body))
 
 

@@ -26,8 +26,21 @@ def load_request(session: Session, request_id: str) -> Request:
     """Return the request ``request_id`` or raise 404; a malformed id is not looked up."""
     row = store.get_request(session, request_id) if _ID_PATTERN.fullmatch(request_id) else None
     if row is None:
-        raise NotFound(f"no request with id '{request_id}'")
+        raise _not_found(request_id)
     return row
+
+
+def load_request_and_present(session: Session, request_id: str) -> tuple[Request, store.Present]:
+    """The request and which of its children exist (one query), or 404 as ``load_request``."""
+    well_formed = _ID_PATTERN.fullmatch(request_id)
+    found = store.request_and_present(session, request_id) if well_formed else None
+    if found is None:
+        raise _not_found(request_id)
+    return found
+
+
+def _not_found(request_id: str) -> NotFound:
+    return NotFound(f"no request with id '{request_id}'")
 
 
 def visible_request_page() -> dict:

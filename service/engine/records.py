@@ -56,8 +56,19 @@ def size_warnings(record: dict) -> list[str]:
     ]
 
 
+_LEAVES = frozenset({str, int, bool, type(None)})
+
+
 def _plain(value: Any) -> Any:
     """Convert numpy scalars/arrays and tuples to JSON types; reject NaN and infinity."""
+    kind = type(value)
+    # Most of a record is already plain: answer those without the numpy (ABC) checks below.
+    if kind in _LEAVES:
+        return value
+    if kind is float:
+        if not math.isfinite(value):
+            raise ValueError(f"non-finite number {value!r} in a result record")
+        return value
     if isinstance(value, dict):
         return {str(k): _plain(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
@@ -83,24 +94,37 @@ def plain(value: Any) -> Any:
 
 def canonical_json(value: Any) -> str:
     """Serialise to the one canonical form that is hashed: sorted keys, no spaces, UTF-8."""
+    return _canonical(_plain(value))
+
+
+def _canonical(plain_value: Any) -> str:
     return json.dumps(
-        _plain(value), sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
+        plain_value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
     )
 
 
 def record_hash(record: dict) -> str:
     """SHA-256 of the canonical JSON of a record without its own ``record_sha256`` field."""
+    return _hash(_plain(_without_hash(record)))
+
+
+def _without_hash(record: dict) -> dict:
     body = {k: v for k, v in record.items() if k != "reproducibility"}
     repro = {k: v for k, v in record.get("reproducibility", {}).items() if k != "record_sha256"}
     body["reproducibility"] = repro
-    return hashlib.sha256(canonical_json(body).encode("utf-8")).hexdigest()
+    return body
+
+
+def _hash(plain_body: dict) -> str:
+    return hashlib.sha256(_canonical(plain_body).encode("utf-8")).hexdigest()
 
 
 def seal(record: dict) -> dict:
     """Return the record as plain JSON types with ``reproducibility.record_sha256`` filled in."""
     record = _plain(record)
     record.setdefault("reproducibility", {})
-    record["reproducibility"]["record_sha256"] = record_hash(record)
+    # Already plain: hashed as it stands (record_hash would convert it a second time).
+    record["reproducibility"]["record_sha256"] = _hash(_without_hash(record))
     return record
 
 

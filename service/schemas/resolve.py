@@ -16,7 +16,7 @@ from service.engine.errors import QuestionError
 from service.engine.models import check_arm
 
 from .fields import posted
-from .shared import shared
+from .shared import defaults
 
 
 def default_alpha(aim: str, design: Any = None) -> float:
@@ -80,7 +80,7 @@ def analysis(design: Any, method_: str, aim: str, blocks: dict, data: dict) -> s
 def _hypothesis_default() -> dict:
     from .blocks import HypothesisSchema
 
-    return shared(HypothesisSchema).load({})
+    return defaults(HypothesisSchema)
 
 
 def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
@@ -115,7 +115,7 @@ def normalize(design: Any, data: dict, raw: Mapping, blocks: dict) -> dict:
         else data["allocation_ratio"],
         "allocation_rounding": data.get("allocation_rounding") or "each_group",
         "sample_size": None,
-        "adjustments": data.get("adjustments") or shared(AdjustmentsSchema).load({}),
+        "adjustments": data.get("adjustments") or defaults(AdjustmentsSchema),
         "method": how,
         "simulation": sim,
     }

@@ -31,6 +31,8 @@ class Context:
     design: Any = None
     errors: dict = field(default_factory=dict)
     cell: Cell | None = None
+    # The question as normalization would give it, built once (see _partial).
+    partial: dict | None = field(default=None, repr=False)
 
     @property
     def find(self) -> str | None:
@@ -351,8 +353,14 @@ def _asked_analysis_fits(ctx: Context, chosen: Any, method: str) -> None:
 
 
 def _partial(ctx: Context) -> dict:
-    """The question as normalization would give it (called once the cell's fields hold)."""
-    return resolve.normalize(ctx.design, ctx.data, ctx.raw, _blocks(ctx))
+    """The question as normalization would give it (called once the cell's fields hold).
+
+    Built on the first call and shared by the rules after it, which only read it: nothing
+    it depends on (the posted and loaded data, the checked cell) changes during the checks.
+    """
+    if ctx.partial is None:
+        ctx.partial = resolve.normalize(ctx.design, ctx.data, ctx.raw, _blocks(ctx))
+    return ctx.partial
 
 
 def _blocks(ctx: Context) -> dict:

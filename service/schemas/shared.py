@@ -7,6 +7,7 @@ one instance serves every thread.
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Callable
 from functools import lru_cache, wraps
 from typing import Any, TypeVar
@@ -24,6 +25,20 @@ def _instance(cls: type[Schema], options: tuple[tuple[str, Any], ...]) -> Schema
 def shared(cls: type[S], **options: Any) -> S:
     """The process's instance of ``cls(**options)`` (options must be hashable)."""
     return _instance(cls, tuple(sorted(options.items())))  # type: ignore[return-value]
+
+
+@lru_cache(maxsize=64)
+def _defaults(cls: type[Schema]) -> Any:
+    return shared(cls).load({})
+
+
+def defaults(cls: type[Schema]) -> Any:
+    """What ``shared(cls).load({})`` returns (the block's defaults), loaded once per process.
+
+    Normalization asks for the hypothesis and adjustments defaults several times per question;
+    each caller gets its own deep copy, so changing it never reaches the next question.
+    """
+    return copy.deepcopy(_defaults(cls))
 
 
 def per_design(build: Callable[..., S]) -> Callable[..., S]:

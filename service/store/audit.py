@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from typing import TypeVar
 
-from sqlalchemy import select, text
+from sqlalchemy import bindparam, select, text
 from sqlalchemy.orm import Session
 
 from .chain import chain_hash
@@ -98,11 +98,15 @@ def add_with_event(
 
 def events_for(session: Session, request_id: str) -> list[AuditEvent]:
     """Return a request's events, oldest first."""
-    return list(
-        session.scalars(
-            select(AuditEvent).where(AuditEvent.request_id == request_id).order_by(AuditEvent.id)
-        )
-    )
+    return list(session.scalars(_EVENTS_OF_REQUEST, {"request_id": request_id}))
+
+
+# Built once: a request's history is read on every poll of it.
+_EVENTS_OF_REQUEST = (
+    select(AuditEvent)
+    .where(AuditEvent.request_id == bindparam("request_id"))
+    .order_by(AuditEvent.id)
+)
 
 
 def verify_chain(session: Session) -> list[int]:

@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import os
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import make_url
+from sqlalchemy.exc import DisconnectionError
 from sqlalchemy.orm import Session, sessionmaker
 
 
@@ -47,8 +49,40 @@ def private_sqlite_file(database: str | None) -> None:
             pass
 
 
+# A pooled server connection back in the pool for less than this is used without a ping first.
+PING_AFTER_IDLE_SECONDS = 1.0
+
+
+def ping_when_idle(engine: Engine, idle_seconds: float = PING_AFTER_IDLE_SECONDS) -> None:
+    """Ping a pooled connection at checkout only when it sat idle ``idle_seconds`` or more.
+
+    SQLAlchemy's pool_pre_ping pings at every checkout: a round trip and about 0.2 ms of CPU on
+    each API call, a tenth of a poll of a running request. A connection used within the last
+    second is alive unless the server restarted in that second; then the first statement on it
+    fails, SQLAlchemy sees the disconnect and drops the pool's connections, and the next call
+    connects afresh. A dead connection found by the ping is replaced before use (the pool
+    retries the checkout on DisconnectionError).
+    """
+
+    @event.listens_for(engine, "checkin")
+    def _checked_in(_dbapi_connection, record) -> None:
+        if record is not None:
+            record.info["checked_in"] = time.monotonic()
+
+    @event.listens_for(engine, "checkout")
+    def _checked_out(dbapi_connection, record, _proxy) -> None:
+        # A new connection (or one invalidated and reconnected) has an empty info: just made.
+        since = record.info.get("checked_in")
+        if since is None or time.monotonic() - since < idle_seconds:
+            return
+        try:
+            engine.dialect.do_ping(dbapi_connection)
+        except Exception as exc:
+            raise DisconnectionError("the pooled connection did not answer a ping") from exc
+
+
 def make_engine(url: str) -> Engine:
-    """Create an Engine for ``url``: SQLite with WAL and busy_timeout, PostgreSQL with pre-ping."""
+    """Create an Engine for ``url``: SQLite with WAL and busy_timeout, PostgreSQL pinged when idle."""
     parsed = make_url(url)
     if parsed.get_backend_name() == "sqlite":
         private_sqlite_file(parsed.database)
@@ -59,7 +93,9 @@ def make_engine(url: str) -> Engine:
     if parsed.get_backend_name() == "postgresql":
         # A dead or firewalled server must not hang a request (or /readyz) for minutes.
         connect_args["connect_timeout"] = 3
-    return create_engine(url, pool_pre_ping=True, connect_args=connect_args)
+    engine = create_engine(url, connect_args=connect_args)
+    ping_when_idle(engine)
+    return engine
 
 
 def make_sessionmaker(engine: Engine) -> sessionmaker[Session]:

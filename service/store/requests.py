@@ -9,13 +9,13 @@ from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import bindparam, exists, func, select
 from sqlalchemy.orm import Session
 
 from service import jsonlog
 
 from .audit import add_with_event, append_event, content_hash, events_for
-from .models import ENDED_STATUSES, AuditEvent, Request, Rerun, Result
+from .models import ENDED_STATUSES, AuditEvent, Exploration, Request, Rerun, Result
 from .paging import Key, keyset_page, of_request, page_of_request
 from .types import utcnow
 
@@ -164,7 +164,47 @@ def get_request(session: Session, request_id: str) -> Request | None:
 
 def result_for(session: Session, request_id: str) -> Result | None:
     """Return the stored original result of a request, if any."""
-    return session.scalar(select(Result).where(Result.request_id == request_id))
+    return session.scalar(_RESULT_OF_REQUEST, {"request_id": request_id})
+
+
+_RESULT_OF_REQUEST = select(Result).where(Result.request_id == bindparam("request_id"))
+
+
+@dataclass(frozen=True)
+class Present:
+    """Which of a request's result, reruns and explorations exist."""
+
+    result: bool
+    reruns: bool
+    explorations: bool
+
+
+def present(session: Session, request_id: str) -> Present:
+    """Which of the request's result, reruns and explorations exist, in one query.
+
+    A request being polled while it runs has none of them: its full view then reads the
+    request and its history only, not three more empty lists.
+    """
+    return Present(*(bool(flag) for flag in session.execute(_PRESENT, {"id": request_id}).one()))
+
+
+def request_and_present(session: Session, request_id: str) -> tuple[Request, Present] | None:
+    """The request ``request_id`` and which of its children exist (one query), or None."""
+    row = session.execute(_REQUEST_AND_PRESENT, {"id": request_id}).one_or_none()
+    if row is None:
+        return None
+    return row[0], Present(*(bool(flag) for flag in row[1:]))
+
+
+# Built once (as the other statements of a request's view): constructing the subqueries cost
+# more than running them. Each is correlated with the request row the statement reads.
+_CHILDREN = (
+    exists().where(Result.request_id == Request.id),
+    exists().where(Rerun.request_id == Request.id),
+    exists().where(Exploration.request_id == Request.id),
+)
+_PRESENT = select(*_CHILDREN).where(Request.id == bindparam("id"))
+_REQUEST_AND_PRESENT = select(Request, *_CHILDREN).where(Request.id == bindparam("id"))
 
 
 def history(session: Session, request_id: str) -> list[AuditEvent]:

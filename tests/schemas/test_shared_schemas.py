@@ -68,3 +68,15 @@ def test_concurrent_loads_through_shared_instances_match_fresh_sequential_loads(
     assert len(got) == len(expected) > 30
     assert got == expected
     assert {kind for kind, _ in got} == {"ok", "invalid"}
+
+
+def test_each_load_returns_its_own_question_and_defaults():
+    # Defaults are loaded once per process (shared.defaults) and the checks' normalized question
+    # is handed to the post-load step: neither may let one answer's changes reach the next.
+    raw = _questions()[0]
+    first = load_question(copy.deepcopy(raw))
+    expected = copy.deepcopy(first)
+    first["hypothesis"]["aim"] = "changed"
+    first["adjustments"]["dropout"] = 0.5
+    first["effect"].clear()
+    assert load_question(copy.deepcopy(raw)) == expected

@@ -4,6 +4,7 @@ equivalence (TOST); the rank-sum test by Noether under the normal model."""
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
 from scipy import integrate, special, stats
 
@@ -249,23 +250,37 @@ def ancova_se_df(q: dict, n1: float, n2: float) -> tuple[float, float]:
 
 def _power_at(q: dict, delta: float, n1: float, n2: float, alpha: float) -> float:
     """Return the power for true difference ``delta`` at n1 (control) and n2 (treatment)."""
+    return _power_curve(q, alpha)(delta, n1, n2)
+
+
+def _power_curve(q: dict, alpha: float) -> Callable[[float, float, float], float]:
+    """The power at (delta, n1, n2) of the question's test at ``alpha``, its settings read once.
+
+    The sample-size search evaluates the curve a dozen times; reading the analysis, SDs and
+    hypothesis from the question each time cost as much as the noncentral t itself.
+    """
     analysis = _analysis(q)
     s1, s2 = sds(q)
-    if analysis == "rank_sum":
-        return noether.power_at(_p_sup(delta, s1, s2), n1, n2, alpha, tails(q))
-    if analysis == "ancova":
-        se, df = ancova_se_df(q, n1, n2)
-        if not math.isfinite(se):
-            return 0.0
-    else:
-        se, df = _se_df(analysis == "welch_t", s1, s2, n1, n2)
+    sides = tails(q)
     aim, margin, higher = hypothesis(q)
-    if aim == "superiority":
-        return t_power(abs(delta) / se, df, alpha, tails(q))
-    if aim == "noninferiority":
-        sign = 1.0 if higher else -1.0
-        return t_power(sign * (delta - margin) / se, df, alpha, 1)
-    return tost_power(delta, se, margin, df, alpha)
+
+    def at(delta: float, n1: float, n2: float) -> float:
+        if analysis == "rank_sum":
+            return noether.power_at(_p_sup(delta, s1, s2), n1, n2, alpha, sides)
+        if analysis == "ancova":
+            se, df = ancova_se_df(q, n1, n2)
+            if not math.isfinite(se):
+                return 0.0
+        else:
+            se, df = _se_df(analysis == "welch_t", s1, s2, n1, n2)
+        if aim == "superiority":
+            return t_power(abs(delta) / se, df, alpha, sides)
+        if aim == "noninferiority":
+            sign = 1.0 if higher else -1.0
+            return t_power(sign * (delta - margin) / se, df, alpha, 1)
+        return tost_power(delta, se, margin, df, alpha)
+
+    return at
 
 
 def _check_effect(q: dict, delta: float) -> None:
@@ -315,8 +330,9 @@ def solve_n(q: dict, alpha: float) -> Solution:
             _p_sup(delta, s1, s2), allocation(q), alpha, tails(q), target
         )
         return Solution(per_group=per_group, details=details)
+    at = _power_curve(q, alpha)
     n1 = solve_n_or_raise(
-        lambda n: _power_at(q, delta, n, r * n, alpha),
+        lambda n: at(delta, n, r * n),
         target,
         max(2.5, 2.5 / r) if _analysis(q) == "ancova" else max(1.5, 1.5 / r),
         field="effect.difference",

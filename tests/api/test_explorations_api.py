@@ -73,6 +73,7 @@ def test_explorations_and_effect_source_posted_with_the_request_run_after_it(app
         assert cell["per_group"] == [_n_per_group(d)] * 2, cell
     # published 64 per group at d = 0.5: Cohen 1988, Table 2.4.1
     assert grid["base"]["per_group"] == [64, 64]
+    assert panel["seed"] == 20261202
     normal = next(d for d in panel["departures"] if d["name"] == "normal")
     assert panel["per_group"] == [64, 64]
     power = TTestIndPower().power(effect_size=0.5, nobs1=64, alpha=0.05, ratio=1.0)
@@ -281,7 +282,15 @@ def test_a_simulated_grid_keeps_the_requests_seed_in_every_cell(app, client, api
 
 
 def test_type_i_error_of_the_normal_departure_holds_alpha(app, client, api):
-    body = api.request_body(QUESTION)
+    # A simulated question lends the panel its seed, so the draws (and this check) are fixed;
+    # an analytic one would have the panel draw a fresh seed each run.
+    question = question_body(
+        find="power",
+        sample_size={"per_group": [64, 64]},
+        method="simulation",
+        simulation={"replicates": 2000, "seed": 20261202},
+    )
+    body = api.request_body(question)
     request_id = api.submit(body).get_json()["id"]
     _compute(app, request_id)
     exploration_id = api.post(
@@ -289,6 +298,7 @@ def test_type_i_error_of_the_normal_departure_holds_alpha(app, client, api):
     ).get_json()["id"]
     assert run_exploration_job(exploration_id, _config(app)) == "done"
     panel = _explorations(client, request_id)[0]["result"]
+    assert panel["seed"] == 20261202
     normal = next(d for d in panel["departures"] if d["name"] == "normal")
     # The t test holds its size under normal data: 0.05 within a binomial 99.9% band
     # (formula; scipy.stats.binom).

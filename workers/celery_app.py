@@ -5,7 +5,7 @@ Every Celery setting lives in :func:`celery_settings`, one dict, so the queue's 
 read (and tested) in one place. Our database is the source of truth: results are not stored in
 Celery, tasks take an id only, and every task is safe to run twice.
 
-Imports run one way only: sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ←
+Imports run one way only: warm, sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ←
 exploration_tasks (tests/workers/test_imports.py). This module imports no other worker module;
 the worker imports the tasks through ``include``.
 """
@@ -116,7 +116,12 @@ def make_celery(config: dict) -> Celery:
     """Build the Celery app for ``config`` (the dict from service.config.load_config())."""
     app = Celery(
         "sizewise",
-        include=["workers.tasks", "workers.exploration_tasks", "workers.webhook_tasks"],
+        include=[
+            "workers.tasks",
+            "workers.exploration_tasks",
+            "workers.webhook_tasks",
+            "workers.warm",
+        ],
     )
     app.conf.update(celery_settings(config))
     # The tasks read the service config from here (database URL, lease, budget).

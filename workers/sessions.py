@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+import logging
 import os
 import threading
 from typing import Any
 
 from celery.signals import worker_init, worker_process_init
+from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import sessionmaker
 
 from service.store.db import make_engine, make_sessionmaker
+
+log = logging.getLogger(__name__)
 
 _SESSIONS: dict[tuple[int, str], Any] = {}
 _SESSIONS_LOCK = threading.Lock()
@@ -42,7 +46,16 @@ def _load_database_driver(sender=None, **_kwargs) -> None:
 
 @worker_process_init.connect
 def _forget_parent_connections(**_kwargs) -> None:
-    """A forked pool process must not reuse the parent's pooled connections."""
+    """A forked pool process must not reuse the parent's pooled connections; it opens its own
+    first connection now, not inside its first task (a helper's first unit waited for it)."""
     for (_pid, _url), factory in list(_SESSIONS.items()):
         factory.kw["bind"].dispose(close=False)
     _SESSIONS.clear()
+    from celery import current_app
+
+    config = current_app.conf.get("sizewise") or {}
+    if config.get("DATABASE_URL"):
+        try:
+            sessions(config).kw["bind"].connect().close()  # back to this process's pool
+        except SQLAlchemyError as exc:  # the database is down: the first task finds out
+            log.warning("pool process could not connect to the database yet: %s", exc)

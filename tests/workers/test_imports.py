@@ -10,9 +10,10 @@ from pathlib import Path
 import pytest
 
 REPO = Path(__file__).resolve().parents[2]
-# sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ← exploration_tasks,
+# warm, sessions, fanout ← celery_app ← queue ← running, sweeper ← tasks ← exploration_tasks,
 # webhook_tasks: a module imports only those before it.
 ORDER = (
+    "warm",
     "sessions",
     "fanout",
     "celery_app",
@@ -65,3 +66,22 @@ def test_no_worker_module_imports_a_private_name(name):
         if alias.name.startswith("_")
     ]
     assert private == [], f"workers.{name} imports private names: {private}"
+
+
+def test_the_worker_loads_the_simulation_code_before_its_pool_forks():
+    # The worker's own start-up path: the app's included modules, then worker_init, which
+    # Celery sends in the main process before forking pool children (workers/warm.py).
+    script = (
+        "import sys\n"
+        "from celery.signals import worker_init\n"
+        "from workers.celery_app import app\n"
+        "app.loader.import_default_modules()\n"
+        "assert 'service.engine.simulate' not in sys.modules, 'loaded before the signal'\n"
+        "worker_init.send(sender=None)\n"
+        "print('service.engine.simulate' in sys.modules)\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", script], cwd=REPO, capture_output=True, text=True, timeout=120
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.strip() == "True"

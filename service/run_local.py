@@ -31,17 +31,20 @@ API_COMMAND: tuple[str, ...] = (
     "-m",
     "gunicorn",
     # Two processes for two cores, four threads each: a request spends part of its time waiting
-    # on SQLite or PostgreSQL, and gthread keeps a client's connection open between calls (sync
-    # workers close every one). Measured with wrk on 2 cores: gthread about 1.7x the requests/s.
-    # Two threads per process cut the time a calculation spends inside Flask (p90 4-6 ms against
-    # 8-18 ms: fewer siblings to hand the GIL to), but the wait moved to gthread's queue: the
-    # client saw the same requests/s and p99 within the noise of a shared machine, so four stay.
+    # on SQLite or PostgreSQL, and a slow one (a report, a long record) does not hold up the
+    # process's other callers. No keep-alive: a kept connection stays with the process that
+    # accepted it, and the kernel often gave one process every connection (wrk at 2-8
+    # connections: 450-490 req/s with one core idle, or 850-970 req/s, run to run). Closed after
+    # each answer, a caller's next connection goes to whichever process is free first: 570-830
+    # req/s at 2-8 connections in every run.
     "--workers",
     "2",
     "--worker-class",
     "gthread",
     "--threads",
     "4",
+    "--keep-alive",
+    "0",
     "--timeout",
     "60",
     "--graceful-timeout",

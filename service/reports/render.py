@@ -126,7 +126,11 @@ def question_rows(q: dict, record: dict | None = None) -> list[tuple[str, str]]:
         rows.append(("Interval", words.interval_words(q).removeprefix("a ").capitalize()))
         rows.append(("Estimating", words.estimand_text(q)))
         return rows + _size_rows(q, record)
-    rows.append(("Looking for", _FIND.get(q["find"], q["find"]).capitalize()))
+    looking = _FIND.get(q["find"], q["find"])
+    if q["find"] == "power" and cell.phrases.enrolled:
+        # the posted size is part of a design (a two-stage design's stage rules), not one number
+        looking = "the power of the stated design"
+    rows.append(("Looking for", looking.capitalize()))
     alternative = "" if describe.is_omnibus(q) else q.get("alternative", "two-sided")
     rows.append(("Significance level", f"{words.fmt_num(q['alpha'])} {alternative}".strip()))
     if q.get("target_power") is not None:

@@ -101,6 +101,7 @@ def test_posted_design_report_says_its_sizes_and_exact_characteristics(method):
     text = _page_text(record)
     _says_the_design(text, 18, 4, 33, 10, "22.3")
     assert "Stages The posted design." in text
+    assert "Looking for The power of the stated design" in text
     assert "Total size n (enrolled at most, when the study continues to stage 2) 33" in text
     assert "Enrolled 33" not in text
     words = justification(record)

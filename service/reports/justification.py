@@ -672,30 +672,31 @@ def justification(record: dict, context: dict | None = None) -> str:
     return _tidy(opening + body + sim + (f" {note}" if note else "") + warnings)
 
 
+def _own_words(record: dict, hook: str, default):
+    """What the cell's ``Phrases`` hook ``hook`` says of the record, ``default`` without one."""
+    phrases = cell(record["question"]).phrases
+    words = getattr(phrases, hook) if phrases is not None else None
+    return words(record) if words is not None else default
+
+
 def details_sentence(record: dict) -> str:
     """The cell's own sentences on its answer details (``Phrases.details``), '' when none."""
-    phrases = cell(record["question"]).phrases
-    words = phrases.details if phrases is not None else None
-    return words(record) if words is not None else ""
+    return _own_words(record, "details", "")
 
 
 def size_words(record: dict) -> str:
     """The solved size in the cell's own words (``Phrases.size``), '' for the shared wording."""
-    phrases = cell(record["question"]).phrases
-    words = phrases.size if phrases is not None else None
-    return words(record) if words is not None else ""
+    return _own_words(record, "size", "")
 
 
 def size_figures(record: dict) -> list[tuple[str, str]]:
     """The answer's figures in the cell's own words (``Phrases.figures``), [] for the shared."""
-    words = cell(record["question"]).phrases.figures
-    return words(record) if words is not None else []
+    return _own_words(record, "figures", [])
 
 
 def size_stages(record: dict) -> dict | None:
     """The cell's table in place of the adjustment steps (``Phrases.stages``), else None."""
-    words = cell(record["question"]).phrases.stages
-    return words(record) if words is not None else None
+    return _own_words(record, "stages", None)
 
 
 def assurance_sentence(record: dict) -> str:

@@ -176,9 +176,12 @@ class SqliteFileStorage(MemoFirst, Storage):
                 os.close(os.open(path, os.O_WRONLY | os.O_CREAT, 0o600))
         self._local = threading.local()
         self.memo = WindowMemo()
-        conn = self._connect()
-        conn.execute("PRAGMA journal_mode=WAL")
-        conn.execute(_TABLE)
+        # As the only writer: two API processes booting at once both switch the file to WAL,
+        # and a journal-mode switch meeting another one fails at once ("database is locked")
+        # instead of waiting, which stopped a worker's boot and with it the whole server.
+        with self._writing() as conn:
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute(_TABLE)
 
     @property
     def base_exceptions(self) -> type[Exception]:

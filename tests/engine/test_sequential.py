@@ -125,7 +125,11 @@ def test_maximum_sample_size_ratios(shape, power, ratios):
 
 
 def _mvn_continue(t, lower, upper, drift=0.0):
-    """P(lower_j < Z_j < upper_j for every j ≤ k), k = 1..K, by scipy's multivariate normal."""
+    """P(lower_j < Z_j < upper_j for every j ≤ k), k = 1..K, by scipy's multivariate normal.
+
+    scipy integrates by randomized quasi-Monte Carlo: seeded so the check is the same every run,
+    and with enough points that its error (under 6e-7 over 20 seeds at K = 4) sits well inside
+    the tests' 2e-6 (400,000 points once missed it by 1e-7)."""
     t = np.asarray(t)
     out = []
     for k in range(1, len(t) + 1):
@@ -134,7 +138,9 @@ def _mvn_continue(t, lower, upper, drift=0.0):
         mean = drift * np.sqrt(tt)
         lo = np.maximum(np.asarray(lower[:k], float), -40.0)
         hi = np.minimum(np.asarray(upper[:k], float), 40.0)
-        mvn = stats.multivariate_normal(mean, cov, maxpts=400_000, abseps=1e-8, releps=1e-8)
+        mvn = stats.multivariate_normal(
+            mean, cov, maxpts=1_000_000, abseps=1e-8, releps=1e-8, seed=2026
+        )
         out.append(mvn.cdf(hi, lower_limit=lo))
     return np.asarray(out)
 

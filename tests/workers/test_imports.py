@@ -85,3 +85,13 @@ def test_the_worker_loads_the_simulation_code_before_its_pool_forks():
     )
     assert done.returncode == 0, done.stderr[-2000:]
     assert done.stdout.strip() == "True"
+
+
+def test_the_warm_up_chunk_is_built_by_the_engine_and_runs():
+    # The warm-up goes through the API's validation and the engine's plan, so a change of the
+    # chunk format cannot leave it behind: it must run and count its replicates.
+    from workers.warm import warm
+
+    done = warm()
+    assert done["replicates"] == 10
+    assert 0 <= done["rejections"] <= 10

@@ -34,7 +34,9 @@ DERIVED = {
         "expected events per participant in the treatment group"
     ),
     # repeated measures
-    "variance_factor": Quantity("variance per participant of a group's estimate, in SD squared"),
+    "variance_factor": Quantity(
+        "variance factor u (a group's estimate from n participants has variance u·SD²/n)"
+    ),
     "completers": Quantity("proportion of participants attending every visit"),
     # lognormal outcomes
     "sd_within_log": Quantity("within-subject SD on the log scale"),

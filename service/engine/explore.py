@@ -152,6 +152,18 @@ def _cell_questions(
     return axes, cells
 
 
+def value_questions(question: dict, grid) -> list[tuple[str, int, dict]]:
+    """Validate ``grid`` and return, for each listed value alone, (path, index, the question at
+    that value): what the validation layer loads to refuse a value the question could not hold."""
+    out = []
+    for path, values in _check_grid(question, grid):
+        for i, v in enumerate(values):
+            q = copy.deepcopy(question)
+            _set_path(q, path, v)
+            out.append((path, i, q))
+    return out
+
+
 def _check_question(question: dict, *, simulated_ok: bool) -> None:
     if not isinstance(question, dict):
         raise QuestionError(

@@ -57,6 +57,33 @@ def _refuse_extreme_cells(grid: dict) -> None:
         )
 
 
+def _refuse_values_the_question_refuses(question: dict, grid: dict) -> None:
+    """Refuse each grid value the question itself could not hold (alpha 0.7, a negative SD, an
+    allocation ratio of a single-group layout): a cell is the question at that value, so it is
+    loaded as a posted question would be, and its error is the submission's own words."""
+    from service.engine.explore import value_questions
+
+    from .errors import QuestionInvalid
+    from .question import load_question
+
+    try:
+        load_question(question)
+    except QuestionInvalid:
+        return  # not a reloadable question (never for a stored one): the cells report instead
+    errors = {}
+    for path, index, cell in value_questions(question, grid):
+        try:
+            load_question(cell)
+        except QuestionInvalid as exc:
+            said = "; ".join(f"{field}: {' '.join(words)}" for field, words in exc.errors.items())
+            errors[f"grid.{path}.{index}"] = [f"gives a question that is refused: {said}"]
+    if errors:
+        raise ExplorationRefused(
+            f"{len(errors)} grid value(s) give a question that would be refused at submission",
+            errors,
+        )
+
+
 def price(
     question: dict,
     record: dict | None,
@@ -96,6 +123,8 @@ def price(
         field = "grid"
         _refuse_extreme_cells(item["grid"])
     try:
+        if kind == "sensitivity_grid":
+            _refuse_values_the_question_refuses(question, item["grid"])
         estimate = int(exploration_cost(kind, params, question, record))
     except QuestionError as exc:
         key = (

@@ -303,3 +303,54 @@ def test_type_i_error_of_the_normal_departure_holds_alpha(app, client, api):
     # (formula; scipy.stats.binom).
     lo, hi = stats.binom.interval(0.999, 2000, 0.05)
     assert lo / 2000 <= normal["type_i_error"]["estimate"] <= hi / 2000
+
+
+TWO_STAGE = {
+    "outcome": "binary",
+    "layout": "two_stage",
+    "find": "sample_size",
+    "effect": {"p": 0.4},
+    "assumptions": {"p_null": 0.2},
+}
+
+
+@pytest.mark.parametrize(
+    ("question", "grid", "field", "words"),
+    [
+        # Each value a grid lists must be one the question itself may hold: the cell is the
+        # question at that value, refused at submission with these words.
+        (QUESTION, {"alpha": [0.05, 0.7]}, "grid.alpha.1", "alpha: must be in (0, 0.5]; got 0.7"),
+        (QUESTION, {"target_power": [0.8, 1.2]}, "grid.target_power.1", "target_power: must be"),
+        (QUESTION, {"assumptions.sd": [1.0, -1.0]}, "grid.assumptions.sd.1", "assumptions.sd"),
+        (
+            QUESTION,
+            {"adjustments.dropout": [0.1, 1.0]},
+            "grid.adjustments.dropout.1",
+            "adjustments.dropout",
+        ),
+        # a single-group layout has no allocation ratio: a grid over it would repeat one answer
+        (
+            TWO_STAGE,
+            {"allocation_ratio": [1, 2]},
+            "grid.allocation_ratio.1",
+            "applies only to two-group layouts",
+        ),
+    ],
+)
+def test_a_grid_value_the_question_would_refuse_is_refused(app, api, question, grid, field, words):
+    request_id = api.submit(api.request_body(question)).get_json()["id"]
+    r = api.post(
+        f"/v1/requests/{request_id}/explorations", {"type": "sensitivity_grid", "grid": grid}
+    )
+    assert r.status_code == 422 and r.mimetype == PROBLEM
+    errors = r.get_json()["errors"]
+    assert field in errors and words in " ".join(errors[field]), errors
+    assert [k for k in errors if k.startswith("grid.")] == [field]  # the valid value passes
+    # posted with the request: the same error inside the item, and nothing is stored
+    r = api.submit(
+        api.request_body(question, explorations=[{"type": "sensitivity_grid", "grid": grid}])
+    )
+    assert r.status_code == 422
+    assert f"explorations.0.{field}" in r.get_json()["errors"]
+    with session_scope(api.sessions()) as session:
+        assert session.query(Exploration).count() == 0

@@ -232,9 +232,9 @@ def sensitivity(
     Returns
     -------
     dict with ``axes`` (path and values, in grid order), ``cells`` (row-major over the axes, the
-    last axis fastest; each with ``values``, ``per_group``, ``total``, ``power``, ``mcse`` and
-    ``error``), ``find``, ``outcome``, ``layout``, ``method`` and ``base`` (the question's own
-    answer).
+    last axis fastest; each with ``values``, ``per_group``, ``total``, ``power``, ``mcse``,
+    ``details`` (the record's ``sample_size.details``, None for most cells) and ``error``),
+    ``find``, ``outcome``, ``layout``, ``method`` and ``base`` (the question's own answer).
 
     Examples
     --------
@@ -280,6 +280,8 @@ def _summary(record: dict) -> dict:
         "total": size["total"],
         "power": power.get("estimate"),
         "mcse": power.get("mcse"),
+        # the cell's own answer details (a two-stage design's stage rules), as in its record
+        "details": size.get("details"),
         "error": None,
     }
 
@@ -298,6 +300,7 @@ def _cell(q: dict, values: dict, **hooks) -> dict:
             "total": None,
             "power": None,
             "mcse": None,
+            "details": None,
             "error": str(exc),
         }
     return {"values": values, **_summary(record)}

@@ -593,6 +593,18 @@ def _robustness_view(panel: dict | None, q: dict) -> dict | None:
     }
 
 
+def _grid_column(sensitivity: dict | None, q: dict) -> dict | None:
+    """The cell's own grid column (``Phrases.grid_column``): its heading and one text per grid
+    cell; None when the cell has none or no grid cell has anything to say in it."""
+    phrases = describe.cell(q).phrases
+    column = phrases.grid_column if phrases is not None else None
+    if not sensitivity or column is None:
+        return None
+    heading, words = column
+    texts = [words(c.get("details")) for c in sensitivity.get("cells") or []]
+    return {"heading": heading, "texts": texts} if any(texts) else None
+
+
 def render_report(
     request: dict,
     record: dict,
@@ -646,6 +658,7 @@ def render_report(
                 {"path": a["path"], "label": describe.path_label(q, a["path"]).capitalize()}
                 for a in (sensitivity or {}).get("axes") or []
             ],
+            sensitivity_column=_grid_column(sensitivity, q),
             sensitivity_svg=Markup(sensitivity_svg) if sensitivity_svg else None,
             robustness=_robustness_view(robustness, q),
             pending=[

@@ -86,3 +86,35 @@ def test_report_shows_the_grid_as_table_and_curves_and_pending_explorations(anal
     for path in ("effect.difference", "assumptions.sd"):
         assert f">{describe.path_label(q, path).capitalize()}</th>" in page
         assert path not in page.split('id="sensitivity"')[1].split("</table>")[0]
+
+
+def test_a_two_stage_grid_shows_each_cells_stage_rules():
+    # published: Simon (1989), Controlled Clin Trials 10:1, Table 1: p0 0.20, p1 0.40, alpha .05,
+    # power .80: the optimal design is r1/n1 = 3/13, r/n = 12/43, E(N | p0) = 20.6. A grid over
+    # p re-solves the design, so each row must say which design it found, not only its maximum.
+    from json import loads
+    from pathlib import Path
+
+    from service.schemas import load_question
+    from tests.posted import record_of
+
+    posted = loads(
+        (
+            Path(__file__).resolve().parents[2]
+            / "service/examples/northbridge_phase2_two_stage.json"
+        ).read_text()
+    )
+    q = load_question(posted)
+    grid = sensitivity(q, {"effect.p": [0.35, 0.4]})
+    record = record_of(posted)
+    page = render_report(
+        REQUEST, record, curve_svg=power_curve_svg(curve_points(record)), sensitivity=grid
+    )
+    table = page.split('id="sensitivity"')[1].split("</table>")[0]
+    assert "Stage rules r1/n1, r/n" in table
+    rows = table.split("<tr>")[2:]
+    published = next(r for r in rows if ">0.4<" in r)
+    assert "3/13, 12/43" in published and "20.6" in published and ">43<" in published
+    other = next(r for r in rows if ">0.35<" in r)
+    d = grid["cells"][0]["details"]["two_stage"]  # the engine's own design at p = 0.35
+    assert f"{d['r1']}/{d['n1']}, {d['r']}/{d['n']}" in other

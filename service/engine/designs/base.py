@@ -249,6 +249,10 @@ class Phrases:
     # optional: the report's label of a posted size (find = power) when it is not simply the
     # number enrolled (a two-stage design's n is reached only in stage 2); None: "Enrolled"
     enrolled: str | None = None
+    # optional (heading, sample_size.details -> words): a sensitivity grid's column for a cell
+    # whose answer is more than its size (a two-stage design's stage rules), '' for a cell
+    # without details; None: no such column
+    grid_column: tuple[str, Callable[[dict | None], str]] | None = None
 
 
 @dataclass(frozen=True)

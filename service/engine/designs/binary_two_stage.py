@@ -421,6 +421,15 @@ def _design(record: dict) -> tuple[dict, bool] | None:
     return None
 
 
+def grid_words(details: dict | None) -> str:
+    """A grid cell's design in brief: its stage rules and its expected size under p_null ('' for
+    a cell without a found design: find = power keeps the posted design in every cell)."""
+    d = (details or {}).get("two_stage")
+    if not d:
+        return ""
+    return f"{d['r1']}/{d['n1']}, {d['r']}/{d['n']} ({d['expected_n_null']:.1f})"
+
+
 def _rates(record: dict) -> tuple[str, str]:
     v = values(record["question"], FIELDS)
     return fmt(v["p_null"]), fmt(v["p"])
@@ -602,6 +611,10 @@ DESIGN = Design(
         figures=answer_figures,
         stages=stages_table,
         enrolled="Total size n (enrolled at most, when the study continues to stage 2)",
+        grid_column=(
+            "Stage rules r1/n1, r/n (expected size at the uninteresting rate)",
+            grid_words,
+        ),
     ),
     example="northbridge_phase2_two_stage.json",
     contrast=_contrast,

@@ -3,6 +3,7 @@ the API, said in readable pages."""
 
 from __future__ import annotations
 
+import html
 import re
 
 from service.desk import explorations
@@ -130,6 +131,11 @@ def test_ask_for_a_sensitivity_grid_and_a_robustness_panel(desk, desk_api):
     assert listed[0][1]["grid"] == {"alpha": [0.05, 0.01]}
     bad = _post(d, request_id, "explore", dict(grid, values="a, b"))
     assert bad.status_code == 422 and "numbers separated by commas" in bad.get_data(as_text=True)
+    # a value the question could not hold is refused in the submission's words, nothing stored
+    refused = _post(d, request_id, "explore", dict(grid, values="0.05, 0.7"))
+    text = html.unescape(refused.get_data(as_text=True))
+    assert refused.status_code == 422 and "alpha: must be in (0, 0.5]; got 0.7" in text
+    assert len(_explorations_listed(desk_api, request_id)) == 2
 
 
 def test_an_auditor_sees_no_approve_button_and_cannot_approve_by_posting(desk, desk_api):

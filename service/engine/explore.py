@@ -145,23 +145,26 @@ def _cell_questions(
     cells = []
     for combo in itertools.product(*(values for _, values in axes)):
         values = {path: v for (path, _), v in zip(axes, combo, strict=True)}
-        q = copy.deepcopy(question)
-        for path, v in values.items():
-            _set_path(q, path, v)
-        cells.append((values, q))
+        cells.append((values, _question_at(question, values)))
     return axes, cells
+
+
+def _question_at(question: dict, values: dict[str, float]) -> dict:
+    """A copy of ``question`` with each dotted path set to its value."""
+    q = copy.deepcopy(question)
+    for path, v in values.items():
+        _set_path(q, path, v)
+    return q
 
 
 def value_questions(question: dict, grid) -> list[tuple[str, int, dict]]:
     """Validate ``grid`` and return, for each listed value alone, (path, index, the question at
     that value): what the validation layer loads to refuse a value the question could not hold."""
-    out = []
-    for path, values in _check_grid(question, grid):
-        for i, v in enumerate(values):
-            q = copy.deepcopy(question)
-            _set_path(q, path, v)
-            out.append((path, i, q))
-    return out
+    return [
+        (path, i, _question_at(question, {path: v}))
+        for path, values in _check_grid(question, grid)
+        for i, v in enumerate(values)
+    ]
 
 
 def _check_question(question: dict, *, simulated_ok: bool) -> None:

@@ -69,7 +69,9 @@ def _refuse_values_the_question_refuses(question: dict, grid: dict) -> None:
     try:
         load_question(question)
     except QuestionInvalid:
-        return  # not a reloadable question (never for a stored one): the cells report instead
+        # A question stored under older, looser checks: refusing its every value would blame
+        # the grid; its cells report the engine's errors instead.
+        return
     errors = {}
     for path, index, cell in value_questions(question, grid):
         try:
